@@ -1,0 +1,87 @@
+"""The ``lensdelay`` command line. Thin: parse arguments, call the library, print.
+
+Every :class:`~lensdelay.errors.LensdelayError` becomes one line on stderr and exit
+status 2; nothing is written when input is bad.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+import warnings
+
+from . import __version__
+from .errors import InputError, LensdelayError, LensdelayWarning
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse, but a usage error is one line and exit 2."""
+
+    def error(self, message):  # noqa: D401 - argparse hook
+        self.exit(2, f"lensdelay: argument error: {message}\n")
+
+
+def _finite(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError as err:
+        raise argparse.ArgumentTypeError(f"must be a number, got {text!r}") from err
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"must be finite, got {text!r}")
+    return value
+
+
+def _cmd_images(args) -> int:
+    from .commands import images_command
+
+    result = images_command(args.model, args.source[0], args.source[1],
+                            source_redshift=args.source_redshift,
+                            lens_redshift=args.lens_redshift)
+    if args.json:
+        print(json.dumps(result, indent=2))
+    else:
+        from .report import images_text
+
+        print(images_text(result))
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="lensdelay", description=(
+        "Forecast when, where and how bright a strongly lensed transient reappears."))
+    parser.add_argument("--version", action="version", version=f"lensdelay {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    p = sub.add_parser("images", help="all images of a point source behind a mass model")
+    p.add_argument("model", help="model TOML file with [[mass]] entries")
+    p.add_argument("--source", nargs=2, type=_finite, metavar=("X", "Y"), required=True,
+                   help="source position, arcsec (x East, y North)")
+    p.add_argument("--source-redshift", type=_finite, default=None)
+    p.add_argument("--lens-redshift", type=_finite, default=None)
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(func=_cmd_images)
+
+    from .commands import register_more
+
+    register_more(sub, _finite)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("default", LensdelayWarning)
+            return int(args.func(args) or 0)
+    except LensdelayError as err:
+        print(f"lensdelay: {err}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("lensdelay: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

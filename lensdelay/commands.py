@@ -1,0 +1,76 @@
+"""What each sub-command does, between the files and the physics.
+
+Functions here read inputs through :mod:`lensdelay.loading`, call the physics
+modules, and return plain JSON-ready dictionaries; printing and writing belong to
+:mod:`lensdelay.cli`, :mod:`lensdelay.report` and :mod:`lensdelay.outputs`.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from . import __version__
+from .cosmology import LensDistances, cosmology_from_spec, describe_cosmology
+from .errors import InputError
+from .images import find_images
+from .lens import PARITIES
+from .loading import file_hash, load_model
+
+
+def _redshifts(doc: dict, source: str, lens_redshift, source_redshift):
+    lens_tab = doc.get("lens", {})
+    if not isinstance(lens_tab, dict):
+        raise InputError(f"lens must be a table, got {lens_tab!r}", source)
+    z_l = lens_redshift if lens_redshift is not None else lens_tab.get("redshift")
+    if z_l is None:
+        raise InputError("lens.redshift is needed for delays in days "
+                         "(give [lens] redshift or --lens-redshift), got nothing", source)
+    z_ref = lens_tab.get("reference_source_redshift")
+    z_s = source_redshift if source_redshift is not None else z_ref
+    if z_s is None:
+        raise InputError("a source redshift is needed (give --source-redshift or "
+                         "[lens] reference_source_redshift), got nothing", source)
+    z_ref = z_s if z_ref is None else z_ref
+    for name, z in (("lens.redshift", z_l), ("source redshift", z_s),
+                    ("lens.reference_source_redshift", z_ref)):
+        if isinstance(z, bool) or not isinstance(z, (int, float)) or not np.isfinite(z) or z <= 0:
+            raise InputError(f"{name} must be a positive finite number, got {z!r}", source)
+    return float(z_l), float(z_s), float(z_ref)
+
+
+def images_command(model_path: str, beta_x: float, beta_y: float, *,
+                   source_redshift=None, lens_redshift=None) -> dict:
+    """All images of one source behind the model in ``model_path``."""
+    model, doc = load_model(model_path)
+    z_l, z_s, z_ref = _redshifts(doc, model_path, lens_redshift, source_redshift)
+    try:
+        cosmo = cosmology_from_spec(doc.get("cosmology"))
+        distances = LensDistances(cosmo, z_l, z_ref)
+        scale = distances.deflection_scale(z_s)
+        days = distances.days_per_arcsec2(z_s)
+    except InputError as err:
+        raise err.with_source(model_path) from err
+    lens = model.lens()
+    table = find_images(lens, [beta_x], [beta_y], scale)
+    t = table.fermat * days
+    first = t.min() if len(t) else 0.0
+    labels = [chr(ord("A") + i) if i < 26 else f"I{i + 1}" for i in range(len(table))]
+    images = [
+        {"label": lab, "x": float(x), "y": float(y), "magnification": float(mu),
+         "parity": PARITIES[int(p)], "delay_days": float(dt - first)}
+        for lab, x, y, mu, p, dt in zip(labels, table.x, table.y, table.magnification,
+                                        table.parity, t)
+    ]
+    return {
+        "tool": "lensdelay", "version": __version__, "input_sha256": file_hash(model_path),
+        "model": model_path, "cosmology": describe_cosmology(cosmo),
+        "lens_redshift": z_l, "source_redshift": z_s, "reference_source_redshift": z_ref,
+        "source": {"x": beta_x, "y": beta_y},
+        "time_delay_distance_Mpc": float(distances.time_delay_distance(z_s).value),
+        "delay_reference": "first arrival",
+        "images": images,
+    }
+
+
+def register_more(sub, number) -> None:
+    """Sub-commands beyond ``images`` register here as they are built."""
+    return None
