@@ -1,0 +1,78 @@
+"""The images command: output and bad-input handling (issue 2)."""
+import json
+
+import pytest
+
+from lensdelay.cli import main
+
+GOOD = """
+[lens]
+redshift = 0.5
+reference_source_redshift = 2.0
+[[mass]]
+profile = "SIS"
+einstein_radius = 1.0
+"""
+
+
+def run(capsys, *argv):
+    code = main(list(argv))
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+def test_images_json_sis(tmp_path, capsys):
+    """SIS: two images at β ± θE, the saddle later by (D_dt/c)·2θEβ (SEF92)."""
+    path = tmp_path / "m.toml"
+    path.write_text(GOOD)
+    code, out, err = run(capsys, "images", str(path), "--source", "0.2", "0", "--json")
+    assert code == 0, err
+    res = json.loads(out)
+    xs = sorted(im["x"] for im in res["images"])
+    assert xs == pytest.approx([-0.8, 1.2])
+    from lensdelay.cosmology import DAYS_PER_MPC_ARCSEC2
+    later = max(im["delay_days"] for im in res["images"])
+    assert later == pytest.approx(res["time_delay_distance_Mpc"] * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.2, rel=1e-8)
+
+
+BAD = [
+    (GOOD.replace('einstein_radius = 1.0', 'einstein_radius = -1.0'), [], "mass[0].einstein_radius must be > 0, got -1"),
+    (GOOD.replace('einstein_radius = 1.0', 'einstein_radius = 0.0'), [], "mass[0].einstein_radius must be > 0, got 0"),
+    (GOOD.replace('einstein_radius = 1.0', 'einstein_radius = nan'), [], "mass[0].einstein_radius must be finite"),
+    (GOOD.replace('einstein_radius = 1.0', 'einstein_radius = inf'), [], "mass[0].einstein_radius must be finite"),
+    (GOOD.replace('"SIS"', '"SIE"').replace('einstein_radius = 1.0', 'einstein_radius = 1.0\naxis_ratio = 1.5'), [], "mass[0].axis_ratio must be in (0, 1], got 1.5"),
+    (GOOD.replace('"SIS"', '"SIE"').replace('einstein_radius = 1.0', 'einstein_radius = 1.0\naxis_ratio = 0'), [], "mass[0].axis_ratio must be in (0, 1], got 0"),
+    (GOOD.replace('"SIS"', '"powerlaw"'), [], "(did you mean 'power_law'?)"),
+    (GOOD.replace('einstein_radius = 1.0', 'einstien_radius = 1.0'), [], "(did you mean 'einstein_radius'?)"),
+    (GOOD, ["--source-redshift", "0.4"], "source redshift must be greater than the lens redshift 0.5, got 0.4"),
+    (GOOD, ["--source-redshift", "0.5"], "source redshift must be greater than the lens redshift 0.5, got 0.5"),
+    ("[[mass]\nprofile=", [], "is not valid TOML"),
+    ("", [], "is empty"),
+]
+
+
+@pytest.mark.parametrize("text, extra, message", BAD)
+def test_bad_model_one_line_exit_2(tmp_path, capsys, text, extra, message):
+    """Bad input: one line naming file and field, exit 2, no traceback (brief)."""
+    path = tmp_path / "m.toml"
+    path.write_text(text)
+    code, out, err = run(capsys, "images", str(path), "--source", "0.1", "0", *extra)
+    assert code == 2
+    assert out == ""
+    assert err.count("\n") == 1 and "Traceback" not in err
+    assert str(path) in err
+    assert message in err
+
+
+def test_missing_file_and_directory(tmp_path, capsys):
+    code, _, err = run(capsys, "images", str(tmp_path / "nope.toml"), "--source", "0", "0")
+    assert code == 2 and "file does not exist" in err and err.count("\n") == 1
+    code, _, err = run(capsys, "images", str(tmp_path), "--source", "0", "0")
+    assert code == 2 and "is a directory" in err
+
+
+def test_bad_argument_is_one_line(capsys):
+    with pytest.raises(SystemExit) as ex:
+        main(["images", "m.toml", "--source", "nan", "0"])
+    assert ex.value.code == 2
+    assert capsys.readouterr().err.count("\n") == 1
