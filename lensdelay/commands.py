@@ -71,6 +71,91 @@ def images_command(model_path: str, beta_x: float, beta_y: float, *,
     }
 
 
+def provenance(inputs, cosmo, seed=None) -> dict:
+    """Version, input hash, cosmology and seed: recorded in every JSON output."""
+    out = {"tool": "lensdelay", "version": __version__,
+           "inputs": [str(p) for p in inputs], "input_sha256": file_hash(*inputs),
+           "cosmology": describe_cosmology(cosmo)}
+    if seed is not None:
+        out["seed"] = int(seed)
+    return out
+
+
+def check_command(scenario_path: str, model_paths=None) -> dict:
+    """Validate a scenario (and its model) without fitting anything."""
+    from .fit import check_constraints
+    from .likelihood import ImageLikelihood
+    from .loading import load_scenario
+
+    sc, used = load_scenario(scenario_path, model_paths)
+    like = ImageLikelihood(sc, sc.model)
+    try:
+        check_constraints(like)
+    except InputError as err:
+        raise err.with_source(scenario_path) from err
+    return {"scenario": sc, "likelihood": like, "inputs": used}
+
+
+def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, sample=False,
+                walkers=32, steps=2000, seed=1, resume=False, out_dir=None, progress=True) -> dict:
+    """Fit (and optionally sample) the scenario's model; returns results and figures."""
+    from .fit import fit
+    from .likelihood import ImageLikelihood
+    from .loading import load_scenario
+
+    sc, used = load_scenario(scenario_path, model_paths)
+    like = ImageLikelihood(sc, sc.model, use_delays=use_delays)
+    try:
+        result = fit(like, seed=seed)
+    except InputError as err:
+        raise err.with_source(scenario_path) from err
+    chain = None
+    if sample:
+        from .posterior import sample as run_sampler
+
+        chain = run_sampler(like, result.values, walkers=walkers, steps=steps, seed=seed,
+                            checkpoint_dir=out_dir, resume=resume, progress=progress,
+                            scales=result.errors)
+    return {"scenario": sc, "likelihood": like, "fit": result, "chain": chain,
+            "provenance": provenance(used, sc.cosmology, seed)}
+
+
+def fit_json(res: dict) -> dict:
+    """The JSON document of a fit (and its posterior, if sampled)."""
+    fr, like = res["fit"], res["likelihood"]
+    doc = dict(res["provenance"])
+    doc.update({
+        "scenario": res["scenario"].name, "model": fr.model_label,
+        "parameters": {n: {"value": float(v), "stderr": (float(e) if np.isfinite(e) else None)}
+                       for n, v, e in zip(fr.names, fr.values, fr.errors)},
+        "chi2": fr.chi2, "constraints": fr.n_constraints, "free_parameters": fr.n_parameters,
+        "dof": fr.dof, "aic": fr.aic, "bic": fr.bic,
+        "residuals_mas": fr.residuals_mas, "unobserved_images": fr.unobserved_images,
+        "at_bounds": fr.at_bounds, "notes": fr.notes, "converged": fr.success,
+        "uses_delays": like.use_delays,
+    })
+    ch = res.get("chain")
+    if ch is not None:
+        s = ch.samples()
+        doc["posterior"] = {
+            "walkers": int(ch.chain.shape[1]), "steps": int(ch.chain.shape[0]), "burn": ch.burn,
+            "thin": ch.thin, "acceptance_fraction": float(np.mean(ch.acceptance)),
+            "autocorrelation_steps": {n: float(t) for n, t in zip(ch.names, ch.autocorr)},
+            "warnings": ch.warnings,
+            "summary": {n: summarise(s[:, i]) for i, n in enumerate(ch.names)},
+        }
+    return doc
+
+
+def summarise(values) -> dict:
+    """median, p16, p84, p2.5, p97.5 of samples."""
+    q = np.percentile(values, [50, 16, 84, 2.5, 97.5])
+    return {"median": float(q[0]), "p16": float(q[1]), "p84": float(q[2]),
+            "p2.5": float(q[3]), "p97.5": float(q[4])}
+
+
 def register_more(sub, number) -> None:
-    """Sub-commands beyond ``images`` register here as they are built."""
-    return None
+    """Sub-commands beyond ``images``."""
+    from . import cli_more
+
+    cli_more.register(sub, number)

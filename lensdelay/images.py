@@ -93,6 +93,8 @@ def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: in
         for _ in range(iterations):
             bx, by = lens.source_position(x, y, scale)
             rx, ry = beta_x - bx, beta_y - by
+            if np.all(np.abs(rx) + np.abs(ry) < 1e-13):   # all converged: stop early
+                break
             a11, a12, a22 = lens.jacobian(x, y, scale)
             det = a11 * a22 - a12 * a12
             det = np.where(np.abs(det) < 1e-14, np.copysign(1e-14, det), det)

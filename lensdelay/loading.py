@@ -55,3 +55,35 @@ def load_model(path: str | os.PathLike) -> tuple[MassModel, dict]:
     except InputError as err:
         raise err.with_source(str(path)) from err.__cause__
     return model, doc
+
+
+def load_scenario(path: str | os.PathLike, model_paths=None):
+    """Read and validate a scenario; ``model_paths`` (a list) replaces its mass model.
+
+    A ``model = "..."`` reference is looked up relative to the scenario's folder,
+    then the folder above it (where ``models/`` sits), then the working directory.
+    Returns the scenario and the list of input files (for the provenance hash).
+    """
+    from .scenario import parse_scenario
+
+    path = Path(path)
+    doc = read_toml(path)
+    used = [path]
+
+    def resolve(ref: str) -> MassModel:
+        for base in (path.parent, path.parent.parent, Path.cwd()):
+            candidate = base / ref
+            if candidate.is_file():
+                used.append(candidate)
+                return load_model(candidate)[0]
+        raise InputError(f"model refers to {ref!r}, which does not exist next to the scenario "
+                         "or in the working directory")
+
+    if model_paths:
+        doc = {k: v for k, v in doc.items() if k not in ("mass", "model")}
+        doc["model"] = "<command line>"
+        scenario = parse_scenario(doc, str(path), load_model=lambda ref: load_model(model_paths[0])[0])
+        used.append(Path(model_paths[0]))
+    else:
+        scenario = parse_scenario(doc, str(path), load_model=resolve)
+    return scenario, used

@@ -23,3 +23,47 @@ def images_text(result: dict) -> str:
     lines += ["", "x is East, y is North; delay is after the first arrival (positive = later).",
               CAUTION]
     return "\n".join(lines)
+
+
+def fit_text(res: dict) -> str:
+    """Plain-text report of a fit (and posterior)."""
+    fr = res["fit"]
+    lines = [f"Fit of model {fr.model_label!r} to scenario {res['scenario'].name!r}", ""]
+    lines.append(f"{'parameter':<32} {'value':>12} {'± stderr':>10}")
+    for n, v, e in zip(fr.names, fr.values, fr.errors):
+        err = f"{e:10.4g}" if e == e else f"{'—':>10}"
+        lines.append(f"{n:<32} {v:12.5g} {err}")
+    lines += ["", f"chi2 = {fr.chi2:.3f} for {fr.n_constraints} constraints and {fr.n_parameters} "
+              f"free parameters: dof = {fr.dof}; AIC = {fr.aic:.2f}, BIC = {fr.bic:.2f}"]
+    if fr.dof <= 0:
+        lines.append("WARNING: no degrees of freedom left: chi2 does not test this model.")
+    lines += ["", "residuals (model − observed):",
+              f"{'image':<10} {'dx [mas]':>9} {'dy [mas]':>9} {'sigma':>7} {'magnif.':>9}"]
+    for r in fr.residuals_mas:
+        name = f"{r['family']}/{r['image']}"
+        if r["reproduced"]:
+            lines.append(f"{name:<10} {r['dx_mas']:9.2f} {r['dy_mas']:9.2f} {r['sigma_mas']:7.1f} "
+                         f"{r['magnification']:+9.3f}")
+        else:
+            lines.append(f"{name:<10} {'not reproduced by the model':>37}")
+    if fr.unobserved_images:
+        lines += ["", "predicted images that were not observed:"]
+        for im in fr.unobserved_images:
+            lines.append(f"  {im['family']}: ({im['x']:+.4f}, {im['y']:+.4f}) arcsec, "
+                         f"mu = {im['magnification']:+.4f}, {im['parity']}")
+    for note in fr.notes:
+        lines.append(f"NOTE: {note}")
+    ch = res.get("chain")
+    if ch is not None:
+        s = ch.samples()
+        lines += ["", f"posterior: {ch.chain.shape[1]} walkers × {ch.chain.shape[0]} steps, burn-in "
+                  f"{ch.burn}, thin {ch.thin}, {len(s)} samples; acceptance {ch.acceptance.mean():.2f}",
+                  f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7}"]
+        import numpy as np
+
+        for i, n in enumerate(ch.names):
+            q = np.percentile(s[:, i], [50, 16, 84])
+            lines.append(f"{n:<32} {q[0]:12.5g} {q[1]:12.5g} {q[2]:12.5g} {ch.autocorr[i]:7.0f}")
+        for w in ch.warnings:
+            lines.append(f"WARNING: {w}")
+    return "\n".join(lines)

@@ -1,0 +1,99 @@
+"""Sub-commands check, fit (and, as they come, forecast and hubble): argument wiring."""
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+from .errors import InputError
+
+
+def _out_dir(path: str | None, inputs) -> Path | None:
+    """The output folder; refuses a file, and any output that would overwrite an input."""
+    if path is None:
+        return None
+    out = Path(path)
+    if out.exists() and not out.is_dir():
+        raise InputError(f"--out must be a folder, got the file {path!r}")
+    return out
+
+
+def _guard_inputs(out: Path, names, inputs) -> None:
+    ins = {Path(p).resolve() for p in inputs}
+    for n in names:
+        if (out / n).resolve() in ins:
+            raise InputError(f"--out {out} would overwrite the input {out / n}; choose another folder")
+
+
+def cmd_check(args) -> int:
+    from .commands import check_command
+
+    res = check_command(args.scenario, args.model)
+    sc, like = res["scenario"], res["likelihood"]
+    print(f"{args.scenario}: ok — scenario {sc.name!r}, {len(sc.families)} famil"
+          f"{'y' if len(sc.families) == 1 else 'ies'}, {sc.n_images} images, model "
+          f"{sc.model.label!r} with {like.n_parameters} free parameters for {like.n_constraints} "
+          f"constraints (dof = {like.dof})")
+    return 0
+
+
+def cmd_fit(args) -> int:
+    from .commands import fit_command, fit_json
+    from .report import fit_text
+
+    out = _out_dir(args.out, [])
+    res = fit_command(args.scenario, args.model, use_delays=args.use_delays, sample=args.sample,
+                      walkers=args.walkers, steps=args.steps, seed=args.seed, resume=args.resume,
+                      out_dir=out, progress=not args.quiet)
+    print(fit_text(res))
+    if out is not None:
+        from .figures import corner_figure, residual_figure, sky_figure
+        from .storage import atomic_save_npz, atomic_savefig, atomic_write_json
+
+        names = ["fit.json", "fit_sky.png", "fit_sky.pdf", "fit_residuals.png", "fit_residuals.pdf",
+                 "samples.npz", "corner.png", "corner.pdf"]
+        _guard_inputs(out, names, res["provenance"]["inputs"])
+        doc = fit_json(res)
+        like, fr = res["likelihood"], res["fit"]
+        figs = {"fit_sky": sky_figure(like, fr.values, fr, title=f"{res['scenario'].name}: "
+                                      f"{fr.model_label} (North up, East left)"),
+                "fit_residuals": residual_figure(fr)}
+        ch = res["chain"]
+        if ch is not None:
+            figs["corner"] = corner_figure(ch.samples(), ch.names)
+        out.mkdir(parents=True, exist_ok=True)
+        if ch is not None:
+            import numpy as np
+
+            atomic_save_npz(out / "samples.npz", samples=ch.samples(), names=np.array(ch.names),
+                            log_prob=ch.log_prob[ch.burn::ch.thin].ravel(), seed=ch.seed)
+        for stem, fig in figs.items():
+            atomic_savefig(fig, out / stem)
+        atomic_write_json(out / "fit.json", doc)
+        print(f"wrote {out}/fit.json and figures", file=sys.stderr)
+    return 0
+
+
+def register(sub, number) -> None:
+    p = sub.add_parser("check", help="validate a scenario without running anything")
+    p.add_argument("scenario")
+    p.add_argument("--model", action="append", help="model TOML replacing the scenario's mass model")
+    p.set_defaults(func=cmd_check)
+
+    p = sub.add_parser("fit", help="fit a mass model to the image positions")
+    p.add_argument("scenario")
+    p.add_argument("--model", action="append", help="model TOML replacing the scenario's mass model")
+    p.add_argument("--out", help="folder for fit.json, figures, samples and checkpoints")
+    p.add_argument("--use-delays", action="store_true", help="fit measured delays too (H0 free)")
+    p.add_argument("--sample", action="store_true", help="sample the posterior with emcee")
+    p.add_argument("--walkers", type=int, default=32)
+    p.add_argument("--steps", type=int, default=2000)
+    p.add_argument("--seed", type=int, default=1)
+    p.add_argument("--resume", action="store_true", help="continue the chain checkpointed in --out")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=cmd_fit)
+    try:
+        from . import forecast_cli
+    except ImportError:  # built in a later step
+        return
+    forecast_cli.register(sub, number)

@@ -1,0 +1,111 @@
+"""Figures, kept apart from the computation. Sky views: North up, East left, arcsec."""
+from __future__ import annotations
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+from .critical import critical_lines  # noqa: E402
+
+MARKERS = {"minimum": "o", "saddle": "s", "maximum": "^"}
+
+
+def _sky_axes(ax, extent):
+    ax.set_xlim(extent, -extent)          # East to the left
+    ax.set_ylim(-extent, extent)
+    ax.set_aspect("equal")
+    ax.set_xlabel("x = ΔRA cos δ [arcsec]  (East ←)")
+    ax.set_ylabel("y = ΔDec [arcsec]  (North ↑)")
+
+
+def sky_figure(like, values, fit_result, title=""):
+    """Observed and model images, critical curves and caustics of every family."""
+    fig, ax = plt.subplots(figsize=(6.4, 6.0))
+    pts = np.concatenate([np.hypot(f.x, f.y) for f in like.families])
+    extent = 1.4 * float(pts.max()) + 0.3
+    lens = like.model.lens(values[:like.n_model])
+    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    preds = like.predict(values[None, :])
+    for k, (fam, pred) in enumerate(zip(like.families, preds)):
+        c = colours[k % len(colours)]
+        first = True
+        for line in critical_lines(lens, fam.scale, extent=extent, resolution=300):
+            ax.plot(line.x, line.y, "-", color=c, lw=0.9, alpha=0.8,
+                    label=f"{fam.label}: critical curve" if first else None)
+            ax.plot(line.caustic_x, line.caustic_y, ":", color=c, lw=0.9,
+                    label=f"{fam.label}: caustic" if first else None)
+            first = False
+        ax.errorbar(fam.x, fam.y, xerr=fam.sigma, yerr=fam.sigma, fmt="+", color="k", ms=10,
+                    label="observed" if k == 0 else None)
+        for i, lab in enumerate(fam.labels):
+            ax.annotate(f"{fam.label}/{lab}", (fam.x[i], fam.y[i]), textcoords="offset points",
+                        xytext=(6, 6), fontsize=8)
+        ok = pred["ok"][0]
+        ax.plot(pred["x"][0, ok], pred["y"][0, ok], "x", color=c, ms=7, label=f"{fam.label}: model")
+        b = values[like.source_slice(k)]
+        ax.plot(b[0], b[1], "*", color=c, ms=9, label=f"{fam.label}: source")
+    for j, im in enumerate(fit_result.unobserved_images):
+        ax.plot(im["x"], im["y"], MARKERS.get(im["parity"], "o"), mfc="none", mec="tab:red", ms=8,
+                label="predicted, not observed" if j == 0 else None)
+    _sky_axes(ax, extent)
+    ax.set_title(title or "Sky view (North up, East left)")
+    ax.legend(fontsize=7, loc="upper left", framealpha=0.8)
+    fig.tight_layout()
+    return fig
+
+
+def residual_figure(fit_result):
+    """Per-image position residuals in mas, with the 1-σ circle."""
+    rows = [r for r in fit_result.residuals_mas if r["reproduced"]]
+    fig, ax = plt.subplots(figsize=(5.2, 5.0))
+    lim = 1.0
+    for r in rows:
+        ax.plot(r["dx_mas"], r["dy_mas"], "o", label=f"{r['family']}/{r['image']}")
+        circ = plt.Circle((0, 0), r["sigma_mas"], fill=False, ls=":", color="0.5")
+        ax.add_patch(circ)
+        lim = max(lim, abs(r["dx_mas"]), abs(r["dy_mas"]), r["sigma_mas"])
+    lim *= 1.3
+    ax.axhline(0, color="0.7", lw=0.5)
+    ax.axvline(0, color="0.7", lw=0.5)
+    ax.set_xlim(lim, -lim)
+    ax.set_ylim(-lim, lim)
+    ax.set_aspect("equal")
+    ax.set_xlabel("model − observed, x [mas]  (East ←)")
+    ax.set_ylabel("model − observed, y [mas]  (North ↑)")
+    ax.set_title(f"Image residuals (χ² = {fit_result.chi2:.2f}, dof = {fit_result.dof}); dotted: 1σ")
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    return fig
+
+
+def corner_figure(samples, names, truths=None):
+    """Pairwise scatter and marginal histograms of posterior samples."""
+    n = samples.shape[1]
+    fig, axes = plt.subplots(n, n, figsize=(1.7 * n + 1, 1.7 * n + 1), squeeze=False)
+    short = [nm.replace("mass[", "m").replace("].", ".").replace("source[", "src.").replace("]", "")
+             for nm in names]
+    for i in range(n):
+        for j in range(n):
+            ax = axes[i, j]
+            if j > i:
+                ax.axis("off")
+                continue
+            if i == j:
+                ax.hist(samples[:, i], bins=30, histtype="step", color="k")
+                ax.set_yticks([])
+            else:
+                ax.plot(samples[:, j], samples[:, i], ",", alpha=0.4, color="k")
+            if i == n - 1:
+                ax.set_xlabel(short[j], fontsize=7)
+            else:
+                ax.set_xticklabels([])
+            if j == 0 and i > 0:
+                ax.set_ylabel(short[i], fontsize=7)
+            elif j > 0:
+                ax.set_yticklabels([])
+            ax.tick_params(labelsize=6)
+    fig.suptitle("Posterior samples (points) and marginal histograms", fontsize=10)
+    fig.subplots_adjust(top=0.95, hspace=0.08, wspace=0.08)
+    return fig
