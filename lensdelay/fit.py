@@ -110,7 +110,8 @@ def _lmfit(like, start, resid_fn, n_data):
             v = np.append(v, start[len(names):])
         return resid_fn(v)
 
-    out = lmfit.minimize(wrapped, params, method="least_squares")
+    # sigmas are known: do not rescale the covariance by the reduced chi2
+    out = lmfit.minimize(wrapped, params, method="least_squares", scale_covar=False)
     v = np.array([out.params[_safe(n)].value for n in names])
     errs = np.array([out.params[_safe(n)].stderr or np.nan for n in names])
     if len(names) < len(like.names):
@@ -131,17 +132,19 @@ def initial_vector(like: ImageLikelihood) -> np.ndarray:
     return np.array(v)
 
 
-def fit(like: ImageLikelihood, *, starts: int = 4, seed: int = 0) -> FitResult:
+def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 0) -> FitResult:
     """Fit ``like`` and describe the best fit.
 
     ``starts`` source-plane fits are run from the recipe's values, the extra ones
     with position angles turned by multiples of 180°/starts and other values jittered
-    within their bounds (seeded), and the best goes on to the image plane.
+    within their bounds (seeded). The ``polish`` best of them (by image-plane χ²) go
+    on to the image-plane fit, and the best of those is kept: the χ² surface of
+    ellipticity against shear has more than one valley.
     """
     check_constraints(like)
     rng = np.random.default_rng(seed)
     base = initial_vector(like)
-    best, best_cost = None, np.inf
+    candidates = []
     for s in range(max(starts, 1)):
         start = base.copy()
         if s:
@@ -156,21 +159,27 @@ def fit(like: ImageLikelihood, *, starts: int = 4, seed: int = 0) -> FitResult:
         except (ValueError, FloatingPointError):
             continue
         cost = float(np.sum(like.residuals(v) ** 2))
-        if cost < best_cost:
-            best, best_cost = v, cost
-    if best is None:
+        if np.isfinite(cost):
+            candidates.append((cost, s, v))
+    if not candidates:
         raise FitError(f"model {like.model.label!r}: no starting point gave a finite chi2")
-    if like.use_delays:
-        # the best H0 for the current Fermat differences, then fit everything
-        grid = np.linspace(like.lower[-1], like.upper[-1], 381)
-        trial = np.repeat(best[None, :], len(grid), axis=0)
-        trial[:, -1] = grid
-        best[-1] = grid[np.argmin(np.sum(like.residuals(trial) ** 2, axis=1))]
-    values, errors, out = _lmfit(like, best, lambda v: like.residuals(v)[0], n_data=like.n_constraints)
+    candidates.sort(key=lambda c: c[0])
+    best = None
+    for _, _, v in candidates[:max(polish, 1)]:
+        if like.use_delays:
+            # the best H0 for the current Fermat differences, then fit everything
+            grid = np.linspace(like.lower[-1], like.upper[-1], 381)
+            trial = np.repeat(v[None, :], len(grid), axis=0)
+            trial[:, -1] = grid
+            v[-1] = grid[np.argmin(np.sum(like.residuals(trial) ** 2, axis=1))]
+        values, errors, out = _lmfit(like, v, lambda w: like.residuals(w)[0], n_data=like.n_constraints)
+        chi2 = float(np.sum(like.residuals(values) ** 2))
+        if best is None or chi2 < best[0] - 1e-9:
+            best = (chi2, values, errors, out)
+    chi2, values, errors, out = best
     for i, period in enumerate(like.periods):   # report angles in (-90, 90]
         if period:
             values[i] = -((-values[i] + period / 2) % period - period / 2)
-    chi2 = float(np.sum(like.residuals(values) ** 2))
     return describe(like, values, errors, chi2, out)
 
 
@@ -226,3 +235,36 @@ def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult
     return FitResult(like.model.label, list(like.names), np.asarray(values), np.asarray(errors),
                      chi2, like.n_constraints, like.n_parameters, rows, unobserved, at_bounds,
                      success, message, cov, notes)
+
+
+def observed_delays(like: ImageLikelihood, rows: np.ndarray, family: int = 0, reference: int = 0):
+    """Delays (days) of a family's observed images relative to one of them, per row.
+
+    Uses the H0 of the row when delays are fitted, else the scenario's cosmology.
+    """
+    rows = np.atleast_2d(rows)
+    pred = like.predict(rows)[family]
+    fam = like.families[family]
+    days = (pred["fermat"] - pred["fermat"][:, reference:reference + 1]) * fam.days_per_arcsec2
+    if like.use_delays:
+        days = days * like.h0_ref / rows[:, -1:]
+    return days
+
+
+def delay_errors(like: ImageLikelihood, result: FitResult, family: int = 0, reference: int = 0):
+    """Delays at the best fit and their 1-σ errors by linear propagation of the covariance."""
+    best = observed_delays(like, result.values, family, reference)[0]
+    cov = result.covariance
+    if cov is None:
+        return best, np.full_like(best, np.nan)
+    steps = np.where(np.isfinite(result.errors) & (result.errors > 0), 1e-3 * result.errors, 1e-7)
+    jac = np.empty((len(best), len(result.values)))
+    for i, h in enumerate(steps):
+        up, down = result.values.copy(), result.values.copy()
+        up[i] += h
+        down[i] -= h
+        jac[:, i] = (observed_delays(like, up, family, reference)[0]
+                     - observed_delays(like, down, family, reference)[0]) / (2 * h)
+    n = cov.shape[0]
+    var = np.einsum("ij,jk,ik->i", jac[:, :n], cov, jac[:, :n])
+    return best, np.sqrt(np.maximum(var, 0.0))
