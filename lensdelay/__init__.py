@@ -14,6 +14,15 @@ from astropy.utils import iers as _iers
 _iers.conf.auto_download = False
 _iers.conf.auto_max_age = None
 
+# Forecast dates years ahead lie beyond the leap-second table; ERFA then calls the
+# year "dubious". UTC there may be off by a leap second, which is far below any
+# forecast's uncertainty, so the warning is not shown.
+import warnings as _warnings
+
+from erfa import ErfaWarning as _ErfaWarning
+
+_warnings.filterwarnings("ignore", category=_ErfaWarning, message=".*dubious year.*")
+
 try:
     __version__ = _version("lensdelay")
 except PackageNotFoundError:  # running from a source tree without installing

@@ -109,3 +109,63 @@ def corner_figure(samples, names, truths=None):
     fig.suptitle("Posterior samples (points) and marginal histograms", fontsize=10)
     fig.subplots_adjust(top=0.95, hspace=0.08, wspace=0.08)
     return fig
+
+
+def timeline_figure(res):
+    """Each image's date distribution on a calendar axis, with observable spans shaded."""
+    import matplotlib.dates as mdates
+    from astropy import units as u
+
+    tr = res["scenario"].transient
+    images = res["images"]
+    fig, ax = plt.subplots(figsize=(9.0, 1.2 + 0.75 * len(images)))
+    base = tr.date
+    lo = min(im["offsets_q"][0] for im in images)
+    hi = max(im["offsets_q"][1] for im in images)
+    pad = 0.08 * (hi - lo) + 2
+    cal = res.get("calendar")
+    to_num = lambda off: mdates.date2num((base + np.asarray(off) * u.day).to_datetime())  # noqa: E731
+    if cal is not None:
+        start_offset = (cal.start - base).to_value("day")
+        days = np.arange(len(cal.observable))
+        ax.axvspan(to_num(start_offset), to_num(start_offset + len(days)), color="0.8", alpha=0.6,
+                   lw=0, label="not observable from the site")
+        first = True
+        for a, b in cal.windows(0, len(days) - 1):
+            ax.axvspan(to_num(start_offset + a), to_num(start_offset + b + 1), color="#d9f0d3",
+                       lw=0, label="observable from the site" if first else None)
+            first = False
+    for row, im in enumerate(images):
+        ok = np.isfinite(im["offsets"]) & (im["weights"] > 0)
+        off = im["offsets"][ok]
+        w = im["weights"][ok]
+        hist, edges = np.histogram(off, bins=60, weights=w)
+        if hist.max() > 0:
+            h = 0.38 * hist / hist.max()
+            centres = to_num(0.5 * (edges[1:] + edges[:-1]))
+            ax.fill_between(centres, row - h, row + h, color="tab:blue", alpha=0.55, lw=0,
+                            label="date distribution" if row == 0 else None)
+        q = im["date_offset_days"]
+        ax.plot(to_num([q["p2.5"], q["p97.5"]]), [row, row], "-", color="k", lw=1,
+                label="95% window" if row == 0 else None)
+        ax.plot(to_num([q["p16"], q["p84"]]), [row, row], "-", color="k", lw=4,
+                label="68% window" if row == 0 else None)
+        ax.plot(to_num(q["median"]), row, "o", color="w", mec="k", ms=5,
+                label="median" if row == 0 else None)
+    ax.axvline(to_num(0.0), color="tab:red", lw=1.2, label=f"detection {tr.date.isot[:10]}")
+    today = (res["today"] - base).to_value("day")
+    if lo - pad <= today <= hi + pad:
+        ax.axvline(to_num(today), color="tab:purple", ls="--", lw=1, label="today")
+    ax.set_yticks(range(len(images)))
+    ax.set_yticklabels([f"{im['family']}/{im['label']}{'' if im['observed'] else '*'} ({im['status']})"
+                        for im in images])
+    ax.set_ylim(-0.7, len(images) - 0.3)
+    ax.set_xlim(to_num(lo - pad), to_num(hi + pad))
+    ax.xaxis_date()
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(ax.xaxis.get_major_locator()))
+    ax.set_xlabel("date (UTC)")
+    ax.set_title(f"{res['scenario'].name}: when each image shows the event (* = predicted); "
+                 "model-dependent, see cautions", fontsize=9)
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
+    fig.tight_layout()
+    return fig

@@ -75,7 +75,7 @@ class ImageTable:
 
 
 def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: int = 40,
-                  max_step=None):
+                  max_step=None, tolerance: float = 1e-13):
     """Solve β(θ) = β_s by Newton's method from starting points (x, y).
 
     Vectorised over any broadcastable shapes (e.g. all candidates, or all posterior
@@ -93,7 +93,7 @@ def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: in
         for _ in range(iterations):
             bx, by = lens.source_position(x, y, scale)
             rx, ry = beta_x - bx, beta_y - by
-            if np.all(np.abs(rx) + np.abs(ry) < 1e-13):   # all converged: stop early
+            if np.all(np.abs(rx) + np.abs(ry) < tolerance):   # all converged: stop early
                 break
             a11, a12, a22 = lens.jacobian(x, y, scale)
             det = a11 * a22 - a12 * a12

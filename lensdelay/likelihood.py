@@ -85,13 +85,17 @@ class ImageLikelihood:
         self.centre_prior = self._lens_light_prior()
 
     def _lens_light_prior(self):
-        """The lens-light centre constrains the first centred component's free x, y."""
+        """The lens-light centre constrains the free x, y of the first luminous component.
+
+        Luminous means a galaxy-like profile (not a dark NFW halo, not shear or sheet);
+        dark halos may sit away from the light.
+        """
         ll = self.scenario.lens_light
         if ll is None:
             return {}
         out = {}
         for ci, comp in enumerate(self.model.components):
-            if comp.profile_class.centred:
+            if comp.profile_class.centred and comp.kind != "NFW":
                 for axis, value in (("x", ll.x), ("y", ll.y)):
                     p = comp.parameters.get(axis)
                     if p is not None and p.vary and p.prior is None:
@@ -137,18 +141,22 @@ class ImageLikelihood:
             bx = params[:, self.source_slice(k)][:, :1]
             by = params[:, self.source_slice(k)][:, 1:]
             x, y, err = newton_polish(lens, fam.x[None, :], fam.y[None, :], bx, by, fam.scale,
-                                      iterations=30, max_step=np.maximum(0.5 * fam.sigma, 0.05))
+                                      iterations=15, max_step=np.maximum(0.5 * fam.sigma, 0.05),
+                                      tolerance=1e-11)
             ok = err < 1e-8
+            # close but not converged within the budget: not a missing image
+            near = (err < 1e-3) & ~ok
             # two observed images in one predicted image: the model lacks an image
             n = len(fam.x)
             for i in range(n):
                 for j in range(i + 1, n):
                     same = np.hypot(x[:, i] - x[:, j], y[:, i] - y[:, j]) < 1e-6
                     ok[:, j] &= ~same
+                    near[:, j] &= ~same
             with np.errstate(all="ignore"):
                 tau = lens.fermat_potential(x, y, bx, by, fam.scale)
                 mu = lens.magnification(x, y, fam.scale)
-            out.append({"x": x, "y": y, "ok": ok, "fermat": tau, "mu": mu,
+            out.append({"x": x, "y": y, "ok": ok, "near": near, "fermat": tau, "mu": mu,
                         "beta": np.hstack([bx, by]), "lens": lens})
         return out
 
@@ -170,7 +178,10 @@ class ImageLikelihood:
                 rx, ry = sbx - pred["beta"][:, :1], sby - pred["beta"][:, 1:]
                 fx = (a22 * rx - a12 * ry) / det / fam.sigma
                 fy = (a11 * ry - a12 * rx) / det / fam.sigma
-            bad = ~pred["ok"]
+            near = pred["near"]
+            bad = ~pred["ok"] & ~near
+            dx = np.where(near, fx, dx)
+            dy = np.where(near, fy, dy)
             dx = np.where(bad, MISSING_IMAGE_PENALTY + np.nan_to_num(np.abs(fx), posinf=1e6), dx)
             dy = np.where(bad, MISSING_IMAGE_PENALTY + np.nan_to_num(np.abs(fy), posinf=1e6), dy)
             parts += [dx, dy]
