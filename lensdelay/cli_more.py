@@ -92,8 +92,9 @@ def register(sub, number) -> None:
     p.add_argument("--resume", action="store_true", help="continue the chain checkpointed in --out")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_fit)
-    try:
-        from . import forecast_cli
-    except ImportError:  # built in a later step
-        return
+    from . import forecast_cli
+
     forecast_cli.register(sub, number)
+    from . import hubble_cli
+
+    hubble_cli.register(sub, number)

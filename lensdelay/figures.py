@@ -169,3 +169,61 @@ def timeline_figure(res):
     ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     fig.tight_layout()
     return fig
+
+
+def budget_figure(budget):
+    """Horizontal stacked bars: each term's share of each image's date variance."""
+    from .budget import TERMS
+
+    rows = budget["images"]
+    fig, ax = plt.subplots(figsize=(8.0, 1.4 + 0.5 * max(len(rows), 1)))
+    left = np.zeros(len(rows))
+    for term in TERMS:
+        share = np.array([r["date"][term]["percent"] for r in rows])
+        ax.barh(range(len(rows)), share, left=left, label=term)
+        left += share
+    ax.set_yticks(range(len(rows)))
+    ax.set_yticklabels([f"{r['family']}/{r['label']}" for r in rows])
+    ax.set_xlim(0, 100)
+    ax.set_xlabel("share of the date variance [%]")
+    ax.set_title("Uncertainty budget of each image's date (first order)", fontsize=10)
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
+    fig.tight_layout()
+    return fig
+
+
+def hubble_curves_figure(res):
+    """Predicted delay of each image pair against H0, with 68% and 95% bands."""
+    rows = [r for r in res["curves"] if r["axis"] == "H0"]
+    keys = sorted({(r["family"], r["image"], r["relative_to"]) for r in rows})
+    fig, ax = plt.subplots(figsize=(7.0, 4.6))
+    for k, key in enumerate(keys):
+        sel = [r for r in rows if (r["family"], r["image"], r["relative_to"]) == key]
+        h = np.array([r["value"] for r in sel])
+        c = f"C{k % 10}"
+        ax.fill_between(h, [r["p2.5"] for r in sel], [r["p97.5"] for r in sel], color=c, alpha=0.15)
+        ax.fill_between(h, [r["p16"] for r in sel], [r["p84"] for r in sel], color=c, alpha=0.35)
+        ax.plot(h, [r["median"] for r in sel], color=c, label=f"{key[0]}: {key[1]} − {key[2]}")
+    for d in res["scenario"].delays:
+        ax.axhline(d.days, color="k", ls=":", lw=0.8)
+    ax.set_xlabel("H0 [km/s/Mpc]")
+    ax.set_ylabel("delay [days] (positive: first image later)")
+    ax.set_title("Predicted delays vs H0 (bands: 68%, 95%; dotted: measured)", fontsize=10)
+    ax.legend(fontsize=7)
+    fig.tight_layout()
+    return fig
+
+
+def h0_figure(res):
+    """H0 posterior under several κext priors: the mass-sheet degeneracy."""
+    fig, ax = plt.subplots(figsize=(7.0, 4.2))
+    for k in res["kappa_comparison"]:
+        s = k["samples_H0"]
+        ax.hist(s[np.isfinite(s)], bins=60, histtype="step", density=True,
+                label=f"κext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f})")
+    ax.set_xlabel("H0 [km/s/Mpc]")
+    ax.set_ylabel("posterior density")
+    ax.set_title("H0 from the measured delays; H0 scales with (1 − κext)", fontsize=10)
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    return fig

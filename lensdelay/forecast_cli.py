@@ -7,7 +7,8 @@ from pathlib import Path
 from .errors import InputError
 from .scenario import Site
 
-OUTPUTS = ["forecast.json", "forecast.ecsv", "forecast.ics", "timeline.png", "timeline.pdf"]
+OUTPUTS = ["forecast.json", "forecast.ecsv", "forecast.ics", "timeline.png", "timeline.pdf",
+           "budget.png", "budget.pdf"]
 
 
 def _site_from_args(args):
@@ -98,4 +99,6 @@ def register(sub, number) -> None:
     p.add_argument("--walkers", type=int, default=32)
     p.add_argument("--steps", type=int, default=2000)
     p.add_argument("--quiet", action="store_true")
-    p.set_defaults(func=cmd_forecast, budget=False)
+    p.add_argument("--no-budget", dest="budget", action="store_false",
+                   help="skip the uncertainty budget table and figure")
+    p.set_defaults(func=cmd_forecast, budget=True)

@@ -67,3 +67,19 @@ def fit_text(res: dict) -> str:
         for w in ch.warnings:
             lines.append(f"WARNING: {w}")
     return "\n".join(lines)
+
+
+def budget_text(budget: dict) -> str:
+    """The uncertainty budget as a table: 1-σ days and percent of the variance."""
+    from .budget import TERMS
+
+    lines = ["Uncertainty budget of each image's date (1-sigma days, share of the variance):",
+             f"{'image':<8}" + "".join(f"{t[:14]:>16}" for t in TERMS)]
+    for row in budget["images"]:
+        cells = "".join(f"{row['date'][t]['sigma_days']:8.2f} ({row['date'][t]['percent']:4.1f}%)"
+                        for t in TERMS)
+        lines.append(f"{row['family'] + '/' + row['label']:<8}{cells}")
+    a = budget["assumptions"]
+    lines.append(f"(lens velocity sigma {a['peculiar_velocity_sigma_kms']:g} km/s; Omega_m sigma "
+                 f"{a['Omega_m_sigma']:g}; first-order split)")
+    return "\n".join(lines)

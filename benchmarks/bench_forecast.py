@@ -1,0 +1,84 @@
+"""Forecast benchmark (issue 4): a quad with 1e5 samples, end to end including figures.
+
+Run: python benchmarks/bench_forecast.py
+"""
+from __future__ import annotations
+
+import time
+import warnings
+
+import numpy as np
+
+from lensdelay.errors import LensdelayWarning
+from lensdelay.figures import timeline_figure
+from lensdelay.forecast_outputs import forecast_ics, forecast_json, forecast_table, table_text
+from lensdelay.images import newton_polish
+
+
+def main():
+    warnings.simplefilter("ignore", LensdelayWarning)
+    import lensdelay.forecast_run as fr
+
+    marks = {}
+    original_sample, original_model = fr.sample, fr.model_forecast
+
+    def timed(name, fn):
+        def wrapper(*a, **k):
+            t0 = time.perf_counter()
+            out = fn(*a, **k)
+            marks[name] = marks.get(name, 0.0) + time.perf_counter() - t0
+            return out
+        return wrapper
+
+    fr.sample = timed("posterior (emcee 32x2000)", original_sample)
+    fr.model_forecast = timed("images+delays for all samples", original_model)
+    fr.build_calendar = timed("observability calendar", fr.build_calendar)
+    t0 = time.perf_counter()
+    res = fr.run_forecast("scenarios/vellmar_quad.toml", n_samples=100_000, progress=False)
+    t_run = time.perf_counter() - t0
+    t1 = time.perf_counter()
+    forecast_json(res)
+    table_text(forecast_table(res))
+    forecast_ics(res)
+    fig = timeline_figure(res)
+    import io
+
+    for ext in ("png", "pdf"):
+        fig.savefig(io.BytesIO(), format=ext, dpi=130)
+    t_out = time.perf_counter() - t1
+    total = t_run + t_out
+    print(f"quad forecast, 1e5 samples, end to end: {total:.1f} s (goal < 30 s)")
+    fit_time = t_run - sum(marks.values())
+    for k, v in marks.items():
+        print(f"  {k}: {v:.2f} s")
+    print(f"  fit and the rest: {fit_time:.2f} s;  outputs and figures: {t_out:.2f} s")
+
+    # vectorised per-sample solve vs a loop over samples
+    like_model = res["models"][0]
+    from lensdelay.loading import load_scenario
+    from lensdelay.likelihood import ImageLikelihood
+
+    sc, _ = load_scenario("scenarios/vellmar_quad.toml")
+    like = ImageLikelihood(sc, sc.model)
+    chain = res["chains"][0].samples()
+    rows = chain[np.random.default_rng(0).integers(0, len(chain), 2000)]
+    fam = like.families[0]
+    starts_x = np.array([im.x[0] for im in like_model.images])
+    starts_y = np.array([im.y[0] for im in like_model.images])
+    t0 = time.perf_counter()
+    lens = like.lens_for(rows)
+    newton_polish(lens, np.broadcast_to(starts_x, (len(rows), 4)), np.broadcast_to(starts_y, (len(rows), 4)),
+                  rows[:, -2:-1], rows[:, -1:], fam.scale, max_step=0.05)
+    t_vec = (time.perf_counter() - t0) / len(rows)
+    t0 = time.perf_counter()
+    n_loop = 300
+    for r in rows[:n_loop]:
+        single = like.model.lens(r[:like.n_model])
+        newton_polish(single, starts_x, starts_y, r[-2], r[-1], fam.scale, max_step=0.05)
+    t_loop = (time.perf_counter() - t0) / n_loop
+    print(f"per-sample image solve: vectorised {t_vec * 1e6:.1f} us/sample, loop {t_loop * 1e6:.0f} us/sample: "
+          f"ratio {t_loop / t_vec:.0f}x")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,185 @@
+"""Forecast: dates, past images, observability, outputs (issue 4)."""
+import json
+import warnings
+
+import numpy as np
+import pytest
+from astropy import units as u
+from astropy.coordinates import AltAz, EarthLocation, SkyCoord, get_sun
+from astropy.time import Time
+
+from lensdelay.cli import main
+from lensdelay.cosmology import DAYS_PER_MPC_ARCSEC2, DEFAULT_COSMOLOGY, LensDistances
+from lensdelay.errors import LensdelayWarning
+from lensdelay.forecast_run import run_forecast
+from lensdelay.images import find_images
+from lensdelay.lens import Lens
+from lensdelay.profiles import ExternalShear, IsothermalEllipsoid
+from lensdelay.scenario import Site, parse_date
+from lensdelay.schedule import altitudes, build_calendar
+from lensdelay.simulate import simulate_family, to_toml
+
+FAST = dict(walkers=20, steps=300, n_samples=4000, progress=False)
+
+
+def test_j2000_epoch():
+    """JD 2451545.0 (TT) is J2000.0 = 2000-01-01T12:00:00 TT = 11:58:55.816 UTC
+    (IAU 1976/1994 definition; Astronomical Almanac, TT − UTC = 64.184 s in 2000)."""
+    t = parse_date("2000-01-01T11:58:55.816Z", "test")
+    assert t.tt.jd == pytest.approx(2451545.0, abs=1e-8)
+    later = t + 365.25 * u.day
+    assert later.tt.jd == pytest.approx(2451545.0 + 365.25, abs=1e-8)
+
+
+@pytest.mark.parametrize("iso, dec", [
+    ("2000-03-20T07:35:00", 0.0),       # March equinox 2000 (from memory): δ_sun ≈ 0
+    ("2027-06-21T08:11:00", 23.44),     # June solstice 2027 (from memory): δ_sun ≈ +ε
+    ("2027-12-22T03:42:00", -23.44),    # December solstice 2027 (from memory): δ_sun ≈ −ε
+])
+def test_sun_declination_at_equinox_and_solstices(iso, dec):
+    """The Sun's declination at equinox/solstice instants (obliquity ε = 23.44°, Astronomical Almanac)."""
+    sun = get_sun(Time(iso, scale="utc"))
+    assert sun.dec.deg == pytest.approx(dec, abs=0.05)
+
+
+def test_fast_altitudes_match_full_altaz_transform():
+    """Our hour-angle altitudes agree with astropy's AltAz transform within 0.6° (refraction ignored)."""
+    site = Site("ground", latitude=-30.24, longitude=-70.74, height=2700.0)
+    target = SkyCoord(187.33 * u.deg, -12.45 * u.deg)
+    start = Time("2027-02-10", scale="utc")
+    grid = np.linspace(0, 3, 37)
+    sun_alt, tgt_alt = altitudes(site, target, start, grid, 4)
+    loc = EarthLocation.from_geodetic(site.longitude * u.deg, site.latitude * u.deg, site.height * u.m)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        frame = AltAz(obstime=start + grid * u.day, location=loc)
+        ref_sun = get_sun(start + grid * u.day).transform_to(frame).alt.deg
+        ref_tgt = target.transform_to(frame).alt.deg
+    assert np.max(np.abs(sun_alt - ref_sun)) < 0.6
+    assert np.max(np.abs(tgt_alt - ref_tgt)) < 0.6
+
+
+@pytest.mark.parametrize("site", [Site("ground", latitude=19.8, longitude=-155.5, height=4200.0),
+                                  Site("ground", latitude=-30.2, longitude=-70.7, height=2700.0),
+                                  Site("space", solar_elongation=(45.0, 135.0))])
+def test_target_next_to_the_sun_is_never_observable(site):
+    """A target 2° from the Sun cannot be observed at night or within an elongation limit (common practice)."""
+    when = Time("2027-07-01T00:00:00", scale="utc")
+    sun = get_sun(when)
+    target = SkyCoord(sun.ra + 2 * u.deg, sun.dec)
+    cal = build_calendar(site, target, when - 2 * u.day, 5)
+    assert not np.any(cal.observable)
+
+
+def _sis_like_scenario(tmp_path, seen_in="A", date_sigma=0.0, sigma=1e-5):
+    lens = Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.0),))
+    fam = simulate_family(lens, 0.25, 0.0, label="q", redshift=2.0, sigma=sigma, rng=np.random.default_rng(0))
+    doc = {"name": "Test SIS", "lens": {"redshift": 0.5}, "sky": {"ra": 10.0, "dec": -20.0},
+           "cosmology": {"H0": 70.0, "Om0": 0.3}, "family": [fam],
+           "transient": {"family": "q", "seen_in": seen_in, "date": "2027-01-10", "date_sigma_days": date_sigma,
+                         "magnitude": 21.0},
+           "site": {"latitude": -30.0, "longitude": -70.0, "height": 2000.0},
+           "mass": [{"profile": "SIS", "einstein_radius": 1.0}]}
+    path = tmp_path / "sis.toml"
+    path.write_text(to_toml(doc))
+    return path
+
+
+def test_sis_end_to_end_date_is_detection_plus_closed_form_delay(tmp_path):
+    """SIS: forecast date = detection date + (D_dt/c)·2θEβ (SEF92, Sect. 8.1.4)."""
+    path = _sis_like_scenario(tmp_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        res = run_forecast(str(path), h0=(70.0, 1e-9), kappa_ext=(0.0, 0.0), microlensing=0.0, **FAST)
+    d_dt = LensDistances(DEFAULT_COSMOLOGY, 0.5, 2.0).time_delay_distance(2.0).to_value(u.Mpc)
+    expected = d_dt * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.25
+    b = next(im for im in res["images"] if im["label"] == "B")
+    assert b["delay_days"]["median"] == pytest.approx(expected, rel=1e-4)
+    date = Time("2027-01-10", scale="utc") + b["date_offset_days"]["median"] * u.day
+    assert (date - Time("2027-01-10", scale="utc")).to_value(u.day) == pytest.approx(expected, rel=1e-4)
+    assert b["status"] == "future" and b["parity"] == "saddle" and b["arrival_rank"] == 2
+
+
+def test_past_image_is_reported_as_past(tmp_path):
+    """Seen in the later (saddle) image, the earlier image's event lies before the discovery."""
+    path = _sis_like_scenario(tmp_path, seen_in="B", date_sigma=1.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        res = run_forecast(str(path), **FAST)
+    a = next(im for im in res["images"] if im["label"] == "A")
+    assert a["status"] == "past"
+    assert a["date_offset_days"]["p97.5"] < 0
+
+
+def test_quad_true_dates_inside_95_windows(tmp_path):
+    """Injection-recovery: the true dates of a simulated quad fall in the 95% windows (issue 4)."""
+    truth = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+                  ExternalShear(strength=0.05, position_angle=-40.0)))
+    rng = np.random.default_rng(4)
+    fam = simulate_family(truth, 0.03, 0.02, label="sn", redshift=1.6, sigma=0.003, rng=rng)
+    t = find_images(truth, [0.03], [0.02])
+    days = t.fermat * LensDistances(DEFAULT_COSMOLOGY, 0.4, 1.6).days_per_arcsec2(1.6)
+    doc = {"lens": {"redshift": 0.4}, "family": [fam], "lens_light": {"x": 0, "y": 0, "sigma": 0.01},
+           "transient": {"family": "sn", "seen_in": "A", "date": "2027-03-01", "date_sigma_days": 1.0},
+           "model": "models/sie_shear.toml"}
+    path = tmp_path / "quad.toml"
+    path.write_text(to_toml(doc))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        res = run_forecast(str(path), h0=(70.0, 3.0), kappa_ext=(0.0, 0.02), walkers=24, steps=800,
+                           n_samples=6000, progress=False)
+    for im in res["images"]:
+        if not im["observed"]:
+            continue
+        k = np.argmin(np.hypot(t.x - im["x"], t.y - im["y"]))
+        true_delay = days[k] - days[0]
+        q = im["date_offset_days"]
+        assert q["p2.5"] - 1e-6 <= true_delay <= q["p97.5"] + 1e-6, (im["label"], true_delay, q)
+
+
+def test_forecast_outputs_and_calendar_parse(tmp_path, capsys):
+    """forecast.json keys of CONVENTIONS.md; forecast.ics parses with a general iCalendar library."""
+    icalendar = pytest.importorskip("icalendar")
+    path = _sis_like_scenario(tmp_path, date_sigma=1.0, sigma=0.003)
+    out = tmp_path / "out"
+    code = main(["forecast", str(path), "--out", str(out), "--samples", "2000", "--steps", "300",
+                 "--walkers", "20", "--quiet"])
+    assert code == 0
+    doc = json.loads((out / "forecast.json").read_text())
+    for key in ("reference_image", "reference_family", "cosmology", "seed", "images"):
+        assert key in doc
+    for im in doc["images"]:
+        for key in ("family", "label", "observed", "x", "y", "parity", "arrival_rank",
+                    "delay_days", "magnification", "magnitude", "date"):
+            assert key in im
+        assert set(im["date"]) == {"median", "p16", "p84", "p2.5", "p97.5"}
+    cal = icalendar.Calendar.from_ical((out / "forecast.ics").read_bytes())
+    events = [c for c in cal.walk() if c.name == "VEVENT"]
+    assert len(events) == 1 and "image B" in str(events[0]["SUMMARY"])
+    for name in ("forecast.ecsv", "timeline.png", "timeline.pdf"):
+        assert (out / name).stat().st_size > 0
+    assert "Caution" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("change, message", [
+    (("2027-01-10", "10/01/2027"), "transient.date must be an ISO 8601 date"),
+    (('seen_in = "A"', 'seen_in = "Z"'), "transient.seen_in must be an image of family"),
+    (("latitude = -30.0", "latitude = -95.0"), "site.latitude must be >= -90"),
+])
+def test_bad_forecast_input_exit_2_nothing_written(tmp_path, capsys, change, message):
+    path = _sis_like_scenario(tmp_path)
+    path.write_text(path.read_text().replace(*change))
+    out = tmp_path / "out"
+    assert main(["forecast", str(path), "--out", str(out), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert message in err and err.count("\n") == 1
+    assert not out.exists()
+
+
+def test_bad_elongation_range(tmp_path, capsys):
+    path = _sis_like_scenario(tmp_path)
+    text = path.read_text().split("[site]")[0] + "[site]\nsolar_elongation = [30.0, 200.0]\n"
+    text += "\n[[mass]]\nprofile = \"SIS\"\neinstein_radius = 1.0\n"
+    path.write_text(text)
+    assert main(["check", str(path)]) == 2
+    assert "site.solar_elongation must satisfy 0 <= min < max <= 180" in capsys.readouterr().err
