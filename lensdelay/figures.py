@@ -205,9 +205,9 @@ def hubble_curves_figure(res):
         ax.fill_between(h, [r["p16"] for r in sel], [r["p84"] for r in sel], color=c, alpha=0.35)
         ax.plot(h, [r["median"] for r in sel], color=c, label=f"{key[0]}: {key[1]} − {key[2]}")
     for d in res["scenario"].delays:
-        ax.axhline(d.days, color="k", ls=":", lw=0.8)
+        ax.axhline(d.days, color="k", ls=":", lw=0.8, label=f"measured {d.image} − {d.relative_to}")
     ax.set_xlabel("H0 [km/s/Mpc]")
-    ax.set_ylabel("delay [days] (positive: first image later)")
+    ax.set_ylabel("delay t(image) − t(relative_to) [days]")
     ax.set_title("Predicted delays vs H0 (bands: 68%, 95%; dotted: measured)", fontsize=10)
     ax.legend(fontsize=7)
     fig.tight_layout()

@@ -48,8 +48,10 @@ def to_toml(doc: dict) -> str:
             return "[" + ", ".join(scalar(x) for x in v) + "]"
         if isinstance(v, dict):
             return "{ " + ", ".join(f"{k} = {scalar(x)}" for k, x in v.items()) + " }"
-        if isinstance(v, float):
-            return repr(round(v, 6))
+        if isinstance(v, (float, np.floating)):
+            return repr(round(float(v), 9))
+        if isinstance(v, np.integer):
+            return repr(int(v))
         return repr(v)
 
     def emit(prefix, table):
