@@ -68,7 +68,15 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _terminate(signum, frame):  # SIGTERM behaves like Ctrl-C: unwind, keep checkpoints
+    raise KeyboardInterrupt
+
+
 def main(argv=None) -> int:
+    import signal
+
+    if threading_main():
+        signal.signal(signal.SIGTERM, _terminate)
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
@@ -79,8 +87,15 @@ def main(argv=None) -> int:
         print(f"lensdelay: {err}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print("lensdelay: interrupted", file=sys.stderr)
+        print("lensdelay: interrupted; no output was written (a sampler checkpoint, if any, "
+              "is kept in --out for --resume)", file=sys.stderr)
         return 130
+
+
+def threading_main() -> bool:
+    import threading
+
+    return threading.current_thread() is threading.main_thread()
 
 
 if __name__ == "__main__":  # pragma: no cover

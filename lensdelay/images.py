@@ -24,6 +24,8 @@ from .lens import Lens
 
 #: An image is accepted when it maps back to its source within this (arcsec).
 SOURCE_TOLERANCE = 1e-10
+#: Roots closer than this (arcsec) to a singular centre are dropped.
+SINGULAR_EXCLUSION = 1e-6
 #: Largest departure from an affine map, as a fraction of a cell, left unsplit.
 NONLINEAR = 0.05
 #: Roots closer than this (arcsec) are the same image.
@@ -265,6 +267,11 @@ class ImageFinder:
         x = np.concatenate([p[1] for p in parts])
         y = np.concatenate([p[2] for p in parts])
         err = np.concatenate([p[3] for p in parts])
+        # Roots pinned to a singular centre are the swallowed central image (|μ| → 0)
+        # that the radius floor makes look like a solution: not an image.
+        for cx, cy in self.lens.centres(singular=True):
+            away = np.hypot(x - cx, y - cy) > SINGULAR_EXCLUSION
+            src, x, y, err = src[away], x[away], y[away], err[away]
         src, x, y, err = _merge_duplicates(src, x, y, err)
         bx, by = beta_x[src], beta_y[src]
         with np.errstate(divide="ignore"):
@@ -287,8 +294,8 @@ def _merge_duplicates(src, x, y, err):
     _, first = np.unique(key, axis=0, return_index=True)
     first = np.sort(first)
     src, x, y, err = src[first], x[first], y[first], err[first]
-    for primary in (x, y):
-        order = np.lexsort((primary, src))
+    for along_x in (True, False):
+        order = np.lexsort((x if along_x else y, src))
         src, x, y, err = src[order], x[order], y[order], err[order]
         same = np.zeros(len(src), dtype=bool)
         same[1:] = ((src[1:] == src[:-1]) & (np.abs(np.diff(x)) < MERGE_TOLERANCE)

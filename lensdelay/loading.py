@@ -32,9 +32,12 @@ def read_toml(path: str | os.PathLike) -> dict:
     if not text.strip():
         raise InputError("is empty, expected a TOML document", where)
     try:
-        return tomllib.loads(text)
+        doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise InputError(f"is not valid TOML: {err}", where) from err
+    if not doc:
+        raise InputError("is empty, expected a TOML document (only comments or blank lines)", where)
+    return doc
 
 
 def file_hash(*paths: str | os.PathLike) -> str:

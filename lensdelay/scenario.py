@@ -131,6 +131,8 @@ class _Table:
     """Reads typed fields from one TOML table and refuses unknown keys."""
 
     def __init__(self, data: Any, where: str, allowed: tuple[str, ...]):
+        if data is None:
+            raise InputError(f"{where} is required ([{where}] with {', '.join(allowed[:2])}), got nothing")
         if not isinstance(data, dict):
             raise InputError(f"{where} must be a table, got {data!r}")
         self.data, self.where, self.allowed = data, where, allowed

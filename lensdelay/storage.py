@@ -29,8 +29,26 @@ def atomic_write_text(path, text: str) -> None:
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
+def json_ready(obj):
+    """Replace NaN and infinities by null and numpy scalars/arrays by plain Python values."""
+    if isinstance(obj, dict):
+        return {str(k): json_ready(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [json_ready(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return json_ready(obj.tolist())
+    if isinstance(obj, (np.floating, float)):
+        return float(obj) if np.isfinite(obj) else None
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    return obj
+
+
 def atomic_write_json(path, obj) -> None:
-    atomic_write_text(path, json.dumps(obj, indent=2, allow_nan=False) + "\n")
+    """JSON with no NaN (written as null), atomically."""
+    atomic_write_text(path, json.dumps(json_ready(obj), indent=2, allow_nan=False) + "\n")
 
 
 def atomic_save_npz(path, **arrays) -> None:
