@@ -68,7 +68,13 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _terminate(signum, frame):  # SIGTERM behaves like Ctrl-C: unwind, keep checkpoints
+def _terminate(signum, frame):
+    """SIGINT/SIGTERM: while sampling, stop at the next checkpoint; otherwise unwind now."""
+    from .posterior import STOP
+
+    if STOP.active:
+        STOP.requested = True
+        return
     raise KeyboardInterrupt
 
 
@@ -77,6 +83,7 @@ def main(argv=None) -> int:
 
     if threading_main():
         signal.signal(signal.SIGTERM, _terminate)
+        signal.signal(signal.SIGINT, _terminate)
     parser = build_parser()
     args = parser.parse_args(argv)
     try:

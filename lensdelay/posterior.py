@@ -26,6 +26,20 @@ import logging as _logging
 _logging.getLogger("emcee").setLevel(_logging.ERROR)
 
 
+class _StopRequest:
+    """Set by a signal handler while sampling: stop at the next checkpoint.
+
+    Raising inside emcee's call of the likelihood would make emcee print a traceback,
+    so a signal only sets this flag, and the sampling loop stops cleanly after saving.
+    """
+
+    active = False
+    requested = False
+
+
+STOP = _StopRequest()
+
+
 @dataclass
 class Chain:
     """Samples and diagnostics of one sampler run."""
@@ -104,6 +118,7 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
     done = len(chain)
     stream = sys.stderr if progress else None
     t0 = time.perf_counter()
+    STOP.active, STOP.requested = True, False
     while done < steps:
         n = min(checkpoint_every, steps - done)
         sampler.reset()
@@ -118,6 +133,10 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
                             rs_key=key, rs_pos=pos, rs_has_gauss=has_gauss, rs_cached=cached,
                             names=np.array(like.names))
         _progress(done, steps, t0, stream)
+        if STOP.requested:
+            STOP.active = False
+            raise KeyboardInterrupt
+    STOP.active = False
     # wrap periodic parameters (position angles) around the best fit: no wrap straddling
     for i, period in enumerate(like.periods):
         if period:

@@ -4,7 +4,7 @@ import os
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from lensdelay.delays import delays_relative_to
@@ -63,7 +63,9 @@ lenses = st.builds(
 @given(lenses, st.floats(-0.3, 0.3), st.floats(-0.3, 0.3))
 def test_images_map_back_are_stationary_and_parity_matches(lens, bx, by):
     """Every image maps back to its source; ∇τ = 0 there (Fermat's principle, SEF92 eq. 5.39);
-    parity follows det and trace of the Hessian of τ (SEF92 Sect. 5.4)."""
+    parity follows det and trace of the Hessian of τ (SEF92 Sect. 5.4). A source exactly
+    behind a round lens makes a ring, not images, and is left out."""
+    assume(np.hypot(bx, by) > 1e-4)
     t = find_images(lens, [bx], [by])
     assert len(t) >= 1
     sx, sy = lens.source_position(t.x, t.y)
