@@ -159,6 +159,49 @@ def test_forecast_outputs_and_calendar_parse(tmp_path, capsys):
     for name in ("forecast.ecsv", "timeline.png", "timeline.pdf"):
         assert (out / name).stat().st_size > 0
     assert "Caution" in capsys.readouterr().out
+    budget = doc["budget"]["images"][0]
+    total = sum(v["percent"] for v in budget["date"].values())
+    assert total == pytest.approx(100.0)
+    assert budget["date"]["detection date"]["sigma_days"] == pytest.approx(1.0)
+
+
+def _quad_path(tmp_path):
+    truth = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+                  ExternalShear(strength=0.05, position_angle=-40.0)))
+    fam = simulate_family(truth, 0.03, 0.02, label="sn", redshift=1.6, sigma=0.003, rng=np.random.default_rng(4))
+    doc = {"lens": {"redshift": 0.4}, "family": [fam], "lens_light": {"x": 0, "y": 0, "sigma": 0.01},
+           "transient": {"family": "sn", "seen_in": "A", "date": "2027-03-01", "date_sigma_days": 1.0,
+                         "magnitude": 22.0},
+           "model": "models/sie_shear.toml"}
+    path = tmp_path / "quad.toml"
+    path.write_text(to_toml(doc))
+    return path
+
+
+def test_updating_on_a_further_image_shrinks_the_others(tmp_path):
+    """A measured date of image C conditions D: its 95% window shrinks (issue 4, updating)."""
+    path = _quad_path(tmp_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        base = run_forecast(str(path), **FAST)
+        c = next(im for im in base["images"] if im["label"] == "C")
+        seen_date = (Time("2027-03-01", scale="utc") + c["date_offset_days"]["median"] * u.day).isot[:19]
+        upd = run_forecast(str(path), seen=[f"C={seen_date}Z"], **FAST)
+    d = next(im for im in upd["images"] if im["label"] == "D")
+    assert d["interval95_shrink"] is not None and d["interval95_shrink"] < 1.0
+
+
+def test_several_models_are_combined_with_weights(tmp_path):
+    """Two recipes: per-model forecasts, BIC weights that sum to 1, and the spread between them."""
+    path = _quad_path(tmp_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        res = run_forecast(str(path), model_paths=["models/sie_shear.toml", "models/power_law_shear.toml"], **FAST)
+    assert len(res["models"]) == 2
+    assert res["model_weights"].sum() == pytest.approx(1.0)
+    d = next(im for im in res["images"] if im["label"] == "D")
+    assert set(d["per_model_delay_median"]) == {"sie_shear", "power_law_shear"}
+    assert d["model_spread_days"] >= 0.0
 
 
 @pytest.mark.parametrize("change, message", [
