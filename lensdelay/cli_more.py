@@ -18,13 +18,6 @@ def _out_dir(path: str | None, inputs) -> Path | None:
     return out
 
 
-def _guard_inputs(out: Path, names, inputs) -> None:
-    ins = {Path(p).resolve() for p in inputs}
-    for n in names:
-        if (out / n).resolve() in ins:
-            raise InputError(f"--out {out} would overwrite the input {out / n}; choose another folder")
-
-
 def cmd_check(args) -> int:
     from .commands import check_command
 
@@ -48,28 +41,23 @@ def cmd_fit(args) -> int:
     print(fit_text(res))
     if out is not None:
         from .figures import corner_figure, residual_figure, sky_figure
-        from .storage import atomic_save_npz, atomic_savefig, atomic_write_json
+        from .storage import write_output_set
 
-        names = ["fit.json", "fit_sky.png", "fit_sky.pdf", "fit_residuals.png", "fit_residuals.pdf",
-                 "samples.npz", "corner.png", "corner.pdf"]
-        _guard_inputs(out, names, res["provenance"]["inputs"])
         doc = fit_json(res)
         like, fr = res["likelihood"], res["fit"]
         figs = {"fit_sky": sky_figure(like, fr.values, fr, title=f"{res['scenario'].name}: "
                                       f"{fr.model_label} (North up, East left)"),
                 "fit_residuals": residual_figure(fr)}
+        arrays = {}
         ch = res["chain"]
-        if ch is not None:
-            figs["corner"] = corner_figure(ch.samples(), ch.names)
-        out.mkdir(parents=True, exist_ok=True)
         if ch is not None:
             import numpy as np
 
-            atomic_save_npz(out / "samples.npz", samples=ch.samples(), names=np.array(ch.names),
-                            log_prob=ch.log_prob[ch.burn::ch.thin].ravel(), seed=ch.seed)
-        for stem, fig in figs.items():
-            atomic_savefig(fig, out / stem)
-        atomic_write_json(out / "fit.json", doc)
+            figs["corner"] = corner_figure(ch.samples(), ch.names)
+            arrays["samples.npz"] = {"samples": ch.samples(), "names": np.array(ch.names),
+                                     "log_prob": ch.log_prob[ch.burn::ch.thin].ravel(), "seed": ch.seed}
+        write_output_set(out, json_name="fit.json", doc=doc, figures=figs, arrays=arrays,
+                         inputs=res["provenance"]["inputs"])
         print(f"wrote {out}/fit.json and figures", file=sys.stderr)
     return 0
 

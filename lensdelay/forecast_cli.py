@@ -7,9 +7,6 @@ from pathlib import Path
 from .errors import InputError
 from .scenario import Site
 
-OUTPUTS = ["forecast.json", "forecast.ecsv", "forecast.ics", "timeline.png", "timeline.pdf",
-           "budget.png", "budget.pdf"]
-
 
 def _site_from_args(args):
     if args.site is not None and args.elongation is not None:
@@ -30,11 +27,11 @@ def _site_from_args(args):
 
 
 def cmd_forecast(args) -> int:
-    from .cli_more import _guard_inputs, _out_dir
+    from .cli_more import _out_dir
     from .figures import timeline_figure
     from .forecast_outputs import forecast_ics, forecast_json, forecast_table, forecast_text, table_text
     from .forecast_run import run_forecast
-    from .storage import atomic_savefig, atomic_write_json, atomic_write_text
+    from .storage import write_output_set
 
     out = _out_dir(args.out, [])
     res = run_forecast(args.scenario, args.model, n_samples=args.samples, seed=args.seed, h0=args.h0,
@@ -56,19 +53,14 @@ def cmd_forecast(args) -> int:
 
         text += "\n\n" + budget_text(res["budget"])
     if out is not None:
-        _guard_inputs(out, OUTPUTS, res["provenance"]["inputs"])
-        fig = timeline_figure(res)
-        figs = {"timeline": fig}
+        figs = {"timeline": timeline_figure(res)}
         if "budget" in res:
             from .figures import budget_figure
 
             figs["budget"] = budget_figure(res["budget"])
-        out.mkdir(parents=True, exist_ok=True)
-        atomic_write_text(out / "forecast.ecsv", ecsv)
-        atomic_write_text(out / "forecast.ics", ics)
-        for stem, f in figs.items():
-            atomic_savefig(f, out / stem)
-        atomic_write_json(out / "forecast.json", doc)
+        write_output_set(out, json_name="forecast.json", doc=doc, figures=figs,
+                         texts={"forecast.ecsv": ecsv, "forecast.ics": ics},
+                         inputs=res["provenance"]["inputs"])
     print(text)
     if out is not None:
         print(f"wrote {out}/forecast.json, forecast.ecsv, forecast.ics and figures", file=sys.stderr)

@@ -8,9 +8,6 @@ import numpy as np
 
 from .errors import InputError, LensdelayWarning
 
-OUTPUTS = ["hubble.json", "hubble_curves.ecsv", "hubble_curves.png", "hubble_curves.pdf",
-           "hubble_posterior.png", "hubble_posterior.pdf"]
-
 
 def run_hubble(scenario_path, model_paths=None, *, kappa_ext=(0.0, 0.05), om0=None, curves=(),
                walkers=32, steps=2000, seed=1, progress=True, cosmology_name=None) -> dict:
@@ -115,9 +112,9 @@ def hubble_text(res) -> str:
 
 
 def cmd_hubble(args) -> int:
-    from .cli_more import _guard_inputs, _out_dir
+    from .cli_more import _out_dir
     from .figures import h0_figure, hubble_curves_figure
-    from .storage import atomic_savefig, atomic_write_json, atomic_write_text
+    from .storage import write_output_set
 
     out = _out_dir(args.out, [])
     res = run_hubble(args.scenario, args.model, kappa_ext=tuple(args.kappa_ext), om0=args.om0,
@@ -131,17 +128,13 @@ def cmd_hubble(args) -> int:
 
         from astropy.table import Table
 
-        _guard_inputs(out, OUTPUTS, res["provenance"]["inputs"])
         buf = io.StringIO()
         Table(rows=res["curves"]).write(buf, format="ascii.ecsv")
         figs = {"hubble_curves": hubble_curves_figure(res)}
         if "h0" in res:
             figs["hubble_posterior"] = h0_figure(res)
-        out.mkdir(parents=True, exist_ok=True)
-        atomic_write_text(out / "hubble_curves.ecsv", buf.getvalue())
-        for stem, f in figs.items():
-            atomic_savefig(f, out / stem)
-        atomic_write_json(out / "hubble.json", doc)
+        write_output_set(out, json_name="hubble.json", doc=doc, figures=figs,
+                         texts={"hubble_curves.ecsv": buf.getvalue()}, inputs=res["provenance"]["inputs"])
     print(text)
     if out is not None:
         print(f"wrote {out}/hubble.json, hubble_curves.ecsv and figures", file=sys.stderr)

@@ -81,3 +81,32 @@ def atomic_savefig(fig, stem) -> list[str]:
         atomic_write_bytes(path, buf.getvalue())
         out.append(path)
     return out
+
+
+def write_output_set(out, *, json_name: str, doc: dict, texts=None, figures=None, arrays=None,
+                     inputs=()) -> list[str]:
+    """Write one command's outputs into folder ``out``: texts, arrays, figures, JSON last.
+
+    Every file goes through a temporary file and a rename. Refuses (before writing
+    anything) to overwrite any of ``inputs``.
+    """
+    from pathlib import Path
+
+    from .errors import InputError
+
+    out = Path(out)
+    names = [json_name, *(texts or {}), *(arrays or {})]
+    names += [f"{stem}.{ext}" for stem in (figures or {}) for ext in ("png", "pdf")]
+    protected = {Path(p).resolve() for p in inputs}
+    for n in names:
+        if (out / n).resolve() in protected:
+            raise InputError(f"--out {out} would overwrite the input {out / n}; choose another folder")
+    out.mkdir(parents=True, exist_ok=True)
+    for name, text in (texts or {}).items():
+        atomic_write_text(out / name, text)
+    for name, arrs in (arrays or {}).items():
+        atomic_save_npz(out / name, **arrs)
+    for stem, fig in (figures or {}).items():
+        atomic_savefig(fig, out / stem)
+    atomic_write_json(out / json_name, doc)
+    return names

@@ -108,3 +108,19 @@ def test_peculiar_velocity_terms_are_small():
     _, d_z = ddt_log_derivatives(DEFAULT_COSMOLOGY, 0.5, 2.0)
     relative = abs(d_z) * 1.5 * 300.0 / 299792.458
     assert relative < 0.01
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["--kappa-ext", "1.0", "0.05"], "--kappa-ext mean must be < 1, got 1"),
+    (["--kappa-ext", "0.0", "-0.1"], "--kappa-ext sigma must be >= 0"),
+])
+def test_hubble_bad_arguments(argv, message, tmp_path, capsys):
+    """κ_ext ≥ 1 (a sheet that would flip every delay) and a negative sigma are refused (issue 5)."""
+    from lensdelay.cli import main
+
+    path, _ = _double_scenario(tmp_path)
+    out = tmp_path / "out"
+    assert main(["hubble", str(path), "--out", str(out), "--quiet", *argv]) == 2
+    err = capsys.readouterr().err
+    assert message in err and err.count("\n") == 1
+    assert not out.exists()
