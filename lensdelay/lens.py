@@ -47,10 +47,15 @@ class Lens:
 
     def deflection_and_potential(self, x, y, scale=1.0):
         """(α_x, α_y, ψ) in one pass over the components."""
-        ax = ay = pot = 0.0
+        ax = ay = pot = None
         for c in self.components:
             dx, dy, p = c.deflection_and_potential(x, y)
-            ax, ay, pot = ax + dx, ay + dy, pot + p
+            if ax is None:
+                ax, ay, pot = dx, dy, p
+            else:
+                ax, ay, pot = ax + dx, ay + dy, pot + p
+        if np.ndim(scale) == 0 and scale == 1.0:
+            return ax, ay, pot
         return scale * ax, scale * ay, scale * pot
 
     def potential(self, x, y, scale=1.0) -> np.ndarray:

@@ -189,3 +189,14 @@ def test_profile_rules(kwargs, text):
     """Unphysical parameters raise InputError naming the parameter (brief: bad input)."""
     with pytest.raises(InputError, match=text.replace("(", r"\(").replace(")", r"\)").replace("[", r"\[").replace("]", r"\]")):
         IsothermalEllipsoid(**kwargs)
+
+
+@pytest.mark.parametrize("name", CASES)
+def test_one_pass_deflection_and_potential_agree(name):
+    """The shared-work path gives exactly what the separate methods give (common practice)."""
+    prof = CASES[name]
+    x, y = POINTS.T
+    ax, ay, pot = prof.deflection_and_potential(x, y)
+    np.testing.assert_allclose(ax, prof.deflection(x, y)[0], rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose(ay, prof.deflection(x, y)[1], rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose(pot, prof.potential(x, y), rtol=1e-12, atol=1e-14)

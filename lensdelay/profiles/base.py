@@ -121,7 +121,11 @@ class MassProfile(ABC):
                 if back.get(f.name, f.name) in names}
 
     def _shift(self, x, y):
-        return np.asarray(x, dtype=float) - self.x, np.asarray(y, dtype=float) - self.y
+        x = np.asarray(x, dtype=float)
+        y = np.asarray(y, dtype=float)
+        if np.ndim(self.x) == 0 and np.ndim(self.y) == 0 and self.x == 0 and self.y == 0:
+            return x, y   # centred on the origin: no array pass needed
+        return x - self.x, y - self.y
 
     def convergence(self, x, y) -> np.ndarray:
         """Convergence κ at ``(x, y)`` (arcsec)."""
@@ -157,7 +161,7 @@ class MassProfile(ABC):
         return self._local_hessian(dx, dy)
 
     def _frame_deflection_potential(self, dx, dy):
-        return (*self._local_deflection(dx, dy), self._local_potential(dx, dy))
+        return self._local_deflection_potential(dx, dy)
 
     def _local_deflection_potential(self, x, y):
         """Override when deflection and potential share work."""

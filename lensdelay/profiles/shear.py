@@ -39,6 +39,12 @@ class ExternalShear(MassProfile):
         gc, gs = self._cs()
         return -0.5 * ((y * y - x * x) * gc + 2.0 * x * y * gs)
 
+    def _local_deflection_potential(self, x, y):
+        gc, gs = self._cs()
+        ax = gc * x - gs * y
+        ay = -gs * x - gc * y
+        return ax, ay, 0.5 * (x * ax + y * ay)   # ψ is quadratic: ψ = θ·α/2
+
     def _local_hessian(self, x, y):
         gc, gs = self._cs()
         one = np.ones_like(x)

@@ -62,7 +62,10 @@ class IsothermalEllipsoid(EllipticalProfile):
         b = self.einstein_radius * np.sqrt(q)
         s = self.core / np.sqrt(q)
         e = np.sqrt(np.maximum(1.0 - q * q, 0.0))
-        psi = np.maximum(np.sqrt(q * q * (s * s + x * x) + y * y), RADIUS_FLOOR)
+        if np.ndim(s) == 0 and s == 0:   # singular: fewer array passes on the hot path
+            psi = np.maximum(np.sqrt((q * q) * (x * x) + y * y), RADIUS_FLOOR)
+        else:
+            psi = np.maximum(np.sqrt(q * q * (s * s + x * x) + y * y), RADIUS_FLOOR)
         return q, b, s, e, psi
 
     def _local_convergence(self, x, y):
@@ -80,11 +83,13 @@ class IsothermalEllipsoid(EllipticalProfile):
 
     def _local_deflection_potential(self, x, y):
         q, b, s, e, psi = self._keeton(x, y)
+        if np.ndim(s) == 0 and s == 0:
+            ax = b * _atan_over(e, x / psi)
+            ay = b * _atanh_over(e, y / psi)
+            return ax, ay, x * ax + y * ay
         ax = b * _atan_over(e, x / (psi + s))
         ay = b * _atanh_over(e, y / (psi + q * q * s))
         pot = x * ax + y * ay
-        if np.ndim(s) == 0 and s == 0:
-            return ax, ay, pot
         # Core term of Keeton's eq. (33); it vanishes (as s ln s) when s -> 0.
         ss = np.where(s > 0, s, 1.0)
         core_term = -b * ss * (0.5 * np.log((psi + ss) ** 2 + e * e * x * x)
