@@ -141,7 +141,8 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
     for i, period in enumerate(like.periods):
         if period:
             chain[..., i] = start[i] + (chain[..., i] - start[i] + period / 2) % period - period / 2
-    tau = emcee.autocorr.integrated_time(chain, quiet=True)
+    # τ from the second half, so the walkers' initial spread does not inflate it
+    tau = emcee.autocorr.integrated_time(chain[len(chain) // 2:], quiet=True)
     notes = []
     if steps < 50 * np.nanmax(tau):
         notes.append(f"chain of {steps} steps is shorter than 50 autocorrelation times "
