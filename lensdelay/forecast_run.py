@@ -118,8 +118,10 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
     images = _summarise_groups(groups, w_model, per_model, tr, settings)
     calendar = None
     if site is not None and sc0.sky is not None:
-        lo = min(im["offsets_q"][0] for im in images)
-        hi = max(im["offsets_q"][1] for im in images)
+        # cover the tails too (0.1–99.9%), so the probability counts every sample
+        wide = [weighted_quantiles(im["offsets"], im["weights"], [0.1, 99.9]) for im in images]
+        lo = min(w[0] for w in wide)
+        hi = max(w[1] for w in wide)
         first = tr.date + (np.floor(lo) - 1) * u.day
         n_days = int(np.ceil(hi - lo)) + 3
         step = 20.0 if n_days <= 1200 else 40.0
