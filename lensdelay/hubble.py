@@ -9,6 +9,7 @@ Pure computation: no files, no CLI.
 """
 from __future__ import annotations
 
+import functools
 import itertools
 
 import numpy as np
@@ -64,6 +65,12 @@ def delay_curves(pairs: dict, h0_ref: float, h0_grid=None, cosmology=None, z_l=N
     return rows
 
 
+@functools.lru_cache(maxsize=16)
+def _table(z_l: float, z_s: float, lo: float, hi: float) -> DelayDistanceTable:
+    """Fast D_dt(Ωm) tables are built once per (z_l, z_s, range) and reused."""
+    return DelayDistanceTable(z_l, z_s, (lo, hi), nodes=25)
+
+
 def h0_posterior(h0_eff, like, *, kappa_ext=(0.0, 0.05), om0_prior=None, rng=None) -> dict:
     """H0 and D_dt posteriors from samples of H0_eff (κext = 0, scenario Ωm)."""
     rng = np.random.default_rng(0) if rng is None else rng
@@ -77,7 +84,7 @@ def h0_posterior(h0_eff, like, *, kappa_ext=(0.0, 0.05), om0_prior=None, rng=Non
     if om0_prior is not None and isinstance(cosmo, FlatLambdaCDM) and om0_prior[1] > 0:
         lo = max(0.05, om0_prior[0] - 6 * om0_prior[1])
         hi = min(0.95, om0_prior[0] + 6 * om0_prior[1])
-        table = DelayDistanceTable(sc.lens_redshift, fam.redshift, (lo, hi), nodes=25)
+        table = _table(sc.lens_redshift, fam.redshift, lo, hi)
         om = np.clip(rng.normal(om0_prior[0], om0_prior[1], n), lo, hi)
         ratio = table(70.0, om) / table(70.0, cosmo.Om0)
         om_used = list(om0_prior)
