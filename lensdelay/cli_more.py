@@ -35,7 +35,8 @@ def cmd_fit(args) -> int:
     from .report import fit_text
 
     out = _out_dir(args.out, [])
-    res = fit_command(args.scenario, args.model, use_delays=args.use_delays, sample=args.sample,
+    res = fit_command(args.scenario, args.model, use_delays=args.use_delays,
+                      use_fluxes=args.use_fluxes, flux_floor=args.flux_floor, sample=args.sample,
                       walkers=args.walkers, steps=args.steps, seed=args.seed, resume=args.resume,
                       out_dir=out, progress=not args.quiet)
     print(fit_text(res))
@@ -73,6 +74,10 @@ def register(sub, number) -> None:
     p.add_argument("--model", action="append", help="model TOML replacing the scenario's mass model")
     p.add_argument("--out", help="folder for fit.json, figures, samples and checkpoints")
     p.add_argument("--use-delays", action="store_true", help="fit measured delays too (H0 free)")
+    p.add_argument("--use-fluxes", action="store_true",
+                   help="fit flux ratios from image magnitudes/fluxes too")
+    p.add_argument("--flux-floor", type=number, default=0.2,
+                   help="1-sigma floor on magnitude differences for microlensing (default 0.2 mag)")
     p.add_argument("--sample", action="store_true", help="sample the posterior with emcee")
     p.add_argument("--walkers", type=int, default=32)
     p.add_argument("--steps", type=int, default=2000)

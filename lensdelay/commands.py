@@ -96,7 +96,8 @@ def check_command(scenario_path: str, model_paths=None) -> dict:
     return {"scenario": sc, "likelihood": like, "inputs": used}
 
 
-def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, sample=False,
+def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, use_fluxes=False,
+                flux_floor=0.2, sample=False,
                 walkers=32, steps=2000, seed=1, resume=False, out_dir=None, progress=True) -> dict:
     """Fit (and optionally sample) the scenario's model; returns results and figures."""
     from .fit import fit
@@ -104,7 +105,10 @@ def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, sampl
     from .loading import load_scenario
 
     sc, used = load_scenario(scenario_path, model_paths)
-    like = ImageLikelihood(sc, sc.model, use_delays=use_delays)
+    if not flux_floor > 0:
+        raise InputError(f"--flux-floor must be > 0 mag, got {flux_floor:g}")
+    like = ImageLikelihood(sc, sc.model, use_delays=use_delays, use_fluxes=use_fluxes,
+                           flux_floor_mag=flux_floor)
     try:
         result = fit(like, seed=seed)
     except InputError as err:
@@ -132,7 +136,8 @@ def fit_json(res: dict) -> dict:
         "dof": fr.dof, "aic": fr.aic, "bic": fr.bic,
         "residuals_mas": fr.residuals_mas, "unobserved_images": fr.unobserved_images,
         "at_bounds": fr.at_bounds, "notes": fr.notes, "converged": fr.success,
-        "uses_delays": like.use_delays,
+        "uses_delays": like.use_delays, "uses_flux_ratios": like.use_fluxes,
+        "flux_floor_mag": like.flux_floor_mag if like.use_fluxes else None,
     })
     ch = res.get("chain")
     if ch is not None:

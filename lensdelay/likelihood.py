@@ -46,9 +46,14 @@ class ImageLikelihood:
     model : MassModel
     use_delays : bool
         Fit the scenario's measured delays too; H0 becomes the last parameter.
+    use_fluxes : bool
+        Fit flux ratios (from image ``magnitude`` or ``flux``) too, as magnitude
+        differences to each family's first image with a 1-σ floor of ``flux_floor_mag``
+        for microlensing and differential extinction (default 0.2 mag, common practice).
     """
 
-    def __init__(self, scenario: Scenario, model: MassModel, *, use_delays: bool = False):
+    def __init__(self, scenario: Scenario, model: MassModel, *, use_delays: bool = False,
+                 use_fluxes: bool = False, flux_floor_mag: float = 0.2):
         self.scenario = scenario
         self.model = model
         self.distances = LensDistances(scenario.cosmology, scenario.lens_redshift,
@@ -61,6 +66,21 @@ class ImageLikelihood:
                 np.array([im.x for im in fam.images]), np.array([im.y for im in fam.images]),
                 np.array([im.sigma for im in fam.images]), fam.labels))
         self.use_delays = bool(use_delays and scenario.delays)
+        self.flux_floor_mag = float(flux_floor_mag)
+        # observed magnitude differences to the first image, per family (None: not used)
+        self.flux_data = []
+        for fam in scenario.families:
+            mags = []
+            for im in fam.images:
+                if im.magnitude is not None:
+                    mags.append(im.magnitude)
+                elif im.flux is not None:
+                    mags.append(-2.5 * np.log10(im.flux))
+                else:
+                    mags.append(None)
+            usable = use_fluxes and len(mags) > 1 and all(m is not None for m in mags)
+            self.flux_data.append(np.array(mags, dtype=float) - mags[0] if usable else None)
+        self.use_fluxes = any(d is not None for d in self.flux_data)
         self.h0_ref = float(scenario.cosmology.H0.value)
         free = model.free
         self.names = [p.name for p in free]
@@ -111,6 +131,7 @@ class ImageLikelihood:
     @property
     def n_constraints(self) -> int:
         n = 2 * sum(len(f.x) for f in self.families) + len(self.priors) + len(self.centre_prior)
+        n += sum(len(d) - 1 for d in self.flux_data if d is not None)
         return n + (len(self.scenario.delays) if self.use_delays else 0)
 
     @property
@@ -189,6 +210,11 @@ class ImageLikelihood:
             parts.append(((params[:, i] - mean) / sig)[:, None])
         if self.use_delays:
             parts.append(self._delay_residuals(params, preds))
+        for data, pred in zip(self.flux_data, preds):
+            if data is not None:
+                with np.errstate(all="ignore"):
+                    rel = -2.5 * np.log10(np.abs(pred["mu"][:, 1:]) / np.abs(pred["mu"][:, :1]))
+                parts.append((rel - data[1:]) / self.flux_floor_mag)
         res = np.hstack(parts)
         return np.where(np.isfinite(res), res, 1e6)
 
