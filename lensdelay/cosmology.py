@@ -81,6 +81,31 @@ def cosmology_from_spec(spec: dict | None) -> FLRW:
     return FlatLambdaCDM(H0=h0, Om0=om0, Tcmb0=0.0)
 
 
+COSMOLOGY_CLASSES = ("FlatLambdaCDM", "LambdaCDM", "FlatwCDM", "wCDM", "Flatw0waCDM", "w0waCDM")
+
+
+def cosmology_from_class(name: str, params: dict, base: FLRW) -> FLRW:
+    """An astropy cosmology of class ``name``; H0 and Om0 default to ``base``'s.
+
+    ``params`` are the class's own keyword arguments (e.g. ``w0``, ``wa``, ``Ode0``);
+    radiation is off (``Tcmb0 = 0``) unless given, so delays stay exactly ∝ 1/H0.
+    """
+    if name not in COSMOLOGY_CLASSES:
+        raise InputError(f"--cosmology-class must be one of {choices_text(COSMOLOGY_CLASSES)}, got {name!r}")
+    from astropy import cosmology as _cosmo
+
+    cls = getattr(_cosmo, name)
+    kwargs = {"H0": float(base.H0.value), "Om0": float(base.Om0), "Tcmb0": 0.0}
+    if "Ode0" in cls.__init__.__code__.co_varnames and "Ode0" not in params:
+        kwargs["Ode0"] = float(getattr(base, "Ode0", 1.0 - base.Om0))
+    kwargs.update(params)
+    try:
+        return cls(**kwargs)
+    except (TypeError, ValueError) as err:
+        raise InputError(f"--param for {name} must be keyword arguments of that class, got {params!r} "
+                         f"({err})") from err
+
+
 def describe_cosmology(cosmo: FLRW) -> dict:
     """A JSON-ready description of a cosmology (class, name, H0, Om0, ...)."""
     out = {"class": type(cosmo).__name__, "name": cosmo.name,

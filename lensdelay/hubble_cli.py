@@ -10,7 +10,8 @@ from .errors import InputError, LensdelayWarning
 
 
 def run_hubble(scenario_path, model_paths=None, *, kappa_ext=(0.0, 0.05), om0=None, curves=(),
-               walkers=32, steps=2000, seed=1, progress=True, cosmology_name=None) -> dict:
+               walkers=32, steps=2000, seed=1, progress=True, cosmology_name=None,
+               cosmology_class=None, class_params=None) -> dict:
     from dataclasses import replace
 
     from .commands import provenance
@@ -30,6 +31,10 @@ def run_hubble(scenario_path, model_paths=None, *, kappa_ext=(0.0, 0.05), om0=No
     sc, used = load_scenario(scenario_path, model_paths[:1] if model_paths else None)
     if cosmology_name:
         sc = replace(sc, cosmology=cosmology_from_spec({"name": cosmology_name}))
+    if cosmology_class:
+        from .cosmology import cosmology_from_class
+
+        sc = replace(sc, cosmology=cosmology_from_class(cosmology_class, class_params or {}, sc.cosmology))
     rng = np.random.default_rng(seed)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
@@ -117,10 +122,20 @@ def cmd_hubble(args) -> int:
     from .storage import write_output_set
 
     out = _out_dir(args.out, [])
+    params = {}
+    for item in args.param or []:
+        key, sep, value = item.partition("=")
+        try:
+            params[key] = float(value)
+        except ValueError as err:
+            raise InputError(f"--param must be NAME=NUMBER, got {item!r}") from err
+        if not sep:
+            raise InputError(f"--param must be NAME=NUMBER, got {item!r}")
     res = run_hubble(args.scenario, args.model, kappa_ext=tuple(args.kappa_ext), om0=args.om0,
                      curves=tuple(args.curves.split(",")) if args.curves else (), walkers=args.walkers,
                      steps=args.steps, seed=args.seed, progress=not args.quiet,
-                     cosmology_name=args.cosmology)
+                     cosmology_name=args.cosmology, cosmology_class=args.cosmology_class,
+                     class_params=params)
     doc = hubble_json(res)
     text = hubble_text(res)
     if out is not None:
@@ -151,6 +166,10 @@ def register(sub, number) -> None:
                    help="Omega_m prior (flat LCDM; default the scenario's value ± 0.02)")
     p.add_argument("--curves", help="also show delays along 'om0' and/or 'w' (comma separated)")
     p.add_argument("--cosmology", help="an astropy realisation, e.g. Planck18")
+    p.add_argument("--cosmology-class", help="an astropy cosmology class, e.g. FlatwCDM (H0 and Om0 "
+                   "from the scenario; the Om0 prior then applies only to FlatLambdaCDM)")
+    p.add_argument("--param", action="append", metavar="NAME=VALUE",
+                   help="a parameter of --cosmology-class, e.g. w0=-0.9")
     p.add_argument("--walkers", type=int, default=32)
     p.add_argument("--steps", type=int, default=2000)
     p.add_argument("--seed", type=int, default=1)

@@ -124,3 +124,19 @@ def test_hubble_bad_arguments(argv, message, tmp_path, capsys):
     err = capsys.readouterr().err
     assert message in err and err.count("\n") == 1
     assert not out.exists()
+
+
+def test_h0_under_another_cosmology_class(tmp_path):
+    """Any astropy class on request: with w0 = -0.8 the same delay implies a different H0, and
+    the delay still scales as 1/H0 (no radiation; Hogg 1999)."""
+    from astropy.cosmology import FlatwCDM
+
+    path, days = _double_scenario(tmp_path, h0_true=70.0, sigma_frac=0.002)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        res = run_hubble(str(path), kappa_ext=(0.0, 0.0), om0=(0.3, 0.0), walkers=8, steps=300, progress=False,
+                         cosmology_class="FlatwCDM", class_params={"w0": -0.8})
+    ref = LensDistances(FlatLambdaCDM(H0=70.0, Om0=0.3, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
+    alt = LensDistances(FlatwCDM(H0=70.0, Om0=0.3, w0=-0.8, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
+    expected = 70.0 * (alt / ref).decompose().value
+    assert res["h0"]["H0"]["median"] == pytest.approx(expected, rel=0.005)
