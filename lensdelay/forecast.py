@@ -274,12 +274,5 @@ def combine(models: list[ModelForecast], weighting: str = "bic", match_radius: f
     return groups, w_model
 
 
-def dates_from(transient, offsets_days) -> Time:
-    """Detection date plus offsets in days (astropy Time arithmetic)."""
-    from astropy import units as u
-
-    return transient.date + np.asarray(offsets_days) * u.day
-
-
 def parity_name(code) -> str:
     return PARITIES[int(code)]
