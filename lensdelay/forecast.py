@@ -15,7 +15,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from astropy.time import Time
 
 from .images import find_images, newton_polish
 from .lens import PARITIES
