@@ -113,6 +113,14 @@ def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, use_f
         result = fit(like, seed=seed)
     except InputError as err:
         raise err.with_source(scenario_path) from err
+    from .fit import delay_errors
+
+    linear_delays = []
+    for k, fam in enumerate(like.families):
+        days, errs = delay_errors(like, result, family=k)
+        for lab, d, e in zip(fam.labels[1:], days[1:], errs[1:]):
+            linear_delays.append({"family": fam.label, "image": lab, "relative_to": fam.labels[0],
+                                  "days": float(d), "linearised_sigma_days": float(e)})
     chain = None
     if sample:
         from .posterior import sample as run_sampler
@@ -121,6 +129,7 @@ def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, use_f
                             checkpoint_dir=out_dir, resume=resume, progress=progress,
                             scales=result.errors)
     return {"scenario": sc, "likelihood": like, "fit": result, "chain": chain,
+            "linear_delays": linear_delays,
             "provenance": provenance(used, sc.cosmology, seed)}
 
 
@@ -136,6 +145,7 @@ def fit_json(res: dict) -> dict:
         "dof": fr.dof, "aic": fr.aic, "bic": fr.bic,
         "residuals_mas": fr.residuals_mas, "unobserved_images": fr.unobserved_images,
         "at_bounds": fr.at_bounds, "notes": fr.notes, "converged": fr.success,
+        "delays_linearised": res.get("linear_delays", []),
         "uses_delays": like.use_delays, "uses_flux_ratios": like.use_fluxes,
         "flux_floor_mag": like.flux_floor_mag if like.use_fluxes else None,
     })

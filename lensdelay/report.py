@@ -51,6 +51,11 @@ def fit_text(res: dict) -> str:
         for im in fr.unobserved_images:
             lines.append(f"  {im['family']}: ({im['x']:+.4f}, {im['y']:+.4f}) arcsec, "
                          f"mu = {im['magnification']:+.4f}, {im['parity']}")
+    if res.get("linear_delays"):
+        lines += ["", "delays at the best fit (scenario cosmology; linearised 1-sigma errors):"]
+        for d in res["linear_delays"]:
+            lines.append(f"  {d['family']}/{d['image']} − {d['relative_to']}: {d['days']:+.2f} "
+                         f"± {d['linearised_sigma_days']:.2f} d")
     for note in fr.notes:
         lines.append(f"NOTE: {note}")
     ch = res.get("chain")
