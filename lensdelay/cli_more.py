@@ -1,15 +1,14 @@
-"""Sub-commands check, fit (and, as they come, forecast and hubble): argument wiring."""
+"""Sub-commands check and fit: argument wiring; registers forecast and hubble too."""
 from __future__ import annotations
 
-import json
 import sys
 from pathlib import Path
 
 from .errors import InputError
 
 
-def _out_dir(path: str | None, inputs) -> Path | None:
-    """The output folder; refuses a file, and any output that would overwrite an input."""
+def output_folder(path: str | None) -> Path | None:
+    """The ``--out`` folder (created only when results are written); refuses a file."""
     if path is None:
         return None
     out = Path(path)
@@ -34,7 +33,7 @@ def cmd_fit(args) -> int:
     from .commands import fit_command, fit_json
     from .report import fit_text
 
-    out = _out_dir(args.out, [])
+    out = output_folder(args.out)
     res = fit_command(args.scenario, args.model, use_delays=args.use_delays,
                       use_fluxes=args.use_fluxes, flux_floor=args.flux_floor, sample=args.sample,
                       walkers=args.walkers, steps=args.steps, seed=args.seed, resume=args.resume,

@@ -27,13 +27,13 @@ def _site_from_args(args):
 
 
 def cmd_forecast(args) -> int:
-    from .cli_more import _out_dir
+    from .cli_more import output_folder
     from .figures import timeline_figure
     from .forecast_outputs import forecast_ics, forecast_json, forecast_table, forecast_text, table_text
     from .forecast_run import run_forecast
     from .storage import write_output_set
 
-    out = _out_dir(args.out, [])
+    out = output_folder(args.out)
     res = run_forecast(args.scenario, args.model, n_samples=args.samples, seed=args.seed, h0=args.h0,
                        cosmology_name=args.cosmology, kappa_ext=args.kappa_ext,
                        microlensing=args.microlensing, depth=args.depth, weighting=args.weights,

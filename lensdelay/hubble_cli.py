@@ -117,11 +117,11 @@ def hubble_text(res) -> str:
 
 
 def cmd_hubble(args) -> int:
-    from .cli_more import _out_dir
+    from .cli_more import output_folder
     from .figures import h0_figure, hubble_curves_figure
     from .storage import write_output_set
 
-    out = _out_dir(args.out, [])
+    out = output_folder(args.out)
     params = {}
     for item in args.param or []:
         key, sep, value = item.partition("=")
