@@ -12,7 +12,7 @@ import sys
 import warnings
 
 from . import __version__
-from .errors import InputError, LensdelayError, LensdelayWarning
+from .errors import LensdelayError, LensdelayWarning
 
 
 class _Parser(argparse.ArgumentParser):

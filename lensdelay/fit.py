@@ -187,7 +187,6 @@ def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult
     """Residuals, unobserved images and bound checks at ``values``."""
     preds = like.predict(values[None, :])
     rows, unobserved, notes = [], [], []
-    lens = preds[0]["lens"] if preds else like.lens_for(values[None, :])
     single = like.model.lens(values[:like.n_model])
     for k, (fam, pred) in enumerate(zip(like.families, preds)):
         for i, lab in enumerate(fam.labels):

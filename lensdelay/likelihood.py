@@ -114,7 +114,7 @@ class ImageLikelihood:
         if ll is None:
             return {}
         out = {}
-        for ci, comp in enumerate(self.model.components):
+        for comp in self.model.components:
             if comp.profile_class.centred and comp.kind != "NFW":
                 for axis, value in (("x", ll.x), ("y", ll.y)):
                     p = comp.parameters.get(axis)

@@ -86,7 +86,7 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
     """
     ndim = len(start)
     if walkers < 2 * ndim:
-        walkers = 2 * ndim + (2 * ndim) % 2
+        walkers = 2 * ndim   # emcee needs at least twice as many walkers as parameters
     rng = np.random.default_rng(seed)
     sampler = emcee.EnsembleSampler(walkers, ndim, like.log_probability, vectorize=True)
     # emcee draws from its own RandomState; seed it from our generator

@@ -1,6 +1,5 @@
 """Faults and reproducibility (issue 6): interrupted sampling, resume, degenerate geometry."""
 import json
-import os
 import signal
 import subprocess
 import sys
