@@ -146,7 +146,11 @@ class ImageFinder:
         yy = np.outer(radii, np.cos(angles))
         with np.errstate(all="ignore"):
             bx, by = self.lens.source_position(xx, yy, self.scale)
-        inside = np.hypot(bx, by) <= 1.05 * self.source_radius + 1e-3
+        # A thin ring of solutions (e.g. |β| ≪ θE behind a round lens) can fall between
+        # two sampled radii; |β(θ)| changes by about the radial step between them, so the
+        # step is part of the tolerance.
+        step = np.gradient(radii)[:, None]
+        inside = np.hypot(bx, by) <= 1.05 * self.source_radius + 1e-3 + 2.0 * step
         reach = radii[np.any(inside, axis=1)].max() if np.any(inside) else 1.0
         centres = self.lens.centres()
         offset = max((np.hypot(*c) for c in centres), default=0.0)

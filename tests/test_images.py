@@ -171,3 +171,11 @@ def test_sie_caustic_cusps_bound_the_quads():
     cusp = np.max(np.abs(tangential.caustic_x))
     assert len(find_images(lens, [0.9 * cusp], [0.0])) == 4
     assert len(find_images(lens, [1.1 * cusp], [0.0])) == 2
+
+
+def test_nearly_aligned_source_behind_a_large_round_lens():
+    """Regression (found by Hypothesis): |β| ≪ θE puts both SIS images in a ring thinner than
+    the radial sampling of the search area; both must still be found at β ± θE (SEF92 8.1.4)."""
+    lens = Lens((IsothermalEllipsoid(einstein_radius=2.0, axis_ratio=1.0), ExternalShear(strength=0.0)))
+    t = find_images(lens, [0.0], [0.015625])
+    np.testing.assert_allclose(np.sort(t.y), [0.015625 - 2.0, 0.015625 + 2.0], atol=1e-10)
