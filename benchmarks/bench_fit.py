@@ -1,7 +1,9 @@
 """Fitting benchmark (issue 3): quad fit time, posterior time, vectorised log-likelihood
-speed-up, and the calibration of delay intervals over noise realisations.
+speed-up, sampler mixing, and the calibration of delay intervals over noise realisations.
 
-Run: python benchmarks/bench_fit.py [--realisations N]   (calibration: N=100 takes ~10 min)
+Run: python benchmarks/bench_fit.py [--realisations N] [--system quad|two-family|both]
+     [--prior flat|jeffreys|both] [--move langevin|stretch]
+(calibration: N = 100 takes ~10 min per system and prior on 2 cores)
 """
 from __future__ import annotations
 
@@ -63,6 +65,8 @@ def main():
     ap.add_argument("--realisations", type=int, default=100)
     ap.add_argument("--steps", type=int, default=1500)
     ap.add_argument("--system", choices=list(SYSTEMS) + ["both"], default="both")
+    ap.add_argument("--prior", choices=["flat", "jeffreys", "both"], default="flat")
+    ap.add_argument("--move", choices=["langevin", "stretch"], default="langevin")
     args = ap.parse_args()
     warnings.simplefilter("ignore", LensdelayWarning)
     rng = np.random.default_rng(123)
@@ -89,14 +93,49 @@ def main():
     print(f"log-likelihood, 32 walkers: vectorised {t_vec * 1e3:.2f} ms, per-walker loop {t_loop * 1e3:.1f} ms: "
           f"ratio {t_loop / t_vec:.1f}x (goal >= 20x)")
 
+    mixing(like)
     for name in (SYSTEMS if args.system == "both" else [args.system]):
-        f68, f95, total, seconds = calibration(args.realisations, args.steps, name)
-        print(f"calibration, {name}, over {args.realisations} realisations ({total} delays, {seconds:.0f} s): "
-              f"68% intervals contain the truth {100 * f68:.1f}% of the time (goal 68 ± 7), "
-              f"95% intervals {100 * f95:.1f}% (goal 95 ± 4)")
+        for prior in (("flat", "jeffreys") if args.prior == "both" else (args.prior,)):
+            f68, f95, total, seconds = calibration(args.realisations, args.steps, name, prior, args.move)
+            print(f"calibration, {name}, prior {prior}, move {args.move}, over {args.realisations} "
+                  f"realisations ({total} delays, {seconds:.0f} s): 68% intervals contain the truth "
+                  f"{100 * f68:.1f}% of the time (goal 68 ± 7), 95% intervals {100 * f95:.1f}% (goal 95 ± 4)")
 
 
-def calibration(realisations: int = 100, steps: int = 1500, which: str = "quad"):
+def valley_end(like, best, delay_days):
+    """The best fit constrained to a given delay of the second image: a point along the valley."""
+    from scipy.optimize import least_squares
+
+    lo = np.where(np.isfinite(like.lower), like.lower, -1e3)
+    hi = np.where(np.isfinite(like.upper), like.upper, 1e3)
+
+    def resid(v):
+        return np.append(like.residuals(v)[0], (observed_delays(like, v)[0, 1] - delay_days) / 1e-3)
+
+    return least_squares(resid, best.values, bounds=(lo, hi), x_scale=best.errors).x
+
+
+def mixing(like, steps: int = 1000):
+    """Walkers started at two ends of the quad's curved valley, for each move: do they meet?"""
+    best = fit(like)
+    d0 = observed_delays(like, best.values)[0, 1]
+    ends = {d: valley_end(like, best, d) for d in (0.65 * d0, 1.4 * d0)}
+    for move in ("stretch", "langevin"):
+        t0 = time.perf_counter()
+        medians, taus = [], []
+        for d, start in ends.items():
+            ch = sample(like, start, walkers=32, steps=steps, seed=1, progress=False,
+                        scales=0.05 * best.errors, move=move)
+            days = observed_delays(like, ch.chain[steps // 2:].reshape(-1, ch.chain.shape[-1]))[:, 1]
+            medians.append(np.median(days))
+            taus.append(np.max(ch.autocorr))
+        print(f"mixing, move {move}: walkers started at delays {', '.join(f'{d:.2f}' for d in ends)} d "
+              f"(best fit {d0:.2f} d) have second-half medians {medians[0]:.2f} and {medians[1]:.2f} d "
+              f"after {steps} steps; max tau {max(taus):.0f} steps; {time.perf_counter() - t0:.1f} s")
+
+
+def calibration(realisations: int = 100, steps: int = 1500, which: str = "quad", prior: str = "flat",
+                move: str = "langevin"):
     """Fraction of 68% and 95% posterior delay intervals that contain the true delays."""
     warnings.simplefilter("ignore", LensdelayWarning)
     make = SYSTEMS[which]
@@ -107,10 +146,11 @@ def calibration(realisations: int = 100, steps: int = 1500, which: str = "quad")
     hits68 = hits95 = total = 0
     t0 = time.perf_counter()
     for k in range(realisations):
-        like_k = make(np.random.default_rng(1000 + k))
+        made = make(np.random.default_rng(1000 + k))
+        like_k = ImageLikelihood(made.scenario, made.model, prior=prior)
         res_k = fit(like_k)
         ch = sample(like_k, res_k.values, walkers=32, steps=steps, seed=k, progress=False,
-                    scales=res_k.errors)
+                    scales=res_k.errors, move=move)
         days = observed_delays(like_k, ch.samples())
         for i in range(1, days.shape[1]):
             lo68, hi68, lo95, hi95 = np.nanpercentile(days[:, i], [16, 84, 2.5, 97.5])

@@ -37,7 +37,7 @@ def cmd_fit(args) -> int:
     res = fit_command(args.scenario, args.model, use_delays=args.use_delays,
                       use_fluxes=args.use_fluxes, flux_floor=args.flux_floor, sample=args.sample,
                       walkers=args.walkers, steps=args.steps, seed=args.seed, resume=args.resume,
-                      out_dir=out, progress=not args.quiet)
+                      out_dir=out, progress=not args.quiet, prior=args.prior)
     print(fit_text(res))
     if out is not None:
         from .figures import corner_figure, residual_figure, sky_figure
@@ -82,6 +82,9 @@ def register(sub, number) -> None:
     p.add_argument("--steps", type=int, default=2000)
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--resume", action="store_true", help="continue the chain checkpointed in --out")
+    p.add_argument("--prior", choices=("flat", "jeffreys"), default="flat",
+                   help="prior of the mass-model posterior within the bounds: flat in the recipe's "
+                        "parameters (default) or Jeffreys' (Fisher information)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_fit)
     from . import forecast_cli

@@ -98,7 +98,8 @@ def check_command(scenario_path: str, model_paths=None) -> dict:
 
 def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, use_fluxes=False,
                 flux_floor=0.2, sample=False,
-                walkers=32, steps=2000, seed=1, resume=False, out_dir=None, progress=True) -> dict:
+                walkers=32, steps=2000, seed=1, resume=False, out_dir=None, progress=True,
+                prior="flat") -> dict:
     """Fit (and optionally sample) the scenario's model; returns results and figures."""
     from .fit import fit
     from .likelihood import ImageLikelihood
@@ -108,7 +109,7 @@ def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, use_f
     if not flux_floor > 0:
         raise InputError(f"--flux-floor must be > 0 mag, got {flux_floor:g}")
     like = ImageLikelihood(sc, sc.model, use_delays=use_delays, use_fluxes=use_fluxes,
-                           flux_floor_mag=flux_floor)
+                           flux_floor_mag=flux_floor, prior=prior)
     try:
         result = fit(like, seed=seed)
     except InputError as err:
@@ -148,11 +149,13 @@ def fit_json(res: dict) -> dict:
         "delays_linearised": res.get("linear_delays", []),
         "uses_delays": like.use_delays, "uses_flux_ratios": like.use_fluxes,
         "flux_floor_mag": like.flux_floor_mag if like.use_fluxes else None,
+        "prior": like.prior,
     })
     ch = res.get("chain")
     if ch is not None:
         s = ch.samples()
         doc["posterior"] = {
+            "move": ch.move, "prior": like.prior,
             "walkers": int(ch.chain.shape[1]), "steps": int(ch.chain.shape[0]), "burn": ch.burn,
             "thin": ch.thin, "acceptance_fraction": float(np.mean(ch.acceptance)),
             "autocorrelation_steps": {n: float(t) for n, t in zip(ch.names, ch.autocorr)},

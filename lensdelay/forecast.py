@@ -46,6 +46,7 @@ class ForecastSettings:
     depth: float = DEFAULT_DEPTH
     weighting: str = "bic"
     seen: dict = field(default_factory=dict)     # label -> (Time, sigma_days)
+    model_prior: str = "flat"                    # prior of the mass-model posterior
 
 
 def weighted_quantiles(values, weights, percents) -> np.ndarray:

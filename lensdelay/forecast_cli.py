@@ -37,7 +37,7 @@ def cmd_forecast(args) -> int:
                        cosmology_name=args.cosmology, kappa_ext=args.kappa_ext,
                        microlensing=args.microlensing, depth=args.depth, weighting=args.weights,
                        seen=args.seen, site=_site_from_args(args), walkers=args.walkers,
-                       steps=args.steps, progress=not args.quiet)
+                       steps=args.steps, progress=not args.quiet, prior=args.prior)
     if getattr(args, "budget", True):
         from .budget import delay_budget
 
@@ -88,6 +88,9 @@ def register(sub, number) -> None:
     p.add_argument("--elongation", nargs=2, type=number, metavar=("MIN", "MAX"),
                    help="space observatory: allowed solar elongation range, degrees")
     p.add_argument("--walkers", type=int, default=32)
+    p.add_argument("--prior", choices=("flat", "jeffreys"), default="flat",
+                   help="prior of the mass-model posterior within the bounds: flat in the recipe's "
+                        "parameters (default) or Jeffreys' (Fisher information)")
     p.add_argument("--steps", type=int, default=2000)
     p.add_argument("--quiet", action="store_true")
     p.add_argument("--no-budget", dest="budget", action="store_false",

@@ -48,7 +48,7 @@ def forecast_json(res: dict) -> dict:
                       "magnitude": tr.magnitude},
         "priors": {"H0": list(st.h0_prior) if st.h0_prior else "fixed to the cosmology",
                    "kappa_ext": list(st.kappa_ext), "microlensing_mag": st.microlensing_mag,
-                   "depth_mag": st.depth},
+                   "depth_mag": st.depth, "mass_model": st.model_prior},
         "samples": st.n_samples,
         "updated_on": {lab: {"date": d.isot[:19] + "Z", "sigma_days": s} for lab, (d, s) in st.seen.items()},
         "models": [{"label": m.model_label, "bic": float(m.bic), "weight": float(w),

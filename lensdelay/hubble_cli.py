@@ -11,7 +11,7 @@ from .errors import InputError, LensdelayWarning
 
 def run_hubble(scenario_path, model_paths=None, *, kappa_ext=(0.0, 0.05), om0=None, curves=(),
                walkers=32, steps=2000, seed=1, progress=True, cosmology_name=None,
-               cosmology_class=None, class_params=None) -> dict:
+               cosmology_class=None, class_params=None, prior="flat") -> dict:
     from dataclasses import replace
 
     from .commands import provenance
@@ -38,7 +38,7 @@ def run_hubble(scenario_path, model_paths=None, *, kappa_ext=(0.0, 0.05), om0=No
     rng = np.random.default_rng(seed)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        like = ImageLikelihood(sc, sc.model)
+        like = ImageLikelihood(sc, sc.model, prior=prior)
         try:
             res = fit(like, seed=seed)
         except InputError as err:
@@ -51,11 +51,11 @@ def run_hubble(scenario_path, model_paths=None, *, kappa_ext=(0.0, 0.05), om0=No
     rows = delay_curves(pairs, like.h0_ref, cosmology=sc.cosmology, z_l=sc.lens_redshift, z_s_of=z_s_of,
                         om0_grid=np.linspace(0.15, 0.45, 31) if "om0" in curves else None,
                         w_grid=np.linspace(-1.5, -0.5, 21) if "w" in curves else None)
-    out = {"scenario": sc, "fit": res, "chain": chain, "curves": rows, "pairs": pairs,
+    out = {"scenario": sc, "fit": res, "chain": chain, "curves": rows, "pairs": pairs, "prior": prior,
            "provenance": provenance(used, sc.cosmology, seed), "notes": list(res.notes + chain.warnings)}
     om0_prior = tuple(om0) if om0 is not None else (float(sc.cosmology.Om0), 0.02)
     if sc.delays:
-        joint = ImageLikelihood(sc, sc.model, use_delays=True)
+        joint = ImageLikelihood(sc, sc.model, use_delays=True, prior=prior)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LensdelayWarning)
             jres = fit(joint, seed=seed)
@@ -86,6 +86,7 @@ def hubble_json(res) -> dict:
                                     for k in res.get("kappa_comparison", [])],
            "delay_vs_H0": [r for r in res["curves"] if r["axis"] == "H0"],
            "delay_vs_other": [r for r in res["curves"] if r["axis"] != "H0"],
+           "mass_model_prior": res["prior"],
            "notes": res["notes"], "cautions": CAUTION, "provenance": res["provenance"]}
     return doc
 
@@ -135,7 +136,7 @@ def cmd_hubble(args) -> int:
                      curves=tuple(args.curves.split(",")) if args.curves else (), walkers=args.walkers,
                      steps=args.steps, seed=args.seed, progress=not args.quiet,
                      cosmology_name=args.cosmology, cosmology_class=args.cosmology_class,
-                     class_params=params)
+                     class_params=params, prior=args.prior)
     doc = hubble_json(res)
     text = hubble_text(res)
     if out is not None:
@@ -171,6 +172,9 @@ def register(sub, number) -> None:
     p.add_argument("--param", action="append", metavar="NAME=VALUE",
                    help="a parameter of --cosmology-class, e.g. w0=-0.9")
     p.add_argument("--walkers", type=int, default=32)
+    p.add_argument("--prior", choices=("flat", "jeffreys"), default="flat",
+                   help="prior of the mass-model posterior within the bounds: flat in the recipe's "
+                        "parameters (default) or Jeffreys' (Fisher information)")
     p.add_argument("--steps", type=int, default=2000)
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--quiet", action="store_true")

@@ -82,7 +82,9 @@ def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: in
 
     Vectorised over any broadcastable shapes (e.g. all candidates, or all posterior
     samples at once). ``max_step`` (arcsec, scalar or array) limits each step so a
-    start cannot jump to a distant root.
+    start cannot jump to a distant root. A point stops moving once it has converged, so
+    its result does not depend on which other points share the call (a resumed sampler
+    repeats an uninterrupted one bit for bit).
 
     Returns
     -------
@@ -95,7 +97,8 @@ def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: in
         for _ in range(iterations):
             bx, by = lens.source_position(x, y, scale)
             rx, ry = beta_x - bx, beta_y - by
-            if np.all(np.abs(rx) + np.abs(ry) < tolerance):   # all converged: stop early
+            converged = np.abs(rx) + np.abs(ry) < tolerance
+            if np.all(converged):   # all converged: stop early
                 break
             a11, a12, a22 = lens.jacobian(x, y, scale)
             det = a11 * a22 - a12 * a12
@@ -106,8 +109,8 @@ def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: in
                 step = np.hypot(dx, dy)
                 shrink = np.minimum(1.0, max_step / np.maximum(step, 1e-300))
                 dx, dy = dx * shrink, dy * shrink
-            x = x + np.where(np.isfinite(dx), dx, 0.0)
-            y = y + np.where(np.isfinite(dy), dy, 0.0)
+            x = x + np.where(np.isfinite(dx) & ~converged, dx, 0.0)
+            y = y + np.where(np.isfinite(dy) & ~converged, dy, 0.0)
         bx, by = lens.source_position(x, y, scale)
         err = np.hypot(beta_x - bx, beta_y - by)
     return x, y, np.where(np.isfinite(err), err, np.inf)

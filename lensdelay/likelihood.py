@@ -10,6 +10,16 @@ each observed image is matched to the predicted image it falls into. Two observe
 images falling into the same predicted image (an image the model lacks) and a start
 that does not converge are penalised with the magnification-weighted source-plane
 offset, so the fit never silently ignores a missing image.
+
+The posterior's prior within the bounds is either flat in the recipe's parameters
+(``prior="flat"``, the default: what a recipe's ``min``/``max`` say) or Jeffreys' prior,
+the square root of the determinant of the Fisher information of all the constraints
+(Jeffreys 1946, Proc. R. Soc. A 186, 453; Kass & Wasserman 1996, JASA 91, 1343,
+sec. 2), which does not depend on how the model is parametrised (axis ratio and angle,
+or ellipticity components). Both give calibrated delay intervals for the benchmark
+quad (``benchmarks/bench_fit.py``; README). The Jacobian behind the Fisher information
+(:meth:`ImageLikelihood.information_jacobian`) also gives the sampler its local metric
+(:mod:`lensdelay.moves`).
 """
 from __future__ import annotations
 
@@ -18,12 +28,17 @@ from dataclasses import dataclass
 import numpy as np
 
 from .cosmology import LensDistances
+from .errors import InputError, choices_text
 from .images import newton_polish
 from .modelspec import MassModel
 from .scenario import Scenario
 
 #: Residual (in σ) added per coordinate when the model lacks an observed image.
 MISSING_IMAGE_PENALTY = 1e3
+#: Priors the posterior can use (see the module docstring).
+PRIOR_CHOICES = ("jeffreys", "flat")
+#: Relative step of the central differences for the Fisher information.
+_INFO_STEP = 1e-6
 
 
 @dataclass
@@ -50,10 +65,16 @@ class ImageLikelihood:
         Fit flux ratios (from image ``magnitude`` or ``flux``) too, as magnitude
         differences to each family's first image with a 1-σ floor of ``flux_floor_mag``
         for microlensing and differential extinction (default 0.2 mag, common practice).
+    prior : {"jeffreys", "flat"}
+        Prior of :meth:`log_probability` within the bounds (module docstring); Gaussian
+        priors of the recipe and the lens-light centre enter as constraints either way.
     """
 
     def __init__(self, scenario: Scenario, model: MassModel, *, use_delays: bool = False,
-                 use_fluxes: bool = False, flux_floor_mag: float = 0.2):
+                 use_fluxes: bool = False, flux_floor_mag: float = 0.2, prior: str = "flat"):
+        if prior not in PRIOR_CHOICES:
+            raise InputError(f"prior must be one of {choices_text(PRIOR_CHOICES)}, got {prior!r}")
+        self.prior = prior
         self.scenario = scenario
         self.model = model
         self.distances = LensDistances(scenario.cosmology, scenario.lens_redshift,
@@ -181,10 +202,13 @@ class ImageLikelihood:
                         "beta": np.hstack([bx, by]), "lens": lens})
         return out
 
-    def residuals(self, params: np.ndarray) -> np.ndarray:
-        """Normalised residuals, shape (P, n_constraints)."""
+    def residuals(self, params: np.ndarray, preds=None) -> np.ndarray:
+        """Normalised residuals, shape (P, n_constraints).
+
+        ``preds`` may pass in :meth:`predict` of the same rows to avoid solving twice.
+        """
         params = np.atleast_2d(np.asarray(params, dtype=float))
-        preds = self.predict(params)
+        preds = self.predict(params) if preds is None else preds
         parts = []
         for fam, pred in zip(self.families, preds):
             dx = (pred["x"] - fam.x) / fam.sigma
@@ -208,28 +232,138 @@ class ImageLikelihood:
             parts += [dx, dy]
         for i, (mean, sig) in {**self.priors, **self.centre_prior}.items():
             parts.append(((params[:, i] - mean) / sig)[:, None])
-        if self.use_delays:
-            parts.append(self._delay_residuals(params, preds))
-        for data, pred in zip(self.flux_data, preds):
-            if data is not None:
-                with np.errstate(all="ignore"):
-                    rel = -2.5 * np.log10(np.abs(pred["mu"][:, 1:]) / np.abs(pred["mu"][:, :1]))
-                parts.append((rel - data[1:]) / self.flux_floor_mag)
+        parts += self._derived_residuals(params, [p["fermat"] for p in preds],
+                                         [p["mu"] for p in preds])
         res = np.hstack(parts)
         return np.where(np.isfinite(res), res, 1e6)
 
-    def _delay_residuals(self, params, preds):
-        h0 = params[:, -1:]
-        cols = []
-        fam_index = {f.label: k for k, f in enumerate(self.families)}
-        for d in self.scenario.delays:
-            k = fam_index[d.family]
-            fam, pred = self.families[k], preds[k]
-            i, j = fam.labels.index(d.image), fam.labels.index(d.relative_to)
-            days = (pred["fermat"][:, i] - pred["fermat"][:, j]) * fam.days_per_arcsec2
-            days = days * self.h0_ref / h0[:, 0]
-            cols.append(((days - d.days) / d.sigma)[:, None])
-        return np.hstack(cols)
+    def _derived_residuals(self, params, fermat, mu) -> list[np.ndarray]:
+        """Residual columns of measured delays and flux ratios (those in use).
+
+        ``fermat`` and ``mu`` are per family, (P, n_img) at the predicted images.
+        """
+        parts = []
+        if self.use_delays:
+            h0 = params[:, -1]
+            cols = []
+            fam_index = {f.label: k for k, f in enumerate(self.families)}
+            for d in self.scenario.delays:
+                k = fam_index[d.family]
+                fam = self.families[k]
+                i, j = fam.labels.index(d.image), fam.labels.index(d.relative_to)
+                days = (fermat[k][:, i] - fermat[k][:, j]) * fam.days_per_arcsec2
+                days = days * self.h0_ref / h0
+                cols.append(((days - d.days) / d.sigma)[:, None])
+            parts.append(np.hstack(cols))
+        for data, m in zip(self.flux_data, mu):
+            if data is not None:
+                with np.errstate(all="ignore"):
+                    rel = -2.5 * np.log10(np.abs(m[:, 1:]) / np.abs(m[:, :1]))
+                parts.append((rel - data[1:]) / self.flux_floor_mag)
+        return parts
+
+    def information_jacobian(self, params: np.ndarray, preds=None) -> np.ndarray:
+        """∂(normalised residuals)/∂(parameters) at the predicted images, (P, m, n).
+
+        Image positions move with the parameters by the implicit-function theorem
+        applied to the lens equation θ − s α(θ; p) = β:
+        dθ/dp = A⁻¹ (s ∂α/∂p + ∂β/∂p), A = I − s ∂α/∂θ (Schneider, Ehlers & Falco
+        1992, eq. 5.20 for A). ∂α/∂p (and the Fermat potential and magnification for
+        delay and flux rows) come from central differences in the parameters, at the
+        images moved along dθ/dp, so no lens equation is solved again. Rows of Gaussian
+        priors and of the lens-light centre are constant.
+        """
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        preds = self.predict(params) if preds is None else preds
+        n_rows, n_par = params.shape
+        step = _INFO_STEP * np.maximum(1.0, np.abs(params))              # (P, n)
+        # rows p + h e_k then p - h e_k for every k: (2 n P, n), k-major
+        eye = np.eye(n_par)
+        plus = params[None, :, :] + step.T[:, :, None] * eye[:, None, :]
+        minus = params[None, :, :] - step.T[:, :, None] * eye[:, None, :]
+        shifted = np.concatenate([plus, minus]).reshape(-1, n_par)
+        lens = self.lens_for(shifted)
+        need_derived = self.use_delays or self.use_fluxes
+        jac_parts, fermat_pm, mu_pm = [], [], []
+        for k, (fam, pred) in enumerate(zip(self.families, preds)):
+            x, y = pred["x"], pred["y"]                                    # (P, I)
+            xs = np.tile(x, (2 * n_par, 1))
+            ys = np.tile(y, (2 * n_par, 1))
+            with np.errstate(all="ignore"):
+                ax, ay = lens.deflection(xs, ys, fam.scale)
+                a11, a12, a22 = pred["lens"].jacobian(x, y, fam.scale)
+            ax = ax.reshape(2, n_par, n_rows, -1)
+            ay = ay.reshape(2, n_par, n_rows, -1)
+            h = step.T[:, :, None]                                         # (n, P, 1)
+            dax = (ax[0] - ax[1]) / (2 * h)                                # (n, P, I)
+            day = (ay[0] - ay[1]) / (2 * h)
+            # the source position moves the images one for one
+            sl = self.source_slice(k)
+            dax[sl.start] += 1.0
+            day[sl.start + 1] += 1.0
+            with np.errstate(all="ignore"):
+                det = a11 * a22 - a12 * a12
+                dxdp = (a22 * dax - a12 * day) / det                       # (n, P, I)
+                dydp = (a11 * day - a12 * dax) / det
+            jac_parts += [np.moveaxis(dxdp / fam.sigma, 0, -1), np.moveaxis(dydp / fam.sigma, 0, -1)]
+            if need_derived:
+                moved_x = np.concatenate([x + h * dxdp, x - h * dxdp]).reshape(-1, x.shape[1])
+                moved_y = np.concatenate([y + h * dydp, y - h * dydp]).reshape(-1, x.shape[1])
+                bx = shifted[:, sl][:, :1]
+                by = shifted[:, sl][:, 1:]
+                with np.errstate(all="ignore"):
+                    fermat_pm.append(lens.fermat_potential(moved_x, moved_y, bx, by, fam.scale))
+                    mu_pm.append(lens.magnification(moved_x, moved_y, fam.scale))
+        for i, (_, sig) in {**self.priors, **self.centre_prior}.items():
+            row = np.zeros((n_rows, 1, n_par))
+            row[:, 0, i] = 1.0 / sig
+            jac_parts.append(row)
+        jac = np.concatenate(jac_parts, axis=1)
+        if need_derived:
+            derived = np.hstack(self._derived_residuals(shifted, fermat_pm, mu_pm))
+            derived = derived.reshape(2, n_par, n_rows, -1)
+            ddiff = (derived[0] - derived[1]) / (2 * step.T[:, :, None])   # (n, P, m')
+            jac = np.concatenate([jac, np.moveaxis(ddiff, 0, -1)], axis=1)
+        return jac
+
+    def _log_prior_from(self, jac: np.ndarray) -> np.ndarray:
+        if self.prior == "flat":
+            return np.zeros(len(jac))
+        with np.errstate(all="ignore"):
+            sign, logdet = np.linalg.slogdet(np.einsum("pmi,pmj->pij", jac, jac))
+        return np.where((sign > 0) & np.isfinite(logdet), 0.5 * logdet, -np.inf)
+
+    def log_prior(self, params: np.ndarray, preds=None) -> np.ndarray:
+        """log prior density (up to a constant) within the bounds, per row.
+
+        ``"flat"``: 0. ``"jeffreys"``: ½ log det(Jᵀ J) with J from
+        :meth:`information_jacobian`; −inf where the information is singular (a
+        parameter the constraints cannot see, e.g. the angle of a round lens).
+        """
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        if self.prior == "flat":
+            return np.zeros(len(params))
+        return self._log_prior_from(self.information_jacobian(params, preds))
+
+    def evaluate(self, params: np.ndarray):
+        """log posterior, residuals and their Jacobian for rows (P, n) in one pass.
+
+        Rows outside the bounds get −inf and zero residuals and Jacobian. Used by
+        :class:`lensdelay.moves.FisherLangevinMove`, which needs the local geometry.
+        """
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        inside = np.all((params >= self.lower) & (params <= self.upper), axis=1)
+        logp = np.full(len(params), -np.inf)
+        res = np.zeros((len(params), self.n_constraints))
+        jac = np.zeros((len(params), self.n_constraints, params.shape[1]))
+        if np.any(inside):
+            rows = params[inside]
+            preds = self.predict(rows)
+            r = self.residuals(rows, preds)
+            j = self.information_jacobian(rows, preds)
+            logp[inside] = -0.5 * np.sum(r * r, axis=1) + self._log_prior_from(j)
+            res[inside], jac[inside] = r, np.where(np.isfinite(j), j, 0.0)
+        return logp, res, jac
 
     def log_probability(self, params: np.ndarray) -> np.ndarray:
         """log posterior (up to a constant) for walker rows (P, n); −inf outside bounds."""
@@ -237,6 +371,8 @@ class ImageLikelihood:
         inside = np.all((params >= self.lower) & (params <= self.upper), axis=1)
         out = np.full(len(params), -np.inf)
         if np.any(inside):
-            r = self.residuals(params[inside])
-            out[inside] = -0.5 * np.sum(r * r, axis=1)
+            rows = params[inside]
+            preds = self.predict(rows)
+            r = self.residuals(rows, preds)
+            out[inside] = -0.5 * np.sum(r * r, axis=1) + self.log_prior(rows, preds)
         return out
