@@ -140,8 +140,14 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
     within their bounds (seeded). The ``polish`` best of them (by image-plane χ²) go
     on to the image-plane fit, and the best of those is kept: the χ² surface of
     ellipticity against shear has more than one valley.
+
+    The likelihood is then set to watch the images the best fit predicts but nobody
+    observed (:meth:`ImageLikelihood.watch_unobserved`); if one is brighter than the
+    faintest observed image, the fit is polished again with that penalty, so later
+    sampling and reports use it too. ``like`` keeps the watch list.
     """
     check_constraints(like)
+    like.watched = [(np.empty(0), np.empty(0)) for _ in like.families]
     rng = np.random.default_rng(seed)
     base = initial_vector(like)
     candidates = []
@@ -177,6 +183,16 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
         if best is None or chi2 < best[0] - 1e-9:
             best = (chi2, values, errors, out)
     chi2, values, errors, out = best
+    like.watch_unobserved(values)
+    chi2 = float(np.sum(like.residuals(values) ** 2))    # now with the extra-image penalty
+    if np.any(like.extra_image_residuals(like.predict(values[None, :])) > 0):
+        values2, errors2, out2 = _lmfit(like, values, lambda w: like.residuals(w)[0],
+                                        n_data=like.n_constraints)
+        chi2_2 = float(np.sum(like.residuals(values2) ** 2))
+        if chi2_2 < chi2:
+            values, errors, out = values2, errors2, out2
+            like.watch_unobserved(values)
+    chi2 = float(np.sum(like.residuals(values) ** 2))    # with the final watch list
     for i, period in enumerate(like.periods):   # report angles in (-90, 90]
         if period:
             values[i] = -((-values[i] + period / 2) % period - period / 2)

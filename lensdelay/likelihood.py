@@ -11,6 +11,14 @@ images falling into the same predicted image (an image the model lacks) and a st
 that does not converge are penalised with the magnification-weighted source-plane
 offset, so the fit never silently ignores a missing image.
 
+Extra images are watched too: :meth:`ImageLikelihood.watch_unobserved` (called by the
+fit at its best solution) records where the model puts images that were not observed,
+and each evaluation follows them by Newton's method. One that is brighter than the
+faintest observed image of its family costs a residual of its magnitude excess over
+that image in units of ``EXTRA_IMAGE_MAG_SCALE`` (an image that bright should have been
+seen). Near a caustic the extra pair brightens without bound, so the penalty grows
+smoothly to infinity there and the posterior density falls continuously to zero.
+
 The posterior's prior within the bounds is either flat in the recipe's parameters
 (``prior="flat"``, the default: what a recipe's ``min``/``max`` say) or Jeffreys' prior,
 the square root of the determinant of the Fisher information of all the constraints
@@ -35,6 +43,9 @@ from .scenario import Scenario
 
 #: Residual (in σ) added per coordinate when the model lacks an observed image.
 MISSING_IMAGE_PENALTY = 1e3
+#: Magnitude scale of the penalty on an unobserved image brighter than the faintest
+#: observed one (the microlensing/extinction floor of the flux ratios; common practice).
+EXTRA_IMAGE_MAG_SCALE = 0.2
 #: Priors the posterior can use (see the module docstring).
 PRIOR_CHOICES = ("jeffreys", "flat")
 #: Relative step of the central differences for the Fisher information.
@@ -124,6 +135,8 @@ class ImageLikelihood:
         # Gaussian priors: parameter index -> (mean, sigma)
         self.priors = {i: p.prior for i, p in enumerate(free) if p.prior is not None}
         self.centre_prior = self._lens_light_prior()
+        # unobserved images to follow, per family: (x, y) arrays (see watch_unobserved)
+        self.watched = [(np.empty(0), np.empty(0)) for _ in self.families]
 
     def _lens_light_prior(self):
         """The lens-light centre constrains the free x, y of the first luminous component.
@@ -198,15 +211,85 @@ class ImageLikelihood:
             with np.errstate(all="ignore"):
                 tau = lens.fermat_potential(x, y, bx, by, fam.scale)
                 mu = lens.magnification(x, y, fam.scale)
+            extra_mu = self._watched_magnifications(lens, k, x, y, ok, bx, by)
             out.append({"x": x, "y": y, "ok": ok, "near": near, "fermat": tau, "mu": mu,
-                        "beta": np.hstack([bx, by]), "lens": lens})
+                        "beta": np.hstack([bx, by]), "lens": lens, "extra_mu": extra_mu})
         return out
 
+    def _watched_magnifications(self, lens, k, x, y, ok, bx, by) -> np.ndarray:
+        """|μ| of the watched unobserved images of family k, 0 where they do not exist."""
+        wx, wy = self.watched[k]
+        fam = self.families[k]
+        if len(wx) == 0:
+            return np.zeros((len(x), 0))
+        ex, ey, err = newton_polish(lens, wx[None, :], wy[None, :], bx, by, fam.scale,
+                                    iterations=15, max_step=0.05, tolerance=1e-11)
+        exists = err < 1e-8
+        # an extra image must be none of the observed ones and none of the other extras
+        for i in range(x.shape[1]):
+            exists &= ~(ok[:, i:i + 1] & (np.hypot(ex - x[:, i:i + 1], ey - y[:, i:i + 1]) < 1e-4))
+        for i in range(len(wx)):
+            for j in range(i + 1, len(wx)):
+                exists[:, j] &= ~(np.hypot(ex[:, i] - ex[:, j], ey[:, i] - ey[:, j]) < 1e-4)
+        with np.errstate(all="ignore"):
+            mu = np.abs(lens.magnification(ex, ey, fam.scale))
+        return np.where(exists & np.isfinite(mu), mu, np.where(exists, np.inf, 0.0))
+
+    def watch_unobserved(self, values: np.ndarray) -> list[dict]:
+        """Follow the images the model at ``values`` predicts but nobody observed.
+
+        Finds every image of each family at ``values`` (complete image finder) and keeps
+        those not matched to an observed one. Returns them (family, x, y, |μ|).
+        """
+        from .images import find_images
+
+        values = np.asarray(values, dtype=float)
+        preds = self.predict(values[None, :])
+        single = self.model.lens(values[:self.n_model])
+        found = []
+        for k, (fam, pred) in enumerate(zip(self.families, preds)):
+            bx, by = values[self.source_slice(k)]
+            table = find_images(single, [bx], [by], fam.scale)
+            keep = np.ones(len(table), dtype=bool)
+            for i in range(len(fam.x)):
+                if pred["ok"][0, i]:
+                    keep &= np.hypot(table.x - pred["x"][0, i], table.y - pred["y"][0, i]) >= 1e-5
+            self.watched[k] = (np.asarray(table.x[keep], float), np.asarray(table.y[keep], float))
+            found += [{"family": fam.label, "x": float(a), "y": float(b), "abs_magnification": float(abs(m))}
+                      for a, b, m in zip(table.x[keep], table.y[keep], table.magnification[keep])]
+        return found
+
+    def extra_image_residuals(self, preds) -> np.ndarray:
+        """Penalty columns (P, n_watched): magnitude excess of watched images over the
+        faintest observed image of their family, / EXTRA_IMAGE_MAG_SCALE; 0 if fainter."""
+        cols = []
+        for pred in preds:
+            extra = pred["extra_mu"]
+            if extra.shape[1] == 0:
+                continue
+            observed = np.where(pred["ok"], np.abs(pred["mu"]), np.inf)
+            faintest = np.min(observed, axis=1, keepdims=True)
+            with np.errstate(all="ignore"):
+                excess = 2.5 * np.log10(extra / faintest)
+            excess = np.where((extra > 0) & np.isfinite(faintest), excess, 0.0)
+            cols.append(np.maximum(excess, 0.0) / EXTRA_IMAGE_MAG_SCALE)
+        if not cols:
+            return np.zeros((len(preds[0]["x"]) if preds else 0, 0))
+        out = np.hstack(cols)
+        return np.where(np.isfinite(out), out, 1e6)
+
     def residuals(self, params: np.ndarray, preds=None) -> np.ndarray:
-        """Normalised residuals, shape (P, n_constraints).
+        """Normalised residuals of the constraints, then the extra-image penalties:
+        shape (P, n_constraints + n_watched).
 
         ``preds`` may pass in :meth:`predict` of the same rows to avoid solving twice.
         """
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        preds = self.predict(params) if preds is None else preds
+        return np.hstack([self.data_residuals(params, preds), self.extra_image_residuals(preds)])
+
+    def data_residuals(self, params: np.ndarray, preds=None) -> np.ndarray:
+        """Normalised residuals of the constraints alone, (P, n_constraints)."""
         params = np.atleast_2d(np.asarray(params, dtype=float))
         preds = self.predict(params) if preds is None else preds
         parts = []
@@ -348,7 +431,8 @@ class ImageLikelihood:
     def evaluate(self, params: np.ndarray):
         """log posterior, residuals and their Jacobian for rows (P, n) in one pass.
 
-        Rows outside the bounds get −inf and zero residuals and Jacobian. Used by
+        The residuals are those of the constraints (the extra-image penalty enters the
+        log posterior only). Rows outside the bounds get −inf and zero residuals and Jacobian. Used by
         :class:`lensdelay.moves.FisherLangevinMove`, which needs the local geometry.
         """
         params = np.atleast_2d(np.asarray(params, dtype=float))
@@ -359,9 +443,11 @@ class ImageLikelihood:
         if np.any(inside):
             rows = params[inside]
             preds = self.predict(rows)
-            r = self.residuals(rows, preds)
+            r = self.data_residuals(rows, preds)
+            penalty = self.extra_image_residuals(preds)
             j = self.information_jacobian(rows, preds)
-            logp[inside] = -0.5 * np.sum(r * r, axis=1) + self._log_prior_from(j)
+            logp[inside] = (-0.5 * np.sum(r * r, axis=1) - 0.5 * np.sum(penalty ** 2, axis=1)
+                            + self._log_prior_from(j))
             res[inside], jac[inside] = r, np.where(np.isfinite(j), j, 0.0)
         return logp, res, jac
 

@@ -178,3 +178,46 @@ def test_flux_ratios_add_constraints_and_are_fitted():
     res = fit(with_flux)
     flux_rows = with_flux.residuals(res.values)[0][-3:]
     assert np.all(np.abs(flux_rows) < 1.0)    # within the 0.2 mag floor
+
+
+def _three_of_four(drop: str):
+    """The calibration quad with one image left out of the observations."""
+    truth_lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+                       ExternalShear(strength=0.05, position_angle=-40.0)))
+    fam = simulate_family(truth_lens, 0.03, 0.02, label="s", redshift=1.5, sigma=0.003, rng=np.random.default_rng(8))
+    fam["image"] = [im for im in fam["image"] if im["label"] != drop]
+    mass = [dict(SIE_SHEAR[0], axis_ratio={"value": 0.8, "min": 0.2, "max": 1.0, "prior": [0.7, 0.05]}),
+            dict(SIE_SHEAR[1], strength={"value": 0.03, "min": 0.0, "max": 0.3, "prior": [0.05, 0.02]})]
+    sc = _scenario([fam], mass)
+    like = ImageLikelihood(sc, sc.model)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        return like, fit(like)
+
+
+def test_unobserved_faint_image_costs_nothing():
+    """Leaving out the faintest image of a quad (D, |μ| ≈ 3.7): the model's fourth image is
+    watched but fainter than every observed one, so it adds nothing to χ²."""
+    like, res = _three_of_four("D")
+    assert len(like.watched[0][0]) == 1
+    preds = like.predict(res.values[None, :])
+    assert np.all(like.extra_image_residuals(preds) == 0)
+    assert res.chi2 == pytest.approx(float(np.sum(like.data_residuals(res.values) ** 2)))
+
+
+def test_unobserved_bright_image_is_penalised():
+    """Leaving out the brightest image (B, μ ≈ 6.4): the model still predicts it, brighter than
+    the faintest observed image, and pays (2.5 log10(|μ_B| / |μ_faintest|) / 0.2)² in χ² --
+    in the fit, in its BIC and in the posterior the sampler sees (issue 3)."""
+    like, res = _three_of_four("B")
+    preds = like.predict(res.values[None, :])
+    penalty = like.extra_image_residuals(preds)[0]
+    assert penalty.shape == (1,) and penalty[0] > 1.0
+    faintest = np.min(np.abs(preds[0]["mu"][0]))
+    extra = preds[0]["extra_mu"][0, 0]
+    assert extra > faintest
+    assert penalty[0] == pytest.approx(2.5 * np.log10(extra / faintest) / 0.2)
+    data_chi2 = float(np.sum(like.data_residuals(res.values) ** 2))
+    assert res.chi2 == pytest.approx(data_chi2 + penalty[0] ** 2)
+    assert like.log_probability(res.values)[0] == pytest.approx(-0.5 * res.chi2)
+    assert any("brighter than the faintest observed" in n for n in res.notes)
