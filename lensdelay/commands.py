@@ -150,6 +150,8 @@ def fit_json(res: dict) -> dict:
         "uses_delays": like.use_delays, "uses_flux_ratios": like.use_fluxes,
         "flux_floor_mag": like.flux_floor_mag if like.use_fluxes else None,
         "prior": like.prior,
+        # part of chi2 paid for predicted, unobserved images brighter than the faintest observed
+        "chi2_extra_images": float(np.sum(like.extra_image_residuals(like.predict(fr.values[None, :])) ** 2)),
     })
     ch = res.get("chain")
     if ch is not None:

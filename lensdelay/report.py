@@ -62,7 +62,8 @@ def fit_text(res: dict) -> str:
     if ch is not None:
         s = ch.samples()
         lines += ["", f"posterior: {ch.chain.shape[1]} walkers × {ch.chain.shape[0]} steps, burn-in "
-                  f"{ch.burn}, thin {ch.thin}, {len(s)} samples; acceptance {ch.acceptance.mean():.2f}",
+                  f"{ch.burn}, thin {ch.thin}, {len(s)} samples; acceptance {ch.acceptance.mean():.2f}; "
+                  f"{ch.move} move, {res['likelihood'].prior} prior",
                   f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7}"]
         import numpy as np
 
