@@ -89,7 +89,10 @@ def _source_plane_start(like: ImageLikelihood, start: np.ndarray) -> np.ndarray:
                 out += [np.ravel((a22 * rx - a12 * ry) / det) / fam.sigma,
                         np.ravel((a11 * ry - a12 * rx) / det) / fam.sigma]
         for i, (mean, sig) in {**like.priors, **like.centre_prior}.items():
-            out.append(np.array([(v[i] - mean) / sig]))
+            diff = v[i] - mean
+            if like.periods[i]:     # an angle: about the nearest equivalent mean
+                diff = (diff + like.periods[i] / 2) % like.periods[i] - like.periods[i] / 2
+            out.append(np.array([diff / sig]))
         r = np.concatenate(out)
         return np.where(np.isfinite(r), r, 1e6)
 

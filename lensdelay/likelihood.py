@@ -314,7 +314,10 @@ class ImageLikelihood:
             dy = np.where(bad, MISSING_IMAGE_PENALTY + np.nan_to_num(np.abs(fy), posinf=1e6), dy)
             parts += [dx, dy]
         for i, (mean, sig) in {**self.priors, **self.centre_prior}.items():
-            parts.append(((params[:, i] - mean) / sig)[:, None])
+            diff = params[:, i] - mean
+            if self.periods[i]:     # an angle: the prior is about the nearest equivalent mean
+                diff = (diff + self.periods[i] / 2) % self.periods[i] - self.periods[i] / 2
+            parts.append((diff / sig)[:, None])
         parts += self._derived_residuals(params, [p["fermat"] for p in preds],
                                          [p["mu"] for p in preds])
         res = np.hstack(parts)

@@ -198,3 +198,21 @@ def test_chains_started_at_both_ends_of_the_valley_agree():
             days = observed_delays(like, ch.chain[300:].reshape(-1, ch.chain.shape[-1]))[:, 1]
             medians.append(np.median(days))
     assert abs(medians[0] - medians[1]) < 0.35, medians
+
+
+def test_angle_prior_is_periodic():
+    """A Gaussian prior on a position angle measures the distance to the nearest equivalent
+    mean (angles are defined modulo 180°, CONVENTIONS.md): −88° ≡ 92° is 7° from a mean of 85°."""
+    mass = [dict(bench_fit.MASS[0], position_angle={"value": 80.0, "prior": [85.0, 10.0]}), bench_fit.MASS[1]]
+    fam = bench_fit.simulate_family(bench_fit.TRUTH, *bench_fit.SOURCE, label="s", redshift=1.5, sigma=0.003,
+                                    rng=np.random.default_rng(2))
+    sc = parse_scenario({"lens": {"redshift": 0.4}, "family": [fam], "mass": mass}, "angle-prior.toml")
+    like = ImageLikelihood(sc, sc.model)
+    row = np.array([1.1, 0.7, 0.0, 0.0, 0.0, 0.05, -40.0, 0.03, 0.02])
+    i = like.names.index("mass[0].position_angle")
+    prior_col = like.n_constraints - 1   # the only prior row is the last constraint
+    values = []
+    for angle in (-88.0, 92.0, 82.0):
+        row[i] = angle
+        values.append(like.data_residuals(row)[0, prior_col])
+    np.testing.assert_allclose(values, [0.7, 0.7, -0.3], atol=1e-12)
