@@ -113,6 +113,9 @@ def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: in
             y = y + np.where(np.isfinite(dy) & ~converged, dy, 0.0)
         bx, by = lens.source_position(x, y, scale)
         err = np.hypot(beta_x - bx, beta_y - by)
+    # all three with the broadcast shape, also when the starts were converged already
+    shape = np.broadcast_shapes(x.shape, err.shape)
+    x, y = np.broadcast_to(x, shape).copy(), np.broadcast_to(y, shape).copy()
     return x, y, np.where(np.isfinite(err), err, np.inf)
 
 

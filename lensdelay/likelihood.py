@@ -274,7 +274,7 @@ class ImageLikelihood:
             excess = np.where((extra > 0) & np.isfinite(faintest), excess, 0.0)
             cols.append(np.maximum(excess, 0.0) / EXTRA_IMAGE_MAG_SCALE)
         if not cols:
-            return np.zeros((len(preds[0]["x"]) if preds else 0, 0))
+            return np.zeros((len(preds[0]["beta"]) if preds else 0, 0))
         out = np.hstack(cols)
         return np.where(np.isfinite(out), out, 1e6)
 

@@ -216,3 +216,26 @@ def test_angle_prior_is_periodic():
         row[i] = angle
         values.append(like.data_residuals(row)[0, prior_col])
     np.testing.assert_allclose(values, [0.7, 0.7, -0.3], atol=1e-12)
+
+
+def test_rows_that_already_fit_exactly_keep_the_batch_shape():
+    """A batch of identical rows whose images match the observed ones exactly (Newton has
+    nothing to do) still gives one residual row per parameter row (regression: the joint
+    H0 fit of an exactly constrained double failed on this)."""
+    from lensdelay.images import find_images
+    from lensdelay.lens import Lens
+    from lensdelay.profiles import ExternalShear, SingularIsothermalSphere
+
+    truth = Lens((SingularIsothermalSphere(einstein_radius=1.0), ExternalShear(strength=0.05, position_angle=30.0)))
+    t = find_images(truth, [0.05], [0.02])
+    images = [{"label": lab, "x": float(x), "y": float(y), "sigma": 0.003} for lab, x, y in zip("AB", t.x, t.y)]
+    mass = [{"profile": "SIS", "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0}},
+            {"profile": "shear", "strength": {"value": 0.05, "min": 0, "max": 0.3, "prior": [0.05, 0.02]},
+             "position_angle": {"value": 30.0}}]
+    sc = parse_scenario({"lens": {"redshift": 0.4}, "family": [{"label": "q", "redshift": 2.0, "image": images}],
+                         "mass": mass}, "exact.toml")
+    like = ImageLikelihood(sc, sc.model)
+    rows = np.repeat(np.array([[1.0, 0.05, 30.0, 0.05, 0.02]]), 5, axis=0)
+    assert like.predict(rows)[0]["x"].shape == (5, 2)
+    assert like.residuals(rows).shape == (5, like.n_constraints)
+    assert np.all(np.isfinite(like.log_probability(rows)))
