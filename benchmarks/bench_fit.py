@@ -120,17 +120,18 @@ def mixing(like, steps: int = 1000):
     best = fit(like)
     d0 = observed_delays(like, best.values)[0, 1]
     ends = {d: valley_end(like, best, d) for d in (0.65 * d0, 1.4 * d0)}
-    for move in ("stretch", "langevin"):
+    for move, components in (("stretch", False), ("stretch", True), ("langevin", True)):
         t0 = time.perf_counter()
         medians, taus = [], []
         for seed, (d, start) in enumerate(ends.items()):
             # different seeds: with shared random numbers two chains can couple exactly
             ch = sample(like, start, walkers=32, steps=steps, seed=seed + 1, progress=False,
-                        scales=0.05 * best.errors, move=move)
+                        scales=0.05 * best.errors, move=move, components=components)
             days = observed_delays(like, ch.chain[steps // 2:].reshape(-1, ch.chain.shape[-1]))[:, 1]
             medians.append(np.median(days))
             taus.append(np.max(ch.autocorr))
-        print(f"mixing, move {move}: walkers started at delays {', '.join(f'{d:.2f}' for d in ends)} d "
+        where = "components" if components else "recipe parameters"
+        print(f"mixing, move {move} in {where}: walkers started at delays {', '.join(f'{d:.2f}' for d in ends)} d "
               f"(best fit {d0:.2f} d) have second-half medians {medians[0]:.2f} and {medians[1]:.2f} d "
               f"after {steps} steps; max tau {max(taus):.0f} steps; {time.perf_counter() - t0:.1f} s")
 

@@ -40,13 +40,15 @@ class SamplingCoordinates:
         Parameter names of the likelihood (``"mass[i].name"``, sources, H0).
     lower, upper : ndarray
         The likelihood's bounds (used to decide whether an angle is unbounded).
+    enabled : bool
+        False: convert nothing (u = p).
     """
 
-    def __init__(self, names, lower, upper):
+    def __init__(self, names, lower, upper, enabled: bool = True):
         self.names = list(names)
         self.ellipse_pairs: list[tuple[int, int]] = []
         self.shear_pairs: list[tuple[int, int]] = []
-        index = {n: i for i, n in enumerate(self.names)}
+        index = {n: i for i, n in enumerate(self.names)} if enabled else {}
         for name, i in index.items():
             prefix, _, field = name.rpartition(".")
             if field != "position_angle" or not prefix.startswith("mass["):

@@ -80,7 +80,7 @@ def _progress(step, total, start, stream):
 def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, seed: int = 1,
            checkpoint_dir: str | Path | None = None, resume: bool = False,
            checkpoint_every: int = 200, progress: bool = True, scales=None,
-           move: str = "langevin") -> Chain:
+           move: str = "langevin", components: bool = True) -> Chain:
     """Sample the posterior of ``like`` around ``start``.
 
     The walkers move in :class:`lensdelay.coordinates.SamplingCoordinates` (ellipticity
@@ -102,12 +102,15 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
         follows the local shape of the posterior, every walker its own chain;
         ``"stretch"``: emcee's affine-invariant ensemble move (mixes slowly along
         curved valleys; kept for comparison).
+    components : bool
+        Sample ellipticity and shear components (default); False samples the recipe's
+        own parameters (for comparison in the benchmark).
     """
     ndim = len(start)
     if walkers < 2 * ndim:
         walkers = 2 * ndim   # emcee's ensemble moves need twice as many walkers as parameters
     rng = np.random.default_rng(seed)
-    coords = SamplingCoordinates(like.names, like.lower, like.upper)
+    coords = SamplingCoordinates(like.names, like.lower, like.upper, enabled=components)
     target = SampledTarget(like, coords)
     if move == "langevin":
         # now and then an ensemble stretch: a walker that strays onto a steep wall, where
