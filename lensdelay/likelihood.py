@@ -412,9 +412,9 @@ class ImageLikelihood:
             jac = np.concatenate([jac, np.moveaxis(ddiff, 0, -1)], axis=1)
         return jac
 
-    def _log_prior_from(self, jac: np.ndarray) -> np.ndarray:
-        if self.prior == "flat":
-            return np.zeros(len(jac))
+    @staticmethod
+    def _half_log_det_information(jac: np.ndarray) -> np.ndarray:
+        """½ log det(Jᵀ J) per row; −inf where the information is singular."""
         with np.errstate(all="ignore"):
             sign, logdet = np.linalg.slogdet(np.einsum("pmi,pmj->pij", jac, jac))
         return np.where((sign > 0) & np.isfinite(logdet), 0.5 * logdet, -np.inf)
@@ -429,14 +429,15 @@ class ImageLikelihood:
         params = np.atleast_2d(np.asarray(params, dtype=float))
         if self.prior == "flat":
             return np.zeros(len(params))
-        return self._log_prior_from(self.information_jacobian(params, preds))
+        return self._half_log_det_information(self.information_jacobian(params, preds))
 
     def evaluate(self, params: np.ndarray):
         """log posterior, residuals and their Jacobian for rows (P, n) in one pass.
 
         The residuals are those of the constraints (the extra-image penalty enters the
-        log posterior only). Rows outside the bounds get −inf and zero residuals and Jacobian. Used by
-        :class:`lensdelay.moves.FisherLangevinMove`, which needs the local geometry.
+        log posterior only). Rows outside the bounds get −inf and zero residuals and
+        Jacobian. Used by :class:`lensdelay.moves.FisherLangevinMove`, which needs the
+        local geometry.
         """
         params = np.atleast_2d(np.asarray(params, dtype=float))
         inside = np.all((params >= self.lower) & (params <= self.upper), axis=1)
@@ -449,8 +450,8 @@ class ImageLikelihood:
             r = self.data_residuals(rows, preds)
             penalty = self.extra_image_residuals(preds)
             j = self.information_jacobian(rows, preds)
-            logp[inside] = (-0.5 * np.sum(r * r, axis=1) - 0.5 * np.sum(penalty ** 2, axis=1)
-                            + self._log_prior_from(j))
+            prior = self._half_log_det_information(j) if self.prior == "jeffreys" else 0.0
+            logp[inside] = -0.5 * np.sum(r * r, axis=1) - 0.5 * np.sum(penalty ** 2, axis=1) + prior
             res[inside], jac[inside] = r, np.where(np.isfinite(j), j, 0.0)
         return logp, res, jac
 

@@ -127,14 +127,16 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
     chain = np.empty((0, walkers, ndim))
     logp = np.empty((0, walkers))
     accepted = np.zeros(walkers)
+    # what a resumed run must share with the checkpoint besides seed and shape
+    setup = f"move {move}, prior {getattr(like, 'prior', 'flat')}, components {components}"
     if resume and path is not None and path.exists():
         saved = load_npz(path)
+        saved_setup = str(saved.get("setup", "an older lensdelay"))
         if (int(saved["seed"]) != seed or saved["chain"].shape[1:] != (walkers, ndim)
-                or str(saved.get("move", "")) != move):
+                or saved_setup != setup):
             raise InputError(f"--resume found {path} from a different run (seed "
-                             f"{int(saved['seed'])}, shape {saved['chain'].shape[1:]}, move "
-                             f"{str(saved.get('move', '?'))}), got seed {seed}, shape "
-                             f"{(walkers, ndim)}, move {move}")
+                             f"{int(saved['seed'])}, shape {saved['chain'].shape[1:]}, {saved_setup}), "
+                             f"got seed {seed}, shape {(walkers, ndim)}, {setup}")
         chain, logp, accepted = saved["chain"], saved["log_prob"], saved["accepted"]
         state = emcee.State(chain[-1], log_prob=logp[-1])
         sampler.random_state = ("MT19937", saved["rs_key"], int(saved["rs_pos"]),
@@ -179,7 +181,7 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
             key, pos, has_gauss, cached = sampler.random_state[1:]
             atomic_save_npz(path, chain=chain, log_prob=logp, accepted=accepted, seed=seed,
                             rs_key=key, rs_pos=pos, rs_has_gauss=has_gauss, rs_cached=cached,
-                            names=np.array(like.names), move=np.array(move))
+                            names=np.array(like.names), setup=np.array(setup))
         _progress(done, steps, t0, stream)
         if STOP.requested:
             STOP.active = False
