@@ -15,7 +15,6 @@ import lmfit
 import numpy as np
 
 from .errors import FitError, InputError, LensdelayWarning
-from .images import find_images
 from .lens import PARITIES
 from .likelihood import MISSING_IMAGE_PENALTY, ImageLikelihood
 
@@ -203,7 +202,11 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
 
 
 def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult:
-    """Residuals, unobserved images and bound checks at ``values``."""
+    """Residuals, unobserved images and bound checks at ``values``.
+
+    The unobserved images are those ``like`` watches (set by :func:`fit` at ``values``
+    with :meth:`ImageLikelihood.watch_unobserved`).
+    """
     preds = like.predict(values[None, :])
     rows, unobserved, notes = [], [], []
     single = like.model.lens(values[:like.n_model])
@@ -219,19 +222,17 @@ def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult
             if not ok:
                 notes.append(f"image {fam.label}/{lab} is not reproduced by the model "
                              f"(penalised by {MISSING_IMAGE_PENALTY:g} sigma)")
-        bx, by = values[like.source_slice(k)]
-        table = find_images(single, [bx], [by], fam.scale)
-        matched = np.zeros(len(table), dtype=bool)
-        for i in range(len(fam.labels)):
-            if pred["ok"][0, i]:
-                d = np.hypot(table.x - pred["x"][0, i], table.y - pred["y"][0, i])
-                matched |= d < 1e-5
+        # the images the model predicts but nobody observed: the fit's watch list
+        wx, wy = like.watched[k]
+        with np.errstate(all="ignore"):
+            mus = single.magnification(wx, wy, fam.scale)
+            parities = single.parity_code(wx, wy, fam.scale)
         faintest = min((abs(pred["mu"][0, i]) for i in range(len(fam.labels)) if pred["ok"][0, i]),
                        default=np.inf)
-        for j in np.nonzero(~matched)[0]:
-            mu = float(table.magnification[j])
-            entry = {"family": fam.label, "x": float(table.x[j]), "y": float(table.y[j]),
-                     "magnification": mu, "parity": PARITIES[int(table.parity[j])],
+        for j in range(len(wx)):
+            mu = float(mus[j])
+            entry = {"family": fam.label, "x": float(wx[j]), "y": float(wy[j]),
+                     "magnification": mu, "parity": PARITIES[int(parities[j])],
                      "brighter_than_faintest_observed": bool(abs(mu) >= faintest)}
             unobserved.append(entry)
             if abs(mu) >= faintest:
