@@ -202,3 +202,30 @@ def test_one_pass_deflection_and_potential_agree(name):
     np.testing.assert_allclose(ax, prof.deflection(x, y)[0], rtol=1e-12, atol=1e-14)
     np.testing.assert_allclose(ay, prof.deflection(x, y)[1], rtol=1e-12, atol=1e-14)
     np.testing.assert_allclose(pot, prof.potential(x, y), rtol=1e-12, atol=1e-14)
+
+
+def test_blockwise_evaluation_matches_whole_arrays(rng):
+    """Large coordinate arrays are evaluated in cache-sized blocks (lens.BLOCK_POINTS); the
+    results equal those of one pass over the whole arrays, shape included (common practice)."""
+    from lensdelay import lens as lens_module
+    from lensdelay.lens import Lens
+    from lensdelay.profiles import EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, NFWHalo
+
+    lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0, x=0.1),
+                 EllipticalPowerLaw(einstein_radius=0.3, slope=2.2, axis_ratio=0.8, position_angle=-10.0),
+                 NFWHalo(kappa_s=0.2, scale_radius=5.0), ExternalShear(strength=0.05, position_angle=-40.0)))
+    x, y = rng.uniform(-3, 3, (2, 3 * lens_module.BLOCK_POINTS + 17))
+    x, y = x.reshape(-1, 1), y.reshape(-1, 1)          # a 2-D shape must come back too
+    blocked = [lens.deflection_and_potential(x, y, 0.8), lens.hessian(x, y), lens.convergence(x, y),
+               lens.potential(x, y), lens.deflection(x, y)]
+    saved = lens_module.BLOCK_POINTS
+    try:
+        lens_module.BLOCK_POINTS = 10 ** 9
+        whole = [lens.deflection_and_potential(x, y, 0.8), lens.hessian(x, y), lens.convergence(x, y),
+                 lens.potential(x, y), lens.deflection(x, y)]
+    finally:
+        lens_module.BLOCK_POINTS = saved
+    for b, w in zip(blocked, whole):
+        for bb, ww in zip(b if isinstance(b, tuple) else (b,), w if isinstance(w, tuple) else (w,)):
+            assert bb.shape == ww.shape == x.shape
+            np.testing.assert_allclose(bb, ww, rtol=1e-13, atol=1e-15)
