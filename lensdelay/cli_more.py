@@ -17,6 +17,15 @@ def output_folder(path: str | None) -> Path | None:
     return out
 
 
+def add_prior_argument(parser) -> None:
+    """``--prior``, shared by fit, forecast and hubble."""
+    from .likelihood import PRIOR_CHOICES
+
+    parser.add_argument("--prior", choices=PRIOR_CHOICES, default="flat",
+                        help="prior of the mass-model posterior within the bounds: flat in the "
+                             "recipe's parameters (default) or Jeffreys' (Fisher information)")
+
+
 def cmd_check(args) -> int:
     from .commands import check_command
 
@@ -82,9 +91,7 @@ def register(sub, number) -> None:
     p.add_argument("--steps", type=int, default=2000)
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--resume", action="store_true", help="continue the chain checkpointed in --out")
-    p.add_argument("--prior", choices=("flat", "jeffreys"), default="flat",
-                   help="prior of the mass-model posterior within the bounds: flat in the recipe's "
-                        "parameters (default) or Jeffreys' (Fisher information)")
+    add_prior_argument(p)
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_fit)
     from . import forecast_cli

@@ -108,9 +108,9 @@ class SamplingCoordinates:
         u = np.atleast_2d(coords)
         rows, n = u.shape
         jac = np.broadcast_to(np.eye(n), (rows, n, n)).copy()
+        pairs = [(pr, True) for pr in self.ellipse_pairs] + [(pr, False) for pr in self.shear_pairs]
         with np.errstate(divide="ignore", invalid="ignore"):
-            for (ia_, ib_), is_ellipse in ([(pr, True) for pr in self.ellipse_pairs]
-                                           + [(pr, False) for pr in self.shear_pairs]):
+            for (ia_, ib_), is_ellipse in pairs:
                 c1, c2 = u[:, ia_], u[:, ib_]
                 r2 = c1 * c1 + c2 * c2
                 r = np.sqrt(r2)

@@ -186,15 +186,16 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
             best = (chi2, values, errors, out)
     chi2, values, errors, out = best
     like.watch_unobserved(values)
-    chi2 = float(np.sum(like.residuals(values) ** 2))    # now with the extra-image penalty
-    if np.any(like.extra_image_residuals(like.predict(values[None, :])) > 0):
+    resid = like.residuals(values)[0]       # constraints, then the extra-image penalties
+    chi2 = float(np.sum(resid ** 2))
+    if np.any(resid[like.n_constraints:] > 0):
         values2, errors2, out2 = _lmfit(like, values, lambda w: like.residuals(w)[0],
                                         n_data=like.n_constraints)
         chi2_2 = float(np.sum(like.residuals(values2) ** 2))
         if chi2_2 < chi2:
             values, errors, out = values2, errors2, out2
             like.watch_unobserved(values)
-    chi2 = float(np.sum(like.residuals(values) ** 2))    # with the final watch list
+            chi2 = float(np.sum(like.residuals(values) ** 2))    # with the new watch list
     for i, period in enumerate(like.periods):   # report angles in (-90, 90]
         if period:
             values[i] = -((-values[i] + period / 2) % period - period / 2)

@@ -88,9 +88,9 @@ def register(sub, number) -> None:
     p.add_argument("--elongation", nargs=2, type=number, metavar=("MIN", "MAX"),
                    help="space observatory: allowed solar elongation range, degrees")
     p.add_argument("--walkers", type=int, default=32)
-    p.add_argument("--prior", choices=("flat", "jeffreys"), default="flat",
-                   help="prior of the mass-model posterior within the bounds: flat in the recipe's "
-                        "parameters (default) or Jeffreys' (Fisher information)")
+    from .cli_more import add_prior_argument
+
+    add_prior_argument(p)
     p.add_argument("--steps", type=int, default=2000)
     p.add_argument("--quiet", action="store_true")
     p.add_argument("--no-budget", dest="budget", action="store_false",

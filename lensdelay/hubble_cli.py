@@ -172,9 +172,9 @@ def register(sub, number) -> None:
     p.add_argument("--param", action="append", metavar="NAME=VALUE",
                    help="a parameter of --cosmology-class, e.g. w0=-0.9")
     p.add_argument("--walkers", type=int, default=32)
-    p.add_argument("--prior", choices=("flat", "jeffreys"), default="flat",
-                   help="prior of the mass-model posterior within the bounds: flat in the recipe's "
-                        "parameters (default) or Jeffreys' (Fisher information)")
+    from .cli_more import add_prior_argument
+
+    add_prior_argument(p)
     p.add_argument("--steps", type=int, default=2000)
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--quiet", action="store_true")

@@ -7,6 +7,7 @@ source sits elsewhere sees deflection, potential and Hessian multiplied by its
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -29,8 +30,6 @@ def _blockwise(method):
     The results agree either way: the formulas act point by point (the power law's
     series takes as many terms as the block's slowest point needs for 1e-16).
     """
-    import functools
-
     @functools.wraps(method)
     def wrapper(self, x, y, scale=1.0):
         if np.size(x) <= 2 * BLOCK_POINTS and np.size(y) <= 2 * BLOCK_POINTS:

@@ -235,18 +235,17 @@ class ImageLikelihood:
             mu = np.abs(lens.magnification(ex, ey, fam.scale))
         return np.where(exists & np.isfinite(mu), mu, np.where(exists, np.inf, 0.0))
 
-    def watch_unobserved(self, values: np.ndarray) -> list[dict]:
+    def watch_unobserved(self, values: np.ndarray) -> None:
         """Follow the images the model at ``values`` predicts but nobody observed.
 
         Finds every image of each family at ``values`` (complete image finder) and keeps
-        those not matched to an observed one. Returns them (family, x, y, |μ|).
+        those not matched to an observed one in ``self.watched``.
         """
         from .images import find_images
 
         values = np.asarray(values, dtype=float)
         preds = self.predict(values[None, :])
         single = self.model.lens(values[:self.n_model])
-        found = []
         for k, (fam, pred) in enumerate(zip(self.families, preds)):
             bx, by = values[self.source_slice(k)]
             table = find_images(single, [bx], [by], fam.scale)
@@ -255,9 +254,6 @@ class ImageLikelihood:
                 if pred["ok"][0, i]:
                     keep &= np.hypot(table.x - pred["x"][0, i], table.y - pred["y"][0, i]) >= 1e-5
             self.watched[k] = (np.asarray(table.x[keep], float), np.asarray(table.y[keep], float))
-            found += [{"family": fam.label, "x": float(a), "y": float(b), "abs_magnification": float(abs(m))}
-                      for a, b, m in zip(table.x[keep], table.y[keep], table.magnification[keep])]
-        return found
 
     def extra_image_residuals(self, preds) -> np.ndarray:
         """Penalty columns (P, n_watched): magnitude excess of watched images over the
