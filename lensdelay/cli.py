@@ -57,8 +57,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("model", help="model TOML file with [[mass]] entries")
     p.add_argument("--source", nargs=2, type=_finite, metavar=("X", "Y"), required=True,
                    help="source position, arcsec (x East, y North)")
-    p.add_argument("--source-redshift", type=_finite, default=None)
-    p.add_argument("--lens-redshift", type=_finite, default=None)
+    p.add_argument("--source-redshift", type=_finite, default=None,
+                   help="source redshift (default: the model's reference_source_redshift)")
+    p.add_argument("--lens-redshift", type=_finite, default=None,
+                   help="lens redshift (default: the model's [lens] redshift)")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(func=_cmd_images)
 
@@ -66,6 +68,18 @@ def build_parser() -> argparse.ArgumentParser:
 
     register_more(sub, _finite)
     return parser
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    """A warning as one clean line on stderr, each text once: no library path, no source line."""
+    text = " ".join(str(message).split())
+    if text in _show_warning.shown:
+        return
+    _show_warning.shown.add(text)
+    print(f"lensdelay: warning: {text}", file=sys.stderr)
+
+
+_show_warning.shown = set()
 
 
 def _terminate(signum, frame):
@@ -84,11 +98,18 @@ def main(argv=None) -> int:
     if threading_main():
         signal.signal(signal.SIGTERM, _terminate)
         signal.signal(signal.SIGINT, _terminate)
+    from astropy.utils import iers
+
+    # no network here: astropy must never try to download Earth-orientation tables
+    iers.conf.auto_download = False
+    iers.conf.auto_max_age = None
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("default", LensdelayWarning)
+            warnings.showwarning = _show_warning
+            _show_warning.shown = set()
             return int(args.func(args) or 0)
     except LensdelayError as err:
         print(f"lensdelay: {err}", file=sys.stderr)

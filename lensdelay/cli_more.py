@@ -73,12 +73,12 @@ def cmd_fit(args) -> int:
 
 def register(sub, number) -> None:
     p = sub.add_parser("check", help="validate a scenario without running anything")
-    p.add_argument("scenario")
+    p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--model", action="append", help="model TOML replacing the scenario's mass model")
     p.set_defaults(func=cmd_check)
 
     p = sub.add_parser("fit", help="fit a mass model to the image positions")
-    p.add_argument("scenario")
+    p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--model", action="append", help="model TOML replacing the scenario's mass model")
     p.add_argument("--out", help="folder for fit.json, figures, samples and checkpoints")
     p.add_argument("--use-delays", action="store_true", help="fit measured delays too (H0 free)")
@@ -87,9 +87,9 @@ def register(sub, number) -> None:
     p.add_argument("--flux-floor", type=number, default=0.2,
                    help="1-sigma floor on magnitude differences for microlensing (default 0.2 mag)")
     p.add_argument("--sample", action="store_true", help="sample the posterior with emcee")
-    p.add_argument("--walkers", type=int, default=32)
-    p.add_argument("--steps", type=int, default=2000)
-    p.add_argument("--seed", type=int, default=1)
+    p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
+    p.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")
+    p.add_argument("--seed", type=int, default=1, help="seed of the fit's starts and the sampler (default 1)")
     p.add_argument("--resume", action="store_true", help="continue the chain checkpointed in --out")
     add_prior_argument(p)
     p.add_argument("--quiet", action="store_true", help="no progress bar")

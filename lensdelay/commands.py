@@ -110,10 +110,17 @@ def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, use_f
         raise InputError(f"--flux-floor must be > 0 mag, got {flux_floor:g}")
     like = ImageLikelihood(sc, sc.model, use_delays=use_delays, use_fluxes=use_fluxes,
                            flux_floor_mag=flux_floor, prior=prior)
-    try:
-        result = fit(like, seed=seed)
-    except InputError as err:
-        raise err.with_source(scenario_path) from err
+    import warnings
+
+    from .errors import LensdelayWarning
+
+    with warnings.catch_warnings():
+        # the report states these (dof, short chains); a warning would say it twice
+        warnings.simplefilter("ignore", LensdelayWarning)
+        try:
+            result = fit(like, seed=seed)
+        except InputError as err:
+            raise err.with_source(scenario_path) from err
     from .fit import delay_errors
 
     linear_delays = []
@@ -126,9 +133,11 @@ def fit_command(scenario_path: str, model_paths=None, *, use_delays=False, use_f
     if sample:
         from .posterior import sample as run_sampler
 
-        chain = run_sampler(like, result.values, walkers=walkers, steps=steps, seed=seed,
-                            checkpoint_dir=out_dir, resume=resume, progress=progress,
-                            scales=result.errors)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", LensdelayWarning)
+            chain = run_sampler(like, result.values, walkers=walkers, steps=steps, seed=seed,
+                                checkpoint_dir=out_dir, resume=resume, progress=progress,
+                                scales=result.errors)
     return {"scenario": sc, "likelihood": like, "fit": result, "chain": chain,
             "linear_delays": linear_delays,
             "provenance": provenance(used, sc.cosmology, seed)}

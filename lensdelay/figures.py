@@ -120,8 +120,8 @@ def timeline_figure(res):
     images = res["images"]
     fig, ax = plt.subplots(figsize=(9.0, 1.2 + 0.75 * len(images)))
     base = tr.date
-    lo = min(im["offsets_q"][0] for im in images)
-    hi = max(im["offsets_q"][1] for im in images)
+    lo = min(im["date_offset_days"]["p2.5"] for im in images)
+    hi = max(im["date_offset_days"]["p97.5"] for im in images)
     pad = 0.08 * (hi - lo) + 2
     cal = res.get("calendar")
     to_num = lambda off: mdates.date2num((base + np.asarray(off) * u.day).to_datetime())  # noqa: E731
@@ -153,9 +153,9 @@ def timeline_figure(res):
         ax.plot(to_num(q["median"]), row, "o", color="w", mec="k", ms=5,
                 label="median" if row == 0 else None)
     ax.axvline(to_num(0.0), color="tab:red", lw=1.2, label=f"detection {tr.date.isot[:10]}")
-    today = (res["today"] - base).to_value("day")
-    if lo - pad <= today <= hi + pad:
-        ax.axvline(to_num(today), color="tab:purple", ls="--", lw=1, label="today")
+    now = (res["now"] - base).to_value("day")
+    if lo - pad <= now <= hi + pad:
+        ax.axvline(to_num(now), color="tab:purple", ls="--", lw=1, label=f"now {res['now'].isot[:10]}")
     ax.set_yticks(range(len(images)))
     ax.set_yticklabels([f"{im['family']}/{im['label']}{'' if im['observed'] else '*'} ({im['status']})"
                         for im in images])
@@ -172,21 +172,27 @@ def timeline_figure(res):
 
 
 def budget_figure(budget):
-    """Horizontal stacked bars: each term's share of each image's date variance."""
-    from .budget import TERMS
+    """Each sampled source's share of each image's date variance (signed: after a
+    measurement some sources offset one another)."""
+    from .budget import SAMPLED_TERMS
 
+    terms = SAMPLED_TERMS + ("remainder",)
     rows = budget["images"]
-    fig, ax = plt.subplots(figsize=(8.0, 1.4 + 0.5 * max(len(rows), 1)))
-    left = np.zeros(len(rows))
-    for term in TERMS:
+    fig, ax = plt.subplots(figsize=(8.0, 1.6 + 0.6 * max(len(rows), 1)))
+    height = 0.8 / len(terms)
+    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    hatches = ["", "//", "..", "xx", "\\\\", "--"]
+    for k, term in enumerate(terms):
         share = np.array([r["date"][term]["percent"] for r in rows])
-        ax.barh(range(len(rows)), share, left=left, label=term)
-        left += share
+        ax.barh(np.arange(len(rows)) - 0.4 + (k + 0.5) * height, share, height=height,
+                color=colours[k % len(colours)], hatch=hatches[k % len(hatches)], edgecolor="k", lw=0.3,
+                label=term)
+    ax.axvline(0, color="k", lw=0.8)
     ax.set_yticks(range(len(rows)))
     ax.set_yticklabels([f"{r['family']}/{r['label']}" for r in rows])
-    ax.set_xlim(0, 100)
-    ax.set_xlabel("share of the date variance [%]")
-    ax.set_title("Uncertainty budget of each image's date (first order)", fontsize=10)
+    ax.invert_yaxis()
+    ax.set_xlabel("share of the date variance [%] (covariance with each source; sums to 100)")
+    ax.set_title("Uncertainty budget of each image's date, after updates", fontsize=10)
     ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     fig.tight_layout()
     return fig

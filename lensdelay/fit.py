@@ -100,7 +100,8 @@ def _source_plane_start(like: ImageLikelihood, start: np.ndarray) -> np.ndarray:
 
 def _lmfit(like, start, resid_fn, n_data):
     params = lmfit.Parameters()
-    names = like.names[:-1] if like.use_delays and n_data is None else like.names
+    # the source-plane stage sees image positions only: H0 and κ_ext stay where they are
+    names = like.names[:like.n_positional] if n_data is None else like.names
     for i, name in enumerate(names):
         lo, hi = like.lower[i], like.upper[i]
         val = float(np.clip(start[i], lo, hi))
@@ -129,8 +130,7 @@ def initial_vector(like: ImageLikelihood) -> np.ndarray:
     for fam in like.families:
         sx, sy = lens.source_position(fam.x, fam.y, fam.scale)
         v += [float(np.mean(sx)), float(np.mean(sy))]
-    if like.use_delays:
-        v.append(like.h0_ref)
+    v += like.scale_start
     return np.array(v)
 
 
@@ -174,12 +174,13 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
     candidates.sort(key=lambda c: c[0])
     best = None
     for _, _, v in candidates[:max(polish, 1)]:
-        if like.use_delays:
+        if like.h0_index is not None:
             # the best H0 for the current Fermat differences, then fit everything
-            grid = np.linspace(like.lower[-1], like.upper[-1], 381)
+            i = like.h0_index
+            grid = np.linspace(like.lower[i], like.upper[i], 381)
             trial = np.repeat(v[None, :], len(grid), axis=0)
-            trial[:, -1] = grid
-            v[-1] = grid[np.argmin(np.sum(like.residuals(trial) ** 2, axis=1))]
+            trial[:, i] = grid
+            v[i] = grid[np.argmin(np.sum(like.residuals(trial) ** 2, axis=1))]
         values, errors, out = _lmfit(like, v, lambda w: like.residuals(w)[0], n_data=like.n_constraints)
         chi2 = float(np.sum(like.residuals(values) ** 2))
         if best is None or chi2 < best[0] - 1e-9:
@@ -267,7 +268,7 @@ def observed_delays(like: ImageLikelihood, rows: np.ndarray, family: int = 0, re
     fam = like.families[family]
     days = (pred["fermat"] - pred["fermat"][:, reference:reference + 1]) * fam.days_per_arcsec2
     if like.use_delays:
-        days = days * like.h0_ref / rows[:, -1:]
+        days = days * like.delay_scale(rows)[:, None]
     return days
 
 

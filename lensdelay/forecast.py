@@ -1,12 +1,15 @@
-"""From a lens-model posterior to dated, brightness-rated, observability-checked images.
+"""From a lens-model posterior to the dates and brightness of every image.
 
-For every posterior sample the images of the transient's source are solved at once
-(Newton, vectorised over samples, started from the best-fit images), their Fermat
-potentials turned into delays relative to the image the transient was seen in, then
-combined sample by sample with the H0 prior, the external convergence κ_ext
-(delays × (1 − κ_ext)), the detection-date error and a microlensing scatter on
-brightness. Measured dates of further images condition the samples by importance
-weights. Several models are combined with BIC (or equal) weights.
+For every forecast sample the images of the transient's source are solved at once
+(Newton, vectorised over samples, started from the best-fit images); their Fermat
+potentials become delays after the image the transient was seen in, scaled sample
+by sample by H0 (D_dt ∝ 1/H0) and by (1 − κ_ext). Each image's date is t0 + Δt_i
+with t0 the date the event reached the reference image (:mod:`lensdelay.timing`).
+
+Measured delays and sightings update the samples by one of two routes
+(:func:`update_on_timing`): importance weights when enough effective samples remain
+(at least ``min_ess_fraction`` of them), otherwise a new posterior sample with the
+measurements as likelihood terms (done by the caller, which owns the sampler).
 
 This module computes; it reads and writes nothing.
 """
@@ -15,10 +18,13 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy.special import logsumexp
 
 from .images import find_images, newton_polish
 from .lens import PARITIES
 from .likelihood import ImageLikelihood
+from .summaries import QUANTILES, effective_sample_size, quantile_summary, weighted_quantiles  # noqa: F401
+from .timing import TimingData
 
 #: Default H0 prior, km/s/Mpc: wide enough to span both the early-universe (~67) and
 #: distance-ladder (~73) values at about 1σ, so a forecast commits to neither.
@@ -31,7 +37,22 @@ DEFAULT_KAPPA_EXT = (0.0, 0.05)
 DEFAULT_MICROLENSING_MAG = 0.3
 #: Images fainter than this (AB mag) are flagged.
 DEFAULT_DEPTH = 25.0
-QUANTILES = {"median": 50.0, "p16": 16.0, "p84": 84.0, "p2.5": 2.5, "p97.5": 97.5}
+#: Importance weights are kept only while at least this fraction of the samples is
+#: effective; below it the posterior is sampled again with the measurements.
+MIN_ESS_FRACTION = 0.1
+#: Agreement below which an image's parity, arrival rank or order is flagged.
+AGREEMENT = 0.95
+
+
+@dataclass(frozen=True)
+class Sighting:
+    """Image ``family/label`` showed the event on ``date`` ± ``sigma_days``."""
+
+    family: str
+    label: str
+    date: object                 # astropy Time
+    sigma_days: float
+    sigma_stated: bool = True    # False: the default was used
 
 
 @dataclass(frozen=True)
@@ -45,63 +66,24 @@ class ForecastSettings:
     microlensing_mag: float = DEFAULT_MICROLENSING_MAG
     depth: float = DEFAULT_DEPTH
     weighting: str = "bic"
-    seen: dict = field(default_factory=dict)     # label -> (Time, sigma_days)
+    sightings: tuple[Sighting, ...] = ()
     model_prior: str = "flat"                    # prior of the mass-model posterior
+    min_ess_fraction: float = MIN_ESS_FRACTION
 
 
-def weighted_quantiles(values, weights, percents) -> np.ndarray:
-    """Quantiles (percent) of weighted samples; NaN values are skipped."""
-    values = np.asarray(values, dtype=float)
-    weights = np.asarray(weights, dtype=float)
-    ok = np.isfinite(values) & (weights > 0)
-    if not np.any(ok):
-        return np.full(len(percents), np.nan)
-    v, w = values[ok], weights[ok]
-    order = np.argsort(v)
-    v, w = v[order], w[order]
-    cdf = (np.cumsum(w) - 0.5 * w) / np.sum(w)
-    return np.interp(np.asarray(percents) / 100.0, cdf, v)
-
-
-def summary(values, weights) -> dict:
-    q = weighted_quantiles(values, weights, list(QUANTILES.values()))
-    return {k: float(x) for k, x in zip(QUANTILES, q)}
-
-
-@dataclass
-class ImageSamples:
-    """One image's per-sample predictions within one model."""
+@dataclass(frozen=True)
+class ImageTrack:
+    """One image of the transient's family: observed, or predicted at the best fit."""
 
     family: str
     label: str
     observed: bool
-    x: np.ndarray
-    y: np.ndarray
-    delay: np.ndarray           # days, relative to the reference image; NaN if absent
-    magnification: np.ndarray
-    parity: np.ndarray          # codes
-    rank: np.ndarray            # 1 = first
-    exists: np.ndarray          # bool
+    x: float                     # start of Newton's method, arcsec
+    y: float
 
 
-@dataclass
-class ModelForecast:
-    """All images of the transient's family under one model."""
-
-    model_label: str
-    bic: float
-    images: list[ImageSamples]
-    detection_offset: np.ndarray        # days, the per-sample detection-date error
-    weights: np.ndarray                 # importance weights (updating); sum 1
-    base_weights: np.ndarray            # the same before updating
-    h0: np.ndarray
-    kappa_ext: np.ndarray
-    lens_only_delay: dict               # label -> delays at fixed H0 and κ_ext = 0 (for the budget)
-    seen_used: dict
-    notes: list[str]
-
-
-def _label_unobserved(existing, n):
+def label_unobserved(existing, n) -> list[str]:
+    """``X1``, ``X2``, … skipping labels already in use."""
     labels, k = [], 1
     while len(labels) < n:
         cand = f"X{k}"
@@ -111,55 +93,104 @@ def _label_unobserved(existing, n):
     return labels
 
 
-def model_forecast(like: ImageLikelihood, best: np.ndarray, posterior: np.ndarray, bic: float,
-                   transient, settings: ForecastSettings, rng: np.random.Generator) -> ModelForecast:
-    """Per-sample images, delays and magnifications of the transient's family under one model.
+def image_tracks(like: ImageLikelihood, best: np.ndarray, family: str) -> tuple[list[ImageTrack], list[str]]:
+    """Every image of ``family`` at the best fit: observed ones matched, the rest labelled anew.
 
-    Parameters
-    ----------
-    like : ImageLikelihood
-    best : ndarray
-        Best-fit parameter vector.
-    posterior : ndarray, (m, n_par)
-        Posterior samples of the lens-model parameters (drawn with replacement).
-    transient : lensdelay.scenario.Transient
+    Returns the tracks and notes (an observed image the model lacks is forecast from its
+    observed position).
     """
     notes = []
-    k_fam = [f.label for f in like.families].index(transient.family)
-    fam = like.families[k_fam]
-    n = settings.n_samples
-    draws = posterior[rng.integers(0, len(posterior), n)]
-    # -- images at the best fit: observed ones matched, the rest labelled anew -------
+    k = [f.label for f in like.families].index(family)
+    fam = like.families[k]
     lens_best = like.model.lens(best[:like.n_model])
-    bx, by = best[like.source_slice(k_fam)]
+    bx, by = best[like.source_slice(k)]
     table = find_images(lens_best, [bx], [by], fam.scale)
-    starts_x, starts_y, labels, observed = [], [], [], []
     used = np.zeros(len(table), dtype=bool)
+    tracks = []
     for i, lab in enumerate(fam.labels):
         d = np.hypot(table.x - fam.x[i], table.y - fam.y[i])
         j = int(np.argmin(d)) if len(d) else -1
         if j < 0 or d[j] > max(10 * fam.sigma[i], 0.05) or used[j]:
             notes.append(f"observed image {lab} has no model counterpart at the best fit; "
                          "it is forecast from its observed position")
-            starts_x.append(fam.x[i])
-            starts_y.append(fam.y[i])
+            tracks.append(ImageTrack(family, lab, True, float(fam.x[i]), float(fam.y[i])))
         else:
             used[j] = True
-            starts_x.append(table.x[j])
-            starts_y.append(table.y[j])
-        labels.append(lab)
-        observed.append(True)
+            tracks.append(ImageTrack(family, lab, True, float(table.x[j]), float(table.y[j])))
     extra = np.nonzero(~used)[0]
-    for j, lab in zip(extra, _label_unobserved(set(fam.labels), len(extra))):
-        starts_x.append(table.x[j])
-        starts_y.append(table.y[j])
-        labels.append(lab)
-        observed.append(False)
-    sx, sy = np.array(starts_x), np.array(starts_y)
-    # -- all samples at once --------------------------------------------------------
+    for j, lab in zip(extra, label_unobserved(set(fam.labels), len(extra))):
+        tracks.append(ImageTrack(family, lab, False, float(table.x[j]), float(table.y[j])))
+    return tracks, notes
+
+
+@dataclass
+class ModelSamples:
+    """Per-sample images of the transient's family under one model (n samples, m images).
+
+    ``lens_days`` are delays after the reference image at the reference cosmology and
+    κ_ext = 0; ``delay = lens_days · scale`` with scale = (H_ref/H0)(1 − κ_ext).
+    """
+
+    model_label: str
+    tracks: list[ImageTrack]
+    reference: int               # column of the reference image
+    x: np.ndarray
+    y: np.ndarray
+    exists: np.ndarray
+    lens_days: np.ndarray
+    magnification: np.ndarray
+    parity: np.ndarray
+    rank: np.ndarray
+    h0: np.ndarray
+    kappa: np.ndarray
+    scale: np.ndarray
+
+    @property
+    def labels(self) -> list[str]:
+        return [t.label for t in self.tracks]
+
+    @property
+    def delay(self) -> np.ndarray:
+        return self.lens_days * self.scale[:, None]
+
+    @property
+    def valid(self) -> np.ndarray:
+        """Samples in which the reference image exists and the delay scale is finite."""
+        return self.exists[:, self.reference] & np.isfinite(self.scale)
+
+    def columns(self, timing: TimingData) -> np.ndarray:
+        """Delays of the images ``timing`` refers to, in its column order (NaN: absent)."""
+        index = {(t.family, t.label): i for i, t in enumerate(self.tracks)}
+        cols = [index[c] for c in timing.columns]
+        return np.where(self.exists[:, cols], self.delay[:, cols], np.nan)
+
+
+def solve_samples(like: ImageLikelihood, draws: np.ndarray, tracks: list[ImageTrack], reference: str,
+                  h0: np.ndarray, kappa: np.ndarray) -> ModelSamples:
+    """All images of the tracks' family for every parameter row of ``draws`` at once.
+
+    Parameters
+    ----------
+    like : ImageLikelihood
+        The likelihood ``draws`` belong to (its parameter layout).
+    draws : ndarray, (n, n_par)
+        Posterior samples of the likelihood's parameters.
+    tracks : list of ImageTrack
+        Where to start Newton's method for each image (the best fit's images).
+    reference : str
+        Label of the image the transient was seen in.
+    h0, kappa : ndarray, (n,)
+        H0 (km/s/Mpc) and κ_ext per sample.
+    """
+    family = tracks[0].family
+    k_fam = [f.label for f in like.families].index(family)
+    fam = like.families[k_fam]
+    n = len(draws)
+    sx = np.array([t.x for t in tracks])
+    sy = np.array([t.y for t in tracks])
     lens = like.lens_for(draws)
-    sbx = draws[:, like.source_slice(k_fam)][:, :1]
-    sby = draws[:, like.source_slice(k_fam)][:, 1:]
+    src = draws[:, like.source_slice(k_fam)]
+    sbx, sby = src[:, :1], src[:, 1:]
     x, y, err = newton_polish(lens, np.broadcast_to(sx, (n, len(sx))), np.broadcast_to(sy, (n, len(sy))),
                               sbx, sby, fam.scale, iterations=40, max_step=0.05)
     exists = err < 1e-8
@@ -171,62 +202,65 @@ def model_forecast(like: ImageLikelihood, best: np.ndarray, posterior: np.ndarra
         mu = lens.magnification(x, y, fam.scale)
     parity = lens.parity_code(x, y, fam.scale)
     tau = np.where(exists, tau, np.nan)
-    ref = labels.index(transient.seen_in)
-    if not np.all(exists[:, ref]):
-        notes.append(f"the reference image {transient.seen_in} is missing in "
-                     f"{100 * np.mean(~exists[:, ref]):.1f}% of samples; those samples are dropped")
-    # -- cosmology, mass sheet, dates ------------------------------------------------
+    ref = [t.label for t in tracks].index(reference)
+    lens_days = (tau - tau[:, ref:ref + 1]) * fam.days_per_arcsec2
+    rank = np.argsort(np.argsort(np.where(exists, tau, np.inf), axis=1), axis=1) + 1
+    scale = (like.h0_ref / h0) * (1.0 - kappa)
+    return ModelSamples(like.model.label, list(tracks), ref, x, y, exists, lens_days,
+                        np.where(exists, mu, np.nan), parity, rank, h0, kappa, scale)
+
+
+def draw_scale_priors(settings: ForecastSettings, h0_ref: float, n: int,
+                      rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """H0 and κ_ext per sample from their priors (H0 fixed when the prior is None)."""
     if settings.h0_prior is not None:
         h0 = rng.normal(settings.h0_prior[0], settings.h0_prior[1], n)
         h0 = np.where(h0 > 1.0, h0, np.nan)
     else:
-        h0 = np.full(n, like.h0_ref)
-    if like.use_delays:
-        h0 = draws[:, -1]
-    kext = rng.normal(settings.kappa_ext[0], settings.kappa_ext[1], n) if settings.kappa_ext[1] > 0 \
-        else np.full(n, settings.kappa_ext[0])
-    # D_dt ∝ 1/H0 exactly without radiation (and to ~1e-4 with it)
-    lens_days = (tau - tau[:, ref:ref + 1]) * fam.days_per_arcsec2
-    delay = lens_days * (like.h0_ref / h0)[:, None] * (1.0 - kext)[:, None]
-    det_offset = rng.normal(0.0, transient.date_sigma_days, n) if transient.date_sigma_days > 0 \
-        else np.zeros(n)
-    rank = np.argsort(np.argsort(np.where(exists, tau, np.inf), axis=1), axis=1) + 1
-    weights = np.where(np.isfinite(delay[:, ref]) & np.isfinite(h0), 1.0, 0.0)
-    base_weights = weights / max(weights.sum(), 1e-300)
-    # -- updating on measured dates of further images -------------------------------
-    seen_used = {}
-    for lab, (date, sigma) in settings.seen.items():
-        if lab not in labels:
-            continue
-        measured = (date - transient.date).to_value("day")
-        i = labels.index(lab)
-        sig = max(float(sigma), 1e-3)
-        pred = det_offset + delay[:, i]
-        logw = -0.5 * ((pred - measured) / sig) ** 2
-        logw = np.where(np.isfinite(logw), logw, -np.inf)
-        if np.any(np.isfinite(logw)):
-            logw = logw - np.max(logw[np.isfinite(logw)])
-        weights = weights * np.exp(logw)
-        seen_used[lab] = {"date": date.isot, "sigma_days": sig, "delay_days": measured}
-    total = weights.sum()
-    if not total > 0:
-        weights = np.ones(n)
-        notes.append("the measured dates are incompatible with every sample; updating ignored")
-        seen_used = {}
-        total = n
-    weights = weights / total
-    ess = 1.0 / np.sum(weights ** 2)
-    if seen_used and ess < 200:
-        notes.append(f"after updating only {ess:.0f} effective samples remain; increase --samples")
-    images = []
-    for i, lab in enumerate(labels):
-        images.append(ImageSamples(fam.label, lab, observed[i], x[:, i], y[:, i],
-                                   np.where(exists[:, i], delay[:, i], np.nan),
-                                   np.where(exists[:, i], mu[:, i], np.nan), parity[:, i],
-                                   rank[:, i], exists[:, i]))
-    fixed = {lab: lens_days[:, i] for i, lab in enumerate(labels)}
-    return ModelForecast(like.model.label, bic, images, det_offset, weights, base_weights, h0, kext,
-                         fixed, seen_used, notes)
+        h0 = np.full(n, h0_ref)
+    mean, sigma = settings.kappa_ext
+    kappa = rng.normal(mean, sigma, n) if sigma > 0 else np.full(n, mean)
+    return h0, kappa
+
+
+@dataclass
+class TimingUpdate:
+    """How one model's samples were conditioned on the timing data."""
+
+    route: str                   # "none", "reweight" or "resample"
+    weights: np.ndarray          # per sample, sum 1
+    effective_samples: float
+    log_evidence: float          # log E[L_timing] over the samples without timing data
+    importance_effective_samples: float | None = None
+    notes: list[str] = field(default_factory=list)
+
+
+def importance_update(samples: ModelSamples, timing: TimingData | None,
+                      min_fraction: float = MIN_ESS_FRACTION) -> tuple[TimingUpdate, bool]:
+    """Importance weights of the samples given the timing data.
+
+    Returns the update and whether it is good enough (effective sample size at least
+    ``min_fraction`` of the samples); if not, the caller samples the posterior anew.
+    The log evidence log E[L] (mean over the samples of the timing likelihood, up to
+    the Gaussian's constant, which is the same for every model) multiplies the model
+    weights: it is the marginal likelihood of the timing data under this model.
+    """
+    base = samples.valid.astype(float)
+    n = len(base)
+    if timing is None or not len(timing):
+        w = base / max(base.sum(), 1e-300)
+        return TimingUpdate("none", w, float(base.sum()), 0.0), True
+    logl = timing.log_likelihood(samples.columns(timing))
+    logl = np.where(samples.valid, logl, -np.inf)
+    if not np.any(np.isfinite(logl)):
+        return TimingUpdate("reweight", np.zeros(n), 0.0, -np.inf,
+                            0.0, ["the timing data are impossible under every sample "
+                                  "(an image they name is missing)"]), False
+    log_evidence = float(logsumexp(logl) - np.log(max(base.sum(), 1.0)))
+    w = np.exp(logl - np.max(logl))
+    ess = effective_sample_size(w)
+    update = TimingUpdate("reweight", w / w.sum(), ess, log_evidence, ess)
+    return update, ess >= min_fraction * n
 
 
 def majority(codes, weights):
@@ -238,40 +272,48 @@ def majority(codes, weights):
     return values[k], float(shares[k] / max(shares.sum(), 1e-300))
 
 
-def combine(models: list[ModelForecast], weighting: str = "bic", match_radius: float = 0.15):
-    """Merge per-model forecasts into one set of images with mixture weights.
+def model_weights(bic, log_evidence, weighting: str = "bic") -> np.ndarray:
+    """Posterior model weights: exp(−BIC/2) × the timing data's marginal likelihood.
 
-    Observed images are matched by label; unobserved ones by position (median within
-    ``match_radius`` arcsec); an image some models lack keeps weight only from those
-    that have it. Returns (images, model weights) where images is a list of dicts of
-    concatenated samples.
+    ``"equal"``: the same for every model whatever the data.
     """
+    bic = np.asarray(bic, dtype=float)
     if weighting == "equal":
-        w_model = np.ones(len(models))
+        w = np.ones(len(bic))
     else:
-        bic = np.array([m.bic for m in models])
-        w_model = np.exp(-0.5 * (bic - bic.min()))
-    w_model = w_model / w_model.sum()
+        logw = -0.5 * (bic - bic.min()) + np.asarray(log_evidence, dtype=float)
+        logw = np.where(np.isfinite(logw), logw, -np.inf)
+        w = np.exp(logw - np.max(logw))
+    return w / w.sum()
+
+
+def match_tracks(models: list[ModelSamples], match_radius: float = 0.15) -> list[dict]:
+    """Group the same image across models.
+
+    Observed images are matched by label; predicted ones by best-fit position (within
+    ``match_radius`` arcsec), each model at most once per group. Returns groups
+    ``{"family", "label", "observed", "x", "y", "members": [(model index, column)]}``;
+    the first model to have an image names it.
+    """
     groups: list[dict] = []
     for m_index, m in enumerate(models):
-        for im in m.images:
-            mx, my = float(np.nanmedian(im.x)), float(np.nanmedian(im.y))
+        for col, t in enumerate(m.tracks):
             target = None
             for g in groups:
-                if im.observed and g["observed"] and g["label"] == im.label:
+                if t.observed and g["observed"] and g["label"] == t.label:
                     target = g
-                elif (not im.observed and not g["observed"]
-                      and np.hypot(g["x"] - mx, g["y"] - my) < match_radius and m_index not in g["models"]):
+                elif (not t.observed and not g["observed"]
+                      and np.hypot(g["x"] - t.x, g["y"] - t.y) < match_radius
+                      and m_index not in [mm for mm, _ in g["members"]]):
                     target = g
                 if target is not None:
                     break
             if target is None:
-                target = {"label": im.label, "family": im.family, "observed": im.observed,
-                          "x": mx, "y": my, "parts": [], "models": []}
+                target = {"family": t.family, "label": t.label, "observed": t.observed,
+                          "x": t.x, "y": t.y, "members": []}
                 groups.append(target)
-            target["parts"].append((m_index, im, m))
-            target["models"].append(m_index)
-    return groups, w_model
+            target["members"].append((m_index, col))
+    return groups
 
 
 def parity_name(code) -> str:

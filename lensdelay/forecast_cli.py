@@ -4,7 +4,7 @@ from __future__ import annotations
 import sys
 
 from .errors import InputError
-from .scenario import Site
+from .scenario import Site, parse_date
 
 
 def _site_from_args(args):
@@ -37,7 +37,8 @@ def cmd_forecast(args) -> int:
                        cosmology_name=args.cosmology, kappa_ext=args.kappa_ext,
                        microlensing=args.microlensing, depth=args.depth, weighting=args.weights,
                        seen=args.seen, site=_site_from_args(args), walkers=args.walkers,
-                       steps=args.steps, progress=not args.quiet, prior=args.prior)
+                       steps=args.steps, progress=not args.quiet, prior=args.prior,
+                       now=parse_date(args.now, "--now") if args.now is not None else None)
     if getattr(args, "budget", True):
         from .budget import delay_budget
 
@@ -68,11 +69,11 @@ def cmd_forecast(args) -> int:
 
 def register(sub, number) -> None:
     p = sub.add_parser("forecast", help="when, where and how bright the event reappears")
-    p.add_argument("scenario")
+    p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--model", action="append", help="model TOML (repeat for several models)")
-    p.add_argument("--out", help="folder for forecast.json, .ecsv, .ics and the timeline figure")
+    p.add_argument("--out", help="folder for forecast.json, .ecsv, .ics and the figures")
     p.add_argument("--samples", type=int, default=20000, help="forecast samples (default 20000)")
-    p.add_argument("--seed", type=int, default=1)
+    p.add_argument("--seed", type=int, default=1, help="seed of every random draw (default 1)")
     g = p.add_mutually_exclusive_group()
     g.add_argument("--h0", nargs=2, type=number, metavar=("MEAN", "SIGMA"),
                    help="Gaussian H0 prior, km/s/Mpc (default 70 5)")
@@ -81,18 +82,25 @@ def register(sub, number) -> None:
                    help="external convergence prior (default 0 0.05)")
     p.add_argument("--microlensing", type=number, help="magnitude scatter per image (default 0.3)")
     p.add_argument("--depth", type=number, help="flag images fainter than this magnitude (default 25)")
-    p.add_argument("--weights", default="bic", help="model weights: bic (default) or equal")
-    p.add_argument("--seen", action="append", metavar="LABEL=DATE", help="a further image seen on DATE")
+    p.add_argument("--weights", default="bic",
+                   help="model weights: bic (default; times the timing data's likelihood) or equal")
+    p.add_argument("--seen", action="append", metavar="[FAMILY/]LABEL=DATE[±SIGMA]",
+                   help="another image (observed or predicted, e.g. sn/X1) showed the event on DATE "
+                        "(ISO 8601, UTC), SIGMA days (+- also accepted); default SIGMA: the "
+                        "detection's date_sigma_days, or 1 day; repeat for several")
+    p.add_argument("--now", metavar="DATE",
+                   help="judge past/now/future as of this ISO 8601 UTC date (default: the current time)")
     p.add_argument("--site", nargs=3, type=number, metavar=("LAT", "LON", "HEIGHT"),
                    help="ground site (degrees, degrees East, metres)")
     p.add_argument("--elongation", nargs=2, type=number, metavar=("MIN", "MAX"),
                    help="space observatory: allowed solar elongation range, degrees")
-    p.add_argument("--walkers", type=int, default=32)
+    p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
     from .cli_more import add_prior_argument
 
     add_prior_argument(p)
-    p.add_argument("--steps", type=int, default=2000)
-    p.add_argument("--quiet", action="store_true")
+    p.add_argument("--steps", type=int, default=2000,
+                   help="sampler steps (default 2000; more when the measurements need a new sample)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--no-budget", dest="budget", action="store_false",
                    help="skip the uncertainty budget table and figure")
     p.set_defaults(func=cmd_forecast, budget=True)

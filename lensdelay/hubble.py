@@ -17,7 +17,7 @@ from astropy import units as u
 from astropy.cosmology import FlatLambdaCDM
 
 from .cosmology import DelayDistanceTable, LensDistances
-from .forecast import summary
+from .summaries import quantile_summary as summary
 
 KAPPA_COMPARISON = ((0.0, 0.0), (0.0, 0.05), (0.05, 0.05), (-0.05, 0.05), (0.1, 0.05))
 
@@ -30,7 +30,7 @@ def pair_delays(like, rows) -> dict:
         for i, j in itertools.combinations(range(len(fam.labels)), 2):
             days = (pred["fermat"][:, j] - pred["fermat"][:, i]) * fam.days_per_arcsec2
             if like.use_delays:
-                days = days * like.h0_ref / rows[:, -1]
+                days = days * like.delay_scale(rows)
             out[(fam.label, fam.labels[j], fam.labels[i])] = days
     return out
 

@@ -159,10 +159,11 @@ def cmd_hubble(args) -> int:
 
 def register(sub, number) -> None:
     p = sub.add_parser("hubble", help="delays vs H0; H0 from measured delays; mass-sheet comparison")
-    p.add_argument("scenario")
-    p.add_argument("--model", action="append")
-    p.add_argument("--out")
-    p.add_argument("--kappa-ext", nargs=2, type=number, default=[0.0, 0.05], metavar=("MEAN", "SIGMA"))
+    p.add_argument("scenario", help="scenario TOML file")
+    p.add_argument("--model", action="append", help="model TOML replacing the scenario's mass model")
+    p.add_argument("--out", help="folder for hubble.json and the figures")
+    p.add_argument("--kappa-ext", nargs=2, type=number, default=[0.0, 0.05], metavar=("MEAN", "SIGMA"),
+                   help="external convergence prior (default 0 0.05)")
     p.add_argument("--om0", nargs=2, type=number, metavar=("MEAN", "SIGMA"),
                    help="Omega_m prior (flat LCDM; default the scenario's value ± 0.02)")
     p.add_argument("--curves", help="also show delays along 'om0' and/or 'w' (comma separated)")
@@ -171,11 +172,11 @@ def register(sub, number) -> None:
                    "from the scenario; the Om0 prior then applies only to FlatLambdaCDM)")
     p.add_argument("--param", action="append", metavar="NAME=VALUE",
                    help="a parameter of --cosmology-class, e.g. w0=-0.9")
-    p.add_argument("--walkers", type=int, default=32)
+    p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
     from .cli_more import add_prior_argument
 
     add_prior_argument(p)
-    p.add_argument("--steps", type=int, default=2000)
-    p.add_argument("--seed", type=int, default=1)
-    p.add_argument("--quiet", action="store_true")
+    p.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")
+    p.add_argument("--seed", type=int, default=1, help="seed of every random draw (default 1)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_hubble)

@@ -79,10 +79,25 @@ class ImageLikelihood:
     prior : {"jeffreys", "flat"}
         Prior of :meth:`log_probability` within the bounds (module docstring); Gaussian
         priors of the recipe and the lens-light centre enter as constraints either way.
+    timing : lensdelay.timing.TimingData, optional
+        Measured delays and sightings to fit (instead of the scenario's delays that
+        ``use_delays`` takes). Its columns name observed images or images listed in
+        ``tracked``.
+    h0_prior : None, "fixed" or (mean, sigma)
+        With timing data: H0 free with a flat prior on [10, 200] km/s/Mpc (None), held
+        at the cosmology's value ("fixed"), or free with a Gaussian prior.
+    kappa_prior : (mean, sigma), optional
+        With timing data: external convergence; free with a Gaussian prior when sigma
+        > 0, held at ``mean`` when sigma = 0; 0 when not given. Delays scale by
+        (1 − κ_ext) (the mass-sheet transformation).
+    tracked : dict, optional
+        family label → {image label: (x, y)}: predicted (unobserved) images that timing
+        rows refer to, followed by Newton's method from these positions.
     """
 
     def __init__(self, scenario: Scenario, model: MassModel, *, use_delays: bool = False,
-                 use_fluxes: bool = False, flux_floor_mag: float = 0.2, prior: str = "flat"):
+                 use_fluxes: bool = False, flux_floor_mag: float = 0.2, prior: str = "flat",
+                 timing=None, h0_prior=None, kappa_prior=None, tracked=None):
         if prior not in PRIOR_CHOICES:
             raise InputError(f"prior must be one of {choices_text(PRIOR_CHOICES)}, got {prior!r}")
         self.prior = prior
@@ -97,7 +112,20 @@ class ImageLikelihood:
                 self.distances.days_per_arcsec2(fam.redshift),
                 np.array([im.x for im in fam.images]), np.array([im.y for im in fam.images]),
                 np.array([im.sigma for im in fam.images]), fam.labels))
-        self.use_delays = bool(use_delays and scenario.delays)
+        if timing is None and use_delays and scenario.delays:
+            from .timing import DelayRow, TimingData
+
+            timing = TimingData([(f.label, lab) for f in scenario.families for lab in f.labels],
+                                [DelayRow(d.family, d.image, d.relative_to, d.days, d.sigma)
+                                 for d in scenario.delays])
+        self.timing = timing
+        self.use_delays = timing is not None
+        tracked = tracked or {}
+        self.tracked = []
+        for fam in self.families:
+            items = tracked.get(fam.label, {})
+            self.tracked.append((list(items), np.array([v[0] for v in items.values()], dtype=float),
+                                 np.array([v[1] for v in items.values()], dtype=float)))
         self.flux_floor_mag = float(flux_floor_mag)
         # observed magnitude differences to the first image, per family (None: not used)
         self.flux_data = []
@@ -118,8 +146,6 @@ class ImageLikelihood:
         self.names = [p.name for p in free]
         for fam in self.families:
             self.names += [f"source[{fam.label}].x", f"source[{fam.label}].y"]
-        if self.use_delays:
-            self.names.append("H0")
         self.n_model = len(free)
         lo = [p.min for p in free]
         hi = [p.max for p in free]
@@ -127,13 +153,41 @@ class ImageLikelihood:
             reach = 2.0 * float(np.max(np.hypot(fam.x, fam.y))) + 1.0
             lo += [-reach, -reach]
             hi += [reach, reach]
-        if self.use_delays:
-            lo.append(10.0)
-            hi.append(200.0)
-        self.lower, self.upper = np.array(lo), np.array(hi)
-        self.periods = [p.period for p in free] + [None] * (len(self.names) - self.n_model)
+        #: lens and source parameters: everything image positions depend on
+        self.n_positional = len(self.names)
         # Gaussian priors: parameter index -> (mean, sigma)
         self.priors = {i: p.prior for i, p in enumerate(free) if p.prior is not None}
+        # the delay scale (H_ref/H0)(1 − κ_ext): free parameters or fixed values
+        self.h0_index = self.kappa_index = None
+        self.h0_fixed = self.h0_ref
+        self.kappa_fixed = 0.0
+        self.scale_start = []
+        if self.use_delays:
+            if isinstance(h0_prior, str):
+                if h0_prior != "fixed":
+                    raise InputError(f"h0_prior must be None, 'fixed' or (mean, sigma), got {h0_prior!r}")
+            else:
+                self.h0_index = len(self.names)
+                self.names.append("H0")
+                lo.append(10.0)
+                hi.append(200.0)
+                if h0_prior is not None:
+                    self.priors[self.h0_index] = (float(h0_prior[0]), float(h0_prior[1]))
+                self.scale_start.append(self.h0_ref if h0_prior is None else float(h0_prior[0]))
+            if kappa_prior is not None:
+                mean, sigma = float(kappa_prior[0]), float(kappa_prior[1])
+                if sigma > 0:
+                    self.kappa_index = len(self.names)
+                    self.names.append("kappa_ext")
+                    # κ_ext ≥ 1 would turn delays around: bounded below 1
+                    lo.append(max(-1.0, mean - 10 * sigma))
+                    hi.append(min(0.95, mean + 10 * sigma))
+                    self.priors[self.kappa_index] = (mean, sigma)
+                    self.scale_start.append(mean)
+                else:
+                    self.kappa_fixed = mean
+        self.lower, self.upper = np.array(lo), np.array(hi)
+        self.periods = [p.period for p in free] + [None] * (len(self.names) - self.n_model)
         self.centre_prior = self._lens_light_prior()
         # unobserved images to follow, per family: (x, y) arrays (see watch_unobserved)
         self.watched = [(np.empty(0), np.empty(0)) for _ in self.families]
@@ -166,11 +220,21 @@ class ImageLikelihood:
     def n_constraints(self) -> int:
         n = 2 * sum(len(f.x) for f in self.families) + len(self.priors) + len(self.centre_prior)
         n += sum(len(d) - 1 for d in self.flux_data if d is not None)
-        return n + (len(self.scenario.delays) if self.use_delays else 0)
+        return n + (len(self.timing) if self.use_delays else 0)
 
     @property
     def dof(self) -> int:
         return self.n_constraints - self.n_parameters
+
+    def delay_scale(self, params: np.ndarray) -> np.ndarray:
+        """(H_ref/H0)(1 − κ_ext) per row, (P,): delays at the reference cosmology times this.
+
+        D_dt ∝ 1/H0 exactly for a cosmology without radiation (and to ~1e-4 with it).
+        """
+        params = np.atleast_2d(params)
+        h0 = params[:, self.h0_index] if self.h0_index is not None else self.h0_fixed
+        kappa = params[:, self.kappa_index] if self.kappa_index is not None else self.kappa_fixed
+        return np.broadcast_to((self.h0_ref / h0) * (1.0 - kappa), (len(params),))
 
     def source_slice(self, k: int) -> slice:
         return slice(self.n_model + 2 * k, self.n_model + 2 * k + 2)
@@ -212,9 +276,34 @@ class ImageLikelihood:
                 tau = lens.fermat_potential(x, y, bx, by, fam.scale)
                 mu = lens.magnification(x, y, fam.scale)
             extra_mu = self._watched_magnifications(lens, k, x, y, ok, bx, by)
+            tx, ty, t_tau = self._tracked_images(lens, k, x, y, ok, bx, by)
             out.append({"x": x, "y": y, "ok": ok, "near": near, "fermat": tau, "mu": mu,
-                        "beta": np.hstack([bx, by]), "lens": lens, "extra_mu": extra_mu})
+                        "beta": np.hstack([bx, by]), "lens": lens, "extra_mu": extra_mu,
+                        "track_x": tx, "track_y": ty, "track_fermat": t_tau})
         return out
+
+    def _tracked_images(self, lens, k, x, y, ok, bx, by):
+        """Positions and Fermat potentials of family k's tracked predicted images.
+
+        An image that Newton's method cannot find, or that lands on an observed image or
+        on another tracked one, does not exist in that row: its potential is NaN.
+        """
+        labels, sx, sy = self.tracked[k]
+        fam = self.families[k]
+        if not labels:
+            empty = np.zeros((len(x), 0))
+            return empty, empty, empty
+        tx, ty, err = newton_polish(lens, sx[None, :], sy[None, :], bx, by, fam.scale,
+                                    iterations=15, max_step=0.05, tolerance=1e-11)
+        exists = err < 1e-8
+        for i in range(x.shape[1]):
+            exists &= ~(ok[:, i:i + 1] & (np.hypot(tx - x[:, i:i + 1], ty - y[:, i:i + 1]) < 1e-4))
+        for i in range(len(labels)):
+            for j in range(i + 1, len(labels)):
+                exists[:, j] &= ~(np.hypot(tx[:, i] - tx[:, j], ty[:, i] - ty[:, j]) < 1e-4)
+        with np.errstate(all="ignore"):
+            tau = lens.fermat_potential(tx, ty, bx, by, fam.scale)
+        return tx, ty, np.where(exists, tau, np.nan)
 
     def _watched_magnifications(self, lens, k, x, y, ok, bx, by) -> np.ndarray:
         """|μ| of the watched unobserved images of family k, 0 where they do not exist."""
@@ -314,35 +403,42 @@ class ImageLikelihood:
             if self.periods[i]:     # an angle: the prior is about the nearest equivalent mean
                 diff = (diff + self.periods[i] / 2) % self.periods[i] - self.periods[i] / 2
             parts.append((diff / sig)[:, None])
-        parts += self._derived_residuals(params, [p["fermat"] for p in preds],
+        parts += self._derived_residuals(params, [np.hstack([p["fermat"], p["track_fermat"]]) for p in preds],
                                          [p["mu"] for p in preds])
         res = np.hstack(parts)
         return np.where(np.isfinite(res), res, 1e6)
 
     def _derived_residuals(self, params, fermat, mu) -> list[np.ndarray]:
-        """Residual columns of measured delays and flux ratios (those in use).
+        """Residual columns of timing data and flux ratios (those in use).
 
-        ``fermat`` and ``mu`` are per family, (P, n_img) at the predicted images.
+        ``fermat`` is per family, (P, n_img + n_tracked): the observed images, then the
+        tracked predicted ones; ``mu`` per family (P, n_img) at the observed images.
         """
         parts = []
         if self.use_delays:
-            h0 = params[:, -1]
-            cols = []
-            fam_index = {f.label: k for k, f in enumerate(self.families)}
-            for d in self.scenario.delays:
-                k = fam_index[d.family]
-                fam = self.families[k]
-                i, j = fam.labels.index(d.image), fam.labels.index(d.relative_to)
-                days = (fermat[k][:, i] - fermat[k][:, j]) * fam.days_per_arcsec2
-                days = days * self.h0_ref / h0
-                cols.append(((days - d.days) / d.sigma)[:, None])
-            parts.append(np.hstack(cols))
+            parts.append(self.timing.residuals(self.arrival_times(params, fermat)))
         for data, m in zip(self.flux_data, mu):
             if data is not None:
                 with np.errstate(all="ignore"):
                     rel = -2.5 * np.log10(np.abs(m[:, 1:]) / np.abs(m[:, :1]))
                 parts.append((rel - data[1:]) / self.flux_floor_mag)
         return parts
+
+    def arrival_times(self, params: np.ndarray, fermat) -> np.ndarray:
+        """Arrival times (days, per-family zero) of the timing columns, (P, n_columns).
+
+        t = (D_dt/c) τ at the reference cosmology, times (H_ref/H0)(1 − κ_ext).
+        """
+        params = np.atleast_2d(params)
+        scale = self.delay_scale(params)
+        index = {f.label: k for k, f in enumerate(self.families)}
+        cols = []
+        for fam_label, label in self.timing.columns:
+            k = index[fam_label]
+            fam = self.families[k]
+            j = fam.labels.index(label) if label in fam.labels else len(fam.labels) + self.tracked[k][0].index(label)
+            cols.append(fermat[k][:, j] * fam.days_per_arcsec2 * scale)
+        return np.stack(cols, axis=1)
 
     def information_jacobian(self, params: np.ndarray, preds=None) -> np.ndarray:
         """∂(normalised residuals)/∂(parameters) at the predicted images, (P, m, n).
@@ -368,7 +464,10 @@ class ImageLikelihood:
         need_derived = self.use_delays or self.use_fluxes
         jac_parts, fermat_pm, mu_pm = [], [], []
         for k, (fam, pred) in enumerate(zip(self.families, preds)):
-            x, y = pred["x"], pred["y"]                                    # (P, I)
+            n_obs = pred["x"].shape[1]
+            # observed images, then tracked predicted ones (timing rows may need them)
+            x = np.hstack([pred["x"], pred["track_x"]])                    # (P, I)
+            y = np.hstack([pred["y"], pred["track_y"]])
             xs = np.tile(x, (2 * n_par, 1))
             ys = np.tile(y, (2 * n_par, 1))
             with np.errstate(all="ignore"):
@@ -387,15 +486,19 @@ class ImageLikelihood:
                 det = a11 * a22 - a12 * a12
                 dxdp = (a22 * dax - a12 * day) / det                       # (n, P, I)
                 dydp = (a11 * day - a12 * dax) / det
-            jac_parts += [np.moveaxis(dxdp / fam.sigma, 0, -1), np.moveaxis(dydp / fam.sigma, 0, -1)]
+            jac_parts += [np.moveaxis(dxdp[..., :n_obs] / fam.sigma, 0, -1),
+                          np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1)]
             if need_derived:
                 moved_x = np.concatenate([x + h * dxdp, x - h * dxdp]).reshape(-1, x.shape[1])
                 moved_y = np.concatenate([y + h * dydp, y - h * dydp]).reshape(-1, x.shape[1])
                 bx = shifted[:, sl][:, :1]
                 by = shifted[:, sl][:, 1:]
                 with np.errstate(all="ignore"):
-                    fermat_pm.append(lens.fermat_potential(moved_x, moved_y, bx, by, fam.scale))
-                    mu_pm.append(lens.magnification(moved_x, moved_y, fam.scale))
+                    tau_pm = lens.fermat_potential(moved_x, moved_y, bx, by, fam.scale)
+                    mu_pm.append(lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], fam.scale))
+                exists = np.tile(np.isfinite(pred["track_fermat"]), (2 * n_par, 1))
+                tau_pm[:, n_obs:] = np.where(exists, tau_pm[:, n_obs:], np.nan)
+                fermat_pm.append(tau_pm)
         for i, (_, sig) in {**self.priors, **self.centre_prior}.items():
             row = np.zeros((n_rows, 1, n_par))
             row[:, 0, i] = 1.0 / sig

@@ -75,17 +75,27 @@ def fit_text(res: dict) -> str:
     return "\n".join(lines)
 
 
-def budget_text(budget: dict) -> str:
-    """The uncertainty budget as a table: 1-σ days and percent of the variance."""
-    from .budget import TERMS
+def _budget_cell(term: dict) -> str:
+    """``"  1.23 (  45%)"``; a term below 0.005 d shows as 0 (no "-0.00")."""
+    sigma = term["sigma_days"] if abs(term["sigma_days"]) >= 0.005 else 0.0
+    percent = term["percent"] if abs(term["percent"]) >= 0.5 else 0.0
+    return f"{sigma:8.2f} ({percent:4.0f}%)"
 
-    lines = ["Uncertainty budget of each image's date (1-sigma days, share of the variance):",
-             f"{'image':<8}" + "".join(f"{t[:14]:>16}" for t in TERMS)]
+
+def budget_text(budget: dict) -> str:
+    """The uncertainty budget as a table: signed 1-σ days and percent of the date variance."""
+    from .budget import SAMPLED_TERMS
+
+    terms = SAMPLED_TERMS + ("remainder",)
+    lines = ["Uncertainty budget of each image's date (signed 1-sigma days, share of the variance;",
+             "after any update; negative: sources the measurements tied together):",
+             f"{'image':<8}" + "".join(f"{t[:14]:>16}" for t in terms) + f"{'total sigma':>13}"]
     for row in budget["images"]:
-        cells = "".join(f"{row['date'][t]['sigma_days']:8.2f} ({row['date'][t]['percent']:4.1f}%)"
-                        for t in TERMS)
-        lines.append(f"{row['family'] + '/' + row['label']:<8}{cells}")
+        cells = "".join(_budget_cell(row["date"][t]) for t in terms)
+        lines.append(f"{row['family'] + '/' + row['label']:<8}{cells}{row['date_sigma_days']:13.2f}")
     a = budget["assumptions"]
-    lines.append(f"(lens velocity sigma {a['peculiar_velocity_sigma_kms']:g} km/s; Omega_m sigma "
-                 f"{a['Omega_m_sigma']:g}; first-order split)")
+    extra = ", ".join(f"{r['family']}/{r['label']} {r['date']['Omega_m']['sigma_days']:.2f} d and "
+                      f"{r['date']['peculiar velocity']['sigma_days']:.2f} d" for r in budget["images"])
+    lines.append(f"Not in the windows (first order): Omega_m (sigma {a['Omega_m_sigma']:g}) and the lens "
+                 f"velocity (sigma {a['peculiar_velocity_sigma_kms']:g} km/s): {extra}")
     return "\n".join(lines)
