@@ -104,6 +104,7 @@ def forecast_json(res: dict) -> dict:
         "site": None if res["site"] is None else vars(res["site"]) | {
             "solar_elongation": list(res["site"].solar_elongation)},
         "statuses": STATUS_MEANINGS,
+        "notes": res.get("notes", []),
         "cautions": CAUTION,
         "provenance": res["provenance"],
     }
@@ -312,6 +313,8 @@ def forecast_text(res: dict) -> str:
             ob = im["observability"]
             lines.append(f"SKY {im['family']}/{im['label']}: {ob['observable_days_in_95']} of "
                          f"{ob['days_in_95']} days in the 95% window are observable from the site")
+    for n in res.get("notes", []):
+        lines.append(f"NOTE: {n}")
     for label, notes in zip(res["model_labels"], res["model_notes"]):
         for n in notes:
             lines.append(f"NOTE [{label}]: {n}")

@@ -251,6 +251,10 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
         for im in images:
             _observability(im, calendar, tr, now)
     cosmology = scenarios[0].cosmology
+    notes = []
+    if now < tr.date:
+        notes.append(f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
+                     "statuses are judged as of now")
     timing_doc = {
         "sightings": [{"family": s.family, "image": s.label, "date": s.date.isot[:19] + "Z",
                        "sigma_days": s.sigma_days,
@@ -270,7 +274,7 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
         "scenario": sc0, "settings": settings, "site": site, "images": images,
         "model_labels": [f.model_label for f in fits], "fits": fits, "chains": chains,
         "model_weights": w_model, "model_weights_positions": w_prior, "updates": updates,
-        "model_notes": notes_per_model, "timing": timing_doc,
+        "model_notes": notes_per_model, "timing": timing_doc, "notes": notes,
         "calendar": calendar, "now": now, "cosmology": cosmology,
         "h0_used": (settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
         "provenance": provenance(inputs, cosmology, seed),
