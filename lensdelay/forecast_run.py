@@ -215,15 +215,15 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
         if not np.all(prior_samples.valid):
             notes.append(f"the reference image {tr.seen_in} is missing in "
                          f"{100 * np.mean(~prior_samples.valid):.1f}% of samples; those samples are dropped")
-        if timing_notes and timing is None and sightings:
-            update, good = TimingUpdate("none", np.zeros(n), 0.0, -np.inf), True
+        if timing is None and sightings:
+            # this model lacks an image that was seen: the data are impossible under it
+            samples, update = prior_samples, TimingUpdate("none", np.zeros(n), 0.0, -np.inf)
         else:
-            update, good = importance_update(prior_samples, timing, settings.min_ess_fraction)
-        samples = prior_samples
-        if not good:
-            samples, update, chain2 = _resample(sc, like, result, chain, tracks, timing, update, settings,
-                                                walkers, steps, seed, rng, progress, prior)
-            chains.append(chain2)
+            samples, update, chain2 = condition_on_timing(sc, like, chain, tracks, timing, prior_samples,
+                                                          settings, walkers=walkers, steps=steps, seed=seed,
+                                                          rng=rng, progress=progress, prior=prior)
+            if chain2 is not None:
+                chains.append(chain2)
         t0 = _draw_t0(timing, samples, tr, rng)
         models.append((samples, t0))
         prior_t0 = tr.date_sigma_days * rng.standard_normal(n)
@@ -233,6 +233,9 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
         chains.append(chain)
         notes_per_model.append(notes + update.notes)
         timings.append(timing)
+    if not any(np.isfinite(u_.log_evidence) for u_ in updates):
+        raise InputError("the sightings and measured delays must be possible under at least one model "
+                         "(each names images the model has), got none", scenario_path)
     w_model = model_weights([f.bic for f in fits], [u_.log_evidence for u_ in updates], settings.weighting)
     w_prior = model_weights([f.bic for f in fits], np.zeros(len(fits)), settings.weighting)
     tension_rows = _tensions(timings, prior_models, w_prior, rng)
@@ -290,7 +293,23 @@ def _draw_t0(timing, samples, tr, rng) -> np.ndarray:
     return np.where(np.isfinite(t0), t0, np.nan)
 
 
-def _resample(sc, like, result, chain, tracks, timing, update, settings, walkers, steps, seed, rng,
+def condition_on_timing(sc, like, chain, tracks, timing, prior_samples, settings, *, walkers, steps, seed,
+                        rng, progress=False, prior="flat"):
+    """Condition one model's forecast samples on the timing data.
+
+    Importance weights when they leave at least ``settings.min_ess_fraction`` of the
+    samples effective; otherwise the joint posterior (positions and timing, H0 and
+    κ_ext free with their priors) is sampled again. Returns the samples, the update
+    and the new chain (None when re-weighting sufficed).
+    """
+    update, good = importance_update(prior_samples, timing, settings.min_ess_fraction)
+    if good:
+        return prior_samples, update, None
+    return _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps, seed, rng,
+                     progress, prior)
+
+
+def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps, seed, rng,
               progress, prior):
     """Sample the joint posterior of lens, H0, κ_ext given positions and timing data."""
     st = settings
