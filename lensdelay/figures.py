@@ -152,6 +152,16 @@ def timeline_figure(res):
                 label="68% window" if row == 0 else None)
         ax.plot(to_num(q["median"]), row, "o", color="w", mec="k", ms=5,
                 label="median" if row == 0 else None)
+    rows = {im["label"]: row for row, im in enumerate(images)}
+    first = True
+    for s in res["settings"].sightings:
+        if s.label in rows:
+            off = (s.date - base).to_value("day")
+            ax.errorbar([to_num(off)], [rows[s.label] + 0.25],
+                        xerr=[[to_num(off) - to_num(off - s.sigma_days)], [to_num(off + s.sigma_days) - to_num(off)]],
+                        fmt="D", color="tab:orange", mec="k", ms=5, capsize=2,
+                        label="sighting ± 1σ" if first else None)
+            first = False
     ax.axvline(to_num(0.0), color="tab:red", lw=1.2, label=f"detection {tr.date.isot[:10]}")
     now = (res["now"] - base).to_value("day")
     if lo - pad <= now <= hi + pad:
