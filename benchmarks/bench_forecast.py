@@ -20,7 +20,7 @@ def main():
     import lensdelay.forecast_run as fr
 
     marks = {}
-    original_sample, original_model = fr.sample, fr.model_forecast
+    original_sample, original_model = fr.sample, fr.solve_samples
 
     def timed(name, fn):
         def wrapper(*a, **k):
@@ -31,7 +31,7 @@ def main():
         return wrapper
 
     fr.sample = timed("posterior (emcee 32x2000)", original_sample)
-    fr.model_forecast = timed("images+delays for all samples", original_model)
+    fr.solve_samples = timed("images+delays for all samples", original_model)
     fr.build_calendar = timed("observability calendar", fr.build_calendar)
     t0 = time.perf_counter()
     res = fr.run_forecast("scenarios/vellmar_quad.toml", n_samples=100_000, progress=False)
@@ -53,8 +53,19 @@ def main():
         print(f"  {k}: {v:.2f} s")
     print(f"  fit and the rest: {fit_time:.2f} s;  outputs and figures: {t_out:.2f} s")
 
+    fr.sample, fr.solve_samples = original_sample, original_model
+    # the update routes, timed end to end (1e5 samples): a sighting that agrees with the
+    # prediction (importance weights) and one 12 sigma away (a new joint posterior sample)
+    for label, seen in (("sighting that agrees (re-weighting)", "C=2026-12-01T00:00±1"),
+                        ("sighting 12 sigma away (resampling)", "D=2027-01-15±1.5")):
+        t0 = time.perf_counter()
+        upd = fr.run_forecast("scenarios/vellmar_quad.toml", n_samples=100_000, progress=False, seen=[seen])
+        route = upd["timing"]["models"][0]
+        print(f"forecast with a {label}: {time.perf_counter() - t0:.1f} s, route {route['route']}, "
+              f"{route['effective_samples']:.0f} effective samples")
+
     # vectorised per-sample solve vs a loop over samples
-    like_model = res["models"][0]
+    from lensdelay.forecast import image_tracks
     from lensdelay.loading import load_scenario
     from lensdelay.likelihood import ImageLikelihood
 
@@ -63,8 +74,9 @@ def main():
     chain = res["chains"][0].samples()
     rows = chain[np.random.default_rng(0).integers(0, len(chain), 2000)]
     fam = like.families[0]
-    starts_x = np.array([im.x[0] for im in like_model.images])
-    starts_y = np.array([im.y[0] for im in like_model.images])
+    tracks, _ = image_tracks(like, res["fits"][0].values, "sn")
+    starts_x = np.array([t.x for t in tracks])
+    starts_y = np.array([t.y for t in tracks])
     t0 = time.perf_counter()
     lens = like.lens_for(rows)
     newton_polish(lens, np.broadcast_to(starts_x, (len(rows), 4)), np.broadcast_to(starts_y, (len(rows), 4)),

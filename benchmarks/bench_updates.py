@@ -36,7 +36,8 @@ from lensdelay.posterior import sample  # noqa: E402
 from lensdelay.scenario import parse_scenario  # noqa: E402
 from lensdelay.simulate import simulate_family  # noqa: E402
 from lensdelay.summaries import weighted_quantiles  # noqa: E402
-from lensdelay.timing import DelayRow, SightingRow, TimingData  # noqa: E402
+from lensdelay.scenario import MeasuredDelay  # noqa: E402
+from lensdelay.timing import SightingRow, TimingData  # noqa: E402
 
 DETECTION_SIGMA = 1.5
 H0_PRIOR = (70.0, 5.0)
@@ -54,7 +55,7 @@ def quad_scenario(rng):
 
 
 def update_calibration(draws: int = 200, n_samples: int = 4000, seed: int = 7, steps: int = 1500,
-                       verbose: bool = False) -> dict:
+                       verbose: bool = False, sigmas=(0.1, 1.0)) -> dict:
     """Coverage of the 68%/95% date windows after an update, over ``draws`` truths."""
     warnings.simplefilter("ignore", LensdelayWarning)
     rng = np.random.default_rng(seed)
@@ -71,7 +72,7 @@ def update_calibration(draws: int = 200, n_samples: int = 4000, seed: int = 7, s
     prior_draws = pool[rng.integers(0, len(pool), n_samples)]
     prior = solve_samples(like, prior_draws, tracks, "A",
                           rng.normal(*H0_PRIOR, n_samples), rng.normal(*KAPPA_PRIOR, n_samples))
-    hits68, hits95, routes = [], [], []
+    hits68, hits95, routes, by_route = [], [], [], {}
     start = time.perf_counter()
     k = 0
     while len(routes) < draws:
@@ -83,11 +84,11 @@ def update_calibration(draws: int = 200, n_samples: int = 4000, seed: int = 7, s
             continue
         t0 = rng.normal(0.0, DETECTION_SIGMA)
         delay = truth.delay[0]
-        sigma = 0.1 if len(routes) % 2 == 0 else 1.0
+        sigma = sigmas[len(routes) % len(sigmas)]
         i = {lab: labels.index(lab) for lab in "ABCD"}
         measured_delay = delay[i["D"]] - delay[i["C"]] + rng.normal(0, sigma)
         sighting = t0 + delay[i["B"]] + rng.normal(0, sigma)
-        timing = TimingData([(t.family, t.label) for t in tracks], [DelayRow("s", "D", "C", measured_delay, sigma)],
+        timing = TimingData([(t.family, t.label) for t in tracks], [MeasuredDelay("s", "D", "C", measured_delay, sigma)],
                             [SightingRow("s", "B", sighting, sigma)], DETECTION_SIGMA, ("s", "A"))
         samples, update, _ = condition_on_timing(sc, like, chain, tracks, timing, prior, settings, walkers=32,
                                                  steps=steps, seed=seed + k, rng=rng)
@@ -100,6 +101,7 @@ def update_calibration(draws: int = 200, n_samples: int = 4000, seed: int = 7, s
             true_date = t0 + delay[col]
             hits68.append(q[1] <= true_date <= q[2])
             hits95.append(q[0] <= true_date <= q[3])
+            by_route.setdefault(update.route, []).append((hits68[-1], hits95[-1]))
         routes.append(update.route)
         if verbose and len(routes) % 20 == 0:
             print(f"  {len(routes)} draws: 68% {np.mean(hits68):.3f}, 95% {np.mean(hits95):.3f} "
@@ -107,6 +109,8 @@ def update_calibration(draws: int = 200, n_samples: int = 4000, seed: int = 7, s
     return {"draws": draws, "windows": len(hits68), "coverage68": float(np.mean(hits68)),
             "coverage95": float(np.mean(hits95)),
             "routes": {r: routes.count(r) for r in sorted(set(routes))},
+            "coverage_by_route": {r: (float(np.mean([h[0] for h in v])), float(np.mean([h[1] for h in v])))
+                                  for r, v in by_route.items()},
             "seconds": time.perf_counter() - start}
 
 
@@ -115,12 +119,17 @@ def main():
     ap.add_argument("--draws", type=int, default=200, help="number of simulated truths")
     ap.add_argument("--samples", type=int, default=4000, help="forecast samples per update")
     ap.add_argument("--seed", type=int, default=7, help="seed of the whole run")
+    ap.add_argument("--sigmas", default="0.1,1.0",
+                    help="measurement errors (days) used in turn, comma separated (default 0.1,1.0)")
     args = ap.parse_args()
-    out = update_calibration(args.draws, args.samples, args.seed, verbose=True)
+    out = update_calibration(args.draws, args.samples, args.seed, verbose=True,
+                             sigmas=tuple(float(v) for v in args.sigmas.split(",")))
     print(f"update calibration over {out['draws']} draws ({out['windows']} date windows of A, C, D): "
           f"68% windows hold the truth {100 * out['coverage68']:.1f}%, 95% windows "
           f"{100 * out['coverage95']:.1f}% (goal 68 ± 7, 95 ± 4); routes {out['routes']}; "
           f"{out['seconds'] / 60:.1f} min")
+    for route, (c68, c95) in out["coverage_by_route"].items():
+        print(f"  route {route}: 68% {100 * c68:.1f}%, 95% {100 * c95:.1f}%")
 
 
 if __name__ == "__main__":

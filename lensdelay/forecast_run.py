@@ -29,7 +29,7 @@ from .posterior import sample
 from .scenario import Site, parse_date
 from .schedule import build_calendar
 from .summaries import quantile_summary, weighted_quantiles
-from .timing import DelayRow, SightingRow, TimingData, tensions_from_draws
+from .timing import SightingRow, TimingData, tensions_from_draws
 
 #: A sighting's 1-σ date error when none is given and the detection has none either, days.
 DEFAULT_SIGHTING_SIGMA_DAYS = 1.0
@@ -117,7 +117,7 @@ def _timing_for(scenario, tracks, sightings, label_map) -> tuple[TimingData | No
             notes.append(f"the measured delay {d.family}/{d.image} - {d.relative_to} is of another "
                          "family than the transient's; the forecast does not use it")
             continue
-        delays.append(DelayRow(d.family, d.image, d.relative_to, d.days, d.sigma))
+        delays.append(d)
     rows = []
     for s in sightings:
         label = label_map.get(s.label)

@@ -113,11 +113,10 @@ class ImageLikelihood:
                 np.array([im.x for im in fam.images]), np.array([im.y for im in fam.images]),
                 np.array([im.sigma for im in fam.images]), fam.labels))
         if timing is None and use_delays and scenario.delays:
-            from .timing import DelayRow, TimingData
+            from .timing import TimingData
 
             timing = TimingData([(f.label, lab) for f in scenario.families for lab in f.labels],
-                                [DelayRow(d.family, d.image, d.relative_to, d.days, d.sigma)
-                                 for d in scenario.delays])
+                                list(scenario.delays))
         self.timing = timing
         self.use_delays = timing is not None
         tracked = tracked or {}

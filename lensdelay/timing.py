@@ -36,17 +36,6 @@ from .errors import InputError
 
 
 @dataclass(frozen=True)
-class DelayRow:
-    """Δt_image − Δt_relative_to measured as ``days`` ± ``sigma`` (days)."""
-
-    family: str
-    image: str
-    relative_to: str
-    days: float
-    sigma: float
-
-
-@dataclass(frozen=True)
 class SightingRow:
     """Image ``image`` showed the event ``days`` after the detection date, ± ``sigma`` days."""
 
@@ -63,7 +52,7 @@ class TimingData:
     ----------
     columns : sequence of (family, label)
         The images whose arrival times the caller will supply, in this order.
-    delays : sequence of DelayRow
+    delays : sequence of lensdelay.scenario.MeasuredDelay
     sightings : sequence of SightingRow
         All of the transient's family; ``days`` counted from the detection date.
     detection_sigma_days : float

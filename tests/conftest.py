@@ -6,3 +6,26 @@ import pytest
 def rng():
     """Explicit, seeded randomness for every test that needs it."""
     return np.random.default_rng(20261202)
+
+
+def numerical_jacobian(residuals, values, relative_step=1e-4):
+    """Central differences of ``residuals(values) -> (1, m)`` in every parameter, (m, n).
+
+    The step is larger than an analytic Jacobian's: each brute-force residual carries the
+    Newton tolerance (~1e-8 in sigma), which a tiny step would amplify.
+    """
+    values = np.asarray(values, dtype=float)
+    columns = []
+    for k in range(len(values)):
+        h = relative_step * max(1.0, abs(values[k]))
+        up, down = values.copy(), values.copy()
+        up[k] += h
+        down[k] -= h
+        columns.append((residuals(up)[0] - residuals(down)[0]) / (2 * h))
+    return np.stack(columns, axis=1)
+
+
+@pytest.fixture
+def brute_jacobian():
+    """:func:`numerical_jacobian`, for tests that check an analytic Jacobian."""
+    return numerical_jacobian
