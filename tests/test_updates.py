@@ -373,3 +373,17 @@ def test_every_option_has_help():
             if action.dest == "help":
                 continue
             assert action.help, f"{name} {action.option_strings or action.dest} has no help"
+
+
+@pytest.mark.parametrize("args, message", [
+    (["--now", "yesterday"], "--now must be an ISO 8601 date"),
+    (["--seen", "B"], "--seen must be [FAMILY/]LABEL=DATE[±SIGMA]"),
+    (["--seen", "B=2027-01-20±0"], "--seen q/B sigma must be > 0 days"),
+])
+def test_bad_update_arguments_exit_2_with_one_line(tmp_path, capsys, args, message):
+    path = _double(tmp_path, 1.0)
+    out = tmp_path / "out"
+    assert main(["forecast", str(path), "--out", str(out), "--quiet", *args]) == 2
+    err = capsys.readouterr().err
+    assert message in err and err.count("\n") == 1
+    assert not out.exists()
