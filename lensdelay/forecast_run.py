@@ -325,7 +325,7 @@ def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps,
         # judged by the autocorrelation time of the positions-only chain
         tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else 50.0
         want = st.min_ess_fraction * st.n_samples
-        needed = int(np.ceil(1.25 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(2 * tau)
+        needed = int(np.ceil(1.5 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(2 * tau)
         n_steps = int(min(max(steps, needed), 50_000))
         jchain = sample(joint, jres.values, walkers=walkers, steps=n_steps, seed=int(rng.integers(2 ** 31)),
                         progress=progress, scales=jres.errors)
