@@ -11,10 +11,10 @@ from astropy import units as u
 from astropy.cosmology import FlatLambdaCDM
 from scipy import optimize
 
-from lensdelay.cosmology import DelayDistanceTable, LensDistances
-from lensdelay.images import ImageFinder
-from lensdelay.lens import Lens
-from lensdelay.profiles import ExternalShear, IsothermalEllipsoid
+from lensdelay.lensing.distances import DelayDistanceTable, LensDistances
+from lensdelay.lensing.images import ImageFinder
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
 
 
 def best_of(fn, repeat=3):

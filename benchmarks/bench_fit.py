@@ -14,14 +14,14 @@ import warnings
 import numpy as np
 
 from lensdelay.errors import LensdelayWarning
-from lensdelay.fit import fit, observed_delays
-from lensdelay.images import find_images
-from lensdelay.lens import Lens
-from lensdelay.likelihood import ImageLikelihood
-from lensdelay.posterior import sample
-from lensdelay.profiles import ExternalShear, IsothermalEllipsoid
-from lensdelay.scenario import parse_scenario
-from lensdelay.simulate import simulate_family
+from lensdelay.inference.fit import fit, observed_delays
+from lensdelay.lensing.images import find_images
+from lensdelay.lensing.lens import Lens
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.sampling import sample
+from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
+from lensdelay.model.scenario import parse_scenario
+from lensdelay.model.simulate import simulate_family
 
 TRUTH = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
               ExternalShear(strength=0.05, position_angle=-40.0)))
@@ -45,7 +45,8 @@ def system(rng):
 
 def two_family_system(rng):
     """The same lens with a second source at z = 3: 16 position constraints for 11 parameters."""
-    from lensdelay.cosmology import DEFAULT_COSMOLOGY, LensDistances
+    from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
+    from lensdelay.lensing.distances import LensDistances
 
     scale2 = LensDistances(DEFAULT_COSMOLOGY, 0.4, 1.5).deflection_scale(3.0)
     f1 = simulate_family(TRUTH, *SOURCE, label="s", redshift=1.5, sigma=0.003, rng=rng)

@@ -10,14 +10,14 @@ import warnings
 import numpy as np
 
 from lensdelay.errors import LensdelayWarning
-from lensdelay.figures import timeline_figure
-from lensdelay.forecast_outputs import forecast_ics, forecast_json, forecast_table, table_text
-from lensdelay.images import newton_polish
+from lensdelay.report.figures import timeline_figure
+from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
+from lensdelay.lensing.images import newton_polish
 
 
 def main():
     warnings.simplefilter("ignore", LensdelayWarning)
-    import lensdelay.forecast_run as fr
+    import lensdelay.forecast.pipeline as fr
 
     marks = {}
     original_sample, original_model = fr.sample, fr.solve_samples
@@ -65,9 +65,9 @@ def main():
               f"{route['effective_samples']:.0f} effective samples")
 
     # vectorised per-sample solve vs a loop over samples
-    from lensdelay.forecast import image_tracks
-    from lensdelay.loading import load_scenario
-    from lensdelay.likelihood import ImageLikelihood
+    from lensdelay.forecast.samples import image_tracks
+    from lensdelay.io.reading import load_scenario
+    from lensdelay.inference.likelihood import ImageLikelihood
 
     sc, _ = load_scenario("scenarios/vellmar_quad.toml")
     like = ImageLikelihood(sc, sc.model)

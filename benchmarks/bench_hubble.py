@@ -10,11 +10,11 @@ import warnings
 import numpy as np
 
 from lensdelay.errors import LensdelayWarning
-from lensdelay.fit import fit
-from lensdelay.hubble import h0_posterior, kappa_comparison
-from lensdelay.likelihood import ImageLikelihood
-from lensdelay.loading import load_scenario
-from lensdelay.posterior import sample
+from lensdelay.inference.fit import fit
+from lensdelay.hubble.analysis import h0_posterior, kappa_comparison
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.io.reading import load_scenario
+from lensdelay.inference.sampling import sample
 
 
 def main():

@@ -28,16 +28,16 @@ sys.path.insert(0, str(Path(__file__).parent))
 import bench_fit  # noqa: E402  (the calibration quad)
 
 from lensdelay.errors import LensdelayWarning  # noqa: E402
-from lensdelay.fit import fit  # noqa: E402
-from lensdelay.forecast import ForecastSettings, image_tracks, solve_samples  # noqa: E402
-from lensdelay.forecast_run import condition_on_timing  # noqa: E402
-from lensdelay.likelihood import ImageLikelihood  # noqa: E402
-from lensdelay.posterior import sample  # noqa: E402
-from lensdelay.scenario import parse_scenario  # noqa: E402
-from lensdelay.simulate import simulate_family  # noqa: E402
-from lensdelay.summaries import weighted_quantiles  # noqa: E402
-from lensdelay.scenario import MeasuredDelay  # noqa: E402
-from lensdelay.timing import SightingRow, TimingData  # noqa: E402
+from lensdelay.inference.fit import fit  # noqa: E402
+from lensdelay.forecast.samples import ForecastSettings, image_tracks, solve_samples  # noqa: E402
+from lensdelay.forecast.pipeline import condition_on_timing  # noqa: E402
+from lensdelay.inference.likelihood import ImageLikelihood  # noqa: E402
+from lensdelay.inference.sampling import sample  # noqa: E402
+from lensdelay.model.scenario import parse_scenario  # noqa: E402
+from lensdelay.model.simulate import simulate_family  # noqa: E402
+from lensdelay.inference.summaries import weighted_quantiles  # noqa: E402
+from lensdelay.model.scenario import MeasuredDelay  # noqa: E402
+from lensdelay.inference.timing import SightingRow, TimingData  # noqa: E402
 
 DETECTION_SIGMA = 1.5
 H0_PRIOR = (70.0, 5.0)

@@ -1,5 +1,5 @@
 import sys
 
-from .cli import main
+from lensdelay.cli.main import main
 
 sys.exit(main())

@@ -9,11 +9,12 @@ import sys
 
 import numpy as np
 
-from lensdelay.cosmology import DEFAULT_COSMOLOGY, LensDistances
-from lensdelay.lens import Lens
-from lensdelay.profiles import ExternalShear, IsothermalEllipsoid, NFWHalo, SingularIsothermalSphere
-from lensdelay.simulate import simulate_family, to_toml
-from lensdelay.storage import atomic_write_text
+from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
+from lensdelay.lensing.distances import LensDistances
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid, NFWHalo, SingularIsothermalSphere
+from lensdelay.model.simulate import simulate_family, to_toml
+from lensdelay.io.storage import atomic_write_text
 
 
 def write(name, header, doc):
@@ -47,7 +48,7 @@ def main():
                  ExternalShear(strength=0.04, position_angle=60.0)))
     fam = simulate_family(lens, 0.21, -0.13, label="qso", redshift=2.05, sigma=0.003, rng=rng)
     dist = LensDistances(DEFAULT_COSMOLOGY, 0.36, 2.05)
-    from lensdelay.images import find_images
+    from lensdelay.lensing.images import find_images
 
     t = find_images(lens, [0.21], [-0.13])
     true_delay = float((t.fermat[1] - t.fermat[0]) * dist.days_per_arcsec2(2.05))

@@ -8,7 +8,7 @@ import pathlib
 
 import pytest
 
-from lensdelay.cli import main
+from lensdelay.cli.main import main
 
 HERE = pathlib.Path(__file__).parent / "bad_inputs"
 CASES = sorted(HERE.glob("*.toml"))

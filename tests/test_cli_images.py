@@ -3,7 +3,7 @@ import json
 
 import pytest
 
-from lensdelay.cli import main
+from lensdelay.cli.main import main
 
 GOOD = """
 [lens]
@@ -30,7 +30,7 @@ def test_images_json_sis(tmp_path, capsys):
     res = json.loads(out)
     xs = sorted(im["x"] for im in res["images"])
     assert xs == pytest.approx([-0.8, 1.2])
-    from lensdelay.cosmology import DAYS_PER_MPC_ARCSEC2
+    from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2
     later = max(im["delay_days"] for im in res["images"])
     assert later == pytest.approx(res["time_delay_distance_Mpc"] * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.2, rel=1e-8)
 

@@ -5,10 +5,8 @@ from astropy import constants as const
 from astropy import units as u
 from astropy.cosmology import FlatLambdaCDM, Planck18, z_at_value
 
-from lensdelay.cosmology import (
-    DAYS_PER_MPC_ARCSEC2, DEFAULT_COSMOLOGY, DelayDistanceTable, LensDistances,
-    cosmology_from_spec, time_dilation,
-)
+from lensdelay.model.cosmology import DEFAULT_COSMOLOGY, cosmology_from_spec
+from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2, DelayDistanceTable, LensDistances, time_dilation
 from lensdelay.errors import InputError
 
 C_KMS = const.c.to_value(u.km / u.s)

@@ -8,11 +8,11 @@ import time
 import numpy as np
 import pytest
 
-from lensdelay.images import find_images
-from lensdelay.lens import Lens
-from lensdelay.profiles import IsothermalEllipsoid, NFWHalo
-from lensdelay.critical import critical_lines
-from lensdelay.storage import atomic_write_json, load_npz
+from lensdelay.lensing.images import find_images
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import IsothermalEllipsoid, NFWHalo
+from lensdelay.lensing.critical import critical_lines
+from lensdelay.io.storage import atomic_write_json, load_npz
 
 DOUBLE = """
 [lens]

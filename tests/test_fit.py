@@ -5,14 +5,15 @@ import numpy as np
 import pytest
 
 from lensdelay.errors import InputError, LensdelayWarning
-from lensdelay.fit import delay_errors, fit, observed_delays
-from lensdelay.lens import Lens
-from lensdelay.likelihood import ImageLikelihood
-from lensdelay.posterior import sample
-from lensdelay.profiles import EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, SingularIsothermalSphere
-from lensdelay.scenario import parse_scenario
-from lensdelay.simulate import simulate_family
-from lensdelay.cosmology import DEFAULT_COSMOLOGY, LensDistances
+from lensdelay.inference.fit import delay_errors, fit, observed_delays
+from lensdelay.lensing.lens import Lens
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.sampling import sample
+from lensdelay.lensing.profiles import EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, SingularIsothermalSphere
+from lensdelay.model.scenario import parse_scenario
+from lensdelay.model.simulate import simulate_family
+from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
+from lensdelay.lensing.distances import LensDistances
 
 SIE_SHEAR = [
     {"profile": "SIE", "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0},

@@ -8,16 +8,17 @@ from astropy import units as u
 from astropy.coordinates import AltAz, EarthLocation, SkyCoord, get_sun
 from astropy.time import Time
 
-from lensdelay.cli import main
-from lensdelay.cosmology import DAYS_PER_MPC_ARCSEC2, DEFAULT_COSMOLOGY, LensDistances
+from lensdelay.cli.main import main
+from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
+from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2, LensDistances
 from lensdelay.errors import LensdelayWarning
-from lensdelay.forecast_run import run_forecast
-from lensdelay.images import find_images
-from lensdelay.lens import Lens
-from lensdelay.profiles import ExternalShear, IsothermalEllipsoid
-from lensdelay.scenario import Site, parse_date
-from lensdelay.schedule import altitudes, build_calendar
-from lensdelay.simulate import simulate_family, to_toml
+from lensdelay.forecast.pipeline import run_forecast
+from lensdelay.lensing.images import find_images
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
+from lensdelay.model.scenario import Site, parse_date
+from lensdelay.forecast.observability import altitudes, build_calendar
+from lensdelay.model.simulate import simulate_family, to_toml
 
 FAST = dict(walkers=20, steps=300, n_samples=4000, progress=False)
 QUAD_TRUTH = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
@@ -98,7 +99,7 @@ def test_sis_end_to_end_date_is_detection_plus_closed_form_delay(tmp_path):
     expected = d_dt * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.25
     b = next(im for im in res["images"] if im["label"] == "B")
     assert b["delay_days"]["median"] == pytest.approx(expected, rel=1e-4)
-    from lensdelay.forecast_outputs import forecast_json
+    from lensdelay.io.forecast_files import forecast_json
 
     written = next(im for im in forecast_json(res)["images"] if im["label"] == "B")["date"]["median"]
     true_date = Time("2027-01-10", scale="utc") + expected * u.day       # astropy Time arithmetic

@@ -6,14 +6,15 @@ import pytest
 from astropy import units as u
 from astropy.cosmology import FlatLambdaCDM
 
-from lensdelay.budget import ddt_log_derivatives
-from lensdelay.cosmology import DAYS_PER_MPC_ARCSEC2, DEFAULT_COSMOLOGY, LensDistances, time_dilation
+from lensdelay.forecast.budget import ddt_log_derivatives
+from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
+from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2, LensDistances, time_dilation
 from lensdelay.errors import LensdelayWarning
-from lensdelay.hubble_cli import run_hubble
-from lensdelay.images import find_images
-from lensdelay.lens import Lens
-from lensdelay.profiles import ExternalShear, IsothermalEllipsoid, MassSheet, SingularIsothermalSphere
-from lensdelay.simulate import simulate_family, to_toml
+from lensdelay.cli.hubble import run_hubble
+from lensdelay.lensing.images import find_images
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid, MassSheet, SingularIsothermalSphere
+from lensdelay.model.simulate import simulate_family, to_toml
 
 
 @pytest.mark.parametrize("h0", [55.0, 67.4, 82.0])
@@ -116,7 +117,7 @@ def test_peculiar_velocity_terms_are_small():
 ])
 def test_hubble_bad_arguments(argv, message, tmp_path, capsys):
     """κ_ext ≥ 1 (a sheet that would flip every delay) and a negative sigma are refused (issue 5)."""
-    from lensdelay.cli import main
+    from lensdelay.cli.main import main
 
     path, _ = _double_scenario(tmp_path)
     out = tmp_path / "out"

@@ -2,12 +2,12 @@
 import numpy as np
 import pytest
 
-from lensdelay.cosmology import DAYS_PER_MPC_ARCSEC2
-from lensdelay.critical import critical_lines
-from lensdelay.delays import delays_relative_to, fermat_to_days
-from lensdelay.images import ImageFinder, find_images, newton_polish
-from lensdelay.lens import Lens
-from lensdelay.profiles import (
+from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2
+from lensdelay.lensing.critical import critical_lines
+from lensdelay.lensing.delays import delays_relative_to, fermat_to_days
+from lensdelay.lensing.images import ImageFinder, find_images, newton_polish
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import (
     EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, NFWHalo, PointMass,
     SingularIsothermalSphere,
 )

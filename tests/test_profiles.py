@@ -6,8 +6,8 @@ import pytest
 from scipy import integrate
 
 from lensdelay.errors import InputError
-from lensdelay.lens import Lens
-from lensdelay.profiles import (
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import (
     EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, MassSheet, NFWHalo,
     PointMass, SingularIsothermalSphere,
 )
@@ -207,9 +207,9 @@ def test_one_pass_deflection_and_potential_agree(name):
 def test_blockwise_evaluation_matches_whole_arrays(rng):
     """Large coordinate arrays are evaluated in cache-sized blocks (lens.BLOCK_POINTS); the
     results equal those of one pass over the whole arrays, shape included (common practice)."""
-    from lensdelay import lens as lens_module
-    from lensdelay.lens import Lens
-    from lensdelay.profiles import EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, NFWHalo
+    from lensdelay.lensing import lens as lens_module
+    from lensdelay.lensing.lens import Lens
+    from lensdelay.lensing.profiles import EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, NFWHalo
 
     lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0, x=0.1),
                  EllipticalPowerLaw(einstein_radius=0.3, slope=2.2, axis_ratio=0.8, position_angle=-10.0),

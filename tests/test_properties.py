@@ -7,12 +7,12 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from lensdelay.delays import delays_relative_to
+from lensdelay.lensing.delays import delays_relative_to
 from lensdelay.errors import InputError
-from lensdelay.images import find_images
-from lensdelay.lens import Lens
-from lensdelay.profiles import ExternalShear, IsothermalEllipsoid
-from lensdelay.scenario import TOP_KEYS, parse_scenario
+from lensdelay.lensing.images import find_images
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
+from lensdelay.model.scenario import TOP_KEYS, parse_scenario
 
 FUZZ = int(os.environ.get("LENSDELAY_FUZZ_EXAMPLES", "300"))
 KEYS = list(TOP_KEYS) + ["label", "redshift", "image", "x", "y", "sigma", "date", "seen_in", "profile",

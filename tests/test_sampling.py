@@ -11,12 +11,12 @@ import warnings
 import numpy as np
 import pytest
 
-from lensdelay.coordinates import SampledTarget, SamplingCoordinates
+from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
 from lensdelay.errors import InputError, LensdelayWarning
-from lensdelay.fit import fit, observed_delays
-from lensdelay.likelihood import ImageLikelihood
-from lensdelay.posterior import sample
-from lensdelay.scenario import parse_scenario
+from lensdelay.inference.fit import fit, observed_delays
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.sampling import sample
+from lensdelay.model.scenario import parse_scenario
 
 sys.path.insert(0, str(pathlib.Path(__file__).parent.parent / "benchmarks"))
 import bench_fit  # noqa: E402  (the calibration systems, shared with the benchmark)
@@ -202,9 +202,9 @@ def test_rows_that_already_fit_exactly_keep_the_batch_shape():
     """A batch of identical rows whose images match the observed ones exactly (Newton has
     nothing to do) still gives one residual row per parameter row (regression: the joint
     H0 fit of an exactly constrained double failed on this)."""
-    from lensdelay.images import find_images
-    from lensdelay.lens import Lens
-    from lensdelay.profiles import ExternalShear, SingularIsothermalSphere
+    from lensdelay.lensing.images import find_images
+    from lensdelay.lensing.lens import Lens
+    from lensdelay.lensing.profiles import ExternalShear, SingularIsothermalSphere
 
     truth = Lens((SingularIsothermalSphere(einstein_radius=1.0), ExternalShear(strength=0.05, position_angle=30.0)))
     t = find_images(truth, [0.05], [0.02])

@@ -15,21 +15,22 @@ from astropy import units as u
 from astropy.time import Time
 from scipy import stats
 
-from lensdelay.budget import covariance_terms
-from lensdelay.cli import build_parser, main
-from lensdelay.cosmology import DEFAULT_COSMOLOGY, LensDistances
+from lensdelay.forecast.budget import covariance_terms
+from lensdelay.cli.main import build_parser, main
+from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
+from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, LensdelayWarning
-from lensdelay.fit import fit
-from lensdelay.forecast import image_tracks
-from lensdelay.forecast_outputs import day_of, forecast_text, median_day
-from lensdelay.forecast_run import _status, parse_sightings, run_forecast
-from lensdelay.lens import Lens
-from lensdelay.likelihood import ImageLikelihood
-from lensdelay.loading import load_scenario
-from lensdelay.profiles import ExternalShear, IsothermalEllipsoid
-from lensdelay.simulate import simulate_family, to_toml
-from lensdelay.scenario import MeasuredDelay as DelayRow
-from lensdelay.timing import SightingRow, TimingData
+from lensdelay.inference.fit import fit
+from lensdelay.forecast.samples import image_tracks
+from lensdelay.io.forecast_files import day_of, forecast_text, median_day
+from lensdelay.forecast.pipeline import _status, parse_sightings, run_forecast
+from lensdelay.lensing.lens import Lens
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.io.reading import load_scenario
+from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
+from lensdelay.model.simulate import simulate_family, to_toml
+from lensdelay.model.scenario import MeasuredDelay as DelayRow
+from lensdelay.inference.timing import SightingRow, TimingData
 
 FAST = dict(walkers=20, steps=300, n_samples=4000, progress=False)
 DETECTION = "2027-01-10"
@@ -301,7 +302,7 @@ def test_budget_model_family_term_in_a_two_model_forecast(tmp_path):
     path = _quad(tmp_path)
     res = _quiet_forecast(str(path), model_paths=["models/sie_shear.toml", "models/power_law_shear.toml"],
                           weighting="equal", now=Time("2027-03-02", scale="utc"), **FAST)
-    from lensdelay.budget import delay_budget
+    from lensdelay.forecast.budget import delay_budget
 
     budget = delay_budget(res)
     d = next(r for r in budget["images"] if r["label"] == "D")
@@ -348,7 +349,7 @@ def test_header_states_the_h0_used_and_json_has_mjd(tmp_path):
     path = _double(tmp_path, 1.0)
     res = _quiet_forecast(str(path), cosmology_name="Planck18", **FAST)
     assert "H0 = 67.66 km/s/Mpc (fixed, Planck18)" in forecast_text(res)
-    from lensdelay.forecast_outputs import forecast_json, forecast_table
+    from lensdelay.io.forecast_files import forecast_json, forecast_table
 
     doc = forecast_json(res)
     for im in doc["images"]:

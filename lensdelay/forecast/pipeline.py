@@ -1,0 +1,513 @@
+"""The forecast job: scenario → fits → posteriors → timing update → per-image dates.
+
+Reads inputs through :mod:`lensdelay.loading`; returns a plain result dictionary
+that :mod:`lensdelay.forecast_outputs` turns into files and text. The probability
+model is in :mod:`lensdelay.timing`; the per-sample physics in :mod:`lensdelay.forecast`.
+"""
+from __future__ import annotations
+
+import math
+import re
+import warnings
+from dataclasses import replace
+
+import numpy as np
+from astropy import units as u
+from astropy.time import Time
+
+from lensdelay.cli.commands import provenance
+from lensdelay.model.cosmology import cosmology_from_spec
+from lensdelay.errors import InputError, LensdelayWarning
+from lensdelay.inference.fit import fit
+from lensdelay.forecast.samples import (
+    AGREEMENT, ForecastSettings, ImageTrack, Sighting, TimingUpdate, draw_scale_priors, image_tracks,
+    importance_update, majority, match_tracks, model_weights, parity_name, solve_samples,
+)
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.io.reading import load_scenario
+from lensdelay.inference.sampling import sample
+from lensdelay.model.scenario import Site, parse_date
+from lensdelay.forecast.observability import build_calendar
+from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
+from lensdelay.inference.timing import SightingRow, TimingData, tensions_from_draws
+
+#: A sighting's 1-σ date error when none is given and the detection has none either, days.
+DEFAULT_SIGHTING_SIGMA_DAYS = 1.0
+_SIGHTING = re.compile(r"^(?:(?P<family>[^/=]+)/)?(?P<label>[^/=]+)=(?P<date>[^±]+?)"
+                       r"(?:(?:±|\+-|\+/-)(?P<sigma>[^±]+))?$")
+
+
+def default_sighting_sigma(transient) -> float:
+    """A sighting's default date error: the detection's own (the same light-curve
+    feature, measured the same way), or 1 day when the detection has none."""
+    return transient.date_sigma_days if transient.date_sigma_days > 0 else DEFAULT_SIGHTING_SIGMA_DAYS
+
+
+def parse_sightings(items, scenario) -> list[Sighting]:
+    """``--seen [FAMILY/]LABEL=DATE[±SIGMA]`` items (SIGMA in days; ``+-`` also accepted).
+
+    The label may name a predicted image (``X1``); it is checked once the images are
+    known. The family must be the transient's.
+    """
+    tr = scenario.transient
+    out = []
+    for item in items or []:
+        m = _SIGHTING.match(item.strip())
+        if not m:
+            raise InputError(f"--seen must be [FAMILY/]LABEL=DATE[±SIGMA] (e.g. sn/C=2027-03-04±1.5), "
+                             f"got {item!r}")
+        family = (m["family"] or tr.family).strip()
+        label = m["label"].strip()
+        if family != tr.family:
+            raise InputError(f"--seen family must be the transient's family {tr.family!r}, got {family!r}")
+        if label == tr.seen_in:
+            raise InputError(f"--seen image must differ from the image the transient was detected in "
+                             f"({tr.family}/{tr.seen_in}), got {label!r}")
+        if any(s.label == label for s in out):
+            raise InputError(f"--seen image must be given once, got {family}/{label} twice")
+        date = parse_date(m["date"].strip(), f"--seen {family}/{label}")
+        if m["sigma"] is not None:
+            try:
+                sigma = float(m["sigma"])
+            except ValueError as err:
+                raise InputError(f"--seen {family}/{label} sigma must be a number of days, "
+                                 f"got {m['sigma']!r}") from err
+            if not (math.isfinite(sigma) and sigma > 0):
+                raise InputError(f"--seen {family}/{label} sigma must be > 0 days, got {m['sigma']!r}")
+            out.append(Sighting(family, label, date, sigma, True))
+        else:
+            out.append(Sighting(family, label, date, default_sighting_sigma(tr), False))
+    return out
+
+
+def _resolve_sightings(sightings, tracks: list[ImageTrack], first_tracks: list[ImageTrack],
+                       match_radius: float = 0.15) -> dict:
+    """Map each sighting to a label of this model's tracks.
+
+    Observed images keep their labels; a predicted image is named by the first model
+    and found in the others by position (None where a model lacks it).
+    """
+    out = {}
+    for s in sightings:
+        named = [t for t in first_tracks if t.label == s.label]
+        if not named:
+            choices = ", ".join(f"{t.family}/{t.label}" for t in first_tracks)
+            raise InputError(f"--seen image must be one of the forecast's images ({choices}), "
+                             f"got {s.family}/{s.label}")
+        ref = named[0]
+        if ref.observed:
+            out[s.label] = s.label
+            continue
+        best, dist = None, match_radius
+        for t in tracks:
+            d = math.hypot(t.x - ref.x, t.y - ref.y)
+            if not t.observed and d < dist:
+                best, dist = t, d
+        out[s.label] = best.label if best is not None else None
+    return out
+
+
+def _timing_for(scenario, tracks, sightings, label_map) -> tuple[TimingData | None, list[str]]:
+    """The timing data of the transient's family under one model's labels."""
+    tr = scenario.transient
+    notes = []
+    delays = []
+    for d in scenario.delays:
+        if d.family != tr.family:
+            notes.append(f"the measured delay {d.family}/{d.image} - {d.relative_to} is of another "
+                         "family than the transient's; the forecast does not use it")
+            continue
+        delays.append(d)
+    rows = []
+    for s in sightings:
+        label = label_map.get(s.label)
+        if label is None:
+            return None, [f"this model has no image matching {s.family}/{s.label}"]
+        rows.append(SightingRow(s.family, label, float((s.date - tr.date).to_value(u.day)), s.sigma_days))
+    if not delays and not rows:
+        return None, notes
+    columns = [(t.family, t.label) for t in tracks]
+    return TimingData(columns, delays, rows, tr.date_sigma_days, (tr.family, tr.seen_in)), notes
+
+
+def _chain_effective_samples(chain) -> float:
+    """walkers × kept steps / τ_max of an emcee run."""
+    kept = chain.chain.shape[0] - chain.burn
+    tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else float("inf")
+    return chain.chain.shape[1] * kept / max(tau, 1.0)
+
+
+def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=1, h0=None,
+                 cosmology_name=None, kappa_ext=None, microlensing=None, depth=None,
+                 weighting="bic", seen=None, site: Site | None = None, walkers=32, steps=2000,
+                 now: Time | None = None, progress=True, prior="flat") -> dict:
+    """Run the whole forecast; see :mod:`lensdelay.timing` for the probability model."""
+    model_list = list(model_paths or [None])
+    scenarios = []
+    inputs = []
+    for mp in model_list:
+        sc, used = load_scenario(scenario_path, [mp] if mp else None)
+        scenarios.append(sc)
+        inputs += [p for p in used if p not in inputs]
+    sc0 = scenarios[0]
+    if sc0.transient is None:
+        raise InputError("transient is required for a forecast ([transient] with family, seen_in "
+                         "and date), got nothing", scenario_path)
+    settings = ForecastSettings()
+    if cosmology_name is not None:
+        cosmo = cosmology_from_spec({"name": cosmology_name})
+        scenarios = [replace(s, cosmology=cosmo) for s in scenarios]
+        settings = replace(settings, h0_prior=None)      # a named cosmology means its own H0
+    if h0 is not None:
+        if not h0[1] > 0:
+            raise InputError(f"--h0 sigma must be > 0, got {h0[1]:g}")
+        if not 10 <= h0[0] <= 200:
+            raise InputError(f"--h0 mean must be between 10 and 200 km/s/Mpc, got {h0[0]:g}")
+        settings = replace(settings, h0_prior=(float(h0[0]), float(h0[1])))
+    if kappa_ext is not None:
+        if not kappa_ext[0] < 1:
+            raise InputError(f"--kappa-ext mean must be < 1, got {kappa_ext[0]:g}")
+        if kappa_ext[1] < 0:
+            raise InputError(f"--kappa-ext sigma must be >= 0, got {kappa_ext[1]:g}")
+        settings = replace(settings, kappa_ext=(float(kappa_ext[0]), float(kappa_ext[1])))
+    if microlensing is not None:
+        if microlensing < 0:
+            raise InputError(f"--microlensing must be >= 0 mag, got {microlensing:g}")
+        settings = replace(settings, microlensing_mag=float(microlensing))
+    if depth is not None:
+        settings = replace(settings, depth=float(depth))
+    if n_samples < 100 or n_samples > 5_000_000:
+        raise InputError(f"--samples must be between 100 and 5000000, got {n_samples}")
+    if weighting not in ("bic", "equal"):
+        raise InputError(f"--weights must be 'bic' or 'equal', got {weighting!r}")
+    tr = sc0.transient
+    sightings = parse_sightings(seen, sc0)
+    settings = replace(settings, n_samples=int(n_samples), seed=int(seed), weighting=weighting,
+                       model_prior=prior, sightings=tuple(sightings))
+    now = Time.now() if now is None else now
+    site = site or sc0.site
+    rng = np.random.default_rng(seed)
+    n = settings.n_samples
+    models, prior_models, updates, fits, chains, notes_per_model, timings = [], [], [], [], [], [], []
+    first_tracks = None
+    for sc in scenarios:
+        like = ImageLikelihood(sc, sc.model, prior=prior)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", LensdelayWarning)   # reported in the notes instead
+            try:
+                result = fit(like, seed=seed)
+            except InputError as err:
+                raise err.with_source(scenario_path) from err
+            chain = sample(like, result.values, walkers=walkers, steps=steps,
+                           seed=int(rng.integers(2 ** 31)), progress=progress, scales=result.errors)
+        notes = list(result.notes) + list(chain.warnings)
+        if result.dof <= 0:
+            notes.insert(0, f"model {result.model_label!r} has {result.dof} degrees of freedom")
+        tracks, track_notes = image_tracks(like, result.values, tr.family)
+        notes += track_notes
+        first_tracks = first_tracks or tracks
+        label_map = _resolve_sightings(sightings, tracks, first_tracks)
+        timing, timing_notes = _timing_for(sc, tracks, sightings, label_map)
+        notes += timing_notes
+        draws = chain.samples()[rng.integers(0, len(chain.samples()), n)]
+        h0_draws, kappa_draws = draw_scale_priors(settings, like.h0_ref, n, rng)
+        prior_samples = solve_samples(like, draws, tracks, tr.seen_in, h0_draws, kappa_draws)
+        if not np.all(prior_samples.valid):
+            notes.append(f"the reference image {tr.seen_in} is missing in "
+                         f"{100 * np.mean(~prior_samples.valid):.1f}% of samples; those samples are dropped")
+        if timing is None and sightings:
+            # this model lacks an image that was seen: the data are impossible under it
+            samples, update = prior_samples, TimingUpdate("none", np.zeros(n), 0.0, -np.inf)
+        else:
+            samples, update, chain2 = condition_on_timing(sc, like, chain, tracks, timing, prior_samples,
+                                                          settings, walkers=walkers, steps=steps, seed=seed,
+                                                          rng=rng, progress=progress, prior=prior)
+            if chain2 is not None:
+                chains.append(chain2)
+        t0 = _draw_t0(timing, samples, tr, rng)
+        models.append((samples, t0))
+        prior_t0 = tr.date_sigma_days * rng.standard_normal(n)
+        prior_models.append((prior_samples, prior_t0))
+        updates.append(update)
+        fits.append(result)
+        chains.append(chain)
+        notes_per_model.append(notes + update.notes)
+        timings.append(timing)
+    if not any(np.isfinite(u_.log_evidence) for u_ in updates):
+        raise InputError("the sightings and measured delays must be possible under at least one model "
+                         "(each names images the model has), got none", scenario_path)
+    w_model = model_weights([f.bic for f in fits], [u_.log_evidence for u_ in updates], settings.weighting)
+    w_prior = model_weights([f.bic for f in fits], np.zeros(len(fits)), settings.weighting)
+    tension_rows = _tensions(timings, prior_models, w_prior, rng)
+    images = _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, now, rng,
+                        tension_rows)
+    calendar = None
+    if site is not None and sc0.sky is not None:
+        # cover the tails too (0.1–99.9%), so the probability counts every sample
+        wide = [weighted_quantiles(im["offsets"], im["weights"], [0.1, 99.9]) for im in images]
+        lo = min(w[0] for w in wide)
+        hi = max(w[1] for w in wide)
+        first = tr.date + (np.floor(lo) - 1) * u.day
+        n_days = int(np.ceil(hi - lo)) + 3
+        step = 20.0 if n_days <= 1200 else 40.0
+        calendar = build_calendar(site, sc0.sky, first, n_days, step_minutes=step)
+        for im in images:
+            _observability(im, calendar, tr, now)
+    cosmology = scenarios[0].cosmology
+    notes = []
+    if now < tr.date:
+        notes.append(f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
+                     "statuses are judged as of now")
+    timing_doc = {
+        "sightings": [{"family": s.family, "image": s.label, "date": s.date.isot[:19] + "Z",
+                       "sigma_days": s.sigma_days,
+                       "sigma_source": "given" if s.sigma_stated else "default"} for s in sightings],
+        "delays": [{"family": d.family, "image": d.image, "relative_to": d.relative_to, "days": d.days,
+                    "sigma": d.sigma} for d in sc0.delays],
+        "models": [{"label": f.model_label, "route": up.route,
+                    "effective_samples": float(up.effective_samples),
+                    "importance_effective_samples": (None if up.importance_effective_samples is None
+                                                     else float(up.importance_effective_samples)),
+                    "log_evidence": float(up.log_evidence) if np.isfinite(up.log_evidence) else None}
+                   for f, up in zip(fits, updates)],
+        "min_effective_samples": settings.min_ess_fraction * n,
+        "tensions": tension_rows,
+    }
+    return {
+        "scenario": sc0, "settings": settings, "site": site, "images": images,
+        "model_labels": [f.model_label for f in fits], "fits": fits, "chains": chains,
+        "model_weights": w_model, "model_weights_positions": w_prior, "updates": updates,
+        "model_notes": notes_per_model, "timing": timing_doc, "notes": notes,
+        "calendar": calendar, "now": now, "cosmology": cosmology,
+        "h0_used": (settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
+        "provenance": provenance(inputs, cosmology, seed),
+    }
+
+
+def _draw_t0(timing, samples, tr, rng) -> np.ndarray:
+    """t0 − detection date per sample: from its exact conditional given the delays."""
+    n = len(samples.scale)
+    if timing is None:
+        return tr.date_sigma_days * rng.standard_normal(n)
+    t0 = timing.draw_t0(samples.columns(timing), rng)
+    return np.where(np.isfinite(t0), t0, np.nan)
+
+
+def condition_on_timing(sc, like, chain, tracks, timing, prior_samples, settings, *, walkers, steps, seed,
+                        rng, progress=False, prior="flat"):
+    """Condition one model's forecast samples on the timing data.
+
+    Importance weights when they leave at least ``settings.min_ess_fraction`` of the
+    samples effective; otherwise the joint posterior (positions and timing, H0 and
+    κ_ext free with their priors) is sampled again. Returns the samples, the update
+    and the new chain (None when re-weighting sufficed).
+    """
+    update, good = importance_update(prior_samples, timing, settings.min_ess_fraction)
+    if good:
+        return prior_samples, update, None
+    return _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps, seed, rng,
+                     progress, prior)
+
+
+def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps, seed, rng,
+              progress, prior):
+    """Sample the joint posterior of lens, H0, κ_ext given positions and timing data."""
+    st = settings
+    tracked = {tracks[0].family: {t.label: (t.x, t.y) for t in tracks if not t.observed
+                                  and (t.family, t.label) in timing.columns}}
+    joint = ImageLikelihood(sc, sc.model, prior=prior, timing=timing,
+                            h0_prior=st.h0_prior if st.h0_prior is not None else "fixed",
+                            kappa_prior=st.kappa_ext, tracked=tracked)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        jres = fit(joint, seed=seed)
+        # enough steps that the kept chain holds min_ess_fraction·n independent samples,
+        # judged by the autocorrelation time of the positions-only chain
+        tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else 50.0
+        want = st.min_ess_fraction * st.n_samples
+        needed = int(np.ceil(1.5 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(2 * tau)
+        n_steps = int(min(max(steps, needed), 50_000))
+        jchain = sample(joint, jres.values, walkers=walkers, steps=n_steps, seed=int(rng.integers(2 ** 31)),
+                        progress=progress, scales=jres.errors)
+    flat = jchain.samples()
+    n = st.n_samples
+    draws = flat[rng.integers(0, len(flat), n)]
+    h0 = draws[:, joint.h0_index] if joint.h0_index is not None else np.full(n, like.h0_ref)
+    kappa = draws[:, joint.kappa_index] if joint.kappa_index is not None else np.full(n, joint.kappa_fixed)
+    samples = solve_samples(joint, draws, tracks, sc.transient.seen_in, h0, kappa)
+    ess = min(float(n), _chain_effective_samples(jchain))
+    notes = list(update.notes) + [
+        f"the measurements left {update.importance_effective_samples:.0f} effective samples of {n} after "
+        f"re-weighting; the posterior was sampled again with them ({n_steps} steps, "
+        f"about {ess:.0f} independent samples)"]
+    notes += list(jchain.warnings)
+    if ess < want:
+        notes.append(f"only about {ess:.0f} independent samples (goal {want:.0f}); increase --steps")
+    valid = samples.valid.astype(float)
+    return samples, TimingUpdate("resample", valid / max(valid.sum(), 1e-300), ess, update.log_evidence,
+                                 update.importance_effective_samples, notes), jchain
+
+
+def _tensions(timings, prior_models, w_prior, rng) -> list[dict]:
+    """Each measurement against the forecast from the image positions alone (all models).
+
+    Every model's timing data has its own columns (labels) but the same rows, so the
+    simulated measurements of the models are pooled with the models' weights.
+    """
+    parts = [(t, s, w) for t, (s, _), w in zip(timings, prior_models, w_prior) if t is not None and w > 0]
+    if not parts:
+        return []
+    sims = np.vstack([t.predictive_draws(s.columns(t), rng) for t, s, _ in parts])
+    weights = np.concatenate([w * s.valid / max(s.valid.sum(), 1) for _, s, w in parts])
+    return [{"measurement": t.name, "measured": t.measured, "measurement_sigma": t.measurement_sigma,
+             "predicted": t.predicted, "sigma": t.sigma, "p_value": t.p_value, "in_tension": t.in_tension}
+            for t in tensions_from_draws(parts[0][0], sims, weights)]
+
+
+def _status(is_seen, q, now_offset, order_agreement) -> str:
+    """seen, past, uncertain, now or future (README: "Statuses")."""
+    if is_seen:
+        return "seen"
+    if q["p97.5"] < now_offset:
+        return "past"
+    if order_agreement < AGREEMENT:
+        return "uncertain"
+    if q["p2.5"] <= now_offset:
+        return "now"
+    return "future"
+
+
+def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, now, rng, tension_rows):
+    """One entry per image (matched across models), with mixture weights."""
+    now_offset = float((now - tr.date).to_value(u.day))
+    groups = match_tracks([m for m, _ in models])
+    sighted = {s.label for s in settings.sightings}
+    tension_by_image = {}
+    for row in tension_rows:
+        if row["measurement"].startswith("sighting "):
+            tension_by_image[row["measurement"].split("/", 1)[1]] = row
+    images = []
+    for g in groups:
+        cols = {k: [] for k in ("delay", "offsets", "mu", "parity", "rank", "weights", "lens_days", "h0",
+                                "kappa", "t0", "model", "x", "y", "mag")}
+        prior_off, prior_w = [], []
+        per_model = {}
+        for m_index, col in g["members"]:
+            samples, t0 = models[m_index]
+            w = w_model[m_index] * np.where(samples.exists[:, col], updates[m_index].weights, 0.0)
+            delay = np.where(samples.exists[:, col], samples.delay[:, col], np.nan)
+            cols["delay"].append(delay)
+            cols["offsets"].append(t0 + delay)
+            cols["mu"].append(samples.magnification[:, col])
+            cols["parity"].append(samples.parity[:, col])
+            cols["rank"].append(samples.rank[:, col])
+            cols["weights"].append(w)
+            cols["lens_days"].append(samples.lens_days[:, col])
+            cols["h0"].append(samples.h0)
+            cols["kappa"].append(samples.kappa)
+            cols["t0"].append(t0)
+            cols["model"].append(np.full(len(t0), m_index))
+            cols["x"].append(samples.x[:, col])
+            cols["y"].append(samples.y[:, col])
+            if tr.magnitude is not None:
+                ratio = np.abs(samples.magnification[:, col]) / np.abs(samples.magnification[:, samples.reference])
+                scatter = (rng.normal(0, settings.microlensing_mag, len(ratio))
+                           if settings.microlensing_mag > 0 and col != samples.reference else 0.0)
+                cols["mag"].append(tr.magnitude - 2.5 * np.log10(ratio) + scatter)
+            ps, pt0 = prior_models[m_index]
+            prior_off.append(pt0 + np.where(ps.exists[:, col], ps.delay[:, col], np.nan))
+            prior_w.append(w_prior[m_index] * (ps.exists[:, col] & ps.valid) / max(ps.valid.sum(), 1))
+            wsum = w.sum()
+            per_model[samples.model_label] = {
+                "weight": float(w_model[m_index]),
+                "delay_median": float(weighted_quantiles(delay, w, [50])[0]) if wsum > 0 else None}
+        arr = {k: np.concatenate(v) for k, v in cols.items() if v}
+        weights = arr["weights"]
+        total = weights.sum()
+        weights = weights / total if total > 0 else weights
+        members_weight = sum(w_model[m] for m, _ in g["members"])
+        exists_share = float(total / max(members_weight, 1e-300))
+        valid = np.isfinite(arr["delay"]) & (weights > 0)
+        par, par_share = majority(arr["parity"][valid], weights[valid])
+        rk, rk_share = majority(arr["rank"][valid], weights[valid])
+        is_ref = g["observed"] and g["label"] == tr.seen_in
+        trails = float(np.sum(weights[valid & (arr["delay"] > 0)]))
+        leads = float(np.sum(weights[valid & (arr["delay"] < 0)]))
+        order = "reference" if is_ref else ("trails" if trails >= leads else "leads")
+        order_agreement = 1.0 if is_ref else max(trails, leads) / max(trails + leads, 1e-300)
+        off_q = quantile_summary(arr["offsets"], weights)
+        seen = is_ref or g["label"] in sighted
+        entry = {
+            "family": g["family"], "label": g["label"], "observed": bool(g["observed"]),
+            "x": float(weighted_quantiles(arr["x"], weights, [50])[0]),
+            "y": float(weighted_quantiles(arr["y"], weights, [50])[0]),
+            "parity": parity_name(par), "parity_agreement": par_share,
+            "arrival_rank": int(rk), "rank_agreement": rk_share,
+            "order": order, "order_agreement": order_agreement,
+            "flag": [],
+            "exists_fraction": exists_share,
+            "status": _status(seen, off_q, now_offset, order_agreement),
+            "sighted": g["label"] in sighted,
+            "delay_days": quantile_summary(arr["delay"], weights),
+            "magnification": quantile_summary(arr["mu"], weights),
+            "date_offset_days": off_q,
+            "per_model": per_model,
+            "offsets": arr["offsets"], "weights": weights,
+            "samples": {k: arr[k] for k in ("lens_days", "h0", "kappa", "t0", "model", "delay", "offsets")},
+        }
+        if min(par_share, rk_share) < AGREEMENT:
+            entry["flag"].append(f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)")
+        if exists_share < AGREEMENT and not is_ref:
+            entry["flag"].append(f"the image exists in only {100 * exists_share:.0f}% of samples")
+        medians = [v["delay_median"] for v in per_model.values() if v["delay_median"] is not None]
+        entry["model_spread_days"] = float(np.ptp(medians)) if len(medians) > 1 else 0.0
+        # how much the timing data narrowed the 95% window
+        pw = np.concatenate(prior_w)
+        pq = weighted_quantiles(np.concatenate(prior_off), pw, [2.5, 97.5])
+        width_before = pq[1] - pq[0]
+        has_timing = any(up.route != "none" for up in updates)
+        entry["interval95_change"] = (float((off_q["p97.5"] - off_q["p2.5"]) / width_before)
+                                      if has_timing and width_before > 0 else None)
+        if "mag" in arr:
+            entry["magnitude"] = quantile_summary(arr["mag"], weights)
+            entry["fainter_than_depth"] = bool(entry["magnitude"]["median"] > settings.depth)
+        else:
+            entry["magnitude"] = None
+            entry["fainter_than_depth"] = None
+        # part of the 95% window before the detection: archives may hold the event
+        if not seen and off_q["p2.5"] < 0:
+            entry["archival_search"] = {"from_offset": off_q["p2.5"],
+                                        "to_offset": min(off_q["p97.5"], max(now_offset, 0.0))}
+        else:
+            entry["archival_search"] = None
+        entry["tension"] = tension_by_image.get(g["label"])
+        if entry["tension"] is not None and entry["tension"]["in_tension"]:
+            entry["flag"].append(f"the sighting is {abs(entry['tension']['sigma']):.1f} sigma from the "
+                                 "prediction made from the image positions")
+        images.append(entry)
+    images.sort(key=lambda e: (e["date_offset_days"]["median"], e["label"]))
+    return images
+
+
+def _observability(im, calendar, tr, now):
+    """Observable days in the 95% window, the chance the event falls on one, and the
+    observable runs of the window still ahead of ``now``."""
+    start_offset = (tr.date - calendar.start).to_value("day")
+    offs = im["offsets"] + start_offset
+    ok = np.isfinite(offs) & (im["weights"] > 0)
+    observable = calendar.is_observable(offs[ok])
+    w = im["weights"][ok]
+    prob = float(np.sum(w[observable]) / max(np.sum(w), 1e-300))
+    q = im["date_offset_days"]
+    d0, d1 = int(np.floor(q["p2.5"] + start_offset)), int(np.floor(q["p97.5"] + start_offset))
+    runs = calendar.windows(d0, d1)
+    n_obs = int(sum(b - a + 1 for a, b in runs))
+    today = int(np.floor((now - calendar.start).to_value("day")))
+    ahead = [(max(a, today), b) for a, b in runs if b >= today]
+    day = lambda i: (calendar.start + i * u.day).iso[:10]   # noqa: E731
+    im["observability"] = {
+        "probability_observable": prob,
+        "observable_days_in_95": n_obs, "days_in_95": int(d1 - d0 + 1),
+        "windows": [[day(a), day(b)] for a, b in runs],
+        "windows_ahead": [[day(a), day(b)] for a, b in ahead],
+    }

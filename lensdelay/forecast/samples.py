@@ -1,0 +1,320 @@
+"""From a lens-model posterior to the dates and brightness of every image.
+
+For every forecast sample the images of the transient's source are solved at once
+(Newton, vectorised over samples, started from the best-fit images); their Fermat
+potentials become delays after the image the transient was seen in, scaled sample
+by sample by H0 (D_dt ∝ 1/H0) and by (1 − κ_ext). Each image's date is t0 + Δt_i
+with t0 the date the event reached the reference image (:mod:`lensdelay.timing`).
+
+Measured delays and sightings update the samples by one of two routes
+(:func:`update_on_timing`): importance weights when enough effective samples remain
+(at least ``min_ess_fraction`` of them), otherwise a new posterior sample with the
+measurements as likelihood terms (done by the caller, which owns the sampler).
+
+This module computes; it reads and writes nothing.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.special import logsumexp
+
+from lensdelay.lensing.images import find_images, newton_polish
+from lensdelay.lensing.lens import PARITIES
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.summaries import QUANTILES, effective_sample_size, quantile_summary, weighted_quantiles  # noqa: F401
+from lensdelay.inference.timing import TimingData
+
+#: Default H0 prior, km/s/Mpc: wide enough to span both the early-universe (~67) and
+#: distance-ladder (~73) values at about 1σ, so a forecast commits to neither.
+DEFAULT_H0_PRIOR = (70.0, 5.0)
+#: Default external convergence prior: typical galaxy-scale lines of sight
+#: (common practice; scatter of a few per cent).
+DEFAULT_KAPPA_EXT = (0.0, 0.05)
+#: Default microlensing scatter on each image's magnitude (common practice for
+#: lensed supernovae: a few tenths of a magnitude).
+DEFAULT_MICROLENSING_MAG = 0.3
+#: Images fainter than this (AB mag) are flagged.
+DEFAULT_DEPTH = 25.0
+#: Importance weights are kept only while at least this fraction of the samples is
+#: effective; below it the posterior is sampled again with the measurements.
+MIN_ESS_FRACTION = 0.1
+#: Agreement below which an image's parity, arrival rank or order is flagged.
+AGREEMENT = 0.95
+
+
+@dataclass(frozen=True)
+class Sighting:
+    """Image ``family/label`` showed the event on ``date`` ± ``sigma_days``."""
+
+    family: str
+    label: str
+    date: object                 # astropy Time
+    sigma_days: float
+    sigma_stated: bool = True    # False: the default was used
+
+
+@dataclass(frozen=True)
+class ForecastSettings:
+    """Choices of one forecast run (all reported in the outputs)."""
+
+    n_samples: int = 20000
+    seed: int = 1
+    h0_prior: tuple[float, float] | None = DEFAULT_H0_PRIOR
+    kappa_ext: tuple[float, float] = DEFAULT_KAPPA_EXT
+    microlensing_mag: float = DEFAULT_MICROLENSING_MAG
+    depth: float = DEFAULT_DEPTH
+    weighting: str = "bic"
+    sightings: tuple[Sighting, ...] = ()
+    model_prior: str = "flat"                    # prior of the mass-model posterior
+    min_ess_fraction: float = MIN_ESS_FRACTION
+
+
+@dataclass(frozen=True)
+class ImageTrack:
+    """One image of the transient's family: observed, or predicted at the best fit."""
+
+    family: str
+    label: str
+    observed: bool
+    x: float                     # start of Newton's method, arcsec
+    y: float
+
+
+def label_unobserved(existing, n) -> list[str]:
+    """``X1``, ``X2``, … skipping labels already in use."""
+    labels, k = [], 1
+    while len(labels) < n:
+        cand = f"X{k}"
+        if cand not in existing:
+            labels.append(cand)
+        k += 1
+    return labels
+
+
+def image_tracks(like: ImageLikelihood, best: np.ndarray, family: str) -> tuple[list[ImageTrack], list[str]]:
+    """Every image of ``family`` at the best fit: observed ones matched, the rest labelled anew.
+
+    Returns the tracks and notes (an observed image the model lacks is forecast from its
+    observed position).
+    """
+    notes = []
+    k = [f.label for f in like.families].index(family)
+    fam = like.families[k]
+    lens_best = like.model.lens(best[:like.n_model])
+    bx, by = best[like.source_slice(k)]
+    table = find_images(lens_best, [bx], [by], fam.scale)
+    used = np.zeros(len(table), dtype=bool)
+    tracks = []
+    for i, lab in enumerate(fam.labels):
+        d = np.hypot(table.x - fam.x[i], table.y - fam.y[i])
+        j = int(np.argmin(d)) if len(d) else -1
+        if j < 0 or d[j] > max(10 * fam.sigma[i], 0.05) or used[j]:
+            notes.append(f"observed image {lab} has no model counterpart at the best fit; "
+                         "it is forecast from its observed position")
+            tracks.append(ImageTrack(family, lab, True, float(fam.x[i]), float(fam.y[i])))
+        else:
+            used[j] = True
+            tracks.append(ImageTrack(family, lab, True, float(table.x[j]), float(table.y[j])))
+    extra = np.nonzero(~used)[0]
+    for j, lab in zip(extra, label_unobserved(set(fam.labels), len(extra))):
+        tracks.append(ImageTrack(family, lab, False, float(table.x[j]), float(table.y[j])))
+    return tracks, notes
+
+
+@dataclass
+class ModelSamples:
+    """Per-sample images of the transient's family under one model (n samples, m images).
+
+    ``lens_days`` are delays after the reference image at the reference cosmology and
+    κ_ext = 0; ``delay = lens_days · scale`` with scale = (H_ref/H0)(1 − κ_ext).
+    """
+
+    model_label: str
+    tracks: list[ImageTrack]
+    reference: int               # column of the reference image
+    x: np.ndarray
+    y: np.ndarray
+    exists: np.ndarray
+    lens_days: np.ndarray
+    magnification: np.ndarray
+    parity: np.ndarray
+    rank: np.ndarray
+    h0: np.ndarray
+    kappa: np.ndarray
+    scale: np.ndarray
+
+    @property
+    def labels(self) -> list[str]:
+        return [t.label for t in self.tracks]
+
+    @property
+    def delay(self) -> np.ndarray:
+        return self.lens_days * self.scale[:, None]
+
+    @property
+    def valid(self) -> np.ndarray:
+        """Samples in which the reference image exists and the delay scale is finite."""
+        return self.exists[:, self.reference] & np.isfinite(self.scale)
+
+    def columns(self, timing: TimingData) -> np.ndarray:
+        """Delays of the images ``timing`` refers to, in its column order (NaN: absent)."""
+        index = {(t.family, t.label): i for i, t in enumerate(self.tracks)}
+        cols = [index[c] for c in timing.columns]
+        return np.where(self.exists[:, cols], self.delay[:, cols], np.nan)
+
+
+def solve_samples(like: ImageLikelihood, draws: np.ndarray, tracks: list[ImageTrack], reference: str,
+                  h0: np.ndarray, kappa: np.ndarray) -> ModelSamples:
+    """All images of the tracks' family for every parameter row of ``draws`` at once.
+
+    Parameters
+    ----------
+    like : ImageLikelihood
+        The likelihood ``draws`` belong to (its parameter layout).
+    draws : ndarray, (n, n_par)
+        Posterior samples of the likelihood's parameters.
+    tracks : list of ImageTrack
+        Where to start Newton's method for each image (the best fit's images).
+    reference : str
+        Label of the image the transient was seen in.
+    h0, kappa : ndarray, (n,)
+        H0 (km/s/Mpc) and κ_ext per sample.
+    """
+    family = tracks[0].family
+    k_fam = [f.label for f in like.families].index(family)
+    fam = like.families[k_fam]
+    n = len(draws)
+    sx = np.array([t.x for t in tracks])
+    sy = np.array([t.y for t in tracks])
+    lens = like.lens_for(draws)
+    src = draws[:, like.source_slice(k_fam)]
+    sbx, sby = src[:, :1], src[:, 1:]
+    x, y, err = newton_polish(lens, np.broadcast_to(sx, (n, len(sx))), np.broadcast_to(sy, (n, len(sy))),
+                              sbx, sby, fam.scale, iterations=40, max_step=0.05)
+    exists = err < 1e-8
+    for i in range(len(sx)):          # two tracks on one image: the later one has vanished
+        for j in range(i + 1, len(sx)):
+            exists[:, j] &= ~(np.hypot(x[:, i] - x[:, j], y[:, i] - y[:, j]) < 1e-6)
+    with np.errstate(all="ignore"):
+        tau = lens.fermat_potential(x, y, sbx, sby, fam.scale)
+        mu = lens.magnification(x, y, fam.scale)
+    parity = lens.parity_code(x, y, fam.scale)
+    tau = np.where(exists, tau, np.nan)
+    ref = [t.label for t in tracks].index(reference)
+    lens_days = (tau - tau[:, ref:ref + 1]) * fam.days_per_arcsec2
+    rank = np.argsort(np.argsort(np.where(exists, tau, np.inf), axis=1), axis=1) + 1
+    scale = (like.h0_ref / h0) * (1.0 - kappa)
+    return ModelSamples(like.model.label, list(tracks), ref, x, y, exists, lens_days,
+                        np.where(exists, mu, np.nan), parity, rank, h0, kappa, scale)
+
+
+def draw_scale_priors(settings: ForecastSettings, h0_ref: float, n: int,
+                      rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """H0 and κ_ext per sample from their priors (H0 fixed when the prior is None)."""
+    if settings.h0_prior is not None:
+        h0 = rng.normal(settings.h0_prior[0], settings.h0_prior[1], n)
+        h0 = np.where(h0 > 1.0, h0, np.nan)
+    else:
+        h0 = np.full(n, h0_ref)
+    mean, sigma = settings.kappa_ext
+    kappa = rng.normal(mean, sigma, n) if sigma > 0 else np.full(n, mean)
+    return h0, kappa
+
+
+@dataclass
+class TimingUpdate:
+    """How one model's samples were conditioned on the timing data."""
+
+    route: str                   # "none", "reweight" or "resample"
+    weights: np.ndarray          # per sample, sum 1
+    effective_samples: float
+    log_evidence: float          # log E[L_timing] over the samples without timing data
+    importance_effective_samples: float | None = None
+    notes: list[str] = field(default_factory=list)
+
+
+def importance_update(samples: ModelSamples, timing: TimingData | None,
+                      min_fraction: float = MIN_ESS_FRACTION) -> tuple[TimingUpdate, bool]:
+    """Importance weights of the samples given the timing data.
+
+    Returns the update and whether it is good enough (effective sample size at least
+    ``min_fraction`` of the samples); if not, the caller samples the posterior anew.
+    The log evidence log E[L] (mean over the samples of the timing likelihood, up to
+    the Gaussian's constant, which is the same for every model) multiplies the model
+    weights: it is the marginal likelihood of the timing data under this model.
+    """
+    base = samples.valid.astype(float)
+    n = len(base)
+    if timing is None or not len(timing):
+        w = base / max(base.sum(), 1e-300)
+        return TimingUpdate("none", w, float(base.sum()), 0.0), True
+    logl = timing.log_likelihood(samples.columns(timing))
+    logl = np.where(samples.valid, logl, -np.inf)
+    if not np.any(np.isfinite(logl)):
+        return TimingUpdate("reweight", np.zeros(n), 0.0, -np.inf,
+                            0.0, ["the timing data are impossible under every sample "
+                                  "(an image they name is missing)"]), False
+    log_evidence = float(logsumexp(logl) - np.log(max(base.sum(), 1.0)))
+    w = np.exp(logl - np.max(logl))
+    ess = effective_sample_size(w)
+    update = TimingUpdate("reweight", w / w.sum(), ess, log_evidence, ess)
+    return update, ess >= min_fraction * n
+
+
+def majority(codes, weights):
+    """The most common code and the weighted fraction of samples that agree with it."""
+    codes = np.asarray(codes)
+    values = np.unique(codes)
+    shares = np.array([weights[codes == v].sum() for v in values])
+    k = int(np.argmax(shares))
+    return values[k], float(shares[k] / max(shares.sum(), 1e-300))
+
+
+def model_weights(bic, log_evidence, weighting: str = "bic") -> np.ndarray:
+    """Posterior model weights: exp(−BIC/2) × the timing data's marginal likelihood.
+
+    ``"equal"``: the same for every model whatever the data.
+    """
+    bic = np.asarray(bic, dtype=float)
+    if weighting == "equal":
+        w = np.ones(len(bic))
+    else:
+        logw = -0.5 * (bic - bic.min()) + np.asarray(log_evidence, dtype=float)
+        logw = np.where(np.isfinite(logw), logw, -np.inf)
+        w = np.exp(logw - np.max(logw))
+    return w / w.sum()
+
+
+def match_tracks(models: list[ModelSamples], match_radius: float = 0.15) -> list[dict]:
+    """Group the same image across models.
+
+    Observed images are matched by label; predicted ones by best-fit position (within
+    ``match_radius`` arcsec), each model at most once per group. Returns groups
+    ``{"family", "label", "observed", "x", "y", "members": [(model index, column)]}``;
+    the first model to have an image names it.
+    """
+    groups: list[dict] = []
+    for m_index, m in enumerate(models):
+        for col, t in enumerate(m.tracks):
+            target = None
+            for g in groups:
+                if t.observed and g["observed"] and g["label"] == t.label:
+                    target = g
+                elif (not t.observed and not g["observed"]
+                      and np.hypot(g["x"] - t.x, g["y"] - t.y) < match_radius
+                      and m_index not in [mm for mm, _ in g["members"]]):
+                    target = g
+                if target is not None:
+                    break
+            if target is None:
+                target = {"family": t.family, "label": t.label, "observed": t.observed,
+                          "x": t.x, "y": t.y, "members": []}
+                groups.append(target)
+            target["members"].append((m_index, col))
+    return groups
+
+
+def parity_name(code) -> str:
+    return PARITIES[int(code)]

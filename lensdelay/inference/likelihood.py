@@ -1,0 +1,566 @@
+"""The image-position likelihood: model parameters → predicted images → residuals.
+
+One parameter vector holds the free mass-model parameters, then a source position
+(β_x, β_y) per family, then -- when measured delays are used -- H0. Everything is
+vectorised over rows, so that the same code serves a least-squares fit (one row) and
+all walkers of an ensemble sampler in one call.
+
+Predicted images are found by Newton's method started at the *observed* positions:
+each observed image is matched to the predicted image it falls into. Two observed
+images falling into the same predicted image (an image the model lacks) and a start
+that does not converge are penalised with the magnification-weighted source-plane
+offset, so the fit never silently ignores a missing image.
+
+Extra images are watched too: :meth:`ImageLikelihood.watch_unobserved` (called by the
+fit at its best solution) records where the model puts images that were not observed,
+and each evaluation follows them by Newton's method. One that is brighter than the
+faintest observed image of its family costs a residual of its magnitude excess over
+that image in units of ``EXTRA_IMAGE_MAG_SCALE`` (an image that bright should have been
+seen). Near a caustic the extra pair brightens without bound, so the penalty grows
+smoothly to infinity there and the posterior density falls continuously to zero.
+
+The posterior's prior within the bounds is either flat in the recipe's parameters
+(``prior="flat"``, the default: what a recipe's ``min``/``max`` say) or Jeffreys' prior,
+the square root of the determinant of the Fisher information of all the constraints
+(Jeffreys 1946, Proc. R. Soc. A 186, 453; Kass & Wasserman 1996, JASA 91, 1343,
+sec. 2), which does not depend on how the model is parametrised (axis ratio and angle,
+or ellipticity components). Both give calibrated delay intervals for the benchmark
+quad (``benchmarks/bench_fit.py``; README). The Jacobian behind the Fisher information
+(:meth:`ImageLikelihood.information_jacobian`) also gives the sampler its local metric
+(:mod:`lensdelay.moves`).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from lensdelay.lensing.distances import LensDistances
+from lensdelay.errors import InputError, choices_text
+from lensdelay.lensing.images import newton_polish
+from lensdelay.model.recipe import MassModel
+from lensdelay.model.scenario import Scenario
+
+#: Residual (in σ) added per coordinate when the model lacks an observed image.
+MISSING_IMAGE_PENALTY = 1e3
+#: Magnitude scale of the penalty on an unobserved image brighter than the faintest
+#: observed one (the microlensing/extinction floor of the flux ratios; common practice).
+EXTRA_IMAGE_MAG_SCALE = 0.2
+#: Priors the posterior can use (see the module docstring).
+PRIOR_CHOICES = ("jeffreys", "flat")
+#: Relative step of the central differences for the Fisher information.
+_INFO_STEP = 1e-6
+
+
+@dataclass
+class FamilyData:
+    label: str
+    scale: float
+    days_per_arcsec2: float
+    x: np.ndarray
+    y: np.ndarray
+    sigma: np.ndarray
+    labels: list[str]
+
+
+class ImageLikelihood:
+    """χ² of observed image positions (plus priors, lens light and delays).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    model : MassModel
+    use_delays : bool
+        Fit the scenario's measured delays too; H0 becomes the last parameter.
+    use_fluxes : bool
+        Fit flux ratios (from image ``magnitude`` or ``flux``) too, as magnitude
+        differences to each family's first image with a 1-σ floor of ``flux_floor_mag``
+        for microlensing and differential extinction (default 0.2 mag, common practice).
+    prior : {"jeffreys", "flat"}
+        Prior of :meth:`log_probability` within the bounds (module docstring); Gaussian
+        priors of the recipe and the lens-light centre enter as constraints either way.
+    timing : lensdelay.timing.TimingData, optional
+        Measured delays and sightings to fit (instead of the scenario's delays that
+        ``use_delays`` takes). Its columns name observed images or images listed in
+        ``tracked``.
+    h0_prior : None, "fixed" or (mean, sigma)
+        With timing data: H0 free with a flat prior on [10, 200] km/s/Mpc (None), held
+        at the cosmology's value ("fixed"), or free with a Gaussian prior.
+    kappa_prior : (mean, sigma), optional
+        With timing data: external convergence; free with a Gaussian prior when sigma
+        > 0, held at ``mean`` when sigma = 0; 0 when not given. Delays scale by
+        (1 − κ_ext) (the mass-sheet transformation).
+    tracked : dict, optional
+        family label → {image label: (x, y)}: predicted (unobserved) images that timing
+        rows refer to, followed by Newton's method from these positions.
+    """
+
+    def __init__(self, scenario: Scenario, model: MassModel, *, use_delays: bool = False,
+                 use_fluxes: bool = False, flux_floor_mag: float = 0.2, prior: str = "flat",
+                 timing=None, h0_prior=None, kappa_prior=None, tracked=None):
+        if prior not in PRIOR_CHOICES:
+            raise InputError(f"prior must be one of {choices_text(PRIOR_CHOICES)}, got {prior!r}")
+        self.prior = prior
+        self.scenario = scenario
+        self.model = model
+        self.distances = LensDistances(scenario.cosmology, scenario.lens_redshift,
+                                       scenario.reference_source_redshift)
+        self.families = []
+        for fam in scenario.families:
+            self.families.append(FamilyData(
+                fam.label, self.distances.deflection_scale(fam.redshift),
+                self.distances.days_per_arcsec2(fam.redshift),
+                np.array([im.x for im in fam.images]), np.array([im.y for im in fam.images]),
+                np.array([im.sigma for im in fam.images]), fam.labels))
+        if timing is None and use_delays and scenario.delays:
+            from lensdelay.inference.timing import TimingData
+
+            timing = TimingData([(f.label, lab) for f in scenario.families for lab in f.labels],
+                                list(scenario.delays))
+        self.timing = timing
+        self.use_delays = timing is not None
+        tracked = tracked or {}
+        self.tracked = []
+        for fam in self.families:
+            items = tracked.get(fam.label, {})
+            self.tracked.append((list(items), np.array([v[0] for v in items.values()], dtype=float),
+                                 np.array([v[1] for v in items.values()], dtype=float)))
+        self.flux_floor_mag = float(flux_floor_mag)
+        # observed magnitude differences to the first image, per family (None: not used)
+        self.flux_data = []
+        for fam in scenario.families:
+            mags = []
+            for im in fam.images:
+                if im.magnitude is not None:
+                    mags.append(im.magnitude)
+                elif im.flux is not None:
+                    mags.append(-2.5 * np.log10(im.flux))
+                else:
+                    mags.append(None)
+            usable = use_fluxes and len(mags) > 1 and all(m is not None for m in mags)
+            self.flux_data.append(np.array(mags, dtype=float) - mags[0] if usable else None)
+        self.use_fluxes = any(d is not None for d in self.flux_data)
+        self.h0_ref = float(scenario.cosmology.H0.value)
+        free = model.free
+        self.names = [p.name for p in free]
+        for fam in self.families:
+            self.names += [f"source[{fam.label}].x", f"source[{fam.label}].y"]
+        self.n_model = len(free)
+        lo = [p.min for p in free]
+        hi = [p.max for p in free]
+        for fam in self.families:
+            reach = 2.0 * float(np.max(np.hypot(fam.x, fam.y))) + 1.0
+            lo += [-reach, -reach]
+            hi += [reach, reach]
+        #: lens and source parameters: everything image positions depend on
+        self.n_positional = len(self.names)
+        # Gaussian priors: parameter index -> (mean, sigma)
+        self.priors = {i: p.prior for i, p in enumerate(free) if p.prior is not None}
+        # the delay scale (H_ref/H0)(1 − κ_ext): free parameters or fixed values
+        self.h0_index = self.kappa_index = None
+        self.h0_fixed = self.h0_ref
+        self.kappa_fixed = 0.0
+        self.scale_start = []
+        if self.use_delays:
+            if isinstance(h0_prior, str):
+                if h0_prior != "fixed":
+                    raise InputError(f"h0_prior must be None, 'fixed' or (mean, sigma), got {h0_prior!r}")
+            else:
+                self.h0_index = len(self.names)
+                self.names.append("H0")
+                lo.append(10.0)
+                hi.append(200.0)
+                if h0_prior is not None:
+                    self.priors[self.h0_index] = (float(h0_prior[0]), float(h0_prior[1]))
+                self.scale_start.append(self.h0_ref if h0_prior is None else float(h0_prior[0]))
+            if kappa_prior is not None:
+                mean, sigma = float(kappa_prior[0]), float(kappa_prior[1])
+                if sigma > 0:
+                    self.kappa_index = len(self.names)
+                    self.names.append("kappa_ext")
+                    # κ_ext ≥ 1 would turn delays around: bounded below 1
+                    lo.append(max(-1.0, mean - 10 * sigma))
+                    hi.append(min(0.95, mean + 10 * sigma))
+                    self.priors[self.kappa_index] = (mean, sigma)
+                    self.scale_start.append(mean)
+                else:
+                    self.kappa_fixed = mean
+        self.lower, self.upper = np.array(lo), np.array(hi)
+        self.periods = [p.period for p in free] + [None] * (len(self.names) - self.n_model)
+        self.centre_prior = self._lens_light_prior()
+        # unobserved images to follow, per family: (x, y) arrays (see watch_unobserved)
+        self.watched = [(np.empty(0), np.empty(0)) for _ in self.families]
+
+    def _lens_light_prior(self):
+        """The lens-light centre constrains the free x, y of the first luminous component.
+
+        Luminous means a galaxy-like profile (not a dark NFW halo, not shear or sheet);
+        dark halos may sit away from the light.
+        """
+        ll = self.scenario.lens_light
+        if ll is None:
+            return {}
+        out = {}
+        for comp in self.model.components:
+            if comp.profile_class.centred and comp.kind != "NFW":
+                for axis, value in (("x", ll.x), ("y", ll.y)):
+                    p = comp.parameters.get(axis)
+                    if p is not None and p.vary and p.prior is None:
+                        out[self.names.index(p.name)] = (value, ll.sigma)
+                break
+        return out
+
+    # -- bookkeeping ---------------------------------------------------------------
+    @property
+    def n_parameters(self) -> int:
+        return len(self.names)
+
+    @property
+    def n_constraints(self) -> int:
+        n = 2 * sum(len(f.x) for f in self.families) + len(self.priors) + len(self.centre_prior)
+        n += sum(len(d) - 1 for d in self.flux_data if d is not None)
+        return n + (len(self.timing) if self.use_delays else 0)
+
+    @property
+    def dof(self) -> int:
+        return self.n_constraints - self.n_parameters
+
+    def delay_scale(self, params: np.ndarray) -> np.ndarray:
+        """(H_ref/H0)(1 − κ_ext) per row, (P,): delays at the reference cosmology times this.
+
+        D_dt ∝ 1/H0 exactly for a cosmology without radiation (and to ~1e-4 with it).
+        """
+        params = np.atleast_2d(params)
+        h0 = params[:, self.h0_index] if self.h0_index is not None else self.h0_fixed
+        kappa = params[:, self.kappa_index] if self.kappa_index is not None else self.kappa_fixed
+        return np.broadcast_to((self.h0_ref / h0) * (1.0 - kappa), (len(params),))
+
+    def source_slice(self, k: int) -> slice:
+        return slice(self.n_model + 2 * k, self.n_model + 2 * k + 2)
+
+    def lens_for(self, params: np.ndarray):
+        """Lens for parameter rows of shape (P, n) (profile parameters become (P, 1))."""
+        cols = params[:, :self.n_model].T[:, :, None]
+        return self.model.lens(list(cols))
+
+    # -- predictions ----------------------------------------------------------------
+    def predict(self, params: np.ndarray):
+        """Predicted images matched to the observed ones, for parameter rows (P, n).
+
+        Returns
+        -------
+        list of dict, one per family: ``x, y`` (P, n_img), ``ok`` (P, n_img) bool,
+        ``fermat`` (P, n_img), ``mu`` (P, n_img), ``beta`` (P, 2).
+        """
+        params = np.atleast_2d(params)
+        lens = self.lens_for(params)
+        out = []
+        for k, fam in enumerate(self.families):
+            bx = params[:, self.source_slice(k)][:, :1]
+            by = params[:, self.source_slice(k)][:, 1:]
+            x, y, err = newton_polish(lens, fam.x[None, :], fam.y[None, :], bx, by, fam.scale,
+                                      iterations=15, max_step=np.maximum(0.5 * fam.sigma, 0.05),
+                                      tolerance=1e-11)
+            ok = err < 1e-8
+            # close but not converged within the budget: not a missing image
+            near = (err < 1e-3) & ~ok
+            # two observed images in one predicted image: the model lacks an image
+            n = len(fam.x)
+            for i in range(n):
+                for j in range(i + 1, n):
+                    same = np.hypot(x[:, i] - x[:, j], y[:, i] - y[:, j]) < 1e-6
+                    ok[:, j] &= ~same
+                    near[:, j] &= ~same
+            with np.errstate(all="ignore"):
+                tau = lens.fermat_potential(x, y, bx, by, fam.scale)
+                mu = lens.magnification(x, y, fam.scale)
+            extra_mu = self._watched_magnifications(lens, k, x, y, ok, bx, by)
+            tx, ty, t_tau = self._tracked_images(lens, k, x, y, ok, bx, by)
+            out.append({"x": x, "y": y, "ok": ok, "near": near, "fermat": tau, "mu": mu,
+                        "beta": np.hstack([bx, by]), "lens": lens, "extra_mu": extra_mu,
+                        "track_x": tx, "track_y": ty, "track_fermat": t_tau})
+        return out
+
+    def _tracked_images(self, lens, k, x, y, ok, bx, by):
+        """Positions and Fermat potentials of family k's tracked predicted images.
+
+        An image that Newton's method cannot find, or that lands on an observed image or
+        on another tracked one, does not exist in that row: its potential is NaN.
+        """
+        labels, sx, sy = self.tracked[k]
+        fam = self.families[k]
+        if not labels:
+            empty = np.zeros((len(x), 0))
+            return empty, empty, empty
+        tx, ty, err = newton_polish(lens, sx[None, :], sy[None, :], bx, by, fam.scale,
+                                    iterations=15, max_step=0.05, tolerance=1e-11)
+        exists = err < 1e-8
+        for i in range(x.shape[1]):
+            exists &= ~(ok[:, i:i + 1] & (np.hypot(tx - x[:, i:i + 1], ty - y[:, i:i + 1]) < 1e-4))
+        for i in range(len(labels)):
+            for j in range(i + 1, len(labels)):
+                exists[:, j] &= ~(np.hypot(tx[:, i] - tx[:, j], ty[:, i] - ty[:, j]) < 1e-4)
+        with np.errstate(all="ignore"):
+            tau = lens.fermat_potential(tx, ty, bx, by, fam.scale)
+        return tx, ty, np.where(exists, tau, np.nan)
+
+    def _watched_magnifications(self, lens, k, x, y, ok, bx, by) -> np.ndarray:
+        """|μ| of the watched unobserved images of family k, 0 where they do not exist."""
+        wx, wy = self.watched[k]
+        fam = self.families[k]
+        if len(wx) == 0:
+            return np.zeros((len(x), 0))
+        ex, ey, err = newton_polish(lens, wx[None, :], wy[None, :], bx, by, fam.scale,
+                                    iterations=15, max_step=0.05, tolerance=1e-11)
+        exists = err < 1e-8
+        # an extra image must be none of the observed ones and none of the other extras
+        for i in range(x.shape[1]):
+            exists &= ~(ok[:, i:i + 1] & (np.hypot(ex - x[:, i:i + 1], ey - y[:, i:i + 1]) < 1e-4))
+        for i in range(len(wx)):
+            for j in range(i + 1, len(wx)):
+                exists[:, j] &= ~(np.hypot(ex[:, i] - ex[:, j], ey[:, i] - ey[:, j]) < 1e-4)
+        with np.errstate(all="ignore"):
+            mu = np.abs(lens.magnification(ex, ey, fam.scale))
+        return np.where(exists & np.isfinite(mu), mu, np.where(exists, np.inf, 0.0))
+
+    def watch_unobserved(self, values: np.ndarray) -> None:
+        """Follow the images the model at ``values`` predicts but nobody observed.
+
+        Finds every image of each family at ``values`` (complete image finder) and keeps
+        those not matched to an observed one in ``self.watched``.
+        """
+        from lensdelay.lensing.images import find_images
+
+        values = np.asarray(values, dtype=float)
+        preds = self.predict(values[None, :])
+        single = self.model.lens(values[:self.n_model])
+        for k, (fam, pred) in enumerate(zip(self.families, preds)):
+            bx, by = values[self.source_slice(k)]
+            table = find_images(single, [bx], [by], fam.scale)
+            keep = np.ones(len(table), dtype=bool)
+            for i in range(len(fam.x)):
+                if pred["ok"][0, i]:
+                    keep &= np.hypot(table.x - pred["x"][0, i], table.y - pred["y"][0, i]) >= 1e-5
+            self.watched[k] = (np.asarray(table.x[keep], float), np.asarray(table.y[keep], float))
+
+    def extra_image_residuals(self, preds) -> np.ndarray:
+        """Penalty columns (P, n_watched): magnitude excess of watched images over the
+        faintest observed image of their family, / EXTRA_IMAGE_MAG_SCALE; 0 if fainter."""
+        cols = []
+        for pred in preds:
+            extra = pred["extra_mu"]
+            if extra.shape[1] == 0:
+                continue
+            observed = np.where(pred["ok"], np.abs(pred["mu"]), np.inf)
+            faintest = np.min(observed, axis=1, keepdims=True)
+            with np.errstate(all="ignore"):
+                excess = 2.5 * np.log10(extra / faintest)
+            excess = np.where((extra > 0) & np.isfinite(faintest), excess, 0.0)
+            cols.append(np.maximum(excess, 0.0) / EXTRA_IMAGE_MAG_SCALE)
+        if not cols:
+            return np.zeros((len(preds[0]["beta"]) if preds else 0, 0))
+        out = np.hstack(cols)
+        return np.where(np.isfinite(out), out, 1e6)
+
+    def residuals(self, params: np.ndarray, preds=None) -> np.ndarray:
+        """Normalised residuals of the constraints, then the extra-image penalties:
+        shape (P, n_constraints + n_watched).
+
+        ``preds`` may pass in :meth:`predict` of the same rows to avoid solving twice.
+        """
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        preds = self.predict(params) if preds is None else preds
+        return np.hstack([self.data_residuals(params, preds), self.extra_image_residuals(preds)])
+
+    def data_residuals(self, params: np.ndarray, preds=None) -> np.ndarray:
+        """Normalised residuals of the constraints alone, (P, n_constraints)."""
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        preds = self.predict(params) if preds is None else preds
+        parts = []
+        for fam, pred in zip(self.families, preds):
+            dx = (pred["x"] - fam.x) / fam.sigma
+            dy = (pred["y"] - fam.y) / fam.sigma
+            # where no image was found: the magnification-weighted source-plane offset,
+            # plus a large constant so that a missing image always costs more than any fit
+            lens = pred["lens"]
+            with np.errstate(all="ignore"):
+                sbx, sby = lens.source_position(fam.x[None, :], fam.y[None, :], fam.scale)
+                a11, a12, a22 = lens.jacobian(fam.x[None, :], fam.y[None, :], fam.scale)
+                det = a11 * a22 - a12 * a12
+                rx, ry = sbx - pred["beta"][:, :1], sby - pred["beta"][:, 1:]
+                fx = (a22 * rx - a12 * ry) / det / fam.sigma
+                fy = (a11 * ry - a12 * rx) / det / fam.sigma
+            near = pred["near"]
+            bad = ~pred["ok"] & ~near
+            dx = np.where(near, fx, dx)
+            dy = np.where(near, fy, dy)
+            dx = np.where(bad, MISSING_IMAGE_PENALTY + np.nan_to_num(np.abs(fx), posinf=1e6), dx)
+            dy = np.where(bad, MISSING_IMAGE_PENALTY + np.nan_to_num(np.abs(fy), posinf=1e6), dy)
+            parts += [dx, dy]
+        for i, (mean, sig) in {**self.priors, **self.centre_prior}.items():
+            diff = params[:, i] - mean
+            if self.periods[i]:     # an angle: the prior is about the nearest equivalent mean
+                diff = (diff + self.periods[i] / 2) % self.periods[i] - self.periods[i] / 2
+            parts.append((diff / sig)[:, None])
+        parts += self._derived_residuals(params, [np.hstack([p["fermat"], p["track_fermat"]]) for p in preds],
+                                         [p["mu"] for p in preds])
+        res = np.hstack(parts)
+        return np.where(np.isfinite(res), res, 1e6)
+
+    def _derived_residuals(self, params, fermat, mu) -> list[np.ndarray]:
+        """Residual columns of timing data and flux ratios (those in use).
+
+        ``fermat`` is per family, (P, n_img + n_tracked): the observed images, then the
+        tracked predicted ones; ``mu`` per family (P, n_img) at the observed images.
+        """
+        parts = []
+        if self.use_delays:
+            parts.append(self.timing.residuals(self.arrival_times(params, fermat)))
+        for data, m in zip(self.flux_data, mu):
+            if data is not None:
+                with np.errstate(all="ignore"):
+                    rel = -2.5 * np.log10(np.abs(m[:, 1:]) / np.abs(m[:, :1]))
+                parts.append((rel - data[1:]) / self.flux_floor_mag)
+        return parts
+
+    def arrival_times(self, params: np.ndarray, fermat) -> np.ndarray:
+        """Arrival times (days, per-family zero) of the timing columns, (P, n_columns).
+
+        t = (D_dt/c) τ at the reference cosmology, times (H_ref/H0)(1 − κ_ext).
+        """
+        params = np.atleast_2d(params)
+        scale = self.delay_scale(params)
+        index = {f.label: k for k, f in enumerate(self.families)}
+        cols = []
+        for fam_label, label in self.timing.columns:
+            k = index[fam_label]
+            fam = self.families[k]
+            j = fam.labels.index(label) if label in fam.labels else len(fam.labels) + self.tracked[k][0].index(label)
+            cols.append(fermat[k][:, j] * fam.days_per_arcsec2 * scale)
+        return np.stack(cols, axis=1)
+
+    def information_jacobian(self, params: np.ndarray, preds=None) -> np.ndarray:
+        """∂(normalised residuals)/∂(parameters) at the predicted images, (P, m, n).
+
+        Image positions move with the parameters by the implicit-function theorem
+        applied to the lens equation θ − s α(θ; p) = β:
+        dθ/dp = A⁻¹ (s ∂α/∂p + ∂β/∂p), A = I − s ∂α/∂θ (Schneider, Ehlers & Falco
+        1992, eq. 5.20 for A). ∂α/∂p (and the Fermat potential and magnification for
+        delay and flux rows) come from central differences in the parameters, at the
+        images moved along dθ/dp, so no lens equation is solved again. Rows of Gaussian
+        priors and of the lens-light centre are constant.
+        """
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        preds = self.predict(params) if preds is None else preds
+        n_rows, n_par = params.shape
+        step = _INFO_STEP * np.maximum(1.0, np.abs(params))              # (P, n)
+        # rows p + h e_k then p - h e_k for every k: (2 n P, n), k-major
+        eye = np.eye(n_par)
+        plus = params[None, :, :] + step.T[:, :, None] * eye[:, None, :]
+        minus = params[None, :, :] - step.T[:, :, None] * eye[:, None, :]
+        shifted = np.concatenate([plus, minus]).reshape(-1, n_par)
+        lens = self.lens_for(shifted)
+        need_derived = self.use_delays or self.use_fluxes
+        jac_parts, fermat_pm, mu_pm = [], [], []
+        for k, (fam, pred) in enumerate(zip(self.families, preds)):
+            n_obs = pred["x"].shape[1]
+            # observed images, then tracked predicted ones (timing rows may need them)
+            x = np.hstack([pred["x"], pred["track_x"]])                    # (P, I)
+            y = np.hstack([pred["y"], pred["track_y"]])
+            xs = np.tile(x, (2 * n_par, 1))
+            ys = np.tile(y, (2 * n_par, 1))
+            with np.errstate(all="ignore"):
+                ax, ay = lens.deflection(xs, ys, fam.scale)
+                a11, a12, a22 = pred["lens"].jacobian(x, y, fam.scale)
+            ax = ax.reshape(2, n_par, n_rows, -1)
+            ay = ay.reshape(2, n_par, n_rows, -1)
+            h = step.T[:, :, None]                                         # (n, P, 1)
+            dax = (ax[0] - ax[1]) / (2 * h)                                # (n, P, I)
+            day = (ay[0] - ay[1]) / (2 * h)
+            # the source position moves the images one for one
+            sl = self.source_slice(k)
+            dax[sl.start] += 1.0
+            day[sl.start + 1] += 1.0
+            with np.errstate(all="ignore"):
+                det = a11 * a22 - a12 * a12
+                dxdp = (a22 * dax - a12 * day) / det                       # (n, P, I)
+                dydp = (a11 * day - a12 * dax) / det
+            jac_parts += [np.moveaxis(dxdp[..., :n_obs] / fam.sigma, 0, -1),
+                          np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1)]
+            if need_derived:
+                moved_x = np.concatenate([x + h * dxdp, x - h * dxdp]).reshape(-1, x.shape[1])
+                moved_y = np.concatenate([y + h * dydp, y - h * dydp]).reshape(-1, x.shape[1])
+                bx = shifted[:, sl][:, :1]
+                by = shifted[:, sl][:, 1:]
+                with np.errstate(all="ignore"):
+                    tau_pm = lens.fermat_potential(moved_x, moved_y, bx, by, fam.scale)
+                    mu_pm.append(lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], fam.scale))
+                exists = np.tile(np.isfinite(pred["track_fermat"]), (2 * n_par, 1))
+                tau_pm[:, n_obs:] = np.where(exists, tau_pm[:, n_obs:], np.nan)
+                fermat_pm.append(tau_pm)
+        for i, (_, sig) in {**self.priors, **self.centre_prior}.items():
+            row = np.zeros((n_rows, 1, n_par))
+            row[:, 0, i] = 1.0 / sig
+            jac_parts.append(row)
+        jac = np.concatenate(jac_parts, axis=1)
+        if need_derived:
+            derived = np.hstack(self._derived_residuals(shifted, fermat_pm, mu_pm))
+            derived = derived.reshape(2, n_par, n_rows, -1)
+            ddiff = (derived[0] - derived[1]) / (2 * step.T[:, :, None])   # (n, P, m')
+            jac = np.concatenate([jac, np.moveaxis(ddiff, 0, -1)], axis=1)
+        return jac
+
+    @staticmethod
+    def _half_log_det_information(jac: np.ndarray) -> np.ndarray:
+        """½ log det(Jᵀ J) per row; −inf where the information is singular."""
+        with np.errstate(all="ignore"):
+            sign, logdet = np.linalg.slogdet(np.einsum("pmi,pmj->pij", jac, jac))
+        return np.where((sign > 0) & np.isfinite(logdet), 0.5 * logdet, -np.inf)
+
+    def log_prior(self, params: np.ndarray, preds=None) -> np.ndarray:
+        """log prior density (up to a constant) within the bounds, per row.
+
+        ``"flat"``: 0. ``"jeffreys"``: ½ log det(Jᵀ J) with J from
+        :meth:`information_jacobian`; −inf where the information is singular (a
+        parameter the constraints cannot see, e.g. the angle of a round lens).
+        """
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        if self.prior == "flat":
+            return np.zeros(len(params))
+        return self._half_log_det_information(self.information_jacobian(params, preds))
+
+    def evaluate(self, params: np.ndarray):
+        """log posterior, residuals and their Jacobian for rows (P, n) in one pass.
+
+        The residuals are those of the constraints (the extra-image penalty enters the
+        log posterior only). Rows outside the bounds get −inf and zero residuals and
+        Jacobian. Used by :class:`lensdelay.moves.FisherLangevinMove`, which needs the
+        local geometry.
+        """
+        params = np.atleast_2d(np.asarray(params, dtype=float))
+        inside = np.all((params >= self.lower) & (params <= self.upper), axis=1)
+        logp = np.full(len(params), -np.inf)
+        res = np.zeros((len(params), self.n_constraints))
+        jac = np.zeros((len(params), self.n_constraints, params.shape[1]))
+        if np.any(inside):
+            rows = params[inside]
+            preds = self.predict(rows)
+            r = self.data_residuals(rows, preds)
+            penalty = self.extra_image_residuals(preds)
+            j = self.information_jacobian(rows, preds)
+            prior = self._half_log_det_information(j) if self.prior == "jeffreys" else 0.0
+            logp[inside] = -0.5 * np.sum(r * r, axis=1) - 0.5 * np.sum(penalty ** 2, axis=1) + prior
+            res[inside], jac[inside] = r, np.where(np.isfinite(j), j, 0.0)
+        return logp, res, jac
+
+    def log_probability(self, params: np.ndarray) -> np.ndarray:
+        """log posterior (up to a constant) for walker rows (P, n); −inf outside bounds."""
+        params = np.atleast_2d(params)
+        inside = np.all((params >= self.lower) & (params <= self.upper), axis=1)
+        out = np.full(len(params), -np.inf)
+        if np.any(inside):
+            rows = params[inside]
+            preds = self.predict(rows)
+            r = self.residuals(rows, preds)
+            out[inside] = -0.5 * np.sum(r * r, axis=1) + self.log_prior(rows, preds)
+        return out

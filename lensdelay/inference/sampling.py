@@ -1,0 +1,205 @@
+"""Posterior sampling of a likelihood with emcee, checkpointed so runs can resume.
+
+The log-probability is evaluated for all walkers in one vectorised call
+(``vectorize=True``). Every ``checkpoint_every`` steps the chain, the walkers' state
+and the generator state are saved to ``DIR/chain.npz`` (numpy, no pickle); a run
+started again with ``resume=True`` continues from there and -- with the same seed --
+ends with exactly the chain an uninterrupted run would have made.
+"""
+from __future__ import annotations
+
+import sys
+import time
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import emcee
+import numpy as np
+
+from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
+from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
+from lensdelay.inference.moves import FisherLangevinMove
+from lensdelay.io.storage import atomic_save_npz, load_npz
+
+# our own warning says the chain is short; emcee's logger would say it again
+import logging as _logging
+
+_logging.getLogger("emcee").setLevel(_logging.ERROR)
+
+
+class _StopRequest:
+    """Set by a signal handler while sampling: stop at the next checkpoint.
+
+    Raising inside emcee's call of the likelihood would make emcee print a traceback,
+    so a signal only sets this flag, and the sampling loop stops cleanly after saving.
+    """
+
+    active = False
+    requested = False
+
+
+STOP = _StopRequest()
+
+#: Proposal moves :func:`sample` can use.
+MOVES = ("langevin", "stretch")
+
+
+@dataclass
+class Chain:
+    """Samples and diagnostics of one sampler run."""
+
+    names: list[str]
+    chain: np.ndarray            # (steps, walkers, ndim)
+    log_prob: np.ndarray         # (steps, walkers)
+    acceptance: np.ndarray       # per walker
+    autocorr: np.ndarray         # per parameter, steps
+    burn: int
+    thin: int
+    seed: int
+    warnings: list[str]
+    move: str = "langevin"
+
+    def samples(self) -> np.ndarray:
+        """Flat samples after burn-in and thinning: (n, ndim)."""
+        return self.chain[self.burn::self.thin].reshape(-1, self.chain.shape[-1])
+
+
+def _progress(step, total, start, stream):
+    if stream is None:
+        return
+    frac = step / total
+    bar = "#" * int(30 * frac)
+    rate = step / max(time.perf_counter() - start, 1e-9)
+    stream.write(f"\rsampling [{bar:<30}] {step}/{total} steps, {rate:.0f} steps/s")
+    if step == total:
+        stream.write("\n")
+    stream.flush()
+
+
+def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, seed: int = 1,
+           checkpoint_dir: str | Path | None = None, resume: bool = False,
+           checkpoint_every: int = 200, progress: bool = True, scales=None,
+           move: str = "langevin", components: bool = True) -> Chain:
+    """Sample the posterior of ``like`` around ``start``.
+
+    The walkers move in :class:`lensdelay.coordinates.SamplingCoordinates` (ellipticity
+    and shear components), where the valley is nearly straight; the density is that of
+    ``like`` (the change of variables is accounted for), and the returned chain is in
+    the model's own parameters. The checkpoint holds the sampling coordinates.
+
+    Parameters
+    ----------
+    like : ImageLikelihood or alike
+        Has ``log_probability(rows)``, ``evaluate(rows)`` (for the Langevin move),
+        ``names``, ``periods``, ``lower``, ``upper``.
+    start : ndarray
+        Best-fit vector; walkers start in a small Gaussian ball around it.
+    scales : ndarray, optional
+        Ball widths per parameter (e.g. the fit's standard errors).
+    move : {"langevin", "stretch"}
+        ``"langevin"`` (default): :class:`lensdelay.moves.FisherLangevinMove`, which
+        follows the local shape of the posterior, every walker its own chain;
+        ``"stretch"``: emcee's affine-invariant ensemble move (mixes slowly along
+        curved valleys; kept for comparison).
+    components : bool
+        Sample ellipticity and shear components (default); False samples the recipe's
+        own parameters (for comparison in the benchmark).
+    """
+    ndim = len(start)
+    if walkers < 2 * ndim:
+        walkers = 2 * ndim   # emcee's ensemble moves need twice as many walkers as parameters
+    rng = np.random.default_rng(seed)
+    coords = SamplingCoordinates(like.names, like.lower, like.upper, enabled=components)
+    target = SampledTarget(like, coords)
+    if move == "langevin":
+        # now and then an ensemble stretch: a walker that strays onto a steep wall, where
+        # the local geometry says little, is pulled back by the others
+        moves = [(FisherLangevinMove(target), 0.9), (emcee.moves.StretchMove(), 0.1)]
+    elif move == "stretch":
+        moves = emcee.moves.StretchMove()
+    else:
+        raise InputError(f"move must be one of {choices_text(MOVES)}, got {move!r}")
+    sampler = emcee.EnsembleSampler(walkers, ndim, target.log_probability, vectorize=True, moves=moves)
+    # emcee draws from its own RandomState; seed it from our generator
+    sampler.random_state = np.random.RandomState(int(rng.integers(2 ** 31))).get_state()
+    path = Path(checkpoint_dir) / "chain.npz" if checkpoint_dir else None
+    chain = np.empty((0, walkers, ndim))
+    logp = np.empty((0, walkers))
+    accepted = np.zeros(walkers)
+    # what a resumed run must share with the checkpoint besides seed and shape
+    setup = f"move {move}, prior {getattr(like, 'prior', 'flat')}, components {components}"
+    if resume and path is not None and path.exists():
+        saved = load_npz(path)
+        saved_setup = str(saved.get("setup", "an older lensdelay"))
+        if (int(saved["seed"]) != seed or saved["chain"].shape[1:] != (walkers, ndim)
+                or saved_setup != setup):
+            raise InputError(f"--resume found {path} from a different run (seed "
+                             f"{int(saved['seed'])}, shape {saved['chain'].shape[1:]}, {saved_setup}), "
+                             f"got seed {seed}, shape {(walkers, ndim)}, {setup}")
+        chain, logp, accepted = saved["chain"], saved["log_prob"], saved["accepted"]
+        state = emcee.State(chain[-1], log_prob=logp[-1])
+        sampler.random_state = ("MT19937", saved["rs_key"], int(saved["rs_pos"]),
+                                int(saved["rs_has_gauss"]), float(saved["rs_cached"]))
+    else:
+        scales = np.where(np.isfinite(scales), scales, 1e-3) if scales is not None else np.full(ndim, 1e-3)
+        ball = start + 0.5 * np.maximum(scales, 1e-6) * rng.standard_normal((walkers, ndim))
+        ball = np.clip(ball, like.lower + 1e-9, like.upper - 1e-9)
+        ball = coords.to_sampling(ball)
+        centre = coords.to_sampling(start)[0]
+        lp = target.log_probability(ball)
+        best = target.log_probability(centre[None, :])[0]
+        if not np.isfinite(best) and not np.any(np.isfinite(lp)):
+            raise FitError("no walker starts with a finite probability; check bounds and priors")
+        # The ball follows the linearised errors, but a curved valley puts some of it far up
+        # the walls (missing images, chi2 in the thousands): pull such starts halfway back
+        # to the best fit until they lie within the typical spread of the posterior.
+        if np.isfinite(best):
+            for _ in range(30):
+                far = ~(lp >= best - (ndim + 10.0))
+                if not np.any(far):
+                    break
+                ball[far] = centre + 0.5 * (ball[far] - centre)
+                lp[far] = target.log_probability(ball[far])
+            ball[~np.isfinite(lp)] = centre      # move bad starts onto the best fit
+        else:
+            ball[~np.isfinite(lp)] = ball[np.isfinite(lp)][0]
+        state = emcee.State(ball, log_prob=target.log_probability(ball))
+    done = len(chain)
+    stream = sys.stderr if progress else None
+    t0 = time.perf_counter()
+    STOP.active, STOP.requested = True, False
+    while done < steps:
+        n = min(checkpoint_every, steps - done)
+        sampler.reset()
+        state = sampler.run_mcmc(state, n, progress=False)
+        chain = np.concatenate([chain, sampler.get_chain()])
+        logp = np.concatenate([logp, sampler.get_log_prob()])
+        accepted = accepted + sampler.backend.accepted
+        done += n
+        if path is not None:
+            key, pos, has_gauss, cached = sampler.random_state[1:]
+            atomic_save_npz(path, chain=chain, log_prob=logp, accepted=accepted, seed=seed,
+                            rs_key=key, rs_pos=pos, rs_has_gauss=has_gauss, rs_cached=cached,
+                            names=np.array(like.names), setup=np.array(setup))
+        _progress(done, steps, t0, stream)
+        if STOP.requested:
+            STOP.active = False
+            raise KeyboardInterrupt
+    STOP.active = False
+    # τ in the sampling coordinates (no angle wraps there), from the second half so the
+    # walkers' initial spread does not inflate it
+    tau = emcee.autocorr.integrated_time(chain[len(chain) // 2:], quiet=True)
+    chain = coords.to_model(chain.reshape(-1, ndim)).reshape(chain.shape)
+    # wrap periodic parameters (position angles) around the best fit: no wrap straddling
+    for i, period in enumerate(like.periods):
+        if period:
+            chain[..., i] = start[i] + (chain[..., i] - start[i] + period / 2) % period - period / 2
+    notes = []
+    if steps < 50 * np.nanmax(tau):
+        notes.append(f"chain of {steps} steps is shorter than 50 autocorrelation times "
+                     f"(max tau = {np.nanmax(tau):.0f} steps); run longer before trusting the tails")
+        warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
+    burn = int(min(steps // 2, max(2 * np.nanmax(tau), steps // 5)))
+    thin = max(1, int(np.nanmax(tau) // 4))
+    return Chain(list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move)

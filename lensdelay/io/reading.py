@@ -1,0 +1,92 @@
+"""Reading files: TOML documents in, plain mappings out, every failure one line.
+
+This is the only place that opens user files. Physics modules never read files.
+"""
+from __future__ import annotations
+
+import hashlib
+import os
+import tomllib
+from pathlib import Path
+
+from lensdelay.errors import InputError
+from lensdelay.model.recipe import MassModel, parse_mass_entries
+
+
+def read_toml(path: str | os.PathLike) -> dict:
+    """Parse a TOML file, turning every failure into an :class:`InputError`."""
+    path = Path(path)
+    where = str(path)
+    if not path.exists():
+        raise InputError("file does not exist", where)
+    if path.is_dir():
+        raise InputError("is a directory, expected a TOML file", where)
+    try:
+        raw = path.read_bytes()
+    except OSError as err:
+        raise InputError(f"cannot be read ({err.strerror})", where) from err
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise InputError(f"must be UTF-8 text, got undecodable byte at offset {err.start}", where) from err
+    if not text.strip():
+        raise InputError("is empty, expected a TOML document", where)
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(f"is not valid TOML: {err}", where) from err
+    if not doc:
+        raise InputError("is empty, expected a TOML document (only comments or blank lines)", where)
+    return doc
+
+
+def file_hash(*paths: str | os.PathLike) -> str:
+    """SHA-256 over the bytes of the input files (provenance of outputs)."""
+    digest = hashlib.sha256()
+    for p in paths:
+        digest.update(Path(p).read_bytes())
+    return digest.hexdigest()
+
+
+def load_model(path: str | os.PathLike) -> tuple[MassModel, dict]:
+    """Read a model file: its ``[[mass]]`` recipe and the whole document."""
+    doc = read_toml(path)
+    try:
+        if "mass" not in doc:
+            raise InputError("mass is required: at least one [[mass]] table, got nothing")
+        model = parse_mass_entries(doc["mass"], label=Path(path).stem)
+    except InputError as err:
+        raise err.with_source(str(path)) from err.__cause__
+    return model, doc
+
+
+def load_scenario(path: str | os.PathLike, model_paths=None):
+    """Read and validate a scenario; ``model_paths`` (a list) replaces its mass model.
+
+    A ``model = "..."`` reference is looked up relative to the scenario's folder,
+    then the folder above it (where ``models/`` sits), then the working directory.
+    Returns the scenario and the list of input files (for the provenance hash).
+    """
+    from lensdelay.model.scenario import parse_scenario
+
+    path = Path(path)
+    doc = read_toml(path)
+    used = [path]
+
+    def resolve(ref: str) -> MassModel:
+        for base in (path.parent, path.parent.parent, Path.cwd()):
+            candidate = base / ref
+            if candidate.is_file():
+                used.append(candidate)
+                return load_model(candidate)[0]
+        raise InputError(f"model refers to {ref!r}, which does not exist next to the scenario "
+                         "or in the working directory")
+
+    if model_paths:
+        doc = {k: v for k, v in doc.items() if k not in ("mass", "model")}
+        doc["model"] = "<command line>"
+        scenario = parse_scenario(doc, str(path), load_model=lambda ref: load_model(model_paths[0])[0])
+        used.append(Path(model_paths[0]))
+    else:
+        scenario = parse_scenario(doc, str(path), load_model=resolve)
+    return scenario, used

@@ -1,0 +1,26 @@
+"""Relative arrival times from Fermat potentials and the time-delay distance.
+
+t(θ) = (D_dt / c) · τ(θ) · (π/648000)², τ = |θ − β|²/2 − ψ(θ) (Schneider, Ehlers &
+Falco 1992, eq. 5.45; CONVENTIONS.md). A delay Δt_i = t_i − t_ref is positive when
+image i shows an event *later* than the reference image. An external convergence
+κext outside the model multiplies every delay by (1 − κext) (Falco, Gorenstein &
+Shapiro 1985).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2
+
+
+def fermat_to_days(fermat_arcsec2, time_delay_distance_mpc, kappa_ext=0.0):
+    """Arrival time in days for Fermat potential(s) in arcsec² and D_dt in Mpc."""
+    return (np.asarray(fermat_arcsec2) * np.asarray(time_delay_distance_mpc)
+            * DAYS_PER_MPC_ARCSEC2 * (1.0 - np.asarray(kappa_ext)))
+
+
+def delays_relative_to(arrival_days, reference_index: int, axis: int = -1):
+    """Δt_i = t_i − t_ref along ``axis``."""
+    arrival_days = np.asarray(arrival_days)
+    ref = np.take(arrival_days, [reference_index], axis=axis)
+    return arrival_days - ref

@@ -1,0 +1,15 @@
+"""Mass profiles: one file a profile, all following :mod:`lensdelay.profiles.base`."""
+from lensdelay.lensing.profiles.base import PROFILES, AxisymmetricProfile, EllipticalProfile, MassProfile
+from lensdelay.lensing.profiles.nfw import NFWHalo
+from lensdelay.lensing.profiles.point import PointMass
+from lensdelay.lensing.profiles.power_law import EllipticalPowerLaw
+from lensdelay.lensing.profiles.shear import ExternalShear
+from lensdelay.lensing.profiles.sheet import MassSheet
+from lensdelay.lensing.profiles.sie import IsothermalEllipsoid
+from lensdelay.lensing.profiles.sis import SingularIsothermalSphere
+
+__all__ = [
+    "PROFILES", "MassProfile", "EllipticalProfile", "AxisymmetricProfile",
+    "PointMass", "SingularIsothermalSphere", "IsothermalEllipsoid",
+    "EllipticalPowerLaw", "NFWHalo", "ExternalShear", "MassSheet",
+]

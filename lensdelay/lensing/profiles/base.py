@@ -1,0 +1,267 @@
+"""The one pattern every mass profile follows.
+
+A profile is a frozen dataclass whose fields are its parameters (floats, or numpy
+arrays that broadcast against the coordinates so that many parameter sets -- e.g. all
+walkers of a sampler -- are evaluated in one call). It answers four questions at
+image-plane positions ``(x, y)`` in arcsec, in the sky frame of CONVENTIONS.md
+(x East, y North):
+
+* :meth:`MassProfile.convergence` -- κ, in units of the critical density at the
+  reference source redshift;
+* :meth:`MassProfile.deflection` -- (α_x, α_y) = ∇ψ, arcsec;
+* :meth:`MassProfile.potential` -- ψ, arcsec²;
+* :meth:`MassProfile.hessian` -- (ψ_xx, ψ_xy, ψ_yy).
+
+Subclasses write only their formulas, in the frame centred on the profile (and, for
+:class:`EllipticalProfile`, rotated so that x' lies along the major axis). The base
+classes do the shifting and rotating.
+"""
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from dataclasses import dataclass, field, fields
+from typing import ClassVar
+
+import numpy as np
+
+from lensdelay.errors import InputError
+
+#: Radii below this (arcsec) are treated as this, so that singular profiles give
+#: large but finite numbers at their centre instead of NaN.
+RADIUS_FLOOR = 1e-12
+
+#: name -> class, filled in as profile classes are defined.
+PROFILES: dict[str, type["MassProfile"]] = {}
+
+# Parameter rules: name -> (test on a float array, wording of the rule)
+_RULES = {
+    "any": (lambda v: np.ones_like(v, dtype=bool), "must be finite"),
+    "positive": (lambda v: v > 0, "must be > 0"),
+    "nonnegative": (lambda v: v >= 0, "must be >= 0"),
+    "axis_ratio": (lambda v: (v > 0) & (v <= 1), "must be in (0, 1]"),
+    "slope": (lambda v: (v > 1) & (v < 3), "must be in (1, 3)"),
+    "shear": (lambda v: (v >= 0) & (v < 1), "must be in [0, 1)"),
+    "sheet": (lambda v: v < 1, "must be < 1"),
+}
+
+
+def param(default=None, rule: str = "any", doc: str = ""):
+    """Declare a profile parameter with a validation rule (see ``_RULES``)."""
+    meta = {"rule": rule, "doc": doc}
+    if default is None:
+        return field(metadata=meta)
+    return field(default=default, metadata=meta)
+
+
+@dataclass(frozen=True, kw_only=True)
+class MassProfile(ABC):
+    """Base of every mass component.
+
+    Subclasses set the class attribute ``kind`` (the ``profile`` name in TOML files),
+    declare their parameters with :func:`param`, and implement the ``_local_*``
+    methods in coordinates centred on the profile.
+    """
+
+    kind: ClassVar[str] = ""
+    #: False for components defined about the origin (shear, sheet).
+    centred: ClassVar[bool] = True
+    #: True if the centre is a singularity that swallows the central image.
+    singular_centre: ClassVar[bool] = False
+    #: TOML key -> field name, where a trade name would clash with a method.
+    toml_aliases: ClassVar[dict[str, str]] = {}
+
+    x: float = param(0.0, doc="centre, arcsec East")
+    y: float = param(0.0, doc="centre, arcsec North")
+
+    def __init_subclass__(cls, **kwargs):
+        super().__init_subclass__(**kwargs)
+        if cls.kind:
+            PROFILES[cls.kind] = cls
+
+    def __post_init__(self) -> None:
+        back = {v: k for k, v in self.toml_aliases.items()}
+        for f in fields(self):
+            name = f"{self.kind}.{back.get(f.name, f.name)}"
+            value = np.asarray(getattr(self, f.name), dtype=float)
+            rule = f.metadata.get("rule", "any")
+            test, wording = _RULES[rule]
+            if not np.all(np.isfinite(value)):
+                raise InputError(f"{name} must be finite, got {getattr(self, f.name)}")
+            if not np.all(test(value)):
+                bad = value[~test(value)] if value.ndim else value
+                raise InputError(f"{name} {wording}, got {np.ravel(bad)[0]:g}")
+
+    # -- public API: sky frame ----------------------------------------------------
+    @classmethod
+    def parameter_names(cls) -> tuple[str, ...]:
+        """Names of the parameters a TOML ``[[mass]]`` entry may give."""
+        back = {v: k for k, v in cls.toml_aliases.items()}
+        names = tuple(back.get(f.name, f.name) for f in fields(cls))
+        return names if cls.centred else tuple(n for n in names if n not in ("x", "y"))
+
+    @classmethod
+    def required_names(cls) -> tuple[str, ...]:
+        """Parameters without a default, by their TOML names."""
+        from dataclasses import MISSING
+
+        back = {v: k for k, v in cls.toml_aliases.items()}
+        return tuple(back.get(f.name, f.name) for f in fields(cls)
+                     if f.default is MISSING and f.default_factory is MISSING)
+
+    @classmethod
+    def from_values(cls, values: dict) -> "MassProfile":
+        """Build from TOML-named values (floats or arrays)."""
+        return cls(**{cls.toml_aliases.get(k, k): v for k, v in values.items()})
+
+    def values(self) -> dict:
+        """TOML-named parameter values of this component."""
+        back = {v: k for k, v in self.toml_aliases.items()}
+        names = self.parameter_names()
+        return {back.get(f.name, f.name): getattr(self, f.name) for f in fields(self)
+                if back.get(f.name, f.name) in names}
+
+    def _shift(self, x, y):
+        x = np.asarray(x, dtype=float)
+        y = np.asarray(y, dtype=float)
+        if np.ndim(self.x) == 0 and np.ndim(self.y) == 0 and self.x == 0 and self.y == 0:
+            return x, y   # centred on the origin: no array pass needed
+        return x - self.x, y - self.y
+
+    def convergence(self, x, y) -> np.ndarray:
+        """Convergence κ at ``(x, y)`` (arcsec)."""
+        return self._frame_convergence(*self._shift(x, y))
+
+    def deflection(self, x, y) -> tuple[np.ndarray, np.ndarray]:
+        """Deflection (α_x, α_y) in arcsec at ``(x, y)``."""
+        return self._frame_deflection(*self._shift(x, y))
+
+    def potential(self, x, y) -> np.ndarray:
+        """Lensing potential ψ in arcsec² at ``(x, y)``."""
+        return self._frame_potential(*self._shift(x, y))
+
+    def deflection_and_potential(self, x, y):
+        """(α_x, α_y, ψ) in one pass (shares the work where a profile can)."""
+        return self._frame_deflection_potential(*self._shift(x, y))
+
+    def hessian(self, x, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Second derivatives (ψ_xx, ψ_xy, ψ_yy) of the potential at ``(x, y)``."""
+        return self._frame_hessian(*self._shift(x, y))
+
+    # -- frame hooks: overridden by EllipticalProfile to rotate ---------------------
+    def _frame_convergence(self, dx, dy):
+        return self._local_convergence(dx, dy)
+
+    def _frame_deflection(self, dx, dy):
+        return self._local_deflection(dx, dy)
+
+    def _frame_potential(self, dx, dy):
+        return self._local_potential(dx, dy)
+
+    def _frame_hessian(self, dx, dy):
+        return self._local_hessian(dx, dy)
+
+    def _frame_deflection_potential(self, dx, dy):
+        return self._local_deflection_potential(dx, dy)
+
+    def _local_deflection_potential(self, x, y):
+        """Override when deflection and potential share work."""
+        return (*self._local_deflection(x, y), self._local_potential(x, y))
+
+    # -- formulas, written by each profile -----------------------------------------
+    @abstractmethod
+    def _local_convergence(self, x, y): ...
+
+    @abstractmethod
+    def _local_deflection(self, x, y): ...
+
+    @abstractmethod
+    def _local_potential(self, x, y): ...
+
+    @abstractmethod
+    def _local_hessian(self, x, y): ...
+
+
+@dataclass(frozen=True, kw_only=True)
+class EllipticalProfile(MassProfile):
+    """A profile with elliptical symmetry about its centre.
+
+    The local frame has x' along the major axis at ``position_angle`` (degrees East
+    of North): x' = sin φ·x + cos φ·y, y' = −cos φ·x + sin φ·y.
+    """
+
+    axis_ratio: float = param(1.0, rule="axis_ratio", doc="minor/major axis ratio q")
+    position_angle: float = param(0.0, doc="major axis, degrees East of North")
+
+    def _rotation(self):
+        phi = np.deg2rad(self.position_angle)
+        return np.sin(phi), np.cos(phi)
+
+    def _to_local(self, dx, dy):
+        s, c = self._rotation()
+        return s * dx + c * dy, -c * dx + s * dy
+
+    def _frame_convergence(self, dx, dy):
+        return self._local_convergence(*self._to_local(dx, dy))
+
+    def _frame_deflection(self, dx, dy):
+        s, c = self._rotation()
+        ax, ay = self._local_deflection(*self._to_local(dx, dy))
+        return s * ax - c * ay, c * ax + s * ay
+
+    def _frame_potential(self, dx, dy):
+        return self._local_potential(*self._to_local(dx, dy))
+
+    def _frame_deflection_potential(self, dx, dy):
+        s, c = self._rotation()
+        ax, ay, pot = self._local_deflection_potential(*self._to_local(dx, dy))
+        return s * ax - c * ay, c * ax + s * ay, pot
+
+    def _frame_hessian(self, dx, dy):
+        s, c = self._rotation()
+        h11, h12, h22 = self._local_hessian(*self._to_local(dx, dy))
+        return (s * s * h11 - 2 * s * c * h12 + c * c * h22,
+                s * c * (h11 - h22) + (s * s - c * c) * h12,
+                c * c * h11 + 2 * s * c * h12 + s * s * h22)
+
+
+@dataclass(frozen=True, kw_only=True)
+class AxisymmetricProfile(MassProfile):
+    """A circularly symmetric profile, defined by three radial functions.
+
+    Subclasses give κ(r), the deflection magnitude α(r) = r·κ̄(<r) and ψ(r); the
+    vector deflection and the Hessian follow from ψ_rr = 2κ − α/r and ψ_φφ/r² = α/r
+    (Schneider, Ehlers & Falco 1992, Sect. 8.1).
+    """
+
+    @abstractmethod
+    def _kappa_r(self, r): ...
+
+    @abstractmethod
+    def _alpha_r(self, r): ...
+
+    @abstractmethod
+    def _psi_r(self, r): ...
+
+    @staticmethod
+    def _radius(x, y):
+        return np.maximum(np.hypot(x, y), RADIUS_FLOOR)
+
+    def _local_convergence(self, x, y):
+        return self._kappa_r(self._radius(x, y))
+
+    def _local_deflection(self, x, y):
+        r = self._radius(x, y)
+        a_over_r = self._alpha_r(r) / r
+        return a_over_r * x, a_over_r * y
+
+    def _local_potential(self, x, y):
+        return self._psi_r(self._radius(x, y))
+
+    def _local_hessian(self, x, y):
+        r = self._radius(x, y)
+        tangential = self._alpha_r(r) / r
+        radial = 2.0 * self._kappa_r(r) - tangential
+        nx, ny = x / r, y / r
+        return (radial * nx * nx + tangential * ny * ny,
+                (radial - tangential) * nx * ny,
+                radial * ny * ny + tangential * nx * nx)

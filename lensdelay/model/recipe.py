@@ -1,0 +1,236 @@
+"""Mass-model recipes: which components, which parameters vary, within what bounds.
+
+A recipe is a list of ``[[mass]]`` entries. Every parameter is a number (held fixed)
+or a table ``{ value = , min = , max = , prior = [mean, sigma] }`` (free). This module
+turns such mappings (already parsed from TOML) into :class:`ModelParameter` objects,
+validates them, and builds :class:`lensdelay.lens.Lens` objects for given values --
+scalars for a fit, or arrays for many posterior samples at once.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from lensdelay.errors import InputError, choices_text, suggest
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import PROFILES, MassProfile
+
+#: Default search bounds for free parameters, by parameter name (arcsec, degrees).
+DEFAULT_BOUNDS = {
+    "einstein_radius": (1e-3, 100.0),
+    "axis_ratio": (0.1, 1.0),
+    "position_angle": (-math.inf, math.inf),
+    "core": (0.0, 10.0),
+    "slope": (1.2, 2.8),
+    "kappa_s": (1e-4, 10.0),
+    "scale_radius": (0.1, 500.0),
+    "strength": (0.0, 0.5),
+    "convergence": (-0.5, 0.9),
+    "x": (-math.inf, math.inf),
+    "y": (-math.inf, math.inf),
+}
+#: Angles defined modulo 180 degrees.
+PERIODIC = {"position_angle": 180.0}
+
+
+@dataclass(frozen=True)
+class ModelParameter:
+    """One parameter of a recipe: its value, whether it varies, bounds and prior.
+
+    Attributes
+    ----------
+    name : str
+        ``"mass[i].name"`` -- unique within the model.
+    value : float
+        Fixed value, or the starting value of a free parameter.
+    vary : bool
+    min, max : float
+        Hard bounds (only for free parameters).
+    prior : (float, float) or None
+        Gaussian prior (mean, sigma).
+    """
+
+    name: str
+    value: float
+    vary: bool = False
+    min: float = -math.inf
+    max: float = math.inf
+    prior: tuple[float, float] | None = None
+
+    @property
+    def period(self) -> float | None:
+        """180 for position angles (defined modulo 180°), else None."""
+        return PERIODIC.get(self.name.rsplit(".", 1)[-1])
+
+
+@dataclass(frozen=True)
+class ComponentRecipe:
+    """One ``[[mass]]`` entry: the profile kind and its parameters."""
+
+    kind: str
+    parameters: dict[str, ModelParameter] = field(default_factory=dict)
+
+    @property
+    def profile_class(self) -> type[MassProfile]:
+        return PROFILES[self.kind]
+
+
+@dataclass(frozen=True)
+class MassModel:
+    """A full recipe; builds lenses from parameter vectors.
+
+    Attributes
+    ----------
+    components : tuple of ComponentRecipe
+    label : str
+        A name for reports (e.g. the model file's stem).
+    """
+
+    components: tuple[ComponentRecipe, ...]
+    label: str = "model"
+
+    # -- parameters -----------------------------------------------------------------
+    @property
+    def parameters(self) -> list[ModelParameter]:
+        return [p for c in self.components for p in c.parameters.values()]
+
+    @property
+    def free(self) -> list[ModelParameter]:
+        """Free parameters, in a fixed order."""
+        return [p for p in self.parameters if p.vary]
+
+    @property
+    def free_names(self) -> list[str]:
+        return [p.name for p in self.free]
+
+    def start_vector(self) -> np.ndarray:
+        return np.array([p.value for p in self.free])
+
+    def with_values(self, values: dict[str, float]) -> "MassModel":
+        """A copy whose parameters take ``values`` (by full name) as their values."""
+        comps = []
+        for c in self.components:
+            params = {k: (replace(p, value=float(values[p.name])) if p.name in values else p)
+                      for k, p in c.parameters.items()}
+            comps.append(ComponentRecipe(c.kind, params))
+        return MassModel(tuple(comps), self.label)
+
+    def fixed(self) -> "MassModel":
+        """A copy with every parameter held at its value."""
+        comps = [ComponentRecipe(c.kind, {k: replace(p, vary=False) for k, p in c.parameters.items()})
+                 for c in self.components]
+        return MassModel(tuple(comps), self.label)
+
+    # -- building lenses -------------------------------------------------------------
+    def lens(self, free_values=None) -> Lens:
+        """Build the lens for a vector of free-parameter values.
+
+        ``free_values`` may be 1-D (one model) or have shape ``(n_free, n, 1)`` etc.
+        so that every profile parameter is an array broadcasting against the
+        coordinates (many models in one call).
+        """
+        free_values = self.start_vector() if free_values is None else free_values
+        lookup = dict(zip(self.free_names, free_values))
+        comps = []
+        for c in self.components:
+            vals = {k: lookup.get(p.name, p.value) for k, p in c.parameters.items()}
+            comps.append(c.profile_class.from_values(vals))
+        return Lens(tuple(comps))
+
+    def n_free(self) -> int:
+        return len(self.free)
+
+
+# -- parsing -------------------------------------------------------------------------
+def _number(value, where: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"{where} must be a number, got {value!r}")
+    value = float(value)
+    if not math.isfinite(value):
+        raise InputError(f"{where} must be finite, got {value}")
+    return value
+
+
+def parse_parameter(name: str, raw, where: str) -> ModelParameter:
+    """Parse a number (fixed) or a ``{value, min, max, prior, vary}`` table (free)."""
+    if not isinstance(raw, dict):
+        return ModelParameter(where, _number(raw, where))
+    allowed = ("value", "min", "max", "prior", "vary")
+    for key in raw:
+        if key not in allowed:
+            raise InputError(f"{where}.{key} is not a parameter field{suggest(key, allowed)}; "
+                             f"allowed: {choices_text(allowed)}, got {key!r}")
+    default_lo, default_hi = DEFAULT_BOUNDS.get(name, (-math.inf, math.inf))
+    lo = _number(raw["min"], f"{where}.min") if "min" in raw else default_lo
+    hi = _number(raw["max"], f"{where}.max") if "max" in raw else default_hi
+    if lo > hi:
+        raise InputError(f"{where}.min must not exceed {where}.max, got min = {lo:g} > max = {hi:g}")
+    prior = None
+    if "prior" in raw:
+        pr = raw["prior"]
+        if not (isinstance(pr, list) and len(pr) == 2):
+            raise InputError(f"{where}.prior must be [mean, sigma], got {pr!r}")
+        mean = _number(pr[0], f"{where}.prior mean")
+        sigma = _number(pr[1], f"{where}.prior sigma")
+        if sigma <= 0:
+            raise InputError(f"{where}.prior sigma must be > 0, got {sigma:g}")
+        prior = (mean, sigma)
+    if "value" in raw:
+        value = _number(raw["value"], f"{where}.value")
+    elif prior is not None:
+        value = prior[0]
+    elif math.isfinite(lo) and math.isfinite(hi):
+        value = 0.5 * (lo + hi)
+    else:
+        raise InputError(f"{where} needs a 'value' (or a prior, or finite min and max), got {raw!r}")
+    if not lo <= value <= hi:
+        raise InputError(f"{where}.value must lie within [min, max] = [{lo:g}, {hi:g}], got {value:g}")
+    vary = raw.get("vary", True)
+    if not isinstance(vary, bool):
+        raise InputError(f"{where}.vary must be true or false, got {vary!r}")
+    return ModelParameter(where, value, vary, lo, hi, prior)
+
+
+def parse_mass_entries(entries, label: str = "model") -> MassModel:
+    """Turn the list of ``[[mass]]`` tables into a validated :class:`MassModel`."""
+    if not isinstance(entries, list) or not entries:
+        raise InputError("mass must be a non-empty list of [[mass]] tables, "
+                         f"got {type(entries).__name__}")
+    comps = []
+    for i, entry in enumerate(entries):
+        where = f"mass[{i}]"
+        if not isinstance(entry, dict):
+            raise InputError(f"{where} must be a table, got {entry!r}")
+        kind = entry.get("profile")
+        if kind is None:
+            raise InputError(f"{where}.profile is required; allowed: {choices_text(PROFILES)}, got nothing")
+        if kind not in PROFILES:
+            raise InputError(f"{where}.profile must be one of {choices_text(PROFILES)}"
+                             f"{suggest(str(kind), PROFILES)}, got {kind!r}")
+        cls = PROFILES[kind]
+        names = cls.parameter_names()
+        params = {}
+        for key, raw in entry.items():
+            if key == "profile":
+                continue
+            if key not in names:
+                hint = suggest(key, names)
+                extra = (" (shear and sheet are centred on the origin)"
+                         if key in ("x", "y") and not cls.centred else "")
+                raise InputError(f"{where}.{key} is not a parameter of {kind}{hint}{extra}; "
+                                 f"allowed: {choices_text(names)}, got {key!r}")
+            params[key] = parse_parameter(key, raw, f"{where}.{key}")
+        for req in cls.required_names():
+            if req not in params:
+                raise InputError(f"{where}.{req} is required for profile {kind}, got nothing")
+        # check the physical rules on values and on the finite bounds
+        values = {k: p.value for k, p in params.items()}
+        try:
+            cls.from_values(values)
+        except InputError as err:
+            message = err.bare_message.replace(f"{kind}.", f"{where}.", 1)
+            raise InputError(message) from err
+        comps.append(ComponentRecipe(kind, params))
+    return MassModel(tuple(comps), label)

@@ -1,0 +1,7 @@
+"""The installed version of lensdelay (from the package metadata)."""
+from importlib.metadata import PackageNotFoundError, version as _version
+
+try:
+    __version__ = _version("lensdelay")
+except PackageNotFoundError:  # running from a source tree without installing
+    __version__ = "0.0.0+unknown"
