@@ -12,7 +12,7 @@ from lensdelay.cli.main import main
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
 from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2, LensDistances
 from lensdelay.errors import LensdelayWarning
-from lensdelay.forecast.pipeline import run_forecast
+from lensdelay.api import forecast as run_forecast
 from lensdelay.lensing.images import find_images
 from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
@@ -200,7 +200,7 @@ def test_several_models_are_combined_with_weights(tmp_path):
     path = _quad_path(tmp_path)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        res = run_forecast(str(path), model_paths=["models/sie_shear.toml", "models/power_law_shear.toml"], **FAST)
+        res = run_forecast(str(path), models=["models/sie_shear.toml", "models/power_law_shear.toml"], **FAST)
     assert res["model_labels"] == ["sie_shear", "power_law_shear"]
     assert res["model_weights"].sum() == pytest.approx(1.0)
     d = next(im for im in res["images"] if im["label"] == "D")

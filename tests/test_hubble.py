@@ -10,7 +10,7 @@ from lensdelay.forecast.budget import ddt_log_derivatives
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
 from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2, LensDistances, time_dilation
 from lensdelay.errors import LensdelayWarning
-from lensdelay.cli.hubble import run_hubble
+from lensdelay.api import infer_h0 as run_hubble
 from lensdelay.lensing.images import find_images
 from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid, MassSheet, SingularIsothermalSphere

@@ -22,8 +22,10 @@ from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.inference.fit import fit
 from lensdelay.forecast.samples import image_tracks
-from lensdelay.io.forecast_files import day_of, forecast_text, median_day
-from lensdelay.forecast.pipeline import _status, parse_sightings, run_forecast
+from lensdelay.io.forecast_files import day_of, median_day
+from lensdelay.report.text import forecast_text
+from lensdelay.api import forecast as run_forecast
+from lensdelay.forecast.pipeline import _status, parse_sightings
 from lensdelay.lensing.lens import Lens
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.io.reading import load_scenario
@@ -300,7 +302,7 @@ def test_model_family_term_is_the_spread_between_models(rng):
 
 def test_budget_model_family_term_in_a_two_model_forecast(tmp_path):
     path = _quad(tmp_path)
-    res = _quiet_forecast(str(path), model_paths=["models/sie_shear.toml", "models/power_law_shear.toml"],
+    res = _quiet_forecast(str(path), models=["models/sie_shear.toml", "models/power_law_shear.toml"],
                           weighting="equal", now=Time("2027-03-02", scale="utc"), **FAST)
     from lensdelay.forecast.budget import delay_budget
 

@@ -1,57 +1,26 @@
-"""Sub-commands check and fit: argument wiring; registers forecast and hubble too."""
+"""``lensdelay fit``: fit a mass model to the image positions (and sample its posterior)."""
 from __future__ import annotations
 
 import sys
-from pathlib import Path
 
-from lensdelay.errors import InputError
+import numpy as np
 
-
-def output_folder(path: str | None) -> Path | None:
-    """The ``--out`` folder (created only when results are written); refuses a file."""
-    if path is None:
-        return None
-    out = Path(path)
-    if out.exists() and not out.is_dir():
-        raise InputError(f"--out must be a folder, got the file {path!r}")
-    return out
+from lensdelay.api import fit_scenario
+from lensdelay.cli.options import add_prior_argument, number, output_folder
+from lensdelay.io.fit_files import fit_json
+from lensdelay.io.storage import write_output_set
+from lensdelay.report.figures import corner_figure, residual_figure, sky_figure
+from lensdelay.report.text import fit_text
 
 
-def add_prior_argument(parser) -> None:
-    """``--prior``, shared by fit, forecast and hubble."""
-    from lensdelay.inference.likelihood import PRIOR_CHOICES
-
-    parser.add_argument("--prior", choices=PRIOR_CHOICES, default="flat",
-                        help="prior of the mass-model posterior within the bounds: flat in the "
-                             "recipe's parameters (default) or Jeffreys' (Fisher information)")
-
-
-def cmd_check(args) -> int:
-    from lensdelay.cli.commands import check_command
-
-    res = check_command(args.scenario, args.model)
-    sc, like = res["scenario"], res["likelihood"]
-    print(f"{args.scenario}: ok — scenario {sc.name!r}, {len(sc.families)} famil"
-          f"{'y' if len(sc.families) == 1 else 'ies'}, {sc.n_images} images, model "
-          f"{sc.model.label!r} with {like.n_parameters} free parameters for {like.n_constraints} "
-          f"constraints (dof = {like.dof})")
-    return 0
-
-
-def cmd_fit(args) -> int:
-    from lensdelay.cli.commands import fit_command, fit_json
-    from lensdelay.report.text import fit_text
-
+def run(args) -> int:
     out = output_folder(args.out)
-    res = fit_command(args.scenario, args.model, use_delays=args.use_delays,
-                      use_fluxes=args.use_fluxes, flux_floor=args.flux_floor, sample=args.sample,
-                      walkers=args.walkers, steps=args.steps, seed=args.seed, resume=args.resume,
-                      out_dir=out, progress=not args.quiet, prior=args.prior)
+    res = fit_scenario(args.scenario, args.model, use_delays=args.use_delays,
+                       use_fluxes=args.use_fluxes, flux_floor=args.flux_floor, sample=args.sample,
+                       walkers=args.walkers, steps=args.steps, seed=args.seed, resume=args.resume,
+                       checkpoint_dir=out, progress=not args.quiet, prior=args.prior)
     print(fit_text(res))
     if out is not None:
-        from lensdelay.report.figures import corner_figure, residual_figure, sky_figure
-        from lensdelay.io.storage import write_output_set
-
         doc = fit_json(res)
         like, fr = res["likelihood"], res["fit"]
         figs = {"fit_sky": sky_figure(like, fr.values, fr, title=f"{res['scenario'].name}: "
@@ -60,8 +29,6 @@ def cmd_fit(args) -> int:
         arrays = {}
         ch = res["chain"]
         if ch is not None:
-            import numpy as np
-
             figs["corner"] = corner_figure(ch.samples(), ch.names)
             arrays["samples.npz"] = {"samples": ch.samples(), "names": np.array(ch.names),
                                      "log_prob": ch.log_prob[ch.burn::ch.thin].ravel(), "seed": ch.seed}
@@ -71,15 +38,10 @@ def cmd_fit(args) -> int:
     return 0
 
 
-def register(sub, number) -> None:
-    p = sub.add_parser("check", help="validate a scenario without running anything")
-    p.add_argument("scenario", help="scenario TOML file")
-    p.add_argument("--model", action="append", help="model TOML replacing the scenario's mass model")
-    p.set_defaults(func=cmd_check)
-
+def register(sub) -> None:
     p = sub.add_parser("fit", help="fit a mass model to the image positions")
     p.add_argument("scenario", help="scenario TOML file")
-    p.add_argument("--model", action="append", help="model TOML replacing the scenario's mass model")
+    p.add_argument("--model", help="model TOML replacing the scenario's mass model")
     p.add_argument("--out", help="folder for fit.json, figures, samples and checkpoints")
     p.add_argument("--use-delays", action="store_true", help="fit measured delays too (H0 free)")
     p.add_argument("--use-fluxes", action="store_true",
@@ -93,10 +55,4 @@ def register(sub, number) -> None:
     p.add_argument("--resume", action="store_true", help="continue the chain checkpointed in --out")
     add_prior_argument(p)
     p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.set_defaults(func=cmd_fit)
-    from lensdelay.cli import forecast as forecast_cli
-
-    forecast_cli.register(sub, number)
-    from lensdelay.cli import hubble as hubble_cli
-
-    hubble_cli.register(sub, number)
+    p.set_defaults(func=run)

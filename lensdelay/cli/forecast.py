@@ -1,62 +1,35 @@
-"""``lensdelay forecast``: argument wiring and output writing."""
+"""``lensdelay forecast``: the main job, from arguments to files and text."""
 from __future__ import annotations
 
 import sys
 
-from lensdelay.errors import InputError
-from lensdelay.model.scenario import Site, parse_date
+from lensdelay.api import forecast
+from lensdelay.cli.options import add_prior_argument, number, output_folder, site_from_args
+from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
+from lensdelay.io.storage import write_output_set
+from lensdelay.model.scenario import parse_date
+from lensdelay.report.figures import budget_figure, timeline_figure
+from lensdelay.report.text import budget_text, forecast_text
 
 
-def _site_from_args(args):
-    if args.site is not None and args.elongation is not None:
-        raise InputError("give --site or --elongation, got both")
-    if args.site is not None:
-        lat, lon, height = args.site
-        if not -90 <= lat <= 90:
-            raise InputError(f"--site latitude must be within [-90, 90] degrees, got {lat:g}")
-        if not -180 <= lon <= 360:
-            raise InputError(f"--site longitude must be within [-180, 360] degrees, got {lon:g}")
-        return Site("ground", lat, lon, height)
-    if args.elongation is not None:
-        lo, hi = args.elongation
-        if not 0 <= lo < hi <= 180:
-            raise InputError(f"--elongation must satisfy 0 <= min < max <= 180 degrees, got {lo:g} {hi:g}")
-        return Site("space", solar_elongation=(lo, hi))
-    return None
-
-
-def cmd_forecast(args) -> int:
-    from lensdelay.cli.fit import output_folder
-    from lensdelay.report.figures import timeline_figure
-    from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, forecast_text, table_text
-    from lensdelay.forecast.pipeline import run_forecast
-    from lensdelay.io.storage import write_output_set
-
+def run(args) -> int:
     out = output_folder(args.out)
-    res = run_forecast(args.scenario, args.model, n_samples=args.samples, seed=args.seed, h0=args.h0,
-                       cosmology_name=args.cosmology, kappa_ext=args.kappa_ext,
-                       microlensing=args.microlensing, depth=args.depth, weighting=args.weights,
-                       seen=args.seen, site=_site_from_args(args), walkers=args.walkers,
-                       steps=args.steps, progress=not args.quiet, prior=args.prior,
-                       now=parse_date(args.now, "--now") if args.now is not None else None)
-    if getattr(args, "budget", True):
-        from lensdelay.forecast.budget import delay_budget
-
-        res["budget"] = delay_budget(res)
+    now = parse_date(args.now, "--now") if args.now is not None else None
+    res = forecast(args.scenario, args.model, budget=args.budget, n_samples=args.samples, seed=args.seed,
+                   h0=args.h0, cosmology_name=args.cosmology, kappa_ext=args.kappa_ext,
+                   microlensing=args.microlensing, depth=args.depth, weighting=args.weights,
+                   seen=args.seen, site=site_from_args(args), walkers=args.walkers,
+                   steps=args.steps, progress=not args.quiet, prior=args.prior, now=now)
     # build everything before writing anything
     doc = forecast_json(res)
     ecsv = table_text(forecast_table(res))
     ics = forecast_ics(res)
     text = forecast_text(res)
     if "budget" in res:
-        from lensdelay.report.text import budget_text
-
         text += "\n\n" + budget_text(res["budget"])
     if out is not None:
         figs = {"timeline": timeline_figure(res)}
         if "budget" in res:
-            from lensdelay.report.figures import budget_figure
-
             figs["budget"] = budget_figure(res["budget"])
         write_output_set(out, json_name="forecast.json", doc=doc, figures=figs,
                          texts={"forecast.ecsv": ecsv, "forecast.ics": ics},
@@ -67,7 +40,7 @@ def cmd_forecast(args) -> int:
     return 0
 
 
-def register(sub, number) -> None:
+def register(sub) -> None:
     p = sub.add_parser("forecast", help="when, where and how bright the event reappears")
     p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--model", action="append", help="model TOML (repeat for several models)")
@@ -95,12 +68,10 @@ def register(sub, number) -> None:
     p.add_argument("--elongation", nargs=2, type=number, metavar=("MIN", "MAX"),
                    help="space observatory: allowed solar elongation range, degrees")
     p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
-    from lensdelay.cli.fit import add_prior_argument
-
     add_prior_argument(p)
     p.add_argument("--steps", type=int, default=2000,
                    help="sampler steps (default 2000; more when the measurements need a new sample)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--no-budget", dest="budget", action="store_false",
                    help="skip the uncertainty budget table and figure")
-    p.set_defaults(func=cmd_forecast, budget=True)
+    p.set_defaults(func=run, budget=True)

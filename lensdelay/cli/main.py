@@ -1,18 +1,24 @@
-"""The ``lensdelay`` command line. Thin: parse arguments, call the library, print.
+"""The ``lensdelay`` command line. Thin: parse arguments, call :mod:`lensdelay.api`, print.
 
 Every :class:`~lensdelay.errors.LensdelayError` becomes one line on stderr and exit
-status 2; nothing is written when input is bad.
+status 2; nothing is written when input is bad. The command line, not the library,
+sets process-wide state: astropy never downloads, warnings print as one clean line.
 """
 from __future__ import annotations
 
 import argparse
-import json
-import math
+import signal
 import sys
+import threading
 import warnings
 
+from lensdelay.cli import check, fit, forecast, hubble, images
+from lensdelay.cli.options import with_flags
+from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
+from lensdelay.inference.sampling import STOP
 from lensdelay.version import __version__
-from lensdelay.errors import LensdelayError, LensdelayWarning
+
+SUBCOMMANDS = (images, check, fit, forecast, hubble)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -22,51 +28,13 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"lensdelay: argument error: {message}\n")
 
 
-def _finite(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError as err:
-        raise argparse.ArgumentTypeError(f"must be a number, got {text!r}") from err
-    if not math.isfinite(value):
-        raise argparse.ArgumentTypeError(f"must be finite, got {text!r}")
-    return value
-
-
-def _cmd_images(args) -> int:
-    from lensdelay.cli.commands import images_command
-
-    result = images_command(args.model, args.source[0], args.source[1],
-                            source_redshift=args.source_redshift,
-                            lens_redshift=args.lens_redshift)
-    if args.json:
-        print(json.dumps(result, indent=2))
-    else:
-        from lensdelay.report.text import images_text
-
-        print(images_text(result))
-    return 0
-
-
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="lensdelay", description=(
         "Forecast when, where and how bright a strongly lensed transient reappears."))
     parser.add_argument("--version", action="version", version=f"lensdelay {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
-
-    p = sub.add_parser("images", help="all images of a point source behind a mass model")
-    p.add_argument("model", help="model TOML file with [[mass]] entries")
-    p.add_argument("--source", nargs=2, type=_finite, metavar=("X", "Y"), required=True,
-                   help="source position, arcsec (x East, y North)")
-    p.add_argument("--source-redshift", type=_finite, default=None,
-                   help="source redshift (default: the model's reference_source_redshift)")
-    p.add_argument("--lens-redshift", type=_finite, default=None,
-                   help="lens redshift (default: the model's [lens] redshift)")
-    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
-    p.set_defaults(func=_cmd_images)
-
-    from lensdelay.cli.commands import register_more
-
-    register_more(sub, _finite)
+    for module in SUBCOMMANDS:
+        module.register(sub)
     return parser
 
 
@@ -84,20 +52,13 @@ _show_warning.shown = set()
 
 def _terminate(signum, frame):
     """SIGINT/SIGTERM: while sampling, stop at the next checkpoint; otherwise unwind now."""
-    from lensdelay.inference.sampling import STOP
-
     if STOP.active:
         STOP.requested = True
         return
     raise KeyboardInterrupt
 
 
-def main(argv=None) -> int:
-    import signal
-
-    if threading_main():
-        signal.signal(signal.SIGTERM, _terminate)
-        signal.signal(signal.SIGINT, _terminate)
+def _configure_astropy() -> None:
     from astropy.utils import iers
     from erfa import ErfaWarning
 
@@ -108,14 +69,25 @@ def main(argv=None) -> int:
     # year "dubious". UTC there may be off by a leap second, far below any forecast's
     # uncertainty, so the command line does not show that warning.
     warnings.filterwarnings("ignore", category=ErfaWarning, message=".*dubious year.*")
+
+
+def main(argv=None) -> int:
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, _terminate)
+        signal.signal(signal.SIGINT, _terminate)
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
         with warnings.catch_warnings():
+            _configure_astropy()
             warnings.simplefilter("default", LensdelayWarning)
             warnings.showwarning = _show_warning
             _show_warning.shown = set()
             return int(args.func(args) or 0)
+    except InputError as err:
+        where = f"{err.source}: " if err.source else ""
+        print(f"lensdelay: {where}{with_flags(err.bare_message)}", file=sys.stderr)
+        return 2
     except LensdelayError as err:
         print(f"lensdelay: {err}", file=sys.stderr)
         return 2
@@ -123,12 +95,6 @@ def main(argv=None) -> int:
         print("lensdelay: interrupted; no output was written (a sampler checkpoint, if any, "
               "is kept in --out for --resume)", file=sys.stderr)
         return 130
-
-
-def threading_main() -> bool:
-    import threading
-
-    return threading.current_thread() is threading.main_thread()
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -1,8 +1,9 @@
-"""The forecast job: scenario → fits → posteriors → timing update → per-image dates.
+"""The forecast job: scenario objects → fits → posteriors → timing update → per-image dates.
 
-Reads inputs through :mod:`lensdelay.loading`; returns a plain result dictionary
-that :mod:`lensdelay.forecast_outputs` turns into files and text. The probability
-model is in :mod:`lensdelay.timing`; the per-sample physics in :mod:`lensdelay.forecast`.
+Takes :class:`~lensdelay.model.scenario.Scenario` objects (reading files is for
+:mod:`lensdelay.io`), returns a result that :mod:`lensdelay.io.forecast_files` and
+:mod:`lensdelay.report` turn into files and text. The probability model is in
+:mod:`lensdelay.inference.timing`; the per-sample physics in :mod:`lensdelay.forecast.samples`.
 """
 from __future__ import annotations
 
@@ -15,7 +16,6 @@ import numpy as np
 from astropy import units as u
 from astropy.time import Time
 
-from lensdelay.cli.commands import provenance
 from lensdelay.model.cosmology import cosmology_from_spec
 from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.inference.fit import fit
@@ -24,12 +24,24 @@ from lensdelay.forecast.samples import (
     importance_update, majority, match_tracks, model_weights, parity_name, solve_samples,
 )
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.io.reading import load_scenario
 from lensdelay.inference.sampling import sample
-from lensdelay.model.scenario import Site, parse_date
+from lensdelay.model.scenario import Scenario, Site, parse_date
 from lensdelay.forecast.observability import build_calendar
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
 from lensdelay.inference.timing import SightingRow, TimingData, tensions_from_draws
+
+#: What each status means (README: "Statuses"); printed under the table.
+STATUS_MEANINGS = {
+    "seen": "the event was observed in this image (the detection or a reported sighting)",
+    "past": "its whole 95% window is over as of now: search archives",
+    "uncertain": "fewer than 95% of samples agree whether it leads or trails the reference image",
+    "now": "now lies inside its 95% window: observe",
+    "future": "its whole 95% window lies ahead",
+}
+
+TENSION_CAUSES = ("a mass model too simple for this lens, a nearby galaxy or group not in the model, "
+                  "microlensing distorting the light curve, or a wrong image identification")
+
 
 #: A sighting's 1-σ date error when none is given and the detection has none either, days.
 DEFAULT_SIGHTING_SIGMA_DAYS = 1.0
@@ -44,7 +56,7 @@ def default_sighting_sigma(transient) -> float:
 
 
 def parse_sightings(items, scenario) -> list[Sighting]:
-    """``--seen [FAMILY/]LABEL=DATE[±SIGMA]`` items (SIGMA in days; ``+-`` also accepted).
+    """``[FAMILY/]LABEL=DATE[±SIGMA]`` items (SIGMA in days; ``+-`` also accepted).
 
     The label may name a predicted image (``X1``); it is checked once the images are
     known. The family must be the transient's.
@@ -54,26 +66,26 @@ def parse_sightings(items, scenario) -> list[Sighting]:
     for item in items or []:
         m = _SIGHTING.match(item.strip())
         if not m:
-            raise InputError(f"--seen must be [FAMILY/]LABEL=DATE[±SIGMA] (e.g. sn/C=2027-03-04±1.5), "
+            raise InputError(f"seen must be [FAMILY/]LABEL=DATE[±SIGMA] (e.g. sn/C=2027-03-04±1.5), "
                              f"got {item!r}")
         family = (m["family"] or tr.family).strip()
         label = m["label"].strip()
         if family != tr.family:
-            raise InputError(f"--seen family must be the transient's family {tr.family!r}, got {family!r}")
+            raise InputError(f"seen family must be the transient's family {tr.family!r}, got {family!r}")
         if label == tr.seen_in:
-            raise InputError(f"--seen image must differ from the image the transient was detected in "
+            raise InputError(f"seen image must differ from the image the transient was detected in "
                              f"({tr.family}/{tr.seen_in}), got {label!r}")
         if any(s.label == label for s in out):
-            raise InputError(f"--seen image must be given once, got {family}/{label} twice")
-        date = parse_date(m["date"].strip(), f"--seen {family}/{label}")
+            raise InputError(f"seen image must be given once, got {family}/{label} twice")
+        date = parse_date(m["date"].strip(), f"seen {family}/{label}")
         if m["sigma"] is not None:
             try:
                 sigma = float(m["sigma"])
             except ValueError as err:
-                raise InputError(f"--seen {family}/{label} sigma must be a number of days, "
+                raise InputError(f"seen {family}/{label} sigma must be a number of days, "
                                  f"got {m['sigma']!r}") from err
             if not (math.isfinite(sigma) and sigma > 0):
-                raise InputError(f"--seen {family}/{label} sigma must be > 0 days, got {m['sigma']!r}")
+                raise InputError(f"seen {family}/{label} sigma must be > 0 days, got {m['sigma']!r}")
             out.append(Sighting(family, label, date, sigma, True))
         else:
             out.append(Sighting(family, label, date, default_sighting_sigma(tr), False))
@@ -92,7 +104,7 @@ def _resolve_sightings(sightings, tracks: list[ImageTrack], first_tracks: list[I
         named = [t for t in first_tracks if t.label == s.label]
         if not named:
             choices = ", ".join(f"{t.family}/{t.label}" for t in first_tracks)
-            raise InputError(f"--seen image must be one of the forecast's images ({choices}), "
+            raise InputError(f"seen image must be one of the forecast's images ({choices}), "
                              f"got {s.family}/{s.label}")
         ref = named[0]
         if ref.observed:
@@ -137,22 +149,29 @@ def _chain_effective_samples(chain) -> float:
     return chain.chain.shape[1] * kept / max(tau, 1.0)
 
 
-def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=1, h0=None,
-                 cosmology_name=None, kappa_ext=None, microlensing=None, depth=None,
-                 weighting="bic", seen=None, site: Site | None = None, walkers=32, steps=2000,
-                 now: Time | None = None, progress=True, prior="flat") -> dict:
-    """Run the whole forecast; see :mod:`lensdelay.timing` for the probability model."""
-    model_list = list(model_paths or [None])
-    scenarios = []
-    inputs = []
-    for mp in model_list:
-        sc, used = load_scenario(scenario_path, [mp] if mp else None)
-        scenarios.append(sc)
-        inputs += [p for p in used if p not in inputs]
+def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=None, kappa_ext=None,
+                 microlensing=None, depth=None, weighting="bic", seen=None, site: Site | None = None,
+                 walkers=32, steps=2000, now: Time | None = None, progress=False, prior="flat") -> dict:
+    """Run the whole forecast; see :mod:`lensdelay.inference.timing` for the probability model.
+
+    Parameters
+    ----------
+    scenarios : Scenario or sequence of Scenario
+        The observations, once per mass model to combine (the same scenario with each
+        model: :func:`lensdelay.api.forecast` builds them from files).
+    seen : sequence of str, optional
+        Sightings ``[FAMILY/]LABEL=DATE[±SIGMA]`` (:func:`parse_sightings`).
+    progress : bool
+        Show progress bars (off by default: the library is silent).
+    Other parameters are those of ``lensdelay forecast`` (README).
+    """
+    scenarios = [scenarios] if isinstance(scenarios, Scenario) else list(scenarios)
+    if not scenarios:
+        raise InputError("scenarios must hold at least one scenario, got none")
     sc0 = scenarios[0]
     if sc0.transient is None:
         raise InputError("transient is required for a forecast ([transient] with family, seen_in "
-                         "and date), got nothing", scenario_path)
+                         "and date), got nothing", sc0.source)
     settings = ForecastSettings()
     if cosmology_name is not None:
         cosmo = cosmology_from_spec({"name": cosmology_name})
@@ -160,26 +179,26 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
         settings = replace(settings, h0_prior=None)      # a named cosmology means its own H0
     if h0 is not None:
         if not h0[1] > 0:
-            raise InputError(f"--h0 sigma must be > 0, got {h0[1]:g}")
+            raise InputError(f"h0 sigma must be > 0, got {h0[1]:g}")
         if not 10 <= h0[0] <= 200:
-            raise InputError(f"--h0 mean must be between 10 and 200 km/s/Mpc, got {h0[0]:g}")
+            raise InputError(f"h0 mean must be between 10 and 200 km/s/Mpc, got {h0[0]:g}")
         settings = replace(settings, h0_prior=(float(h0[0]), float(h0[1])))
     if kappa_ext is not None:
         if not kappa_ext[0] < 1:
-            raise InputError(f"--kappa-ext mean must be < 1, got {kappa_ext[0]:g}")
+            raise InputError(f"kappa_ext mean must be < 1, got {kappa_ext[0]:g}")
         if kappa_ext[1] < 0:
-            raise InputError(f"--kappa-ext sigma must be >= 0, got {kappa_ext[1]:g}")
+            raise InputError(f"kappa_ext sigma must be >= 0, got {kappa_ext[1]:g}")
         settings = replace(settings, kappa_ext=(float(kappa_ext[0]), float(kappa_ext[1])))
     if microlensing is not None:
         if microlensing < 0:
-            raise InputError(f"--microlensing must be >= 0 mag, got {microlensing:g}")
+            raise InputError(f"microlensing must be >= 0 mag, got {microlensing:g}")
         settings = replace(settings, microlensing_mag=float(microlensing))
     if depth is not None:
         settings = replace(settings, depth=float(depth))
     if n_samples < 100 or n_samples > 5_000_000:
-        raise InputError(f"--samples must be between 100 and 5000000, got {n_samples}")
+        raise InputError(f"n_samples must be between 100 and 5000000, got {n_samples}")
     if weighting not in ("bic", "equal"):
-        raise InputError(f"--weights must be 'bic' or 'equal', got {weighting!r}")
+        raise InputError(f"weighting must be 'bic' or 'equal', got {weighting!r}")
     tr = sc0.transient
     sightings = parse_sightings(seen, sc0)
     settings = replace(settings, n_samples=int(n_samples), seed=int(seed), weighting=weighting,
@@ -197,7 +216,7 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
             try:
                 result = fit(like, seed=seed)
             except InputError as err:
-                raise err.with_source(scenario_path) from err
+                raise err.with_source(sc.source) from err
             chain = sample(like, result.values, walkers=walkers, steps=steps,
                            seed=int(rng.integers(2 ** 31)), progress=progress, scales=result.errors)
         notes = list(result.notes) + list(chain.warnings)
@@ -235,7 +254,7 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
         timings.append(timing)
     if not any(np.isfinite(u_.log_evidence) for u_ in updates):
         raise InputError("the sightings and measured delays must be possible under at least one model "
-                         "(each names images the model has), got none", scenario_path)
+                         "(each names images the model has), got none", sc0.source)
     w_model = model_weights([f.bic for f in fits], [u_.log_evidence for u_ in updates], settings.weighting)
     w_prior = model_weights([f.bic for f in fits], np.zeros(len(fits)), settings.weighting)
     tension_rows = _tensions(timings, prior_models, w_prior, rng)
@@ -280,7 +299,6 @@ def run_forecast(scenario_path: str, model_paths=None, *, n_samples=20000, seed=
         "model_notes": notes_per_model, "timing": timing_doc, "notes": notes,
         "calendar": calendar, "now": now, "cosmology": cosmology,
         "h0_used": (settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
-        "provenance": provenance(inputs, cosmology, seed),
     }
 
 
@@ -342,7 +360,7 @@ def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps,
         f"about {ess:.0f} independent samples)"]
     notes += list(jchain.warnings)
     if ess < want:
-        notes.append(f"only about {ess:.0f} independent samples (goal {want:.0f}); increase --steps")
+        notes.append(f"only about {ess:.0f} independent samples (goal {want:.0f}); increase the sampler steps")
     valid = samples.valid.astype(float)
     return samples, TimingUpdate("resample", valid / max(valid.sum(), 1e-300), ess, update.log_evidence,
                                  update.importance_effective_samples, notes), jchain

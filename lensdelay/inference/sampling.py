@@ -20,7 +20,7 @@ import numpy as np
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
 from lensdelay.inference.moves import FisherLangevinMove
-from lensdelay.io.storage import atomic_save_npz, load_npz
+from lensdelay.atomic import atomic_save_npz, load_npz
 
 # our own warning says the chain is short; emcee's logger would say it again
 import logging as _logging

@@ -9,37 +9,25 @@ from astropy import units as u
 from astropy.table import Table
 
 from lensdelay.model.cosmology import describe_cosmology
-from lensdelay.report.text import CAUTION
+from lensdelay.cautions import CAUTION
+from lensdelay.forecast.pipeline import STATUS_MEANINGS
 
-#: What each status means (README: "Statuses"); printed under the table.
-STATUS_MEANINGS = {
-    "seen": "the event was observed in this image (the detection or a reported sighting)",
-    "past": "its whole 95% window is over as of now: search archives",
-    "uncertain": "fewer than 95% of samples agree whether it leads or trails the reference image",
-    "now": "now lies inside its 95% window: observe",
-    "future": "its whole 95% window lies ahead",
-}
-
-TENSION_CAUSES = ("a mass model too simple for this lens, a nearby galaxy or group not in the model, "
-                  "microlensing distorting the light curve, or a wrong image identification")
-
-
-def _instant(res, offset_days: float):
+def instant(res, offset_days: float):
     return res["scenario"].transient.date + offset_days * u.day
 
 
-def _iso(t) -> str:
+def iso_utc(t) -> str:
     return t.isot[:19] + "Z"
 
 
 def date_summary(res, im) -> dict:
     """ISO 8601 UTC date-times of the date quantiles."""
-    return {k: _iso(_instant(res, v)) for k, v in im["date_offset_days"].items()}
+    return {k: iso_utc(instant(res, v)) for k, v in im["date_offset_days"].items()}
 
 
 def mjd_summary(res, im) -> dict:
     """The same quantiles as MJD (UTC)."""
-    return {k: float(_instant(res, v).utc.mjd) for k, v in im["date_offset_days"].items()}
+    return {k: float(instant(res, v).utc.mjd) for k, v in im["date_offset_days"].items()}
 
 
 def day_of(iso: str) -> str:
@@ -58,7 +46,7 @@ def median_day(iso: str) -> str:
     return t.date().isoformat()
 
 
-def _window_days(res, im, lo_key, hi_key) -> tuple[str, str]:
+def window_days(res, im, lo_key, hi_key) -> tuple[str, str]:
     d = date_summary(res, im)
     return day_of(d[lo_key]), day_of(d[hi_key])
 
@@ -79,7 +67,7 @@ def forecast_json(res: dict) -> dict:
                                          "sighted", "tension")})
         arch = im.get("archival_search")
         entry["archival_search"] = None if arch is None else {
-            "from": _iso(_instant(res, arch["from_offset"])), "to": _iso(_instant(res, arch["to_offset"]))}
+            "from": iso_utc(instant(res, arch["from_offset"])), "to": iso_utc(instant(res, arch["to_offset"]))}
         if "observability" in im:
             entry["observability"] = im["observability"]
         images.append(entry)
@@ -87,8 +75,8 @@ def forecast_json(res: dict) -> dict:
         "reference_image": tr.seen_in, "reference_family": tr.family,
         "cosmology": describe_cosmology(res["cosmology"]),
         "seed": st.seed, "images": images,
-        "now": _iso(res["now"]), "now_mjd": float(res["now"].utc.mjd),
-        "detection": {"date": _iso(tr.date), "mjd": float(tr.date.utc.mjd),
+        "now": iso_utc(res["now"]), "now_mjd": float(res["now"].utc.mjd),
+        "detection": {"date": iso_utc(tr.date), "mjd": float(tr.date.utc.mjd),
                       "date_sigma_days": tr.date_sigma_days, "magnitude": tr.magnitude},
         "priors": {"H0": list(st.h0_prior) if st.h0_prior else "fixed to the cosmology",
                    "H0_used": res["h0_used"] if np.ndim(res["h0_used"]) == 0 else list(res["h0_used"]),
@@ -146,7 +134,7 @@ def forecast_table(res: dict) -> Table:
     t.meta["comments"] = ["lensdelay forecast; delays relative to the image the transient was seen in "
                           "(positive = later); mjd_* are UTC MJD", CAUTION]
     t.meta["reference_image"] = res["scenario"].transient.seen_in
-    t.meta["now"] = _iso(res["now"])
+    t.meta["now"] = iso_utc(res["now"])
     return t
 
 
@@ -184,7 +172,7 @@ def ics_windows(res: dict, im: dict) -> list[tuple[_dt.date, _dt.date]]:
     if "observability" in im:
         return [(_dt.date.fromisoformat(a), _dt.date.fromisoformat(b))
                 for a, b in im["observability"]["windows_ahead"]]
-    lo, hi = _window_days(res, im, "p2.5", "p97.5")
+    lo, hi = window_days(res, im, "p2.5", "p97.5")
     today = res["now"].isot[:10]
     start = max(lo, today)
     return [] if start > hi else [(_dt.date.fromisoformat(start), _dt.date.fromisoformat(hi))]
@@ -220,103 +208,3 @@ def forecast_ics(res: dict, stamp: _dt.datetime | None = None) -> str:
                       f"DESCRIPTION:{_ics_escape(desc)}", "TRANSP:TRANSPARENT", "END:VEVENT"]
     lines.append("END:VCALENDAR")
     return "\r\n".join(_fold(x) for x in lines) + "\r\n"
-
-
-def _h0_text(res) -> str:
-    st = res["settings"]
-    if st.h0_prior:
-        return f"H0 ~ N({st.h0_prior[0]:g}, {st.h0_prior[1]:g}) km/s/Mpc"
-    cosmo = res["cosmology"]
-    name = f", {cosmo.name}" if getattr(cosmo, "name", None) else ""
-    return f"H0 = {float(cosmo.H0.value):g} km/s/Mpc (fixed{name})"
-
-
-def forecast_text(res: dict) -> str:
-    """The readable terminal summary."""
-    sc, st = res["scenario"], res["settings"]
-    tr = sc.transient
-    lines = [f"Forecast for {sc.name}: transient seen in {tr.family}/{tr.seen_in} on "
-             f"{tr.date.isot[:10]} (± {tr.date_sigma_days:g} d); as of {res['now'].isot[:16]}Z",
-             f"{st.n_samples} samples; {_h0_text(res)}; kappa_ext ~ N({st.kappa_ext[0]:g}, "
-             f"{st.kappa_ext[1]:g}); microlensing {st.microlensing_mag:g} mag"]
-    timing = res["timing"]
-    for s in timing["sightings"]:
-        lines.append(f"sighting: {s['family']}/{s['image']} on {s['date'][:16]}Z ± {s['sigma_days']:g} d"
-                     + ("" if s["sigma_source"] == "given" else " (default sigma)"))
-    for d in timing["delays"]:
-        lines.append(f"measured delay: {d['family']}/{d['image']} - {d['relative_to']} = "
-                     f"{d['days']:g} ± {d['sigma']:g} d")
-    for m in timing["models"]:
-        if m["route"] == "reweight":
-            lines.append(f"update [{m['label']}]: importance weights, {m['effective_samples']:.0f} effective "
-                         f"samples (threshold {timing['min_effective_samples']:.0f})")
-        elif m["route"] == "resample":
-            lines.append(f"update [{m['label']}]: posterior sampled again with the measurements "
-                         f"(re-weighting would have left {m['importance_effective_samples']:.0f}); about "
-                         f"{m['effective_samples']:.0f} independent samples")
-    lines.append("")
-    head = (f"{'image':<8} {'status':<9} {'date (median)':<13} {'68% window':<23} {'95% window':<23} "
-            f"{'delay [d]':>16} {'mag':>6} {'P(obs)':>6}")
-    lines += [head, "-" * len(head)]
-    for im in res["images"]:
-        d = date_summary(res, im)
-        dl = im["delay_days"]
-        delay = f"{dl['median']:+.1f} ±{0.5 * (dl['p84'] - dl['p16']):.1f}"
-        mag = f"{im['magnitude']['median']:.1f}" if im.get("magnitude") else "—"
-        pobs = (f"{im['observability']['probability_observable']:.2f}" if "observability" in im else "—")
-        name = f"{im['family']}/{im['label']}" + ("" if im["observed"] else "*")
-        lo68, hi68 = _window_days(res, im, "p16", "p84")
-        lo95, hi95 = _window_days(res, im, "p2.5", "p97.5")
-        lines.append(f"{name:<8} {im['status']:<9} {median_day(d['median']):<13} "
-                     f"{lo68}..{hi68:<11} {lo95}..{hi95:<11} {delay:>16} {mag:>6} {pobs:>6}")
-    lines.append("(* = predicted, not yet observed; windows include the days that contain their ends)")
-    used = sorted({im["status"] for im in res["images"]}, key=list(STATUS_MEANINGS).index)
-    for s in used:
-        lines.append(f"  {s}: {STATUS_MEANINGS[s]}")
-    if len(res["model_labels"]) > 1:
-        lines += ["", "per-model median delays [d] (weight):"]
-        labels = res["model_labels"]
-        lines.append(f"{'image':<8}" + "".join(f"{lab[:18]:>20}" for lab in labels))
-        lines.append(f"{'weight':<8}" + "".join(f"{w:>20.2f}" for w in res["model_weights"]))
-        for im in res["images"]:
-            cells = []
-            for lab in labels:
-                v = im["per_model"].get(lab, {}).get("delay_median")
-                cells.append(f"{v:>20.2f}" if v is not None else f"{'—':>20}")
-            lines.append(f"{im['family'] + '/' + im['label']:<8}" + "".join(cells))
-    lines.append("")
-    for t in timing["tensions"]:
-        p = t["predicted"]
-        lines.append(f"CHECK {t['measurement']}: measured {t['measured']:+.2f} ± {t['measurement_sigma']:.2f} d, "
-                     f"predicted from the positions {p['median']:+.2f} (68%: {p['p16']:+.2f}..{p['p84']:+.2f}); "
-                     f"{t['sigma']:+.1f} sigma, p = {t['p_value']:.2g}")
-        if t["in_tension"]:
-            lines.append(f"WARNING: {t['measurement']} is {abs(t['sigma']):.1f} sigma from the prediction. "
-                         f"Usual causes: {TENSION_CAUSES}. The windows above combine the measurement and "
-                         "the model as the probability model says; treat them with care.")
-    for im in res["images"]:
-        for f in im["flag"]:
-            lines.append(f"FLAG {im['family']}/{im['label']}: {f}")
-        arch = im.get("archival_search")
-        if arch is not None:
-            a = _iso(_instant(res, arch["from_offset"]))
-            b = _iso(_instant(res, arch["to_offset"]))
-            lines.append(f"ARCHIVE {im['family']}/{im['label']}: its 95% window starts before the detection; "
-                         f"search data taken between {day_of(a)} and {day_of(b)}")
-        if im.get("fainter_than_depth"):
-            lines.append(f"FAINT {im['family']}/{im['label']}: median magnitude is fainter than the depth "
-                         f"{st.depth:g}")
-        if im.get("interval95_change") is not None and im["status"] != "seen":
-            lines.append(f"UPDATE {im['family']}/{im['label']}: 95% window is "
-                         f"{100 * im['interval95_change']:.0f}% of its width before the measurements")
-        if "observability" in im and im["status"] not in ("seen", "past"):
-            ob = im["observability"]
-            lines.append(f"SKY {im['family']}/{im['label']}: {ob['observable_days_in_95']} of "
-                         f"{ob['days_in_95']} days in the 95% window are observable from the site")
-    for n in res.get("notes", []):
-        lines.append(f"NOTE: {n}")
-    for label, notes in zip(res["model_labels"], res["model_notes"]):
-        for n in notes:
-            lines.append(f"NOTE [{label}]: {n}")
-    lines += ["", CAUTION]
-    return "\n".join(lines)

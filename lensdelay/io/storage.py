@@ -1,28 +1,12 @@
-"""Files the tool writes: atomic writes and sampler checkpoints (numpy, no pickle)."""
+"""Files the tool writes: text, JSON without NaN, figures and whole output sets, each atomically."""
 from __future__ import annotations
 
+from lensdelay.atomic import atomic_save_npz, atomic_write_bytes, load_npz  # noqa: F401  (re-exported)
+
 import json
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
-
-
-def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
-    """Write ``data`` to ``path`` via a temporary file in the same folder and a rename."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
 
 
 def atomic_write_text(path, text: str) -> None:
@@ -51,24 +35,6 @@ def atomic_write_json(path, obj) -> None:
     atomic_write_text(path, json.dumps(json_ready(obj), indent=2, allow_nan=False) + "\n")
 
 
-def atomic_save_npz(path, **arrays) -> None:
-    """``numpy.savez`` through a temporary file; object arrays are refused (no pickle)."""
-    import io
-
-    for k, v in arrays.items():
-        if np.asarray(v).dtype == object:
-            raise TypeError(f"{k} is an object array; refusing to pickle")
-    buf = io.BytesIO()
-    np.savez(buf, **arrays)
-    atomic_write_bytes(path, buf.getvalue())
-
-
-def load_npz(path) -> dict:
-    """Read an npz written by :func:`atomic_save_npz` (never unpickles)."""
-    with np.load(path, allow_pickle=False) as data:
-        return {k: data[k] for k in data.files}
-
-
 def atomic_savefig(fig, stem) -> list[str]:
     """Save a matplotlib figure as PNG and PDF, each atomically. Returns the paths."""
     import io
@@ -90,7 +56,6 @@ def write_output_set(out, *, json_name: str, doc: dict, texts=None, figures=None
     Every file goes through a temporary file and a rename. Refuses (before writing
     anything) to overwrite any of ``inputs``.
     """
-    from pathlib import Path
 
     from lensdelay.errors import InputError
 

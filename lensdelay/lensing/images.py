@@ -19,7 +19,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from astropy import units as u
 
+from lensdelay.errors import InputError
 from lensdelay.lensing.lens import Lens
 
 #: An image is accepted when it maps back to its source within this (arcsec).
@@ -314,14 +316,40 @@ def _merge_duplicates(src, x, y, err):
     return src, x, y, err
 
 
+def as_arcsec(value, name: str = "angle") -> np.ndarray:
+    """An angle in arcsec: an astropy Quantity is converted, a plain number is taken as arcsec.
+
+    Raises InputError for a Quantity that is not an angle.
+    """
+    if isinstance(value, u.Quantity):
+        try:
+            return np.asarray(value.to_value(u.arcsec), dtype=float)
+        except u.UnitConversionError as err:
+            raise InputError(f"{name} must be an angle (or a number of arcsec), got {value}") from err
+    return np.asarray(value, dtype=float)
+
+
 def find_images(lens: Lens, beta_x, beta_y, scale: float = 1.0, **options) -> ImageTable:
-    """All images of point sources at (beta_x, beta_y) arcsec.
+    """All images of point sources at (beta_x, beta_y).
 
     A convenience wrapper: builds an :class:`ImageFinder` big enough for the sources
     given and solves for all of them at once.
+
+    Parameters
+    ----------
+    lens : Lens
+    beta_x, beta_y : float, array or astropy Quantity
+        Source positions; angles are converted, plain numbers are arcsec.
+    scale : float
+        Deflection scaling of the source redshift (1 at the reference redshift).
+
+    Returns
+    -------
+    ImageTable
+        Positions in arcsec.
     """
-    bx = np.atleast_1d(np.asarray(beta_x, dtype=float))
-    by = np.atleast_1d(np.asarray(beta_y, dtype=float))
+    bx = np.atleast_1d(as_arcsec(beta_x, "beta_x"))
+    by = np.atleast_1d(as_arcsec(beta_y, "beta_y"))
     radius = float(np.max(np.hypot(bx, by))) if len(bx) else 1.0
     finder = ImageFinder(lens, scale, source_radius=max(radius, 1e-3), **options)
     return finder.solve(bx, by)

@@ -2,12 +2,11 @@
 from __future__ import annotations
 
 import matplotlib
+import numpy as np
+from matplotlib.figure import Figure
+from matplotlib.patches import Circle
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from lensdelay.lensing.critical import critical_lines  # noqa: E402
+from lensdelay.lensing.critical import critical_lines  
 
 MARKERS = {"minimum": "o", "saddle": "s", "maximum": "^"}
 
@@ -22,11 +21,12 @@ def _sky_axes(ax, extent):
 
 def sky_figure(like, values, fit_result, title=""):
     """Observed and model images, critical curves and caustics of every family."""
-    fig, ax = plt.subplots(figsize=(6.4, 6.0))
+    fig = Figure(figsize=(6.4, 6.0))
+    ax = fig.subplots()
     pts = np.concatenate([np.hypot(f.x, f.y) for f in like.families])
     extent = 1.4 * float(pts.max()) + 0.3
     lens = like.model.lens(values[:like.n_model])
-    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    colours = matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
     preds = like.predict(values[None, :])
     for k, (fam, pred) in enumerate(zip(like.families, preds)):
         c = colours[k % len(colours)]
@@ -59,11 +59,12 @@ def sky_figure(like, values, fit_result, title=""):
 def residual_figure(fit_result):
     """Per-image position residuals in mas, with the 1-σ circle."""
     rows = [r for r in fit_result.residuals_mas if r["reproduced"]]
-    fig, ax = plt.subplots(figsize=(5.2, 5.0))
+    fig = Figure(figsize=(5.2, 5.0))
+    ax = fig.subplots()
     lim = 1.0
     for r in rows:
         ax.plot(r["dx_mas"], r["dy_mas"], "o", label=f"{r['family']}/{r['image']}")
-        circ = plt.Circle((0, 0), r["sigma_mas"], fill=False, ls=":", color="0.5")
+        circ = Circle((0, 0), r["sigma_mas"], fill=False, ls=":", color="0.5")
         ax.add_patch(circ)
         lim = max(lim, abs(r["dx_mas"]), abs(r["dy_mas"]), r["sigma_mas"])
     lim *= 1.3
@@ -83,7 +84,8 @@ def residual_figure(fit_result):
 def corner_figure(samples, names, truths=None):
     """Pairwise scatter and marginal histograms of posterior samples."""
     n = samples.shape[1]
-    fig, axes = plt.subplots(n, n, figsize=(1.7 * n + 1, 1.7 * n + 1), squeeze=False)
+    fig = Figure(figsize=(1.7 * n + 1, 1.7 * n + 1))
+    axes = fig.subplots(n, n, squeeze=False)
     short = [nm.replace("mass[", "m").replace("].", ".").replace("source[", "src.").replace("]", "")
              for nm in names]
     for i in range(n):
@@ -118,7 +120,8 @@ def timeline_figure(res):
 
     tr = res["scenario"].transient
     images = res["images"]
-    fig, ax = plt.subplots(figsize=(9.0, 1.2 + 0.75 * len(images)))
+    fig = Figure(figsize=(9.0, 1.2 + 0.75 * len(images)))
+    ax = fig.subplots()
     base = tr.date
     lo = min(im["date_offset_days"]["p2.5"] for im in images)
     hi = max(im["date_offset_days"]["p97.5"] for im in images)
@@ -188,9 +191,10 @@ def budget_figure(budget):
 
     terms = SAMPLED_TERMS + ("remainder",)
     rows = budget["images"]
-    fig, ax = plt.subplots(figsize=(8.0, 1.6 + 0.6 * max(len(rows), 1)))
+    fig = Figure(figsize=(8.0, 1.6 + 0.6 * max(len(rows), 1)))
+    ax = fig.subplots()
     height = 0.8 / len(terms)
-    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    colours = matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
     hatches = ["", "//", "..", "xx", "\\\\", "--"]
     for k, term in enumerate(terms):
         share = np.array([r["date"][term]["percent"] for r in rows])
@@ -212,7 +216,8 @@ def hubble_curves_figure(res):
     """Predicted delay of each image pair against H0, with 68% and 95% bands."""
     rows = [r for r in res["curves"] if r["axis"] == "H0"]
     keys = sorted({(r["family"], r["image"], r["relative_to"]) for r in rows})
-    fig, ax = plt.subplots(figsize=(7.0, 4.6))
+    fig = Figure(figsize=(7.0, 4.6))
+    ax = fig.subplots()
     for k, key in enumerate(keys):
         sel = [r for r in rows if (r["family"], r["image"], r["relative_to"]) == key]
         h = np.array([r["value"] for r in sel])
@@ -232,7 +237,8 @@ def hubble_curves_figure(res):
 
 def h0_figure(res):
     """H0 posterior under several κext priors: the mass-sheet degeneracy."""
-    fig, ax = plt.subplots(figsize=(7.0, 4.2))
+    fig = Figure(figsize=(7.0, 4.2))
+    ax = fig.subplots()
     for k in res["kappa_comparison"]:
         s = k["samples_H0"]
         ax.hist(s[np.isfinite(s)], bins=60, histtype="step", density=True,

@@ -1,9 +1,9 @@
 """Plain-text reports, kept apart from the computation."""
 from __future__ import annotations
 
-CAUTION = ("Caution: delays and dates are model-dependent. Line-of-sight structure and the "
-           "mass-sheet degeneracy rescale every delay by (1 - kappa_ext); microlensing by stars "
-           "in the lens changes image brightness and can shift light-curve features.")
+from lensdelay.cautions import CAUTION
+from lensdelay.forecast.pipeline import STATUS_MEANINGS, TENSION_CAUSES
+from lensdelay.io.forecast_files import instant, iso_utc, window_days, date_summary, day_of, median_day
 
 
 def images_text(result: dict) -> str:
@@ -98,4 +98,128 @@ def budget_text(budget: dict) -> str:
                       f"{r['date']['peculiar velocity']['sigma_days']:.2f} d" for r in budget["images"])
     lines.append(f"Not in the windows (first order): Omega_m (sigma {a['Omega_m_sigma']:g}) and the lens "
                  f"velocity (sigma {a['peculiar_velocity_sigma_kms']:g} km/s): {extra}")
+    return "\n".join(lines)
+
+
+def hubble_text(res) -> str:
+    sc = res["scenario"]
+    lines = [f"H0 dependence of the delays of {sc.name} (lens-model posterior, bands 68%):"]
+    for r in res["curves"]:
+        if r["axis"] == "H0" and r["value"] in (60.0, 70.0, 80.0):
+            lines.append(f"  {r['family']}/{r['image']} − {r['relative_to']} at H0 = {r['value']:.0f}: "
+                         f"{r['median']:+.2f} d [{r['p16']:+.2f}, {r['p84']:+.2f}]")
+    if "h0" in res:
+        h = res["h0"]["H0"]
+        d = res["h0"]["D_dt_Mpc"]
+        lines += ["", f"H0 = {h['median']:.1f} (+{h['p84'] - h['median']:.1f} / -{h['median'] - h['p16']:.1f}) "
+                  f"km/s/Mpc [95%: {h['p2.5']:.1f}–{h['p97.5']:.1f}] with kappa_ext ~ N{tuple(res['kappa_ext'])}",
+                  f"D_dt = {d['median']:.0f} (+{d['p84'] - d['median']:.0f} / -{d['median'] - d['p16']:.0f}) Mpc",
+                  "", "mass-sheet degeneracy: H0 scales with (1 - kappa_ext):"]
+        for k in res["kappa_comparison"]:
+            q = k["H0"]
+            lines.append(f"  kappa_ext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f}): "
+                         f"H0 = {q['median']:.1f} [{q['p16']:.1f}, {q['p84']:.1f}]")
+    for n in res["notes"]:
+        lines.append(f"NOTE: {n}")
+    lines += ["", CAUTION]
+    return "\n".join(lines)
+
+
+def _h0_text(res) -> str:
+    st = res["settings"]
+    if st.h0_prior:
+        return f"H0 ~ N({st.h0_prior[0]:g}, {st.h0_prior[1]:g}) km/s/Mpc"
+    cosmo = res["cosmology"]
+    name = f", {cosmo.name}" if getattr(cosmo, "name", None) else ""
+    return f"H0 = {float(cosmo.H0.value):g} km/s/Mpc (fixed{name})"
+
+
+def forecast_text(res: dict) -> str:
+    """The readable terminal summary."""
+    sc, st = res["scenario"], res["settings"]
+    tr = sc.transient
+    lines = [f"Forecast for {sc.name}: transient seen in {tr.family}/{tr.seen_in} on "
+             f"{tr.date.isot[:10]} (± {tr.date_sigma_days:g} d); as of {res['now'].isot[:16]}Z",
+             f"{st.n_samples} samples; {_h0_text(res)}; kappa_ext ~ N({st.kappa_ext[0]:g}, "
+             f"{st.kappa_ext[1]:g}); microlensing {st.microlensing_mag:g} mag"]
+    timing = res["timing"]
+    for s in timing["sightings"]:
+        lines.append(f"sighting: {s['family']}/{s['image']} on {s['date'][:16]}Z ± {s['sigma_days']:g} d"
+                     + ("" if s["sigma_source"] == "given" else " (default sigma)"))
+    for d in timing["delays"]:
+        lines.append(f"measured delay: {d['family']}/{d['image']} - {d['relative_to']} = "
+                     f"{d['days']:g} ± {d['sigma']:g} d")
+    for m in timing["models"]:
+        if m["route"] == "reweight":
+            lines.append(f"update [{m['label']}]: importance weights, {m['effective_samples']:.0f} effective "
+                         f"samples (threshold {timing['min_effective_samples']:.0f})")
+        elif m["route"] == "resample":
+            lines.append(f"update [{m['label']}]: posterior sampled again with the measurements "
+                         f"(re-weighting would have left {m['importance_effective_samples']:.0f}); about "
+                         f"{m['effective_samples']:.0f} independent samples")
+    lines.append("")
+    head = (f"{'image':<8} {'status':<9} {'date (median)':<13} {'68% window':<23} {'95% window':<23} "
+            f"{'delay [d]':>16} {'mag':>6} {'P(obs)':>6}")
+    lines += [head, "-" * len(head)]
+    for im in res["images"]:
+        d = date_summary(res, im)
+        dl = im["delay_days"]
+        delay = f"{dl['median']:+.1f} ±{0.5 * (dl['p84'] - dl['p16']):.1f}"
+        mag = f"{im['magnitude']['median']:.1f}" if im.get("magnitude") else "—"
+        pobs = (f"{im['observability']['probability_observable']:.2f}" if "observability" in im else "—")
+        name = f"{im['family']}/{im['label']}" + ("" if im["observed"] else "*")
+        lo68, hi68 = window_days(res, im, "p16", "p84")
+        lo95, hi95 = window_days(res, im, "p2.5", "p97.5")
+        lines.append(f"{name:<8} {im['status']:<9} {median_day(d['median']):<13} "
+                     f"{lo68}..{hi68:<11} {lo95}..{hi95:<11} {delay:>16} {mag:>6} {pobs:>6}")
+    lines.append("(* = predicted, not yet observed; windows include the days that contain their ends)")
+    used = sorted({im["status"] for im in res["images"]}, key=list(STATUS_MEANINGS).index)
+    for s in used:
+        lines.append(f"  {s}: {STATUS_MEANINGS[s]}")
+    if len(res["model_labels"]) > 1:
+        lines += ["", "per-model median delays [d] (weight):"]
+        labels = res["model_labels"]
+        lines.append(f"{'image':<8}" + "".join(f"{lab[:18]:>20}" for lab in labels))
+        lines.append(f"{'weight':<8}" + "".join(f"{w:>20.2f}" for w in res["model_weights"]))
+        for im in res["images"]:
+            cells = []
+            for lab in labels:
+                v = im["per_model"].get(lab, {}).get("delay_median")
+                cells.append(f"{v:>20.2f}" if v is not None else f"{'—':>20}")
+            lines.append(f"{im['family'] + '/' + im['label']:<8}" + "".join(cells))
+    lines.append("")
+    for t in timing["tensions"]:
+        p = t["predicted"]
+        lines.append(f"CHECK {t['measurement']}: measured {t['measured']:+.2f} ± {t['measurement_sigma']:.2f} d, "
+                     f"predicted from the positions {p['median']:+.2f} (68%: {p['p16']:+.2f}..{p['p84']:+.2f}); "
+                     f"{t['sigma']:+.1f} sigma, p = {t['p_value']:.2g}")
+        if t["in_tension"]:
+            lines.append(f"WARNING: {t['measurement']} is {abs(t['sigma']):.1f} sigma from the prediction. "
+                         f"Usual causes: {TENSION_CAUSES}. The windows above combine the measurement and "
+                         "the model as the probability model says; treat them with care.")
+    for im in res["images"]:
+        for f in im["flag"]:
+            lines.append(f"FLAG {im['family']}/{im['label']}: {f}")
+        arch = im.get("archival_search")
+        if arch is not None:
+            a = iso_utc(instant(res, arch["from_offset"]))
+            b = iso_utc(instant(res, arch["to_offset"]))
+            lines.append(f"ARCHIVE {im['family']}/{im['label']}: its 95% window starts before the detection; "
+                         f"search data taken between {day_of(a)} and {day_of(b)}")
+        if im.get("fainter_than_depth"):
+            lines.append(f"FAINT {im['family']}/{im['label']}: median magnitude is fainter than the depth "
+                         f"{st.depth:g}")
+        if im.get("interval95_change") is not None and im["status"] != "seen":
+            lines.append(f"UPDATE {im['family']}/{im['label']}: 95% window is "
+                         f"{100 * im['interval95_change']:.0f}% of its width before the measurements")
+        if "observability" in im and im["status"] not in ("seen", "past"):
+            ob = im["observability"]
+            lines.append(f"SKY {im['family']}/{im['label']}: {ob['observable_days_in_95']} of "
+                         f"{ob['days_in_95']} days in the 95% window are observable from the site")
+    for n in res.get("notes", []):
+        lines.append(f"NOTE: {n}")
+    for label, notes in zip(res["model_labels"], res["model_notes"]):
+        for n in notes:
+            lines.append(f"NOTE [{label}]: {n}")
+    lines += ["", CAUTION]
     return "\n".join(lines)

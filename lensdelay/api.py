@@ -1,0 +1,226 @@
+"""The Python interface: every job of the command line, callable with objects or paths.
+
+Each function accepts a :class:`~lensdelay.model.scenario.Scenario` (and
+:class:`~lensdelay.model.recipe.MassModel` objects) or file paths, is silent unless
+asked (``progress=True``), and returns the same results the command line prints and
+writes. Files are read here and nowhere below; the layers underneath take objects.
+"""
+from __future__ import annotations
+
+import os
+import warnings
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+
+from lensdelay.errors import InputError, LensdelayWarning
+from lensdelay.forecast.budget import delay_budget
+from lensdelay.forecast.pipeline import run_forecast
+from lensdelay.hubble.pipeline import run_hubble
+from lensdelay.inference.fit import check_constraints, delay_errors, fit
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.sampling import sample as run_sampler
+from lensdelay.io import reading
+from lensdelay.io.provenance import provenance
+from lensdelay.lensing.distances import LensDistances
+from lensdelay.lensing.images import as_arcsec, find_images
+from lensdelay.lensing.lens import PARITIES
+from lensdelay.model.cosmology import cosmology_from_spec, describe_cosmology
+from lensdelay.model.recipe import MassModel
+from lensdelay.model.scenario import Scenario
+from lensdelay.version import __version__
+
+PathLike = str | os.PathLike
+
+
+def load_scenario(path: PathLike, model: PathLike | None = None) -> Scenario:
+    """Read and validate a scenario file; ``model`` (a model file) replaces its mass model."""
+    return reading.load_scenario(path, [model] if model is not None else None)[0]
+
+
+def load_model(path: PathLike) -> MassModel:
+    """Read a model recipe (``[[mass]]`` entries) from a TOML file."""
+    return reading.load_model(path)[0]
+
+
+def _scenario(scenario, model=None) -> tuple[Scenario, list]:
+    """A scenario object (read from a path if need be) with ``model`` in place, and the input files."""
+    if isinstance(scenario, Scenario):
+        used = [scenario.source] if Path(scenario.source).is_file() else []
+        if isinstance(model, MassModel):
+            return replace(scenario, model=model), used
+        if model is not None:
+            return replace(scenario, model=load_model(model)), used + [model]
+        return scenario, used
+    if isinstance(model, MassModel):
+        sc, used = reading.load_scenario(scenario)
+        return replace(sc, model=model), used
+    return reading.load_scenario(scenario, [model] if model is not None else None)
+
+
+def _redshifts(doc: dict, source: str, lens_redshift, source_redshift):
+    lens_tab = doc.get("lens", {})
+    if not isinstance(lens_tab, dict):
+        raise InputError(f"lens must be a table, got {lens_tab!r}", source)
+    z_l = lens_redshift if lens_redshift is not None else lens_tab.get("redshift")
+    if z_l is None:
+        raise InputError("lens.redshift is needed for delays in days "
+                         "(give [lens] redshift or --lens-redshift), got nothing", source)
+    z_ref = lens_tab.get("reference_source_redshift")
+    z_s = source_redshift if source_redshift is not None else z_ref
+    if z_s is None:
+        raise InputError("a source redshift is needed (give --source-redshift or "
+                         "[lens] reference_source_redshift), got nothing", source)
+    z_ref = z_s if z_ref is None else z_ref
+    for name, z in (("lens.redshift", z_l), ("source redshift", z_s),
+                    ("lens.reference_source_redshift", z_ref)):
+        if isinstance(z, bool) or not isinstance(z, (int, float)) or not np.isfinite(z) or z <= 0:
+            raise InputError(f"{name} must be a positive finite number, got {z!r}", source)
+    return float(z_l), float(z_s), float(z_ref)
+
+
+def images_of_source(model_path, source_x, source_y, *, source_redshift=None, lens_redshift=None) -> dict:
+    """All images of one point source behind the model in a model file.
+
+    Parameters
+    ----------
+    model_path : str or path
+        A model TOML (``[[mass]]`` entries, and ``[lens]`` redshifts for delays in days).
+    source_x, source_y : float or astropy Quantity
+        Source position; plain numbers are arcsec.
+    source_redshift, lens_redshift : float, optional
+        Override the file's redshifts.
+    """
+    beta_x, beta_y = float(as_arcsec(source_x, "source_x")), float(as_arcsec(source_y, "source_y"))
+    model, doc = reading.load_model(model_path)
+    z_l, z_s, z_ref = _redshifts(doc, model_path, lens_redshift, source_redshift)
+    try:
+        cosmo = cosmology_from_spec(doc.get("cosmology"))
+        distances = LensDistances(cosmo, z_l, z_ref)
+        scale = distances.deflection_scale(z_s)
+        days = distances.days_per_arcsec2(z_s)
+    except InputError as err:
+        raise err.with_source(model_path) from err
+    lens = model.lens()
+    table = find_images(lens, [beta_x], [beta_y], scale)
+    t = table.fermat * days
+    first = t.min() if len(t) else 0.0
+    labels = [chr(ord("A") + i) if i < 26 else f"I{i + 1}" for i in range(len(table))]
+    images = [
+        {"label": lab, "x": float(x), "y": float(y), "magnification": float(mu),
+         "parity": PARITIES[int(p)], "delay_days": float(dt - first)}
+        for lab, x, y, mu, p, dt in zip(labels, table.x, table.y, table.magnification,
+                                        table.parity, t)
+    ]
+    return {
+        "tool": "lensdelay", "version": __version__, "input_sha256": reading.file_hash(model_path),
+        "model": model_path, "cosmology": describe_cosmology(cosmo),
+        "lens_redshift": z_l, "source_redshift": z_s, "reference_source_redshift": z_ref,
+        "source": {"x": beta_x, "y": beta_y},
+        "time_delay_distance_Mpc": float(distances.time_delay_distance(z_s).value),
+        "delay_reference": "first arrival",
+        "images": images,
+    }
+
+
+def check_scenario(scenario, model=None) -> dict:
+    """Validate a scenario (and its model) without fitting anything.
+
+    Returns the scenario, its likelihood (constraints and free parameters) and the input files.
+    """
+    sc, used = _scenario(scenario, model)
+    like = ImageLikelihood(sc, sc.model)
+    try:
+        check_constraints(like)
+    except InputError as err:
+        raise err.with_source(sc.source) from err
+    return {"scenario": sc, "likelihood": like, "inputs": used}
+
+
+def fit_scenario(scenario, model=None, *, use_delays=False, use_fluxes=False, flux_floor=0.2, sample=False,
+                 walkers=32, steps=2000, seed=1, resume=False, checkpoint_dir=None, progress=False,
+                 prior="flat") -> dict:
+    """Fit (and optionally sample) a scenario's mass model.
+
+    Parameters
+    ----------
+    scenario : Scenario or path
+    model : MassModel or path, optional
+        Replaces the scenario's own model.
+    use_delays, use_fluxes : bool
+        Fit the measured delays (H0 free) and flux ratios (``flux_floor`` mag floor) too.
+    sample : bool
+        Also sample the posterior (``walkers`` × ``steps``), checkpointed to
+        ``checkpoint_dir`` and resumable with ``resume``.
+    """
+    sc, used = _scenario(scenario, model)
+    if not flux_floor > 0:
+        raise InputError(f"flux_floor must be > 0 mag, got {flux_floor:g}")
+    like = ImageLikelihood(sc, sc.model, use_delays=use_delays, use_fluxes=use_fluxes,
+                           flux_floor_mag=flux_floor, prior=prior)
+    with warnings.catch_warnings():
+        # the report states these (dof, short chains); a warning would say it twice
+        warnings.simplefilter("ignore", LensdelayWarning)
+        try:
+            result = fit(like, seed=seed)
+        except InputError as err:
+            raise err.with_source(sc.source) from err
+    linear_delays = []
+    for k, fam in enumerate(like.families):
+        days, errs = delay_errors(like, result, family=k)
+        for lab, d, e in zip(fam.labels[1:], days[1:], errs[1:]):
+            linear_delays.append({"family": fam.label, "image": lab, "relative_to": fam.labels[0],
+                                  "days": float(d), "linearised_sigma_days": float(e)})
+    chain = None
+    if sample:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", LensdelayWarning)
+            chain = run_sampler(like, result.values, walkers=walkers, steps=steps, seed=seed,
+                                checkpoint_dir=checkpoint_dir, resume=resume, progress=progress,
+                                scales=result.errors)
+    return {"scenario": sc, "likelihood": like, "fit": result, "chain": chain,
+            "linear_delays": linear_delays,
+            "provenance": provenance(used, sc.cosmology, seed)}
+
+
+def forecast(scenario, models=None, *, budget: bool = True, **options) -> dict:
+    """When, where and how bright the transient appears in every image (the main job).
+
+    Parameters
+    ----------
+    scenario : Scenario or path
+    models : sequence of MassModel or paths, optional
+        Mass models to fit and combine (default: the scenario's own).
+    budget : bool
+        Also compute the uncertainty budget.
+    **options
+        Those of :func:`lensdelay.forecast.pipeline.run_forecast` (``n_samples``,
+        ``seed``, ``h0``, ``kappa_ext``, ``seen``, ``now``, ``site``, ...).
+
+    Returns
+    -------
+    dict
+        The forecast (images with their date, delay, magnitude summaries and statuses,
+        the timing update, models and weights), plus ``budget`` and ``provenance``.
+    """
+    pairs = [_scenario(scenario, m) for m in (models or [None])]
+    inputs = []
+    for _, used in pairs:
+        inputs += [p for p in used if p not in inputs]
+    res = run_forecast([sc for sc, _ in pairs], **options)
+    res["provenance"] = provenance(inputs, res["cosmology"], res["settings"].seed)
+    if budget:
+        res["budget"] = delay_budget(res)
+    return res
+
+
+def infer_h0(scenario, model=None, **options) -> dict:
+    """Delays against H0 and, with measured delays, the H0 posterior (``lensdelay hubble``).
+
+    ``options`` are those of :func:`lensdelay.hubble.pipeline.run_hubble`.
+    """
+    sc, used = _scenario(scenario, model)
+    res = run_hubble(sc, **options)
+    res["provenance"] = provenance(used, res["scenario"].cosmology, options.get("seed", 1))
+    return res

@@ -1,0 +1,85 @@
+"""Options and checks shared by the sub-commands, and the map from library parameters to flags.
+
+Library messages name parameters (``h0 sigma must be > 0``); the command line shows
+them with its own flags (``--h0 sigma must be > 0``).
+"""
+from __future__ import annotations
+
+import argparse
+import math
+from pathlib import Path
+
+from lensdelay.errors import InputError
+from lensdelay.inference.likelihood import PRIOR_CHOICES
+from lensdelay.model.scenario import Site
+
+#: Library parameter names → command-line flags, for messages.
+FLAGS = {
+    "h0": "--h0", "kappa_ext": "--kappa-ext", "microlensing": "--microlensing", "n_samples": "--samples",
+    "weighting": "--weights", "seen": "--seen", "now": "--now", "flux_floor": "--flux-floor",
+    "om0": "--om0", "cosmology_class": "--cosmology-class", "class_params": "--param", "prior": "--prior",
+    "move": "--move",
+}
+
+
+def with_flags(message: str) -> str:
+    """Replace a leading library parameter name by its command-line flag."""
+    for name, flag in FLAGS.items():
+        if message.startswith(name + " "):
+            return flag + message[len(name):]
+    return message
+
+
+def number(text: str) -> float:
+    """argparse type: a finite float."""
+    try:
+        value = float(text)
+    except ValueError as err:
+        raise argparse.ArgumentTypeError(f"must be a number, got {text!r}") from err
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"must be finite, got {text!r}")
+    return value
+
+
+def output_folder(path: str | None) -> Path | None:
+    """The ``--out`` folder (created only when results are written); refuses a file."""
+    if path is None:
+        return None
+    out = Path(path)
+    if out.exists() and not out.is_dir():
+        raise InputError(f"--out must be a folder, got the file {path!r}")
+    return out
+
+
+def add_prior_argument(parser) -> None:
+    """``--prior``, shared by fit, forecast and hubble."""
+    parser.add_argument("--prior", choices=PRIOR_CHOICES, default="flat",
+                        help="prior of the mass-model posterior within the bounds: flat in the "
+                             "recipe's parameters (default) or Jeffreys' (Fisher information)")
+
+
+def add_sampler_arguments(parser, seed_help: str = "seed of every random draw (default 1)") -> None:
+    """``--walkers``, ``--steps``, ``--seed`` and ``--quiet``."""
+    parser.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
+    parser.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")
+    parser.add_argument("--seed", type=int, default=1, help=seed_help)
+    parser.add_argument("--quiet", action="store_true", help="no progress display")
+
+
+def site_from_args(args) -> Site | None:
+    """``--site LAT LON HEIGHT`` or ``--elongation MIN MAX`` as a Site (None if neither)."""
+    if args.site is not None and args.elongation is not None:
+        raise InputError("give --site or --elongation, got both")
+    if args.site is not None:
+        lat, lon, height = args.site
+        if not -90 <= lat <= 90:
+            raise InputError(f"--site latitude must be within [-90, 90] degrees, got {lat:g}")
+        if not -180 <= lon <= 360:
+            raise InputError(f"--site longitude must be within [-180, 360] degrees, got {lon:g}")
+        return Site("ground", lat, lon, height)
+    if args.elongation is not None:
+        lo, hi = args.elongation
+        if not 0 <= lo < hi <= 180:
+            raise InputError(f"--elongation must satisfy 0 <= min < max <= 180 degrees, got {lo:g} {hi:g}")
+        return Site("space", solar_elongation=(lo, hi))
+    return None

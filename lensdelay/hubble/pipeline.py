@@ -1,0 +1,89 @@
+"""The H0 job: delay curves against H0 and, with measured delays, the H0 posterior.
+
+Takes a :class:`~lensdelay.model.scenario.Scenario`; the statistics are in
+:mod:`lensdelay.hubble.analysis`.
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import replace
+
+import numpy as np
+
+from lensdelay.errors import InputError, LensdelayWarning
+from lensdelay.hubble.analysis import delay_curves, h0_posterior, kappa_comparison, pair_delays
+from lensdelay.inference.fit import fit
+from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.sampling import sample
+from lensdelay.model.cosmology import cosmology_from_class, cosmology_from_spec
+from lensdelay.model.scenario import Scenario
+
+
+def run_hubble(scenario: Scenario, *, kappa_ext=(0.0, 0.05), om0=None, curves=(), walkers=32, steps=2000,
+               seed=1, progress=False, cosmology_name=None, cosmology_class=None, class_params=None,
+               prior="flat") -> dict:
+    """Delay-vs-H0 curves of the lens-model posterior and, with measured delays, the joint
+    lens + H0 posterior and its dependence on κ_ext (the mass-sheet degeneracy).
+
+    Parameters
+    ----------
+    scenario : Scenario
+        Observations and mass model (:func:`lensdelay.api.load_scenario` reads a file).
+    kappa_ext : (mean, sigma)
+        Prior of the external convergence applied to H0.
+    om0 : (mean, sigma), optional
+        Prior on Ωm (flat ΛCDM); default the scenario's value ± 0.02.
+    curves : tuple of str
+        Extra delay curves along ``"om0"`` and/or ``"w"``.
+    cosmology_name, cosmology_class, class_params
+        Replace the scenario's cosmology by an astropy realisation or class.
+    progress : bool
+        Show progress bars (off by default).
+    """
+    if not kappa_ext[0] < 1:
+        raise InputError(f"kappa_ext mean must be < 1, got {kappa_ext[0]:g}")
+    if kappa_ext[1] < 0:
+        raise InputError(f"kappa_ext sigma must be >= 0, got {kappa_ext[1]:g}")
+    if om0 is not None and not (0 < om0[0] < 1 and om0[1] >= 0):
+        raise InputError(f"om0 must be MEAN in (0, 1) and SIGMA >= 0, got {om0[0]:g} {om0[1]:g}")
+    sc = scenario
+    if cosmology_name:
+        sc = replace(sc, cosmology=cosmology_from_spec({"name": cosmology_name}))
+    if cosmology_class:
+        sc = replace(sc, cosmology=cosmology_from_class(cosmology_class, class_params or {}, sc.cosmology))
+    rng = np.random.default_rng(seed)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        like = ImageLikelihood(sc, sc.model, prior=prior)
+        try:
+            res = fit(like, seed=seed)
+        except InputError as err:
+            raise err.with_source(sc.source) from err
+        chain = sample(like, res.values, walkers=walkers, steps=steps, seed=int(rng.integers(2 ** 31)),
+                       progress=progress, scales=res.errors)
+    lens_samples = chain.samples()
+    pairs = pair_delays(like, lens_samples)
+    z_s_of = {f.label: f.redshift for f in sc.families}
+    rows = delay_curves(pairs, like.h0_ref, cosmology=sc.cosmology, z_l=sc.lens_redshift, z_s_of=z_s_of,
+                        om0_grid=np.linspace(0.15, 0.45, 31) if "om0" in curves else None,
+                        w_grid=np.linspace(-1.5, -0.5, 21) if "w" in curves else None)
+    out = {"scenario": sc, "fit": res, "chain": chain, "curves": rows, "pairs": pairs, "prior": prior,
+           "notes": list(res.notes + chain.warnings)}
+    om0_prior = tuple(om0) if om0 is not None else (float(sc.cosmology.Om0), 0.02)
+    if sc.delays:
+        joint = ImageLikelihood(sc, sc.model, use_delays=True, prior=prior)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", LensdelayWarning)
+            jres = fit(joint, seed=seed)
+            jchain = sample(joint, jres.values, walkers=walkers, steps=steps,
+                            seed=int(rng.integers(2 ** 31)), progress=progress, scales=jres.errors)
+        h0_eff = jchain.samples()[:, -1]
+        out["joint_fit"] = jres
+        out["h0"] = h0_posterior(h0_eff, joint, kappa_ext=kappa_ext, om0_prior=om0_prior, rng=rng)
+        out["kappa_comparison"] = kappa_comparison(h0_eff, joint, om0_prior, extra=kappa_ext)
+        out["notes"] += jchain.warnings
+    else:
+        out["notes"].append("the scenario has no measured delays: only the delay-vs-H0 curves are given")
+    out["kappa_ext"] = list(kappa_ext)
+    out["om0_prior"] = list(om0_prior)
+    return out

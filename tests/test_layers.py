@@ -1,0 +1,131 @@
+"""The package's layers: every import points down or sideways within a subpackage, never up,
+and no module imports itself back through others (issue 11).
+
+The order, lowest first (README, "Layout"): base modules (errors, version, atomic file
+writes, the caution text), lensing, model, inference, forecast and hubble (side by side,
+neither importing the other), io, report, the Python interface (api), cli. The package's ``__init__`` is the public facade and may import any layer
+but the command line.
+"""
+import ast
+import pathlib
+
+import pytest
+
+PACKAGE = pathlib.Path(__file__).parent.parent / "lensdelay"
+LAYERS = {"errors": 0, "version": 0, "atomic": 0, "cautions": 0, "lensing": 1, "model": 2, "inference": 3,
+          "forecast": 4, "hubble": 4, "io": 5, "report": 6, "api": 7, "cli": 8}
+
+
+def _module_name(path: pathlib.Path) -> str:
+    parts = path.relative_to(PACKAGE.parent).with_suffix("").parts
+    return ".".join(parts[:-1] if parts[-1] == "__init__" else parts)
+
+
+def _imports(path: pathlib.Path) -> set[str]:
+    """Every lensdelay module imported anywhere in the file (function bodies included)."""
+    tree = ast.parse(path.read_text())
+    name = _module_name(path)
+    package = name if path.name == "__init__.py" else name.rpartition(".")[0]
+    out = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            out |= {a.name for a in node.names if a.name.startswith("lensdelay")}
+        elif isinstance(node, ast.ImportFrom):
+            if node.level:
+                base = package.split(".")
+                base = base[: len(base) - node.level + 1]
+                mod = ".".join(base + ([node.module] if node.module else []))
+            else:
+                mod = node.module or ""
+            if mod.startswith("lensdelay"):
+                out.add(mod)
+                out |= {f"{mod}.{a.name}" for a in node.names}
+    return out
+
+
+def _graph() -> dict[str, set[str]]:
+    files = {_module_name(p): p for p in PACKAGE.rglob("*.py")}
+    graph = {}
+    for name, path in files.items():
+        graph[name] = {m for m in _imports(path) if m in files and m != name}
+    return graph
+
+
+def _layer(module: str) -> int | None:
+    parts = module.split(".")
+    return LAYERS.get(parts[1]) if len(parts) > 1 else None
+
+
+def test_every_module_belongs_to_a_layer():
+    for name in _graph():
+        if name in ("lensdelay", "lensdelay.__main__"):
+            continue
+        assert _layer(name) is not None, f"{name} is in no layer"
+
+
+def test_no_upward_or_sideways_imports():
+    bad = []
+    for name, targets in _graph().items():
+        if name in ("lensdelay", "lensdelay.__main__"):
+            continue
+        own = _layer(name)
+        for t in targets:
+            if t == "lensdelay":
+                bad.append(f"{name} imports the package facade")
+                continue
+            other = _layer(t)
+            same_package = name.split(".")[1] == t.split(".")[1]
+            if other > own or (other == own and not same_package):
+                bad.append(f"{name} (layer {own}) imports {t} (layer {other})")
+    assert not bad, "\n".join(sorted(bad))
+
+
+def test_facade_does_not_import_the_command_line():
+    assert not any(t.startswith("lensdelay.cli") for t in _graph()["lensdelay"])
+
+
+def test_no_import_cycles():
+    graph = _graph()
+    state, stack, cycles = {}, [], []
+
+    def visit(node):
+        state[node] = 1
+        stack.append(node)
+        for t in graph.get(node, ()):
+            if state.get(t) == 1:
+                cycles.append(stack[stack.index(t):] + [t])
+            elif t not in state:
+                visit(t)
+        stack.pop()
+        state[node] = 2
+
+    for node in graph:
+        if node not in state:
+            visit(node)
+    assert not cycles, "\n".join(" -> ".join(c) for c in cycles)
+
+
+@pytest.mark.parametrize("module", ["lensdelay", "lensdelay.forecast.pipeline", "lensdelay.report.figures"])
+def test_importing_changes_no_global_state(module):
+    """Importing the library leaves astropy's IERS settings, the warning filters and
+    matplotlib's backend alone (a fresh interpreter)."""
+    import subprocess
+    import sys
+
+    # the libraries lensdelay builds on set filters of their own when first imported
+    deps = ("numpy, scipy.linalg, scipy.optimize, scipy.interpolate, scipy.special, scipy.stats, "
+            "scipy.sparse, astropy.table, astropy.coordinates, astropy.time, astropy.cosmology, "
+            "emcee, lmfit, matplotlib.figure, matplotlib.dates, erfa")
+    code = (
+        f"import {deps}\n"
+        "import warnings, matplotlib\n"
+        "from astropy.utils import iers\n"
+        "before = (iers.conf.auto_download, iers.conf.auto_max_age, list(warnings.filters), "
+        "matplotlib.get_backend())\n"
+        f"import {module}\n"
+        "after = (iers.conf.auto_download, iers.conf.auto_max_age, list(warnings.filters), "
+        "matplotlib.get_backend())\n"
+        "assert before == after, (before, after)\n"
+    )
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert result.returncode == 0, result.stderr
