@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from lensdelay.lensing.delays import fermat_difference_to_days
 from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.forecast.budget import delay_budget
 from lensdelay.forecast.pipeline import run_forecast
@@ -104,7 +105,7 @@ def images_of_source(model_path, source_x, source_y, *, source_redshift=None, le
         raise err.with_source(model_path) from err
     lens = model.lens()
     table = find_images(lens, [beta_x], [beta_y], scale)
-    t = table.fermat * days
+    t = fermat_difference_to_days(table.fermat, days)
     first = t.min() if len(t) else 0.0
     labels = [chr(ord("A") + i) if i < 26 else f"I{i + 1}" for i in range(len(table))]
     images = [

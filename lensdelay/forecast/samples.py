@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.special import logsumexp
 
+from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.images import find_images, newton_polish
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import ImageLikelihood
@@ -203,9 +204,9 @@ def solve_samples(like: ImageLikelihood, draws: np.ndarray, tracks: list[ImageTr
     parity = lens.parity_code(x, y, fam.scale)
     tau = np.where(exists, tau, np.nan)
     ref = [t.label for t in tracks].index(reference)
-    lens_days = (tau - tau[:, ref:ref + 1]) * fam.days_per_arcsec2
+    lens_days = fermat_difference_to_days(tau - tau[:, ref:ref + 1], fam.days_per_arcsec2)
     rank = np.argsort(np.argsort(np.where(exists, tau, np.inf), axis=1), axis=1) + 1
-    scale = (like.h0_ref / h0) * (1.0 - kappa)
+    scale = delay_scale(h0, like.h0_ref, kappa)
     return ModelSamples(like.model.label, list(tracks), ref, x, y, exists, lens_days,
                         np.where(exists, mu, np.nan), parity, rank, h0, kappa, scale)
 

@@ -16,6 +16,7 @@ import numpy as np
 from astropy import units as u
 from astropy.cosmology import FlatLambdaCDM
 
+from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import DelayDistanceTable, LensDistances
 from lensdelay.inference.summaries import quantile_summary as summary
 
@@ -28,9 +29,9 @@ def pair_delays(like, rows) -> dict:
     out = {}
     for fam, pred in zip(like.families, preds):
         for i, j in itertools.combinations(range(len(fam.labels)), 2):
-            days = (pred["fermat"][:, j] - pred["fermat"][:, i]) * fam.days_per_arcsec2
-            if like.use_delays:
-                days = days * like.delay_scale(rows)
+            scale = like.delay_scale(rows) if like.use_delays else 1.0
+            days = fermat_difference_to_days(pred["fermat"][:, j] - pred["fermat"][:, i],
+                                             fam.days_per_arcsec2, scale)
             out[(fam.label, fam.labels[j], fam.labels[i])] = days
     return out
 
@@ -44,7 +45,7 @@ def delay_curves(pairs: dict, h0_ref: float, h0_grid=None, cosmology=None, z_l=N
         q = np.nanpercentile(days, [50, 16, 84, 2.5, 97.5])
         for h0 in h0_grid:
             rows.append({"family": fam, "image": a, "relative_to": b, "axis": "H0", "value": float(h0),
-                         **dict(zip(("median", "p16", "p84", "p2.5", "p97.5"), map(float, q * h0_ref / h0)))})
+                         **dict(zip(("median", "p16", "p84", "p2.5", "p97.5"), map(float, q * delay_scale(h0, h0_ref))))})
         base = None
         for axis, grid in (("Om0", om0_grid), ("w0", w_grid)):
             if grid is None or cosmology is None:
@@ -91,7 +92,7 @@ def h0_posterior(h0_eff, like, *, kappa_ext=(0.0, 0.05), om0_prior=None, rng=Non
     h0 = h0_eff * (1.0 - kappa) * ratio
     d_ref = LensDistances(cosmo, sc.lens_redshift, sc.reference_source_redshift).time_delay_distance(
         fam.redshift).to_value(u.Mpc)
-    d_model = d_ref * like.h0_ref / h0_eff           # what the delays measure: D_dt (1 − κ)
+    d_model = d_ref * delay_scale(h0_eff, like.h0_ref)   # what the delays measure: D_dt (1 − κ)
     d_true = d_model / (1.0 - kappa)
     return {"H0": summary(h0, np.ones(n)), "D_dt_Mpc": summary(d_true, np.ones(n)),
             "D_dt_model_Mpc": summary(d_model, np.ones(n)), "kappa_ext": list(kappa_ext),

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 import lmfit
 import numpy as np
 
+from lensdelay.lensing.delays import fermat_difference_to_days
 from lensdelay.errors import FitError, InputError, LensdelayWarning
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import MISSING_IMAGE_PENALTY, ImageLikelihood
@@ -266,10 +267,9 @@ def observed_delays(like: ImageLikelihood, rows: np.ndarray, family: int = 0, re
     rows = np.atleast_2d(rows)
     pred = like.predict(rows)[family]
     fam = like.families[family]
-    days = (pred["fermat"] - pred["fermat"][:, reference:reference + 1]) * fam.days_per_arcsec2
-    if like.use_delays:
-        days = days * like.delay_scale(rows)[:, None]
-    return days
+    scale = like.delay_scale(rows)[:, None] if like.use_delays else 1.0
+    return fermat_difference_to_days(pred["fermat"] - pred["fermat"][:, reference:reference + 1],
+                                     fam.days_per_arcsec2, scale)
 
 
 def delay_errors(like: ImageLikelihood, result: FitResult, family: int = 0, reference: int = 0):

@@ -35,6 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, choices_text
 from lensdelay.lensing.images import newton_polish
@@ -233,7 +234,7 @@ class ImageLikelihood:
         params = np.atleast_2d(params)
         h0 = params[:, self.h0_index] if self.h0_index is not None else self.h0_fixed
         kappa = params[:, self.kappa_index] if self.kappa_index is not None else self.kappa_fixed
-        return np.broadcast_to((self.h0_ref / h0) * (1.0 - kappa), (len(params),))
+        return np.broadcast_to(delay_scale(h0, self.h0_ref, kappa), (len(params),))
 
     def source_slice(self, k: int) -> slice:
         return slice(self.n_model + 2 * k, self.n_model + 2 * k + 2)
@@ -436,7 +437,7 @@ class ImageLikelihood:
             k = index[fam_label]
             fam = self.families[k]
             j = fam.labels.index(label) if label in fam.labels else len(fam.labels) + self.tracked[k][0].index(label)
-            cols.append(fermat[k][:, j] * fam.days_per_arcsec2 * scale)
+            cols.append(fermat_difference_to_days(fermat[k][:, j], fam.days_per_arcsec2, scale))
         return np.stack(cols, axis=1)
 
     def information_jacobian(self, params: np.ndarray, preds=None) -> np.ndarray:
