@@ -61,7 +61,7 @@ def main():
                         ("sighting 12 sigma away (resampling)", "D=2027-01-15±1.5")):
         t0 = time.perf_counter()
         upd = forecast("scenarios/vellmar_quad.toml", n_samples=100_000, budget=False, seen=[seen])
-        route = upd["timing"]["models"][0]
+        route = upd.timing["models"][0]
         print(f"forecast with a {label}: {time.perf_counter() - t0:.1f} s, route {route['route']}, "
               f"{route['effective_samples']:.0f} effective samples")
 
@@ -72,10 +72,10 @@ def main():
 
     sc, _ = load_scenario("scenarios/vellmar_quad.toml")
     like = ImageLikelihood(sc, sc.model)
-    chain = res["chains"][0].samples()
+    chain = res.chains[0].samples()
     rows = chain[np.random.default_rng(0).integers(0, len(chain), 2000)]
     fam = like.families[0]
-    tracks, _ = image_tracks(like, res["fits"][0].values, "sn")
+    tracks, _ = image_tracks(like, res.fits[0].values, "sn")
     starts_x = np.array([t.x for t in tracks])
     starts_y = np.array([t.y for t in tracks])
     t0 = time.perf_counter()

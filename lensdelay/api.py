@@ -201,19 +201,18 @@ def forecast(scenario, models=None, *, budget: bool = True, **options) -> dict:
 
     Returns
     -------
-    dict
-        The forecast (images with their date, delay, magnitude summaries and statuses,
-        the timing update, models and weights), plus ``budget`` and ``provenance``.
+    Forecast
+        The images (:class:`~lensdelay.forecast.result.ImageForecast`: date, delay and
+        magnitude summaries, statuses), the timing update, models and weights, the
+        budget and the provenance; ``.report()`` gives the text the command line prints.
     """
     pairs = [_scenario(scenario, m) for m in (models or [None])]
     inputs = []
     for _, used in pairs:
         inputs += [p for p in used if p not in inputs]
     res = run_forecast([sc for sc, _ in pairs], **options)
-    res["provenance"] = provenance(inputs, res["cosmology"], res["settings"].seed)
-    if budget:
-        res["budget"] = delay_budget(res)
-    return res
+    res = replace(res, provenance=provenance(inputs, res.cosmology, res.settings.seed))
+    return replace(res, budget=delay_budget(res)) if budget else res
 
 
 def infer_h0(scenario, model=None, **options) -> dict:

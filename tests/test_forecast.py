@@ -97,14 +97,14 @@ def test_sis_end_to_end_date_is_detection_plus_closed_form_delay(tmp_path):
         res = run_forecast(str(path), h0=(70.0, 1e-9), kappa_ext=(0.0, 0.0), microlensing=0.0, **FAST)
     d_dt = LensDistances(DEFAULT_COSMOLOGY, 0.5, 2.0).time_delay_distance(2.0).to_value(u.Mpc)
     expected = d_dt * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.25
-    b = next(im for im in res["images"] if im["label"] == "B")
-    assert b["delay_days"]["median"] == pytest.approx(expected, rel=1e-4)
+    b = next(im for im in res.images if im.label == "B")
+    assert b.delay_days["median"] == pytest.approx(expected, rel=1e-4)
     from lensdelay.io.forecast_files import forecast_json
 
     written = next(im for im in forecast_json(res)["images"] if im["label"] == "B")["date"]["median"]
     true_date = Time("2027-01-10", scale="utc") + expected * u.day       # astropy Time arithmetic
     assert abs((Time(written.rstrip("Z"), scale="utc") - true_date).to_value(u.s)) < 60.0
-    assert b["status"] == "future" and b["parity"] == "saddle" and b["arrival_rank"] == 2
+    assert b.status == "future" and b.parity == "saddle" and b.arrival_rank == 2
 
 
 def test_past_image_is_reported_as_past(tmp_path):
@@ -113,11 +113,11 @@ def test_past_image_is_reported_as_past(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
         res = run_forecast(str(path), now=Time("2027-02-10", scale="utc"), **FAST)
-    a = next(im for im in res["images"] if im["label"] == "A")
-    assert a["status"] == "past"
-    assert a["date_offset_days"]["p97.5"] < 0
-    assert a["order"] == "leads" and a["order_agreement"] == 1.0
-    assert a["archival_search"] is not None
+    a = next(im for im in res.images if im.label == "A")
+    assert a.status == "past"
+    assert a.date_offset_days["p97.5"] < 0
+    assert a.order == "leads" and a.order_agreement == 1.0
+    assert a.archival_search is not None
 
 
 def test_quad_true_dates_inside_95_windows(tmp_path):
@@ -129,13 +129,13 @@ def test_quad_true_dates_inside_95_windows(tmp_path):
         warnings.simplefilter("ignore", LensdelayWarning)
         res = run_forecast(str(path), h0=(70.0, 3.0), kappa_ext=(0.0, 0.02), walkers=24, steps=800,
                            n_samples=6000, progress=False)
-    for im in res["images"]:
-        if not im["observed"]:
+    for im in res.images:
+        if not im.observed:
             continue
-        k = np.argmin(np.hypot(t.x - im["x"], t.y - im["y"]))
+        k = np.argmin(np.hypot(t.x - im.x, t.y - im.y))
         true_delay = days[k] - days[0]
-        q = im["date_offset_days"]
-        assert q["p2.5"] - 1e-6 <= true_delay <= q["p97.5"] + 1e-6, (im["label"], true_delay, q)
+        q = im.date_offset_days
+        assert q["p2.5"] - 1e-6 <= true_delay <= q["p97.5"] + 1e-6, (im.label, true_delay, q)
 
 
 def test_forecast_outputs_and_calendar_parse(tmp_path, capsys):
@@ -186,13 +186,13 @@ def test_updating_on_a_further_image_shrinks_the_others(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
         base = run_forecast(str(path), **FAST)
-        c = next(im for im in base["images"] if im["label"] == "C")
-        seen_date = (Time("2027-03-01", scale="utc") + c["date_offset_days"]["median"] * u.day).isot[:19]
+        c = next(im for im in base.images if im.label == "C")
+        seen_date = (Time("2027-03-01", scale="utc") + c.date_offset_days["median"] * u.day).isot[:19]
         upd = run_forecast(str(path), seen=[f"C={seen_date}Z±0.5"], **FAST)
-    d = next(im for im in upd["images"] if im["label"] == "D")
-    assert d["interval95_change"] is not None and d["interval95_change"] < 1.0
-    c = next(im for im in upd["images"] if im["label"] == "C")
-    assert c["status"] == "seen" and c["sighted"]
+    d = next(im for im in upd.images if im.label == "D")
+    assert d.interval95_change is not None and d.interval95_change < 1.0
+    c = next(im for im in upd.images if im.label == "C")
+    assert c.status == "seen" and c.sighted
 
 
 def test_several_models_are_combined_with_weights(tmp_path):
@@ -201,11 +201,11 @@ def test_several_models_are_combined_with_weights(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
         res = run_forecast(str(path), models=["models/sie_shear.toml", "models/power_law_shear.toml"], **FAST)
-    assert res["model_labels"] == ["sie_shear", "power_law_shear"]
-    assert res["model_weights"].sum() == pytest.approx(1.0)
-    d = next(im for im in res["images"] if im["label"] == "D")
-    assert set(d["per_model"]) == {"sie_shear", "power_law_shear"}
-    assert d["model_spread_days"] >= 0.0
+    assert res.model_labels == ("sie_shear", "power_law_shear")
+    assert res.model_weights.sum() == pytest.approx(1.0)
+    d = next(im for im in res.images if im.label == "D")
+    assert set(d.per_model) == {"sie_shear", "power_law_shear"}
+    assert d.model_spread_days >= 0.0
 
 
 @pytest.mark.parametrize("change, message", [

@@ -16,6 +16,7 @@ from astropy.time import Time
 from scipy import stats
 
 from lensdelay.forecast.budget import covariance_terms
+from lensdelay.forecast.result import ImageSampleSet
 from lensdelay.cli.main import build_parser, main
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
 from lensdelay.lensing.distances import LensDistances
@@ -47,7 +48,7 @@ def _quiet_forecast(*args, **kwargs):
 
 
 def _image(res, label):
-    return next(im for im in res["images"] if im["label"] == label)
+    return next(im for im in res.images if im.label == label)
 
 
 def _half68(q):
@@ -83,15 +84,15 @@ def test_measured_delay_sets_the_date_spread(tmp_path, date_sigma):
     path = _double(tmp_path, date_sigma, delay=measured)
     res = _quiet_forecast(str(path), now=Time("2027-01-01", scale="utc"), **FAST)
     b, a = _image(res, "B"), _image(res, "A")
-    assert b["date_offset_days"]["median"] == pytest.approx(measured, abs=0.1 * date_sigma + 0.1)
+    assert b.date_offset_days["median"] == pytest.approx(measured, abs=0.1 * date_sigma + 0.1)
     # the model's own spread (H0 ± 7%, κ ± 5%: ~2 d) narrows the measurement a little
     expected = np.hypot(0.54, date_sigma)
-    assert _half68(b["date_offset_days"]) == pytest.approx(expected, rel=0.08)
-    assert _half68(b["delay_days"]) < 0.56
-    assert _half68(a["date_offset_days"]) == pytest.approx(date_sigma, rel=0.05)
-    assert res["timing"]["models"][0]["route"] in ("reweight", "resample")
-    assert res["timing"]["models"][0]["effective_samples"] >= 0.1 * FAST["n_samples"]
-    tension = res["timing"]["tensions"][0]
+    assert _half68(b.date_offset_days) == pytest.approx(expected, rel=0.08)
+    assert _half68(b.delay_days) < 0.56
+    assert _half68(a.date_offset_days) == pytest.approx(date_sigma, rel=0.05)
+    assert res.timing["models"][0]["route"] in ("reweight", "resample")
+    assert res.timing["models"][0]["effective_samples"] >= 0.1 * FAST["n_samples"]
+    tension = res.timing["tensions"][0]
     assert abs(tension["sigma"]) < 2 and not tension["in_tension"]
 
 
@@ -101,7 +102,7 @@ def test_reference_window_is_the_same_with_and_without_the_delay(tmp_path):
     without = _quiet_forecast(str(_double(tmp_path, 3.0, name="a")), **FAST)
     with_delay = _quiet_forecast(str(_double(tmp_path, 3.0, delay=_sis_delay_days(), name="b")), **FAST)
     for res in (without, with_delay):
-        assert _half68(_image(res, "A")["date_offset_days"]) == pytest.approx(3.0, rel=0.05)
+        assert _half68(_image(res, "A").date_offset_days) == pytest.approx(3.0, rel=0.05)
 
 
 # -- a sighting far from the prediction ----------------------------------------------------
@@ -133,20 +134,20 @@ def test_sighting_five_sigma_away_is_reported_and_nothing_collapses(tmp_path):
     path = _quad(tmp_path)
     now = Time("2027-03-02", scale="utc")
     base = _quiet_forecast(str(path), now=now, **FAST)
-    d = _image(base, "D")["date_offset_days"]
+    d = _image(base, "D").date_offset_days
     sigma_s = 0.5
     spread = np.hypot(_half68(d), sigma_s)
     when = Time("2027-03-01", scale="utc") + (d["median"] + 5 * spread) * u.day
     res = _quiet_forecast(str(path), now=now, seen=[f"sn/D={when.isot}±{sigma_s}"], **FAST)
-    tension = res["timing"]["tensions"][0]
+    tension = res.timing["tensions"][0]
     assert tension["in_tension"] and tension["sigma"] > 3
     assert 0 < tension["p_value"] < 0.01
-    model = res["timing"]["models"][0]
+    model = res.timing["models"][0]
     assert model["effective_samples"] >= 0.1 * FAST["n_samples"]
     seen = _image(res, "D")
-    assert seen["status"] == "seen" and any("sigma from the prediction" in f for f in seen["flag"])
-    for im in res["images"]:
-        assert _half68(im["date_offset_days"]) > 0.3 * sigma_s, im["label"]
+    assert seen.status == "seen" and any("sigma from the prediction" in f for f in seen.flags)
+    for im in res.images:
+        assert _half68(im.date_offset_days) > 0.3 * sigma_s, im.label
     text = forecast_text(res)
     assert "WARNING: sighting sn/D" in text and "wrong image identification" in text
 
@@ -158,12 +159,12 @@ def test_a_predicted_image_can_be_reported_seen(tmp_path):
     now = Time("2027-03-02", scale="utc")
     base = _quiet_forecast(str(path), now=now, **FAST)
     x1 = _image(base, "X1")
-    assert not x1["observed"]
-    when = Time("2027-03-01", scale="utc") + x1["date_offset_days"]["median"] * u.day
+    assert not x1.observed
+    when = Time("2027-03-01", scale="utc") + x1.date_offset_days["median"] * u.day
     res = _quiet_forecast(str(path), now=now, seen=[f"X1={when.isot}±1"], **FAST)
     x1 = _image(res, "X1")
-    assert x1["status"] == "seen" and x1["sighted"]
-    assert abs(x1["tension"]["sigma"]) < 1
+    assert x1.status == "seen" and x1.sighted
+    assert abs(x1.tension["sigma"]) < 1
 
 
 # -- as of now ------------------------------------------------------------------------------
@@ -195,8 +196,8 @@ def test_seen_in_the_last_image_of_a_quad_gives_archival_advice(tmp_path):
     text = forecast_text(res)
     for label in "ABC":
         im = _image(res, label)
-        assert im["order"] == "leads" and im["archival_search"] is not None
-        assert im["status"] != "uncertain"
+        assert im.order == "leads" and im.archival_search is not None
+        assert im.status != "uncertain"
         assert f"ARCHIVE sn/{label}" in text
 
 
@@ -293,9 +294,10 @@ def test_model_family_term_is_the_spread_between_models(rng):
     n = 20000
     model = np.repeat([0, 1], n)
     lens_days = np.concatenate([rng.normal(10, 0.01, n), rng.normal(12, 0.01, n)])
-    samples = {"lens_days": lens_days, "h0": np.full(2 * n, 70.0), "kappa": np.zeros(2 * n),
-               "t0": np.zeros(2 * n), "model": model, "delay": lens_days}
-    terms = covariance_terms(samples, np.full(2 * n, 1.0 / (2 * n)), 70.0, with_date=True)
+    samples = ImageSampleSet(offsets=lens_days, weights=np.full(2 * n, 1.0 / (2 * n)), delay=lens_days,
+                             lens_days=lens_days, h0=np.full(2 * n, 70.0), kappa=np.zeros(2 * n),
+                             t0=np.zeros(2 * n), model=model)
+    terms = covariance_terms(samples, 70.0, with_date=True)
     assert terms["model family"] == pytest.approx(1.0, rel=1e-3)
     assert terms["_variance"] == pytest.approx(1.0 + 1e-4, rel=1e-3)
 
@@ -308,7 +310,7 @@ def test_budget_model_family_term_in_a_two_model_forecast(tmp_path):
 
     budget = delay_budget(res)
     d = next(r for r in budget["images"] if r["label"] == "D")
-    medians = [v["delay_median"] for v in _image(res, "D")["per_model"].values()]
+    medians = [v["delay_median"] for v in _image(res, "D").per_model.values()]
     assert abs(medians[0] - medians[1]) > 0.01
     assert d["delay"]["model family"]["percent"] > 0
     text = forecast_text(res)

@@ -9,7 +9,6 @@ from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_ta
 from lensdelay.io.storage import write_output_set
 from lensdelay.model.scenario import parse_date
 from lensdelay.report.figures import budget_figure, timeline_figure
-from lensdelay.report.text import budget_text, forecast_text
 
 
 def run(args) -> int:
@@ -24,16 +23,14 @@ def run(args) -> int:
     doc = forecast_json(res)
     ecsv = table_text(forecast_table(res))
     ics = forecast_ics(res)
-    text = forecast_text(res)
-    if "budget" in res:
-        text += "\n\n" + budget_text(res["budget"])
+    text = res.report()
     if out is not None:
         figs = {"timeline": timeline_figure(res)}
-        if "budget" in res:
-            figs["budget"] = budget_figure(res["budget"])
+        if res.budget is not None:
+            figs["budget"] = budget_figure(res.budget)
         write_output_set(out, json_name="forecast.json", doc=doc, figures=figs,
                          texts={"forecast.ecsv": ecsv, "forecast.ics": ics},
-                         inputs=res["provenance"]["inputs"])
+                         inputs=res.provenance["inputs"])
     print(text)
     if out is not None:
         print(f"wrote {out}/forecast.json, forecast.ecsv, forecast.ics and figures", file=sys.stderr)

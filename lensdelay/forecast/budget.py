@@ -70,20 +70,21 @@ def _mean(x, w):
     return float(np.sum(w * x))
 
 
-def covariance_terms(samples: dict, weights: np.ndarray, h0_ref: float, with_date: bool) -> dict:
+def covariance_terms(samples, h0_ref: float, with_date: bool) -> dict:
     """Cov(D, c_k) for the sampled sources (module docstring), plus the remainder.
 
-    ``samples`` holds per-sample ``lens_days``, ``h0``, ``kappa``, ``t0``, ``model`` and
-    ``delay``; ``with_date`` adds t0 (the date's budget) or leaves it out (the delay's).
+    ``samples`` (an :class:`~lensdelay.forecast.result.ImageSampleSet`) holds per-sample
+    ``weights``, ``lens_days``, ``h0``, ``kappa``, ``t0``, ``model`` and ``delay``; ``with_date`` adds t0 (the date's budget) or leaves it out (the delay's).
     """
-    ok = (weights > 0) & np.isfinite(samples["delay"]) & np.isfinite(samples["t0"])
+    weights = samples.weights
+    ok = (weights > 0) & np.isfinite(samples.delay) & np.isfinite(samples.t0)
     w = weights[ok] / weights[ok].sum()
-    L = samples["lens_days"][ok]
-    inv_h0 = 1.0 / samples["h0"][ok]
-    kappa = samples["kappa"][ok]
-    t0 = samples["t0"][ok]
-    model = samples["model"][ok]
-    total = samples["delay"][ok] + (t0 if with_date else 0.0)
+    L = samples.lens_days[ok]
+    inv_h0 = 1.0 / samples.h0[ok]
+    kappa = samples.kappa[ok]
+    t0 = samples.t0[ok]
+    model = samples.model[ok]
+    total = samples.delay[ok] + (t0 if with_date else 0.0)
     scale = h0_ref * inv_h0 * (1.0 - kappa)
     s_bar, L_bar = _mean(scale, w), _mean(L, w)
     L_model = np.zeros_like(L)
@@ -104,27 +105,27 @@ def covariance_terms(samples: dict, weights: np.ndarray, h0_ref: float, with_dat
         "_variance": float(np.sum(w * centred ** 2))}
 
 
-def delay_budget(res: dict, velocity_kms: float = DEFAULT_VELOCITY_KMS,
+def delay_budget(res, velocity_kms: float = DEFAULT_VELOCITY_KMS,
                  om0_sigma: float = DEFAULT_OM0_SIGMA) -> dict:
     """Each source's share of each image's delay and date variance (forecast result → dict)."""
-    sc = res["scenario"]
+    sc = res.scenario
     tr = sc.transient
     fam = sc.family(tr.family)
-    cosmo = res["cosmology"]
+    cosmo = res.cosmology
     h0_ref = float(cosmo.H0.value)
     d_om, d_z = ddt_log_derivatives(cosmo, sc.lens_redshift, fam.redshift)
     om_sigma = om0_sigma if d_om != 0.0 else 0.0
     c_kms = const.c.to_value(u.km / u.s)
     rows = []
-    for im in res["images"]:
-        if im["label"] == tr.seen_in and im["observed"]:
+    for im in res.images:
+        if im.label == tr.seen_in and im.observed:
             continue
-        med = im["delay_days"]["median"]
+        med = im.delay_days["median"]
         extra = {"Omega_m": (med * d_om * om_sigma) ** 2,
                  "peculiar velocity": (med * d_z * (1 + sc.lens_redshift) * velocity_kms / c_kms) ** 2}
-        row = {"family": im["family"], "label": im["label"], "delay_median_days": med}
+        row = {"family": im.family, "label": im.label, "delay_median_days": med}
         for name, with_date in (("delay", False), ("date", True)):
-            terms = covariance_terms(im["samples"], im["weights"], h0_ref, with_date)
+            terms = covariance_terms(im.samples, h0_ref, with_date)
             variance = terms.pop("_variance")
             part = {}
             for term in SAMPLED_TERMS + ("remainder",):
@@ -139,7 +140,7 @@ def delay_budget(res: dict, velocity_kms: float = DEFAULT_VELOCITY_KMS,
             row[name] = part
             row[f"{name}_sigma_days"] = float(np.sqrt(variance))
         rows.append(row)
-    st = res["settings"]
+    st = res.settings
     return {"images": rows, "assumptions": {
         "peculiar_velocity_sigma_kms": velocity_kms, "Omega_m_sigma": om_sigma,
         "dlnDdt_dOm0": d_om, "dlnDdt_dzl": d_z,

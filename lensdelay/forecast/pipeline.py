@@ -19,6 +19,7 @@ from astropy.time import Time
 from lensdelay.model.cosmology import cosmology_from_spec
 from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.inference.fit import fit
+from lensdelay.forecast.result import Forecast, ImageForecast, ImageSampleSet
 from lensdelay.forecast.samples import (
     AGREEMENT, ForecastSettings, ImageTrack, Sighting, TimingUpdate, draw_scale_priors, image_tracks,
     importance_update, majority, match_tracks, model_weights, parity_name, solve_samples,
@@ -292,14 +293,21 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
         "min_effective_samples": settings.min_ess_fraction * n,
         "tensions": tension_rows,
     }
-    return {
-        "scenario": sc0, "settings": settings, "site": site, "images": images,
-        "model_labels": [f.model_label for f in fits], "fits": fits, "chains": chains,
-        "model_weights": w_model, "model_weights_positions": w_prior, "updates": updates,
-        "model_notes": notes_per_model, "timing": timing_doc, "notes": notes,
-        "calendar": calendar, "now": now, "cosmology": cosmology,
-        "h0_used": (settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
-    }
+    return Forecast(
+        scenario=sc0, settings=settings, site=site, now=now,
+        images=tuple(_image_forecast(e, tr.date) for e in images),
+        model_labels=tuple(f.model_label for f in fits), fits=tuple(fits), chains=tuple(chains),
+        model_weights=w_model, model_weights_positions=w_prior, updates=tuple(updates),
+        model_notes=tuple(tuple(n) for n in notes_per_model), timing=timing_doc, notes=tuple(notes),
+        calendar=calendar, cosmology=cosmology,
+        h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)))
+
+
+def _image_forecast(entry: dict, detection_date) -> ImageForecast:
+    """The summary entry of one image as a frozen result."""
+    fields = {k: v for k, v in entry.items() if k not in ("samples", "offsets", "weights", "flag")}
+    samples = ImageSampleSet(offsets=entry["offsets"], weights=entry["weights"], **entry["samples"])
+    return ImageForecast(**fields, flags=tuple(entry["flag"]), samples=samples, detection_date=detection_date)
 
 
 def _draw_t0(timing, samples, tr, rng) -> np.ndarray:
@@ -471,7 +479,7 @@ def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, no
             "date_offset_days": off_q,
             "per_model": per_model,
             "offsets": arr["offsets"], "weights": weights,
-            "samples": {k: arr[k] for k in ("lens_days", "h0", "kappa", "t0", "model", "delay", "offsets")},
+            "samples": {k: arr[k] for k in ("lens_days", "h0", "kappa", "t0", "model", "delay")},
         }
         if min(par_share, rk_share) < AGREEMENT:
             entry["flag"].append(f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)")

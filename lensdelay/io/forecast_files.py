@@ -13,7 +13,7 @@ from lensdelay.cautions import CAUTION
 from lensdelay.forecast.pipeline import STATUS_MEANINGS
 
 def instant(res, offset_days: float):
-    return res["scenario"].transient.date + offset_days * u.day
+    return res.scenario.transient.date + offset_days * u.day
 
 
 def iso_utc(t) -> str:
@@ -22,12 +22,12 @@ def iso_utc(t) -> str:
 
 def date_summary(res, im) -> dict:
     """ISO 8601 UTC date-times of the date quantiles."""
-    return {k: iso_utc(instant(res, v)) for k, v in im["date_offset_days"].items()}
+    return {k: iso_utc(instant(res, v)) for k, v in im.date_offset_days.items()}
 
 
 def mjd_summary(res, im) -> dict:
     """The same quantiles as MJD (UTC)."""
-    return {k: float(instant(res, v).utc.mjd) for k, v in im["date_offset_days"].items()}
+    return {k: float(instant(res, v).utc.mjd) for k, v in im.date_offset_days.items()}
 
 
 def day_of(iso: str) -> str:
@@ -51,78 +51,78 @@ def window_days(res, im, lo_key, hi_key) -> tuple[str, str]:
     return day_of(d[lo_key]), day_of(d[hi_key])
 
 
-def forecast_json(res: dict) -> dict:
+def forecast_json(res) -> dict:
     """``forecast.json`` as CONVENTIONS.md defines it, plus provenance and details."""
-    sc, st = res["scenario"], res["settings"]
+    sc, st = res.scenario, res.settings
     tr = sc.transient
     images = []
-    for im in res["images"]:
-        entry = {k: im[k] for k in ("family", "label", "observed", "x", "y", "parity",
-                                    "arrival_rank", "delay_days", "magnification", "magnitude")}
+    for im in res.images:
+        entry = {k: getattr(im, k) for k in ("family", "label", "observed", "x", "y", "parity",
+                                             "arrival_rank", "delay_days", "magnification", "magnitude")}
         entry["date"] = date_summary(res, im)
         entry["date_mjd"] = mjd_summary(res, im)
-        entry.update({k: im[k] for k in ("status", "order", "order_agreement", "parity_agreement",
-                                         "rank_agreement", "flag", "exists_fraction", "fainter_than_depth",
-                                         "per_model", "model_spread_days", "interval95_change",
-                                         "sighted", "tension")})
-        arch = im.get("archival_search")
+        entry.update({k: getattr(im, k) for k in (
+            "status", "order", "order_agreement", "parity_agreement", "rank_agreement", "exists_fraction",
+            "fainter_than_depth", "per_model", "model_spread_days", "interval95_change", "sighted", "tension")})
+        entry["flag"] = list(im.flags)
+        arch = im.archival_search
         entry["archival_search"] = None if arch is None else {
             "from": iso_utc(instant(res, arch["from_offset"])), "to": iso_utc(instant(res, arch["to_offset"]))}
-        if "observability" in im:
-            entry["observability"] = im["observability"]
+        if im.observability is not None:
+            entry["observability"] = im.observability
         images.append(entry)
     doc = {
         "reference_image": tr.seen_in, "reference_family": tr.family,
-        "cosmology": describe_cosmology(res["cosmology"]),
+        "cosmology": describe_cosmology(res.cosmology),
         "seed": st.seed, "images": images,
-        "now": iso_utc(res["now"]), "now_mjd": float(res["now"].utc.mjd),
+        "now": iso_utc(res.now), "now_mjd": float(res.now.utc.mjd),
         "detection": {"date": iso_utc(tr.date), "mjd": float(tr.date.utc.mjd),
                       "date_sigma_days": tr.date_sigma_days, "magnitude": tr.magnitude},
         "priors": {"H0": list(st.h0_prior) if st.h0_prior else "fixed to the cosmology",
-                   "H0_used": res["h0_used"] if np.ndim(res["h0_used"]) == 0 else list(res["h0_used"]),
+                   "H0_used": res.h0_used if np.ndim(res.h0_used) == 0 else list(res.h0_used),
                    "kappa_ext": list(st.kappa_ext), "microlensing_mag": st.microlensing_mag,
                    "depth_mag": st.depth, "mass_model": st.model_prior},
         "samples": st.n_samples,
-        "timing": res["timing"],
+        "timing": res.timing,
         "models": [{"label": label, "bic": float(f.bic), "weight": float(w), "weight_positions_only": float(wp),
-                    "chi2": float(f.chi2), "dof": int(f.dof), "notes": notes}
-                   for label, f, w, wp, notes in zip(res["model_labels"], res["fits"], res["model_weights"],
-                                                     res["model_weights_positions"], res["model_notes"])],
+                    "chi2": float(f.chi2), "dof": int(f.dof), "notes": list(notes)}
+                   for label, f, w, wp, notes in zip(res.model_labels, res.fits, res.model_weights,
+                                                     res.model_weights_positions, res.model_notes)],
         "model_weighting": st.weighting,
-        "site": None if res["site"] is None else vars(res["site"]) | {
-            "solar_elongation": list(res["site"].solar_elongation)},
+        "site": None if res.site is None else vars(res.site) | {
+            "solar_elongation": list(res.site.solar_elongation)},
         "statuses": STATUS_MEANINGS,
-        "notes": res.get("notes", []),
+        "notes": list(res.notes),
         "cautions": CAUTION,
-        "provenance": res["provenance"],
+        "provenance": res.provenance,
     }
-    if "budget" in res:
-        doc["budget"] = res["budget"]
+    if res.budget is not None:
+        doc["budget"] = res.budget
     return doc
 
 
-def forecast_table(res: dict) -> Table:
+def forecast_table(res) -> Table:
     """One row per image (ECSV)."""
     rows = []
-    for im in res["images"]:
+    for im in res.images:
         d = date_summary(res, im)
         mjd = mjd_summary(res, im)
-        row = {"family": im["family"], "label": im["label"], "observed": im["observed"],
-               "status": im["status"], "x": im["x"], "y": im["y"], "parity": im["parity"],
-               "arrival_rank": im["arrival_rank"]}
+        row = {"family": im.family, "label": im.label, "observed": im.observed,
+               "status": im.status, "x": im.x, "y": im.y, "parity": im.parity,
+               "arrival_rank": im.arrival_rank}
         for k in ("median", "p16", "p84", "p2.5", "p97.5"):
-            row[f"delay_{k}"] = im["delay_days"][k]
+            row[f"delay_{k}"] = im.delay_days[k]
         for k in ("median", "p2.5", "p16", "p84", "p97.5"):
             row[f"date_{k}"] = d[k]
         for k in ("median", "p2.5", "p16", "p84", "p97.5"):
             row[f"mjd_{k}"] = mjd[k]
-        mag = im["magnitude"] or {}
+        mag = im.magnitude or {}
         row["magnitude_median"] = mag.get("median", np.nan)
         row["magnitude_p16"] = mag.get("p16", np.nan)
         row["magnitude_p84"] = mag.get("p84", np.nan)
-        row["mu_median"] = im["magnification"]["median"]
-        row["p_observable"] = im.get("observability", {}).get("probability_observable", np.nan)
-        tension = im.get("tension")
+        row["mu_median"] = im.magnification["median"]
+        row["p_observable"] = (im.observability or {}).get("probability_observable", np.nan)
+        tension = im.tension
         row["tension_sigma"] = tension["sigma"] if tension else np.nan
         rows.append(row)
     t = Table(rows=rows)
@@ -133,8 +133,8 @@ def forecast_table(res: dict) -> Table:
             t[c].unit = u.day
     t.meta["comments"] = ["lensdelay forecast; delays relative to the image the transient was seen in "
                           "(positive = later); mjd_* are UTC MJD", CAUTION]
-    t.meta["reference_image"] = res["scenario"].transient.seen_in
-    t.meta["now"] = iso_utc(res["now"])
+    t.meta["reference_image"] = res.scenario.transient.seen_in
+    t.meta["now"] = iso_utc(res.now)
     return t
 
 
@@ -161,49 +161,49 @@ def _fold(line: str) -> str:
     return "\r\n ".join(out)
 
 
-def ics_windows(res: dict, im: dict) -> list[tuple[_dt.date, _dt.date]]:
+def ics_windows(res, im) -> list[tuple[_dt.date, _dt.date]]:
     """Observable stretches (first, last day) of an image's 95% window still ahead of now.
 
     With a site: its observable runs (from the calendar); without one: the window from
     the day of ``now`` on. Nothing for a seen image or a window already over.
     """
-    if im["status"] in ("seen", "past"):
+    if im.status in ("seen", "past"):
         return []
-    if "observability" in im:
+    if im.observability is not None:
         return [(_dt.date.fromisoformat(a), _dt.date.fromisoformat(b))
-                for a, b in im["observability"]["windows_ahead"]]
+                for a, b in im.observability["windows_ahead"]]
     lo, hi = window_days(res, im, "p2.5", "p97.5")
-    today = res["now"].isot[:10]
+    today = res.now.isot[:10]
     start = max(lo, today)
     return [] if start > hi else [(_dt.date.fromisoformat(start), _dt.date.fromisoformat(hi))]
 
 
-def forecast_ics(res: dict, stamp: _dt.datetime | None = None) -> str:
+def forecast_ics(res, stamp: _dt.datetime | None = None) -> str:
     """iCalendar (RFC 5545): one all-day event per observable stretch of each image's
     95% window that is still ahead of ``now``."""
-    sc = res["scenario"]
-    stamp = stamp or res["now"].to_datetime().replace(tzinfo=None)
+    sc = res.scenario
+    stamp = stamp or res.now.to_datetime().replace(tzinfo=None)
     lines = ["BEGIN:VCALENDAR", "VERSION:2.0", "PRODID:-//lensdelay//forecast//EN", "CALSCALE:GREGORIAN"]
-    for im in res["images"]:
+    for im in res.images:
         d = date_summary(res, im)
         for k, (start, last) in enumerate(ics_windows(res, im)):
-            desc = (f"Predicted reappearance of {sc.name} image {im['family']}/{im['label']} "
-                    f"({im['parity']}). Median {median_day(d['median'])}; 68% window {day_of(d['p16'])} to "
+            desc = (f"Predicted reappearance of {sc.name} image {im.family}/{im.label} "
+                    f"({im.parity}). Median {median_day(d['median'])}; 68% window {day_of(d['p16'])} to "
                     f"{day_of(d['p84'])}; 95% window {day_of(d['p2.5'])} to {day_of(d['p97.5'])}. "
-                    f"Delay {im['delay_days']['median']:.1f} d after image {sc.transient.seen_in}. ")
-            if "observability" in im:
+                    f"Delay {im.delay_days['median']:.1f} d after image {sc.transient.seen_in}. ")
+            if im.observability is not None:
                 desc += (f"This event covers observable nights {start} to {last}; "
-                         f"P(observable) {im['observability']['probability_observable']:.2f}. ")
-            if im.get("magnitude"):
-                desc += f"Expected magnitude {im['magnitude']['median']:.1f}. "
+                         f"P(observable) {im.observability['probability_observable']:.2f}. ")
+            if im.magnitude:
+                desc += f"Expected magnitude {im.magnitude['median']:.1f}. "
             desc += CAUTION
-            uid = (f"{sc.name}-{im['family']}-{im['label']}-{k}-"
-                   f"{res['provenance']['input_sha256'][:12]}@lensdelay")
+            uid = (f"{sc.name}-{im.family}-{im.label}-{k}-"
+                   f"{res.provenance['input_sha256'][:12]}@lensdelay")
             lines += ["BEGIN:VEVENT", f"UID:{_ics_escape(uid.replace(' ', '_'))}",
                       f"DTSTAMP:{stamp:%Y%m%dT%H%M%SZ}",
                       f"DTSTART;VALUE=DATE:{start:%Y%m%d}",
                       f"DTEND;VALUE=DATE:{last + _dt.timedelta(days=1):%Y%m%d}",
-                      "SUMMARY:" + _ics_escape(f"{sc.name} image {im['family']}/{im['label']}: "
+                      "SUMMARY:" + _ics_escape(f"{sc.name} image {im.family}/{im.label}: "
                                                "in its 95% window"),
                       f"DESCRIPTION:{_ics_escape(desc)}", "TRANSP:TRANSPARENT", "END:VEVENT"]
     lines.append("END:VCALENDAR")

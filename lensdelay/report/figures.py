@@ -118,15 +118,15 @@ def timeline_figure(res):
     import matplotlib.dates as mdates
     from astropy import units as u
 
-    tr = res["scenario"].transient
-    images = res["images"]
+    tr = res.scenario.transient
+    images = res.images
     fig = Figure(figsize=(9.0, 1.2 + 0.75 * len(images)))
     ax = fig.subplots()
     base = tr.date
-    lo = min(im["date_offset_days"]["p2.5"] for im in images)
-    hi = max(im["date_offset_days"]["p97.5"] for im in images)
+    lo = min(im.date_offset_days["p2.5"] for im in images)
+    hi = max(im.date_offset_days["p97.5"] for im in images)
     pad = 0.08 * (hi - lo) + 2
-    cal = res.get("calendar")
+    cal = res.calendar
     to_num = lambda off: mdates.date2num((base + np.asarray(off) * u.day).to_datetime())  # noqa: E731
     if cal is not None:
         start_offset = (cal.start - base).to_value("day")
@@ -139,25 +139,25 @@ def timeline_figure(res):
                        lw=0, label="observable from the site" if first else None)
             first = False
     for row, im in enumerate(images):
-        ok = np.isfinite(im["offsets"]) & (im["weights"] > 0)
-        off = im["offsets"][ok]
-        w = im["weights"][ok]
+        ok = np.isfinite(im.samples.offsets) & (im.samples.weights > 0)
+        off = im.samples.offsets[ok]
+        w = im.samples.weights[ok]
         hist, edges = np.histogram(off, bins=60, weights=w)
         if hist.max() > 0:
             h = 0.38 * hist / hist.max()
             centres = to_num(0.5 * (edges[1:] + edges[:-1]))
             ax.fill_between(centres, row - h, row + h, color="tab:blue", alpha=0.55, lw=0,
                             label="date distribution" if row == 0 else None)
-        q = im["date_offset_days"]
+        q = im.date_offset_days
         ax.plot(to_num([q["p2.5"], q["p97.5"]]), [row, row], "-", color="k", lw=1,
                 label="95% window" if row == 0 else None)
         ax.plot(to_num([q["p16"], q["p84"]]), [row, row], "-", color="k", lw=4,
                 label="68% window" if row == 0 else None)
         ax.plot(to_num(q["median"]), row, "o", color="w", mec="k", ms=5,
                 label="median" if row == 0 else None)
-    rows = {im["label"]: row for row, im in enumerate(images)}
+    rows = {im.label: row for row, im in enumerate(images)}
     first = True
-    for s in res["settings"].sightings:
+    for s in res.settings.sightings:
         if s.label in rows:
             off = (s.date - base).to_value("day")
             ax.errorbar([to_num(off)], [rows[s.label] + 0.25],
@@ -166,18 +166,18 @@ def timeline_figure(res):
                         label="sighting ± 1σ" if first else None)
             first = False
     ax.axvline(to_num(0.0), color="tab:red", lw=1.2, label=f"detection {tr.date.isot[:10]}")
-    now = (res["now"] - base).to_value("day")
+    now = (res.now - base).to_value("day")
     if lo - pad <= now <= hi + pad:
-        ax.axvline(to_num(now), color="tab:purple", ls="--", lw=1, label=f"now {res['now'].isot[:10]}")
+        ax.axvline(to_num(now), color="tab:purple", ls="--", lw=1, label=f"now {res.now.isot[:10]}")
     ax.set_yticks(range(len(images)))
-    ax.set_yticklabels([f"{im['family']}/{im['label']}{'' if im['observed'] else '*'} ({im['status']})"
+    ax.set_yticklabels([f"{im.family}/{im.label}{'' if im.observed else '*'} ({im.status})"
                         for im in images])
     ax.set_ylim(-0.7, len(images) - 0.3)
     ax.set_xlim(to_num(lo - pad), to_num(hi + pad))
     ax.xaxis_date()
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(ax.xaxis.get_major_locator()))
     ax.set_xlabel("date (UTC)")
-    ax.set_title(f"{res['scenario'].name}: when each image shows the event (* = predicted); "
+    ax.set_title(f"{res.scenario.name}: when each image shows the event (* = predicted); "
                  "model-dependent, see cautions", fontsize=9)
     ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     fig.tight_layout()

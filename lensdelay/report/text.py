@@ -126,23 +126,23 @@ def hubble_text(res) -> str:
 
 
 def _h0_text(res) -> str:
-    st = res["settings"]
+    st = res.settings
     if st.h0_prior:
         return f"H0 ~ N({st.h0_prior[0]:g}, {st.h0_prior[1]:g}) km/s/Mpc"
-    cosmo = res["cosmology"]
+    cosmo = res.cosmology
     name = f", {cosmo.name}" if getattr(cosmo, "name", None) else ""
     return f"H0 = {float(cosmo.H0.value):g} km/s/Mpc (fixed{name})"
 
 
 def forecast_text(res: dict) -> str:
     """The readable terminal summary."""
-    sc, st = res["scenario"], res["settings"]
+    sc, st = res.scenario, res.settings
     tr = sc.transient
     lines = [f"Forecast for {sc.name}: transient seen in {tr.family}/{tr.seen_in} on "
-             f"{tr.date.isot[:10]} (± {tr.date_sigma_days:g} d); as of {res['now'].isot[:16]}Z",
+             f"{tr.date.isot[:10]} (± {tr.date_sigma_days:g} d); as of {res.now.isot[:16]}Z",
              f"{st.n_samples} samples; {_h0_text(res)}; kappa_ext ~ N({st.kappa_ext[0]:g}, "
              f"{st.kappa_ext[1]:g}); microlensing {st.microlensing_mag:g} mag"]
-    timing = res["timing"]
+    timing = res.timing
     for s in timing["sightings"]:
         lines.append(f"sighting: {s['family']}/{s['image']} on {s['date'][:16]}Z ± {s['sigma_days']:g} d"
                      + ("" if s["sigma_source"] == "given" else " (default sigma)"))
@@ -161,32 +161,32 @@ def forecast_text(res: dict) -> str:
     head = (f"{'image':<8} {'status':<9} {'date (median)':<13} {'68% window':<23} {'95% window':<23} "
             f"{'delay [d]':>16} {'mag':>6} {'P(obs)':>6}")
     lines += [head, "-" * len(head)]
-    for im in res["images"]:
+    for im in res.images:
         d = date_summary(res, im)
-        dl = im["delay_days"]
+        dl = im.delay_days
         delay = f"{dl['median']:+.1f} ±{0.5 * (dl['p84'] - dl['p16']):.1f}"
-        mag = f"{im['magnitude']['median']:.1f}" if im.get("magnitude") else "—"
-        pobs = (f"{im['observability']['probability_observable']:.2f}" if "observability" in im else "—")
-        name = f"{im['family']}/{im['label']}" + ("" if im["observed"] else "*")
+        mag = f"{im.magnitude['median']:.1f}" if im.magnitude else "—"
+        pobs = (f"{im.observability['probability_observable']:.2f}" if im.observability is not None else "—")
+        name = f"{im.family}/{im.label}" + ("" if im.observed else "*")
         lo68, hi68 = window_days(res, im, "p16", "p84")
         lo95, hi95 = window_days(res, im, "p2.5", "p97.5")
-        lines.append(f"{name:<8} {im['status']:<9} {median_day(d['median']):<13} "
+        lines.append(f"{name:<8} {im.status:<9} {median_day(d['median']):<13} "
                      f"{lo68}..{hi68:<11} {lo95}..{hi95:<11} {delay:>16} {mag:>6} {pobs:>6}")
     lines.append("(* = predicted, not yet observed; windows include the days that contain their ends)")
-    used = sorted({im["status"] for im in res["images"]}, key=list(STATUS_MEANINGS).index)
+    used = sorted({im.status for im in res.images}, key=list(STATUS_MEANINGS).index)
     for s in used:
         lines.append(f"  {s}: {STATUS_MEANINGS[s]}")
-    if len(res["model_labels"]) > 1:
+    if len(res.model_labels) > 1:
         lines += ["", "per-model median delays [d] (weight):"]
-        labels = res["model_labels"]
+        labels = res.model_labels
         lines.append(f"{'image':<8}" + "".join(f"{lab[:18]:>20}" for lab in labels))
-        lines.append(f"{'weight':<8}" + "".join(f"{w:>20.2f}" for w in res["model_weights"]))
-        for im in res["images"]:
+        lines.append(f"{'weight':<8}" + "".join(f"{w:>20.2f}" for w in res.model_weights))
+        for im in res.images:
             cells = []
             for lab in labels:
-                v = im["per_model"].get(lab, {}).get("delay_median")
+                v = im.per_model.get(lab, {}).get("delay_median")
                 cells.append(f"{v:>20.2f}" if v is not None else f"{'—':>20}")
-            lines.append(f"{im['family'] + '/' + im['label']:<8}" + "".join(cells))
+            lines.append(f"{im.family + '/' + im.label:<8}" + "".join(cells))
     lines.append("")
     for t in timing["tensions"]:
         p = t["predicted"]
@@ -197,28 +197,28 @@ def forecast_text(res: dict) -> str:
             lines.append(f"WARNING: {t['measurement']} is {abs(t['sigma']):.1f} sigma from the prediction. "
                          f"Usual causes: {TENSION_CAUSES}. The windows above combine the measurement and "
                          "the model as the probability model says; treat them with care.")
-    for im in res["images"]:
-        for f in im["flag"]:
-            lines.append(f"FLAG {im['family']}/{im['label']}: {f}")
-        arch = im.get("archival_search")
+    for im in res.images:
+        for f in im.flags:
+            lines.append(f"FLAG {im.family}/{im.label}: {f}")
+        arch = im.archival_search
         if arch is not None:
             a = iso_utc(instant(res, arch["from_offset"]))
             b = iso_utc(instant(res, arch["to_offset"]))
-            lines.append(f"ARCHIVE {im['family']}/{im['label']}: its 95% window starts before the detection; "
+            lines.append(f"ARCHIVE {im.family}/{im.label}: its 95% window starts before the detection; "
                          f"search data taken between {day_of(a)} and {day_of(b)}")
-        if im.get("fainter_than_depth"):
-            lines.append(f"FAINT {im['family']}/{im['label']}: median magnitude is fainter than the depth "
+        if im.fainter_than_depth:
+            lines.append(f"FAINT {im.family}/{im.label}: median magnitude is fainter than the depth "
                          f"{st.depth:g}")
-        if im.get("interval95_change") is not None and im["status"] != "seen":
-            lines.append(f"UPDATE {im['family']}/{im['label']}: 95% window is "
-                         f"{100 * im['interval95_change']:.0f}% of its width before the measurements")
-        if "observability" in im and im["status"] not in ("seen", "past"):
-            ob = im["observability"]
-            lines.append(f"SKY {im['family']}/{im['label']}: {ob['observable_days_in_95']} of "
+        if im.interval95_change is not None and im.status != "seen":
+            lines.append(f"UPDATE {im.family}/{im.label}: 95% window is "
+                         f"{100 * im.interval95_change:.0f}% of its width before the measurements")
+        if im.observability is not None and im.status not in ("seen", "past"):
+            ob = im.observability
+            lines.append(f"SKY {im.family}/{im.label}: {ob['observable_days_in_95']} of "
                          f"{ob['days_in_95']} days in the 95% window are observable from the site")
-    for n in res.get("notes", []):
+    for n in res.notes:
         lines.append(f"NOTE: {n}")
-    for label, notes in zip(res["model_labels"], res["model_notes"]):
+    for label, notes in zip(res.model_labels, res.model_notes):
         for n in notes:
             lines.append(f"NOTE [{label}]: {n}")
     lines += ["", CAUTION]

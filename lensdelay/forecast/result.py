@@ -1,0 +1,138 @@
+"""Typed forecast results: one :class:`Forecast` holding one :class:`ImageForecast` per image.
+
+Summaries are five-quantile dicts (``median``, ``p16``, ``p84``, ``p2.5``, ``p97.5``)
+ready for JSON; where a person reads a date the result offers astropy ``Time``
+(:attr:`ImageForecast.date`, :meth:`ImageForecast.window`). Results are frozen: the
+budget and the provenance are added with :func:`dataclasses.replace`, never by
+changing a result in place.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from astropy import units as u
+from astropy.time import Time
+
+
+@dataclass(frozen=True)
+class ImageSampleSet:
+    """Per-sample values behind one image's summaries (all models pooled), with weights.
+
+    ``offsets`` are dates as days after the detection date (t0 + Δt); ``lens_days`` the
+    lens-model delays at the reference cosmology; ``model`` the index of each sample's model.
+    """
+
+    offsets: np.ndarray
+    weights: np.ndarray
+    delay: np.ndarray
+    lens_days: np.ndarray
+    h0: np.ndarray
+    kappa: np.ndarray
+    t0: np.ndarray
+    model: np.ndarray
+
+
+@dataclass(frozen=True)
+class ImageForecast:
+    """When, where and how bright the event appears in one image.
+
+    ``date_offset_days`` and ``delay_days`` are summaries in days after the detection
+    date and after the reference image; :attr:`date` gives the dates themselves.
+    """
+
+    family: str
+    label: str
+    observed: bool
+    x: float
+    y: float
+    parity: str
+    parity_agreement: float
+    arrival_rank: int
+    rank_agreement: float
+    order: str
+    order_agreement: float
+    status: str
+    sighted: bool
+    flags: tuple[str, ...]
+    exists_fraction: float
+    delay_days: dict
+    magnification: dict
+    magnitude: dict | None
+    fainter_than_depth: bool | None
+    date_offset_days: dict
+    per_model: dict
+    model_spread_days: float
+    interval95_change: float | None
+    archival_search: dict | None
+    tension: dict | None
+    detection_date: Time
+    samples: ImageSampleSet = field(repr=False)
+    observability: dict | None = None
+
+    @property
+    def name(self) -> str:
+        """``family/label``."""
+        return f"{self.family}/{self.label}"
+
+    @property
+    def date(self) -> dict[str, Time]:
+        """The date quantiles as astropy ``Time`` (UTC)."""
+        return {k: self.detection_date + v * u.day for k, v in self.date_offset_days.items()}
+
+    def window(self, level: int = 95) -> tuple[Time, Time]:
+        """The central 68% or 95% date window."""
+        lo, hi = {68: ("p16", "p84"), 95: ("p2.5", "p97.5")}[level]
+        dates = self.date
+        return dates[lo], dates[hi]
+
+
+@dataclass(frozen=True)
+class Forecast:
+    """A whole forecast: the images, the models and their weights, the timing update.
+
+    Attributes
+    ----------
+    images : tuple of ImageForecast
+        Sorted by median date.
+    timing : dict
+        The sightings and delays used, each model's update route and effective
+        samples, and every measurement's tension (JSON-ready).
+    budget, provenance : dict or None
+        Added by :func:`lensdelay.api.forecast`.
+    """
+
+    scenario: object
+    settings: object
+    site: object
+    now: Time
+    images: tuple[ImageForecast, ...]
+    model_labels: tuple[str, ...]
+    fits: tuple
+    chains: tuple = field(repr=False)
+    model_weights: np.ndarray = field(repr=False)
+    model_weights_positions: np.ndarray = field(repr=False)
+    updates: tuple = field(repr=False)
+    model_notes: tuple = ()
+    timing: dict = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+    cosmology: object = None
+    h0_used: object = None
+    calendar: object = field(default=None, repr=False)
+    provenance: dict | None = None
+    budget: dict | None = None
+
+    def image(self, label: str, family: str | None = None) -> ImageForecast:
+        """The image called ``label`` (of ``family``, default the transient's)."""
+        family = family or self.scenario.transient.family
+        for im in self.images:
+            if im.label == label and im.family == family:
+                return im
+        raise KeyError(f"{family}/{label}")
+
+    def report(self) -> str:
+        """The text the command line prints (with the budget when there is one)."""
+        from lensdelay.report.text import budget_text, forecast_text
+
+        text = forecast_text(self)
+        return text + ("\n\n" + budget_text(self.budget) if self.budget else "")
