@@ -18,7 +18,7 @@ from lensdelay.lensing.images import newton_polish
 def main():
     warnings.simplefilter("ignore", LensdelayWarning)
     import lensdelay.forecast.pipeline as fr
-    from lensdelay.api import forecast
+    from lensdelay.api import forecast_scenario
 
     marks = {}
     original_sample, original_model = fr.sample, fr.solve_samples
@@ -35,7 +35,7 @@ def main():
     fr.solve_samples = timed("images+delays for all samples", original_model)
     fr.build_calendar = timed("observability calendar", fr.build_calendar)
     t0 = time.perf_counter()
-    res = forecast("scenarios/vellmar_quad.toml", n_samples=100_000, budget=False)
+    res = forecast_scenario("scenarios/vellmar_quad.toml", n_samples=100_000, budget=False)
     t_run = time.perf_counter() - t0
     t1 = time.perf_counter()
     forecast_json(res)
@@ -60,7 +60,7 @@ def main():
     for label, seen in (("sighting that agrees (re-weighting)", "C=2026-12-01T00:00±1"),
                         ("sighting 12 sigma away (resampling)", "D=2027-01-15±1.5")):
         t0 = time.perf_counter()
-        upd = forecast("scenarios/vellmar_quad.toml", n_samples=100_000, budget=False, seen=[seen])
+        upd = forecast_scenario("scenarios/vellmar_quad.toml", n_samples=100_000, budget=False, seen=[seen])
         route = upd.timing["models"][0]
         print(f"forecast with a {label}: {time.perf_counter() - t0:.1f} s, route {route['route']}, "
               f"{route['effective_samples']:.0f} effective samples")

@@ -7,7 +7,7 @@ measured delays. Every job of the command line is a function here (README, "Usin
 lensdelay from Python"); importing the package changes no global state.
 """
 from lensdelay.api import (
-    check_scenario, fit_scenario, forecast, images_of_source, infer_h0, load_model, load_scenario,
+    check_scenario, fit_scenario, forecast_scenario, images_of_source, infer_h0, load_model, load_scenario,
 )
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
 from lensdelay.inference.likelihood import ImageLikelihood
@@ -29,7 +29,7 @@ __all__ = [
     # inference
     "check_scenario", "fit_scenario", "ImageLikelihood", "sample",
     # the jobs
-    "forecast", "infer_h0",
+    "forecast_scenario", "infer_h0",
     # errors
     "LensdelayError", "InputError", "LensdelayWarning",
 ]

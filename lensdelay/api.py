@@ -185,7 +185,7 @@ def fit_scenario(scenario, model=None, *, use_delays=False, use_fluxes=False, fl
             "provenance": provenance(used, sc.cosmology, seed)}
 
 
-def forecast(scenario, models=None, *, budget: bool = True, **options) -> dict:
+def forecast_scenario(scenario, models=None, *, budget: bool = True, **options) -> dict:
     """When, where and how bright the transient appears in every image (the main job).
 
     Parameters

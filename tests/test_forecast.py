@@ -12,7 +12,7 @@ from lensdelay.cli.main import main
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
 from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2, LensDistances
 from lensdelay.errors import LensdelayWarning
-from lensdelay.api import forecast as run_forecast
+from lensdelay.api import forecast_scenario as run_forecast
 from lensdelay.lensing.images import find_images
 from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid

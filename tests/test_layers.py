@@ -144,3 +144,14 @@ def test_importing_changes_no_global_state(module):
     )
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert result.returncode == 0, result.stderr
+
+
+def test_public_names_do_not_shadow_subpackages():
+    """``import lensdelay.forecast.pipeline`` must keep working next to the facade's names."""
+    import lensdelay
+
+    subpackages = {p.name for p in PACKAGE.iterdir() if p.is_dir() and (p / "__init__.py").exists()}
+    assert not subpackages & set(lensdelay.__all__)
+    assert len(lensdelay.__all__) == len(set(lensdelay.__all__))
+    for name in lensdelay.__all__:
+        assert hasattr(lensdelay, name), name

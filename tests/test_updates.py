@@ -25,7 +25,7 @@ from lensdelay.inference.fit import fit
 from lensdelay.forecast.samples import image_tracks
 from lensdelay.io.forecast_files import day_of, median_day
 from lensdelay.report.text import forecast_text
-from lensdelay.api import forecast as run_forecast
+from lensdelay.api import forecast_scenario as run_forecast
 from lensdelay.forecast.pipeline import _status, parse_sightings
 from lensdelay.lensing.lens import Lens
 from lensdelay.inference.likelihood import ImageLikelihood

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import sys
 
-from lensdelay.api import forecast
+from lensdelay.api import forecast_scenario
 from lensdelay.cli.options import add_prior_argument, number, output_folder, site_from_args
 from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
 from lensdelay.io.storage import write_output_set
@@ -14,7 +14,7 @@ from lensdelay.report.figures import budget_figure, timeline_figure
 def run(args) -> int:
     out = output_folder(args.out)
     now = parse_date(args.now, "--now") if args.now is not None else None
-    res = forecast(args.scenario, args.model, budget=args.budget, n_samples=args.samples, seed=args.seed,
+    res = forecast_scenario(args.scenario, args.model, budget=args.budget, n_samples=args.samples, seed=args.seed,
                    h0=args.h0, cosmology_name=args.cosmology, kappa_ext=args.kappa_ext,
                    microlensing=args.microlensing, depth=args.depth, weighting=args.weights,
                    seen=args.seen, site=site_from_args(args), walkers=args.walkers,

@@ -99,7 +99,7 @@ class Forecast:
         The sightings and delays used, each model's update route and effective
         samples, and every measurement's tension (JSON-ready).
     budget, provenance : dict or None
-        Added by :func:`lensdelay.api.forecast`.
+        Added by :func:`lensdelay.api.forecast_scenario`.
     """
 
     scenario: object
