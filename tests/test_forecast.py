@@ -140,7 +140,7 @@ def test_quad_true_dates_inside_95_windows(tmp_path):
 
 def test_forecast_outputs_and_calendar_parse(tmp_path, capsys):
     """forecast.json keys of CONVENTIONS.md; forecast.ics parses with a general iCalendar library."""
-    icalendar = pytest.importorskip("icalendar")
+    import icalendar
     path = _sis_like_scenario(tmp_path, date_sigma=1.0, sigma=0.003)
     out = tmp_path / "out"
     code = main(["forecast", str(path), "--out", str(out), "--samples", "2000", "--steps", "300",

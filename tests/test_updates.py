@@ -169,7 +169,7 @@ def test_a_predicted_image_can_be_reported_seen(tmp_path):
 
 # -- as of now ------------------------------------------------------------------------------
 def test_now_after_a_window_makes_it_past_and_drops_it_from_the_calendar(tmp_path):
-    icalendar = pytest.importorskip("icalendar")
+    import icalendar
     path = _double(tmp_path, 1.0)
     before, after = tmp_path / "before", tmp_path / "after"
     common = ["--samples", "2000", "--steps", "300", "--walkers", "20", "--quiet"]

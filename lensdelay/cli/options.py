@@ -18,7 +18,7 @@ FLAGS = {
     "h0": "--h0", "kappa_ext": "--kappa-ext", "microlensing": "--microlensing", "n_samples": "--samples",
     "weighting": "--weights", "seen": "--seen", "now": "--now", "flux_floor": "--flux-floor",
     "om0": "--om0", "cosmology_class": "--cosmology-class", "class_params": "--param", "prior": "--prior",
-    "move": "--move",
+    "move": "--move", "resume": "--resume", "out": "--out",
 }
 
 

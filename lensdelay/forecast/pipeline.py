@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import re
+import sys
 import warnings
 from dataclasses import replace
 
@@ -210,7 +211,9 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
     n = settings.n_samples
     models, prior_models, updates, fits, chains, notes_per_model, timings = [], [], [], [], [], [], []
     first_tracks = None
+    stages = _stage_display(progress, 2 * len(scenarios) + 1)
     for sc in scenarios:
+        stages(f"fitting {sc.model.label}")
         like = ImageLikelihood(sc, sc.model, prior=prior)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LensdelayWarning)   # reported in the notes instead
@@ -220,6 +223,7 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
                 raise err.with_source(sc.source) from err
             chain = sample(like, result.values, walkers=walkers, steps=steps,
                            seed=int(rng.integers(2 ** 31)), progress=progress, scales=result.errors)
+        stages(f"images and timing update, {sc.model.label}")
         notes = list(result.notes) + list(chain.warnings)
         if result.dof <= 0:
             notes.insert(0, f"model {result.model_label!r} has {result.dof} degrees of freedom")
@@ -261,6 +265,7 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
     tension_rows = _tensions(timings, prior_models, w_prior, rng)
     images = _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, now, rng,
                         tension_rows)
+    stages("observability")
     calendar = None
     if site is not None and sc0.sky is not None:
         # cover the tails too (0.1–99.9%), so the probability counts every sample
@@ -273,6 +278,7 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
         calendar = build_calendar(site, sc0.sky, first, n_days, step_minutes=step)
         for im in images:
             _observability(im, calendar, tr, now)
+    stages(None)
     cosmology = scenarios[0].cosmology
     notes = []
     if now < tr.date:
@@ -308,6 +314,27 @@ def _image_forecast(entry: dict, detection_date) -> ImageForecast:
     fields = {k: v for k, v in entry.items() if k not in ("samples", "offsets", "weights", "flag")}
     samples = ImageSampleSet(offsets=entry["offsets"], weights=entry["weights"], **entry["samples"])
     return ImageForecast(**fields, flags=tuple(entry["flag"]), samples=samples, detection_date=detection_date)
+
+
+def _stage_display(progress, total: int):
+    """A bar over the forecast's stages on stderr when ``progress`` is True (tqdm); the
+    returned function takes the next stage's name, or None when all are done."""
+    if progress is not True:
+        return lambda name: None
+    from tqdm import tqdm
+
+    bar = tqdm(total=total, desc="forecast", unit="stage", file=sys.stderr, leave=False)
+    started = []
+
+    def next_stage(name):
+        if started:
+            bar.update(1)
+        started.append(name)
+        if name is None:
+            bar.close()
+        else:
+            bar.set_description(f"forecast: {name}")
+    return next_stage
 
 
 def _draw_t0(timing, samples, tr, rng) -> np.ndarray:

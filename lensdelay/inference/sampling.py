@@ -9,7 +9,6 @@ ends with exactly the chain an uninterrupted run would have made.
 from __future__ import annotations
 
 import sys
-import time
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -65,21 +64,27 @@ class Chain:
         return self.chain[self.burn::self.thin].reshape(-1, self.chain.shape[-1])
 
 
-def _progress(step, total, start, stream):
-    if stream is None:
-        return
-    frac = step / total
-    bar = "#" * int(30 * frac)
-    rate = step / max(time.perf_counter() - start, 1e-9)
-    stream.write(f"\rsampling [{bar:<30}] {step}/{total} steps, {rate:.0f} steps/s")
-    if step == total:
-        stream.write("\n")
-    stream.flush()
+def _progress_display(progress, total: int):
+    """A tqdm bar on stderr (``progress=True``), a caller's ``progress(done, total)``
+    function, or nothing; returns an update function taking the number of steps done."""
+    if callable(progress):
+        return lambda done: progress(done, total)
+    if not progress:
+        return lambda done: None
+    from tqdm import tqdm
+
+    bar = tqdm(total=total, desc="sampling", unit="step", leave=False, file=sys.stderr)
+
+    def update(done):
+        bar.update(done - bar.n)
+        if done >= total:
+            bar.close()
+    return update
 
 
 def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, seed: int = 1,
            checkpoint_dir: str | Path | None = None, resume: bool = False,
-           checkpoint_every: int = 200, progress: bool = True, scales=None,
+           checkpoint_every: int = 200, progress=False, scales=None,
            move: str = "langevin", components: bool = True) -> Chain:
     """Sample the posterior of ``like`` around ``start``.
 
@@ -98,13 +103,16 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
     scales : ndarray, optional
         Ball widths per parameter (e.g. the fit's standard errors).
     move : {"langevin", "stretch"}
-        ``"langevin"`` (default): :class:`lensdelay.moves.FisherLangevinMove`, which
+        ``"langevin"`` (default): :class:`lensdelay.inference.moves.FisherLangevinMove`, which
         follows the local shape of the posterior, every walker its own chain;
         ``"stretch"``: emcee's affine-invariant ensemble move (mixes slowly along
         curved valleys; kept for comparison).
     components : bool
         Sample ellipticity and shear components (default); False samples the recipe's
         own parameters (for comparison in the benchmark).
+    progress : bool or callable
+        False (default): silent. True: a progress bar on stderr. A function: called as
+        ``progress(steps_done, steps)`` after every checkpoint block.
     """
     ndim = len(start)
     if walkers < 2 * ndim:
@@ -134,7 +142,7 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
         saved_setup = str(saved.get("setup", "an older lensdelay"))
         if (int(saved["seed"]) != seed or saved["chain"].shape[1:] != (walkers, ndim)
                 or saved_setup != setup):
-            raise InputError(f"--resume found {path} from a different run (seed "
+            raise InputError(f"resume found {path} from a different run (seed "
                              f"{int(saved['seed'])}, shape {saved['chain'].shape[1:]}, {saved_setup}), "
                              f"got seed {seed}, shape {(walkers, ndim)}, {setup}")
         chain, logp, accepted = saved["chain"], saved["log_prob"], saved["accepted"]
@@ -166,8 +174,8 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
             ball[~np.isfinite(lp)] = ball[np.isfinite(lp)][0]
         state = emcee.State(ball, log_prob=target.log_probability(ball))
     done = len(chain)
-    stream = sys.stderr if progress else None
-    t0 = time.perf_counter()
+    show = _progress_display(progress, steps)
+    show(done)
     STOP.active, STOP.requested = True, False
     while done < steps:
         n = min(checkpoint_every, steps - done)
@@ -182,7 +190,7 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
             atomic_save_npz(path, chain=chain, log_prob=logp, accepted=accepted, seed=seed,
                             rs_key=key, rs_pos=pos, rs_has_gauss=has_gauss, rs_cached=cached,
                             names=np.array(like.names), setup=np.array(setup))
-        _progress(done, steps, t0, stream)
+        show(done)
         if STOP.requested:
             STOP.active = False
             raise KeyboardInterrupt

@@ -4,6 +4,7 @@ from __future__ import annotations
 import datetime as _dt
 import io
 
+import icalendar
 import numpy as np
 from astropy import units as u
 from astropy.table import Table
@@ -144,23 +145,6 @@ def table_text(table: Table) -> str:
     return buf.getvalue()
 
 
-def _ics_escape(text: str) -> str:
-    return text.replace("\\", "\\\\").replace(";", "\\;").replace(",", "\\,").replace("\n", "\\n")
-
-
-def _fold(line: str) -> str:
-    """RFC 5545 §3.1: lines longer than 75 octets are folded with CRLF + space."""
-    out, data = [], line.encode("utf-8")
-    while len(data) > 75:
-        cut = 75 if not out else 74
-        while cut > 0 and (data[cut] & 0xC0) == 0x80:   # never split a UTF-8 character
-            cut -= 1
-        out.append(data[:cut].decode("utf-8"))
-        data = data[cut:]
-    out.append(data.decode("utf-8"))
-    return "\r\n ".join(out)
-
-
 def ics_windows(res, im) -> list[tuple[_dt.date, _dt.date]]:
     """Observable stretches (first, last day) of an image's 95% window still ahead of now.
 
@@ -179,11 +163,14 @@ def ics_windows(res, im) -> list[tuple[_dt.date, _dt.date]]:
 
 
 def forecast_ics(res, stamp: _dt.datetime | None = None) -> str:
-    """iCalendar (RFC 5545): one all-day event per observable stretch of each image's
-    95% window that is still ahead of ``now``."""
+    """iCalendar (RFC 5545, written with the ``icalendar`` package): one all-day event
+    per observable stretch of each image's 95% window that is still ahead of ``now``."""
     sc = res.scenario
-    stamp = stamp or res.now.to_datetime().replace(tzinfo=None)
-    lines = ["BEGIN:VCALENDAR", "VERSION:2.0", "PRODID:-//lensdelay//forecast//EN", "CALSCALE:GREGORIAN"]
+    stamp = stamp or res.now.to_datetime().replace(tzinfo=_dt.timezone.utc)
+    cal = icalendar.Calendar()
+    cal.add("prodid", "-//lensdelay//forecast//EN")
+    cal.add("version", "2.0")
+    cal.add("calscale", "GREGORIAN")
     for im in res.images:
         d = date_summary(res, im)
         for k, (start, last) in enumerate(ics_windows(res, im)):
@@ -196,15 +183,14 @@ def forecast_ics(res, stamp: _dt.datetime | None = None) -> str:
                          f"P(observable) {im.observability['probability_observable']:.2f}. ")
             if im.magnitude:
                 desc += f"Expected magnitude {im.magnitude['median']:.1f}. "
-            desc += CAUTION
-            uid = (f"{sc.name}-{im.family}-{im.label}-{k}-"
-                   f"{res.provenance['input_sha256'][:12]}@lensdelay")
-            lines += ["BEGIN:VEVENT", f"UID:{_ics_escape(uid.replace(' ', '_'))}",
-                      f"DTSTAMP:{stamp:%Y%m%dT%H%M%SZ}",
-                      f"DTSTART;VALUE=DATE:{start:%Y%m%d}",
-                      f"DTEND;VALUE=DATE:{last + _dt.timedelta(days=1):%Y%m%d}",
-                      "SUMMARY:" + _ics_escape(f"{sc.name} image {im.family}/{im.label}: "
-                                               "in its 95% window"),
-                      f"DESCRIPTION:{_ics_escape(desc)}", "TRANSP:TRANSPARENT", "END:VEVENT"]
-    lines.append("END:VCALENDAR")
-    return "\r\n".join(_fold(x) for x in lines) + "\r\n"
+            event = icalendar.Event()
+            event.add("uid", f"{sc.name.replace(' ', '_')}-{im.family}-{im.label}-{k}-"
+                             f"{res.provenance['input_sha256'][:12]}@lensdelay")
+            event.add("dtstamp", stamp)
+            event.add("dtstart", start)
+            event.add("dtend", last + _dt.timedelta(days=1))      # all-day events end exclusively
+            event.add("summary", f"{sc.name} image {im.family}/{im.label}: in its 95% window")
+            event.add("description", desc + CAUTION)
+            event.add("transp", "TRANSPARENT")
+            cal.add_component(event)
+    return cal.to_ical().decode("utf-8")

@@ -65,7 +65,7 @@ def write_output_set(out, *, json_name: str, doc: dict, texts=None, figures=None
     protected = {Path(p).resolve() for p in inputs}
     for n in names:
         if (out / n).resolve() in protected:
-            raise InputError(f"--out {out} would overwrite the input {out / n}; choose another folder")
+            raise InputError(f"out {out} would overwrite the input {out / n}; choose another folder")
     out.mkdir(parents=True, exist_ok=True)
     for name, text in (texts or {}).items():
         atomic_write_text(out / name, text)

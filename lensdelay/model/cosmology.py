@@ -68,7 +68,7 @@ def cosmology_from_class(name: str, params: dict, base: FLRW) -> FLRW:
     radiation is off (``Tcmb0 = 0``) unless given, so delays stay exactly ∝ 1/H0.
     """
     if name not in COSMOLOGY_CLASSES:
-        raise InputError(f"--cosmology-class must be one of {choices_text(COSMOLOGY_CLASSES)}, got {name!r}")
+        raise InputError(f"cosmology_class must be one of {choices_text(COSMOLOGY_CLASSES)}, got {name!r}")
     from astropy import cosmology as _cosmo
 
     cls = getattr(_cosmo, name)
@@ -79,7 +79,7 @@ def cosmology_from_class(name: str, params: dict, base: FLRW) -> FLRW:
     try:
         return cls(**kwargs)
     except (TypeError, ValueError) as err:
-        raise InputError(f"--param for {name} must be keyword arguments of that class, got {params!r} "
+        raise InputError(f"class_params for {name} must be keyword arguments of that class, got {params!r} "
                          f"({err})") from err
 
 
