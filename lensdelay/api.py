@@ -19,7 +19,7 @@ from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.forecast.budget import delay_budget
 from lensdelay.forecast.pipeline import run_forecast
 from lensdelay.hubble.pipeline import run_hubble
-from lensdelay.inference.fit import check_constraints, delay_errors, fit
+from lensdelay.inference.fit import ScenarioFit, check_constraints, delay_errors, fit
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import sample as run_sampler
 from lensdelay.io import reading
@@ -180,9 +180,7 @@ def fit_scenario(scenario, model=None, *, use_delays=False, use_fluxes=False, fl
             chain = run_sampler(like, result.values, walkers=walkers, steps=steps, seed=seed,
                                 checkpoint_dir=checkpoint_dir, resume=resume, progress=progress,
                                 scales=result.errors)
-    return {"scenario": sc, "likelihood": like, "fit": result, "chain": chain,
-            "linear_delays": linear_delays,
-            "provenance": provenance(used, sc.cosmology, seed)}
+    return ScenarioFit(sc, like, result, chain, tuple(linear_delays), provenance(used, sc.cosmology, seed))
 
 
 def forecast_scenario(scenario, models=None, *, budget: bool = True, **options) -> dict:
@@ -222,5 +220,4 @@ def infer_h0(scenario, model=None, **options) -> dict:
     """
     sc, used = _scenario(scenario, model)
     res = run_hubble(sc, **options)
-    res["provenance"] = provenance(used, res["scenario"].cosmology, options.get("seed", 1))
-    return res
+    return replace(res, provenance=provenance(used, res.scenario.cosmology, options.get("seed", 1)))

@@ -67,11 +67,11 @@ def test_sis_h0_from_one_delay_matches_closed_form(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
         res = run_hubble(str(path), kappa_ext=(0.0, 0.0), om0=(0.3, 0.0), walkers=8, steps=400, progress=False)
-    assert res["h0"]["H0"]["median"] == pytest.approx(64.0, rel=0.005)
+    assert res.h0["H0"]["median"] == pytest.approx(64.0, rel=0.005)
     expected_ddt = 2 * days / DAYS_PER_MPC_ARCSEC2 / ((1.3) ** 2 - 0.7 ** 2)
-    assert res["h0"]["D_dt_Mpc"]["median"] == pytest.approx(expected_ddt, rel=0.005)
+    assert res.h0["D_dt_Mpc"]["median"] == pytest.approx(expected_ddt, rel=0.005)
     # the mass-sheet degeneracy: H0 ∝ (1 − κ_ext)
-    comp = {tuple(k["kappa_ext"]): k["H0"]["median"] for k in res["kappa_comparison"]}
+    comp = {tuple(k["kappa_ext"]): k["H0"]["median"] for k in res.kappa_comparison}
     assert comp[(0.1, 0.05)] / comp[(0.0, 0.0)] == pytest.approx(0.9, rel=0.01)
 
 
@@ -96,7 +96,7 @@ def test_quad_delays_at_chosen_h0_recovered(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
         res = run_hubble(str(path), kappa_ext=(0.0, 0.0), om0=(0.3, 0.0), walkers=24, steps=800, progress=False)
-    h = res["h0"]["H0"]
+    h = res.h0["H0"]
     sigma = 0.5 * (h["p84"] - h["p16"])
     assert abs(h["median"] - 66.0) < 2 * sigma
 
@@ -140,4 +140,4 @@ def test_h0_under_another_cosmology_class(tmp_path):
     ref = LensDistances(FlatLambdaCDM(H0=70.0, Om0=0.3, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
     alt = LensDistances(FlatwCDM(H0=70.0, Om0=0.3, w0=-0.8, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
     expected = 70.0 * (alt / ref).decompose().value
-    assert res["h0"]["H0"]["median"] == pytest.approx(expected, rel=0.005)
+    assert res.h0["H0"]["median"] == pytest.approx(expected, rel=0.005)

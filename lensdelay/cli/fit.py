@@ -10,7 +10,6 @@ from lensdelay.cli.options import add_prior_argument, number, output_folder
 from lensdelay.io.fit_files import fit_json
 from lensdelay.io.storage import write_output_set
 from lensdelay.report.figures import corner_figure, residual_figure, sky_figure
-from lensdelay.report.text import fit_text
 
 
 def run(args) -> int:
@@ -19,21 +18,21 @@ def run(args) -> int:
                        use_fluxes=args.use_fluxes, flux_floor=args.flux_floor, sample=args.sample,
                        walkers=args.walkers, steps=args.steps, seed=args.seed, resume=args.resume,
                        checkpoint_dir=out, progress=not args.quiet, prior=args.prior)
-    print(fit_text(res))
+    print(res.report())
     if out is not None:
         doc = fit_json(res)
-        like, fr = res["likelihood"], res["fit"]
-        figs = {"fit_sky": sky_figure(like, fr.values, fr, title=f"{res['scenario'].name}: "
+        like, fr = res.likelihood, res.fit
+        figs = {"fit_sky": sky_figure(like, fr.values, fr, title=f"{res.scenario.name}: "
                                       f"{fr.model_label} (North up, East left)"),
                 "fit_residuals": residual_figure(fr)}
         arrays = {}
-        ch = res["chain"]
+        ch = res.chain
         if ch is not None:
             figs["corner"] = corner_figure(ch.samples(), ch.names)
             arrays["samples.npz"] = {"samples": ch.samples(), "names": np.array(ch.names),
                                      "log_prob": ch.log_prob[ch.burn::ch.thin].ravel(), "seed": ch.seed}
         write_output_set(out, json_name="fit.json", doc=doc, figures=figs, arrays=arrays,
-                         inputs=res["provenance"]["inputs"])
+                         inputs=res.provenance["inputs"])
         print(f"wrote {out}/fit.json and figures", file=sys.stderr)
     return 0
 

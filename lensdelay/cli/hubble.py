@@ -9,7 +9,6 @@ from lensdelay.errors import InputError
 from lensdelay.io.hubble_files import curves_table_text, hubble_json
 from lensdelay.io.storage import write_output_set
 from lensdelay.report.figures import h0_figure, hubble_curves_figure
-from lensdelay.report.text import hubble_text
 
 
 def run(args) -> int:
@@ -29,13 +28,13 @@ def run(args) -> int:
                      cosmology_name=args.cosmology, cosmology_class=args.cosmology_class,
                      class_params=params, prior=args.prior)
     doc = hubble_json(res)
-    text = hubble_text(res)
+    text = res.report()
     if out is not None:
         figs = {"hubble_curves": hubble_curves_figure(res)}
-        if "h0" in res:
+        if res.h0 is not None:
             figs["hubble_posterior"] = h0_figure(res)
         write_output_set(out, json_name="hubble.json", doc=doc, figures=figs,
-                         texts={"hubble_curves.ecsv": curves_table_text(res)}, inputs=res["provenance"]["inputs"])
+                         texts={"hubble_curves.ecsv": curves_table_text(res)}, inputs=res.provenance["inputs"])
     print(text)
     if out is not None:
         print(f"wrote {out}/hubble.json, hubble_curves.ecsv and figures", file=sys.stderr)

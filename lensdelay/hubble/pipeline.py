@@ -6,9 +6,10 @@ Takes a :class:`~lensdelay.model.scenario.Scenario`; the statistics are in
 from __future__ import annotations
 
 import warnings
-from dataclasses import replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
+from astropy import units as u
 
 from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.hubble.analysis import delay_curves, h0_posterior, kappa_comparison, pair_delays
@@ -67,23 +68,66 @@ def run_hubble(scenario: Scenario, *, kappa_ext=(0.0, 0.05), om0=None, curves=()
     rows = delay_curves(pairs, like.h0_ref, cosmology=sc.cosmology, z_l=sc.lens_redshift, z_s_of=z_s_of,
                         om0_grid=np.linspace(0.15, 0.45, 31) if "om0" in curves else None,
                         w_grid=np.linspace(-1.5, -0.5, 21) if "w" in curves else None)
-    out = {"scenario": sc, "fit": res, "chain": chain, "curves": rows, "pairs": pairs, "prior": prior,
-           "notes": list(res.notes + chain.warnings)}
+    notes = list(res.notes) + list(chain.warnings)
     om0_prior = tuple(om0) if om0 is not None else (float(sc.cosmology.Om0), 0.02)
+    joint_fit = h0 = None
+    comparison = ()
     if sc.delays:
         joint = ImageLikelihood(sc, sc.model, use_delays=True, prior=prior)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LensdelayWarning)
-            jres = fit(joint, seed=seed)
-            jchain = sample(joint, jres.values, walkers=walkers, steps=steps,
-                            seed=int(rng.integers(2 ** 31)), progress=progress, scales=jres.errors)
-        h0_eff = jchain.samples()[:, -1]
-        out["joint_fit"] = jres
-        out["h0"] = h0_posterior(h0_eff, joint, kappa_ext=kappa_ext, om0_prior=om0_prior, rng=rng)
-        out["kappa_comparison"] = kappa_comparison(h0_eff, joint, om0_prior, extra=kappa_ext)
-        out["notes"] += jchain.warnings
+            joint_fit = fit(joint, seed=seed)
+            jchain = sample(joint, joint_fit.values, walkers=walkers, steps=steps,
+                            seed=int(rng.integers(2 ** 31)), progress=progress, scales=joint_fit.errors)
+        h0_eff = jchain.samples()[:, joint.h0_index]
+        h0 = h0_posterior(h0_eff, joint, kappa_ext=kappa_ext, om0_prior=om0_prior, rng=rng)
+        comparison = tuple(kappa_comparison(h0_eff, joint, om0_prior, extra=kappa_ext))
+        notes += jchain.warnings
     else:
-        out["notes"].append("the scenario has no measured delays: only the delay-vs-H0 curves are given")
-    out["kappa_ext"] = list(kappa_ext)
-    out["om0_prior"] = list(om0_prior)
-    return out
+        notes.append("the scenario has no measured delays: only the delay-vs-H0 curves are given")
+    return HubbleResult(scenario=sc, fit=res, chain=chain, curves=tuple(rows), pairs=pairs, prior=prior,
+                        notes=tuple(notes), joint_fit=joint_fit, h0=h0, kappa_comparison=comparison,
+                        kappa_ext=tuple(kappa_ext), om0_prior=tuple(om0_prior))
+
+
+@dataclass(frozen=True)
+class HubbleResult:
+    """Delays against H0 and, with measured delays, the H0 posterior.
+
+    Attributes
+    ----------
+    curves : tuple of dict
+        Median and 68/95% bands of each image pair's delay along H0 (and Ωm, w).
+    h0 : dict or None
+        Summaries of ``H0`` (km/s/Mpc) and ``D_dt_Mpc`` (with the κ_ext prior applied)
+        when the scenario has measured delays; :attr:`h0_quantity` gives H0 with units.
+    kappa_comparison : tuple of dict
+        H0 under several κ_ext priors side by side (the mass-sheet degeneracy).
+    provenance : dict or None
+        Added by :func:`lensdelay.api.infer_h0`.
+    """
+
+    scenario: Scenario
+    fit: object
+    chain: object = field(repr=False)
+    curves: tuple = field(repr=False)
+    pairs: dict = field(repr=False)
+    prior: str = "flat"
+    notes: tuple = ()
+    joint_fit: object = None
+    h0: dict | None = None
+    kappa_comparison: tuple = ()
+    kappa_ext: tuple = (0.0, 0.05)
+    om0_prior: tuple = ()
+    provenance: dict | None = None
+
+    @property
+    def h0_quantity(self) -> u.Quantity | None:
+        """The median H0 as a Quantity (None without measured delays)."""
+        return None if self.h0 is None else self.h0["H0"]["median"] * u.km / u.s / u.Mpc
+
+    def report(self) -> str:
+        """The text ``lensdelay hubble`` prints."""
+        from lensdelay.report.text import hubble_text
+
+        return hubble_text(self)

@@ -289,3 +289,25 @@ def delay_errors(like: ImageLikelihood, result: FitResult, family: int = 0, refe
     n = cov.shape[0]
     var = np.einsum("ij,jk,ik->i", jac[:, :n], cov, jac[:, :n])
     return best, np.sqrt(np.maximum(var, 0.0))
+
+
+@dataclass(frozen=True)
+class ScenarioFit:
+    """A scenario's fit, its posterior sample if one was drawn, and the delays at the best fit.
+
+    ``linear_delays`` lists each observed image's delay after its family's first image,
+    with linearised 1-σ errors; ``provenance`` is added by :func:`lensdelay.api.fit_scenario`.
+    """
+
+    scenario: object
+    likelihood: ImageLikelihood = field(repr=False)
+    fit: FitResult
+    chain: object = field(default=None, repr=False)
+    linear_delays: tuple = ()
+    provenance: dict | None = None
+
+    def report(self) -> str:
+        """The text ``lensdelay fit`` prints."""
+        from lensdelay.report.text import fit_text
+
+        return fit_text(self)

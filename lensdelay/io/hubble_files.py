@@ -10,22 +10,22 @@ from lensdelay.model.cosmology import describe_cosmology
 
 
 def hubble_json(res) -> dict:
-    doc = {"cosmology": describe_cosmology(res["scenario"].cosmology), "kappa_ext": res["kappa_ext"],
-           "Om0_prior": res["om0_prior"],
-           "H0": res["h0"]["H0"] if "h0" in res else None,
-           "D_dt_Mpc": res["h0"]["D_dt_Mpc"] if "h0" in res else None,
-           "measured_delays": [vars(d) for d in res["scenario"].delays],
+    doc = {"cosmology": describe_cosmology(res.scenario.cosmology), "kappa_ext": list(res.kappa_ext),
+           "Om0_prior": list(res.om0_prior),
+           "H0": res.h0["H0"] if res.h0 is not None else None,
+           "D_dt_Mpc": res.h0["D_dt_Mpc"] if res.h0 is not None else None,
+           "measured_delays": [vars(d) for d in res.scenario.delays],
            "kappa_ext_comparison": [{"kappa_ext": k["kappa_ext"], "H0": k["H0"]}
                                     for k in res.get("kappa_comparison", [])],
-           "delay_vs_H0": [r for r in res["curves"] if r["axis"] == "H0"],
-           "delay_vs_other": [r for r in res["curves"] if r["axis"] != "H0"],
-           "mass_model_prior": res["prior"],
-           "notes": res["notes"], "cautions": CAUTION, "provenance": res["provenance"]}
+           "delay_vs_H0": [r for r in res.curves if r["axis"] == "H0"],
+           "delay_vs_other": [r for r in res.curves if r["axis"] != "H0"],
+           "mass_model_prior": res.prior,
+           "notes": list(res.notes), "cautions": CAUTION, "provenance": res.provenance}
     return doc
 
 
 def curves_table_text(res) -> str:
     """The delay-vs-H0 (and Ωm, w) curves as ECSV text."""
     buf = io.StringIO()
-    Table(rows=res["curves"]).write(buf, format="ascii.ecsv")
+    Table(rows=list(res.curves)).write(buf, format="ascii.ecsv")
     return buf.getvalue()

@@ -214,7 +214,7 @@ def budget_figure(budget):
 
 def hubble_curves_figure(res):
     """Predicted delay of each image pair against H0, with 68% and 95% bands."""
-    rows = [r for r in res["curves"] if r["axis"] == "H0"]
+    rows = [r for r in res.curves if r["axis"] == "H0"]
     keys = sorted({(r["family"], r["image"], r["relative_to"]) for r in rows})
     fig = Figure(figsize=(7.0, 4.6))
     ax = fig.subplots()
@@ -225,7 +225,7 @@ def hubble_curves_figure(res):
         ax.fill_between(h, [r["p2.5"] for r in sel], [r["p97.5"] for r in sel], color=c, alpha=0.15)
         ax.fill_between(h, [r["p16"] for r in sel], [r["p84"] for r in sel], color=c, alpha=0.35)
         ax.plot(h, [r["median"] for r in sel], color=c, label=f"{key[0]}: {key[1]} − {key[2]}")
-    for d in res["scenario"].delays:
+    for d in res.scenario.delays:
         ax.axhline(d.days, color="k", ls=":", lw=0.8, label=f"measured {d.image} − {d.relative_to}")
     ax.set_xlabel("H0 [km/s/Mpc]")
     ax.set_ylabel("delay t(image) − t(relative_to) [days]")
@@ -239,7 +239,7 @@ def h0_figure(res):
     """H0 posterior under several κext priors: the mass-sheet degeneracy."""
     fig = Figure(figsize=(7.0, 4.2))
     ax = fig.subplots()
-    for k in res["kappa_comparison"]:
+    for k in res.kappa_comparison:
         s = k["samples_H0"]
         ax.hist(s[np.isfinite(s)], bins=60, histtype="step", density=True,
                 label=f"κext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f})")

@@ -27,8 +27,8 @@ def images_text(result: dict) -> str:
 
 def fit_text(res: dict) -> str:
     """Plain-text report of a fit (and posterior)."""
-    fr = res["fit"]
-    lines = [f"Fit of model {fr.model_label!r} to scenario {res['scenario'].name!r}", ""]
+    fr = res.fit
+    lines = [f"Fit of model {fr.model_label!r} to scenario {res.scenario.name!r}", ""]
     lines.append(f"{'parameter':<32} {'value':>12} {'± stderr':>10}")
     for n, v, e in zip(fr.names, fr.values, fr.errors):
         err = f"{e:10.4g}" if e == e else f"{'—':>10}"
@@ -51,19 +51,19 @@ def fit_text(res: dict) -> str:
         for im in fr.unobserved_images:
             lines.append(f"  {im['family']}: ({im['x']:+.4f}, {im['y']:+.4f}) arcsec, "
                          f"mu = {im['magnification']:+.4f}, {im['parity']}")
-    if res.get("linear_delays"):
+    if res.linear_delays:
         lines += ["", "delays at the best fit (scenario cosmology; linearised 1-sigma errors):"]
-        for d in res["linear_delays"]:
+        for d in res.linear_delays:
             lines.append(f"  {d['family']}/{d['image']} − {d['relative_to']}: {d['days']:+.2f} "
                          f"± {d['linearised_sigma_days']:.2f} d")
     for note in fr.notes:
         lines.append(f"NOTE: {note}")
-    ch = res.get("chain")
+    ch = res.chain
     if ch is not None:
         s = ch.samples()
         lines += ["", f"posterior: {ch.chain.shape[1]} walkers × {ch.chain.shape[0]} steps, burn-in "
                   f"{ch.burn}, thin {ch.thin}, {len(s)} samples; acceptance {ch.acceptance.mean():.2f}; "
-                  f"{ch.move} move, {res['likelihood'].prior} prior",
+                  f"{ch.move} move, {res.likelihood.prior} prior",
                   f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7}"]
         import numpy as np
 
@@ -102,24 +102,24 @@ def budget_text(budget: dict) -> str:
 
 
 def hubble_text(res) -> str:
-    sc = res["scenario"]
+    sc = res.scenario
     lines = [f"H0 dependence of the delays of {sc.name} (lens-model posterior, bands 68%):"]
-    for r in res["curves"]:
+    for r in res.curves:
         if r["axis"] == "H0" and r["value"] in (60.0, 70.0, 80.0):
             lines.append(f"  {r['family']}/{r['image']} − {r['relative_to']} at H0 = {r['value']:.0f}: "
                          f"{r['median']:+.2f} d [{r['p16']:+.2f}, {r['p84']:+.2f}]")
-    if "h0" in res:
-        h = res["h0"]["H0"]
-        d = res["h0"]["D_dt_Mpc"]
+    if res.h0 is not None:
+        h = res.h0["H0"]
+        d = res.h0["D_dt_Mpc"]
         lines += ["", f"H0 = {h['median']:.1f} (+{h['p84'] - h['median']:.1f} / -{h['median'] - h['p16']:.1f}) "
-                  f"km/s/Mpc [95%: {h['p2.5']:.1f}–{h['p97.5']:.1f}] with kappa_ext ~ N{tuple(res['kappa_ext'])}",
+                  f"km/s/Mpc [95%: {h['p2.5']:.1f}–{h['p97.5']:.1f}] with kappa_ext ~ N{tuple(res.kappa_ext)}",
                   f"D_dt = {d['median']:.0f} (+{d['p84'] - d['median']:.0f} / -{d['median'] - d['p16']:.0f}) Mpc",
                   "", "mass-sheet degeneracy: H0 scales with (1 - kappa_ext):"]
-        for k in res["kappa_comparison"]:
+        for k in res.kappa_comparison:
             q = k["H0"]
             lines.append(f"  kappa_ext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f}): "
                          f"H0 = {q['median']:.1f} [{q['p16']:.1f}, {q['p84']:.1f}]")
-    for n in res["notes"]:
+    for n in res.notes:
         lines.append(f"NOTE: {n}")
     lines += ["", CAUTION]
     return "\n".join(lines)
