@@ -141,3 +141,20 @@ def test_h0_under_another_cosmology_class(tmp_path):
     alt = LensDistances(FlatwCDM(H0=70.0, Om0=0.3, w0=-0.8, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
     expected = 70.0 * (alt / ref).decompose().value
     assert res.h0["H0"]["median"] == pytest.approx(expected, rel=0.005)
+
+
+def test_hubble_command_writes_every_file(tmp_path):
+    """End to end on the demo double with its measured delay: hubble.json carries H0 and D_dt
+    summaries and the κ_ext comparison; the curve table and both figures are written."""
+    import json
+
+    from lensdelay.cli.main import main
+
+    out = tmp_path / "out"
+    assert main(["hubble", "scenarios/ostrin_double.toml", "--out", str(out), "--steps", "300",
+                 "--walkers", "16", "--quiet"]) == 0
+    doc = json.loads((out / "hubble.json").read_text())
+    assert set(doc["H0"]) == {"median", "p16", "p84", "p2.5", "p97.5"}
+    assert 40 < doc["H0"]["median"] < 110 and doc["kappa_ext_comparison"]
+    for name in ("hubble_curves.ecsv", "hubble_curves.png", "hubble_posterior.pdf"):
+        assert (out / name).stat().st_size > 0

@@ -16,7 +16,7 @@ def hubble_json(res) -> dict:
            "D_dt_Mpc": res.h0["D_dt_Mpc"] if res.h0 is not None else None,
            "measured_delays": [vars(d) for d in res.scenario.delays],
            "kappa_ext_comparison": [{"kappa_ext": k["kappa_ext"], "H0": k["H0"]}
-                                    for k in res.get("kappa_comparison", [])],
+                                    for k in res.kappa_comparison],
            "delay_vs_H0": [r for r in res.curves if r["axis"] == "H0"],
            "delay_vs_other": [r for r in res.curves if r["axis"] != "H0"],
            "mass_model_prior": res.prior,
