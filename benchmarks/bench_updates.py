@@ -91,7 +91,7 @@ def update_calibration(draws: int = 200, n_samples: int = 4000, seed: int = 7, s
         timing = TimingData([(t.family, t.label) for t in tracks], [MeasuredDelay("s", "D", "C", measured_delay, sigma)],
                             [SightingRow("s", "B", sighting, sigma)], DETECTION_SIGMA, ("s", "A"))
         samples, update, _ = condition_on_timing(sc, like, chain, tracks, timing, prior, settings, walkers=32,
-                                                 steps=steps, seed=seed + k, rng=rng)
+                                                 steps=steps, seed=seed + k)
         t0_draws = timing.draw_t0(samples.columns(timing), rng)
         for lab in "ACD":
             col = i[lab]

@@ -26,7 +26,7 @@ from lensdelay.forecast.samples import (
     importance_update, majority, match_tracks, model_weights, parity_name, solve_samples,
 )
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import sample
+from lensdelay.inference.sampling import int_seed, sample
 from lensdelay.model.scenario import Scenario, Site, parse_date
 from lensdelay.forecast.observability import build_calendar
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
@@ -207,7 +207,8 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
                        model_prior=prior, sightings=tuple(sightings))
     now = Time.now() if now is None else now
     site = site or sc0.site
-    rng = np.random.default_rng(seed)
+    # one seed for the whole run: every stage draws from its own child of it
+    stage_seeds = iter(np.random.SeedSequence(seed).spawn(4 * len(scenarios) + 2))
     n = settings.n_samples
     models, prior_models, updates, fits, chains, notes_per_model, timings = [], [], [], [], [], [], []
     first_tracks = None
@@ -218,11 +219,11 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LensdelayWarning)   # reported in the notes instead
             try:
-                result = fit(like, seed=seed)
+                result = fit(like, seed=int_seed(next(stage_seeds)))
             except InputError as err:
                 raise err.with_source(sc.source) from err
             chain = sample(like, result.values, walkers=walkers, steps=steps,
-                           seed=int(rng.integers(2 ** 31)), progress=progress, scales=result.errors)
+                           seed=int_seed(next(stage_seeds)), progress=progress, scales=result.errors)
         stages(f"images and timing update, {sc.model.label}")
         notes = list(result.notes) + list(chain.warnings)
         if result.dof <= 0:
@@ -233,6 +234,7 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
         label_map = _resolve_sightings(sightings, tracks, first_tracks)
         timing, timing_notes = _timing_for(sc, tracks, sightings, label_map)
         notes += timing_notes
+        rng = np.random.default_rng(next(stage_seeds))
         draws = chain.samples()[rng.integers(0, len(chain.samples()), n)]
         h0_draws, kappa_draws = draw_scale_priors(settings, like.h0_ref, n, rng)
         prior_samples = solve_samples(like, draws, tracks, tr.seen_in, h0_draws, kappa_draws)
@@ -244,8 +246,9 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
             samples, update = prior_samples, TimingUpdate("none", np.zeros(n), 0.0, -np.inf)
         else:
             samples, update, chain2 = condition_on_timing(sc, like, chain, tracks, timing, prior_samples,
-                                                          settings, walkers=walkers, steps=steps, seed=seed,
-                                                          rng=rng, progress=progress, prior=prior)
+                                                          settings, walkers=walkers, steps=steps,
+                                                          seed=next(stage_seeds), progress=progress,
+                                                          prior=prior)
             if chain2 is not None:
                 chains.append(chain2)
         t0 = _draw_t0(timing, samples, tr, rng)
@@ -262,8 +265,9 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
                          "(each names images the model has), got none", sc0.source)
     w_model = model_weights([f.bic for f in fits], [u_.log_evidence for u_ in updates], settings.weighting)
     w_prior = model_weights([f.bic for f in fits], np.zeros(len(fits)), settings.weighting)
-    tension_rows = _tensions(timings, prior_models, w_prior, rng)
-    images = _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, now, rng,
+    tension_rows = _tensions(timings, prior_models, w_prior, np.random.default_rng(next(stage_seeds)))
+    images = _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, now,
+                        np.random.default_rng(next(stage_seeds)),
                         tension_rows)
     stages("observability")
     calendar = None
@@ -347,7 +351,7 @@ def _draw_t0(timing, samples, tr, rng) -> np.ndarray:
 
 
 def condition_on_timing(sc, like, chain, tracks, timing, prior_samples, settings, *, walkers, steps, seed,
-                        rng, progress=False, prior="flat"):
+                        progress=False, prior="flat"):
     """Condition one model's forecast samples on the timing data.
 
     Importance weights when they leave at least ``settings.min_ess_fraction`` of the
@@ -358,12 +362,13 @@ def condition_on_timing(sc, like, chain, tracks, timing, prior_samples, settings
     update, good = importance_update(prior_samples, timing, settings.min_ess_fraction)
     if good:
         return prior_samples, update, None
-    return _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps, seed, rng,
-                     progress, prior)
+    fit_seed, sample_seed, draw_seed = np.random.SeedSequence(seed).spawn(3) if isinstance(seed, int) \
+        else seed.spawn(3)
+    return _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps,
+                     (int_seed(fit_seed), int_seed(sample_seed), np.random.default_rng(draw_seed)), progress, prior)
 
 
-def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps, seed, rng,
-              progress, prior):
+def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps, seeds, progress, prior):
     """Sample the joint posterior of lens, H0, κ_ext given positions and timing data."""
     st = settings
     tracked = {tracks[0].family: {t.label: (t.x, t.y) for t in tracks if not t.observed
@@ -373,14 +378,15 @@ def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps,
                             kappa_prior=st.kappa_ext, tracked=tracked)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        jres = fit(joint, seed=seed)
+        fit_seed, sample_seed, rng = seeds
+        jres = fit(joint, seed=fit_seed)
         # enough steps that the kept chain holds min_ess_fraction·n independent samples,
         # judged by the autocorrelation time of the positions-only chain
         tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else 50.0
         want = st.min_ess_fraction * st.n_samples
         needed = int(np.ceil(1.5 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(2 * tau)
         n_steps = int(min(max(steps, needed), 50_000))
-        jchain = sample(joint, jres.values, walkers=walkers, steps=n_steps, seed=int(rng.integers(2 ** 31)),
+        jchain = sample(joint, jres.values, walkers=walkers, steps=n_steps, seed=sample_seed,
                         progress=progress, scales=jres.errors)
     flat = jchain.samples()
     n = st.n_samples

@@ -21,7 +21,7 @@ import numpy as np
 from scipy.special import logsumexp
 
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
-from lensdelay.lensing.images import find_images, newton_polish
+from lensdelay.lensing.images import find_images, keep_distinct_tracks, newton_polish
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.summaries import QUANTILES, effective_sample_size, quantile_summary, weighted_quantiles  # noqa: F401
@@ -194,10 +194,8 @@ def solve_samples(like: ImageLikelihood, draws: np.ndarray, tracks: list[ImageTr
     sbx, sby = src[:, :1], src[:, 1:]
     x, y, err = newton_polish(lens, np.broadcast_to(sx, (n, len(sx))), np.broadcast_to(sy, (n, len(sy))),
                               sbx, sby, fam.scale, iterations=40, max_step=0.05)
-    exists = err < 1e-8
-    for i in range(len(sx)):          # two tracks on one image: the later one has vanished
-        for j in range(i + 1, len(sx)):
-            exists[:, j] &= ~(np.hypot(x[:, i] - x[:, j], y[:, i] - y[:, j]) < 1e-6)
+    # two tracks on one image: the later one has vanished
+    exists = keep_distinct_tracks(x, y, err < 1e-8, 1e-6)
     with np.errstate(all="ignore"):
         tau = lens.fermat_potential(x, y, sbx, sby, fam.scale)
         mu = lens.magnification(x, y, fam.scale)

@@ -15,7 +15,7 @@ from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.hubble.analysis import delay_curves, h0_posterior, kappa_comparison, pair_delays
 from lensdelay.inference.fit import fit
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import sample
+from lensdelay.inference.sampling import int_seed, sample
 from lensdelay.model.cosmology import cosmology_from_class, cosmology_from_spec
 from lensdelay.model.scenario import Scenario
 
@@ -52,15 +52,17 @@ def run_hubble(scenario: Scenario, *, kappa_ext=(0.0, 0.05), om0=None, curves=()
         sc = replace(sc, cosmology=cosmology_from_spec({"name": cosmology_name}))
     if cosmology_class:
         sc = replace(sc, cosmology=cosmology_from_class(cosmology_class, class_params or {}, sc.cosmology))
-    rng = np.random.default_rng(seed)
+    # one seed for the whole run: every stage draws from its own child of it
+    fit_seq, sample_seq, joint_fit_seq, joint_sample_seq, draw_seq = np.random.SeedSequence(seed).spawn(5)
+    rng = np.random.default_rng(draw_seq)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
         like = ImageLikelihood(sc, sc.model, prior=prior)
         try:
-            res = fit(like, seed=seed)
+            res = fit(like, seed=int_seed(fit_seq))
         except InputError as err:
             raise err.with_source(sc.source) from err
-        chain = sample(like, res.values, walkers=walkers, steps=steps, seed=int(rng.integers(2 ** 31)),
+        chain = sample(like, res.values, walkers=walkers, steps=steps, seed=int_seed(sample_seq),
                        progress=progress, scales=res.errors)
     lens_samples = chain.samples()
     pairs = pair_delays(like, lens_samples)
@@ -76,9 +78,9 @@ def run_hubble(scenario: Scenario, *, kappa_ext=(0.0, 0.05), om0=None, curves=()
         joint = ImageLikelihood(sc, sc.model, use_delays=True, prior=prior)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LensdelayWarning)
-            joint_fit = fit(joint, seed=seed)
+            joint_fit = fit(joint, seed=int_seed(joint_fit_seq))
             jchain = sample(joint, joint_fit.values, walkers=walkers, steps=steps,
-                            seed=int(rng.integers(2 ** 31)), progress=progress, scales=joint_fit.errors)
+                            seed=int_seed(joint_sample_seq), progress=progress, scales=joint_fit.errors)
         h0_eff = jchain.samples()[:, joint.h0_index]
         h0 = h0_posterior(h0_eff, joint, kappa_ext=kappa_ext, om0_prior=om0_prior, rng=rng)
         comparison = tuple(kappa_comparison(h0_eff, joint, om0_prior, extra=kappa_ext))

@@ -38,7 +38,7 @@ import numpy as np
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, choices_text
-from lensdelay.lensing.images import newton_polish
+from lensdelay.lensing.images import keep_distinct_tracks, newton_polish
 from lensdelay.model.recipe import MassModel
 from lensdelay.model.scenario import Scenario
 
@@ -295,12 +295,7 @@ class ImageLikelihood:
             return empty, empty, empty
         tx, ty, err = newton_polish(lens, sx[None, :], sy[None, :], bx, by, fam.scale,
                                     iterations=15, max_step=0.05, tolerance=1e-11)
-        exists = err < 1e-8
-        for i in range(x.shape[1]):
-            exists &= ~(ok[:, i:i + 1] & (np.hypot(tx - x[:, i:i + 1], ty - y[:, i:i + 1]) < 1e-4))
-        for i in range(len(labels)):
-            for j in range(i + 1, len(labels)):
-                exists[:, j] &= ~(np.hypot(tx[:, i] - tx[:, j], ty[:, i] - ty[:, j]) < 1e-4)
+        exists = keep_distinct_tracks(tx, ty, err < 1e-8, 1e-4, taken=(x, y, ok))
         with np.errstate(all="ignore"):
             tau = lens.fermat_potential(tx, ty, bx, by, fam.scale)
         return tx, ty, np.where(exists, tau, np.nan)
@@ -313,13 +308,8 @@ class ImageLikelihood:
             return np.zeros((len(x), 0))
         ex, ey, err = newton_polish(lens, wx[None, :], wy[None, :], bx, by, fam.scale,
                                     iterations=15, max_step=0.05, tolerance=1e-11)
-        exists = err < 1e-8
         # an extra image must be none of the observed ones and none of the other extras
-        for i in range(x.shape[1]):
-            exists &= ~(ok[:, i:i + 1] & (np.hypot(ex - x[:, i:i + 1], ey - y[:, i:i + 1]) < 1e-4))
-        for i in range(len(wx)):
-            for j in range(i + 1, len(wx)):
-                exists[:, j] &= ~(np.hypot(ex[:, i] - ex[:, j], ey[:, i] - ey[:, j]) < 1e-4)
+        exists = keep_distinct_tracks(ex, ey, err < 1e-8, 1e-4, taken=(x, y, ok))
         with np.errstate(all="ignore"):
             mu = np.abs(lens.magnification(ex, ey, fam.scale))
         return np.where(exists & np.isfinite(mu), mu, np.where(exists, np.inf, 0.0))

@@ -64,6 +64,11 @@ class Chain:
         return self.chain[self.burn::self.thin].reshape(-1, self.chain.shape[-1])
 
 
+def int_seed(seed_sequence: np.random.SeedSequence) -> int:
+    """An int seed (for lmfit's starts and emcee's generator) drawn from a SeedSequence child."""
+    return int(seed_sequence.generate_state(1)[0] % (2 ** 31))
+
+
 def _progress_display(progress, total: int):
     """A tqdm bar on stderr (``progress=True``), a caller's ``progress(done, total)``
     function, or nothing; returns an update function taking the number of steps done."""

@@ -316,6 +316,25 @@ def _merge_duplicates(src, x, y, err):
     return src, x, y, err
 
 
+def keep_distinct_tracks(x, y, exists, tolerance: float, taken=None):
+    """Images followed from several starts, one column each (rows: parameter sets).
+
+    A column that lands on an earlier column's image (closer than ``tolerance`` arcsec)
+    has lost its own image: it is marked as not existing, so each image is counted
+    once. ``taken`` = (x, y, ok) of images already claimed elsewhere (e.g. the observed
+    ones) rules those out too. Returns the new ``exists`` mask.
+    """
+    exists = np.array(exists, dtype=bool)
+    if taken is not None:
+        tx, ty, tok = taken
+        for i in range(tx.shape[1]):
+            exists &= ~(tok[:, i:i + 1] & (np.hypot(x - tx[:, i:i + 1], y - ty[:, i:i + 1]) < tolerance))
+    for i in range(x.shape[1]):
+        for j in range(i + 1, x.shape[1]):
+            exists[:, j] &= ~(np.hypot(x[:, i] - x[:, j], y[:, i] - y[:, j]) < tolerance)
+    return exists
+
+
 def as_arcsec(value, name: str = "angle") -> np.ndarray:
     """An angle in arcsec: an astropy Quantity is converted, a plain number is taken as arcsec.
 
