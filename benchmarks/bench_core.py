@@ -2,6 +2,7 @@
 
 Run:  python benchmarks/bench_core.py
 """
+
 from __future__ import annotations
 
 import time
@@ -32,8 +33,11 @@ def naive_images(lens, bx, by, extent, starts=15):
     found = []
     for x0 in g:
         for y0 in g:
-            sol = optimize.root(lambda p: np.array(lens.source_position(p[0], p[1])) - (bx, by),
-                                [x0, y0], method="hybr")
+            sol = optimize.root(
+                lambda p: np.array(lens.source_position(p[0], p[1])) - (bx, by),
+                [x0, y0],
+                method="hybr",
+            )
             if sol.success and np.hypot(*sol.fun) < 1e-10:
                 if not any(np.hypot(sol.x[0] - a, sol.x[1] - b) < 1e-6 for a, b in found):
                     found.append(tuple(sol.x))
@@ -42,8 +46,12 @@ def naive_images(lens, bx, by, extent, starts=15):
 
 def main():
     rng = np.random.default_rng(1)
-    lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=30.0),
-                 ExternalShear(strength=0.06, position_angle=-20.0)))
+    lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=30.0),
+            ExternalShear(strength=0.06, position_angle=-20.0),
+        )
+    )
     n = 2000
     bx, by = rng.uniform(-0.3, 0.3, (2, n))
 
@@ -58,13 +66,17 @@ def main():
     t0 = time.perf_counter()
     naive = [naive_images(lens, bx[i], by[i], 2.0) for i in range(n_naive)]
     t_naive = (time.perf_counter() - t0) / n_naive
+
     def bright(points):  # the naive search also lands on the singular centre (|mu| ~ 0)
         pts = np.array(points).reshape(-1, 2)
         return int(np.sum(np.abs(lens.magnification(pts[:, 0], pts[:, 1])) > 1e-3))
+
     agree = all(bright(naive[i]) == len(table.of_source(i)) for i in range(n_naive))
-    print(f"image finder: {t_ours * 1e3:.3f} ms/source (mesh built per call, {n} sources); "
-          f"naive multi-start scipy root: {t_naive * 1e3:.1f} ms/source; "
-          f"ratio {t_naive / t_ours:.0f}x (goal >= 50x); same images found: {agree}")
+    print(
+        f"image finder: {t_ours * 1e3:.3f} ms/source (mesh built per call, {n} sources); "
+        f"naive multi-start scipy root: {t_naive * 1e3:.1f} ms/source; "
+        f"ratio {t_naive / t_ours:.0f}x (goal >= 50x); same images found: {agree}"
+    )
 
     # 2. SIE+shear deflection + potential vs the bare transcendental operations
     m = 1_000_000
@@ -79,8 +91,11 @@ def main():
         np.arctanh(0.5 * y / (s + 1.0))
 
     t_eval, t_bare = best_of(evaluate), best_of(bare)
-    print(f"SIE+shear deflection+potential: {t_eval / m * 1e9:.1f} ns/point; bare sqrt+arctan+arctanh: "
-          f"{t_bare / m * 1e9:.1f} ns/point; ratio {t_eval / t_bare:.2f}x (goal <= 2x)")
+    print(
+        f"SIE+shear deflection+potential: {t_eval / m * 1e9:.1f} ns/point; bare "
+        f"sqrt+arctan+arctanh: "
+        f"{t_bare / m * 1e9:.1f} ns/point; ratio {t_eval / t_bare:.2f}x (goal <= 2x)"
+    )
 
     # 3. D_dt for 1e6 (H0, Om0) samples vs one astropy call per sample
     k = 1_000_000
@@ -92,13 +107,21 @@ def main():
     t_fast = best_of(lambda: fast(h0, om)) + t_build
     n_ref = 300
     t0 = time.perf_counter()
-    ref = [LensDistances(FlatLambdaCDM(H0=h0[i], Om0=om[i], Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0).to_value(u.Mpc)
-           for i in range(n_ref)]
+    ref = [
+        LensDistances(FlatLambdaCDM(H0=h0[i], Om0=om[i], Tcmb0=0.0), 0.5, 2.0)
+        .time_delay_distance(2.0)
+        .to_value(u.Mpc)
+        for i in range(n_ref)
+    ]
     t_ref = (time.perf_counter() - t0) / n_ref * k
     err = np.max(np.abs(fast(h0[:n_ref], om[:n_ref]) / np.array(ref) - 1))
-    print(f"D_dt for 1e6 samples: table {t_fast:.3f} s (incl. {t_build:.2f} s build); astropy per sample "
-          f"{t_ref:.0f} s (extrapolated from {n_ref}); ratio {t_ref / t_fast:.0f}x (goal >= 100x); "
-          f"max relative error {err:.1e} (bound at build: {fast.max_relative_error:.1e}; goal <= 1e-6)")
+    print(
+        f"D_dt for 1e6 samples: table {t_fast:.3f} s (incl. {t_build:.2f} s build); astropy per "
+        f"sample "
+        f"{t_ref:.0f} s (extrapolated from {n_ref}); ratio {t_ref / t_fast:.0f}x (goal >= 100x); "
+        f"max relative error {err:.1e} (bound at build: {fast.max_relative_error:.1e}; goal <= "
+        f"1e-6)"
+    )
 
 
 if __name__ == "__main__":

@@ -5,6 +5,7 @@ Run: python benchmarks/bench_fit.py [--realisations N] [--system quad|two-family
      [--prior flat|jeffreys|both] [--move langevin|stretch]
 (calibration: N = 100 takes ~10 min per system and prior on 2 cores)
 """
+
 from __future__ import annotations
 
 import argparse
@@ -23,22 +24,43 @@ from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
 from lensdelay.model.scenario import parse_scenario
 from lensdelay.model.simulate import simulate_family
 
-TRUTH = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
-              ExternalShear(strength=0.05, position_angle=-40.0)))
+TRUTH = Lens(
+    (
+        IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+        ExternalShear(strength=0.05, position_angle=-40.0),
+    )
+)
 SOURCE = (0.03, 0.02)
 MASS = [
-    {"profile": "SIE", "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0},
-     "axis_ratio": {"value": 0.8, "min": 0.2, "max": 1.0}, "position_angle": {"value": 0.0},
-     "x": {"value": 0.0, "min": -0.5, "max": 0.5}, "y": {"value": 0.0, "min": -0.5, "max": 0.5}},
-    {"profile": "shear", "strength": {"value": 0.03, "min": 0.0, "max": 0.3}, "position_angle": {"value": 0.0}},
+    {
+        "profile": "SIE",
+        "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0},
+        "axis_ratio": {"value": 0.8, "min": 0.2, "max": 1.0},
+        "position_angle": {"value": 0.0},
+        "x": {"value": 0.0, "min": -0.5, "max": 0.5},
+        "y": {"value": 0.0, "min": -0.5, "max": 0.5},
+    },
+    {
+        "profile": "shear",
+        "strength": {"value": 0.03, "min": 0.0, "max": 0.3},
+        "position_angle": {"value": 0.0},
+    },
 ]
 
 
 def system(rng):
     fam = simulate_family(TRUTH, *SOURCE, label="s", redshift=1.5, sigma=0.003, rng=rng)
     # the lens-light centre is a measurement too: it scatters about the true centre
-    doc = {"lens": {"redshift": 0.4}, "family": [fam], "mass": MASS,
-           "lens_light": {"x": float(rng.normal(0, 0.01)), "y": float(rng.normal(0, 0.01)), "sigma": 0.01}}
+    doc = {
+        "lens": {"redshift": 0.4},
+        "family": [fam],
+        "mass": MASS,
+        "lens_light": {
+            "x": float(rng.normal(0, 0.01)),
+            "y": float(rng.normal(0, 0.01)),
+            "sigma": 0.01,
+        },
+    }
     sc = parse_scenario(doc, "calibration.toml")
     return ImageLikelihood(sc, sc.model)
 
@@ -50,10 +72,27 @@ def two_family_system(rng):
 
     scale2 = LensDistances(DEFAULT_COSMOLOGY, 0.4, 1.5).deflection_scale(3.0)
     f1 = simulate_family(TRUTH, *SOURCE, label="s", redshift=1.5, sigma=0.003, rng=rng)
-    f2 = simulate_family(TRUTH, -0.06, 0.05, label="t", redshift=3.0, scale=scale2, sigma=0.003, rng=rng,
-                         labels="PQRS")
-    doc = {"lens": {"redshift": 0.4}, "family": [f1, f2], "mass": MASS,
-           "lens_light": {"x": float(rng.normal(0, 0.01)), "y": float(rng.normal(0, 0.01)), "sigma": 0.01}}
+    f2 = simulate_family(
+        TRUTH,
+        -0.06,
+        0.05,
+        label="t",
+        redshift=3.0,
+        scale=scale2,
+        sigma=0.003,
+        rng=rng,
+        labels="PQRS",
+    )
+    doc = {
+        "lens": {"redshift": 0.4},
+        "family": [f1, f2],
+        "mass": MASS,
+        "lens_light": {
+            "x": float(rng.normal(0, 0.01)),
+            "y": float(rng.normal(0, 0.01)),
+            "sigma": 0.01,
+        },
+    }
     sc = parse_scenario(doc, "calibration-two-families.toml")
     return ImageLikelihood(sc, sc.model)
 
@@ -91,16 +130,24 @@ def main():
         for r in rows:
             like.log_probability(r[None, :])
     t_loop = (time.perf_counter() - t0) / 5
-    print(f"log-likelihood, 32 walkers: vectorised {t_vec * 1e3:.2f} ms, per-walker loop {t_loop * 1e3:.1f} ms: "
-          f"ratio {t_loop / t_vec:.1f}x (goal >= 20x)")
+    print(
+        f"log-likelihood, 32 walkers: vectorised {t_vec * 1e3:.2f} ms, per-walker loop "
+        f"{t_loop * 1e3:.1f} ms: "
+        f"ratio {t_loop / t_vec:.1f}x (goal >= 20x)"
+    )
 
     mixing(like)
-    for name in (SYSTEMS if args.system == "both" else [args.system]):
-        for prior in (("flat", "jeffreys") if args.prior == "both" else (args.prior,)):
-            f68, f95, total, seconds = calibration(args.realisations, args.steps, name, prior, args.move)
-            print(f"calibration, {name}, prior {prior}, move {args.move}, over {args.realisations} "
-                  f"realisations ({total} delays, {seconds:.0f} s): 68% intervals contain the truth "
-                  f"{100 * f68:.1f}% of the time (goal 68 ± 7), 95% intervals {100 * f95:.1f}% (goal 95 ± 4)")
+    for name in SYSTEMS if args.system == "both" else [args.system]:
+        for prior in ("flat", "jeffreys") if args.prior == "both" else (args.prior,):
+            f68, f95, total, seconds = calibration(
+                args.realisations, args.steps, name, prior, args.move
+            )
+            print(
+                f"calibration, {name}, prior {prior}, move {args.move}, over {args.realisations} "
+                f"realisations ({total} delays, {seconds:.0f} s): 68% intervals contain the truth "
+                f"{100 * f68:.1f}% of the time (goal 68 ± 7), 95% intervals {100 * f95:.1f}% "
+                f"(goal 95 ± 4)"
+            )
 
 
 def valley_end(like, best, delay_days):
@@ -126,19 +173,39 @@ def mixing(like, steps: int = 1000):
         medians, taus = [], []
         for seed, (d, start) in enumerate(ends.items()):
             # different seeds: with shared random numbers two chains can couple exactly
-            ch = sample(like, start, walkers=32, steps=steps, seed=seed + 1, progress=False,
-                        scales=0.05 * best.errors, move=move, components=components)
-            days = observed_delays(like, ch.chain[steps // 2:].reshape(-1, ch.chain.shape[-1]))[:, 1]
+            ch = sample(
+                like,
+                start,
+                walkers=32,
+                steps=steps,
+                seed=seed + 1,
+                progress=False,
+                scales=0.05 * best.errors,
+                move=move,
+                components=components,
+            )
+            days = observed_delays(like, ch.chain[steps // 2 :].reshape(-1, ch.chain.shape[-1]))[
+                :, 1
+            ]
             medians.append(np.median(days))
             taus.append(np.max(ch.autocorr))
         where = "components" if components else "recipe parameters"
-        print(f"mixing, move {move} in {where}: walkers started at delays {', '.join(f'{d:.2f}' for d in ends)} d "
-              f"(best fit {d0:.2f} d) have second-half medians {medians[0]:.2f} and {medians[1]:.2f} d "
-              f"after {steps} steps; max tau {max(taus):.0f} steps; {time.perf_counter() - t0:.1f} s")
+        print(
+            f"mixing, move {move} in {where}: walkers started at delays "
+            f"{', '.join(f'{d:.2f}' for d in ends)} d "
+            f"(best fit {d0:.2f} d) have second-half medians {medians[0]:.2f} and "
+            f"{medians[1]:.2f} d "
+            f"after {steps} steps; max tau {max(taus):.0f} steps; {time.perf_counter() - t0:.1f} s"
+        )
 
 
-def calibration(realisations: int = 100, steps: int = 1500, which: str = "quad", prior: str = "flat",
-                move: str = "langevin"):
+def calibration(
+    realisations: int = 100,
+    steps: int = 1500,
+    which: str = "quad",
+    prior: str = "flat",
+    move: str = "langevin",
+):
     """Fraction of 68% and 95% posterior delay intervals that contain the true delays."""
     warnings.simplefilter("ignore", LensdelayWarning)
     make = SYSTEMS[which]
@@ -152,8 +219,16 @@ def calibration(realisations: int = 100, steps: int = 1500, which: str = "quad",
         made = make(np.random.default_rng(1000 + k))
         like_k = ImageLikelihood(made.scenario, made.model, prior=prior)
         res_k = fit(like_k)
-        ch = sample(like_k, res_k.values, walkers=32, steps=steps, seed=k, progress=False,
-                    scales=res_k.errors, move=move)
+        ch = sample(
+            like_k,
+            res_k.values,
+            walkers=32,
+            steps=steps,
+            seed=k,
+            progress=False,
+            scales=res_k.errors,
+            move=move,
+        )
         days = observed_delays(like_k, ch.samples())
         for i in range(1, days.shape[1]):
             lo68, hi68, lo95, hi95 = np.nanpercentile(days[:, i], [16, 84, 2.5, 97.5])

@@ -2,6 +2,7 @@
 
 Run: python benchmarks/bench_forecast.py
 """
+
 from __future__ import annotations
 
 import time
@@ -29,6 +30,7 @@ def main():
             out = fn(*a, **k)
             marks[name] = marks.get(name, 0.0) + time.perf_counter() - t0
             return out
+
         return wrapper
 
     fr.sample = timed("posterior (emcee 32x2000)", original_sample)
@@ -57,13 +59,19 @@ def main():
     fr.sample, fr.solve_samples = original_sample, original_model
     # the update routes, timed end to end (1e5 samples): a sighting that agrees with the
     # prediction (importance weights) and one 12 sigma away (a new joint posterior sample)
-    for label, seen in (("sighting that agrees (re-weighting)", "C=2026-12-01T00:00±1"),
-                        ("sighting 12 sigma away (resampling)", "D=2027-01-15±1.5")):
+    for label, seen in (
+        ("sighting that agrees (re-weighting)", "C=2026-12-01T00:00±1"),
+        ("sighting 12 sigma away (resampling)", "D=2027-01-15±1.5"),
+    ):
         t0 = time.perf_counter()
-        upd = forecast_scenario("scenarios/vellmar_quad.toml", n_samples=100_000, budget=False, seen=[seen])
+        upd = forecast_scenario(
+            "scenarios/vellmar_quad.toml", n_samples=100_000, budget=False, seen=[seen]
+        )
         route = upd.timing["models"][0]
-        print(f"forecast with a {label}: {time.perf_counter() - t0:.1f} s, route {route['route']}, "
-              f"{route['effective_samples']:.0f} effective samples")
+        print(
+            f"forecast with a {label}: {time.perf_counter() - t0:.1f} s, route {route['route']}, "
+            f"{route['effective_samples']:.0f} effective samples"
+        )
 
     # vectorised per-sample solve vs a loop over samples
     from lensdelay.forecast.samples import image_tracks
@@ -80,17 +88,27 @@ def main():
     starts_y = np.array([t.y for t in tracks])
     t0 = time.perf_counter()
     lens = like.lens_for(rows)
-    newton_polish(lens, np.broadcast_to(starts_x, (len(rows), 4)), np.broadcast_to(starts_y, (len(rows), 4)),
-                  rows[:, -2:-1], rows[:, -1:], fam.scale, max_step=0.05)
+    newton_polish(
+        lens,
+        np.broadcast_to(starts_x, (len(rows), 4)),
+        np.broadcast_to(starts_y, (len(rows), 4)),
+        rows[:, -2:-1],
+        rows[:, -1:],
+        fam.scale,
+        max_step=0.05,
+    )
     t_vec = (time.perf_counter() - t0) / len(rows)
     t0 = time.perf_counter()
     n_loop = 300
     for r in rows[:n_loop]:
-        single = like.model.lens(r[:like.n_model])
+        single = like.model.lens(r[: like.n_model])
         newton_polish(single, starts_x, starts_y, r[-2], r[-1], fam.scale, max_step=0.05)
     t_loop = (time.perf_counter() - t0) / n_loop
-    print(f"per-sample image solve: vectorised {t_vec * 1e6:.1f} us/sample, loop {t_loop * 1e6:.0f} us/sample: "
-          f"ratio {t_loop / t_vec:.0f}x")
+    print(
+        f"per-sample image solve: vectorised {t_vec * 1e6:.1f} us/sample, loop {t_loop * 1e6:.0f} "
+        f"us/sample: "
+        f"ratio {t_loop / t_vec:.0f}x"
+    )
 
 
 if __name__ == "__main__":

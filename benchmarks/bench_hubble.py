@@ -2,6 +2,7 @@
 
 Run: python benchmarks/bench_hubble.py
 """
+
 from __future__ import annotations
 
 import time
@@ -36,10 +37,12 @@ def main():
     t_post = time.perf_counter() - t0
     total = t_fit + t_mcmc + t_post
     h = post["H0"]
-    print(f"H0 posterior, 1e5 samples: {total:.1f} s in all (goal < 10 s): fit {t_fit:.1f} s, joint "
-          f"lens+H0 sampling (32x2000) {t_mcmc:.1f} s, kappa_ext/Om0 priors and 6 kappa_ext "
-          f"comparisons on 1e5 samples {t_post:.2f} s; H0 = {h['median']:.1f} "
-          f"[{h['p16']:.1f}, {h['p84']:.1f}] (truth 70)")
+    print(
+        f"H0 posterior, 1e5 samples: {total:.1f} s in all (goal < 10 s): fit {t_fit:.1f} s, joint "
+        f"lens+H0 sampling (32x2000) {t_mcmc:.1f} s, kappa_ext/Om0 priors and 6 kappa_ext "
+        f"comparisons on 1e5 samples {t_post:.2f} s; H0 = {h['median']:.1f} "
+        f"[{h['p16']:.1f}, {h['p84']:.1f}] (truth 70)"
+    )
 
 
 if __name__ == "__main__":

@@ -6,8 +6,15 @@ bright each image of a lensed supernova or quasar flare appears, and infer H0 fr
 measured delays. Every job of the command line is a function here (README, "Using
 lensdelay from Python"); importing the package changes no global state.
 """
+
 from lensdelay.api import (
-    check_scenario, fit_scenario, forecast_scenario, images_of_source, infer_h0, load_model, load_scenario,
+    check_scenario,
+    fit_scenario,
+    forecast_scenario,
+    images_of_source,
+    infer_h0,
+    load_model,
+    load_scenario,
 )
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
 from lensdelay.inference.likelihood import ImageLikelihood
@@ -23,13 +30,26 @@ from lensdelay.version import __version__
 __all__ = [
     "__version__",
     # files and objects
-    "load_scenario", "load_model", "Scenario", "MassModel",
+    "load_scenario",
+    "load_model",
+    "Scenario",
+    "MassModel",
     # lensing
-    "Lens", "profiles", "find_images", "LensDistances", "images_of_source",
+    "Lens",
+    "profiles",
+    "find_images",
+    "LensDistances",
+    "images_of_source",
     # inference
-    "check_scenario", "fit_scenario", "ImageLikelihood", "sample",
+    "check_scenario",
+    "fit_scenario",
+    "ImageLikelihood",
+    "sample",
     # the jobs
-    "forecast_scenario", "infer_h0",
+    "forecast_scenario",
+    "infer_h0",
     # errors
-    "LensdelayError", "InputError", "LensdelayWarning",
+    "LensdelayError",
+    "InputError",
+    "LensdelayWarning",
 ]

@@ -1,3 +1,5 @@
+"""``python -m lensdelay``: the command line."""
+
 import sys
 
 from lensdelay.cli.main import main

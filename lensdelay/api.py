@@ -5,6 +5,7 @@ Each function accepts a :class:`~lensdelay.model.scenario.Scenario` (and
 asked (``progress=True``), and returns the same results the command line prints and
 writes. Files are read here and nowhere below; the layers underneath take objects.
 """
+
 from __future__ import annotations
 
 import os
@@ -46,7 +47,7 @@ def load_model(path: PathLike) -> MassModel:
 
 
 def _scenario(scenario, model=None) -> tuple[Scenario, list]:
-    """A scenario object (read from a path if need be) with ``model`` in place, and the input files."""
+    """The scenario (read from a path if need be) with ``model`` in place, and its input files."""
     if isinstance(scenario, Scenario):
         used = [scenario.source] if Path(scenario.source).is_file() else []
         if isinstance(model, MassModel):
@@ -66,22 +67,33 @@ def _redshifts(doc: dict, source: str, lens_redshift, source_redshift):
         raise InputError(f"lens must be a table, got {lens_tab!r}", source)
     z_l = lens_redshift if lens_redshift is not None else lens_tab.get("redshift")
     if z_l is None:
-        raise InputError("lens.redshift is needed for delays in days "
-                         "(give [lens] redshift or --lens-redshift), got nothing", source)
+        raise InputError(
+            "lens.redshift is needed for delays in days "
+            "(give [lens] redshift or --lens-redshift), got nothing",
+            source,
+        )
     z_ref = lens_tab.get("reference_source_redshift")
     z_s = source_redshift if source_redshift is not None else z_ref
     if z_s is None:
-        raise InputError("a source redshift is needed (give --source-redshift or "
-                         "[lens] reference_source_redshift), got nothing", source)
+        raise InputError(
+            "a source redshift is needed (give --source-redshift or "
+            "[lens] reference_source_redshift), got nothing",
+            source,
+        )
     z_ref = z_s if z_ref is None else z_ref
-    for name, z in (("lens.redshift", z_l), ("source redshift", z_s),
-                    ("lens.reference_source_redshift", z_ref)):
+    for name, z in (
+        ("lens.redshift", z_l),
+        ("source redshift", z_s),
+        ("lens.reference_source_redshift", z_ref),
+    ):
         if isinstance(z, bool) or not isinstance(z, (int, float)) or not np.isfinite(z) or z <= 0:
             raise InputError(f"{name} must be a positive finite number, got {z!r}", source)
     return float(z_l), float(z_s), float(z_ref)
 
 
-def images_of_source(model_path, source_x, source_y, *, source_redshift=None, lens_redshift=None) -> dict:
+def images_of_source(
+    model_path, source_x, source_y, *, source_redshift=None, lens_redshift=None
+) -> dict:
     """All images of one point source behind the model in a model file.
 
     Parameters
@@ -109,15 +121,27 @@ def images_of_source(model_path, source_x, source_y, *, source_redshift=None, le
     first = t.min() if len(t) else 0.0
     labels = [chr(ord("A") + i) if i < 26 else f"I{i + 1}" for i in range(len(table))]
     images = [
-        {"label": lab, "x": float(x), "y": float(y), "magnification": float(mu),
-         "parity": PARITIES[int(p)], "delay_days": float(dt - first)}
-        for lab, x, y, mu, p, dt in zip(labels, table.x, table.y, table.magnification,
-                                        table.parity, t)
+        {
+            "label": lab,
+            "x": float(x),
+            "y": float(y),
+            "magnification": float(mu),
+            "parity": PARITIES[int(p)],
+            "delay_days": float(dt - first),
+        }
+        for lab, x, y, mu, p, dt in zip(
+            labels, table.x, table.y, table.magnification, table.parity, t
+        )
     ]
     return {
-        "tool": "lensdelay", "version": __version__, "input_sha256": reading.file_hash(model_path),
-        "model": model_path, "cosmology": describe_cosmology(cosmo),
-        "lens_redshift": z_l, "source_redshift": z_s, "reference_source_redshift": z_ref,
+        "tool": "lensdelay",
+        "version": __version__,
+        "input_sha256": reading.file_hash(model_path),
+        "model": model_path,
+        "cosmology": describe_cosmology(cosmo),
+        "lens_redshift": z_l,
+        "source_redshift": z_s,
+        "reference_source_redshift": z_ref,
         "source": {"x": beta_x, "y": beta_y},
         "time_delay_distance_Mpc": float(distances.time_delay_distance(z_s).value),
         "delay_reference": "first arrival",
@@ -139,9 +163,22 @@ def check_scenario(scenario, model=None) -> dict:
     return {"scenario": sc, "likelihood": like, "inputs": used}
 
 
-def fit_scenario(scenario, model=None, *, use_delays=False, use_fluxes=False, flux_floor=0.2, sample=False,
-                 walkers=32, steps=2000, seed=1, resume=False, checkpoint_dir=None, progress=False,
-                 prior="flat") -> dict:
+def fit_scenario(
+    scenario,
+    model=None,
+    *,
+    use_delays=False,
+    use_fluxes=False,
+    flux_floor=0.2,
+    sample=False,
+    walkers=32,
+    steps=2000,
+    seed=1,
+    resume=False,
+    checkpoint_dir=None,
+    progress=False,
+    prior="flat",
+) -> dict:
     """Fit (and optionally sample) a scenario's mass model.
 
     Parameters
@@ -158,8 +195,14 @@ def fit_scenario(scenario, model=None, *, use_delays=False, use_fluxes=False, fl
     sc, used = _scenario(scenario, model)
     if not flux_floor > 0:
         raise InputError(f"flux_floor must be > 0 mag, got {flux_floor:g}")
-    like = ImageLikelihood(sc, sc.model, use_delays=use_delays, use_fluxes=use_fluxes,
-                           flux_floor_mag=flux_floor, prior=prior)
+    like = ImageLikelihood(
+        sc,
+        sc.model,
+        use_delays=use_delays,
+        use_fluxes=use_fluxes,
+        flux_floor_mag=flux_floor,
+        prior=prior,
+    )
     with warnings.catch_warnings():
         # the report states these (dof, short chains); a warning would say it twice
         warnings.simplefilter("ignore", LensdelayWarning)
@@ -171,16 +214,33 @@ def fit_scenario(scenario, model=None, *, use_delays=False, use_fluxes=False, fl
     for k, fam in enumerate(like.families):
         days, errs = delay_errors(like, result, family=k)
         for lab, d, e in zip(fam.labels[1:], days[1:], errs[1:]):
-            linear_delays.append({"family": fam.label, "image": lab, "relative_to": fam.labels[0],
-                                  "days": float(d), "linearised_sigma_days": float(e)})
+            linear_delays.append(
+                {
+                    "family": fam.label,
+                    "image": lab,
+                    "relative_to": fam.labels[0],
+                    "days": float(d),
+                    "linearised_sigma_days": float(e),
+                }
+            )
     chain = None
     if sample:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LensdelayWarning)
-            chain = run_sampler(like, result.values, walkers=walkers, steps=steps, seed=seed,
-                                checkpoint_dir=checkpoint_dir, resume=resume, progress=progress,
-                                scales=result.errors)
-    return ScenarioFit(sc, like, result, chain, tuple(linear_delays), provenance(used, sc.cosmology, seed))
+            chain = run_sampler(
+                like,
+                result.values,
+                walkers=walkers,
+                steps=steps,
+                seed=seed,
+                checkpoint_dir=checkpoint_dir,
+                resume=resume,
+                progress=progress,
+                scales=result.errors,
+            )
+    return ScenarioFit(
+        sc, like, result, chain, tuple(linear_delays), provenance(used, sc.cosmology, seed)
+    )
 
 
 def forecast_scenario(scenario, models=None, *, budget: bool = True, **options) -> dict:

@@ -1,7 +1,9 @@
-"""Atomic file primitives shared by every layer that writes: a temporary file in the same
-folder, then a rename, so a reader never sees half a file. Arrays go through numpy's
-npz without pickle.
+"""Atomic file primitives shared by every layer that writes.
+
+A temporary file in the same folder, then a rename, so a reader never sees half a
+file. Arrays go through numpy's npz without pickle.
 """
+
 from __future__ import annotations
 
 import io

@@ -5,6 +5,7 @@ line turns it into a single line on stderr and exit status 2. Messages follow th
 pattern ``"<name> <rule>, got <value>"`` and list the allowed choices where there are
 any.
 """
+
 from __future__ import annotations
 
 import difflib

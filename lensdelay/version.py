@@ -1,4 +1,5 @@
 """The installed version of lensdelay (from the package metadata)."""
+
 from importlib.metadata import PackageNotFoundError, version as _version
 
 try:

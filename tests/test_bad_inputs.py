@@ -3,12 +3,15 @@
 Every case: exit status 2, exactly one line on stderr naming the file, no traceback,
 nothing written to the output folder.
 """
+
 import os
 import pathlib
 
 import pytest
 
 from lensdelay.cli.main import main
+
+pytestmark = pytest.mark.integration
 
 HERE = pathlib.Path(__file__).parent / "bad_inputs"
 CASES = sorted(HERE.glob("*.toml"))
@@ -17,7 +20,7 @@ CASES = sorted(HERE.glob("*.toml"))
 def expected_of(path):
     first = path.read_bytes().split(b"\n", 1)[0].decode("utf-8")
     assert first.startswith("# expect: ")
-    return first[len("# expect: "):]
+    return first[len("# expect: ") :]
 
 
 def test_corpus_is_large_enough():
@@ -27,9 +30,11 @@ def test_corpus_is_large_enough():
 @pytest.mark.parametrize("path", CASES, ids=[p.stem for p in CASES])
 @pytest.mark.parametrize("command", ["check", "forecast"])
 def test_bad_input_one_line_exit_2_nothing_written(path, command, tmp_path, capsys, monkeypatch):
-    monkeypatch.chdir(pathlib.Path(__file__).parent.parent)   # model = "models/..." resolves here
+    monkeypatch.chdir(pathlib.Path(__file__).parent.parent)  # model = "models/..." resolves here
     out = tmp_path / "out"
-    argv = [command, str(path)] + (["--out", str(out), "--quiet", "--steps", "50"] if command == "forecast" else [])
+    argv = [command, str(path)] + (
+        ["--out", str(out), "--quiet", "--steps", "50"] if command == "forecast" else []
+    )
     code = main(argv)
     captured = capsys.readouterr()
     assert code == 2, captured.err

@@ -1,14 +1,19 @@
 """Calibration of the delay intervals (issue 3; slow: run with -m slow, ~10 min per case)."""
+
 import pathlib
 import sys
 
 import pytest
 
+pytestmark = pytest.mark.integration
+
 sys.path.insert(0, str(pathlib.Path(__file__).parent.parent / "benchmarks"))
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("system,prior", [("quad", "flat"), ("quad", "jeffreys"), ("two-family", "flat")])
+@pytest.mark.parametrize(
+    "system,prior", [("quad", "flat"), ("quad", "jeffreys"), ("two-family", "flat")]
+)
 def test_delay_intervals_are_calibrated(system, prior):
     """Over 100 noise realisations the 68% interval holds the truth 68 ± 7% of the time and the
     95% interval 95 ± 4% (issue 3's goal; frequentist coverage, common practice). The single
@@ -33,4 +38,4 @@ def test_update_windows_are_calibrated():
     out = update_calibration(200, 4000)
     assert 0.61 <= out["coverage68"] <= 0.75
     assert 0.91 <= out["coverage95"] <= 0.99
-    assert set(out["routes"]) == {"reweight", "resample"}     # both routes were exercised
+    assert set(out["routes"]) == {"reweight", "resample"}  # both routes were exercised

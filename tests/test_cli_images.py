@@ -1,9 +1,12 @@
 """The images command: output and bad-input handling (issue 2)."""
+
 import json
 
 import pytest
 
 from lensdelay.cli.main import main
+
+pytestmark = pytest.mark.integration
 
 GOOD = """
 [lens]
@@ -31,21 +34,64 @@ def test_images_json_sis(tmp_path, capsys):
     xs = sorted(im["x"] for im in res["images"])
     assert xs == pytest.approx([-0.8, 1.2])
     from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2
+
     later = max(im["delay_days"] for im in res["images"])
-    assert later == pytest.approx(res["time_delay_distance_Mpc"] * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.2, rel=1e-8)
+    assert later == pytest.approx(
+        res["time_delay_distance_Mpc"] * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.2, rel=1e-8
+    )
 
 
 BAD = [
-    (GOOD.replace('einstein_radius = 1.0', 'einstein_radius = -1.0'), [], "mass[0].einstein_radius must be > 0, got -1"),
-    (GOOD.replace('einstein_radius = 1.0', 'einstein_radius = 0.0'), [], "mass[0].einstein_radius must be > 0, got 0"),
-    (GOOD.replace('einstein_radius = 1.0', 'einstein_radius = nan'), [], "mass[0].einstein_radius must be finite"),
-    (GOOD.replace('einstein_radius = 1.0', 'einstein_radius = inf'), [], "mass[0].einstein_radius must be finite"),
-    (GOOD.replace('"SIS"', '"SIE"').replace('einstein_radius = 1.0', 'einstein_radius = 1.0\naxis_ratio = 1.5'), [], "mass[0].axis_ratio must be in (0, 1], got 1.5"),
-    (GOOD.replace('"SIS"', '"SIE"').replace('einstein_radius = 1.0', 'einstein_radius = 1.0\naxis_ratio = 0'), [], "mass[0].axis_ratio must be in (0, 1], got 0"),
+    (
+        GOOD.replace("einstein_radius = 1.0", "einstein_radius = -1.0"),
+        [],
+        "mass[0].einstein_radius must be > 0, got -1",
+    ),
+    (
+        GOOD.replace("einstein_radius = 1.0", "einstein_radius = 0.0"),
+        [],
+        "mass[0].einstein_radius must be > 0, got 0",
+    ),
+    (
+        GOOD.replace("einstein_radius = 1.0", "einstein_radius = nan"),
+        [],
+        "mass[0].einstein_radius must be finite",
+    ),
+    (
+        GOOD.replace("einstein_radius = 1.0", "einstein_radius = inf"),
+        [],
+        "mass[0].einstein_radius must be finite",
+    ),
+    (
+        GOOD.replace('"SIS"', '"SIE"').replace(
+            "einstein_radius = 1.0", "einstein_radius = 1.0\naxis_ratio = 1.5"
+        ),
+        [],
+        "mass[0].axis_ratio must be in (0, 1], got 1.5",
+    ),
+    (
+        GOOD.replace('"SIS"', '"SIE"').replace(
+            "einstein_radius = 1.0", "einstein_radius = 1.0\naxis_ratio = 0"
+        ),
+        [],
+        "mass[0].axis_ratio must be in (0, 1], got 0",
+    ),
     (GOOD.replace('"SIS"', '"powerlaw"'), [], "(did you mean 'power_law'?)"),
-    (GOOD.replace('einstein_radius = 1.0', 'einstien_radius = 1.0'), [], "(did you mean 'einstein_radius'?)"),
-    (GOOD, ["--source-redshift", "0.4"], "source redshift must be greater than the lens redshift 0.5, got 0.4"),
-    (GOOD, ["--source-redshift", "0.5"], "source redshift must be greater than the lens redshift 0.5, got 0.5"),
+    (
+        GOOD.replace("einstein_radius = 1.0", "einstien_radius = 1.0"),
+        [],
+        "(did you mean 'einstein_radius'?)",
+    ),
+    (
+        GOOD,
+        ["--source-redshift", "0.4"],
+        "source redshift must be greater than the lens redshift 0.5, got 0.4",
+    ),
+    (
+        GOOD,
+        ["--source-redshift", "0.5"],
+        "source redshift must be greater than the lens redshift 0.5, got 0.5",
+    ),
     ("[[mass]\nprofile=", [], "is not valid TOML"),
     ("", [], "is empty"),
 ]

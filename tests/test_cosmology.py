@@ -1,4 +1,5 @@
 """Distances: astropy as the reference, plus closed forms and handbook figures."""
+
 import numpy as np
 import pytest
 from astropy import constants as const
@@ -6,7 +7,12 @@ from astropy import units as u
 from astropy.cosmology import FlatLambdaCDM, Planck18, z_at_value
 
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY, cosmology_from_spec
-from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2, DelayDistanceTable, LensDistances, time_dilation
+from lensdelay.lensing.distances import (
+    DAYS_PER_MPC_ARCSEC2,
+    DelayDistanceTable,
+    LensDistances,
+    time_dilation,
+)
 from lensdelay.errors import InputError
 
 C_KMS = const.c.to_value(u.km / u.s)
@@ -21,7 +27,9 @@ def test_einstein_de_sitter_closed_form():
         assert lens.source_distance(z).to_value(u.Mpc) == pytest.approx(closed, rel=1e-9)
     # D_ls in a flat universe = (D_C(z_s) − D_C(z_l)) / (1 + z_s) (Hogg 1999, eq. 19)
     dc = lambda z: 2 * C_KMS / 70.0 * (1 - 1 / np.sqrt(1 + z))  # noqa: E731
-    assert lens.lens_source_distance(2.0).to_value(u.Mpc) == pytest.approx((dc(2.0) - dc(0.5)) / 3.0, rel=1e-9)
+    assert lens.lens_source_distance(2.0).to_value(u.Mpc) == pytest.approx(
+        (dc(2.0) - dc(0.5)) / 3.0, rel=1e-9
+    )
 
 
 def test_time_delay_distance_matches_astropy():
@@ -30,7 +38,9 @@ def test_time_delay_distance_matches_astropy():
     dl = Planck18.angular_diameter_distance(0.48)
     ds = Planck18.angular_diameter_distance(1.62)
     dls = Planck18.angular_diameter_distance(0.48, 1.62)
-    assert lens.time_delay_distance(1.62).to_value(u.Mpc) == pytest.approx((1.48 * dl * ds / dls).to_value(u.Mpc), rel=1e-12)
+    assert lens.time_delay_distance(1.62).to_value(u.Mpc) == pytest.approx(
+        (1.48 * dl * ds / dls).to_value(u.Mpc), rel=1e-12
+    )
 
 
 def test_deflection_scale():
@@ -45,7 +55,9 @@ def test_rule_of_thumb_days_per_gpc_arcsec2():
     assert 1000.0 * DAYS_PER_MPC_ARCSEC2 == pytest.approx(28.0, abs=0.05)
 
 
-@pytest.mark.parametrize("gyr, lo, hi", [(1.0, 1.036, 1.036), (5.0, 6.06, 6.09), (10.0, 15.9, 16.0)])
+@pytest.mark.parametrize(
+    "gyr, lo, hi", [(1.0, 1.036, 1.036), (5.0, 6.06, 6.09), (10.0, 15.9, 16.0)]
+)
 def test_light_travel_vs_comoving_distance(gyr, lo, hi):
     """Light that travelled 1/5/10 Gyr left a source now ≈ 1.036 / 6.06-6.09 / 15.9-16.0
     billion light years away, Planck-2018-like cosmology (common practice; 1.5 % tolerance)."""
@@ -68,16 +80,23 @@ def test_fast_table_accuracy_and_exact_h0_scaling(rng):
     om = rng.uniform(0.1, 0.6, 8)
     fast = table(h0, om)
     for f, h, o in zip(fast, h0, om):
-        ref = LensDistances(FlatLambdaCDM(H0=h, Om0=o, Tcmb0=0.0), 0.5, 2.1).time_delay_distance(2.1).to_value(u.Mpc)
+        ref = (
+            LensDistances(FlatLambdaCDM(H0=h, Om0=o, Tcmb0=0.0), 0.5, 2.1)
+            .time_delay_distance(2.1)
+            .to_value(u.Mpc)
+        )
         assert f == pytest.approx(ref, rel=1e-6)
 
 
-@pytest.mark.parametrize("spec, text", [
-    ({"name": "Planck99"}, "cosmology.name must be one of"),
-    ({"H0": 70.0}, "missing 'Om0'"),
-    ({"H0": -5.0, "Om0": 0.3}, "cosmology.H0 must be between"),
-    ({"H0": 70.0, "Om0": 0.0}, r"cosmology.Om0 must be in \(0, 1.5\]"),
-])
+@pytest.mark.parametrize(
+    "spec, text",
+    [
+        ({"name": "Planck99"}, "cosmology.name must be one of"),
+        ({"H0": 70.0}, "missing 'Om0'"),
+        ({"H0": -5.0, "Om0": 0.3}, "cosmology.H0 must be between"),
+        ({"H0": 70.0, "Om0": 0.0}, r"cosmology.Om0 must be in \(0, 1.5\]"),
+    ],
+)
 def test_bad_cosmology(spec, text):
     """Bad [cosmology] tables are refused with the field named (brief: bad input)."""
     with pytest.raises(InputError, match=text):

@@ -1,4 +1,5 @@
 """Faults and reproducibility (issue 6): interrupted sampling, resume, degenerate geometry."""
+
 import json
 import signal
 import subprocess
@@ -13,6 +14,8 @@ from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles import IsothermalEllipsoid, NFWHalo
 from lensdelay.lensing.critical import critical_lines
 from lensdelay.io.storage import atomic_write_json, load_npz
+
+pytestmark = pytest.mark.integration
 
 DOUBLE = """
 [lens]
@@ -41,8 +44,13 @@ position_angle = { value = 0.0 }
 
 
 def _run(args, **kw):
-    return subprocess.Popen([sys.executable, "-m", "lensdelay", *args], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, **kw)
+    return subprocess.Popen(
+        [sys.executable, "-m", "lensdelay", *args],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        **kw,
+    )
 
 
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
@@ -51,7 +59,18 @@ def test_signal_during_sampling_keeps_checkpoint_and_resume_matches(tmp_path, si
     same samples as an uninterrupted run with the same seed."""
     scen = tmp_path / "double.toml"
     scen.write_text(DOUBLE)
-    args = ["fit", str(scen), "--sample", "--steps", "2400", "--walkers", "12", "--seed", "3", "--quiet"]
+    args = [
+        "fit",
+        str(scen),
+        "--sample",
+        "--steps",
+        "2400",
+        "--walkers",
+        "12",
+        "--seed",
+        "3",
+        "--quiet",
+    ]
     full = _run(args + ["--out", str(tmp_path / "full")])
     assert full.wait(timeout=300) == 0, full.stderr.read()
     part = tmp_path / "part"
@@ -77,16 +96,22 @@ def test_signal_during_sampling_keeps_checkpoint_and_resume_matches(tmp_path, si
 
 def test_json_never_holds_nan(tmp_path):
     """Non-finite numbers are written as null, never as NaN (RFC 8259 has no NaN)."""
-    atomic_write_json(tmp_path / "x.json", {"a": float("nan"), "b": [np.inf, 1.0], "c": np.float64(2)})
+    atomic_write_json(
+        tmp_path / "x.json", {"a": float("nan"), "b": [np.inf, 1.0], "c": np.float64(2)}
+    )
     doc = json.loads((tmp_path / "x.json").read_text())
     assert doc == {"a": None, "b": [None, 1.0], "c": 2.0}
 
 
-@pytest.mark.parametrize("lens", [
-    Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.0),)),
-    Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.7, core=0.1),)),
-    Lens((NFWHalo(kappa_s=0.6, scale_radius=3.0),)),
-], ids=["round", "cored", "NFW"])
+@pytest.mark.parametrize(
+    "lens",
+    [
+        Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.0),)),
+        Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.7, core=0.1),)),
+        Lens((NFWHalo(kappa_s=0.6, scale_radius=3.0),)),
+    ],
+    ids=["round", "cored", "NFW"],
+)
 def test_degenerate_sources_give_finite_images(lens):
     """A source at r = 0, at q = 1, and on a caustic: finite numbers, never NaN."""
     lines = critical_lines(lens, extent=3.0)

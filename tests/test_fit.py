@@ -1,4 +1,6 @@
-"""Fitting: injection-recovery of simulated systems, constraint counting, sampler reproducibility."""
+"""Fitting: injection-recovery of simulated systems, constraint counting, sampler
+reproducibility."""
+
 import warnings
 
 import numpy as np
@@ -9,17 +11,33 @@ from lensdelay.inference.fit import delay_errors, fit, observed_delays
 from lensdelay.lensing.lens import Lens
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import sample
-from lensdelay.lensing.profiles import EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, SingularIsothermalSphere
+from lensdelay.lensing.profiles import (
+    EllipticalPowerLaw,
+    ExternalShear,
+    IsothermalEllipsoid,
+    SingularIsothermalSphere,
+)
 from lensdelay.model.scenario import parse_scenario
 from lensdelay.model.simulate import simulate_family
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
 from lensdelay.lensing.distances import LensDistances
 
+pytestmark = pytest.mark.integration
+
 SIE_SHEAR = [
-    {"profile": "SIE", "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0},
-     "axis_ratio": {"value": 0.8, "min": 0.2, "max": 1.0}, "position_angle": {"value": 0.0},
-     "x": {"value": 0.0, "min": -0.5, "max": 0.5}, "y": {"value": 0.0, "min": -0.5, "max": 0.5}},
-    {"profile": "shear", "strength": {"value": 0.03, "min": 0.0, "max": 0.3}, "position_angle": {"value": 0.0}},
+    {
+        "profile": "SIE",
+        "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0},
+        "axis_ratio": {"value": 0.8, "min": 0.2, "max": 1.0},
+        "position_angle": {"value": 0.0},
+        "x": {"value": 0.0, "min": -0.5, "max": 0.5},
+        "y": {"value": 0.0, "min": -0.5, "max": 0.5},
+    },
+    {
+        "profile": "shear",
+        "strength": {"value": 0.03, "min": 0.0, "max": 0.3},
+        "position_angle": {"value": 0.0},
+    },
 ]
 
 
@@ -40,7 +58,12 @@ def _check_recovery(result, truth, nsig=3.0):
         diff = result.values[i] - value
         if name.endswith("position_angle"):
             diff = _wrapped(result.values[i], value)
-        assert abs(diff) < nsig * result.errors[i] + 1e-9, (name, result.values[i], value, result.errors[i])
+        assert abs(diff) < nsig * result.errors[i] + 1e-9, (
+            name,
+            result.values[i],
+            value,
+            result.errors[i],
+        )
 
 
 QUADS = {
@@ -53,17 +76,30 @@ QUADS = {
 @pytest.mark.parametrize("kind", QUADS)
 def test_sie_shear_quads_recovered(kind):
     """Injection-recovery: SIE+shear quads (issue 3), parameters within 3σ, delays within 2σ."""
-    truth_lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0, x=0.0, y=0.0),
-                       ExternalShear(strength=0.05, position_angle=-40.0)))
+    truth_lens = Lens(
+        (
+            IsothermalEllipsoid(
+                einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0, x=0.0, y=0.0
+            ),
+            ExternalShear(strength=0.05, position_angle=-40.0),
+        )
+    )
     rng = np.random.default_rng(11)
     fam = simulate_family(truth_lens, *QUADS[kind], label="s", redshift=1.5, sigma=0.003, rng=rng)
     assert len(fam["image"]) == 4
     sc = _scenario([fam], SIE_SHEAR)
     like = ImageLikelihood(sc, sc.model)
     res = fit(like)
-    _check_recovery(res, {"mass[0].einstein_radius": 1.1, "mass[0].axis_ratio": 0.7,
-                          "mass[0].position_angle": 20.0, "mass[1].strength": 0.05,
-                          "mass[1].position_angle": -40.0})
+    _check_recovery(
+        res,
+        {
+            "mass[0].einstein_radius": 1.1,
+            "mass[0].axis_ratio": 0.7,
+            "mass[0].position_angle": 20.0,
+            "mass[1].strength": 0.05,
+            "mass[1].position_angle": -40.0,
+        },
+    )
     # delays from the true model vs the fitted ones
     true_like = ImageLikelihood(sc, sc.model)
     truth_vec = np.array([1.1, 0.7, 20.0, 0.0, 0.0, 0.05, -40.0, *QUADS[kind]])
@@ -74,12 +110,28 @@ def test_sie_shear_quads_recovered(kind):
 
 def test_sis_shear_double_recovered_and_exactly_constrained():
     """SIS+shear double with lens-light centre and a shear prior: 0 dof is reported, not hidden."""
-    truth_lens = Lens((SingularIsothermalSphere(einstein_radius=0.9), ExternalShear(strength=0.03, position_angle=50.0)))
-    fam = simulate_family(truth_lens, 0.2, -0.1, label="q", redshift=2.0, sigma=0.003, rng=np.random.default_rng(5))
-    mass = [{"profile": "SIS", "einstein_radius": {"value": 1.0, "min": 0.1, "max": 3.0},
-             "x": {"value": 0.0, "min": -0.5, "max": 0.5}, "y": {"value": 0.0, "min": -0.5, "max": 0.5}},
-            {"profile": "shear", "strength": {"value": 0.03, "min": 0, "max": 0.3, "prior": [0.03, 0.02]},
-             "position_angle": {"value": 10.0}}]
+    truth_lens = Lens(
+        (
+            SingularIsothermalSphere(einstein_radius=0.9),
+            ExternalShear(strength=0.03, position_angle=50.0),
+        )
+    )
+    fam = simulate_family(
+        truth_lens, 0.2, -0.1, label="q", redshift=2.0, sigma=0.003, rng=np.random.default_rng(5)
+    )
+    mass = [
+        {
+            "profile": "SIS",
+            "einstein_radius": {"value": 1.0, "min": 0.1, "max": 3.0},
+            "x": {"value": 0.0, "min": -0.5, "max": 0.5},
+            "y": {"value": 0.0, "min": -0.5, "max": 0.5},
+        },
+        {
+            "profile": "shear",
+            "strength": {"value": 0.03, "min": 0, "max": 0.3, "prior": [0.03, 0.02]},
+            "position_angle": {"value": 10.0},
+        },
+    ]
     sc = _scenario([fam], mass)
     like = ImageLikelihood(sc, sc.model)
     assert like.dof == 0
@@ -90,33 +142,68 @@ def test_sis_shear_double_recovered_and_exactly_constrained():
 
 def test_power_law_quad_recovered():
     """Injection-recovery: power-law + shear quad with a slope prior (issue 3)."""
-    truth_lens = Lens((EllipticalPowerLaw(einstein_radius=1.2, slope=2.1, axis_ratio=0.75, position_angle=-30.0),
-                       ExternalShear(strength=0.04, position_angle=70.0)))
-    fam = simulate_family(truth_lens, 0.03, -0.02, label="s", redshift=1.8, sigma=0.002, rng=np.random.default_rng(2))
+    truth_lens = Lens(
+        (
+            EllipticalPowerLaw(
+                einstein_radius=1.2, slope=2.1, axis_ratio=0.75, position_angle=-30.0
+            ),
+            ExternalShear(strength=0.04, position_angle=70.0),
+        )
+    )
+    fam = simulate_family(
+        truth_lens, 0.03, -0.02, label="s", redshift=1.8, sigma=0.002, rng=np.random.default_rng(2)
+    )
     assert len(fam["image"]) == 4
-    mass = [dict(SIE_SHEAR[0], profile="power_law", slope={"value": 2.0, "min": 1.6, "max": 2.4, "prior": [2.0, 0.15]}),
-            SIE_SHEAR[1]]
+    mass = [
+        dict(
+            SIE_SHEAR[0],
+            profile="power_law",
+            slope={"value": 2.0, "min": 1.6, "max": 2.4, "prior": [2.0, 0.15]},
+        ),
+        SIE_SHEAR[1],
+    ]
     sc = _scenario([fam], mass)
     res = fit(ImageLikelihood(sc, sc.model))
-    _check_recovery(res, {"mass[0].einstein_radius": 1.2, "mass[0].axis_ratio": 0.75,
-                          "mass[0].position_angle": -30.0, "mass[1].strength": 0.04})
+    _check_recovery(
+        res,
+        {
+            "mass[0].einstein_radius": 1.2,
+            "mass[0].axis_ratio": 0.75,
+            "mass[0].position_angle": -30.0,
+            "mass[1].strength": 0.04,
+        },
+    )
 
 
 def test_two_families_at_two_redshifts():
     """Two families behind one SIE+shear: the more distant one sees larger deflections
     by (D_ls/D_s)(z2)/(D_ls/D_s)(z1) (CONVENTIONS.md); fitting both recovers the lens."""
     z_l, z1, z2 = 0.4, 1.2, 2.8
-    truth_lens = Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.75, position_angle=10.0),
-                       ExternalShear(strength=0.04, position_angle=-60.0)))
+    truth_lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.75, position_angle=10.0),
+            ExternalShear(strength=0.04, position_angle=-60.0),
+        )
+    )
     scale2 = LensDistances(DEFAULT_COSMOLOGY, z_l, z1).deflection_scale(z2)
     rng = np.random.default_rng(9)
     f1 = simulate_family(truth_lens, 0.03, 0.02, label="near", redshift=z1, sigma=0.003, rng=rng)
-    f2 = simulate_family(truth_lens, -0.05, 0.04, label="far", redshift=z2, scale=scale2, sigma=0.003, rng=rng,
-                         labels="PQRS")
+    f2 = simulate_family(
+        truth_lens,
+        -0.05,
+        0.04,
+        label="far",
+        redshift=z2,
+        scale=scale2,
+        sigma=0.003,
+        rng=rng,
+        labels="PQRS",
+    )
     sc = _scenario([f1, f2], SIE_SHEAR, z_l=z_l)
     res = fit(ImageLikelihood(sc, sc.model))
-    _check_recovery(res, {"mass[0].einstein_radius": 1.0, "mass[0].axis_ratio": 0.75,
-                          "mass[1].strength": 0.04})
+    _check_recovery(
+        res, {"mass[0].einstein_radius": 1.0, "mass[0].axis_ratio": 0.75, "mass[1].strength": 0.04}
+    )
 
 
 def test_underconstrained_is_refused():
@@ -144,11 +231,23 @@ def test_missing_image_is_penalised_not_ignored():
 
 def test_sampler_same_seed_same_chain_and_resume(tmp_path):
     """A fixed seed gives identical chains; an interrupted run resumed gives the same chain."""
-    lens = Lens((SingularIsothermalSphere(einstein_radius=1.0), ExternalShear(strength=0.05, position_angle=30.0)))
-    fam = simulate_family(lens, 0.05, 0.02, label="q", redshift=2.0, sigma=0.003, rng=np.random.default_rng(1))
-    mass = [{"profile": "SIS", "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0}},
-            {"profile": "shear", "strength": {"value": 0.03, "min": 0, "max": 0.3, "prior": [0.05, 0.02]},
-             "position_angle": {"value": 0.0}}]
+    lens = Lens(
+        (
+            SingularIsothermalSphere(einstein_radius=1.0),
+            ExternalShear(strength=0.05, position_angle=30.0),
+        )
+    )
+    fam = simulate_family(
+        lens, 0.05, 0.02, label="q", redshift=2.0, sigma=0.003, rng=np.random.default_rng(1)
+    )
+    mass = [
+        {"profile": "SIS", "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0}},
+        {
+            "profile": "shear",
+            "strength": {"value": 0.03, "min": 0, "max": 0.3, "prior": [0.05, 0.02]},
+            "position_angle": {"value": 0.0},
+        },
+    ]
     sc = _scenario([fam], mass, lens_light=None)
     like = ImageLikelihood(sc, sc.model)
     with warnings.catch_warnings():
@@ -159,8 +258,10 @@ def test_sampler_same_seed_same_chain_and_resume(tmp_path):
         warnings.simplefilter("ignore", LensdelayWarning)
         full = sample(like, res.values, steps=150, checkpoint_dir=tmp_path / "a", **kw)
         again = sample(like, res.values, steps=150, **kw)
-        sample(like, res.values, steps=100, checkpoint_dir=tmp_path / "b", **kw)   # "interrupted"
-        resumed = sample(like, res.values, steps=150, checkpoint_dir=tmp_path / "b", resume=True, **kw)
+        sample(like, res.values, steps=100, checkpoint_dir=tmp_path / "b", **kw)  # "interrupted"
+        resumed = sample(
+            like, res.values, steps=150, checkpoint_dir=tmp_path / "b", resume=True, **kw
+        )
     np.testing.assert_array_equal(full.chain, again.chain)
     np.testing.assert_array_equal(full.chain, resumed.chain)
     assert 0.05 < full.acceptance.mean() < 0.95
@@ -169,26 +270,40 @@ def test_sampler_same_seed_same_chain_and_resume(tmp_path):
 def test_flux_ratios_add_constraints_and_are_fitted():
     """Flux ratios as magnitude differences with a 0.2 mag floor: n_img − 1 more constraints,
     and the model's magnification ratios reproduce noise-free simulated ones (issue 3)."""
-    truth_lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
-                       ExternalShear(strength=0.05, position_angle=-40.0)))
-    fam = simulate_family(truth_lens, 0.02, 0.015, label="s", redshift=1.5, sigma=0.003, rng=np.random.default_rng(3))
+    truth_lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+            ExternalShear(strength=0.05, position_angle=-40.0),
+        )
+    )
+    fam = simulate_family(
+        truth_lens, 0.02, 0.015, label="s", redshift=1.5, sigma=0.003, rng=np.random.default_rng(3)
+    )
     sc = _scenario([fam], SIE_SHEAR)
     plain = ImageLikelihood(sc, sc.model)
     with_flux = ImageLikelihood(sc, sc.model, use_fluxes=True)
     assert with_flux.n_constraints == plain.n_constraints + 3
     res = fit(with_flux)
     flux_rows = with_flux.residuals(res.values)[0][-3:]
-    assert np.all(np.abs(flux_rows) < 1.0)    # within the 0.2 mag floor
+    assert np.all(np.abs(flux_rows) < 1.0)  # within the 0.2 mag floor
 
 
 def _three_of_four(drop: str):
     """The calibration quad with one image left out of the observations."""
-    truth_lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
-                       ExternalShear(strength=0.05, position_angle=-40.0)))
-    fam = simulate_family(truth_lens, 0.03, 0.02, label="s", redshift=1.5, sigma=0.003, rng=np.random.default_rng(8))
+    truth_lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+            ExternalShear(strength=0.05, position_angle=-40.0),
+        )
+    )
+    fam = simulate_family(
+        truth_lens, 0.03, 0.02, label="s", redshift=1.5, sigma=0.003, rng=np.random.default_rng(8)
+    )
     fam["image"] = [im for im in fam["image"] if im["label"] != drop]
-    mass = [dict(SIE_SHEAR[0], axis_ratio={"value": 0.8, "min": 0.2, "max": 1.0, "prior": [0.7, 0.05]}),
-            dict(SIE_SHEAR[1], strength={"value": 0.03, "min": 0.0, "max": 0.3, "prior": [0.05, 0.02]})]
+    mass = [
+        dict(SIE_SHEAR[0], axis_ratio={"value": 0.8, "min": 0.2, "max": 1.0, "prior": [0.7, 0.05]}),
+        dict(SIE_SHEAR[1], strength={"value": 0.03, "min": 0.0, "max": 0.3, "prior": [0.05, 0.02]}),
+    ]
     sc = _scenario([fam], mass)
     like = ImageLikelihood(sc, sc.model)
     with warnings.catch_warnings():

@@ -1,4 +1,5 @@
 """Forecast: dates, past images, observability, outputs (issue 4)."""
+
 import json
 import warnings
 
@@ -20,9 +21,15 @@ from lensdelay.model.scenario import Site, parse_date
 from lensdelay.forecast.observability import altitudes, build_calendar
 from lensdelay.model.simulate import simulate_family, to_toml
 
+pytestmark = pytest.mark.integration
+
 FAST = dict(walkers=20, steps=300, n_samples=4000, progress=False)
-QUAD_TRUTH = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
-                   ExternalShear(strength=0.05, position_angle=-40.0)))
+QUAD_TRUTH = Lens(
+    (
+        IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+        ExternalShear(strength=0.05, position_angle=-40.0),
+    )
+)
 
 
 def test_j2000_epoch():
@@ -34,25 +41,32 @@ def test_j2000_epoch():
     assert later.tt.jd == pytest.approx(2451545.0 + 365.25, abs=1e-8)
 
 
-@pytest.mark.parametrize("iso, dec", [
-    ("2000-03-20T07:35:00", 0.0),       # March equinox 2000 (from memory): δ_sun ≈ 0
-    ("2027-06-21T08:11:00", 23.44),     # June solstice 2027 (from memory): δ_sun ≈ +ε
-    ("2027-12-22T03:42:00", -23.44),    # December solstice 2027 (from memory): δ_sun ≈ −ε
-])
+@pytest.mark.parametrize(
+    "iso, dec",
+    [
+        ("2000-03-20T07:35:00", 0.0),  # March equinox 2000 (from memory): δ_sun ≈ 0
+        ("2027-06-21T08:11:00", 23.44),  # June solstice 2027 (from memory): δ_sun ≈ +ε
+        ("2027-12-22T03:42:00", -23.44),  # December solstice 2027 (from memory): δ_sun ≈ −ε
+    ],
+)
 def test_sun_declination_at_equinox_and_solstices(iso, dec):
-    """The Sun's declination at equinox/solstice instants (obliquity ε = 23.44°, Astronomical Almanac)."""
+    """The Sun's declination at equinox/solstice instants (obliquity ε = 23.44°, Astronomical
+    Almanac)."""
     sun = get_sun(Time(iso, scale="utc"))
     assert sun.dec.deg == pytest.approx(dec, abs=0.05)
 
 
 def test_fast_altitudes_match_full_altaz_transform():
-    """Our hour-angle altitudes agree with astropy's AltAz transform within 0.6° (refraction ignored)."""
+    """Our hour-angle altitudes agree with astropy's AltAz transform within 0.6° (refraction
+    ignored)."""
     site = Site("ground", latitude=-30.24, longitude=-70.74, height=2700.0)
     target = SkyCoord(187.33 * u.deg, -12.45 * u.deg)
     start = Time("2027-02-10", scale="utc")
     grid = np.linspace(0, 3, 37)
     sun_alt, tgt_alt = altitudes(site, target, start, grid, 4)
-    loc = EarthLocation.from_geodetic(site.longitude * u.deg, site.latitude * u.deg, site.height * u.m)
+    loc = EarthLocation.from_geodetic(
+        site.longitude * u.deg, site.latitude * u.deg, site.height * u.m
+    )
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         frame = AltAz(obstime=start + grid * u.day, location=loc)
@@ -62,11 +76,17 @@ def test_fast_altitudes_match_full_altaz_transform():
     assert np.max(np.abs(tgt_alt - ref_tgt)) < 0.6
 
 
-@pytest.mark.parametrize("site", [Site("ground", latitude=19.8, longitude=-155.5, height=4200.0),
-                                  Site("ground", latitude=-30.2, longitude=-70.7, height=2700.0),
-                                  Site("space", solar_elongation=(45.0, 135.0))])
+@pytest.mark.parametrize(
+    "site",
+    [
+        Site("ground", latitude=19.8, longitude=-155.5, height=4200.0),
+        Site("ground", latitude=-30.2, longitude=-70.7, height=2700.0),
+        Site("space", solar_elongation=(45.0, 135.0)),
+    ],
+)
 def test_target_next_to_the_sun_is_never_observable(site):
-    """A target 2° from the Sun cannot be observed at night or within an elongation limit (common practice)."""
+    """A target 2° from the Sun cannot be observed at night or within an elongation limit
+    (common practice)."""
     when = Time("2027-07-01T00:00:00", scale="utc")
     sun = get_sun(when)
     target = SkyCoord(sun.ra + 2 * u.deg, sun.dec)
@@ -76,14 +96,26 @@ def test_target_next_to_the_sun_is_never_observable(site):
 
 def _sis_like_scenario(tmp_path, seen_in="A", date_sigma=0.0, sigma=1e-5):
     lens = Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.0),))
-    fam = simulate_family(lens, 0.25, 0.0, label="q", redshift=2.0, sigma=sigma, rng=np.random.default_rng(0))
+    fam = simulate_family(
+        lens, 0.25, 0.0, label="q", redshift=2.0, sigma=sigma, rng=np.random.default_rng(0)
+    )
     # RA 115° is near opposition in January: observable from the site every night
-    doc = {"name": "Test SIS", "lens": {"redshift": 0.5}, "sky": {"ra": 115.0, "dec": -20.0},
-           "cosmology": {"H0": 70.0, "Om0": 0.3}, "family": [fam],
-           "transient": {"family": "q", "seen_in": seen_in, "date": "2027-01-10", "date_sigma_days": date_sigma,
-                         "magnitude": 21.0},
-           "site": {"latitude": -30.0, "longitude": -70.0, "height": 2000.0},
-           "mass": [{"profile": "SIS", "einstein_radius": 1.0}]}
+    doc = {
+        "name": "Test SIS",
+        "lens": {"redshift": 0.5},
+        "sky": {"ra": 115.0, "dec": -20.0},
+        "cosmology": {"H0": 70.0, "Om0": 0.3},
+        "family": [fam],
+        "transient": {
+            "family": "q",
+            "seen_in": seen_in,
+            "date": "2027-01-10",
+            "date_sigma_days": date_sigma,
+            "magnitude": 21.0,
+        },
+        "site": {"latitude": -30.0, "longitude": -70.0, "height": 2000.0},
+        "mass": [{"profile": "SIS", "einstein_radius": 1.0}],
+    }
     path = tmp_path / "sis.toml"
     path.write_text(to_toml(doc))
     return path
@@ -94,15 +126,19 @@ def test_sis_end_to_end_date_is_detection_plus_closed_form_delay(tmp_path):
     path = _sis_like_scenario(tmp_path)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        res = run_forecast(str(path), h0=(70.0, 1e-9), kappa_ext=(0.0, 0.0), microlensing=0.0, **FAST)
+        res = run_forecast(
+            str(path), h0=(70.0, 1e-9), kappa_ext=(0.0, 0.0), microlensing=0.0, **FAST
+        )
     d_dt = LensDistances(DEFAULT_COSMOLOGY, 0.5, 2.0).time_delay_distance(2.0).to_value(u.Mpc)
     expected = d_dt * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.25
     b = next(im for im in res.images if im.label == "B")
     assert b.delay_days["median"] == pytest.approx(expected, rel=1e-4)
     from lensdelay.io.forecast_files import forecast_json
 
-    written = next(im for im in forecast_json(res)["images"] if im["label"] == "B")["date"]["median"]
-    true_date = Time("2027-01-10", scale="utc") + expected * u.day       # astropy Time arithmetic
+    written = next(im for im in forecast_json(res)["images"] if im["label"] == "B")["date"][
+        "median"
+    ]
+    true_date = Time("2027-01-10", scale="utc") + expected * u.day  # astropy Time arithmetic
     assert abs((Time(written.rstrip("Z"), scale="utc") - true_date).to_value(u.s)) < 60.0
     assert b.status == "future" and b.parity == "saddle" and b.arrival_rank == 2
 
@@ -127,8 +163,15 @@ def test_quad_true_dates_inside_95_windows(tmp_path):
     days = t.fermat * LensDistances(DEFAULT_COSMOLOGY, 0.4, 1.6).days_per_arcsec2(1.6)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        res = run_forecast(str(path), h0=(70.0, 3.0), kappa_ext=(0.0, 0.02), walkers=24, steps=800,
-                           n_samples=6000, progress=False)
+        res = run_forecast(
+            str(path),
+            h0=(70.0, 3.0),
+            kappa_ext=(0.0, 0.02),
+            walkers=24,
+            steps=800,
+            n_samples=6000,
+            progress=False,
+        )
     for im in res.images:
         if not im.observed:
             continue
@@ -139,19 +182,47 @@ def test_quad_true_dates_inside_95_windows(tmp_path):
 
 
 def test_forecast_outputs_and_calendar_parse(tmp_path, capsys):
-    """forecast.json keys of CONVENTIONS.md; forecast.ics parses with a general iCalendar library."""
+    """forecast.json keys of CONVENTIONS.md; forecast.ics parses with a general iCalendar
+    library."""
     import icalendar
+
     path = _sis_like_scenario(tmp_path, date_sigma=1.0, sigma=0.003)
     out = tmp_path / "out"
-    code = main(["forecast", str(path), "--out", str(out), "--samples", "2000", "--steps", "300",
-                 "--walkers", "20", "--quiet", "--now", "2027-01-01"])
+    code = main(
+        [
+            "forecast",
+            str(path),
+            "--out",
+            str(out),
+            "--samples",
+            "2000",
+            "--steps",
+            "300",
+            "--walkers",
+            "20",
+            "--quiet",
+            "--now",
+            "2027-01-01",
+        ]
+    )
     assert code == 0
     doc = json.loads((out / "forecast.json").read_text())
     for key in ("reference_image", "reference_family", "cosmology", "seed", "images"):
         assert key in doc
     for im in doc["images"]:
-        for key in ("family", "label", "observed", "x", "y", "parity", "arrival_rank",
-                    "delay_days", "magnification", "magnitude", "date"):
+        for key in (
+            "family",
+            "label",
+            "observed",
+            "x",
+            "y",
+            "parity",
+            "arrival_rank",
+            "delay_days",
+            "magnification",
+            "magnitude",
+            "date",
+        ):
             assert key in im
         assert set(im["date"]) == {"median", "p16", "p84", "p2.5", "p97.5"}
     cal = icalendar.Calendar.from_ical((out / "forecast.ics").read_bytes())
@@ -170,11 +241,22 @@ def test_forecast_outputs_and_calendar_parse(tmp_path, capsys):
 
 def _quad_path(tmp_path):
     """A noisy quad simulated from QUAD_TRUTH, seen in its first image on 2027-03-01."""
-    fam = simulate_family(QUAD_TRUTH, 0.03, 0.02, label="sn", redshift=1.6, sigma=0.003, rng=np.random.default_rng(4))
-    doc = {"lens": {"redshift": 0.4}, "family": [fam], "lens_light": {"x": 0, "y": 0, "sigma": 0.01},
-           "transient": {"family": "sn", "seen_in": "A", "date": "2027-03-01", "date_sigma_days": 1.0,
-                         "magnitude": 22.0},
-           "model": "models/sie_shear.toml"}
+    fam = simulate_family(
+        QUAD_TRUTH, 0.03, 0.02, label="sn", redshift=1.6, sigma=0.003, rng=np.random.default_rng(4)
+    )
+    doc = {
+        "lens": {"redshift": 0.4},
+        "family": [fam],
+        "lens_light": {"x": 0, "y": 0, "sigma": 0.01},
+        "transient": {
+            "family": "sn",
+            "seen_in": "A",
+            "date": "2027-03-01",
+            "date_sigma_days": 1.0,
+            "magnitude": 22.0,
+        },
+        "model": "models/sie_shear.toml",
+    }
     path = tmp_path / "quad.toml"
     path.write_text(to_toml(doc))
     return path
@@ -187,7 +269,9 @@ def test_updating_on_a_further_image_shrinks_the_others(tmp_path):
         warnings.simplefilter("ignore", LensdelayWarning)
         base = run_forecast(str(path), **FAST)
         c = next(im for im in base.images if im.label == "C")
-        seen_date = (Time("2027-03-01", scale="utc") + c.date_offset_days["median"] * u.day).isot[:19]
+        seen_date = (Time("2027-03-01", scale="utc") + c.date_offset_days["median"] * u.day).isot[
+            :19
+        ]
         upd = run_forecast(str(path), seen=[f"C={seen_date}Z±0.5"], **FAST)
     d = next(im for im in upd.images if im.label == "D")
     assert d.interval95_change is not None and d.interval95_change < 1.0
@@ -200,7 +284,9 @@ def test_several_models_are_combined_with_weights(tmp_path):
     path = _quad_path(tmp_path)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        res = run_forecast(str(path), models=["models/sie_shear.toml", "models/power_law_shear.toml"], **FAST)
+        res = run_forecast(
+            str(path), models=["models/sie_shear.toml", "models/power_law_shear.toml"], **FAST
+        )
     assert res.model_labels == ("sie_shear", "power_law_shear")
     assert res.model_weights.sum() == pytest.approx(1.0)
     d = next(im for im in res.images if im.label == "D")
@@ -208,11 +294,14 @@ def test_several_models_are_combined_with_weights(tmp_path):
     assert d.model_spread_days >= 0.0
 
 
-@pytest.mark.parametrize("change, message", [
-    (("2027-01-10", "10/01/2027"), "transient.date must be an ISO 8601 date"),
-    (('seen_in = "A"', 'seen_in = "Z"'), "transient.seen_in must be an image of family"),
-    (("latitude = -30.0", "latitude = -95.0"), "site.latitude must be >= -90"),
-])
+@pytest.mark.parametrize(
+    "change, message",
+    [
+        (("2027-01-10", "10/01/2027"), "transient.date must be an ISO 8601 date"),
+        (('seen_in = "A"', 'seen_in = "Z"'), "transient.seen_in must be an image of family"),
+        (("latitude = -30.0", "latitude = -95.0"), "site.latitude must be >= -90"),
+    ],
+)
 def test_bad_forecast_input_exit_2_nothing_written(tmp_path, capsys, change, message):
     path = _sis_like_scenario(tmp_path)
     path.write_text(path.read_text().replace(*change))
@@ -226,7 +315,7 @@ def test_bad_forecast_input_exit_2_nothing_written(tmp_path, capsys, change, mes
 def test_bad_elongation_range(tmp_path, capsys):
     path = _sis_like_scenario(tmp_path)
     text = path.read_text().split("[site]")[0] + "[site]\nsolar_elongation = [30.0, 200.0]\n"
-    text += "\n[[mass]]\nprofile = \"SIS\"\neinstein_radius = 1.0\n"
+    text += '\n[[mass]]\nprofile = "SIS"\neinstein_radius = 1.0\n'
     path.write_text(text)
     assert main(["check", str(path)]) == 2
     assert "site.solar_elongation must satisfy 0 <= min < max <= 180" in capsys.readouterr().err

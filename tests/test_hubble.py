@@ -1,4 +1,5 @@
 """H0 dependence, mass-sheet degeneracy and the uncertainty budget (issue 5)."""
+
 import warnings
 
 import numpy as np
@@ -13,15 +14,27 @@ from lensdelay.errors import LensdelayWarning
 from lensdelay.api import infer_h0 as run_hubble
 from lensdelay.lensing.images import find_images
 from lensdelay.lensing.lens import Lens
-from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid, MassSheet, SingularIsothermalSphere
+from lensdelay.lensing.profiles import (
+    ExternalShear,
+    IsothermalEllipsoid,
+    MassSheet,
+    SingularIsothermalSphere,
+)
 from lensdelay.model.simulate import simulate_family, to_toml
+
+pytestmark = pytest.mark.integration
 
 
 @pytest.mark.parametrize("h0", [55.0, 67.4, 82.0])
 def test_delays_scale_exactly_as_inverse_h0(h0):
-    """Without radiation every distance is c/H0 × f(z, Ωm), so D_dt ∝ 1/H0 exactly (Hogg 1999, eq. 14)."""
-    ref = LensDistances(FlatLambdaCDM(H0=70.0, Om0=0.3, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
-    other = LensDistances(FlatLambdaCDM(H0=h0, Om0=0.3, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
+    """Without radiation every distance is c/H0 × f(z, Ωm), so D_dt ∝ 1/H0 exactly (Hogg 1999,
+    eq. 14)."""
+    ref = LensDistances(FlatLambdaCDM(H0=70.0, Om0=0.3, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(
+        2.0
+    )
+    other = LensDistances(FlatLambdaCDM(H0=h0, Om0=0.3, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(
+        2.0
+    )
     assert (other / ref).decompose().value == pytest.approx(70.0 / h0, rel=1e-12)
 
 
@@ -30,10 +43,19 @@ def test_mass_sheet_transformation(kappa):
     """Falco, Gorenstein & Shapiro 1985: (1−κ)·lens + sheet κ, source × (1−κ): same images,
     same flux ratios, every delay × (1−κ)."""
     lam = 1 - kappa
-    lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=25.0),
-                 ExternalShear(strength=0.06, position_angle=-30.0)))
-    msd = Lens((IsothermalEllipsoid(einstein_radius=1.1 * lam, axis_ratio=0.7, position_angle=25.0),
-                ExternalShear(strength=0.06 * lam, position_angle=-30.0), MassSheet(convergence_value=kappa)))
+    lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=25.0),
+            ExternalShear(strength=0.06, position_angle=-30.0),
+        )
+    )
+    msd = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.1 * lam, axis_ratio=0.7, position_angle=25.0),
+            ExternalShear(strength=0.06 * lam, position_angle=-30.0),
+            MassSheet(convergence_value=kappa),
+        )
+    )
     a = find_images(lens, [0.03], [0.02])
     b = find_images(msd, [0.03 * lam], [0.02 * lam])
     assert len(a) == len(b) == 4
@@ -42,20 +64,40 @@ def test_mass_sheet_transformation(kappa):
     np.testing.assert_allclose(b.y[order_b], a.y, atol=1e-9)
     mu_a, mu_b = a.magnification, b.magnification[order_b]
     np.testing.assert_allclose(mu_b / mu_b[0], mu_a / mu_a[0], rtol=1e-8)
-    np.testing.assert_allclose(b.fermat[order_b] - b.fermat[order_b][0], lam * (a.fermat - a.fermat[0]),
-                               rtol=1e-8, atol=1e-12)
+    np.testing.assert_allclose(
+        b.fermat[order_b] - b.fermat[order_b][0],
+        lam * (a.fermat - a.fermat[0]),
+        rtol=1e-8,
+        atol=1e-12,
+    )
 
 
 def _double_scenario(tmp_path, h0_true=70.0, sigma_frac=0.02):
     te, beta, z_l, z_s = 1.0, 0.3, 0.5, 2.0
     lens = Lens((SingularIsothermalSphere(einstein_radius=te),))
-    fam = simulate_family(lens, beta, 0.0, label="q", redshift=z_s, sigma=1e-5, rng=np.random.default_rng(0))
-    d_dt = LensDistances(FlatLambdaCDM(H0=h0_true, Om0=0.3, Tcmb0=0.0), z_l, z_s).time_delay_distance(z_s)
+    fam = simulate_family(
+        lens, beta, 0.0, label="q", redshift=z_s, sigma=1e-5, rng=np.random.default_rng(0)
+    )
+    d_dt = LensDistances(
+        FlatLambdaCDM(H0=h0_true, Om0=0.3, Tcmb0=0.0), z_l, z_s
+    ).time_delay_distance(z_s)
     theta_a, theta_b = te + beta, te - beta
-    days = d_dt.to_value(u.Mpc) * DAYS_PER_MPC_ARCSEC2 * (theta_a ** 2 - theta_b ** 2) / 2
-    doc = {"lens": {"redshift": z_l}, "cosmology": {"H0": 70.0, "Om0": 0.3}, "family": [fam],
-           "delay": [{"family": "q", "image": "B", "relative_to": "A", "days": days, "sigma": sigma_frac * days}],
-           "mass": [{"profile": "SIS", "einstein_radius": te}]}
+    days = d_dt.to_value(u.Mpc) * DAYS_PER_MPC_ARCSEC2 * (theta_a**2 - theta_b**2) / 2
+    doc = {
+        "lens": {"redshift": z_l},
+        "cosmology": {"H0": 70.0, "Om0": 0.3},
+        "family": [fam],
+        "delay": [
+            {
+                "family": "q",
+                "image": "B",
+                "relative_to": "A",
+                "days": days,
+                "sigma": sigma_frac * days,
+            }
+        ],
+        "mass": [{"profile": "SIS", "einstein_radius": te}],
+    }
     path = tmp_path / "double.toml"
     path.write_text(to_toml(doc))
     return path, days
@@ -66,9 +108,11 @@ def test_sis_h0_from_one_delay_matches_closed_form(tmp_path):
     path, days = _double_scenario(tmp_path, h0_true=64.0, sigma_frac=0.002)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        res = run_hubble(str(path), kappa_ext=(0.0, 0.0), om0=(0.3, 0.0), walkers=8, steps=400, progress=False)
+        res = run_hubble(
+            str(path), kappa_ext=(0.0, 0.0), om0=(0.3, 0.0), walkers=8, steps=400, progress=False
+        )
     assert res.h0["H0"]["median"] == pytest.approx(64.0, rel=0.005)
-    expected_ddt = 2 * days / DAYS_PER_MPC_ARCSEC2 / ((1.3) ** 2 - 0.7 ** 2)
+    expected_ddt = 2 * days / DAYS_PER_MPC_ARCSEC2 / ((1.3) ** 2 - 0.7**2)
     assert res.h0["D_dt_Mpc"]["median"] == pytest.approx(expected_ddt, rel=0.005)
     # the mass-sheet degeneracy: H0 ∝ (1 − κ_ext)
     comp = {tuple(k["kappa_ext"]): k["H0"]["median"] for k in res.kappa_comparison}
@@ -76,26 +120,48 @@ def test_sis_h0_from_one_delay_matches_closed_form(tmp_path):
 
 
 def test_quad_delays_at_chosen_h0_recovered(tmp_path):
-    """Injection-recovery: three delays simulated at H0 = 66 with 2% errors give H0 within 2σ (issue 5)."""
-    truth = Lens((IsothermalEllipsoid(einstein_radius=1.2, axis_ratio=0.7, position_angle=30.0),
-                  ExternalShear(strength=0.05, position_angle=-20.0)))
+    """Injection-recovery: three delays simulated at H0 = 66 with 2% errors give H0 within 2σ
+    (issue 5)."""
+    truth = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.2, axis_ratio=0.7, position_angle=30.0),
+            ExternalShear(strength=0.05, position_angle=-20.0),
+        )
+    )
     rng = np.random.default_rng(8)
     fam = simulate_family(truth, 0.05, 0.03, label="s", redshift=1.8, sigma=0.003, rng=rng)
     t = find_images(truth, [0.05], [0.03])
     t = t.select(np.abs(t.magnification) > 0.05)
-    scale = LensDistances(FlatLambdaCDM(H0=66.0, Om0=0.3, Tcmb0=0.0), 0.45, 1.8).days_per_arcsec2(1.8)
+    scale = LensDistances(FlatLambdaCDM(H0=66.0, Om0=0.3, Tcmb0=0.0), 0.45, 1.8).days_per_arcsec2(
+        1.8
+    )
     delays = []
     for k in range(1, len(t)):
         d = (t.fermat[k] - t.fermat[0]) * scale
-        delays.append({"family": "s", "image": fam["image"][k]["label"], "relative_to": "A",
-                       "days": d + rng.normal(0, 0.02 * abs(d)), "sigma": 0.02 * abs(d)})
-    doc = {"lens": {"redshift": 0.45}, "cosmology": {"H0": 70.0, "Om0": 0.3}, "family": [fam],
-           "lens_light": {"x": 0.0, "y": 0.0, "sigma": 0.01}, "delay": delays, "model": "models/sie_shear.toml"}
+        delays.append(
+            {
+                "family": "s",
+                "image": fam["image"][k]["label"],
+                "relative_to": "A",
+                "days": d + rng.normal(0, 0.02 * abs(d)),
+                "sigma": 0.02 * abs(d),
+            }
+        )
+    doc = {
+        "lens": {"redshift": 0.45},
+        "cosmology": {"H0": 70.0, "Om0": 0.3},
+        "family": [fam],
+        "lens_light": {"x": 0.0, "y": 0.0, "sigma": 0.01},
+        "delay": delays,
+        "model": "models/sie_shear.toml",
+    }
     path = tmp_path / "quad.toml"
     path.write_text(to_toml(doc))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        res = run_hubble(str(path), kappa_ext=(0.0, 0.0), om0=(0.3, 0.0), walkers=24, steps=800, progress=False)
+        res = run_hubble(
+            str(path), kappa_ext=(0.0, 0.0), om0=(0.3, 0.0), walkers=24, steps=800, progress=False
+        )
     h = res.h0["H0"]
     sigma = 0.5 * (h["p84"] - h["p16"])
     assert abs(h["median"] - 66.0) < 2 * sigma
@@ -111,12 +177,16 @@ def test_peculiar_velocity_terms_are_small():
     assert relative < 0.01
 
 
-@pytest.mark.parametrize("argv, message", [
-    (["--kappa-ext", "1.0", "0.05"], "--kappa-ext mean must be < 1, got 1"),
-    (["--kappa-ext", "0.0", "-0.1"], "--kappa-ext sigma must be >= 0"),
-])
+@pytest.mark.parametrize(
+    "argv, message",
+    [
+        (["--kappa-ext", "1.0", "0.05"], "--kappa-ext mean must be < 1, got 1"),
+        (["--kappa-ext", "0.0", "-0.1"], "--kappa-ext sigma must be >= 0"),
+    ],
+)
 def test_hubble_bad_arguments(argv, message, tmp_path, capsys):
-    """κ_ext ≥ 1 (a sheet that would flip every delay) and a negative sigma are refused (issue 5)."""
+    """κ_ext ≥ 1 (a sheet that would flip every delay) and a negative sigma are refused (issue
+    5)."""
     from lensdelay.cli.main import main
 
     path, _ = _double_scenario(tmp_path)
@@ -135,10 +205,22 @@ def test_h0_under_another_cosmology_class(tmp_path):
     path, days = _double_scenario(tmp_path, h0_true=70.0, sigma_frac=0.002)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        res = run_hubble(str(path), kappa_ext=(0.0, 0.0), om0=(0.3, 0.0), walkers=8, steps=300, progress=False,
-                         cosmology_class="FlatwCDM", class_params={"w0": -0.8})
-    ref = LensDistances(FlatLambdaCDM(H0=70.0, Om0=0.3, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
-    alt = LensDistances(FlatwCDM(H0=70.0, Om0=0.3, w0=-0.8, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(2.0)
+        res = run_hubble(
+            str(path),
+            kappa_ext=(0.0, 0.0),
+            om0=(0.3, 0.0),
+            walkers=8,
+            steps=300,
+            progress=False,
+            cosmology_class="FlatwCDM",
+            class_params={"w0": -0.8},
+        )
+    ref = LensDistances(FlatLambdaCDM(H0=70.0, Om0=0.3, Tcmb0=0.0), 0.5, 2.0).time_delay_distance(
+        2.0
+    )
+    alt = LensDistances(
+        FlatwCDM(H0=70.0, Om0=0.3, w0=-0.8, Tcmb0=0.0), 0.5, 2.0
+    ).time_delay_distance(2.0)
     expected = 70.0 * (alt / ref).decompose().value
     assert res.h0["H0"]["median"] == pytest.approx(expected, rel=0.005)
 
@@ -151,8 +233,22 @@ def test_hubble_command_writes_every_file(tmp_path):
     from lensdelay.cli.main import main
 
     out = tmp_path / "out"
-    assert main(["hubble", "scenarios/ostrin_double.toml", "--out", str(out), "--steps", "300",
-                 "--walkers", "16", "--quiet"]) == 0
+    assert (
+        main(
+            [
+                "hubble",
+                "scenarios/ostrin_double.toml",
+                "--out",
+                str(out),
+                "--steps",
+                "300",
+                "--walkers",
+                "16",
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     doc = json.loads((out / "hubble.json").read_text())
     assert set(doc["H0"]) == {"median", "p16", "p84", "p2.5", "p97.5"}
     assert 40 < doc["H0"]["median"] < 110 and doc["kappa_ext_comparison"]

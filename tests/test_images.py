@@ -1,4 +1,5 @@
 """Image finder and arrival times against closed forms and a brute-force search."""
+
 import numpy as np
 import pytest
 
@@ -8,7 +9,11 @@ from lensdelay.lensing.delays import delays_relative_to, fermat_to_days
 from lensdelay.lensing.images import ImageFinder, find_images, newton_polish
 from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles import (
-    EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, NFWHalo, PointMass,
+    EllipticalPowerLaw,
+    ExternalShear,
+    IsothermalEllipsoid,
+    NFWHalo,
+    PointMass,
     SingularIsothermalSphere,
 )
 
@@ -40,14 +45,16 @@ def test_point_mass_images_magnifications_delay(u_):
     lens = Lens((PointMass(einstein_radius=te),))
     t = find_images(lens, [0.0], [beta])
     assert len(t) == 2
-    root = np.sqrt(beta ** 2 + 4 * te ** 2)
+    root = np.sqrt(beta**2 + 4 * te**2)
     np.testing.assert_allclose(np.sort(t.y), [(beta - root) / 2, (beta + root) / 2], atol=1e-10)
-    s = np.sqrt(u_ ** 2 + 4)
-    mu_plus = (u_ ** 2 + 2) / (2 * u_ * s) + 0.5
-    mu_minus = (u_ ** 2 + 2) / (2 * u_ * s) - 0.5
-    np.testing.assert_allclose(sorted(np.abs(t.magnification)), sorted([mu_plus, mu_minus]), rtol=1e-9)
+    s = np.sqrt(u_**2 + 4)
+    mu_plus = (u_**2 + 2) / (2 * u_ * s) + 0.5
+    mu_minus = (u_**2 + 2) / (2 * u_ * s) - 0.5
+    np.testing.assert_allclose(
+        sorted(np.abs(t.magnification)), sorted([mu_plus, mu_minus]), rtol=1e-9
+    )
     assert t.magnification.sum() == pytest.approx(1.0, rel=1e-9)
-    expected = D_DT * DAYS_PER_MPC_ARCSEC2 * te ** 2 * (u_ * s / 2 + np.log((s + u_) / (s - u_)))
+    expected = D_DT * DAYS_PER_MPC_ARCSEC2 * te**2 * (u_ * s / 2 + np.log((s + u_) / (s - u_)))
     days = fermat_to_days(t.fermat, D_DT)
     assert days[1] - days[0] == pytest.approx(expected, rel=1e-9)
 
@@ -69,14 +76,14 @@ def _brute_force(lens, bx, by, extent, n=500, chunk=40):
     found = []
     h = g[1] - g[0]
     for s0 in range(0, len(bx), chunk):
-        sx, sy = bx[s0:s0 + chunk, None, None], by[s0:s0 + chunk, None, None]
+        sx, sy = bx[s0 : s0 + chunk, None, None], by[s0 : s0 + chunk, None, None]
         d2 = (mx[None] - sx) ** 2 + (my[None] - sy) ** 2
         c = d2[:, 1:-1, 1:-1]
         is_min = np.ones_like(c, dtype=bool)
         for di in (-1, 0, 1):
             for dj in (-1, 0, 1):
                 if di or dj:
-                    is_min &= c <= d2[:, 1 + di:n - 1 + di, 1 + dj:n - 1 + dj]
+                    is_min &= c <= d2[:, 1 + di : n - 1 + di, 1 + dj : n - 1 + dj]
         k, i, j = np.nonzero(is_min)
         x0, y0 = gx[1 + i, 1 + j], gy[1 + i, 1 + j]
         src = s0 + k
@@ -87,11 +94,27 @@ def _brute_force(lens, bx, by, extent, n=500, chunk=40):
 
 
 COMPLETENESS_LENSES = {
-    "SIE+shear": Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.65, position_angle=40.0, x=0.03, y=-0.02),
-                       ExternalShear(strength=0.08, position_angle=-20.0))),
-    "cored SIE": Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.75, position_angle=-15.0, core=0.12),)),
-    "NFW+SIE": Lens((NFWHalo(kappa_s=0.15, scale_radius=6.0, x=0.4, y=-0.3),
-                     IsothermalEllipsoid(einstein_radius=0.8, axis_ratio=0.7, position_angle=60.0))),
+    "SIE+shear": Lens(
+        (
+            IsothermalEllipsoid(
+                einstein_radius=1.1, axis_ratio=0.65, position_angle=40.0, x=0.03, y=-0.02
+            ),
+            ExternalShear(strength=0.08, position_angle=-20.0),
+        )
+    ),
+    "cored SIE": Lens(
+        (
+            IsothermalEllipsoid(
+                einstein_radius=1.0, axis_ratio=0.75, position_angle=-15.0, core=0.12
+            ),
+        )
+    ),
+    "NFW+SIE": Lens(
+        (
+            NFWHalo(kappa_s=0.15, scale_radius=6.0, x=0.4, y=-0.3),
+            IsothermalEllipsoid(einstein_radius=0.8, axis_ratio=0.7, position_angle=60.0),
+        )
+    ),
 }
 
 
@@ -125,7 +148,8 @@ def test_finder_is_complete_against_dense_grid(name, rng):
 
 
 def test_cored_sie_central_image_is_a_maximum():
-    """A cored lens has a faint central image at the Fermat maximum (SEF92 Sect. 5.4, odd-number theorem)."""
+    """A cored lens has a faint central image at the Fermat maximum (SEF92 Sect. 5.4, odd-number
+    theorem)."""
     lens = COMPLETENESS_LENSES["cored SIE"]
     t = find_images(lens, [0.02], [0.01])
     assert len(t) == 5
@@ -135,7 +159,8 @@ def test_cored_sie_central_image_is_a_maximum():
 
 
 def test_power_law_shallow_has_central_image_steep_does_not():
-    """γ < 2: α → 0 at the centre, so a central image exists; γ ≥ 2: it is swallowed (Evans & Hunter 2002)."""
+    """γ < 2: α → 0 at the centre, so a central image exists; γ ≥ 2: it is swallowed (Evans &
+    Hunter 2002)."""
     shallow = Lens((EllipticalPowerLaw(einstein_radius=1.0, slope=1.6, axis_ratio=0.8),))
     steep = Lens((EllipticalPowerLaw(einstein_radius=1.0, slope=2.3, axis_ratio=0.8),))
     assert np.any(find_images(shallow, [0.05], [0.03]).parity == 2)
@@ -148,13 +173,20 @@ def test_fermat_potential_is_stationary_at_images():
     t = find_images(lens, [0.04], [0.05])
     h = 1e-6
     for x, y in zip(t.x, t.y):
-        gx = (lens.fermat_potential(x + h, y, 0.04, 0.05) - lens.fermat_potential(x - h, y, 0.04, 0.05)) / (2 * h)
-        gy = (lens.fermat_potential(x, y + h, 0.04, 0.05) - lens.fermat_potential(x, y - h, 0.04, 0.05)) / (2 * h)
+        gx = (
+            lens.fermat_potential(x + h, y, 0.04, 0.05)
+            - lens.fermat_potential(x - h, y, 0.04, 0.05)
+        ) / (2 * h)
+        gy = (
+            lens.fermat_potential(x, y + h, 0.04, 0.05)
+            - lens.fermat_potential(x, y - h, 0.04, 0.05)
+        ) / (2 * h)
         assert abs(gx) < 1e-7 and abs(gy) < 1e-7
 
 
 def test_sis_critical_curve_and_caustic():
-    """SIS: the critical curve is the circle r = θE; its caustic degenerates to a point (SEF92 Sect. 8.1.4)."""
+    """SIS: the critical curve is the circle r = θE; its caustic degenerates to a point (SEF92
+    Sect. 8.1.4)."""
     lines = critical_lines(Lens((SingularIsothermalSphere(einstein_radius=1.3),)), extent=2.0)
     assert len(lines) == 1
     r = np.hypot(lines[0].x, lines[0].y)
@@ -163,7 +195,8 @@ def test_sis_critical_curve_and_caustic():
 
 
 def test_sie_caustic_cusps_bound_the_quads():
-    """A source inside the SIE's diamond caustic has four images, one outside two (Kormann et al. 1994)."""
+    """A source inside the SIE's diamond caustic has four images, one outside two (Kormann et
+    al. 1994)."""
     lens = Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.6, position_angle=0.0),))
     lines = critical_lines(lens, extent=2.0)
     tangential = max(lines, key=lambda c: np.ptp(c.x))
@@ -176,6 +209,8 @@ def test_sie_caustic_cusps_bound_the_quads():
 def test_nearly_aligned_source_behind_a_large_round_lens():
     """Regression (found by Hypothesis): |β| ≪ θE puts both SIS images in a ring thinner than
     the radial sampling of the search area; both must still be found at β ± θE (SEF92 8.1.4)."""
-    lens = Lens((IsothermalEllipsoid(einstein_radius=2.0, axis_ratio=1.0), ExternalShear(strength=0.0)))
+    lens = Lens(
+        (IsothermalEllipsoid(einstein_radius=2.0, axis_ratio=1.0), ExternalShear(strength=0.0))
+    )
     t = find_images(lens, [0.0], [0.015625])
     np.testing.assert_allclose(np.sort(t.y), [0.015625 - 2.0, 0.015625 + 2.0], atol=1e-10)

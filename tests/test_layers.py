@@ -3,17 +3,32 @@ and no module imports itself back through others (issue 11).
 
 The order, lowest first (README, "Layout"): base modules (errors, version, atomic file
 writes, the caution text), lensing, model, inference, forecast and hubble (side by side,
-neither importing the other), io, report, the Python interface (api), cli. The package's ``__init__`` is the public facade and may import any layer
+neither importing the other), io, report, the Python interface (api), cli. The package's
+``__init__`` is the public facade and may import any layer
 but the command line.
 """
+
 import ast
 import pathlib
 
 import pytest
 
 PACKAGE = pathlib.Path(__file__).parent.parent / "lensdelay"
-LAYERS = {"errors": 0, "version": 0, "atomic": 0, "cautions": 0, "lensing": 1, "model": 2, "inference": 3,
-          "forecast": 4, "hubble": 4, "io": 5, "report": 6, "api": 7, "cli": 8}
+LAYERS = {
+    "errors": 0,
+    "version": 0,
+    "atomic": 0,
+    "cautions": 0,
+    "lensing": 1,
+    "model": 2,
+    "inference": 3,
+    "forecast": 4,
+    "hubble": 4,
+    "io": 5,
+    "report": 6,
+    "api": 7,
+    "cli": 8,
+}
 
 
 def _module_name(path: pathlib.Path) -> str:
@@ -28,8 +43,11 @@ def _report_methods(tree) -> set[int]:
     allowed = set()
     for node in ast.walk(tree):
         if isinstance(node, ast.FunctionDef) and node.name == "report":
-            allowed |= {id(n) for n in ast.walk(node) if isinstance(n, ast.ImportFrom)
-                        and (n.module or "").startswith("lensdelay.report")}
+            allowed |= {
+                id(n)
+                for n in ast.walk(node)
+                if isinstance(n, ast.ImportFrom) and (n.module or "").startswith("lensdelay.report")
+            }
     return allowed
 
 
@@ -108,7 +126,7 @@ def test_no_import_cycles():
         stack.append(node)
         for t in graph.get(node, ()):
             if state.get(t) == 1:
-                cycles.append(stack[stack.index(t):] + [t])
+                cycles.append(stack[stack.index(t) :] + [t])
             elif t not in state:
                 visit(t)
         stack.pop()
@@ -120,7 +138,9 @@ def test_no_import_cycles():
     assert not cycles, "\n".join(" -> ".join(c) for c in cycles)
 
 
-@pytest.mark.parametrize("module", ["lensdelay", "lensdelay.forecast.pipeline", "lensdelay.report.figures"])
+@pytest.mark.parametrize(
+    "module", ["lensdelay", "lensdelay.forecast.pipeline", "lensdelay.report.figures"]
+)
 def test_importing_changes_no_global_state(module):
     """Importing the library leaves astropy's IERS settings, the warning filters and
     matplotlib's backend alone (a fresh interpreter)."""
@@ -128,9 +148,11 @@ def test_importing_changes_no_global_state(module):
     import sys
 
     # the libraries lensdelay builds on set filters of their own when first imported
-    deps = ("numpy, scipy.linalg, scipy.optimize, scipy.interpolate, scipy.special, scipy.stats, "
-            "scipy.sparse, astropy.table, astropy.coordinates, astropy.time, astropy.cosmology, "
-            "emcee, lmfit, matplotlib.figure, matplotlib.dates, erfa")
+    deps = (
+        "numpy, scipy.linalg, scipy.optimize, scipy.interpolate, scipy.special, scipy.stats, "
+        "scipy.sparse, astropy.table, astropy.coordinates, astropy.time, astropy.cosmology, "
+        "emcee, lmfit, matplotlib.figure, matplotlib.dates, erfa"
+    )
     code = (
         f"import {deps}\n"
         "import warnings, matplotlib\n"

@@ -1,4 +1,5 @@
 """Mass profiles: internal consistency and published special cases."""
+
 import re
 
 import numpy as np
@@ -8,19 +9,32 @@ from scipy import integrate
 from lensdelay.errors import InputError
 from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles import (
-    EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, MassSheet, NFWHalo,
-    PointMass, SingularIsothermalSphere,
+    EllipticalPowerLaw,
+    ExternalShear,
+    IsothermalEllipsoid,
+    MassSheet,
+    NFWHalo,
+    PointMass,
+    SingularIsothermalSphere,
 )
 
 CASES = {
     "point": PointMass(einstein_radius=0.9, x=0.1, y=-0.2),
     "SIS": SingularIsothermalSphere(einstein_radius=1.1, x=-0.05, y=0.1),
-    "SIE": IsothermalEllipsoid(einstein_radius=1.2, axis_ratio=0.6, position_angle=35.0, x=0.02, y=-0.03),
+    "SIE": IsothermalEllipsoid(
+        einstein_radius=1.2, axis_ratio=0.6, position_angle=35.0, x=0.02, y=-0.03
+    ),
     "SIE-round": IsothermalEllipsoid(einstein_radius=1.2, axis_ratio=1.0, position_angle=10.0),
-    "SIE-cored": IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.7, position_angle=-20.0, core=0.2),
+    "SIE-cored": IsothermalEllipsoid(
+        einstein_radius=1.0, axis_ratio=0.7, position_angle=-20.0, core=0.2
+    ),
     "SIE-cored-round": IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.0, core=0.2),
-    "power_law-steep": EllipticalPowerLaw(einstein_radius=1.0, slope=2.3, axis_ratio=0.5, position_angle=70.0),
-    "power_law-shallow": EllipticalPowerLaw(einstein_radius=1.3, slope=1.7, axis_ratio=0.8, position_angle=-40.0, x=0.1),
+    "power_law-steep": EllipticalPowerLaw(
+        einstein_radius=1.0, slope=2.3, axis_ratio=0.5, position_angle=70.0
+    ),
+    "power_law-shallow": EllipticalPowerLaw(
+        einstein_radius=1.3, slope=1.7, axis_ratio=0.8, position_angle=-40.0, x=0.1
+    ),
     "NFW": NFWHalo(kappa_s=0.3, scale_radius=4.0, x=0.3, y=0.2),
     "shear": ExternalShear(strength=0.07, position_angle=25.0),
     "sheet": MassSheet(convergence_value=0.1),
@@ -73,7 +87,12 @@ def test_finite_at_centre_and_axes(name):
     prof = CASES[name]
     x = np.array([prof.x, prof.x, prof.x + 0.3, 0.0])
     y = np.array([prof.y, prof.y + 0.3, prof.y, 0.0])
-    for out in (prof.convergence(x, y), *prof.deflection(x, y), prof.potential(x, y), *prof.hessian(x, y)):
+    for out in (
+        prof.convergence(x, y),
+        *prof.deflection(x, y),
+        prof.potential(x, y),
+        *prof.hessian(x, y),
+    ):
         assert np.all(np.isfinite(out)), name
 
 
@@ -102,18 +121,23 @@ def test_power_law_isothermal_is_sie(q):
 
 @pytest.mark.parametrize("slope", [1.5, 2.0, 2.4])
 def test_power_law_sphere_deflection(slope):
-    """Round power law: α(r) = θE (θE/r)^(γ−2), i.e. κ̄(<r) = (θE/r)^(γ−1) (SEF92 Sect. 8.1.4, common practice)."""
+    """Round power law: α(r) = θE (θE/r)^(γ−2), i.e. κ̄(<r) = (θE/r)^(γ−1) (SEF92 Sect. 8.1.4,
+    common practice)."""
     pl = EllipticalPowerLaw(einstein_radius=1.2, slope=slope, axis_ratio=1.0)
     r = np.array([0.3, 1.2, 2.7])
     ax, ay = pl.deflection(r, 0 * r)
     np.testing.assert_allclose(ax, 1.2 * (1.2 / r) ** (slope - 2), rtol=1e-12)
 
 
-@pytest.mark.parametrize("prof", [
-    IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.5, position_angle=30.0),
-    EllipticalPowerLaw(einstein_radius=1.0, slope=2.25, axis_ratio=0.6, position_angle=-10.0),
-    EllipticalPowerLaw(einstein_radius=1.0, slope=1.8, axis_ratio=0.4, position_angle=80.0),
-], ids=["SIE", "PL-2.25", "PL-1.8"])
+@pytest.mark.parametrize(
+    "prof",
+    [
+        IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.5, position_angle=30.0),
+        EllipticalPowerLaw(einstein_radius=1.0, slope=2.25, axis_ratio=0.6, position_angle=-10.0),
+        EllipticalPowerLaw(einstein_radius=1.0, slope=1.8, axis_ratio=0.4, position_angle=80.0),
+    ],
+    ids=["SIE", "PL-2.25", "PL-1.8"],
+)
 def test_mean_convergence_inside_einstein_ellipse_is_one(prof):
     """Mean κ inside R = θE is exactly 1 (CONVENTIONS.md normalisation), by 2-D quadrature."""
     q = prof.axis_ratio
@@ -123,9 +147,11 @@ def test_mean_convergence_inside_einstein_ellipse_is_one(prof):
         xp, yp = radius * np.cos(t) / np.sqrt(q), radius * np.sin(t) * np.sqrt(q)
         x = np.sin(phi) * xp - np.cos(phi) * yp
         y = np.cos(phi) * xp + np.sin(phi) * yp
-        return prof.convergence(x, y) * radius   # dA = R dR dt in these coordinates
+        return prof.convergence(x, y) * radius  # dA = R dR dt in these coordinates
 
-    mass, _ = integrate.dblquad(lambda t, radius: kappa(radius, t), 0, 1.0, 0, 2 * np.pi, epsabs=1e-9)
+    mass, _ = integrate.dblquad(
+        lambda t, radius: kappa(radius, t), 0, 1.0, 0, 2 * np.pi, epsabs=1e-9
+    )
     assert mass / np.pi == pytest.approx(1.0, rel=1e-6)
 
 
@@ -133,7 +159,9 @@ def test_nfw_deflection_matches_integral_of_convergence():
     """α(r) = (2/r) ∫₀ʳ κ(r') r' dr' (Wright & Brainerd 2000, eq. 13), by quadrature."""
     halo = NFWHalo(kappa_s=0.4, scale_radius=3.0)
     for r in [0.05, 1.0, 2.9999, 3.0, 3.0001, 7.5, 20.0]:
-        inner, _ = integrate.quad(lambda s: halo.convergence(s, 0.0) * s, 0, r, limit=200, points=[3.0] if r > 3 else None)
+        inner, _ = integrate.quad(
+            lambda s: halo.convergence(s, 0.0) * s, 0, r, limit=200, points=[3.0] if r > 3 else None
+        )
         ax, _ = halo.deflection(r, 0.0)
         assert ax == pytest.approx(2 * inner / r, rel=1e-7)
 
@@ -161,7 +189,7 @@ def test_shear_angle_points_to_perturber(pa):
     d, te = 40.0, 2.0
     px, py = d * np.sin(np.deg2rad(pa)), d * np.cos(np.deg2rad(pa))
     tidal = PointMass(einstein_radius=te, x=px, y=py).hessian(0.0, 0.0)
-    shear = ExternalShear(strength=te ** 2 / d ** 2, position_angle=pa).hessian(0.0, 0.0)
+    shear = ExternalShear(strength=te**2 / d**2, position_angle=pa).hessian(0.0, 0.0)
     np.testing.assert_allclose(tidal, shear, atol=1e-12)
 
 
@@ -175,18 +203,23 @@ def test_lens_sums_components_and_broadcasts_parameters():
     radii = np.array([[0.9], [1.0], [1.1]])
     many = Lens((IsothermalEllipsoid(einstein_radius=radii, axis_ratio=0.7, position_angle=20.0),))
     out = many.deflection(x[None, :], y[None, :])[0]
-    one = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),)).deflection(x, y)[0]
+    one = Lens(
+        (IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),)
+    ).deflection(x, y)[0]
     np.testing.assert_allclose(out[2], one)
 
 
-@pytest.mark.parametrize("kwargs, text", [
-    (dict(einstein_radius=-1.0), "einstein_radius must be > 0"),
-    (dict(einstein_radius=0.0), "einstein_radius must be > 0"),
-    (dict(einstein_radius=1.0, axis_ratio=1.2), "axis_ratio must be in (0, 1]"),
-    (dict(einstein_radius=1.0, axis_ratio=0.0), "axis_ratio must be in (0, 1]"),
-    (dict(einstein_radius=float("nan")), "must be finite"),
-    (dict(einstein_radius=1.0, core=-0.1), "core must be >= 0"),
-])
+@pytest.mark.parametrize(
+    "kwargs, text",
+    [
+        (dict(einstein_radius=-1.0), "einstein_radius must be > 0"),
+        (dict(einstein_radius=0.0), "einstein_radius must be > 0"),
+        (dict(einstein_radius=1.0, axis_ratio=1.2), "axis_ratio must be in (0, 1]"),
+        (dict(einstein_radius=1.0, axis_ratio=0.0), "axis_ratio must be in (0, 1]"),
+        (dict(einstein_radius=float("nan")), "must be finite"),
+        (dict(einstein_radius=1.0, core=-0.1), "core must be >= 0"),
+    ],
+)
 def test_profile_rules(kwargs, text):
     """Unphysical parameters raise InputError naming the parameter (brief: bad input)."""
     with pytest.raises(InputError, match=re.escape(text)):
@@ -209,20 +242,42 @@ def test_blockwise_evaluation_matches_whole_arrays(rng):
     results equal those of one pass over the whole arrays, shape included (common practice)."""
     from lensdelay.lensing import lens as lens_module
     from lensdelay.lensing.lens import Lens
-    from lensdelay.lensing.profiles import EllipticalPowerLaw, ExternalShear, IsothermalEllipsoid, NFWHalo
+    from lensdelay.lensing.profiles import (
+        EllipticalPowerLaw,
+        ExternalShear,
+        IsothermalEllipsoid,
+        NFWHalo,
+    )
 
-    lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0, x=0.1),
-                 EllipticalPowerLaw(einstein_radius=0.3, slope=2.2, axis_ratio=0.8, position_angle=-10.0),
-                 NFWHalo(kappa_s=0.2, scale_radius=5.0), ExternalShear(strength=0.05, position_angle=-40.0)))
+    lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0, x=0.1),
+            EllipticalPowerLaw(
+                einstein_radius=0.3, slope=2.2, axis_ratio=0.8, position_angle=-10.0
+            ),
+            NFWHalo(kappa_s=0.2, scale_radius=5.0),
+            ExternalShear(strength=0.05, position_angle=-40.0),
+        )
+    )
     x, y = rng.uniform(-3, 3, (2, 3 * lens_module.BLOCK_POINTS + 17))
-    x, y = x.reshape(-1, 1), y.reshape(-1, 1)          # a 2-D shape must come back too
-    blocked = [lens.deflection_and_potential(x, y, 0.8), lens.hessian(x, y), lens.convergence(x, y),
-               lens.potential(x, y), lens.deflection(x, y)]
+    x, y = x.reshape(-1, 1), y.reshape(-1, 1)  # a 2-D shape must come back too
+    blocked = [
+        lens.deflection_and_potential(x, y, 0.8),
+        lens.hessian(x, y),
+        lens.convergence(x, y),
+        lens.potential(x, y),
+        lens.deflection(x, y),
+    ]
     saved = lens_module.BLOCK_POINTS
     try:
-        lens_module.BLOCK_POINTS = 10 ** 9
-        whole = [lens.deflection_and_potential(x, y, 0.8), lens.hessian(x, y), lens.convergence(x, y),
-                 lens.potential(x, y), lens.deflection(x, y)]
+        lens_module.BLOCK_POINTS = 10**9
+        whole = [
+            lens.deflection_and_potential(x, y, 0.8),
+            lens.hessian(x, y),
+            lens.convergence(x, y),
+            lens.potential(x, y),
+            lens.deflection(x, y),
+        ]
     finally:
         lens_module.BLOCK_POINTS = saved
     for b, w in zip(blocked, whole):

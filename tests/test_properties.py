@@ -1,5 +1,6 @@
 """Property tests (issue 6) with Hypothesis: the loader never crashes; images are
 stationary points of the Fermat potential with the right parity; delays compose."""
+
 import os
 
 import numpy as np
@@ -15,19 +16,51 @@ from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
 from lensdelay.model.scenario import TOP_KEYS, parse_scenario
 
 FUZZ = int(os.environ.get("LENSDELAY_FUZZ_EXAMPLES", "300"))
-KEYS = list(TOP_KEYS) + ["label", "redshift", "image", "x", "y", "sigma", "date", "seen_in", "profile",
-                         "einstein_radius", "axis_ratio", "value", "min", "max", "prior", "ra", "dec",
-                         "H0", "Om0", "latitude", "solar_elongation", "days", "relative_to", "zz"]
-scalars = st.one_of(st.none(), st.booleans(), st.integers(-10 ** 6, 10 ** 6),
-                    st.floats(allow_nan=True, allow_infinity=True), st.text(max_size=12),
-                    st.sampled_from(["SIE", "SIS", "sn", "A", "2027-02-14", "models/sie_shear.toml"]))
-documents = st.recursive(scalars, lambda children: st.one_of(
-    st.lists(children, max_size=4),
-    st.dictionaries(st.sampled_from(KEYS), children, max_size=6)), max_leaves=30)
+KEYS = list(TOP_KEYS) + [
+    "label",
+    "redshift",
+    "image",
+    "x",
+    "y",
+    "sigma",
+    "date",
+    "seen_in",
+    "profile",
+    "einstein_radius",
+    "axis_ratio",
+    "value",
+    "min",
+    "max",
+    "prior",
+    "ra",
+    "dec",
+    "H0",
+    "Om0",
+    "latitude",
+    "solar_elongation",
+    "days",
+    "relative_to",
+    "zz",
+]
+scalars = st.one_of(
+    st.none(),
+    st.booleans(),
+    st.integers(-(10**6), 10**6),
+    st.floats(allow_nan=True, allow_infinity=True),
+    st.text(max_size=12),
+    st.sampled_from(["SIE", "SIS", "sn", "A", "2027-02-14", "models/sie_shear.toml"]),
+)
+documents = st.recursive(
+    scalars,
+    lambda children: st.one_of(
+        st.lists(children, max_size=4), st.dictionaries(st.sampled_from(KEYS), children, max_size=6)
+    ),
+    max_leaves=30,
+)
 
 
 def _loads_or_refuses(doc):
-    doc = {k: v for k, v in doc.items() if v is not None}   # TOML has no null
+    doc = {k: v for k, v in doc.items() if v is not None}  # TOML has no null
 
     def no_models(ref):
         raise InputError("no model files in this test")
@@ -54,9 +87,18 @@ def test_loader_never_crashes_long(doc):
 
 
 lenses = st.builds(
-    lambda te, q, pa, g, gpa: Lens((IsothermalEllipsoid(einstein_radius=te, axis_ratio=q, position_angle=pa),
-                                    ExternalShear(strength=g, position_angle=gpa))),
-    st.floats(0.5, 2.0), st.floats(0.4, 1.0), st.floats(-90, 90), st.floats(0.0, 0.15), st.floats(-90, 90))
+    lambda te, q, pa, g, gpa: Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=te, axis_ratio=q, position_angle=pa),
+            ExternalShear(strength=g, position_angle=gpa),
+        )
+    ),
+    st.floats(0.5, 2.0),
+    st.floats(0.4, 1.0),
+    st.floats(-90, 90),
+    st.floats(0.0, 0.15),
+    st.floats(-90, 90),
+)
 
 
 @settings(max_examples=40, deadline=None)
@@ -71,11 +113,15 @@ def test_images_map_back_are_stationary_and_parity_matches(lens, bx, by):
     sx, sy = lens.source_position(t.x, t.y)
     assert np.max(np.hypot(sx - bx, sy - by)) < 1e-8
     h = 1e-6
-    gx = (lens.fermat_potential(t.x + h, t.y, bx, by) - lens.fermat_potential(t.x - h, t.y, bx, by)) / (2 * h)
-    gy = (lens.fermat_potential(t.x, t.y + h, bx, by) - lens.fermat_potential(t.x, t.y - h, bx, by)) / (2 * h)
+    gx = (
+        lens.fermat_potential(t.x + h, t.y, bx, by) - lens.fermat_potential(t.x - h, t.y, bx, by)
+    ) / (2 * h)
+    gy = (
+        lens.fermat_potential(t.x, t.y + h, bx, by) - lens.fermat_potential(t.x, t.y - h, bx, by)
+    ) / (2 * h)
     assert np.max(np.abs(gx)) < 1e-6 and np.max(np.abs(gy)) < 1e-6
     a11, a12, a22 = lens.jacobian(t.x, t.y)
-    det, trace = a11 * a22 - a12 ** 2, a11 + a22
+    det, trace = a11 * a22 - a12**2, a11 + a22
     expected = np.where(det < 0, 1, np.where(trace > 0, 0, 2))
     np.testing.assert_array_equal(t.parity, expected)
 

@@ -4,6 +4,7 @@ These are the pieces that make the delay intervals of a near-exactly constrained
 honest (issue 3's calibration); the calibration itself is the slow test in
 test_calibration.py and the benchmark.
 """
+
 import pathlib
 import sys
 import warnings
@@ -21,14 +22,33 @@ from lensdelay.model.scenario import parse_scenario
 sys.path.insert(0, str(pathlib.Path(__file__).parent.parent / "benchmarks"))
 import bench_fit  # noqa: E402  (the calibration systems, shared with the benchmark)
 
-NAMES = ["mass[0].einstein_radius", "mass[0].axis_ratio", "mass[0].position_angle",
-         "mass[1].strength", "mass[1].position_angle", "source[s].x"]
-UNBOUNDED = np.array([0.2, 0.1, -np.inf, 0.0, -np.inf, -3.0]), np.array([3.0, 1.0, np.inf, 0.5, np.inf, 3.0])
+pytestmark = pytest.mark.integration
+
+NAMES = [
+    "mass[0].einstein_radius",
+    "mass[0].axis_ratio",
+    "mass[0].position_angle",
+    "mass[1].strength",
+    "mass[1].position_angle",
+    "source[s].x",
+]
+UNBOUNDED = (
+    np.array([0.2, 0.1, -np.inf, 0.0, -np.inf, -3.0]),
+    np.array([3.0, 1.0, np.inf, 0.5, np.inf, 3.0]),
+)
 
 
 def _rows(rng, n=50):
-    return np.column_stack([rng.uniform(0.5, 2, n), rng.uniform(0.3, 0.95, n), rng.uniform(-89, 89, n),
-                            rng.uniform(0.01, 0.2, n), rng.uniform(-89, 89, n), rng.normal(0, 0.1, n)])
+    return np.column_stack(
+        [
+            rng.uniform(0.5, 2, n),
+            rng.uniform(0.3, 0.95, n),
+            rng.uniform(-89, 89, n),
+            rng.uniform(0.01, 0.2, n),
+            rng.uniform(-89, 89, n),
+            rng.normal(0, 0.1, n),
+        ]
+    )
 
 
 def test_sampling_coordinates_round_trip(rng):
@@ -65,18 +85,32 @@ def test_sampling_coordinates_jacobian_and_volume(rng):
 
 def _delay_scenario():
     """The calibration quad with one measured delay, so H0 is a parameter too."""
-    fam = bench_fit.simulate_family(bench_fit.TRUTH, *bench_fit.SOURCE, label="s", redshift=1.5, sigma=0.003,
-                                    rng=np.random.default_rng(4))
-    doc = {"lens": {"redshift": 0.4}, "family": [fam], "mass": bench_fit.MASS,
-           "lens_light": {"x": 0.0, "y": 0.0, "sigma": 0.01},
-           "delay": [{"family": "s", "image": "C", "relative_to": "A", "days": 9.0, "sigma": 1.0}]}
+    fam = bench_fit.simulate_family(
+        bench_fit.TRUTH,
+        *bench_fit.SOURCE,
+        label="s",
+        redshift=1.5,
+        sigma=0.003,
+        rng=np.random.default_rng(4),
+    )
+    doc = {
+        "lens": {"redshift": 0.4},
+        "family": [fam],
+        "mass": bench_fit.MASS,
+        "lens_light": {"x": 0.0, "y": 0.0, "sigma": 0.01},
+        "delay": [{"family": "s", "image": "C", "relative_to": "A", "days": 9.0, "sigma": 1.0}],
+    }
     return parse_scenario(doc, "with-delay.toml")
 
 
 CASES = {
     "quad": dict(make=lambda: bench_fit.system(np.random.default_rng(5)).scenario),
-    "quad+fluxes": dict(make=lambda: bench_fit.system(np.random.default_rng(5)).scenario, use_fluxes=True),
-    "two-families": dict(make=lambda: bench_fit.two_family_system(np.random.default_rng(5)).scenario),
+    "quad+fluxes": dict(
+        make=lambda: bench_fit.system(np.random.default_rng(5)).scenario, use_fluxes=True
+    ),
+    "two-families": dict(
+        make=lambda: bench_fit.two_family_system(np.random.default_rng(5)).scenario
+    ),
     "quad+delay+H0": dict(make=_delay_scenario, use_delays=True),
 }
 
@@ -107,7 +141,9 @@ def test_jeffreys_prior_does_not_depend_on_the_parametrisation(rng):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
         values = fit(like).values
-    p = values + 0.3 * np.array([0.01, 0.05, 5, 0.005, 0.005, 0.01, 5, 0.002, 0.002]) * rng.standard_normal((5, 9))
+    p = values + 0.3 * np.array(
+        [0.01, 0.05, 5, 0.005, 0.005, 0.01, 5, 0.002, 0.002]
+    ) * rng.standard_normal((5, 9))
     u = coords.to_sampling(p)
     _, _, jac_u = target.evaluate(u)
     logdet_u = 0.5 * np.linalg.slogdet(np.einsum("pmi,pmj->pij", jac_u, jac_u))[1]
@@ -144,8 +180,15 @@ def test_langevin_move_samples_the_exact_posterior_of_a_banana():
     where the metric changes along a curved valley (Girolami & Calderhead 2011)."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
-        ch = sample(Banana(), np.array([0.0, 0.0]), walkers=32, steps=3000, seed=3, progress=False,
-                    scales=np.array([0.1, 0.1]))
+        ch = sample(
+            Banana(),
+            np.array([0.0, 0.0]),
+            walkers=32,
+            steps=3000,
+            seed=3,
+            progress=False,
+            scales=np.array([0.1, 0.1]),
+        )
     s = ch.samples()
     # standard errors with ~2000 effective samples: 0.02 on the mean, 0.016 on the std
     assert abs(np.mean(s[:, 0])) < 0.08
@@ -173,8 +216,15 @@ def test_chains_started_at_both_ends_of_the_valley_agree():
         for seed, d in enumerate((2.6, 5.5)):
             start = bench_fit.valley_end(like, best, d)
             # different seeds: two chains fed the same random numbers could couple exactly
-            ch = sample(like, start, walkers=32, steps=600, seed=seed + 1, progress=False,
-                        scales=0.05 * best.errors)
+            ch = sample(
+                like,
+                start,
+                walkers=32,
+                steps=600,
+                seed=seed + 1,
+                progress=False,
+                scales=0.05 * best.errors,
+            )
             days = observed_delays(like, ch.chain[300:].reshape(-1, ch.chain.shape[-1]))[:, 1]
             medians.append(np.median(days))
     assert abs(medians[0] - medians[1]) < 0.35, medians
@@ -183,14 +233,25 @@ def test_chains_started_at_both_ends_of_the_valley_agree():
 def test_angle_prior_is_periodic():
     """A Gaussian prior on a position angle measures the distance to the nearest equivalent
     mean (angles are defined modulo 180°, CONVENTIONS.md): −88° ≡ 92° is 7° from a mean of 85°."""
-    mass = [dict(bench_fit.MASS[0], position_angle={"value": 80.0, "prior": [85.0, 10.0]}), bench_fit.MASS[1]]
-    fam = bench_fit.simulate_family(bench_fit.TRUTH, *bench_fit.SOURCE, label="s", redshift=1.5, sigma=0.003,
-                                    rng=np.random.default_rng(2))
-    sc = parse_scenario({"lens": {"redshift": 0.4}, "family": [fam], "mass": mass}, "angle-prior.toml")
+    mass = [
+        dict(bench_fit.MASS[0], position_angle={"value": 80.0, "prior": [85.0, 10.0]}),
+        bench_fit.MASS[1],
+    ]
+    fam = bench_fit.simulate_family(
+        bench_fit.TRUTH,
+        *bench_fit.SOURCE,
+        label="s",
+        redshift=1.5,
+        sigma=0.003,
+        rng=np.random.default_rng(2),
+    )
+    sc = parse_scenario(
+        {"lens": {"redshift": 0.4}, "family": [fam], "mass": mass}, "angle-prior.toml"
+    )
     like = ImageLikelihood(sc, sc.model)
     row = np.array([1.1, 0.7, 0.0, 0.0, 0.0, 0.05, -40.0, 0.03, 0.02])
     i = like.names.index("mass[0].position_angle")
-    prior_col = like.n_constraints - 1   # the only prior row is the last constraint
+    prior_col = like.n_constraints - 1  # the only prior row is the last constraint
     values = []
     for angle in (-88.0, 92.0, 82.0):
         row[i] = angle
@@ -206,14 +267,33 @@ def test_rows_that_already_fit_exactly_keep_the_batch_shape():
     from lensdelay.lensing.lens import Lens
     from lensdelay.lensing.profiles import ExternalShear, SingularIsothermalSphere
 
-    truth = Lens((SingularIsothermalSphere(einstein_radius=1.0), ExternalShear(strength=0.05, position_angle=30.0)))
+    truth = Lens(
+        (
+            SingularIsothermalSphere(einstein_radius=1.0),
+            ExternalShear(strength=0.05, position_angle=30.0),
+        )
+    )
     t = find_images(truth, [0.05], [0.02])
-    images = [{"label": lab, "x": float(x), "y": float(y), "sigma": 0.003} for lab, x, y in zip("AB", t.x, t.y)]
-    mass = [{"profile": "SIS", "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0}},
-            {"profile": "shear", "strength": {"value": 0.05, "min": 0, "max": 0.3, "prior": [0.05, 0.02]},
-             "position_angle": {"value": 30.0}}]
-    sc = parse_scenario({"lens": {"redshift": 0.4}, "family": [{"label": "q", "redshift": 2.0, "image": images}],
-                         "mass": mass}, "exact.toml")
+    images = [
+        {"label": lab, "x": float(x), "y": float(y), "sigma": 0.003}
+        for lab, x, y in zip("AB", t.x, t.y)
+    ]
+    mass = [
+        {"profile": "SIS", "einstein_radius": {"value": 1.0, "min": 0.2, "max": 3.0}},
+        {
+            "profile": "shear",
+            "strength": {"value": 0.05, "min": 0, "max": 0.3, "prior": [0.05, 0.02]},
+            "position_angle": {"value": 30.0},
+        },
+    ]
+    sc = parse_scenario(
+        {
+            "lens": {"redshift": 0.4},
+            "family": [{"label": "q", "redshift": 2.0, "image": images}],
+            "mass": mass,
+        },
+        "exact.toml",
+    )
     like = ImageLikelihood(sc, sc.model)
     rows = np.repeat(np.array([[1.0, 0.05, 30.0, 0.05, 0.02]]), 5, axis=0)
     assert like.predict(rows)[0]["x"].shape == (5, 2)

@@ -6,6 +6,7 @@ both. Expected values come from the convolution of Gaussians and the product of 
 (any statistics text, e.g. Bishop 2006, Pattern Recognition and Machine Learning, eqs.
 2.113-2.117), scipy.stats as a general-purpose reference, and astropy.time for dates.
 """
+
 import json
 import warnings
 
@@ -37,8 +38,12 @@ from lensdelay.inference.timing import SightingRow, TimingData
 
 FAST = dict(walkers=20, steps=300, n_samples=4000, progress=False)
 DETECTION = "2027-01-10"
-QUAD = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
-             ExternalShear(strength=0.05, position_angle=-40.0)))
+QUAD = Lens(
+    (
+        IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+        ExternalShear(strength=0.05, position_angle=-40.0),
+    )
+)
 
 
 def _quiet_forecast(*args, **kwargs):
@@ -57,25 +62,42 @@ def _half68(q):
 
 # -- a double with a measured delay ------------------------------------------------------
 def _sis_delay_days(beta=0.3, theta_e=1.0, z_l=0.5, z_s=2.0):
-    """SIS: Δt = (D_dt/c)·2θEβ between its two images (Schneider, Ehlers & Falco 1992, Sect. 8.1.4)."""
+    """SIS: Δt = (D_dt/c)·2θEβ between its two images (Schneider, Ehlers & Falco 1992, Sect.
+    8.1.4)."""
     return LensDistances(DEFAULT_COSMOLOGY, z_l, z_s).days_per_arcsec2(z_s) * 2 * theta_e * beta
 
 
 def _double(tmp_path, date_sigma, delay=None, delay_sigma=0.54, name="double"):
     lens = Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.0),))
-    fam = simulate_family(lens, 0.3, 0.0, label="q", redshift=2.0, sigma=0.003, rng=np.random.default_rng(2))
-    doc = {"name": "Test double", "lens": {"redshift": 0.5}, "cosmology": {"H0": 70.0, "Om0": 0.3},
-           "family": [fam],
-           "transient": {"family": "q", "seen_in": "A", "date": DETECTION, "date_sigma_days": date_sigma}}
+    fam = simulate_family(
+        lens, 0.3, 0.0, label="q", redshift=2.0, sigma=0.003, rng=np.random.default_rng(2)
+    )
+    doc = {
+        "name": "Test double",
+        "lens": {"redshift": 0.5},
+        "cosmology": {"H0": 70.0, "Om0": 0.3},
+        "family": [fam],
+        "transient": {
+            "family": "q",
+            "seen_in": "A",
+            "date": DETECTION,
+            "date_sigma_days": date_sigma,
+        },
+    }
     if delay is not None:
-        doc["delay"] = [{"family": "q", "image": "B", "relative_to": "A", "days": delay, "sigma": delay_sigma}]
+        doc["delay"] = [
+            {"family": "q", "image": "B", "relative_to": "A", "days": delay, "sigma": delay_sigma}
+        ]
     path = tmp_path / f"{name}.toml"
     # a round SIS at the origin: 1 lens parameter and the source for 4 constraints
-    path.write_text(to_toml(doc) + '\n[[mass]]\nprofile = "SIS"\n'
-                    'einstein_radius = { value = 1.0, min = 0.5, max = 2.0 }\n')
+    path.write_text(
+        to_toml(doc) + '\n[[mass]]\nprofile = "SIS"\n'
+        "einstein_radius = { value = 1.0, min = 0.5, max = 2.0 }\n"
+    )
     return path
 
 
+@pytest.mark.integration
 @pytest.mark.parametrize("date_sigma", [1.0, 10.0])
 def test_measured_delay_sets_the_date_spread(tmp_path, date_sigma):
     """B's date = detection + the measured delay, σ ≈ √(σ_delay² + σ_det²) (convolution of
@@ -96,38 +118,59 @@ def test_measured_delay_sets_the_date_spread(tmp_path, date_sigma):
     assert abs(tension["sigma"]) < 2 and not tension["in_tension"]
 
 
+@pytest.mark.integration
 def test_reference_window_is_the_same_with_and_without_the_delay(tmp_path):
     """t0 has the detection's prior whether or not a delay is measured (the delay is a
     difference of two images' times and says nothing about t0)."""
     without = _quiet_forecast(str(_double(tmp_path, 3.0, name="a")), **FAST)
-    with_delay = _quiet_forecast(str(_double(tmp_path, 3.0, delay=_sis_delay_days(), name="b")), **FAST)
+    with_delay = _quiet_forecast(
+        str(_double(tmp_path, 3.0, delay=_sis_delay_days(), name="b")), **FAST
+    )
     for res in (without, with_delay):
         assert _half68(_image(res, "A").date_offset_days) == pytest.approx(3.0, rel=0.05)
 
 
 # -- a sighting far from the prediction ----------------------------------------------------
 def _quad(tmp_path, seen_in="A", drop=None, name="quad"):
-    fam = simulate_family(QUAD, 0.03, 0.02, label="sn", redshift=1.6, sigma=0.003, rng=np.random.default_rng(4))
+    fam = simulate_family(
+        QUAD, 0.03, 0.02, label="sn", redshift=1.6, sigma=0.003, rng=np.random.default_rng(4)
+    )
     if drop is not None:
         fam["image"] = [im for im in fam["image"] if im["label"] != drop]
-    doc = {"name": "Test quad", "lens": {"redshift": 0.4}, "sky": {"ra": 115.0, "dec": -20.0},
-           "family": [fam], "lens_light": {"x": 0, "y": 0, "sigma": 0.01},
-           "transient": {"family": "sn", "seen_in": seen_in, "date": "2027-03-01", "date_sigma_days": 1.0,
-                         "magnitude": 22.0}}
+    doc = {
+        "name": "Test quad",
+        "lens": {"redshift": 0.4},
+        "sky": {"ra": 115.0, "dec": -20.0},
+        "family": [fam],
+        "lens_light": {"x": 0, "y": 0, "sigma": 0.01},
+        "transient": {
+            "family": "sn",
+            "seen_in": seen_in,
+            "date": "2027-03-01",
+            "date_sigma_days": 1.0,
+            "magnitude": 22.0,
+        },
+    }
     if drop is None:
         doc["model"] = "models/sie_shear.toml"
     path = tmp_path / f"{name}.toml"
     text = to_toml(doc)
     if drop is not None:
         # three images and the light centre (8 constraints): the shear is held at its true value
-        text += ('\n[[mass]]\nprofile = "SIE"\neinstein_radius = { value = 1.0, min = 0.05, max = 5.0 }\n'
-                 'axis_ratio = { value = 0.8, min = 0.2, max = 1.0 }\nposition_angle = { value = 30.0 }\n'
-                 'x = { value = 0.0, min = -1.0, max = 1.0 }\ny = { value = 0.0, min = -1.0, max = 1.0 }\n'
-                 '\n[[mass]]\nprofile = "shear"\nstrength = 0.05\nposition_angle = -40.0\n')
+        text += (
+            '\n[[mass]]\nprofile = "SIE"\neinstein_radius = { value = 1.0, min = 0.05, max = 5.0 '
+            "}\n"
+            "axis_ratio = { value = 0.8, min = 0.2, max = 1.0 }\nposition_angle = { value = 30.0 "
+            "}\n"
+            "x = { value = 0.0, min = -1.0, max = 1.0 }\ny = { value = 0.0, min = -1.0, max = 1.0 "
+            "}\n"
+            '\n[[mass]]\nprofile = "shear"\nstrength = 0.05\nposition_angle = -40.0\n'
+        )
     path.write_text(text)
     return path
 
 
+@pytest.mark.integration
 def test_sighting_five_sigma_away_is_reported_and_nothing_collapses(tmp_path):
     """A sighting 5σ from the prediction: the forecast runs, the tension is reported above
     3σ, and every interval rests on at least N/10 effective samples."""
@@ -152,6 +195,7 @@ def test_sighting_five_sigma_away_is_reported_and_nothing_collapses(tmp_path):
     assert "WARNING: sighting sn/D" in text and "wrong image identification" in text
 
 
+@pytest.mark.integration
 def test_a_predicted_image_can_be_reported_seen(tmp_path):
     """With the faintest image left out, the model predicts it (X1); a sighting of X1 at its
     predicted date is taken, agrees with the prediction, and marks X1 seen."""
@@ -168,8 +212,10 @@ def test_a_predicted_image_can_be_reported_seen(tmp_path):
 
 
 # -- as of now ------------------------------------------------------------------------------
+@pytest.mark.integration
 def test_now_after_a_window_makes_it_past_and_drops_it_from_the_calendar(tmp_path):
     import icalendar
+
     path = _double(tmp_path, 1.0)
     before, after = tmp_path / "before", tmp_path / "after"
     common = ["--samples", "2000", "--steps", "300", "--walkers", "20", "--quiet"]
@@ -177,19 +223,26 @@ def test_now_after_a_window_makes_it_past_and_drops_it_from_the_calendar(tmp_pat
     doc = json.loads((before / "forecast.json").read_text())
     b = next(im for im in doc["images"] if im["label"] == "B")
     assert b["status"] == "future"
-    events = [c for c in icalendar.Calendar.from_ical((before / "forecast.ics").read_bytes()).walk()
-              if c.name == "VEVENT"]
+    events = [
+        c
+        for c in icalendar.Calendar.from_ical((before / "forecast.ics").read_bytes()).walk()
+        if c.name == "VEVENT"
+    ]
     assert len(events) == 1 and "q/B" in str(events[0]["SUMMARY"])
     late = (Time(b["date"]["p97.5"].rstrip("Z"), scale="utc") + 1 * u.day).isot[:10]
     assert main(["forecast", str(path), "--out", str(after), "--now", late, *common]) == 0
     doc = json.loads((after / "forecast.json").read_text())
     assert next(im for im in doc["images"] if im["label"] == "B")["status"] == "past"
     assert doc["now"].startswith(late)
-    events = [c for c in icalendar.Calendar.from_ical((after / "forecast.ics").read_bytes()).walk()
-              if c.name == "VEVENT"]
+    events = [
+        c
+        for c in icalendar.Calendar.from_ical((after / "forecast.ics").read_bytes()).walk()
+        if c.name == "VEVENT"
+    ]
     assert events == []
 
 
+@pytest.mark.integration
 def test_seen_in_the_last_image_of_a_quad_gives_archival_advice(tmp_path):
     path = _quad(tmp_path, seen_in="D")
     res = _quiet_forecast(str(path), now=Time("2027-03-02", scale="utc"), **FAST)
@@ -201,14 +254,17 @@ def test_seen_in_the_last_image_of_a_quad_gives_archival_advice(tmp_path):
         assert f"ARCHIVE sn/{label}" in text
 
 
-@pytest.mark.parametrize("seen, q, now, agreement, expected", [
-    (True, (-5, 5), 0.0, 1.0, "seen"),
-    (False, (-5, -1), 0.0, 1.0, "past"),
-    (False, (-5, 5), 0.0, 0.80, "uncertain"),
-    (False, (-5, 5), 0.0, 1.0, "now"),     # leads in every sample: not "uncertain"
-    (False, (1, 5), 0.0, 1.0, "future"),
-    (False, (-5, -1), 0.0, 0.5, "past"),   # over is over, order or not
-])
+@pytest.mark.parametrize(
+    "seen, q, now, agreement, expected",
+    [
+        (True, (-5, 5), 0.0, 1.0, "seen"),
+        (False, (-5, -1), 0.0, 1.0, "past"),
+        (False, (-5, 5), 0.0, 0.80, "uncertain"),
+        (False, (-5, 5), 0.0, 1.0, "now"),  # leads in every sample: not "uncertain"
+        (False, (1, 5), 0.0, 1.0, "future"),
+        (False, (-5, -1), 0.0, 0.5, "past"),  # over is over, order or not
+    ],
+)
 def test_status_definitions(seen, q, now, agreement, expected):
     """The statuses as the README defines them."""
     assert _status(seen, {"p2.5": q[0], "p97.5": q[1]}, now, agreement) == expected
@@ -217,20 +273,29 @@ def test_status_definitions(seen, q, now, agreement, expected):
 # -- the probability model itself ---------------------------------------------------------
 def _timing():
     cols = [("s", "A"), ("s", "B"), ("s", "C"), ("s", "X1")]
-    return TimingData(cols, [DelayRow("s", "C", "B", 5.0, 0.7)],
-                      [SightingRow("s", "B", 12.0, 1.5), SightingRow("s", "X1", 20.0, 2.0)],
-                      detection_sigma_days=2.5, reference=("s", "A"))
+    return TimingData(
+        cols,
+        [DelayRow("s", "C", "B", 5.0, 0.7)],
+        [SightingRow("s", "B", 12.0, 1.5), SightingRow("s", "X1", 20.0, 2.0)],
+        detection_sigma_days=2.5,
+        reference=("s", "A"),
+    )
 
 
 def test_timing_likelihood_is_the_marginal_multivariate_normal(rng):
     """log L differences equal scipy's multivariate normal with t0 integrated out:
     covariance diag(σ²) + σ_det² on the sighting block."""
     timing = _timing()
-    cov = np.diag([0.7 ** 2, 1.5 ** 2, 2.0 ** 2])
-    cov[1:, 1:] += 2.5 ** 2
+    cov = np.diag([0.7**2, 1.5**2, 2.0**2])
+    cov[1:, 1:] += 2.5**2
     arrival = rng.normal(0, 10, (50, 4))
-    mean = np.column_stack([arrival[:, 2] - arrival[:, 1], arrival[:, 1] - arrival[:, 0],
-                            arrival[:, 3] - arrival[:, 0]])
+    mean = np.column_stack(
+        [
+            arrival[:, 2] - arrival[:, 1],
+            arrival[:, 1] - arrival[:, 0],
+            arrival[:, 3] - arrival[:, 0],
+        ]
+    )
     ref = stats.multivariate_normal(mean=np.zeros(3), cov=cov)
     expected = ref.logpdf(np.array([5.0, 12.0, 20.0]) - mean)
     got = timing.log_likelihood(arrival)
@@ -252,17 +317,24 @@ def test_t0_conditional_matches_a_brute_force_posterior(rng):
     m, s = timing.t0_conditional(arrival)
     assert m[0] == pytest.approx(mean, abs=1e-6) and s[0] == pytest.approx(sd, rel=1e-6)
     draws = timing.draw_t0(np.repeat(arrival, 20000, axis=0), rng)
-    assert np.mean(draws) == pytest.approx(mean, abs=0.05) and np.std(draws) == pytest.approx(sd, rel=0.03)
+    assert np.mean(draws) == pytest.approx(mean, abs=0.05) and np.std(draws) == pytest.approx(
+        sd, rel=0.03
+    )
 
 
 def test_timing_refuses_bad_rows():
     with pytest.raises(InputError, match="sighting image must differ from the reference image"):
-        TimingData([("s", "A"), ("s", "B")], sightings=[SightingRow("s", "A", 1.0, 1.0)],
-                   detection_sigma_days=1.0, reference=("s", "A"))
+        TimingData(
+            [("s", "A"), ("s", "B")],
+            sightings=[SightingRow("s", "A", 1.0, 1.0)],
+            detection_sigma_days=1.0,
+            reference=("s", "A"),
+        )
     with pytest.raises(InputError, match="must be one of the forecast's images"):
         TimingData([("s", "A")], [DelayRow("s", "B", "A", 1.0, 1.0)])
 
 
+@pytest.mark.integration
 def test_timing_jacobian_with_a_tracked_image_matches_finite_differences(tmp_path, brute_jacobian):
     """The joint likelihood (positions, a measured delay, a sighting of a predicted image,
     H0 and κ_ext free): implicit-function Jacobian = brute-force central differences that
@@ -275,11 +347,21 @@ def test_timing_jacobian_with_a_tracked_image_matches_finite_differences(tmp_pat
     tracks, _ = image_tracks(like, best, "sn")
     predicted = [t for t in tracks if not t.observed]
     assert predicted
-    timing = TimingData([(t.family, t.label) for t in tracks], [DelayRow("sn", "C", "B", 3.0, 0.5)],
-                        [SightingRow("sn", predicted[0].label, 12.0, 1.0)], detection_sigma_days=1.0,
-                        reference=("sn", "A"))
-    joint = ImageLikelihood(sc, sc.model, timing=timing, h0_prior=(70.0, 5.0), kappa_prior=(0.0, 0.05),
-                            tracked={"sn": {t.label: (t.x, t.y) for t in predicted}})
+    timing = TimingData(
+        [(t.family, t.label) for t in tracks],
+        [DelayRow("sn", "C", "B", 3.0, 0.5)],
+        [SightingRow("sn", predicted[0].label, 12.0, 1.0)],
+        detection_sigma_days=1.0,
+        reference=("sn", "A"),
+    )
+    joint = ImageLikelihood(
+        sc,
+        sc.model,
+        timing=timing,
+        h0_prior=(70.0, 5.0),
+        kappa_prior=(0.0, 0.05),
+        tracked={"sn": {t.label: (t.x, t.y) for t in predicted}},
+    )
     assert joint.names[-2:] == ["H0", "kappa_ext"]
     values = np.concatenate([best, [68.0, 0.03]])
     jac = joint.information_jacobian(values)[0]
@@ -294,18 +376,31 @@ def test_model_family_term_is_the_spread_between_models(rng):
     n = 20000
     model = np.repeat([0, 1], n)
     lens_days = np.concatenate([rng.normal(10, 0.01, n), rng.normal(12, 0.01, n)])
-    samples = ImageSampleSet(offsets=lens_days, weights=np.full(2 * n, 1.0 / (2 * n)), delay=lens_days,
-                             lens_days=lens_days, h0=np.full(2 * n, 70.0), kappa=np.zeros(2 * n),
-                             t0=np.zeros(2 * n), model=model)
+    samples = ImageSampleSet(
+        offsets=lens_days,
+        weights=np.full(2 * n, 1.0 / (2 * n)),
+        delay=lens_days,
+        lens_days=lens_days,
+        h0=np.full(2 * n, 70.0),
+        kappa=np.zeros(2 * n),
+        t0=np.zeros(2 * n),
+        model=model,
+    )
     terms = covariance_terms(samples, 70.0, with_date=True)
     assert terms["model family"] == pytest.approx(1.0, rel=1e-3)
     assert terms["_variance"] == pytest.approx(1.0 + 1e-4, rel=1e-3)
 
 
+@pytest.mark.integration
 def test_budget_model_family_term_in_a_two_model_forecast(tmp_path):
     path = _quad(tmp_path)
-    res = _quiet_forecast(str(path), models=["models/sie_shear.toml", "models/power_law_shear.toml"],
-                          weighting="equal", now=Time("2027-03-02", scale="utc"), **FAST)
+    res = _quiet_forecast(
+        str(path),
+        models=["models/sie_shear.toml", "models/power_law_shear.toml"],
+        weighting="equal",
+        now=Time("2027-03-02", scale="utc"),
+        **FAST,
+    )
     from lensdelay.forecast.budget import delay_budget
 
     budget = delay_budget(res)
@@ -320,33 +415,62 @@ def test_budget_model_family_term_in_a_two_model_forecast(tmp_path):
 # -- small things ----------------------------------------------------------------------------
 def test_parse_sightings_forms_and_defaults(tmp_path):
     sc, _ = load_scenario(str(_quad(tmp_path)))
-    got = parse_sightings(["sn/C=2027-03-04±1.5", "D=2027-03-09T06:00:00Z+-0.25", "B=2027-03-02"], sc)
+    got = parse_sightings(
+        ["sn/C=2027-03-04±1.5", "D=2027-03-09T06:00:00Z+-0.25", "B=2027-03-02"], sc
+    )
     assert [(s.family, s.label, s.sigma_days, s.sigma_stated) for s in got] == [
-        ("sn", "C", 1.5, True), ("sn", "D", 0.25, True), ("sn", "B", 1.0, False)]
+        ("sn", "C", 1.5, True),
+        ("sn", "D", 0.25, True),
+        ("sn", "B", 1.0, False),
+    ]
     assert got[1].date.isot.startswith("2027-03-09T06:00:00")
-    for bad, message in [("C", "must be \\[FAMILY/\\]LABEL=DATE"), ("other/C=2027-03-04", "transient's family"),
-                         ("A=2027-03-04", "must differ from the image the transient was detected in"),
-                         ("C=2027-03-04±-1", "sigma must be > 0"), ("C=2027-03-04±x", "sigma must be a number")]:
+    for bad, message in [
+        ("C", "must be \\[FAMILY/\\]LABEL=DATE"),
+        ("other/C=2027-03-04", "transient's family"),
+        ("A=2027-03-04", "must differ from the image the transient was detected in"),
+        ("C=2027-03-04±-1", "sigma must be > 0"),
+        ("C=2027-03-04±x", "sigma must be a number"),
+    ]:
         with pytest.raises(InputError, match=message):
             parse_sightings([bad], sc)
 
 
+@pytest.mark.integration
 def test_unknown_sighting_label_is_refused_after_the_fit(tmp_path, capsys):
     path = _quad(tmp_path)
     out = tmp_path / "out"
-    assert main(["forecast", str(path), "--seen", "X7=2027-03-04", "--out", str(out), "--samples", "500",
-                 "--steps", "100", "--walkers", "20", "--quiet"]) == 2
+    assert (
+        main(
+            [
+                "forecast",
+                str(path),
+                "--seen",
+                "X7=2027-03-04",
+                "--out",
+                str(out),
+                "--samples",
+                "500",
+                "--steps",
+                "100",
+                "--walkers",
+                "20",
+                "--quiet",
+            ]
+        )
+        == 2
+    )
     err = capsys.readouterr().err
     assert "--seen image must be one of the forecast's images" in err and err.count("\n") == 1
     assert not out.exists()
 
 
 def test_windows_round_outward_and_medians_to_the_nearest_day():
-    assert day_of("2027-02-10T16:24:00Z") == "2027-02-10"     # a window starting then starts on 02-10
-    assert day_of("2027-02-12T03:00:00Z") == "2027-02-12"     # ... and one ending then ends on 02-12
+    assert day_of("2027-02-10T16:24:00Z") == "2027-02-10"  # a window starting then starts on 02-10
+    assert day_of("2027-02-12T03:00:00Z") == "2027-02-12"  # ... and one ending then ends on 02-12
     assert median_day("2027-02-13T23:48:00Z") == "2027-02-14"
 
 
+@pytest.mark.integration
 def test_header_states_the_h0_used_and_json_has_mjd(tmp_path):
     """--cosmology Planck18 uses H0 = 67.66 (astropy's Planck18: Planck 2018 VI, Table 2,
     TT,TE,EE+lowE+lensing+BAO); MJD beside every ISO date (astropy.time)."""
@@ -358,7 +482,9 @@ def test_header_states_the_h0_used_and_json_has_mjd(tmp_path):
     doc = forecast_json(res)
     for im in doc["images"]:
         for k, iso in im["date"].items():
-            assert im["date_mjd"][k] == pytest.approx(Time(iso.rstrip("Z"), scale="utc").mjd, abs=2e-5)  # ISO to the second
+            assert im["date_mjd"][k] == pytest.approx(
+                Time(iso.rstrip("Z"), scale="utc").mjd, abs=2e-5
+            )  # ISO to the second
     assert "mjd_median" in forecast_table(res).colnames
 
 
@@ -380,11 +506,14 @@ def test_every_option_has_help():
             assert action.help, f"{name} {action.option_strings or action.dest} has no help"
 
 
-@pytest.mark.parametrize("args, message", [
-    (["--now", "yesterday"], "--now must be an ISO 8601 date"),
-    (["--seen", "B"], "--seen must be [FAMILY/]LABEL=DATE[±SIGMA]"),
-    (["--seen", "B=2027-01-20±0"], "--seen q/B sigma must be > 0 days"),
-])
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["--now", "yesterday"], "--now must be an ISO 8601 date"),
+        (["--seen", "B"], "--seen must be [FAMILY/]LABEL=DATE[±SIGMA]"),
+        (["--seen", "B=2027-01-20±0"], "--seen q/B sigma must be > 0 days"),
+    ],
+)
 def test_bad_update_arguments_exit_2_with_one_line(tmp_path, capsys, args, message):
     path = _double(tmp_path, 1.0)
     out = tmp_path / "out"

@@ -1,1 +1,1 @@
-"""cli"""
+"""The command line: one module per sub-command, shared options, the entry point."""

@@ -1,4 +1,5 @@
 """``lensdelay forecast``: the main job, from arguments to files and text."""
+
 from __future__ import annotations
 
 import sys
@@ -12,13 +13,29 @@ from lensdelay.report.figures import budget_figure, timeline_figure
 
 
 def run(args) -> int:
+    """Forecast, print the report, write every output to --out at once."""
     out = output_folder(args.out)
     now = parse_date(args.now, "--now") if args.now is not None else None
-    res = forecast_scenario(args.scenario, args.model, budget=args.budget, n_samples=args.samples, seed=args.seed,
-                   h0=args.h0, cosmology_name=args.cosmology, kappa_ext=args.kappa_ext,
-                   microlensing=args.microlensing, depth=args.depth, weighting=args.weights,
-                   seen=args.seen, site=site_from_args(args), walkers=args.walkers,
-                   steps=args.steps, progress=not args.quiet, prior=args.prior, now=now)
+    res = forecast_scenario(
+        args.scenario,
+        args.model,
+        budget=args.budget,
+        n_samples=args.samples,
+        seed=args.seed,
+        h0=args.h0,
+        cosmology_name=args.cosmology,
+        kappa_ext=args.kappa_ext,
+        microlensing=args.microlensing,
+        depth=args.depth,
+        weighting=args.weights,
+        seen=args.seen,
+        site=site_from_args(args),
+        walkers=args.walkers,
+        steps=args.steps,
+        progress=not args.quiet,
+        prior=args.prior,
+        now=now,
+    )
     # build everything before writing anything
     doc = forecast_json(res)
     ecsv = table_text(forecast_table(res))
@@ -28,16 +45,24 @@ def run(args) -> int:
         figs = {"timeline": timeline_figure(res)}
         if res.budget is not None:
             figs["budget"] = budget_figure(res.budget)
-        write_output_set(out, json_name="forecast.json", doc=doc, figures=figs,
-                         texts={"forecast.ecsv": ecsv, "forecast.ics": ics},
-                         inputs=res.provenance["inputs"])
+        write_output_set(
+            out,
+            json_name="forecast.json",
+            doc=doc,
+            figures=figs,
+            texts={"forecast.ecsv": ecsv, "forecast.ics": ics},
+            inputs=res.provenance["inputs"],
+        )
     print(text)
     if out is not None:
-        print(f"wrote {out}/forecast.json, forecast.ecsv, forecast.ics and figures", file=sys.stderr)
+        print(
+            f"wrote {out}/forecast.json, forecast.ecsv, forecast.ics and figures", file=sys.stderr
+        )
     return 0
 
 
 def register(sub) -> None:
+    """Add the ``forecast`` sub-command to the parser."""
     p = sub.add_parser("forecast", help="when, where and how bright the event reappears")
     p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--model", action="append", help="model TOML (repeat for several models)")
@@ -45,30 +70,72 @@ def register(sub) -> None:
     p.add_argument("--samples", type=int, default=20000, help="forecast samples (default 20000)")
     p.add_argument("--seed", type=int, default=1, help="seed of every random draw (default 1)")
     g = p.add_mutually_exclusive_group()
-    g.add_argument("--h0", nargs=2, type=number, metavar=("MEAN", "SIGMA"),
-                   help="Gaussian H0 prior, km/s/Mpc (default 70 5)")
-    g.add_argument("--cosmology", help="an astropy realisation, e.g. Planck18 (its H0 is then fixed)")
-    p.add_argument("--kappa-ext", nargs=2, type=number, metavar=("MEAN", "SIGMA"),
-                   help="external convergence prior (default 0 0.05)")
+    g.add_argument(
+        "--h0",
+        nargs=2,
+        type=number,
+        metavar=("MEAN", "SIGMA"),
+        help="Gaussian H0 prior, km/s/Mpc (default 70 5)",
+    )
+    g.add_argument(
+        "--cosmology", help="an astropy realisation, e.g. Planck18 (its H0 is then fixed)"
+    )
+    p.add_argument(
+        "--kappa-ext",
+        nargs=2,
+        type=number,
+        metavar=("MEAN", "SIGMA"),
+        help="external convergence prior (default 0 0.05)",
+    )
     p.add_argument("--microlensing", type=number, help="magnitude scatter per image (default 0.3)")
-    p.add_argument("--depth", type=number, help="flag images fainter than this magnitude (default 25)")
-    p.add_argument("--weights", default="bic",
-                   help="model weights: bic (default; times the timing data's likelihood) or equal")
-    p.add_argument("--seen", action="append", metavar="[FAMILY/]LABEL=DATE[±SIGMA]",
-                   help="another image (observed or predicted, e.g. sn/X1) showed the event on DATE "
-                        "(ISO 8601, UTC), SIGMA days (+- also accepted); default SIGMA: the "
-                        "detection's date_sigma_days, or 1 day; repeat for several")
-    p.add_argument("--now", metavar="DATE",
-                   help="judge past/now/future as of this ISO 8601 UTC date (default: the current time)")
-    p.add_argument("--site", nargs=3, type=number, metavar=("LAT", "LON", "HEIGHT"),
-                   help="ground site (degrees, degrees East, metres)")
-    p.add_argument("--elongation", nargs=2, type=number, metavar=("MIN", "MAX"),
-                   help="space observatory: allowed solar elongation range, degrees")
+    p.add_argument(
+        "--depth", type=number, help="flag images fainter than this magnitude (default 25)"
+    )
+    p.add_argument(
+        "--weights",
+        default="bic",
+        help="model weights: bic (default; times the timing data's likelihood) or equal",
+    )
+    p.add_argument(
+        "--seen",
+        action="append",
+        metavar="[FAMILY/]LABEL=DATE[±SIGMA]",
+        help="another image (observed or predicted, e.g. sn/X1) showed the event on DATE "
+        "(ISO 8601, UTC), SIGMA days (+- also accepted); default SIGMA: the "
+        "detection's date_sigma_days, or 1 day; repeat for several",
+    )
+    p.add_argument(
+        "--now",
+        metavar="DATE",
+        help="judge past/now/future as of this ISO 8601 UTC date (default: the current time)",
+    )
+    p.add_argument(
+        "--site",
+        nargs=3,
+        type=number,
+        metavar=("LAT", "LON", "HEIGHT"),
+        help="ground site (degrees, degrees East, metres)",
+    )
+    p.add_argument(
+        "--elongation",
+        nargs=2,
+        type=number,
+        metavar=("MIN", "MAX"),
+        help="space observatory: allowed solar elongation range, degrees",
+    )
     p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
     add_prior_argument(p)
-    p.add_argument("--steps", type=int, default=2000,
-                   help="sampler steps (default 2000; more when the measurements need a new sample)")
+    p.add_argument(
+        "--steps",
+        type=int,
+        default=2000,
+        help="sampler steps (default 2000; more when the measurements need a new sample)",
+    )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.add_argument("--no-budget", dest="budget", action="store_false",
-                   help="skip the uncertainty budget table and figure")
+    p.add_argument(
+        "--no-budget",
+        dest="budget",
+        action="store_false",
+        help="skip the uncertainty budget table and figure",
+    )
     p.set_defaults(func=run, budget=True)

@@ -1,4 +1,5 @@
 """``lensdelay hubble``: delay-vs-H0 curves and, with measured delays, the H0 posterior."""
+
 from __future__ import annotations
 
 import sys
@@ -12,6 +13,7 @@ from lensdelay.report.figures import h0_figure, hubble_curves_figure
 
 
 def run(args) -> int:
+    """Infer H0 (or the delay curves), print the report, write the outputs."""
     out = output_folder(args.out)
     params = {}
     for item in args.param or []:
@@ -22,19 +24,35 @@ def run(args) -> int:
             raise InputError(f"--param must be NAME=NUMBER, got {item!r}") from err
         if not sep:
             raise InputError(f"--param must be NAME=NUMBER, got {item!r}")
-    res = infer_h0(args.scenario, args.model, kappa_ext=tuple(args.kappa_ext), om0=args.om0,
-                     curves=tuple(args.curves.split(",")) if args.curves else (), walkers=args.walkers,
-                     steps=args.steps, seed=args.seed, progress=not args.quiet,
-                     cosmology_name=args.cosmology, cosmology_class=args.cosmology_class,
-                     class_params=params, prior=args.prior)
+    res = infer_h0(
+        args.scenario,
+        args.model,
+        kappa_ext=tuple(args.kappa_ext),
+        om0=args.om0,
+        curves=tuple(args.curves.split(",")) if args.curves else (),
+        walkers=args.walkers,
+        steps=args.steps,
+        seed=args.seed,
+        progress=not args.quiet,
+        cosmology_name=args.cosmology,
+        cosmology_class=args.cosmology_class,
+        class_params=params,
+        prior=args.prior,
+    )
     doc = hubble_json(res)
     text = res.report()
     if out is not None:
         figs = {"hubble_curves": hubble_curves_figure(res)}
         if res.h0 is not None:
             figs["hubble_posterior"] = h0_figure(res)
-        write_output_set(out, json_name="hubble.json", doc=doc, figures=figs,
-                         texts={"hubble_curves.ecsv": curves_table_text(res)}, inputs=res.provenance["inputs"])
+        write_output_set(
+            out,
+            json_name="hubble.json",
+            doc=doc,
+            figures=figs,
+            texts={"hubble_curves.ecsv": curves_table_text(res)},
+            inputs=res.provenance["inputs"],
+        )
     print(text)
     if out is not None:
         print(f"wrote {out}/hubble.json, hubble_curves.ecsv and figures", file=sys.stderr)
@@ -42,20 +60,41 @@ def run(args) -> int:
 
 
 def register(sub) -> None:
-    p = sub.add_parser("hubble", help="delays vs H0; H0 from measured delays; mass-sheet comparison")
+    """Add the ``hubble`` sub-command to the parser."""
+    p = sub.add_parser(
+        "hubble", help="delays vs H0; H0 from measured delays; mass-sheet comparison"
+    )
     p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--model", help="model TOML replacing the scenario's mass model")
     p.add_argument("--out", help="folder for hubble.json and the figures")
-    p.add_argument("--kappa-ext", nargs=2, type=number, default=[0.0, 0.05], metavar=("MEAN", "SIGMA"),
-                   help="external convergence prior (default 0 0.05)")
-    p.add_argument("--om0", nargs=2, type=number, metavar=("MEAN", "SIGMA"),
-                   help="Omega_m prior (flat LCDM; default the scenario's value ± 0.02)")
+    p.add_argument(
+        "--kappa-ext",
+        nargs=2,
+        type=number,
+        default=[0.0, 0.05],
+        metavar=("MEAN", "SIGMA"),
+        help="external convergence prior (default 0 0.05)",
+    )
+    p.add_argument(
+        "--om0",
+        nargs=2,
+        type=number,
+        metavar=("MEAN", "SIGMA"),
+        help="Omega_m prior (flat LCDM; default the scenario's value ± 0.02)",
+    )
     p.add_argument("--curves", help="also show delays along 'om0' and/or 'w' (comma separated)")
     p.add_argument("--cosmology", help="an astropy realisation, e.g. Planck18")
-    p.add_argument("--cosmology-class", help="an astropy cosmology class, e.g. FlatwCDM (H0 and Om0 "
-                   "from the scenario; the Om0 prior then applies only to FlatLambdaCDM)")
-    p.add_argument("--param", action="append", metavar="NAME=VALUE",
-                   help="a parameter of --cosmology-class, e.g. w0=-0.9")
+    p.add_argument(
+        "--cosmology-class",
+        help="an astropy cosmology class, e.g. FlatwCDM (H0 and Om0 "
+        "from the scenario; the Om0 prior then applies only to FlatLambdaCDM)",
+    )
+    p.add_argument(
+        "--param",
+        action="append",
+        metavar="NAME=VALUE",
+        help="a parameter of --cosmology-class, e.g. w0=-0.9",
+    )
     p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
     add_prior_argument(p)
     p.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")

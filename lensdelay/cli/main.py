@@ -4,6 +4,7 @@ Every :class:`~lensdelay.errors.LensdelayError` becomes one line on stderr and e
 status 2; nothing is written when input is bad. The command line, not the library,
 sets process-wide state: astropy never downloads, warnings print as one clean line.
 """
+
 from __future__ import annotations
 
 import argparse
@@ -29,8 +30,11 @@ class _Parser(argparse.ArgumentParser):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = _Parser(prog="lensdelay", description=(
-        "Forecast when, where and how bright a strongly lensed transient reappears."))
+    """The argument parser with every sub-command."""
+    parser = _Parser(
+        prog="lensdelay",
+        description=("Forecast when, where and how bright a strongly lensed transient reappears."),
+    )
     parser.add_argument("--version", action="version", version=f"lensdelay {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
     for module in SUBCOMMANDS:
@@ -72,6 +76,7 @@ def _configure_astropy() -> None:
 
 
 def main(argv=None) -> int:
+    """Run the command line; return the exit status (2 for bad input)."""
     if threading.current_thread() is threading.main_thread():
         signal.signal(signal.SIGTERM, _terminate)
         signal.signal(signal.SIGINT, _terminate)
@@ -92,8 +97,11 @@ def main(argv=None) -> int:
         print(f"lensdelay: {err}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print("lensdelay: interrupted; no output was written (a sampler checkpoint, if any, "
-              "is kept in --out for --resume)", file=sys.stderr)
+        print(
+            "lensdelay: interrupted; no output was written (a sampler checkpoint, if any, "
+            "is kept in --out for --resume)",
+            file=sys.stderr,
+        )
         return 130
 
 

@@ -3,6 +3,7 @@
 Library messages name parameters (``h0 sigma must be > 0``); the command line shows
 them with its own flags (``--h0 sigma must be > 0``).
 """
+
 from __future__ import annotations
 
 import argparse
@@ -15,10 +16,21 @@ from lensdelay.model.scenario import Site
 
 #: Library parameter names → command-line flags, for messages.
 FLAGS = {
-    "h0": "--h0", "kappa_ext": "--kappa-ext", "microlensing": "--microlensing", "n_samples": "--samples",
-    "weighting": "--weights", "seen": "--seen", "now": "--now", "flux_floor": "--flux-floor",
-    "om0": "--om0", "cosmology_class": "--cosmology-class", "class_params": "--param", "prior": "--prior",
-    "move": "--move", "resume": "--resume", "out": "--out",
+    "h0": "--h0",
+    "kappa_ext": "--kappa-ext",
+    "microlensing": "--microlensing",
+    "n_samples": "--samples",
+    "weighting": "--weights",
+    "seen": "--seen",
+    "now": "--now",
+    "flux_floor": "--flux-floor",
+    "om0": "--om0",
+    "cosmology_class": "--cosmology-class",
+    "class_params": "--param",
+    "prior": "--prior",
+    "move": "--move",
+    "resume": "--resume",
+    "out": "--out",
 }
 
 
@@ -26,12 +38,12 @@ def with_flags(message: str) -> str:
     """Replace a leading library parameter name by its command-line flag."""
     for name, flag in FLAGS.items():
         if message.startswith(name + " "):
-            return flag + message[len(name):]
+            return flag + message[len(name) :]
     return message
 
 
 def number(text: str) -> float:
-    """argparse type: a finite float."""
+    """Argparse type: a finite float."""
     try:
         value = float(text)
     except ValueError as err:
@@ -53,9 +65,13 @@ def output_folder(path: str | None) -> Path | None:
 
 def add_prior_argument(parser) -> None:
     """``--prior``, shared by fit, forecast and hubble."""
-    parser.add_argument("--prior", choices=PRIOR_CHOICES, default="flat",
-                        help="prior of the mass-model posterior within the bounds: flat in the "
-                             "recipe's parameters (default) or Jeffreys' (Fisher information)")
+    parser.add_argument(
+        "--prior",
+        choices=PRIOR_CHOICES,
+        default="flat",
+        help="prior of the mass-model posterior within the bounds: flat in the "
+        "recipe's parameters (default) or Jeffreys' (Fisher information)",
+    )
 
 
 def add_sampler_arguments(parser, seed_help: str = "seed of every random draw (default 1)") -> None:
@@ -80,6 +96,8 @@ def site_from_args(args) -> Site | None:
     if args.elongation is not None:
         lo, hi = args.elongation
         if not 0 <= lo < hi <= 180:
-            raise InputError(f"--elongation must satisfy 0 <= min < max <= 180 degrees, got {lo:g} {hi:g}")
+            raise InputError(
+                f"--elongation must satisfy 0 <= min < max <= 180 degrees, got {lo:g} {hi:g}"
+            )
         return Site("space", solar_elongation=(lo, hi))
     return None

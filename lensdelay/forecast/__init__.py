@@ -1,1 +1,1 @@
-"""forecast"""
+"""The forecast: per-sample images, the timing update, model combination, statuses, budget."""

@@ -28,6 +28,7 @@ lenses) and are given by first-order propagation (the delta method):
 
 Pure computation: no files, no CLI.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -51,6 +52,7 @@ TERMS = SAMPLED_TERMS + EXTRA_TERMS
 
 def ddt_log_derivatives(cosmology, z_l: float, z_s: float) -> tuple[float, float]:
     """∂ln D_dt/∂Ωm (flat ΛCDM, else 0) and ∂ln D_dt/∂z_l, by central differences."""
+
     def ddt(cosmo, zl):
         return LensDistances(cosmo, zl, z_s).time_delay_distance(z_s).to_value(u.Mpc)
 
@@ -74,7 +76,8 @@ def covariance_terms(samples, h0_ref: float, with_date: bool) -> dict:
     """Cov(D, c_k) for the sampled sources (module docstring), plus the remainder.
 
     ``samples`` (an :class:`~lensdelay.forecast.result.ImageSampleSet`) holds per-sample
-    ``weights``, ``lens_days``, ``h0``, ``kappa``, ``t0``, ``model`` and ``delay``; ``with_date`` adds t0 (the date's budget) or leaves it out (the delay's).
+    ``weights``, ``lens_days``, ``h0``, ``kappa``, ``t0``, ``model`` and ``delay``;
+    ``with_date`` adds t0 (the date's budget) or leaves it out (the delay's).
     """
     weights = samples.weights
     ok = (weights > 0) & np.isfinite(samples.delay) & np.isfinite(samples.t0)
@@ -102,11 +105,13 @@ def covariance_terms(samples, h0_ref: float, with_date: bool) -> dict:
     linear = sum(contrib.values())
     contrib["remainder"] = centred - linear
     return {k: float(np.sum(w * centred * (c - _mean(c, w)))) for k, c in contrib.items()} | {
-        "_variance": float(np.sum(w * centred ** 2))}
+        "_variance": float(np.sum(w * centred**2))
+    }
 
 
-def delay_budget(res, velocity_kms: float = DEFAULT_VELOCITY_KMS,
-                 om0_sigma: float = DEFAULT_OM0_SIGMA) -> dict:
+def delay_budget(
+    res, velocity_kms: float = DEFAULT_VELOCITY_KMS, om0_sigma: float = DEFAULT_OM0_SIGMA
+) -> dict:
     """Each source's share of each image's delay and date variance (forecast result → dict)."""
     sc = res.scenario
     tr = sc.transient
@@ -121,8 +126,10 @@ def delay_budget(res, velocity_kms: float = DEFAULT_VELOCITY_KMS,
         if im.label == tr.seen_in and im.observed:
             continue
         med = im.delay_days["median"]
-        extra = {"Omega_m": (med * d_om * om_sigma) ** 2,
-                 "peculiar velocity": (med * d_z * (1 + sc.lens_redshift) * velocity_kms / c_kms) ** 2}
+        extra = {
+            "Omega_m": (med * d_om * om_sigma) ** 2,
+            "peculiar velocity": (med * d_z * (1 + sc.lens_redshift) * velocity_kms / c_kms) ** 2,
+        }
         row = {"family": im.family, "label": im.label, "delay_median_days": med}
         for name, with_date in (("delay", False), ("date", True)):
             terms = covariance_terms(im.samples, h0_ref, with_date)
@@ -130,22 +137,34 @@ def delay_budget(res, velocity_kms: float = DEFAULT_VELOCITY_KMS,
             part = {}
             for term in SAMPLED_TERMS + ("remainder",):
                 var = terms[term]
-                part[term] = {"sigma_days": float(np.copysign(np.sqrt(abs(var)), var)),
-                              "percent": float(100 * var / variance) if variance > 0 else 0.0,
-                              "in_windows": True}
+                part[term] = {
+                    "sigma_days": float(np.copysign(np.sqrt(abs(var)), var)),
+                    "percent": float(100 * var / variance) if variance > 0 else 0.0,
+                    "in_windows": True,
+                }
             for term, var in extra.items():
-                part[term] = {"sigma_days": float(np.sqrt(var)),
-                              "percent": float(100 * var / variance) if variance > 0 else 0.0,
-                              "in_windows": False}
+                part[term] = {
+                    "sigma_days": float(np.sqrt(var)),
+                    "percent": float(100 * var / variance) if variance > 0 else 0.0,
+                    "in_windows": False,
+                }
             row[name] = part
             row[f"{name}_sigma_days"] = float(np.sqrt(variance))
         rows.append(row)
     st = res.settings
-    return {"images": rows, "assumptions": {
-        "peculiar_velocity_sigma_kms": velocity_kms, "Omega_m_sigma": om_sigma,
-        "dlnDdt_dOm0": d_om, "dlnDdt_dzl": d_z,
-        "H0_prior": list(st.h0_prior) if st.h0_prior else None, "kappa_ext": list(st.kappa_ext),
-        "note": "each sampled term is Cov(date, contribution) over the forecast's samples after any "
-                "update, so the terms add up to the variance (negative terms: sources the "
-                "measurements tied together); Omega_m and the lens velocity are first-order "
-                "estimates that the windows do not include"}}
+    return {
+        "images": rows,
+        "assumptions": {
+            "peculiar_velocity_sigma_kms": velocity_kms,
+            "Omega_m_sigma": om_sigma,
+            "dlnDdt_dOm0": d_om,
+            "dlnDdt_dzl": d_z,
+            "H0_prior": list(st.h0_prior) if st.h0_prior else None,
+            "kappa_ext": list(st.kappa_ext),
+            "note": "each sampled term is Cov(date, contribution) over the forecast's samples "
+            "after any "
+            "update, so the terms add up to the variance (negative terms: sources the "
+            "measurements tied together); Omega_m and the lens velocity are first-order "
+            "estimates that the windows do not include",
+        },
+    }

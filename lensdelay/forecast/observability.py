@@ -10,6 +10,7 @@ images of a system. Beyond the span of the bundled Earth-orientation tables astr
 falls back to mean polar motion, which is harmless at the minute level needed here;
 that warning is silenced on purpose.
 """
+
 from __future__ import annotations
 
 import warnings
@@ -43,6 +44,7 @@ class Calendar:
     hours: np.ndarray
 
     def day_index(self, offsets_days_from_start) -> np.ndarray:
+        """Day numbers (0 = :attr:`start`) of times given in days after it."""
         return np.floor(np.asarray(offsets_days_from_start)).astype(int)
 
     def is_observable(self, offsets_days_from_start) -> np.ndarray:
@@ -76,8 +78,9 @@ def solar_elongation(target: SkyCoord, times: Time) -> np.ndarray:
         return sun.separation(SkyCoord(target.ra, target.dec, frame="icrs")).to_value(u.deg)
 
 
-def build_calendar(site: Site, target: SkyCoord, first: Time, n_days: int,
-                   step_minutes: float = 20.0) -> Calendar:
+def build_calendar(
+    site: Site, target: SkyCoord, first: Time, n_days: int, step_minutes: float = 20.0
+) -> Calendar:
     """Observability for ``n_days`` days starting at the UTC midnight on/before ``first``."""
     start = Time(np.floor(first.mjd), format="mjd", scale="utc")
     n_days = int(max(n_days, 1))
@@ -122,6 +125,8 @@ def altitudes(site: Site, target: SkyCoord, start: Time, grid_days: np.ndarray, 
 
     def alt(ra, dec):
         h = lst - ra
-        return np.rad2deg(np.arcsin(np.sin(phi) * np.sin(dec) + np.cos(phi) * np.cos(dec) * np.cos(h)))
+        return np.rad2deg(
+            np.arcsin(np.sin(phi) * np.sin(dec) + np.cos(phi) * np.cos(dec) * np.cos(h))
+        )
 
     return alt(ra_s, dec_s), alt(target.ra.to_value(u.rad), target.dec.to_value(u.rad))

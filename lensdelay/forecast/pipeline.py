@@ -5,6 +5,7 @@ Takes :class:`~lensdelay.model.scenario.Scenario` objects (reading files is for
 :mod:`lensdelay.report` turn into files and text. The probability model is in
 :mod:`lensdelay.inference.timing`; the per-sample physics in :mod:`lensdelay.forecast.samples`.
 """
+
 from __future__ import annotations
 
 import math
@@ -22,8 +23,19 @@ from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.inference.fit import fit
 from lensdelay.forecast.result import Forecast, ImageForecast, ImageSampleSet
 from lensdelay.forecast.samples import (
-    AGREEMENT, ForecastSettings, ImageTrack, Sighting, TimingUpdate, draw_scale_priors, image_tracks,
-    importance_update, majority, match_tracks, model_weights, parity_name, solve_samples,
+    AGREEMENT,
+    ForecastSettings,
+    ImageTrack,
+    Sighting,
+    TimingUpdate,
+    draw_scale_priors,
+    image_tracks,
+    importance_update,
+    majority,
+    match_tracks,
+    model_weights,
+    parity_name,
+    solve_samples,
 )
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import int_seed, sample
@@ -41,20 +53,29 @@ STATUS_MEANINGS = {
     "future": "its whole 95% window lies ahead",
 }
 
-TENSION_CAUSES = ("a mass model too simple for this lens, a nearby galaxy or group not in the model, "
-                  "microlensing distorting the light curve, or a wrong image identification")
+TENSION_CAUSES = (
+    "a mass model too simple for this lens, a nearby galaxy or group not in the model, "
+    "microlensing distorting the light curve, or a wrong image identification"
+)
 
 
 #: A sighting's 1-σ date error when none is given and the detection has none either, days.
 DEFAULT_SIGHTING_SIGMA_DAYS = 1.0
-_SIGHTING = re.compile(r"^(?:(?P<family>[^/=]+)/)?(?P<label>[^/=]+)=(?P<date>[^±]+?)"
-                       r"(?:(?:±|\+-|\+/-)(?P<sigma>[^±]+))?$")
+_SIGHTING = re.compile(
+    r"^(?:(?P<family>[^/=]+)/)?(?P<label>[^/=]+)=(?P<date>[^±]+?)"
+    r"(?:(?:±|\+-|\+/-)(?P<sigma>[^±]+))?$"
+)
 
 
 def default_sighting_sigma(transient) -> float:
-    """A sighting's default date error: the detection's own (the same light-curve
-    feature, measured the same way), or 1 day when the detection has none."""
-    return transient.date_sigma_days if transient.date_sigma_days > 0 else DEFAULT_SIGHTING_SIGMA_DAYS
+    """A sighting's default date error, in days.
+
+    The detection's own (the same light-curve feature, measured the same way), or 1 day
+    when the detection has none.
+    """
+    return (
+        transient.date_sigma_days if transient.date_sigma_days > 0 else DEFAULT_SIGHTING_SIGMA_DAYS
+    )
 
 
 def parse_sightings(items, scenario) -> list[Sighting]:
@@ -68,15 +89,20 @@ def parse_sightings(items, scenario) -> list[Sighting]:
     for item in items or []:
         m = _SIGHTING.match(item.strip())
         if not m:
-            raise InputError(f"seen must be [FAMILY/]LABEL=DATE[±SIGMA] (e.g. sn/C=2027-03-04±1.5), "
-                             f"got {item!r}")
+            raise InputError(
+                f"seen must be [FAMILY/]LABEL=DATE[±SIGMA] (e.g. sn/C=2027-03-04±1.5), got {item!r}"
+            )
         family = (m["family"] or tr.family).strip()
         label = m["label"].strip()
         if family != tr.family:
-            raise InputError(f"seen family must be the transient's family {tr.family!r}, got {family!r}")
+            raise InputError(
+                f"seen family must be the transient's family {tr.family!r}, got {family!r}"
+            )
         if label == tr.seen_in:
-            raise InputError(f"seen image must differ from the image the transient was detected in "
-                             f"({tr.family}/{tr.seen_in}), got {label!r}")
+            raise InputError(
+                f"seen image must differ from the image the transient was detected in "
+                f"({tr.family}/{tr.seen_in}), got {label!r}"
+            )
         if any(s.label == label for s in out):
             raise InputError(f"seen image must be given once, got {family}/{label} twice")
         date = parse_date(m["date"].strip(), f"seen {family}/{label}")
@@ -84,18 +110,22 @@ def parse_sightings(items, scenario) -> list[Sighting]:
             try:
                 sigma = float(m["sigma"])
             except ValueError as err:
-                raise InputError(f"seen {family}/{label} sigma must be a number of days, "
-                                 f"got {m['sigma']!r}") from err
+                raise InputError(
+                    f"seen {family}/{label} sigma must be a number of days, got {m['sigma']!r}"
+                ) from err
             if not (math.isfinite(sigma) and sigma > 0):
-                raise InputError(f"seen {family}/{label} sigma must be > 0 days, got {m['sigma']!r}")
+                raise InputError(
+                    f"seen {family}/{label} sigma must be > 0 days, got {m['sigma']!r}"
+                )
             out.append(Sighting(family, label, date, sigma, True))
         else:
             out.append(Sighting(family, label, date, default_sighting_sigma(tr), False))
     return out
 
 
-def _resolve_sightings(sightings, tracks: list[ImageTrack], first_tracks: list[ImageTrack],
-                       match_radius: float = 0.15) -> dict:
+def _resolve_sightings(
+    sightings, tracks: list[ImageTrack], first_tracks: list[ImageTrack], match_radius: float = 0.15
+) -> dict:
     """Map each sighting to a label of this model's tracks.
 
     Observed images keep their labels; a predicted image is named by the first model
@@ -106,8 +136,10 @@ def _resolve_sightings(sightings, tracks: list[ImageTrack], first_tracks: list[I
         named = [t for t in first_tracks if t.label == s.label]
         if not named:
             choices = ", ".join(f"{t.family}/{t.label}" for t in first_tracks)
-            raise InputError(f"seen image must be one of the forecast's images ({choices}), "
-                             f"got {s.family}/{s.label}")
+            raise InputError(
+                f"seen image must be one of the forecast's images ({choices}), "
+                f"got {s.family}/{s.label}"
+            )
         ref = named[0]
         if ref.observed:
             out[s.label] = s.label
@@ -128,8 +160,10 @@ def _timing_for(scenario, tracks, sightings, label_map) -> tuple[TimingData | No
     delays = []
     for d in scenario.delays:
         if d.family != tr.family:
-            notes.append(f"the measured delay {d.family}/{d.image} - {d.relative_to} is of another "
-                         "family than the transient's; the forecast does not use it")
+            notes.append(
+                f"the measured delay {d.family}/{d.image} - {d.relative_to} is of another "
+                "family than the transient's; the forecast does not use it"
+            )
             continue
         delays.append(d)
     rows = []
@@ -137,7 +171,9 @@ def _timing_for(scenario, tracks, sightings, label_map) -> tuple[TimingData | No
         label = label_map.get(s.label)
         if label is None:
             return None, [f"this model has no image matching {s.family}/{s.label}"]
-        rows.append(SightingRow(s.family, label, float((s.date - tr.date).to_value(u.day)), s.sigma_days))
+        rows.append(
+            SightingRow(s.family, label, float((s.date - tr.date).to_value(u.day)), s.sigma_days)
+        )
     if not delays and not rows:
         return None, notes
     columns = [(t.family, t.label) for t in tracks]
@@ -145,15 +181,31 @@ def _timing_for(scenario, tracks, sightings, label_map) -> tuple[TimingData | No
 
 
 def _chain_effective_samples(chain) -> float:
-    """walkers × kept steps / τ_max of an emcee run."""
+    """Walkers × kept steps / τ_max of an emcee run."""
     kept = chain.chain.shape[0] - chain.burn
     tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else float("inf")
     return chain.chain.shape[1] * kept / max(tau, 1.0)
 
 
-def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=None, kappa_ext=None,
-                 microlensing=None, depth=None, weighting="bic", seen=None, site: Site | None = None,
-                 walkers=32, steps=2000, now: Time | None = None, progress=False, prior="flat") -> dict:
+def run_forecast(
+    scenarios,
+    *,
+    n_samples=20000,
+    seed=1,
+    h0=None,
+    cosmology_name=None,
+    kappa_ext=None,
+    microlensing=None,
+    depth=None,
+    weighting="bic",
+    seen=None,
+    site: Site | None = None,
+    walkers=32,
+    steps=2000,
+    now: Time | None = None,
+    progress=False,
+    prior="flat",
+) -> dict:
     """Run the whole forecast; see :mod:`lensdelay.inference.timing` for the probability model.
 
     Parameters
@@ -172,13 +224,16 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
         raise InputError("scenarios must hold at least one scenario, got none")
     sc0 = scenarios[0]
     if sc0.transient is None:
-        raise InputError("transient is required for a forecast ([transient] with family, seen_in "
-                         "and date), got nothing", sc0.source)
+        raise InputError(
+            "transient is required for a forecast ([transient] with family, seen_in "
+            "and date), got nothing",
+            sc0.source,
+        )
     settings = ForecastSettings()
     if cosmology_name is not None:
         cosmo = cosmology_from_spec({"name": cosmology_name})
         scenarios = [replace(s, cosmology=cosmo) for s in scenarios]
-        settings = replace(settings, h0_prior=None)      # a named cosmology means its own H0
+        settings = replace(settings, h0_prior=None)  # a named cosmology means its own H0
     if h0 is not None:
         if not h0[1] > 0:
             raise InputError(f"h0 sigma must be > 0, got {h0[1]:g}")
@@ -203,27 +258,48 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
         raise InputError(f"weighting must be 'bic' or 'equal', got {weighting!r}")
     tr = sc0.transient
     sightings = parse_sightings(seen, sc0)
-    settings = replace(settings, n_samples=int(n_samples), seed=int(seed), weighting=weighting,
-                       model_prior=prior, sightings=tuple(sightings))
+    settings = replace(
+        settings,
+        n_samples=int(n_samples),
+        seed=int(seed),
+        weighting=weighting,
+        model_prior=prior,
+        sightings=tuple(sightings),
+    )
     now = Time.now() if now is None else now
     site = site or sc0.site
     # one seed for the whole run: every stage draws from its own child of it
     stage_seeds = iter(np.random.SeedSequence(seed).spawn(4 * len(scenarios) + 2))
     n = settings.n_samples
-    models, prior_models, updates, fits, chains, notes_per_model, timings = [], [], [], [], [], [], []
+    models, prior_models, updates, fits, chains, notes_per_model, timings = (
+        [],
+        [],
+        [],
+        [],
+        [],
+        [],
+        [],
+    )
     first_tracks = None
     stages = _stage_display(progress, 2 * len(scenarios) + 1)
     for sc in scenarios:
         stages(f"fitting {sc.model.label}")
         like = ImageLikelihood(sc, sc.model, prior=prior)
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore", LensdelayWarning)   # reported in the notes instead
+            warnings.simplefilter("ignore", LensdelayWarning)  # reported in the notes instead
             try:
                 result = fit(like, seed=int_seed(next(stage_seeds)))
             except InputError as err:
                 raise err.with_source(sc.source) from err
-            chain = sample(like, result.values, walkers=walkers, steps=steps,
-                           seed=int_seed(next(stage_seeds)), progress=progress, scales=result.errors)
+            chain = sample(
+                like,
+                result.values,
+                walkers=walkers,
+                steps=steps,
+                seed=int_seed(next(stage_seeds)),
+                progress=progress,
+                scales=result.errors,
+            )
         stages(f"images and timing update, {sc.model.label}")
         notes = list(result.notes) + list(chain.warnings)
         if result.dof <= 0:
@@ -239,16 +315,28 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
         h0_draws, kappa_draws = draw_scale_priors(settings, like.h0_ref, n, rng)
         prior_samples = solve_samples(like, draws, tracks, tr.seen_in, h0_draws, kappa_draws)
         if not np.all(prior_samples.valid):
-            notes.append(f"the reference image {tr.seen_in} is missing in "
-                         f"{100 * np.mean(~prior_samples.valid):.1f}% of samples; those samples are dropped")
+            notes.append(
+                f"the reference image {tr.seen_in} is missing in "
+                f"{100 * np.mean(~prior_samples.valid):.1f}% of samples; those samples are dropped"
+            )
         if timing is None and sightings:
             # this model lacks an image that was seen: the data are impossible under it
             samples, update = prior_samples, TimingUpdate("none", np.zeros(n), 0.0, -np.inf)
         else:
-            samples, update, chain2 = condition_on_timing(sc, like, chain, tracks, timing, prior_samples,
-                                                          settings, walkers=walkers, steps=steps,
-                                                          seed=next(stage_seeds), progress=progress,
-                                                          prior=prior)
+            samples, update, chain2 = condition_on_timing(
+                sc,
+                like,
+                chain,
+                tracks,
+                timing,
+                prior_samples,
+                settings,
+                walkers=walkers,
+                steps=steps,
+                seed=next(stage_seeds),
+                progress=progress,
+                prior=prior,
+            )
             if chain2 is not None:
                 chains.append(chain2)
         t0 = _draw_t0(timing, samples, tr, rng)
@@ -261,14 +349,30 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
         notes_per_model.append(notes + update.notes)
         timings.append(timing)
     if not any(np.isfinite(u_.log_evidence) for u_ in updates):
-        raise InputError("the sightings and measured delays must be possible under at least one model "
-                         "(each names images the model has), got none", sc0.source)
-    w_model = model_weights([f.bic for f in fits], [u_.log_evidence for u_ in updates], settings.weighting)
+        raise InputError(
+            "the sightings and measured delays must be possible under at least one model "
+            "(each names images the model has), got none",
+            sc0.source,
+        )
+    w_model = model_weights(
+        [f.bic for f in fits], [u_.log_evidence for u_ in updates], settings.weighting
+    )
     w_prior = model_weights([f.bic for f in fits], np.zeros(len(fits)), settings.weighting)
-    tension_rows = _tensions(timings, prior_models, w_prior, np.random.default_rng(next(stage_seeds)))
-    images = _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, now,
-                        np.random.default_rng(next(stage_seeds)),
-                        tension_rows)
+    tension_rows = _tensions(
+        timings, prior_models, w_prior, np.random.default_rng(next(stage_seeds))
+    )
+    images = _summarise(
+        models,
+        updates,
+        w_model,
+        prior_models,
+        w_prior,
+        tr,
+        settings,
+        now,
+        np.random.default_rng(next(stage_seeds)),
+        tension_rows,
+    )
     stages("observability")
     calendar = None
     if site is not None and sc0.sky is not None:
@@ -286,43 +390,83 @@ def run_forecast(scenarios, *, n_samples=20000, seed=1, h0=None, cosmology_name=
     cosmology = scenarios[0].cosmology
     notes = []
     if now < tr.date:
-        notes.append(f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
-                     "statuses are judged as of now")
+        notes.append(
+            f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
+            "statuses are judged as of now"
+        )
     timing_doc = {
-        "sightings": [{"family": s.family, "image": s.label, "date": s.date.isot[:19] + "Z",
-                       "sigma_days": s.sigma_days,
-                       "sigma_source": "given" if s.sigma_stated else "default"} for s in sightings],
-        "delays": [{"family": d.family, "image": d.image, "relative_to": d.relative_to, "days": d.days,
-                    "sigma": d.sigma} for d in sc0.delays],
-        "models": [{"label": f.model_label, "route": up.route,
-                    "effective_samples": float(up.effective_samples),
-                    "importance_effective_samples": (None if up.importance_effective_samples is None
-                                                     else float(up.importance_effective_samples)),
-                    "log_evidence": float(up.log_evidence) if np.isfinite(up.log_evidence) else None}
-                   for f, up in zip(fits, updates)],
+        "sightings": [
+            {
+                "family": s.family,
+                "image": s.label,
+                "date": s.date.isot[:19] + "Z",
+                "sigma_days": s.sigma_days,
+                "sigma_source": "given" if s.sigma_stated else "default",
+            }
+            for s in sightings
+        ],
+        "delays": [
+            {
+                "family": d.family,
+                "image": d.image,
+                "relative_to": d.relative_to,
+                "days": d.days,
+                "sigma": d.sigma,
+            }
+            for d in sc0.delays
+        ],
+        "models": [
+            {
+                "label": f.model_label,
+                "route": up.route,
+                "effective_samples": float(up.effective_samples),
+                "importance_effective_samples": (
+                    None
+                    if up.importance_effective_samples is None
+                    else float(up.importance_effective_samples)
+                ),
+                "log_evidence": float(up.log_evidence) if np.isfinite(up.log_evidence) else None,
+            }
+            for f, up in zip(fits, updates)
+        ],
         "min_effective_samples": settings.min_ess_fraction * n,
         "tensions": tension_rows,
     }
     return Forecast(
-        scenario=sc0, settings=settings, site=site, now=now,
+        scenario=sc0,
+        settings=settings,
+        site=site,
+        now=now,
         images=tuple(_image_forecast(e, tr.date) for e in images),
-        model_labels=tuple(f.model_label for f in fits), fits=tuple(fits), chains=tuple(chains),
-        model_weights=w_model, model_weights_positions=w_prior, updates=tuple(updates),
-        model_notes=tuple(tuple(n) for n in notes_per_model), timing=timing_doc, notes=tuple(notes),
-        calendar=calendar, cosmology=cosmology,
-        h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)))
+        model_labels=tuple(f.model_label for f in fits),
+        fits=tuple(fits),
+        chains=tuple(chains),
+        model_weights=w_model,
+        model_weights_positions=w_prior,
+        updates=tuple(updates),
+        model_notes=tuple(tuple(n) for n in notes_per_model),
+        timing=timing_doc,
+        notes=tuple(notes),
+        calendar=calendar,
+        cosmology=cosmology,
+        h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
+    )
 
 
 def _image_forecast(entry: dict, detection_date) -> ImageForecast:
     """The summary entry of one image as a frozen result."""
     fields = {k: v for k, v in entry.items() if k not in ("samples", "offsets", "weights", "flag")}
     samples = ImageSampleSet(offsets=entry["offsets"], weights=entry["weights"], **entry["samples"])
-    return ImageForecast(**fields, flags=tuple(entry["flag"]), samples=samples, detection_date=detection_date)
+    return ImageForecast(
+        **fields, flags=tuple(entry["flag"]), samples=samples, detection_date=detection_date
+    )
 
 
 def _stage_display(progress, total: int):
-    """A bar over the forecast's stages on stderr when ``progress`` is True (tqdm); the
-    returned function takes the next stage's name, or None when all are done."""
+    """A bar over the forecast's stages on stderr when ``progress`` is True (tqdm).
+
+    The returned function takes the next stage's name, or None when all are done.
+    """
     if progress is not True:
         return lambda name: None
     from tqdm import tqdm
@@ -338,6 +482,7 @@ def _stage_display(progress, total: int):
             bar.close()
         else:
             bar.set_description(f"forecast: {name}")
+
     return next_stage
 
 
@@ -350,8 +495,21 @@ def _draw_t0(timing, samples, tr, rng) -> np.ndarray:
     return np.where(np.isfinite(t0), t0, np.nan)
 
 
-def condition_on_timing(sc, like, chain, tracks, timing, prior_samples, settings, *, walkers, steps, seed,
-                        progress=False, prior="flat"):
+def condition_on_timing(
+    sc,
+    like,
+    chain,
+    tracks,
+    timing,
+    prior_samples,
+    settings,
+    *,
+    walkers,
+    steps,
+    seed,
+    progress=False,
+    prior="flat",
+):
     """Condition one model's forecast samples on the timing data.
 
     Importance weights when they leave at least ``settings.min_ess_fraction`` of the
@@ -362,20 +520,46 @@ def condition_on_timing(sc, like, chain, tracks, timing, prior_samples, settings
     update, good = importance_update(prior_samples, timing, settings.min_ess_fraction)
     if good:
         return prior_samples, update, None
-    fit_seed, sample_seed, draw_seed = np.random.SeedSequence(seed).spawn(3) if isinstance(seed, int) \
-        else seed.spawn(3)
-    return _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps,
-                     (int_seed(fit_seed), int_seed(sample_seed), np.random.default_rng(draw_seed)), progress, prior)
+    fit_seed, sample_seed, draw_seed = (
+        np.random.SeedSequence(seed).spawn(3) if isinstance(seed, int) else seed.spawn(3)
+    )
+    return _resample(
+        sc,
+        like,
+        chain,
+        tracks,
+        timing,
+        update,
+        settings,
+        walkers,
+        steps,
+        (int_seed(fit_seed), int_seed(sample_seed), np.random.default_rng(draw_seed)),
+        progress,
+        prior,
+    )
 
 
-def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps, seeds, progress, prior):
+def _resample(
+    sc, like, chain, tracks, timing, update, settings, walkers, steps, seeds, progress, prior
+):
     """Sample the joint posterior of lens, H0, κ_ext given positions and timing data."""
     st = settings
-    tracked = {tracks[0].family: {t.label: (t.x, t.y) for t in tracks if not t.observed
-                                  and (t.family, t.label) in timing.columns}}
-    joint = ImageLikelihood(sc, sc.model, prior=prior, timing=timing,
-                            h0_prior=st.h0_prior if st.h0_prior is not None else "fixed",
-                            kappa_prior=st.kappa_ext, tracked=tracked)
+    tracked = {
+        tracks[0].family: {
+            t.label: (t.x, t.y)
+            for t in tracks
+            if not t.observed and (t.family, t.label) in timing.columns
+        }
+    }
+    joint = ImageLikelihood(
+        sc,
+        sc.model,
+        prior=prior,
+        timing=timing,
+        h0_prior=st.h0_prior if st.h0_prior is not None else "fixed",
+        kappa_prior=st.kappa_ext,
+        tracked=tracked,
+    )
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
         fit_seed, sample_seed, rng = seeds
@@ -384,27 +568,55 @@ def _resample(sc, like, chain, tracks, timing, update, settings, walkers, steps,
         # judged by the autocorrelation time of the positions-only chain
         tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else 50.0
         want = st.min_ess_fraction * st.n_samples
-        needed = int(np.ceil(1.5 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(2 * tau)
+        needed = int(np.ceil(1.5 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(
+            2 * tau
+        )
         n_steps = int(min(max(steps, needed), 50_000))
-        jchain = sample(joint, jres.values, walkers=walkers, steps=n_steps, seed=sample_seed,
-                        progress=progress, scales=jres.errors)
+        jchain = sample(
+            joint,
+            jres.values,
+            walkers=walkers,
+            steps=n_steps,
+            seed=sample_seed,
+            progress=progress,
+            scales=jres.errors,
+        )
     flat = jchain.samples()
     n = st.n_samples
     draws = flat[rng.integers(0, len(flat), n)]
     h0 = draws[:, joint.h0_index] if joint.h0_index is not None else np.full(n, like.h0_ref)
-    kappa = draws[:, joint.kappa_index] if joint.kappa_index is not None else np.full(n, joint.kappa_fixed)
+    kappa = (
+        draws[:, joint.kappa_index]
+        if joint.kappa_index is not None
+        else np.full(n, joint.kappa_fixed)
+    )
     samples = solve_samples(joint, draws, tracks, sc.transient.seen_in, h0, kappa)
     ess = min(float(n), _chain_effective_samples(jchain))
     notes = list(update.notes) + [
-        f"the measurements left {update.importance_effective_samples:.0f} effective samples of {n} after "
+        f"the measurements left {update.importance_effective_samples:.0f} effective samples of "
+        f"{n} after "
         f"re-weighting; the posterior was sampled again with them ({n_steps} steps, "
-        f"about {ess:.0f} independent samples)"]
+        f"about {ess:.0f} independent samples)"
+    ]
     notes += list(jchain.warnings)
     if ess < want:
-        notes.append(f"only about {ess:.0f} independent samples (goal {want:.0f}); increase the sampler steps")
+        notes.append(
+            f"only about {ess:.0f} independent samples (goal {want:.0f}); increase the sampler "
+            f"steps"
+        )
     valid = samples.valid.astype(float)
-    return samples, TimingUpdate("resample", valid / max(valid.sum(), 1e-300), ess, update.log_evidence,
-                                 update.importance_effective_samples, notes), jchain
+    return (
+        samples,
+        TimingUpdate(
+            "resample",
+            valid / max(valid.sum(), 1e-300),
+            ess,
+            update.log_evidence,
+            update.importance_effective_samples,
+            notes,
+        ),
+        jchain,
+    )
 
 
 def _tensions(timings, prior_models, w_prior, rng) -> list[dict]:
@@ -413,14 +625,25 @@ def _tensions(timings, prior_models, w_prior, rng) -> list[dict]:
     Every model's timing data has its own columns (labels) but the same rows, so the
     simulated measurements of the models are pooled with the models' weights.
     """
-    parts = [(t, s, w) for t, (s, _), w in zip(timings, prior_models, w_prior) if t is not None and w > 0]
+    parts = [
+        (t, s, w) for t, (s, _), w in zip(timings, prior_models, w_prior) if t is not None and w > 0
+    ]
     if not parts:
         return []
     sims = np.vstack([t.predictive_draws(s.columns(t), rng) for t, s, _ in parts])
     weights = np.concatenate([w * s.valid / max(s.valid.sum(), 1) for _, s, w in parts])
-    return [{"measurement": t.name, "measured": t.measured, "measurement_sigma": t.measurement_sigma,
-             "predicted": t.predicted, "sigma": t.sigma, "p_value": t.p_value, "in_tension": t.in_tension}
-            for t in tensions_from_draws(parts[0][0], sims, weights)]
+    return [
+        {
+            "measurement": t.name,
+            "measured": t.measured,
+            "measurement_sigma": t.measurement_sigma,
+            "predicted": t.predicted,
+            "sigma": t.sigma,
+            "p_value": t.p_value,
+            "in_tension": t.in_tension,
+        }
+        for t in tensions_from_draws(parts[0][0], sims, weights)
+    ]
 
 
 def _status(is_seen, q, now_offset, order_agreement) -> str:
@@ -436,7 +659,9 @@ def _status(is_seen, q, now_offset, order_agreement) -> str:
     return "future"
 
 
-def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, now, rng, tension_rows):
+def _summarise(
+    models, updates, w_model, prior_models, w_prior, tr, settings, now, rng, tension_rows
+):
     """One entry per image (matched across models), with mixture weights."""
     now_offset = float((now - tr.date).to_value(u.day))
     groups = match_tracks([m for m, _ in models])
@@ -447,8 +672,25 @@ def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, no
             tension_by_image[row["measurement"].split("/", 1)[1]] = row
     images = []
     for g in groups:
-        cols = {k: [] for k in ("delay", "offsets", "mu", "parity", "rank", "weights", "lens_days", "h0",
-                                "kappa", "t0", "model", "x", "y", "mag")}
+        cols = {
+            k: []
+            for k in (
+                "delay",
+                "offsets",
+                "mu",
+                "parity",
+                "rank",
+                "weights",
+                "lens_days",
+                "h0",
+                "kappa",
+                "t0",
+                "model",
+                "x",
+                "y",
+                "mag",
+            )
+        }
         prior_off, prior_w = [], []
         per_model = {}
         for m_index, col in g["members"]:
@@ -469,17 +711,25 @@ def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, no
             cols["x"].append(samples.x[:, col])
             cols["y"].append(samples.y[:, col])
             if tr.magnitude is not None:
-                ratio = np.abs(samples.magnification[:, col]) / np.abs(samples.magnification[:, samples.reference])
-                scatter = (rng.normal(0, settings.microlensing_mag, len(ratio))
-                           if settings.microlensing_mag > 0 and col != samples.reference else 0.0)
+                ratio = np.abs(samples.magnification[:, col]) / np.abs(
+                    samples.magnification[:, samples.reference]
+                )
+                scatter = (
+                    rng.normal(0, settings.microlensing_mag, len(ratio))
+                    if settings.microlensing_mag > 0 and col != samples.reference
+                    else 0.0
+                )
                 cols["mag"].append(tr.magnitude - 2.5 * np.log10(ratio) + scatter)
             ps, pt0 = prior_models[m_index]
             prior_off.append(pt0 + np.where(ps.exists[:, col], ps.delay[:, col], np.nan))
-            prior_w.append(w_prior[m_index] * (ps.exists[:, col] & ps.valid) / max(ps.valid.sum(), 1))
+            prior_w.append(
+                w_prior[m_index] * (ps.exists[:, col] & ps.valid) / max(ps.valid.sum(), 1)
+            )
             wsum = w.sum()
             per_model[samples.model_label] = {
                 "weight": float(w_model[m_index]),
-                "delay_median": float(weighted_quantiles(delay, w, [50])[0]) if wsum > 0 else None}
+                "delay_median": float(weighted_quantiles(delay, w, [50])[0]) if wsum > 0 else None,
+            }
         arr = {k: np.concatenate(v) for k, v in cols.items() if v}
         weights = arr["weights"]
         total = weights.sum()
@@ -497,12 +747,17 @@ def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, no
         off_q = quantile_summary(arr["offsets"], weights)
         seen = is_ref or g["label"] in sighted
         entry = {
-            "family": g["family"], "label": g["label"], "observed": bool(g["observed"]),
+            "family": g["family"],
+            "label": g["label"],
+            "observed": bool(g["observed"]),
             "x": float(weighted_quantiles(arr["x"], weights, [50])[0]),
             "y": float(weighted_quantiles(arr["y"], weights, [50])[0]),
-            "parity": parity_name(par), "parity_agreement": par_share,
-            "arrival_rank": int(rk), "rank_agreement": rk_share,
-            "order": order, "order_agreement": order_agreement,
+            "parity": parity_name(par),
+            "parity_agreement": par_share,
+            "arrival_rank": int(rk),
+            "rank_agreement": rk_share,
+            "order": order,
+            "order_agreement": order_agreement,
             "flag": [],
             "exists_fraction": exists_share,
             "status": _status(seen, off_q, now_offset, order_agreement),
@@ -511,11 +766,14 @@ def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, no
             "magnification": quantile_summary(arr["mu"], weights),
             "date_offset_days": off_q,
             "per_model": per_model,
-            "offsets": arr["offsets"], "weights": weights,
+            "offsets": arr["offsets"],
+            "weights": weights,
             "samples": {k: arr[k] for k in ("lens_days", "h0", "kappa", "t0", "model", "delay")},
         }
         if min(par_share, rk_share) < AGREEMENT:
-            entry["flag"].append(f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)")
+            entry["flag"].append(
+                f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)"
+            )
         if exists_share < AGREEMENT and not is_ref:
             entry["flag"].append(f"the image exists in only {100 * exists_share:.0f}% of samples")
         medians = [v["delay_median"] for v in per_model.values() if v["delay_median"] is not None]
@@ -525,8 +783,11 @@ def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, no
         pq = weighted_quantiles(np.concatenate(prior_off), pw, [2.5, 97.5])
         width_before = pq[1] - pq[0]
         has_timing = any(up.route != "none" for up in updates)
-        entry["interval95_change"] = (float((off_q["p97.5"] - off_q["p2.5"]) / width_before)
-                                      if has_timing and width_before > 0 else None)
+        entry["interval95_change"] = (
+            float((off_q["p97.5"] - off_q["p2.5"]) / width_before)
+            if has_timing and width_before > 0
+            else None
+        )
         if "mag" in arr:
             entry["magnitude"] = quantile_summary(arr["mag"], weights)
             entry["fainter_than_depth"] = bool(entry["magnitude"]["median"] > settings.depth)
@@ -535,22 +796,28 @@ def _summarise(models, updates, w_model, prior_models, w_prior, tr, settings, no
             entry["fainter_than_depth"] = None
         # part of the 95% window before the detection: archives may hold the event
         if not seen and off_q["p2.5"] < 0:
-            entry["archival_search"] = {"from_offset": off_q["p2.5"],
-                                        "to_offset": min(off_q["p97.5"], max(now_offset, 0.0))}
+            entry["archival_search"] = {
+                "from_offset": off_q["p2.5"],
+                "to_offset": min(off_q["p97.5"], max(now_offset, 0.0)),
+            }
         else:
             entry["archival_search"] = None
         entry["tension"] = tension_by_image.get(g["label"])
         if entry["tension"] is not None and entry["tension"]["in_tension"]:
-            entry["flag"].append(f"the sighting is {abs(entry['tension']['sigma']):.1f} sigma from the "
-                                 "prediction made from the image positions")
+            entry["flag"].append(
+                f"the sighting is {abs(entry['tension']['sigma']):.1f} sigma from the "
+                "prediction made from the image positions"
+            )
         images.append(entry)
     images.sort(key=lambda e: (e["date_offset_days"]["median"], e["label"]))
     return images
 
 
 def _observability(im, calendar, tr, now):
-    """Observable days in the 95% window, the chance the event falls on one, and the
-    observable runs of the window still ahead of ``now``."""
+    """Observable days in the 95% window and the chance the event falls on one.
+
+    Also the observable runs of the window still ahead of ``now`` (for the calendar).
+    """
     start_offset = (tr.date - calendar.start).to_value("day")
     offs = im["offsets"] + start_offset
     ok = np.isfinite(offs) & (im["weights"] > 0)
@@ -563,10 +830,11 @@ def _observability(im, calendar, tr, now):
     n_obs = int(sum(b - a + 1 for a, b in runs))
     today = int(np.floor((now - calendar.start).to_value("day")))
     ahead = [(max(a, today), b) for a, b in runs if b >= today]
-    day = lambda i: (calendar.start + i * u.day).iso[:10]   # noqa: E731
+    day = lambda i: (calendar.start + i * u.day).iso[:10]  # noqa: E731
     im["observability"] = {
         "probability_observable": prob,
-        "observable_days_in_95": n_obs, "days_in_95": int(d1 - d0 + 1),
+        "observable_days_in_95": n_obs,
+        "days_in_95": int(d1 - d0 + 1),
         "windows": [[day(a), day(b)] for a, b in runs],
         "windows_ahead": [[day(a), day(b)] for a, b in ahead],
     }

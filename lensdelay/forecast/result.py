@@ -6,6 +6,7 @@ ready for JSON; where a person reads a date the result offers astropy ``Time``
 budget and the provenance are added with :func:`dataclasses.replace`, never by
 changing a result in place.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field

@@ -13,6 +13,7 @@ measurements as likelihood terms (done by the caller, which owns the sampler).
 
 This module computes; it reads and writes nothing.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -24,7 +25,9 @@ from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.images import find_images, keep_distinct_tracks, newton_polish
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.summaries import QUANTILES, effective_sample_size, quantile_summary, weighted_quantiles  # noqa: F401
+from lensdelay.inference.summaries import (
+    effective_sample_size,
+)  # noqa: F401
 from lensdelay.inference.timing import TimingData
 
 #: Default H0 prior, km/s/Mpc: wide enough to span both the early-universe (~67) and
@@ -51,9 +54,9 @@ class Sighting:
 
     family: str
     label: str
-    date: object                 # astropy Time
+    date: object  # astropy Time
     sigma_days: float
-    sigma_stated: bool = True    # False: the default was used
+    sigma_stated: bool = True  # False: the default was used
 
 
 @dataclass(frozen=True)
@@ -68,7 +71,7 @@ class ForecastSettings:
     depth: float = DEFAULT_DEPTH
     weighting: str = "bic"
     sightings: tuple[Sighting, ...] = ()
-    model_prior: str = "flat"                    # prior of the mass-model posterior
+    model_prior: str = "flat"  # prior of the mass-model posterior
     min_ess_fraction: float = MIN_ESS_FRACTION
 
 
@@ -79,7 +82,7 @@ class ImageTrack:
     family: str
     label: str
     observed: bool
-    x: float                     # start of Newton's method, arcsec
+    x: float  # start of Newton's method, arcsec
     y: float
 
 
@@ -94,7 +97,9 @@ def label_unobserved(existing, n) -> list[str]:
     return labels
 
 
-def image_tracks(like: ImageLikelihood, best: np.ndarray, family: str) -> tuple[list[ImageTrack], list[str]]:
+def image_tracks(
+    like: ImageLikelihood, best: np.ndarray, family: str
+) -> tuple[list[ImageTrack], list[str]]:
     """Every image of ``family`` at the best fit: observed ones matched, the rest labelled anew.
 
     Returns the tracks and notes (an observed image the model lacks is forecast from its
@@ -103,7 +108,7 @@ def image_tracks(like: ImageLikelihood, best: np.ndarray, family: str) -> tuple[
     notes = []
     k = [f.label for f in like.families].index(family)
     fam = like.families[k]
-    lens_best = like.model.lens(best[:like.n_model])
+    lens_best = like.model.lens(best[: like.n_model])
     bx, by = best[like.source_slice(k)]
     table = find_images(lens_best, [bx], [by], fam.scale)
     used = np.zeros(len(table), dtype=bool)
@@ -112,8 +117,10 @@ def image_tracks(like: ImageLikelihood, best: np.ndarray, family: str) -> tuple[
         d = np.hypot(table.x - fam.x[i], table.y - fam.y[i])
         j = int(np.argmin(d)) if len(d) else -1
         if j < 0 or d[j] > max(10 * fam.sigma[i], 0.05) or used[j]:
-            notes.append(f"observed image {lab} has no model counterpart at the best fit; "
-                         "it is forecast from its observed position")
+            notes.append(
+                f"observed image {lab} has no model counterpart at the best fit; "
+                "it is forecast from its observed position"
+            )
             tracks.append(ImageTrack(family, lab, True, float(fam.x[i]), float(fam.y[i])))
         else:
             used[j] = True
@@ -134,7 +141,7 @@ class ModelSamples:
 
     model_label: str
     tracks: list[ImageTrack]
-    reference: int               # column of the reference image
+    reference: int  # column of the reference image
     x: np.ndarray
     y: np.ndarray
     exists: np.ndarray
@@ -148,10 +155,12 @@ class ModelSamples:
 
     @property
     def labels(self) -> list[str]:
+        """Image labels in column order."""
         return [t.label for t in self.tracks]
 
     @property
     def delay(self) -> np.ndarray:
+        """Delays after the reference image (days), per sample and image."""
         return self.lens_days * self.scale[:, None]
 
     @property
@@ -166,8 +175,14 @@ class ModelSamples:
         return np.where(self.exists[:, cols], self.delay[:, cols], np.nan)
 
 
-def solve_samples(like: ImageLikelihood, draws: np.ndarray, tracks: list[ImageTrack], reference: str,
-                  h0: np.ndarray, kappa: np.ndarray) -> ModelSamples:
+def solve_samples(
+    like: ImageLikelihood,
+    draws: np.ndarray,
+    tracks: list[ImageTrack],
+    reference: str,
+    h0: np.ndarray,
+    kappa: np.ndarray,
+) -> ModelSamples:
     """All images of the tracks' family for every parameter row of ``draws`` at once.
 
     Parameters
@@ -192,8 +207,16 @@ def solve_samples(like: ImageLikelihood, draws: np.ndarray, tracks: list[ImageTr
     lens = like.lens_for(draws)
     src = draws[:, like.source_slice(k_fam)]
     sbx, sby = src[:, :1], src[:, 1:]
-    x, y, err = newton_polish(lens, np.broadcast_to(sx, (n, len(sx))), np.broadcast_to(sy, (n, len(sy))),
-                              sbx, sby, fam.scale, iterations=40, max_step=0.05)
+    x, y, err = newton_polish(
+        lens,
+        np.broadcast_to(sx, (n, len(sx))),
+        np.broadcast_to(sy, (n, len(sy))),
+        sbx,
+        sby,
+        fam.scale,
+        iterations=40,
+        max_step=0.05,
+    )
     # two tracks on one image: the later one has vanished
     exists = keep_distinct_tracks(x, y, err < 1e-8, 1e-6)
     with np.errstate(all="ignore"):
@@ -202,15 +225,29 @@ def solve_samples(like: ImageLikelihood, draws: np.ndarray, tracks: list[ImageTr
     parity = lens.parity_code(x, y, fam.scale)
     tau = np.where(exists, tau, np.nan)
     ref = [t.label for t in tracks].index(reference)
-    lens_days = fermat_difference_to_days(tau - tau[:, ref:ref + 1], fam.days_per_arcsec2)
+    lens_days = fermat_difference_to_days(tau - tau[:, ref : ref + 1], fam.days_per_arcsec2)
     rank = np.argsort(np.argsort(np.where(exists, tau, np.inf), axis=1), axis=1) + 1
     scale = delay_scale(h0, like.h0_ref, kappa)
-    return ModelSamples(like.model.label, list(tracks), ref, x, y, exists, lens_days,
-                        np.where(exists, mu, np.nan), parity, rank, h0, kappa, scale)
+    return ModelSamples(
+        like.model.label,
+        list(tracks),
+        ref,
+        x,
+        y,
+        exists,
+        lens_days,
+        np.where(exists, mu, np.nan),
+        parity,
+        rank,
+        h0,
+        kappa,
+        scale,
+    )
 
 
-def draw_scale_priors(settings: ForecastSettings, h0_ref: float, n: int,
-                      rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+def draw_scale_priors(
+    settings: ForecastSettings, h0_ref: float, n: int, rng: np.random.Generator
+) -> tuple[np.ndarray, np.ndarray]:
     """H0 and κ_ext per sample from their priors (H0 fixed when the prior is None)."""
     if settings.h0_prior is not None:
         h0 = rng.normal(settings.h0_prior[0], settings.h0_prior[1], n)
@@ -226,16 +263,17 @@ def draw_scale_priors(settings: ForecastSettings, h0_ref: float, n: int,
 class TimingUpdate:
     """How one model's samples were conditioned on the timing data."""
 
-    route: str                   # "none", "reweight" or "resample"
-    weights: np.ndarray          # per sample, sum 1
+    route: str  # "none", "reweight" or "resample"
+    weights: np.ndarray  # per sample, sum 1
     effective_samples: float
-    log_evidence: float          # log E[L_timing] over the samples without timing data
+    log_evidence: float  # log E[L_timing] over the samples without timing data
     importance_effective_samples: float | None = None
     notes: list[str] = field(default_factory=list)
 
 
-def importance_update(samples: ModelSamples, timing: TimingData | None,
-                      min_fraction: float = MIN_ESS_FRACTION) -> tuple[TimingUpdate, bool]:
+def importance_update(
+    samples: ModelSamples, timing: TimingData | None, min_fraction: float = MIN_ESS_FRACTION
+) -> tuple[TimingUpdate, bool]:
     """Importance weights of the samples given the timing data.
 
     Returns the update and whether it is good enough (effective sample size at least
@@ -252,9 +290,14 @@ def importance_update(samples: ModelSamples, timing: TimingData | None,
     logl = timing.log_likelihood(samples.columns(timing))
     logl = np.where(samples.valid, logl, -np.inf)
     if not np.any(np.isfinite(logl)):
-        return TimingUpdate("reweight", np.zeros(n), 0.0, -np.inf,
-                            0.0, ["the timing data are impossible under every sample "
-                                  "(an image they name is missing)"]), False
+        return TimingUpdate(
+            "reweight",
+            np.zeros(n),
+            0.0,
+            -np.inf,
+            0.0,
+            ["the timing data are impossible under every sample (an image they name is missing)"],
+        ), False
     log_evidence = float(logsumexp(logl) - np.log(max(base.sum(), 1.0)))
     w = np.exp(logl - np.max(logl))
     ess = effective_sample_size(w)
@@ -301,19 +344,29 @@ def match_tracks(models: list[ModelSamples], match_radius: float = 0.15) -> list
             for g in groups:
                 if t.observed and g["observed"] and g["label"] == t.label:
                     target = g
-                elif (not t.observed and not g["observed"]
-                      and np.hypot(g["x"] - t.x, g["y"] - t.y) < match_radius
-                      and m_index not in [mm for mm, _ in g["members"]]):
+                elif (
+                    not t.observed
+                    and not g["observed"]
+                    and np.hypot(g["x"] - t.x, g["y"] - t.y) < match_radius
+                    and m_index not in [mm for mm, _ in g["members"]]
+                ):
                     target = g
                 if target is not None:
                     break
             if target is None:
-                target = {"family": t.family, "label": t.label, "observed": t.observed,
-                          "x": t.x, "y": t.y, "members": []}
+                target = {
+                    "family": t.family,
+                    "label": t.label,
+                    "observed": t.observed,
+                    "x": t.x,
+                    "y": t.y,
+                    "members": [],
+                }
                 groups.append(target)
             target["members"].append((m_index, col))
     return groups
 
 
 def parity_name(code) -> str:
+    """The name of a parity code (minimum, saddle, maximum)."""
     return PARITIES[int(code)]

@@ -3,6 +3,7 @@
 Takes a :class:`~lensdelay.model.scenario.Scenario`; the statistics are in
 :mod:`lensdelay.hubble.analysis`.
 """
+
 from __future__ import annotations
 
 import warnings
@@ -20,11 +21,25 @@ from lensdelay.model.cosmology import cosmology_from_class, cosmology_from_spec
 from lensdelay.model.scenario import Scenario
 
 
-def run_hubble(scenario: Scenario, *, kappa_ext=(0.0, 0.05), om0=None, curves=(), walkers=32, steps=2000,
-               seed=1, progress=False, cosmology_name=None, cosmology_class=None, class_params=None,
-               prior="flat") -> dict:
-    """Delay-vs-H0 curves of the lens-model posterior and, with measured delays, the joint
-    lens + H0 posterior and its dependence on κ_ext (the mass-sheet degeneracy).
+def run_hubble(
+    scenario: Scenario,
+    *,
+    kappa_ext=(0.0, 0.05),
+    om0=None,
+    curves=(),
+    walkers=32,
+    steps=2000,
+    seed=1,
+    progress=False,
+    cosmology_name=None,
+    cosmology_class=None,
+    class_params=None,
+    prior="flat",
+) -> dict:
+    """Delays against H0 and, with measured delays, the joint lens + H0 posterior.
+
+    The curves come from the lens-model posterior; the H0 posterior is shown under
+    several κ_ext priors (the mass-sheet degeneracy).
 
     Parameters
     ----------
@@ -51,9 +66,13 @@ def run_hubble(scenario: Scenario, *, kappa_ext=(0.0, 0.05), om0=None, curves=()
     if cosmology_name:
         sc = replace(sc, cosmology=cosmology_from_spec({"name": cosmology_name}))
     if cosmology_class:
-        sc = replace(sc, cosmology=cosmology_from_class(cosmology_class, class_params or {}, sc.cosmology))
+        sc = replace(
+            sc, cosmology=cosmology_from_class(cosmology_class, class_params or {}, sc.cosmology)
+        )
     # one seed for the whole run: every stage draws from its own child of it
-    fit_seq, sample_seq, joint_fit_seq, joint_sample_seq, draw_seq = np.random.SeedSequence(seed).spawn(5)
+    fit_seq, sample_seq, joint_fit_seq, joint_sample_seq, draw_seq = np.random.SeedSequence(
+        seed
+    ).spawn(5)
     rng = np.random.default_rng(draw_seq)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
@@ -62,14 +81,27 @@ def run_hubble(scenario: Scenario, *, kappa_ext=(0.0, 0.05), om0=None, curves=()
             res = fit(like, seed=int_seed(fit_seq))
         except InputError as err:
             raise err.with_source(sc.source) from err
-        chain = sample(like, res.values, walkers=walkers, steps=steps, seed=int_seed(sample_seq),
-                       progress=progress, scales=res.errors)
+        chain = sample(
+            like,
+            res.values,
+            walkers=walkers,
+            steps=steps,
+            seed=int_seed(sample_seq),
+            progress=progress,
+            scales=res.errors,
+        )
     lens_samples = chain.samples()
     pairs = pair_delays(like, lens_samples)
     z_s_of = {f.label: f.redshift for f in sc.families}
-    rows = delay_curves(pairs, like.h0_ref, cosmology=sc.cosmology, z_l=sc.lens_redshift, z_s_of=z_s_of,
-                        om0_grid=np.linspace(0.15, 0.45, 31) if "om0" in curves else None,
-                        w_grid=np.linspace(-1.5, -0.5, 21) if "w" in curves else None)
+    rows = delay_curves(
+        pairs,
+        like.h0_ref,
+        cosmology=sc.cosmology,
+        z_l=sc.lens_redshift,
+        z_s_of=z_s_of,
+        om0_grid=np.linspace(0.15, 0.45, 31) if "om0" in curves else None,
+        w_grid=np.linspace(-1.5, -0.5, 21) if "w" in curves else None,
+    )
     notes = list(res.notes) + list(chain.warnings)
     om0_prior = tuple(om0) if om0 is not None else (float(sc.cosmology.Om0), 0.02)
     joint_fit = h0 = None
@@ -79,17 +111,35 @@ def run_hubble(scenario: Scenario, *, kappa_ext=(0.0, 0.05), om0=None, curves=()
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LensdelayWarning)
             joint_fit = fit(joint, seed=int_seed(joint_fit_seq))
-            jchain = sample(joint, joint_fit.values, walkers=walkers, steps=steps,
-                            seed=int_seed(joint_sample_seq), progress=progress, scales=joint_fit.errors)
+            jchain = sample(
+                joint,
+                joint_fit.values,
+                walkers=walkers,
+                steps=steps,
+                seed=int_seed(joint_sample_seq),
+                progress=progress,
+                scales=joint_fit.errors,
+            )
         h0_eff = jchain.samples()[:, joint.h0_index]
         h0 = h0_posterior(h0_eff, joint, kappa_ext=kappa_ext, om0_prior=om0_prior, rng=rng)
         comparison = tuple(kappa_comparison(h0_eff, joint, om0_prior, extra=kappa_ext))
         notes += jchain.warnings
     else:
         notes.append("the scenario has no measured delays: only the delay-vs-H0 curves are given")
-    return HubbleResult(scenario=sc, fit=res, chain=chain, curves=tuple(rows), pairs=pairs, prior=prior,
-                        notes=tuple(notes), joint_fit=joint_fit, h0=h0, kappa_comparison=comparison,
-                        kappa_ext=tuple(kappa_ext), om0_prior=tuple(om0_prior))
+    return HubbleResult(
+        scenario=sc,
+        fit=res,
+        chain=chain,
+        curves=tuple(rows),
+        pairs=pairs,
+        prior=prior,
+        notes=tuple(notes),
+        joint_fit=joint_fit,
+        h0=h0,
+        kappa_comparison=comparison,
+        kappa_ext=tuple(kappa_ext),
+        om0_prior=tuple(om0_prior),
+    )
 
 
 @dataclass(frozen=True)

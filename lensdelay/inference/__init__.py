@@ -1,1 +1,1 @@
-"""inference"""
+"""Inference: likelihoods, the timing model, fitting, sampling and its coordinates and moves."""

@@ -22,13 +22,14 @@ e = (1 − q)/(1 + q), |∂q/∂e| = 2/(1 + e)²; going from polar (e, 2φ) to (
 divides by e; φ in degrees multiplies by 180/(2π). So
 |∂(q, φ)/∂(e₁, e₂)| = (2/(1 + e)²) · (90/π) / e, and |∂(γ, φγ)/∂(γ₁, γ₂)| = (90/π) / γ.
 """
+
 from __future__ import annotations
 
 import math
 
 import numpy as np
 
-_HALF_TURN = 90.0 / math.pi          # degrees per radian of 2φ, i.e. dφ/d(2φ_rad)
+_HALF_TURN = 90.0 / math.pi  # degrees per radian of 2φ, i.e. dφ/d(2φ_rad)
 
 
 class SamplingCoordinates:
@@ -67,19 +68,25 @@ class SamplingCoordinates:
 
     # -- the maps -----------------------------------------------------------------
     def to_sampling(self, params: np.ndarray) -> np.ndarray:
-        """p → u."""
+        """P → u."""
         p = np.atleast_2d(np.asarray(params, dtype=float))
         u = p.copy()
         for iq, ia in self.ellipse_pairs:
             e = (1.0 - p[:, iq]) / (1.0 + p[:, iq])
-            u[:, iq], u[:, ia] = e * np.cos(np.radians(2 * p[:, ia])), e * np.sin(np.radians(2 * p[:, ia]))
+            u[:, iq], u[:, ia] = (
+                e * np.cos(np.radians(2 * p[:, ia])),
+                e * np.sin(np.radians(2 * p[:, ia])),
+            )
         for ig, ia in self.shear_pairs:
             g = p[:, ig]
-            u[:, ig], u[:, ia] = g * np.cos(np.radians(2 * p[:, ia])), g * np.sin(np.radians(2 * p[:, ia]))
+            u[:, ig], u[:, ia] = (
+                g * np.cos(np.radians(2 * p[:, ia])),
+                g * np.sin(np.radians(2 * p[:, ia])),
+            )
         return u
 
     def to_model(self, coords: np.ndarray) -> np.ndarray:
-        """u → p; angles come back in (−90°, 90°]."""
+        """U → p; angles come back in (−90°, 90°]."""
         u = np.atleast_2d(np.asarray(coords, dtype=float))
         p = u.copy()
         for iq, ia in self.ellipse_pairs:
@@ -92,7 +99,7 @@ class SamplingCoordinates:
         return p
 
     def log_volume(self, coords: np.ndarray) -> np.ndarray:
-        """log |det ∂p/∂u| per row (−inf where an angle is undefined: e = 0 or γ = 0)."""
+        """Log |det ∂p/∂u| per row (−inf where an angle is undefined: e = 0 or γ = 0)."""
         u = np.atleast_2d(coords)
         out = np.zeros(len(u))
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -138,18 +145,24 @@ class SampledTarget:
         self.periods = like.periods
         self.lower = np.full(len(like.names), -np.inf)
         self.upper = np.full(len(like.names), np.inf)
-        converted = {i for pair in coordinates.ellipse_pairs + coordinates.shear_pairs for i in pair}
+        converted = {
+            i for pair in coordinates.ellipse_pairs + coordinates.shear_pairs for i in pair
+        }
         for i in range(len(like.names)):
             if i not in converted:
                 self.lower[i], self.upper[i] = like.lower[i], like.upper[i]
 
     def log_probability(self, coords: np.ndarray) -> np.ndarray:
+        """Log density in sampling coordinates, for rows (P, n)."""
         u = np.atleast_2d(coords)
         if self.coordinates.identity:
             return self.like.log_probability(u)
-        return self.like.log_probability(self.coordinates.to_model(u)) + self.coordinates.log_volume(u)
+        return self.like.log_probability(
+            self.coordinates.to_model(u)
+        ) + self.coordinates.log_volume(u)
 
     def evaluate(self, coords: np.ndarray):
+        """Log density, residuals and Jacobian in sampling coordinates (for the Langevin move)."""
         u = np.atleast_2d(coords)
         if self.coordinates.identity:
             return self.like.evaluate(u)

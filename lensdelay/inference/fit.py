@@ -5,6 +5,7 @@ to get close, then the image-plane χ² of :class:`lensdelay.likelihood.ImageLik
 which solves the lens equation at every step. The result carries everything a report
 needs; reports and figures live elsewhere.
 """
+
 from __future__ import annotations
 
 import re
@@ -45,17 +46,21 @@ class FitResult:
 
     @property
     def dof(self) -> int:
+        """Degrees of freedom: constraints minus free parameters."""
         return self.n_constraints - self.n_parameters
 
     @property
     def aic(self) -> float:
+        """Akaike information criterion, χ² + 2k."""
         return self.chi2 + 2 * self.n_parameters
 
     @property
     def bic(self) -> float:
+        """Bayesian information criterion, χ² + k ln n."""
         return self.chi2 + self.n_parameters * np.log(max(self.n_constraints, 1))
 
     def value(self, name: str) -> float:
+        """The best-fit value of one parameter by name."""
         return float(self.values[self.names.index(name)])
 
 
@@ -65,15 +70,20 @@ def check_constraints(like: ImageLikelihood) -> None:
         raise InputError(
             f"model {like.model.label!r} has {like.n_parameters} free parameters (including "
             f"2 source coordinates per family) but only {like.n_constraints} constraints; "
-            "fix parameters or add priors, got an under-constrained fit")
+            "fix parameters or add priors, got an under-constrained fit"
+        )
     if like.dof == 0:
-        warnings.warn(f"model {like.model.label!r} is exactly constrained (0 degrees of freedom): "
-                      "it can match the images exactly, so chi2 says nothing about its quality",
-                      LensdelayWarning, stacklevel=2)
+        warnings.warn(
+            f"model {like.model.label!r} is exactly constrained (0 degrees of freedom): "
+            "it can match the images exactly, so chi2 says nothing about its quality",
+            LensdelayWarning,
+            stacklevel=2,
+        )
 
 
 def _source_plane_start(like: ImageLikelihood, start: np.ndarray) -> np.ndarray:
     """Magnification-weighted source-plane fit: residual A⁻¹(β(θ_obs) − β̄)/σ."""
+
     def resid(v):
         v = v.copy()
         params = v[None, :]
@@ -86,11 +96,13 @@ def _source_plane_start(like: ImageLikelihood, start: np.ndarray) -> np.ndarray:
                 a11, a12, a22 = lens.jacobian(fam.x, fam.y, fam.scale)
                 det = a11 * a22 - a12 * a12
                 rx, ry = np.ravel(sx) - bx, np.ravel(sy) - by
-                out += [np.ravel((a22 * rx - a12 * ry) / det) / fam.sigma,
-                        np.ravel((a11 * ry - a12 * rx) / det) / fam.sigma]
+                out += [
+                    np.ravel((a22 * rx - a12 * ry) / det) / fam.sigma,
+                    np.ravel((a11 * ry - a12 * rx) / det) / fam.sigma,
+                ]
         for i, (mean, sig) in {**like.priors, **like.centre_prior}.items():
             diff = v[i] - mean
-            if like.periods[i]:     # an angle: about the nearest equivalent mean
+            if like.periods[i]:  # an angle: about the nearest equivalent mean
                 diff = (diff + like.periods[i] / 2) % like.periods[i] - like.periods[i] / 2
             out.append(np.array([diff / sig]))
         r = np.concatenate(out)
@@ -102,7 +114,7 @@ def _source_plane_start(like: ImageLikelihood, start: np.ndarray) -> np.ndarray:
 def _lmfit(like, start, resid_fn, n_data):
     params = lmfit.Parameters()
     # the source-plane stage sees image positions only: H0 and κ_ext stay where they are
-    names = like.names[:like.n_positional] if n_data is None else like.names
+    names = like.names[: like.n_positional] if n_data is None else like.names
     for i, name in enumerate(names):
         lo, hi = like.lower[i], like.upper[i]
         val = float(np.clip(start[i], lo, hi))
@@ -111,7 +123,7 @@ def _lmfit(like, start, resid_fn, n_data):
     def wrapped(p):
         v = np.array([p[_safe(n)].value for n in names])
         if len(names) < len(like.names):
-            v = np.append(v, start[len(names):])
+            v = np.append(v, start[len(names) :])
         return resid_fn(v)
 
     # sigmas are known: do not rescale the covariance by the reduced chi2
@@ -119,7 +131,7 @@ def _lmfit(like, start, resid_fn, n_data):
     v = np.array([out.params[_safe(n)].value for n in names])
     errs = np.array([out.params[_safe(n)].stderr or np.nan for n in names])
     if len(names) < len(like.names):
-        v = np.append(v, start[len(names):])
+        v = np.append(v, start[len(names) :])
         errs = np.append(errs, np.nan)
     return v, errs, out
 
@@ -162,7 +174,9 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
                     start[i] += s * period / starts
                 elif i < like.n_model and np.isfinite(like.lower[i]) and np.isfinite(like.upper[i]):
                     span = like.upper[i] - like.lower[i]
-                    start[i] = np.clip(start[i] + rng.normal(0, 0.1 * span), like.lower[i], like.upper[i])
+                    start[i] = np.clip(
+                        start[i] + rng.normal(0, 0.1 * span), like.lower[i], like.upper[i]
+                    )
         try:
             v = _source_plane_start(like, start)
         except (ValueError, FloatingPointError):
@@ -174,7 +188,7 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
         raise FitError(f"model {like.model.label!r}: no starting point gave a finite chi2")
     candidates.sort(key=lambda c: c[0])
     best = None
-    for _, _, v in candidates[:max(polish, 1)]:
+    for _, _, v in candidates[: max(polish, 1)]:
         if like.h0_index is not None:
             # the best H0 for the current Fermat differences, then fit everything
             i = like.h0_index
@@ -182,23 +196,26 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
             trial = np.repeat(v[None, :], len(grid), axis=0)
             trial[:, i] = grid
             v[i] = grid[np.argmin(np.sum(like.residuals(trial) ** 2, axis=1))]
-        values, errors, out = _lmfit(like, v, lambda w: like.residuals(w)[0], n_data=like.n_constraints)
+        values, errors, out = _lmfit(
+            like, v, lambda w: like.residuals(w)[0], n_data=like.n_constraints
+        )
         chi2 = float(np.sum(like.residuals(values) ** 2))
         if best is None or chi2 < best[0] - 1e-9:
             best = (chi2, values, errors, out)
     chi2, values, errors, out = best
     like.watch_unobserved(values)
-    resid = like.residuals(values)[0]       # constraints, then the extra-image penalties
-    chi2 = float(np.sum(resid ** 2))
-    if np.any(resid[like.n_constraints:] > 0):
-        values2, errors2, out2 = _lmfit(like, values, lambda w: like.residuals(w)[0],
-                                        n_data=like.n_constraints)
+    resid = like.residuals(values)[0]  # constraints, then the extra-image penalties
+    chi2 = float(np.sum(resid**2))
+    if np.any(resid[like.n_constraints :] > 0):
+        values2, errors2, out2 = _lmfit(
+            like, values, lambda w: like.residuals(w)[0], n_data=like.n_constraints
+        )
         chi2_2 = float(np.sum(like.residuals(values2) ** 2))
         if chi2_2 < chi2:
             values, errors, out = values2, errors2, out2
             like.watch_unobserved(values)
-            chi2 = float(np.sum(like.residuals(values) ** 2))    # with the new watch list
-    for i, period in enumerate(like.periods):   # report angles in (-90, 90]
+            chi2 = float(np.sum(like.residuals(values) ** 2))  # with the new watch list
+    for i, period in enumerate(like.periods):  # report angles in (-90, 90]
         if period:
             values[i] = -((-values[i] + period / 2) % period - period / 2)
     return describe(like, values, errors, chi2, out)
@@ -212,36 +229,52 @@ def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult
     """
     preds = like.predict(values[None, :])
     rows, unobserved, notes = [], [], []
-    single = like.model.lens(values[:like.n_model])
+    single = like.model.lens(values[: like.n_model])
     for k, (fam, pred) in enumerate(zip(like.families, preds)):
         for i, lab in enumerate(fam.labels):
             ok = bool(pred["ok"][0, i])
-            rows.append({"family": fam.label, "image": lab,
-                         "dx_mas": float((pred["x"][0, i] - fam.x[i]) * 1e3) if ok else None,
-                         "dy_mas": float((pred["y"][0, i] - fam.y[i]) * 1e3) if ok else None,
-                         "sigma_mas": float(fam.sigma[i] * 1e3),
-                         "magnification": float(pred["mu"][0, i]) if ok else None,
-                         "reproduced": ok})
+            rows.append(
+                {
+                    "family": fam.label,
+                    "image": lab,
+                    "dx_mas": float((pred["x"][0, i] - fam.x[i]) * 1e3) if ok else None,
+                    "dy_mas": float((pred["y"][0, i] - fam.y[i]) * 1e3) if ok else None,
+                    "sigma_mas": float(fam.sigma[i] * 1e3),
+                    "magnification": float(pred["mu"][0, i]) if ok else None,
+                    "reproduced": ok,
+                }
+            )
             if not ok:
-                notes.append(f"image {fam.label}/{lab} is not reproduced by the model "
-                             f"(penalised by {MISSING_IMAGE_PENALTY:g} sigma)")
+                notes.append(
+                    f"image {fam.label}/{lab} is not reproduced by the model "
+                    f"(penalised by {MISSING_IMAGE_PENALTY:g} sigma)"
+                )
         # the images the model predicts but nobody observed: the fit's watch list
         wx, wy = like.watched[k]
         with np.errstate(all="ignore"):
             mus = single.magnification(wx, wy, fam.scale)
             parities = single.parity_code(wx, wy, fam.scale)
-        faintest = min((abs(pred["mu"][0, i]) for i in range(len(fam.labels)) if pred["ok"][0, i]),
-                       default=np.inf)
+        faintest = min(
+            (abs(pred["mu"][0, i]) for i in range(len(fam.labels)) if pred["ok"][0, i]),
+            default=np.inf,
+        )
         for j in range(len(wx)):
             mu = float(mus[j])
-            entry = {"family": fam.label, "x": float(wx[j]), "y": float(wy[j]),
-                     "magnification": mu, "parity": PARITIES[int(parities[j])],
-                     "brighter_than_faintest_observed": bool(abs(mu) >= faintest)}
+            entry = {
+                "family": fam.label,
+                "x": float(wx[j]),
+                "y": float(wy[j]),
+                "magnification": mu,
+                "parity": PARITIES[int(parities[j])],
+                "brighter_than_faintest_observed": bool(abs(mu) >= faintest),
+            }
             unobserved.append(entry)
             if abs(mu) >= faintest:
-                notes.append(f"the model predicts an unobserved image of {fam.label} at "
-                             f"({entry['x']:+.3f}, {entry['y']:+.3f}) with |mu| = {abs(mu):.2f}, "
-                             "brighter than the faintest observed one")
+                notes.append(
+                    f"the model predicts an unobserved image of {fam.label} at "
+                    f"({entry['x']:+.3f}, {entry['y']:+.3f}) with |mu| = {abs(mu):.2f}, "
+                    "brighter than the faintest observed one"
+                )
     at_bounds = []
     for i, name in enumerate(like.names):
         span = like.upper[i] - like.lower[i]
@@ -254,9 +287,22 @@ def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult
     success = bool(out.success) if out is not None else True
     message = str(out.message) if out is not None else ""
     cov = getattr(out, "covar", None) if out is not None else None
-    return FitResult(like.model.label, list(like.names), np.asarray(values), np.asarray(errors),
-                     chi2, like.n_constraints, like.n_parameters, rows, unobserved, at_bounds,
-                     success, message, cov, notes)
+    return FitResult(
+        like.model.label,
+        list(like.names),
+        np.asarray(values),
+        np.asarray(errors),
+        chi2,
+        like.n_constraints,
+        like.n_parameters,
+        rows,
+        unobserved,
+        at_bounds,
+        success,
+        message,
+        cov,
+        notes,
+    )
 
 
 def observed_delays(like: ImageLikelihood, rows: np.ndarray, family: int = 0, reference: int = 0):
@@ -268,8 +314,9 @@ def observed_delays(like: ImageLikelihood, rows: np.ndarray, family: int = 0, re
     pred = like.predict(rows)[family]
     fam = like.families[family]
     scale = like.delay_scale(rows)[:, None] if like.use_delays else 1.0
-    return fermat_difference_to_days(pred["fermat"] - pred["fermat"][:, reference:reference + 1],
-                                     fam.days_per_arcsec2, scale)
+    return fermat_difference_to_days(
+        pred["fermat"] - pred["fermat"][:, reference : reference + 1], fam.days_per_arcsec2, scale
+    )
 
 
 def delay_errors(like: ImageLikelihood, result: FitResult, family: int = 0, reference: int = 0):
@@ -284,8 +331,10 @@ def delay_errors(like: ImageLikelihood, result: FitResult, family: int = 0, refe
         up, down = result.values.copy(), result.values.copy()
         up[i] += h
         down[i] -= h
-        jac[:, i] = (observed_delays(like, up, family, reference)[0]
-                     - observed_delays(like, down, family, reference)[0]) / (2 * h)
+        jac[:, i] = (
+            observed_delays(like, up, family, reference)[0]
+            - observed_delays(like, down, family, reference)[0]
+        ) / (2 * h)
     n = cov.shape[0]
     var = np.einsum("ij,jk,ik->i", jac[:, :n], cov, jac[:, :n])
     return best, np.sqrt(np.maximum(var, 0.0))

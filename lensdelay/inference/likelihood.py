@@ -29,6 +29,7 @@ quad (``benchmarks/bench_fit.py``; README). The Jacobian behind the Fisher infor
 (:meth:`ImageLikelihood.information_jacobian`) also gives the sampler its local metric
 (:mod:`lensdelay.moves`).
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -55,6 +56,8 @@ _INFO_STEP = 1e-6
 
 @dataclass
 class FamilyData:
+    """One family as the likelihood uses it: positions, errors, scalings."""
+
     label: str
     scale: float
     days_per_arcsec2: float
@@ -96,36 +99,61 @@ class ImageLikelihood:
         rows refer to, followed by Newton's method from these positions.
     """
 
-    def __init__(self, scenario: Scenario, model: MassModel, *, use_delays: bool = False,
-                 use_fluxes: bool = False, flux_floor_mag: float = 0.2, prior: str = "flat",
-                 timing=None, h0_prior=None, kappa_prior=None, tracked=None):
+    def __init__(
+        self,
+        scenario: Scenario,
+        model: MassModel,
+        *,
+        use_delays: bool = False,
+        use_fluxes: bool = False,
+        flux_floor_mag: float = 0.2,
+        prior: str = "flat",
+        timing=None,
+        h0_prior=None,
+        kappa_prior=None,
+        tracked=None,
+    ):
         if prior not in PRIOR_CHOICES:
             raise InputError(f"prior must be one of {choices_text(PRIOR_CHOICES)}, got {prior!r}")
         self.prior = prior
         self.scenario = scenario
         self.model = model
-        self.distances = LensDistances(scenario.cosmology, scenario.lens_redshift,
-                                       scenario.reference_source_redshift)
+        self.distances = LensDistances(
+            scenario.cosmology, scenario.lens_redshift, scenario.reference_source_redshift
+        )
         self.families = []
         for fam in scenario.families:
-            self.families.append(FamilyData(
-                fam.label, self.distances.deflection_scale(fam.redshift),
-                self.distances.days_per_arcsec2(fam.redshift),
-                np.array([im.x for im in fam.images]), np.array([im.y for im in fam.images]),
-                np.array([im.sigma for im in fam.images]), fam.labels))
+            self.families.append(
+                FamilyData(
+                    fam.label,
+                    self.distances.deflection_scale(fam.redshift),
+                    self.distances.days_per_arcsec2(fam.redshift),
+                    np.array([im.x for im in fam.images]),
+                    np.array([im.y for im in fam.images]),
+                    np.array([im.sigma for im in fam.images]),
+                    fam.labels,
+                )
+            )
         if timing is None and use_delays and scenario.delays:
             from lensdelay.inference.timing import TimingData
 
-            timing = TimingData([(f.label, lab) for f in scenario.families for lab in f.labels],
-                                list(scenario.delays))
+            timing = TimingData(
+                [(f.label, lab) for f in scenario.families for lab in f.labels],
+                list(scenario.delays),
+            )
         self.timing = timing
         self.use_delays = timing is not None
         tracked = tracked or {}
         self.tracked = []
         for fam in self.families:
             items = tracked.get(fam.label, {})
-            self.tracked.append((list(items), np.array([v[0] for v in items.values()], dtype=float),
-                                 np.array([v[1] for v in items.values()], dtype=float)))
+            self.tracked.append(
+                (
+                    list(items),
+                    np.array([v[0] for v in items.values()], dtype=float),
+                    np.array([v[1] for v in items.values()], dtype=float),
+                )
+            )
         self.flux_floor_mag = float(flux_floor_mag)
         # observed magnitude differences to the first image, per family (None: not used)
         self.flux_data = []
@@ -165,7 +193,9 @@ class ImageLikelihood:
         if self.use_delays:
             if isinstance(h0_prior, str):
                 if h0_prior != "fixed":
-                    raise InputError(f"h0_prior must be None, 'fixed' or (mean, sigma), got {h0_prior!r}")
+                    raise InputError(
+                        f"h0_prior must be None, 'fixed' or (mean, sigma), got {h0_prior!r}"
+                    )
             else:
                 self.h0_index = len(self.names)
                 self.names.append("H0")
@@ -214,16 +244,19 @@ class ImageLikelihood:
     # -- bookkeeping ---------------------------------------------------------------
     @property
     def n_parameters(self) -> int:
+        """Number of free parameters."""
         return len(self.names)
 
     @property
     def n_constraints(self) -> int:
+        """Number of constraints (positions, priors, timing rows, flux ratios)."""
         n = 2 * sum(len(f.x) for f in self.families) + len(self.priors) + len(self.centre_prior)
         n += sum(len(d) - 1 for d in self.flux_data if d is not None)
         return n + (len(self.timing) if self.use_delays else 0)
 
     @property
     def dof(self) -> int:
+        """Degrees of freedom: constraints minus free parameters."""
         return self.n_constraints - self.n_parameters
 
     def delay_scale(self, params: np.ndarray) -> np.ndarray:
@@ -237,11 +270,12 @@ class ImageLikelihood:
         return np.broadcast_to(delay_scale(h0, self.h0_ref, kappa), (len(params),))
 
     def source_slice(self, k: int) -> slice:
+        """Columns of family k's source position in a parameter row."""
         return slice(self.n_model + 2 * k, self.n_model + 2 * k + 2)
 
     def lens_for(self, params: np.ndarray):
         """Lens for parameter rows of shape (P, n) (profile parameters become (P, 1))."""
-        cols = params[:, :self.n_model].T[:, :, None]
+        cols = params[:, : self.n_model].T[:, :, None]
         return self.model.lens(list(cols))
 
     # -- predictions ----------------------------------------------------------------
@@ -259,9 +293,17 @@ class ImageLikelihood:
         for k, fam in enumerate(self.families):
             bx = params[:, self.source_slice(k)][:, :1]
             by = params[:, self.source_slice(k)][:, 1:]
-            x, y, err = newton_polish(lens, fam.x[None, :], fam.y[None, :], bx, by, fam.scale,
-                                      iterations=15, max_step=np.maximum(0.5 * fam.sigma, 0.05),
-                                      tolerance=1e-11)
+            x, y, err = newton_polish(
+                lens,
+                fam.x[None, :],
+                fam.y[None, :],
+                bx,
+                by,
+                fam.scale,
+                iterations=15,
+                max_step=np.maximum(0.5 * fam.sigma, 0.05),
+                tolerance=1e-11,
+            )
             ok = err < 1e-8
             # close but not converged within the budget: not a missing image
             near = (err < 1e-3) & ~ok
@@ -277,9 +319,22 @@ class ImageLikelihood:
                 mu = lens.magnification(x, y, fam.scale)
             extra_mu = self._watched_magnifications(lens, k, x, y, ok, bx, by)
             tx, ty, t_tau = self._tracked_images(lens, k, x, y, ok, bx, by)
-            out.append({"x": x, "y": y, "ok": ok, "near": near, "fermat": tau, "mu": mu,
-                        "beta": np.hstack([bx, by]), "lens": lens, "extra_mu": extra_mu,
-                        "track_x": tx, "track_y": ty, "track_fermat": t_tau})
+            out.append(
+                {
+                    "x": x,
+                    "y": y,
+                    "ok": ok,
+                    "near": near,
+                    "fermat": tau,
+                    "mu": mu,
+                    "beta": np.hstack([bx, by]),
+                    "lens": lens,
+                    "extra_mu": extra_mu,
+                    "track_x": tx,
+                    "track_y": ty,
+                    "track_fermat": t_tau,
+                }
+            )
         return out
 
     def _tracked_images(self, lens, k, x, y, ok, bx, by):
@@ -293,8 +348,17 @@ class ImageLikelihood:
         if not labels:
             empty = np.zeros((len(x), 0))
             return empty, empty, empty
-        tx, ty, err = newton_polish(lens, sx[None, :], sy[None, :], bx, by, fam.scale,
-                                    iterations=15, max_step=0.05, tolerance=1e-11)
+        tx, ty, err = newton_polish(
+            lens,
+            sx[None, :],
+            sy[None, :],
+            bx,
+            by,
+            fam.scale,
+            iterations=15,
+            max_step=0.05,
+            tolerance=1e-11,
+        )
         exists = keep_distinct_tracks(tx, ty, err < 1e-8, 1e-4, taken=(x, y, ok))
         with np.errstate(all="ignore"):
             tau = lens.fermat_potential(tx, ty, bx, by, fam.scale)
@@ -306,8 +370,17 @@ class ImageLikelihood:
         fam = self.families[k]
         if len(wx) == 0:
             return np.zeros((len(x), 0))
-        ex, ey, err = newton_polish(lens, wx[None, :], wy[None, :], bx, by, fam.scale,
-                                    iterations=15, max_step=0.05, tolerance=1e-11)
+        ex, ey, err = newton_polish(
+            lens,
+            wx[None, :],
+            wy[None, :],
+            bx,
+            by,
+            fam.scale,
+            iterations=15,
+            max_step=0.05,
+            tolerance=1e-11,
+        )
         # an extra image must be none of the observed ones and none of the other extras
         exists = keep_distinct_tracks(ex, ey, err < 1e-8, 1e-4, taken=(x, y, ok))
         with np.errstate(all="ignore"):
@@ -324,7 +397,7 @@ class ImageLikelihood:
 
         values = np.asarray(values, dtype=float)
         preds = self.predict(values[None, :])
-        single = self.model.lens(values[:self.n_model])
+        single = self.model.lens(values[: self.n_model])
         for k, (fam, pred) in enumerate(zip(self.families, preds)):
             bx, by = values[self.source_slice(k)]
             table = find_images(single, [bx], [by], fam.scale)
@@ -335,8 +408,11 @@ class ImageLikelihood:
             self.watched[k] = (np.asarray(table.x[keep], float), np.asarray(table.y[keep], float))
 
     def extra_image_residuals(self, preds) -> np.ndarray:
-        """Penalty columns (P, n_watched): magnitude excess of watched images over the
-        faintest observed image of their family, / EXTRA_IMAGE_MAG_SCALE; 0 if fainter."""
+        """Penalty columns (P, n_watched) for watched images brighter than expected.
+
+        Each is the magnitude excess of a watched image over the faintest observed image
+        of its family, / EXTRA_IMAGE_MAG_SCALE; 0 if fainter.
+        """
         cols = []
         for pred in preds:
             extra = pred["extra_mu"]
@@ -354,8 +430,9 @@ class ImageLikelihood:
         return np.where(np.isfinite(out), out, 1e6)
 
     def residuals(self, params: np.ndarray, preds=None) -> np.ndarray:
-        """Normalised residuals of the constraints, then the extra-image penalties:
-        shape (P, n_constraints + n_watched).
+        """Normalised residuals of the constraints, then the extra-image penalties.
+
+        Shape (P, n_constraints + n_watched).
 
         ``preds`` may pass in :meth:`predict` of the same rows to avoid solving twice.
         """
@@ -390,11 +467,14 @@ class ImageLikelihood:
             parts += [dx, dy]
         for i, (mean, sig) in {**self.priors, **self.centre_prior}.items():
             diff = params[:, i] - mean
-            if self.periods[i]:     # an angle: the prior is about the nearest equivalent mean
+            if self.periods[i]:  # an angle: the prior is about the nearest equivalent mean
                 diff = (diff + self.periods[i] / 2) % self.periods[i] - self.periods[i] / 2
             parts.append((diff / sig)[:, None])
-        parts += self._derived_residuals(params, [np.hstack([p["fermat"], p["track_fermat"]]) for p in preds],
-                                         [p["mu"] for p in preds])
+        parts += self._derived_residuals(
+            params,
+            [np.hstack([p["fermat"], p["track_fermat"]]) for p in preds],
+            [p["mu"] for p in preds],
+        )
         res = np.hstack(parts)
         return np.where(np.isfinite(res), res, 1e6)
 
@@ -426,7 +506,11 @@ class ImageLikelihood:
         for fam_label, label in self.timing.columns:
             k = index[fam_label]
             fam = self.families[k]
-            j = fam.labels.index(label) if label in fam.labels else len(fam.labels) + self.tracked[k][0].index(label)
+            j = (
+                fam.labels.index(label)
+                if label in fam.labels
+                else len(fam.labels) + self.tracked[k][0].index(label)
+            )
             cols.append(fermat_difference_to_days(fermat[k][:, j], fam.days_per_arcsec2, scale))
         return np.stack(cols, axis=1)
 
@@ -444,7 +528,7 @@ class ImageLikelihood:
         params = np.atleast_2d(np.asarray(params, dtype=float))
         preds = self.predict(params) if preds is None else preds
         n_rows, n_par = params.shape
-        step = _INFO_STEP * np.maximum(1.0, np.abs(params))              # (P, n)
+        step = _INFO_STEP * np.maximum(1.0, np.abs(params))  # (P, n)
         # rows p + h e_k then p - h e_k for every k: (2 n P, n), k-major
         eye = np.eye(n_par)
         plus = params[None, :, :] + step.T[:, :, None] * eye[:, None, :]
@@ -456,7 +540,7 @@ class ImageLikelihood:
         for k, (fam, pred) in enumerate(zip(self.families, preds)):
             n_obs = pred["x"].shape[1]
             # observed images, then tracked predicted ones (timing rows may need them)
-            x = np.hstack([pred["x"], pred["track_x"]])                    # (P, I)
+            x = np.hstack([pred["x"], pred["track_x"]])  # (P, I)
             y = np.hstack([pred["y"], pred["track_y"]])
             xs = np.tile(x, (2 * n_par, 1))
             ys = np.tile(y, (2 * n_par, 1))
@@ -465,8 +549,8 @@ class ImageLikelihood:
                 a11, a12, a22 = pred["lens"].jacobian(x, y, fam.scale)
             ax = ax.reshape(2, n_par, n_rows, -1)
             ay = ay.reshape(2, n_par, n_rows, -1)
-            h = step.T[:, :, None]                                         # (n, P, 1)
-            dax = (ax[0] - ax[1]) / (2 * h)                                # (n, P, I)
+            h = step.T[:, :, None]  # (n, P, 1)
+            dax = (ax[0] - ax[1]) / (2 * h)  # (n, P, I)
             day = (ay[0] - ay[1]) / (2 * h)
             # the source position moves the images one for one
             sl = self.source_slice(k)
@@ -474,10 +558,12 @@ class ImageLikelihood:
             day[sl.start + 1] += 1.0
             with np.errstate(all="ignore"):
                 det = a11 * a22 - a12 * a12
-                dxdp = (a22 * dax - a12 * day) / det                       # (n, P, I)
+                dxdp = (a22 * dax - a12 * day) / det  # (n, P, I)
                 dydp = (a11 * day - a12 * dax) / det
-            jac_parts += [np.moveaxis(dxdp[..., :n_obs] / fam.sigma, 0, -1),
-                          np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1)]
+            jac_parts += [
+                np.moveaxis(dxdp[..., :n_obs] / fam.sigma, 0, -1),
+                np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1),
+            ]
             if need_derived:
                 moved_x = np.concatenate([x + h * dxdp, x - h * dxdp]).reshape(-1, x.shape[1])
                 moved_y = np.concatenate([y + h * dydp, y - h * dydp]).reshape(-1, x.shape[1])
@@ -485,7 +571,9 @@ class ImageLikelihood:
                 by = shifted[:, sl][:, 1:]
                 with np.errstate(all="ignore"):
                     tau_pm = lens.fermat_potential(moved_x, moved_y, bx, by, fam.scale)
-                    mu_pm.append(lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], fam.scale))
+                    mu_pm.append(
+                        lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], fam.scale)
+                    )
                 exists = np.tile(np.isfinite(pred["track_fermat"]), (2 * n_par, 1))
                 tau_pm[:, n_obs:] = np.where(exists, tau_pm[:, n_obs:], np.nan)
                 fermat_pm.append(tau_pm)
@@ -497,7 +585,7 @@ class ImageLikelihood:
         if need_derived:
             derived = np.hstack(self._derived_residuals(shifted, fermat_pm, mu_pm))
             derived = derived.reshape(2, n_par, n_rows, -1)
-            ddiff = (derived[0] - derived[1]) / (2 * step.T[:, :, None])   # (n, P, m')
+            ddiff = (derived[0] - derived[1]) / (2 * step.T[:, :, None])  # (n, P, m')
             jac = np.concatenate([jac, np.moveaxis(ddiff, 0, -1)], axis=1)
         return jac
 
@@ -509,7 +597,7 @@ class ImageLikelihood:
         return np.where((sign > 0) & np.isfinite(logdet), 0.5 * logdet, -np.inf)
 
     def log_prior(self, params: np.ndarray, preds=None) -> np.ndarray:
-        """log prior density (up to a constant) within the bounds, per row.
+        """Log prior density (up to a constant) within the bounds, per row.
 
         ``"flat"``: 0. ``"jeffreys"``: ½ log det(Jᵀ J) with J from
         :meth:`information_jacobian`; −inf where the information is singular (a
@@ -521,7 +609,7 @@ class ImageLikelihood:
         return self._half_log_det_information(self.information_jacobian(params, preds))
 
     def evaluate(self, params: np.ndarray):
-        """log posterior, residuals and their Jacobian for rows (P, n) in one pass.
+        """Log posterior, residuals and their Jacobian for rows (P, n) in one pass.
 
         The residuals are those of the constraints (the extra-image penalty enters the
         log posterior only). Rows outside the bounds get −inf and zero residuals and
@@ -540,12 +628,12 @@ class ImageLikelihood:
             penalty = self.extra_image_residuals(preds)
             j = self.information_jacobian(rows, preds)
             prior = self._half_log_det_information(j) if self.prior == "jeffreys" else 0.0
-            logp[inside] = -0.5 * np.sum(r * r, axis=1) - 0.5 * np.sum(penalty ** 2, axis=1) + prior
+            logp[inside] = -0.5 * np.sum(r * r, axis=1) - 0.5 * np.sum(penalty**2, axis=1) + prior
             res[inside], jac[inside] = r, np.where(np.isfinite(j), j, 0.0)
         return logp, res, jac
 
     def log_probability(self, params: np.ndarray) -> np.ndarray:
-        """log posterior (up to a constant) for walker rows (P, n); −inf outside bounds."""
+        """Log posterior (up to a constant) for walker rows (P, n); −inf outside bounds."""
         params = np.atleast_2d(params)
         inside = np.all((params >= self.lower) & (params <= self.upper), axis=1)
         out = np.full(len(params), -np.inf)

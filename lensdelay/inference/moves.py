@@ -23,6 +23,7 @@ walker is an independent chain; all are advanced in one vectorised evaluation. T
 randomness is emcee's generator (seeded and checkpointed by
 :func:`lensdelay.posterior.sample`), so a resumed run repeats an uninterrupted one.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -77,8 +78,14 @@ class FisherLangevinMove(Move):
     def _evaluate(self, coords: np.ndarray):
         logp, res, jac = self.target.evaluate(coords)
         drift, inv_sqrt, metric, logdet = self._geometry(res, jac)
-        return {"coords": coords.copy(), "log_prob": logp, "drift": drift,
-                "inv_sqrt": inv_sqrt, "metric": metric, "logdet": logdet}
+        return {
+            "coords": coords.copy(),
+            "log_prob": logp,
+            "drift": drift,
+            "inv_sqrt": inv_sqrt,
+            "metric": metric,
+            "logdet": logdet,
+        }
 
     def _current(self, coords: np.ndarray):
         """Geometry at the walkers' positions, reused from the last step where possible."""
@@ -95,7 +102,7 @@ class FisherLangevinMove(Move):
 
     @staticmethod
     def _log_q(to, frm, eps2, geometry, idx=slice(None)):
-        """log N(to; frm + (ε²/2) G⁻¹g, ε² G⁻¹) up to a constant shared by both directions."""
+        """Log N(to; frm + (ε²/2) G⁻¹g, ε² G⁻¹) up to a constant shared by both directions."""
         mean = frm + 0.5 * eps2 * geometry["drift"][idx]
         d = to - mean
         quad = np.einsum("pi,pij,pj->p", d, geometry["metric"][idx], d) / eps2
@@ -110,8 +117,9 @@ class FisherLangevinMove(Move):
         eps2 = eps * eps
         here = self._current(coords)
         z = model.random.randn(walkers, n)
-        proposal = (coords + 0.5 * eps2 * here["drift"]
-                    + eps * np.einsum("pij,pj->pi", here["inv_sqrt"], z))
+        proposal = (
+            coords + 0.5 * eps2 * here["drift"] + eps * np.einsum("pij,pj->pi", here["inv_sqrt"], z)
+        )
         there = self._evaluate(proposal)
         forward = self._log_q(proposal, coords, eps2, here)
         backward = self._log_q(coords, proposal, eps2, there)

@@ -6,6 +6,7 @@ and the generator state are saved to ``DIR/chain.npz`` (numpy, no pickle); a run
 started again with ``resume=True`` continues from there and -- with the same seed --
 ends with exactly the chain an uninterrupted run would have made.
 """
+
 from __future__ import annotations
 
 import sys
@@ -49,10 +50,10 @@ class Chain:
     """Samples and diagnostics of one sampler run."""
 
     names: list[str]
-    chain: np.ndarray            # (steps, walkers, ndim)
-    log_prob: np.ndarray         # (steps, walkers)
-    acceptance: np.ndarray       # per walker
-    autocorr: np.ndarray         # per parameter, steps
+    chain: np.ndarray  # (steps, walkers, ndim)
+    log_prob: np.ndarray  # (steps, walkers)
+    acceptance: np.ndarray  # per walker
+    autocorr: np.ndarray  # per parameter, steps
     burn: int
     thin: int
     seed: int
@@ -61,17 +62,20 @@ class Chain:
 
     def samples(self) -> np.ndarray:
         """Flat samples after burn-in and thinning: (n, ndim)."""
-        return self.chain[self.burn::self.thin].reshape(-1, self.chain.shape[-1])
+        return self.chain[self.burn :: self.thin].reshape(-1, self.chain.shape[-1])
 
 
 def int_seed(seed_sequence: np.random.SeedSequence) -> int:
     """An int seed (for lmfit's starts and emcee's generator) drawn from a SeedSequence child."""
-    return int(seed_sequence.generate_state(1)[0] % (2 ** 31))
+    return int(seed_sequence.generate_state(1)[0] % (2**31))
 
 
 def _progress_display(progress, total: int):
-    """A tqdm bar on stderr (``progress=True``), a caller's ``progress(done, total)``
-    function, or nothing; returns an update function taking the number of steps done."""
+    """The sampler's progress display: a tqdm bar, a caller's function, or nothing.
+
+    ``progress=True`` gives a bar on stderr; a callable is called as
+    ``progress(done, total)``. Returns an update function taking the steps done.
+    """
     if callable(progress):
         return lambda done: progress(done, total)
     if not progress:
@@ -84,13 +88,25 @@ def _progress_display(progress, total: int):
         bar.update(done - bar.n)
         if done >= total:
             bar.close()
+
     return update
 
 
-def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, seed: int = 1,
-           checkpoint_dir: str | Path | None = None, resume: bool = False,
-           checkpoint_every: int = 200, progress=False, scales=None,
-           move: str = "langevin", components: bool = True) -> Chain:
+def sample(
+    like,
+    start: np.ndarray,
+    *,
+    walkers: int = 32,
+    steps: int = 2000,
+    seed: int = 1,
+    checkpoint_dir: str | Path | None = None,
+    resume: bool = False,
+    checkpoint_every: int = 200,
+    progress=False,
+    scales=None,
+    move: str = "langevin",
+    components: bool = True,
+) -> Chain:
     """Sample the posterior of ``like`` around ``start``.
 
     The walkers move in :class:`lensdelay.coordinates.SamplingCoordinates` (ellipticity
@@ -121,7 +137,7 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
     """
     ndim = len(start)
     if walkers < 2 * ndim:
-        walkers = 2 * ndim   # emcee's ensemble moves need twice as many walkers as parameters
+        walkers = 2 * ndim  # emcee's ensemble moves need twice as many walkers as parameters
     rng = np.random.default_rng(seed)
     coords = SamplingCoordinates(like.names, like.lower, like.upper, enabled=components)
     target = SampledTarget(like, coords)
@@ -133,9 +149,11 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
         moves = emcee.moves.StretchMove()
     else:
         raise InputError(f"move must be one of {choices_text(MOVES)}, got {move!r}")
-    sampler = emcee.EnsembleSampler(walkers, ndim, target.log_probability, vectorize=True, moves=moves)
+    sampler = emcee.EnsembleSampler(
+        walkers, ndim, target.log_probability, vectorize=True, moves=moves
+    )
     # emcee draws from its own RandomState; seed it from our generator
-    sampler.random_state = np.random.RandomState(int(rng.integers(2 ** 31))).get_state()
+    sampler.random_state = np.random.RandomState(int(rng.integers(2**31))).get_state()
     path = Path(checkpoint_dir) / "chain.npz" if checkpoint_dir else None
     chain = np.empty((0, walkers, ndim))
     logp = np.empty((0, walkers))
@@ -145,17 +163,31 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
     if resume and path is not None and path.exists():
         saved = load_npz(path)
         saved_setup = str(saved.get("setup", "an older lensdelay"))
-        if (int(saved["seed"]) != seed or saved["chain"].shape[1:] != (walkers, ndim)
-                or saved_setup != setup):
-            raise InputError(f"resume found {path} from a different run (seed "
-                             f"{int(saved['seed'])}, shape {saved['chain'].shape[1:]}, {saved_setup}), "
-                             f"got seed {seed}, shape {(walkers, ndim)}, {setup}")
+        if (
+            int(saved["seed"]) != seed
+            or saved["chain"].shape[1:] != (walkers, ndim)
+            or saved_setup != setup
+        ):
+            raise InputError(
+                f"resume found {path} from a different run (seed "
+                f"{int(saved['seed'])}, shape {saved['chain'].shape[1:]}, {saved_setup}), "
+                f"got seed {seed}, shape {(walkers, ndim)}, {setup}"
+            )
         chain, logp, accepted = saved["chain"], saved["log_prob"], saved["accepted"]
         state = emcee.State(chain[-1], log_prob=logp[-1])
-        sampler.random_state = ("MT19937", saved["rs_key"], int(saved["rs_pos"]),
-                                int(saved["rs_has_gauss"]), float(saved["rs_cached"]))
+        sampler.random_state = (
+            "MT19937",
+            saved["rs_key"],
+            int(saved["rs_pos"]),
+            int(saved["rs_has_gauss"]),
+            float(saved["rs_cached"]),
+        )
     else:
-        scales = np.where(np.isfinite(scales), scales, 1e-3) if scales is not None else np.full(ndim, 1e-3)
+        scales = (
+            np.where(np.isfinite(scales), scales, 1e-3)
+            if scales is not None
+            else np.full(ndim, 1e-3)
+        )
         ball = start + 0.5 * np.maximum(scales, 1e-6) * rng.standard_normal((walkers, ndim))
         ball = np.clip(ball, like.lower + 1e-9, like.upper - 1e-9)
         ball = coords.to_sampling(ball)
@@ -174,7 +206,7 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
                     break
                 ball[far] = centre + 0.5 * (ball[far] - centre)
                 lp[far] = target.log_probability(ball[far])
-            ball[~np.isfinite(lp)] = centre      # move bad starts onto the best fit
+            ball[~np.isfinite(lp)] = centre  # move bad starts onto the best fit
         else:
             ball[~np.isfinite(lp)] = ball[np.isfinite(lp)][0]
         state = emcee.State(ball, log_prob=target.log_probability(ball))
@@ -192,9 +224,19 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
         done += n
         if path is not None:
             key, pos, has_gauss, cached = sampler.random_state[1:]
-            atomic_save_npz(path, chain=chain, log_prob=logp, accepted=accepted, seed=seed,
-                            rs_key=key, rs_pos=pos, rs_has_gauss=has_gauss, rs_cached=cached,
-                            names=np.array(like.names), setup=np.array(setup))
+            atomic_save_npz(
+                path,
+                chain=chain,
+                log_prob=logp,
+                accepted=accepted,
+                seed=seed,
+                rs_key=key,
+                rs_pos=pos,
+                rs_has_gauss=has_gauss,
+                rs_cached=cached,
+                names=np.array(like.names),
+                setup=np.array(setup),
+            )
         show(done)
         if STOP.requested:
             STOP.active = False
@@ -202,7 +244,7 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
     STOP.active = False
     # τ in the sampling coordinates (no angle wraps there), from the second half so the
     # walkers' initial spread does not inflate it
-    tau = emcee.autocorr.integrated_time(chain[len(chain) // 2:], quiet=True)
+    tau = emcee.autocorr.integrated_time(chain[len(chain) // 2 :], quiet=True)
     chain = coords.to_model(chain.reshape(-1, ndim)).reshape(chain.shape)
     # wrap periodic parameters (position angles) around the best fit: no wrap straddling
     for i, period in enumerate(like.periods):
@@ -210,9 +252,13 @@ def sample(like, start: np.ndarray, *, walkers: int = 32, steps: int = 2000, see
             chain[..., i] = start[i] + (chain[..., i] - start[i] + period / 2) % period - period / 2
     notes = []
     if steps < 50 * np.nanmax(tau):
-        notes.append(f"chain of {steps} steps is shorter than 50 autocorrelation times "
-                     f"(max tau = {np.nanmax(tau):.0f} steps); run longer before trusting the tails")
+        notes.append(
+            f"chain of {steps} steps is shorter than 50 autocorrelation times "
+            f"(max tau = {np.nanmax(tau):.0f} steps); run longer before trusting the tails"
+        )
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
     burn = int(min(steps // 2, max(2 * np.nanmax(tau), steps // 5)))
     thin = max(1, int(np.nanmax(tau) // 4))
-    return Chain(list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move)
+    return Chain(
+        list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move
+    )

@@ -3,6 +3,7 @@
 Every posterior summary in lensdelay is the same five quantiles (median, 16%, 84%,
 2.5%, 97.5%) of weighted samples; they are computed here and nowhere else.
 """
+
 from __future__ import annotations
 
 import numpy as np

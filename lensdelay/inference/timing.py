@@ -25,6 +25,7 @@ its exact conditional. Everything is vectorised over samples.
 
 This module is pure computation: no files, no command-line flags.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -67,26 +68,35 @@ class TimingData:
     expect, and ``−½|r|²`` is the log-likelihood up to a constant.
     """
 
-    def __init__(self, columns, delays=(), sightings=(), detection_sigma_days: float = 0.0,
-                 reference=None):
+    def __init__(
+        self, columns, delays=(), sightings=(), detection_sigma_days: float = 0.0, reference=None
+    ):
         self.columns = [tuple(c) for c in columns]
         self.delays = tuple(delays)
         self.sightings = tuple(sightings)
         self.detection_sigma = float(detection_sigma_days)
         if self.detection_sigma < 0:
-            raise InputError(f"detection date sigma must be >= 0 days, got {self.detection_sigma:g}")
+            raise InputError(
+                f"detection date sigma must be >= 0 days, got {self.detection_sigma:g}"
+            )
         self.reference = tuple(reference) if reference is not None else None
         if self.sightings and self.reference is None:
-            raise InputError("sightings need the reference image the transient was detected in, got none")
+            raise InputError(
+                "sightings need the reference image the transient was detected in, got none"
+            )
         index = {c: i for i, c in enumerate(self.columns)}
-        needed = [(d.family, d.image) for d in self.delays] + [(d.family, d.relative_to) for d in self.delays]
+        needed = [(d.family, d.image) for d in self.delays] + [
+            (d.family, d.relative_to) for d in self.delays
+        ]
         needed += [(s.family, s.image) for s in self.sightings]
         if self.sightings:
             needed.append(self.reference)
         for key in needed:
             if key not in index:
-                raise InputError(f"image {key[0]}/{key[1]} must be one of the forecast's images "
-                                 f"({', '.join(f'{f}/{lab}' for f, lab in self.columns)}), got {key[0]}/{key[1]}")
+                raise InputError(
+                    f"image {key[0]}/{key[1]} must be one of the forecast's images "
+                    f"({', '.join(f'{f}/{lab}' for f, lab in self.columns)}), got {key[0]}/{key[1]}"
+                )
         m = len(self.delays) + len(self.sightings)
         self.design = np.zeros((m, len(self.columns)))
         self.values = np.zeros(m)
@@ -95,7 +105,9 @@ class TimingData:
         self.names = []
         for r, d in enumerate(self.delays):
             if not d.sigma > 0:
-                raise InputError(f"delay {d.family}/{d.image} sigma must be > 0 days, got {d.sigma:g}")
+                raise InputError(
+                    f"delay {d.family}/{d.image} sigma must be > 0 days, got {d.sigma:g}"
+                )
             self.design[r, index[(d.family, d.image)]] += 1.0
             self.design[r, index[(d.family, d.relative_to)]] -= 1.0
             self.values[r], self.sigmas[r] = d.days, d.sigma
@@ -103,10 +115,14 @@ class TimingData:
         for s_index, s in enumerate(self.sightings):
             r = len(self.delays) + s_index
             if not s.sigma > 0:
-                raise InputError(f"sighting {s.family}/{s.image} sigma must be > 0 days, got {s.sigma:g}")
+                raise InputError(
+                    f"sighting {s.family}/{s.image} sigma must be > 0 days, got {s.sigma:g}"
+                )
             if (s.family, s.image) == self.reference:
-                raise InputError(f"sighting image must differ from the reference image "
-                                 f"{s.family}/{s.image} (the detection is its sighting), got {s.image!r}")
+                raise InputError(
+                    f"sighting image must differ from the reference image "
+                    f"{s.family}/{s.image} (the detection is its sighting), got {s.image!r}"
+                )
             # days after the detection = (T_i − T_ref) + (t0 − detection)
             self.design[r, index[(s.family, s.image)]] += 1.0
             self.design[r, index[self.reference]] -= 1.0
@@ -114,7 +130,7 @@ class TimingData:
             self.on_t0[r] = True
             self.names.append(f"sighting {s.family}/{s.image}")
         b = self.on_t0.astype(float)
-        self.covariance = np.diag(self.sigmas ** 2) + self.detection_sigma ** 2 * np.outer(b, b)
+        self.covariance = np.diag(self.sigmas**2) + self.detection_sigma**2 * np.outer(b, b)
         self._chol = linalg.cholesky(self.covariance, lower=True) if m else np.zeros((0, 0))
 
     # -- sizes --------------------------------------------------------------------
@@ -123,6 +139,7 @@ class TimingData:
 
     @property
     def has_sightings(self) -> bool:
+        """Whether any row is a sighting (and so constrains t0)."""
         return bool(self.sightings)
 
     # -- the likelihood ---------------------------------------------------------------
@@ -138,7 +155,7 @@ class TimingData:
         return linalg.solve_triangular(self._chol, diff.T, lower=True).T
 
     def log_likelihood(self, arrival: np.ndarray) -> np.ndarray:
-        """log N(y; A T, C) up to a constant, per sample (P,); −inf where T is not finite."""
+        """Log N(y; A T, C) up to a constant, per sample (P,); −inf where T is not finite."""
         r = self.residuals(arrival)
         out = -0.5 * np.sum(r * r, axis=1)
         return np.where(np.isfinite(out), out, -np.inf)
@@ -157,9 +174,9 @@ class TimingData:
         if not self.has_sightings:
             return np.zeros(n), np.full(n, self.detection_sigma)
         rows = self.on_t0
-        offsets = self.values[rows][None, :] - self.predicted(arrival)[:, rows]   # (P, k)
+        offsets = self.values[rows][None, :] - self.predicted(arrival)[:, rows]  # (P, k)
         inv = 1.0 / self.sigmas[rows] ** 2
-        precision = 1.0 / self.detection_sigma ** 2 + np.sum(inv)
+        precision = 1.0 / self.detection_sigma**2 + np.sum(inv)
         mean = np.sum(offsets * inv, axis=1) / precision
         return mean, np.full(n, 1.0 / np.sqrt(precision))
 
@@ -207,11 +224,13 @@ class Tension:
 
     @property
     def in_tension(self) -> bool:
+        """Beyond TENSION_SIGMA, or a p-value below 0.0027."""
         return abs(self.sigma) > TENSION_SIGMA or self.p_value < 0.0027
 
 
-def tensions(timing: TimingData, arrival: np.ndarray, weights: np.ndarray,
-             rng: np.random.Generator) -> list[Tension]:
+def tensions(
+    timing: TimingData, arrival: np.ndarray, weights: np.ndarray, rng: np.random.Generator
+) -> list[Tension]:
     """Predicted vs measured for every row, from weighted samples of the arrival times."""
     return tensions_from_draws(timing, timing.predictive_draws(arrival, rng), weights)
 

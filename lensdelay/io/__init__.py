@@ -1,1 +1,1 @@
-"""io"""
+"""Files: reading TOML scenarios and models, provenance, atomic writes, one writer per output."""

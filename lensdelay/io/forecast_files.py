@@ -1,4 +1,5 @@
 """Forecast results as files and text: forecast.json, forecast.ecsv, forecast.ics, summary."""
+
 from __future__ import annotations
 
 import datetime as _dt
@@ -13,11 +14,14 @@ from lensdelay.model.cosmology import describe_cosmology
 from lensdelay.cautions import CAUTION
 from lensdelay.forecast.pipeline import STATUS_MEANINGS
 
+
 def instant(res, offset_days: float):
+    """The date ``offset_days`` after the detection (astropy Time)."""
     return res.scenario.transient.date + offset_days * u.day
 
 
 def iso_utc(t) -> str:
+    """ISO 8601 UTC to the second, with a Z."""
     return t.isot[:19] + "Z"
 
 
@@ -48,6 +52,7 @@ def median_day(iso: str) -> str:
 
 
 def window_days(res, im, lo_key, hi_key) -> tuple[str, str]:
+    """The calendar days that contain a window's two ends."""
     d = date_summary(res, im)
     return day_of(d[lo_key]), day_of(d[hi_key])
 
@@ -58,40 +63,101 @@ def forecast_json(res) -> dict:
     tr = sc.transient
     images = []
     for im in res.images:
-        entry = {k: getattr(im, k) for k in ("family", "label", "observed", "x", "y", "parity",
-                                             "arrival_rank", "delay_days", "magnification", "magnitude")}
+        entry = {
+            k: getattr(im, k)
+            for k in (
+                "family",
+                "label",
+                "observed",
+                "x",
+                "y",
+                "parity",
+                "arrival_rank",
+                "delay_days",
+                "magnification",
+                "magnitude",
+            )
+        }
         entry["date"] = date_summary(res, im)
         entry["date_mjd"] = mjd_summary(res, im)
-        entry.update({k: getattr(im, k) for k in (
-            "status", "order", "order_agreement", "parity_agreement", "rank_agreement", "exists_fraction",
-            "fainter_than_depth", "per_model", "model_spread_days", "interval95_change", "sighted", "tension")})
+        entry.update(
+            {
+                k: getattr(im, k)
+                for k in (
+                    "status",
+                    "order",
+                    "order_agreement",
+                    "parity_agreement",
+                    "rank_agreement",
+                    "exists_fraction",
+                    "fainter_than_depth",
+                    "per_model",
+                    "model_spread_days",
+                    "interval95_change",
+                    "sighted",
+                    "tension",
+                )
+            }
+        )
         entry["flag"] = list(im.flags)
         arch = im.archival_search
-        entry["archival_search"] = None if arch is None else {
-            "from": iso_utc(instant(res, arch["from_offset"])), "to": iso_utc(instant(res, arch["to_offset"]))}
+        entry["archival_search"] = (
+            None
+            if arch is None
+            else {
+                "from": iso_utc(instant(res, arch["from_offset"])),
+                "to": iso_utc(instant(res, arch["to_offset"])),
+            }
+        )
         if im.observability is not None:
             entry["observability"] = im.observability
         images.append(entry)
     doc = {
-        "reference_image": tr.seen_in, "reference_family": tr.family,
+        "reference_image": tr.seen_in,
+        "reference_family": tr.family,
         "cosmology": describe_cosmology(res.cosmology),
-        "seed": st.seed, "images": images,
-        "now": iso_utc(res.now), "now_mjd": float(res.now.utc.mjd),
-        "detection": {"date": iso_utc(tr.date), "mjd": float(tr.date.utc.mjd),
-                      "date_sigma_days": tr.date_sigma_days, "magnitude": tr.magnitude},
-        "priors": {"H0": list(st.h0_prior) if st.h0_prior else "fixed to the cosmology",
-                   "H0_used": res.h0_used if np.ndim(res.h0_used) == 0 else list(res.h0_used),
-                   "kappa_ext": list(st.kappa_ext), "microlensing_mag": st.microlensing_mag,
-                   "depth_mag": st.depth, "mass_model": st.model_prior},
+        "seed": st.seed,
+        "images": images,
+        "now": iso_utc(res.now),
+        "now_mjd": float(res.now.utc.mjd),
+        "detection": {
+            "date": iso_utc(tr.date),
+            "mjd": float(tr.date.utc.mjd),
+            "date_sigma_days": tr.date_sigma_days,
+            "magnitude": tr.magnitude,
+        },
+        "priors": {
+            "H0": list(st.h0_prior) if st.h0_prior else "fixed to the cosmology",
+            "H0_used": res.h0_used if np.ndim(res.h0_used) == 0 else list(res.h0_used),
+            "kappa_ext": list(st.kappa_ext),
+            "microlensing_mag": st.microlensing_mag,
+            "depth_mag": st.depth,
+            "mass_model": st.model_prior,
+        },
         "samples": st.n_samples,
         "timing": res.timing,
-        "models": [{"label": label, "bic": float(f.bic), "weight": float(w), "weight_positions_only": float(wp),
-                    "chi2": float(f.chi2), "dof": int(f.dof), "notes": list(notes)}
-                   for label, f, w, wp, notes in zip(res.model_labels, res.fits, res.model_weights,
-                                                     res.model_weights_positions, res.model_notes)],
+        "models": [
+            {
+                "label": label,
+                "bic": float(f.bic),
+                "weight": float(w),
+                "weight_positions_only": float(wp),
+                "chi2": float(f.chi2),
+                "dof": int(f.dof),
+                "notes": list(notes),
+            }
+            for label, f, w, wp, notes in zip(
+                res.model_labels,
+                res.fits,
+                res.model_weights,
+                res.model_weights_positions,
+                res.model_notes,
+            )
+        ],
         "model_weighting": st.weighting,
-        "site": None if res.site is None else vars(res.site) | {
-            "solar_elongation": list(res.site.solar_elongation)},
+        "site": None
+        if res.site is None
+        else vars(res.site) | {"solar_elongation": list(res.site.solar_elongation)},
         "statuses": STATUS_MEANINGS,
         "notes": list(res.notes),
         "cautions": CAUTION,
@@ -108,9 +174,16 @@ def forecast_table(res) -> Table:
     for im in res.images:
         d = date_summary(res, im)
         mjd = mjd_summary(res, im)
-        row = {"family": im.family, "label": im.label, "observed": im.observed,
-               "status": im.status, "x": im.x, "y": im.y, "parity": im.parity,
-               "arrival_rank": im.arrival_rank}
+        row = {
+            "family": im.family,
+            "label": im.label,
+            "observed": im.observed,
+            "status": im.status,
+            "x": im.x,
+            "y": im.y,
+            "parity": im.parity,
+            "arrival_rank": im.arrival_rank,
+        }
         for k in ("median", "p16", "p84", "p2.5", "p97.5"):
             row[f"delay_{k}"] = im.delay_days[k]
         for k in ("median", "p2.5", "p16", "p84", "p97.5"):
@@ -132,14 +205,18 @@ def forecast_table(res) -> Table:
     for c in t.colnames:
         if c.startswith(("delay_", "mjd_")):
             t[c].unit = u.day
-    t.meta["comments"] = ["lensdelay forecast; delays relative to the image the transient was seen in "
-                          "(positive = later); mjd_* are UTC MJD", CAUTION]
+    t.meta["comments"] = [
+        "lensdelay forecast; delays relative to the image the transient was seen in "
+        "(positive = later); mjd_* are UTC MJD",
+        CAUTION,
+    ]
     t.meta["reference_image"] = res.scenario.transient.seen_in
     t.meta["now"] = iso_utc(res.now)
     return t
 
 
 def table_text(table: Table) -> str:
+    """An astropy table as ECSV text."""
     buf = io.StringIO()
     table.write(buf, format="ascii.ecsv")
     return buf.getvalue()
@@ -154,8 +231,10 @@ def ics_windows(res, im) -> list[tuple[_dt.date, _dt.date]]:
     if im.status in ("seen", "past"):
         return []
     if im.observability is not None:
-        return [(_dt.date.fromisoformat(a), _dt.date.fromisoformat(b))
-                for a, b in im.observability["windows_ahead"]]
+        return [
+            (_dt.date.fromisoformat(a), _dt.date.fromisoformat(b))
+            for a, b in im.observability["windows_ahead"]
+        ]
     lo, hi = window_days(res, im, "p2.5", "p97.5")
     today = res.now.isot[:10]
     start = max(lo, today)
@@ -163,8 +242,11 @@ def ics_windows(res, im) -> list[tuple[_dt.date, _dt.date]]:
 
 
 def forecast_ics(res, stamp: _dt.datetime | None = None) -> str:
-    """iCalendar (RFC 5545, written with the ``icalendar`` package): one all-day event
-    per observable stretch of each image's 95% window that is still ahead of ``now``."""
+    """The forecast as iCalendar (RFC 5545, written with the ``icalendar`` package).
+
+    One all-day event per observable stretch of each image's 95% window that is still
+    ahead of ``now``.
+    """
     sc = res.scenario
     stamp = stamp or res.now.to_datetime().replace(tzinfo=_dt.timezone.utc)
     cal = icalendar.Calendar()
@@ -174,21 +256,29 @@ def forecast_ics(res, stamp: _dt.datetime | None = None) -> str:
     for im in res.images:
         d = date_summary(res, im)
         for k, (start, last) in enumerate(ics_windows(res, im)):
-            desc = (f"Predicted reappearance of {sc.name} image {im.family}/{im.label} "
-                    f"({im.parity}). Median {median_day(d['median'])}; 68% window {day_of(d['p16'])} to "
-                    f"{day_of(d['p84'])}; 95% window {day_of(d['p2.5'])} to {day_of(d['p97.5'])}. "
-                    f"Delay {im.delay_days['median']:.1f} d after image {sc.transient.seen_in}. ")
+            desc = (
+                f"Predicted reappearance of {sc.name} image {im.family}/{im.label} "
+                f"({im.parity}). Median {median_day(d['median'])}; 68% window {day_of(d['p16'])} "
+                f"to "
+                f"{day_of(d['p84'])}; 95% window {day_of(d['p2.5'])} to {day_of(d['p97.5'])}. "
+                f"Delay {im.delay_days['median']:.1f} d after image {sc.transient.seen_in}. "
+            )
             if im.observability is not None:
-                desc += (f"This event covers observable nights {start} to {last}; "
-                         f"P(observable) {im.observability['probability_observable']:.2f}. ")
+                desc += (
+                    f"This event covers observable nights {start} to {last}; "
+                    f"P(observable) {im.observability['probability_observable']:.2f}. "
+                )
             if im.magnitude:
                 desc += f"Expected magnitude {im.magnitude['median']:.1f}. "
             event = icalendar.Event()
-            event.add("uid", f"{sc.name.replace(' ', '_')}-{im.family}-{im.label}-{k}-"
-                             f"{res.provenance['input_sha256'][:12]}@lensdelay")
+            event.add(
+                "uid",
+                f"{sc.name.replace(' ', '_')}-{im.family}-{im.label}-{k}-"
+                f"{res.provenance['input_sha256'][:12]}@lensdelay",
+            )
             event.add("dtstamp", stamp)
             event.add("dtstart", start)
-            event.add("dtend", last + _dt.timedelta(days=1))      # all-day events end exclusively
+            event.add("dtend", last + _dt.timedelta(days=1))  # all-day events end exclusively
             event.add("summary", f"{sc.name} image {im.family}/{im.label}: in its 95% window")
             event.add("description", desc + CAUTION)
             event.add("transp", "TRANSPARENT")

@@ -2,6 +2,7 @@
 
 This is the only place that opens user files. Physics modules never read files.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -28,7 +29,9 @@ def read_toml(path: str | os.PathLike) -> dict:
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as err:
-        raise InputError(f"must be UTF-8 text, got undecodable byte at offset {err.start}", where) from err
+        raise InputError(
+            f"must be UTF-8 text, got undecodable byte at offset {err.start}", where
+        ) from err
     if not text.strip():
         raise InputError("is empty, expected a TOML document", where)
     try:
@@ -79,13 +82,17 @@ def load_scenario(path: str | os.PathLike, model_paths=None):
             if candidate.is_file():
                 used.append(candidate)
                 return load_model(candidate)[0]
-        raise InputError(f"model refers to {ref!r}, which does not exist next to the scenario "
-                         "or in the working directory")
+        raise InputError(
+            f"model refers to {ref!r}, which does not exist next to the scenario "
+            "or in the working directory"
+        )
 
     if model_paths:
         doc = {k: v for k, v in doc.items() if k not in ("mass", "model")}
         doc["model"] = "<command line>"
-        scenario = parse_scenario(doc, str(path), load_model=lambda ref: load_model(model_paths[0])[0])
+        scenario = parse_scenario(
+            doc, str(path), load_model=lambda ref: load_model(model_paths[0])[0]
+        )
         used.append(Path(model_paths[0]))
     else:
         scenario = parse_scenario(doc, str(path), load_model=resolve)

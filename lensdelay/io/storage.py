@@ -1,4 +1,5 @@
 """Files the tool writes: text, JSON without NaN, figures and whole output sets, each atomically."""
+
 from __future__ import annotations
 
 from lensdelay.atomic import atomic_save_npz, atomic_write_bytes, load_npz  # noqa: F401  (re-exported)
@@ -10,6 +11,7 @@ import numpy as np
 
 
 def atomic_write_text(path, text: str) -> None:
+    """Write UTF-8 text atomically."""
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
@@ -49,14 +51,14 @@ def atomic_savefig(fig, stem) -> list[str]:
     return out
 
 
-def write_output_set(out, *, json_name: str, doc: dict, texts=None, figures=None, arrays=None,
-                     inputs=()) -> list[str]:
+def write_output_set(
+    out, *, json_name: str, doc: dict, texts=None, figures=None, arrays=None, inputs=()
+) -> list[str]:
     """Write one command's outputs into folder ``out``: texts, arrays, figures, JSON last.
 
     Every file goes through a temporary file and a rename. Refuses (before writing
     anything) to overwrite any of ``inputs``.
     """
-
     from lensdelay.errors import InputError
 
     out = Path(out)
@@ -65,7 +67,9 @@ def write_output_set(out, *, json_name: str, doc: dict, texts=None, figures=None
     protected = {Path(p).resolve() for p in inputs}
     for n in names:
         if (out / n).resolve() in protected:
-            raise InputError(f"out {out} would overwrite the input {out / n}; choose another folder")
+            raise InputError(
+                f"out {out} would overwrite the input {out / n}; choose another folder"
+            )
     out.mkdir(parents=True, exist_ok=True)
     for name, text in (texts or {}).items():
         atomic_write_text(out / name, text)

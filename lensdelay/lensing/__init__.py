@@ -1,1 +1,1 @@
-"""lensing"""
+"""Lensing physics: mass profiles, lenses, distances, delays, images, critical curves."""

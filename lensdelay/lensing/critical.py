@@ -1,4 +1,5 @@
 """Critical curves (det A = 0) and their caustics, as polylines."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -19,8 +20,14 @@ class CriticalLine:
     caustic_y: np.ndarray
 
 
-def critical_lines(lens: Lens, scale: float = 1.0, *, extent: float = 3.0,
-                   resolution: int = 400, polish_steps: int = 3) -> list[CriticalLine]:
+def critical_lines(
+    lens: Lens,
+    scale: float = 1.0,
+    *,
+    extent: float = 3.0,
+    resolution: int = 400,
+    polish_steps: int = 3,
+) -> list[CriticalLine]:
     """Critical curves of ``lens`` for a family with deflection ``scale``.
 
     The zero contour of det A on a ``resolution``² grid over ±``extent`` arcsec
@@ -43,10 +50,14 @@ def critical_lines(lens: Lens, scale: float = 1.0, *, extent: float = 3.0,
         with np.errstate(all="ignore"):
             for _ in range(polish_steps):
                 d0 = lens.jacobian_determinant(x, y, scale)
-                ddx = (lens.jacobian_determinant(x + h, y, scale)
-                       - lens.jacobian_determinant(x - h, y, scale)) / (2 * h)
-                ddy = (lens.jacobian_determinant(x, y + h, scale)
-                       - lens.jacobian_determinant(x, y - h, scale)) / (2 * h)
+                ddx = (
+                    lens.jacobian_determinant(x + h, y, scale)
+                    - lens.jacobian_determinant(x - h, y, scale)
+                ) / (2 * h)
+                ddy = (
+                    lens.jacobian_determinant(x, y + h, scale)
+                    - lens.jacobian_determinant(x, y - h, scale)
+                ) / (2 * h)
                 g2 = ddx * ddx + ddy * ddy
                 step_x, step_y = -d0 * ddx / g2, -d0 * ddy / g2
                 # only small corrections: never let a vertex leave its grid cell

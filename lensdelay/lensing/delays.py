@@ -6,6 +6,7 @@ image i shows an event *later* than the reference image. An external convergence
 κext outside the model multiplies every delay by (1 − κext) (Falco, Gorenstein &
 Shapiro 1985).
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -15,8 +16,12 @@ from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2
 
 def fermat_to_days(fermat_arcsec2, time_delay_distance_mpc, kappa_ext=0.0):
     """Arrival time in days for Fermat potential(s) in arcsec² and D_dt in Mpc."""
-    return (np.asarray(fermat_arcsec2) * np.asarray(time_delay_distance_mpc)
-            * DAYS_PER_MPC_ARCSEC2 * (1.0 - np.asarray(kappa_ext)))
+    return (
+        np.asarray(fermat_arcsec2)
+        * np.asarray(time_delay_distance_mpc)
+        * DAYS_PER_MPC_ARCSEC2
+        * (1.0 - np.asarray(kappa_ext))
+    )
 
 
 def delays_relative_to(arrival_days, reference_index: int, axis: int = -1):

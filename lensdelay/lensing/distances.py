@@ -17,6 +17,7 @@ Hogg, D. W. 1999, "Distance measures in cosmology", astro-ph/9905116 (eqs. 16, 1
 Schneider, Ehlers & Falco 1992, *Gravitational Lenses*, Springer, eq. (5.45) for the
 time-delay distance.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -96,8 +97,12 @@ class LensDistances:
     def time_delay_distance(self, z_s: float) -> u.Quantity:
         """D_dt = (1 + z_l) D_l D_s / D_ls for a source at ``z_s`` (SEF92 eq. 5.45)."""
         d_l = self.lens_distance
-        return ((1.0 + self.lens_redshift) * d_l * self.source_distance(z_s)
-                / self.lens_source_distance(z_s)).to(u.Mpc)
+        return (
+            (1.0 + self.lens_redshift)
+            * d_l
+            * self.source_distance(z_s)
+            / self.lens_source_distance(z_s)
+        ).to(u.Mpc)
 
     def days_per_arcsec2(self, z_s: float) -> float:
         """Days of delay per arcsec² of Fermat-potential difference at ``z_s``."""
@@ -123,12 +128,18 @@ class DelayDistanceTable:
 
     H_REF = 70.0
 
-    def __init__(self, lens_redshift: float, source_redshift: float,
-                 om0_range: tuple[float, float] = (0.05, 0.95), nodes: int = 121):
+    def __init__(
+        self,
+        lens_redshift: float,
+        source_redshift: float,
+        om0_range: tuple[float, float] = (0.05, 0.95),
+        nodes: int = 121,
+    ):
         if not source_redshift > lens_redshift:
             raise InputError(
                 f"source redshift must be greater than the lens redshift {lens_redshift}, "
-                f"got {source_redshift}")
+                f"got {source_redshift}"
+            )
         self.lens_redshift = float(lens_redshift)
         self.source_redshift = float(source_redshift)
         self.om0_range = (float(om0_range[0]), float(om0_range[1]))
@@ -141,8 +152,9 @@ class DelayDistanceTable:
     def _astropy_ddt(self, h0: float, om0s: np.ndarray) -> np.ndarray:
         out = np.empty(len(om0s))
         for i, om in enumerate(om0s):
-            lens = LensDistances(FlatLambdaCDM(H0=h0, Om0=om, Tcmb0=0.0),
-                                 self.lens_redshift, self.source_redshift)
+            lens = LensDistances(
+                FlatLambdaCDM(H0=h0, Om0=om, Tcmb0=0.0), self.lens_redshift, self.source_redshift
+            )
             out[i] = lens.time_delay_distance(self.source_redshift).to_value(u.Mpc)
         return out
 
@@ -152,8 +164,10 @@ class DelayDistanceTable:
         om0 = np.asarray(om0, dtype=float)
         lo, hi = self.om0_range
         if np.any((om0 < lo) | (om0 > hi)):
-            raise InputError(f"Om0 must lie in [{lo}, {hi}] for the fast D_dt table, "
-                             f"got values from {om0.min()} to {om0.max()}")
+            raise InputError(
+                f"Om0 must lie in [{lo}, {hi}] for the fast D_dt table, "
+                f"got values from {om0.min()} to {om0.max()}"
+            )
         return self._spline(om0) * (self.H_REF / h0)
 
 

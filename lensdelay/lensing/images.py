@@ -14,6 +14,7 @@ Method (common practice in lensing codes, written here from scratch):
    Jacobian A = I − ∂α/∂θ, vectorised over all candidates; keep converged roots and
    merge duplicates.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -78,8 +79,18 @@ class ImageTable:
         return np.bincount(self.source_index, minlength=n_sources)
 
 
-def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: int = 40,
-                  max_step=None, tolerance: float = 1e-13):
+def newton_polish(
+    lens: Lens,
+    x,
+    y,
+    beta_x,
+    beta_y,
+    scale=1.0,
+    *,
+    iterations: int = 40,
+    max_step=None,
+    tolerance: float = 1e-13,
+):
     """Solve β(θ) = β_s by Newton's method from starting points (x, y).
 
     Vectorised over any broadcastable shapes (e.g. all candidates, or all posterior
@@ -100,7 +111,7 @@ def newton_polish(lens: Lens, x, y, beta_x, beta_y, scale=1.0, *, iterations: in
             bx, by = lens.source_position(x, y, scale)
             rx, ry = beta_x - bx, beta_y - by
             converged = np.abs(rx) + np.abs(ry) < tolerance
-            if np.all(converged):   # all converged: stop early
+            if np.all(converged):  # all converged: stop early
                 break
             a11, a12, a22 = lens.jacobian(x, y, scale)
             det = a11 * a22 - a12 * a12
@@ -137,8 +148,16 @@ class ImageFinder:
         Quadtree splits near critical curves and near non-singular centres.
     """
 
-    def __init__(self, lens: Lens, scale: float = 1.0, *, source_radius: float = 1.0,
-                 base_cells: int = 48, critical_levels: int = 6, centre_levels: int = 12):
+    def __init__(
+        self,
+        lens: Lens,
+        scale: float = 1.0,
+        *,
+        source_radius: float = 1.0,
+        base_cells: int = 48,
+        critical_levels: int = 6,
+        centre_levels: int = 12,
+    ):
         self.lens = lens
         self.scale = float(scale)
         self.source_radius = float(source_radius)
@@ -208,14 +227,16 @@ class ImageFinder:
             leaves_h.append(np.full((~split).sum(), size))
             x0, y0 = x0[split], y0[split]
             size = 0.5 * size
-            x0, y0 = (np.concatenate([x0, x0 + size, x0, x0 + size]),
-                      np.concatenate([y0, y0, y0 + size, y0 + size]))
+            x0, y0 = (
+                np.concatenate([x0, x0 + size, x0, x0 + size]),
+                np.concatenate([y0, y0, y0 + size, y0 + size]),
+            )
             if len(x0) == 0:
                 break
         x0 = np.concatenate(leaves_x)
         y0 = np.concatenate(leaves_y)
         h = np.concatenate(leaves_h)
-        corners_x = np.stack([x0, x0 + h, x0 + h, x0], axis=1)   # 00, 10, 11, 01
+        corners_x = np.stack([x0, x0 + h, x0 + h, x0], axis=1)  # 00, 10, 11, 01
         corners_y = np.stack([y0, y0, y0 + h, y0 + h], axis=1)
         with np.errstate(all="ignore"):
             bx, by = self.lens.source_position(corners_x, corners_y, self.scale)
@@ -271,8 +292,9 @@ class ImageFinder:
             sl = slice(s0, s0 + chunk)
             src, gx, gy, h = self._candidates(beta_x[sl], beta_y[sl])
             src = src + s0
-            x, y, err = newton_polish(self.lens, gx, gy, beta_x[src], beta_y[src],
-                                      self.scale, max_step=2.0 * h)
+            x, y, err = newton_polish(
+                self.lens, gx, gy, beta_x[src], beta_y[src], self.scale, max_step=2.0 * h
+            )
             ok = err < SOURCE_TOLERANCE
             parts.append((src[ok], x[ok], y[ok], err[ok]))
         src = np.concatenate([p[0] for p in parts])
@@ -291,8 +313,9 @@ class ImageFinder:
         par = self.lens.parity_code(x, y, self.scale)
         tau = self.lens.fermat_potential(x, y, bx, by, self.scale)
         order = np.lexsort((tau, src))
-        return ImageTable(src[order], x[order], y[order], mu[order], par[order],
-                          tau[order], err[order])
+        return ImageTable(
+            src[order], x[order], y[order], mu[order], par[order], tau[order], err[order]
+        )
 
 
 def _merge_duplicates(src, x, y, err):
@@ -310,8 +333,11 @@ def _merge_duplicates(src, x, y, err):
         order = np.lexsort((x if along_x else y, src))
         src, x, y, err = src[order], x[order], y[order], err[order]
         same = np.zeros(len(src), dtype=bool)
-        same[1:] = ((src[1:] == src[:-1]) & (np.abs(np.diff(x)) < MERGE_TOLERANCE)
-                    & (np.abs(np.diff(y)) < MERGE_TOLERANCE))
+        same[1:] = (
+            (src[1:] == src[:-1])
+            & (np.abs(np.diff(x)) < MERGE_TOLERANCE)
+            & (np.abs(np.diff(y)) < MERGE_TOLERANCE)
+        )
         src, x, y, err = src[~same], x[~same], y[~same], err[~same]
     return src, x, y, err
 
@@ -328,7 +354,10 @@ def keep_distinct_tracks(x, y, exists, tolerance: float, taken=None):
     if taken is not None:
         tx, ty, tok = taken
         for i in range(tx.shape[1]):
-            exists &= ~(tok[:, i:i + 1] & (np.hypot(x - tx[:, i:i + 1], y - ty[:, i:i + 1]) < tolerance))
+            exists &= ~(
+                tok[:, i : i + 1]
+                & (np.hypot(x - tx[:, i : i + 1], y - ty[:, i : i + 1]) < tolerance)
+            )
     for i in range(x.shape[1]):
         for j in range(i + 1, x.shape[1]):
             exists[:, j] &= ~(np.hypot(x[:, i] - x[:, j], y[:, i] - y[:, j]) < tolerance)
@@ -344,7 +373,9 @@ def as_arcsec(value, name: str = "angle") -> np.ndarray:
         try:
             return np.asarray(value.to_value(u.arcsec), dtype=float)
         except u.UnitConversionError as err:
-            raise InputError(f"{name} must be an angle (or a number of arcsec), got {value}") from err
+            raise InputError(
+                f"{name} must be an angle (or a number of arcsec), got {value}"
+            ) from err
     return np.asarray(value, dtype=float)
 
 

@@ -5,6 +5,7 @@ source sits elsewhere sees deflection, potential and Hessian multiplied by its
 ``scale`` = (D_ls/D_s)(z_s) / (D_ls/D_s)(z_ref) (see
 :meth:`lensdelay.cosmology.LensDistances.deflection_scale`).
 """
+
 from __future__ import annotations
 
 import functools
@@ -30,6 +31,7 @@ def _blockwise(method):
     The results agree either way: the formulas act point by point (the power law's
     series takes as many terms as the block's slowest point needs for 1e-16).
     """
+
     @functools.wraps(method)
     def wrapper(self, x, y, scale=1.0):
         if np.size(x) <= 2 * BLOCK_POINTS and np.size(y) <= 2 * BLOCK_POINTS:
@@ -40,13 +42,15 @@ def _blockwise(method):
         fx, fy = x.ravel(), y.ravel()
         outputs = None
         for start in range(0, fx.size, BLOCK_POINTS):
-            part = method(self, fx[start:start + BLOCK_POINTS], fy[start:start + BLOCK_POINTS], scale)
+            part = method(
+                self, fx[start : start + BLOCK_POINTS], fy[start : start + BLOCK_POINTS], scale
+            )
             single = not isinstance(part, tuple)
             part = (part,) if single else part
             if outputs is None:
                 outputs = [np.empty(fx.size, dtype=np.result_type(p)) for p in part]
             for out, p in zip(outputs, part):
-                out[start:start + BLOCK_POINTS] = p
+                out[start : start + BLOCK_POINTS] = p
         shaped = tuple(out.reshape(x.shape) for out in outputs)
         return shaped[0] if single else shaped
 
@@ -124,8 +128,9 @@ class Lens:
 
     def fermat_potential(self, x, y, beta_x, beta_y, scale=1.0) -> np.ndarray:
         """τ(θ) = |θ − β|²/2 − ψ(θ), arcsec²."""
-        return (0.5 * ((np.asarray(x) - beta_x) ** 2 + (np.asarray(y) - beta_y) ** 2)
-                - self.potential(x, y, scale))
+        return 0.5 * (
+            (np.asarray(x) - beta_x) ** 2 + (np.asarray(y) - beta_y) ** 2
+        ) - self.potential(x, y, scale)
 
     def jacobian(self, x, y, scale=1.0):
         """Entries (a11, a12, a22) of A = I − ∂α/∂θ."""
@@ -133,7 +138,7 @@ class Lens:
         return 1.0 - hxx, -hxy, 1.0 - hyy
 
     def jacobian_determinant(self, x, y, scale=1.0) -> np.ndarray:
-        """det A; zero on the critical curves."""
+        """Det A; zero on the critical curves."""
         a11, a12, a22 = self.jacobian(x, y, scale)
         return a11 * a22 - a12 * a12
 

@@ -1,1 +1,1 @@
-"""model"""
+"""What the user describes: scenarios, mass-model recipes, cosmology specifications."""

@@ -4,6 +4,7 @@ A ``[cosmology]`` table with ``H0`` and ``Om0`` means ``FlatLambdaCDM(H0, Om0, T
 ``name = "Planck18"`` (etc.) means that astropy realisation; any astropy FLRW class can
 be asked for by name. Distances themselves are in :mod:`lensdelay.lensing.distances`.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -68,7 +69,9 @@ def cosmology_from_class(name: str, params: dict, base: FLRW) -> FLRW:
     radiation is off (``Tcmb0 = 0``) unless given, so delays stay exactly ∝ 1/H0.
     """
     if name not in COSMOLOGY_CLASSES:
-        raise InputError(f"cosmology_class must be one of {choices_text(COSMOLOGY_CLASSES)}, got {name!r}")
+        raise InputError(
+            f"cosmology_class must be one of {choices_text(COSMOLOGY_CLASSES)}, got {name!r}"
+        )
     from astropy import cosmology as _cosmo
 
     cls = getattr(_cosmo, name)
@@ -79,14 +82,20 @@ def cosmology_from_class(name: str, params: dict, base: FLRW) -> FLRW:
     try:
         return cls(**kwargs)
     except (TypeError, ValueError) as err:
-        raise InputError(f"class_params for {name} must be keyword arguments of that class, got {params!r} "
-                         f"({err})") from err
+        raise InputError(
+            f"class_params for {name} must be keyword arguments of that class, got {params!r} "
+            f"({err})"
+        ) from err
 
 
 def describe_cosmology(cosmo: FLRW) -> dict:
     """A JSON-ready description of a cosmology (class, name, H0, Om0, ...)."""
-    out = {"class": type(cosmo).__name__, "name": cosmo.name,
-           "H0": float(cosmo.H0.to_value(u.km / u.s / u.Mpc)), "Om0": float(cosmo.Om0)}
+    out = {
+        "class": type(cosmo).__name__,
+        "name": cosmo.name,
+        "H0": float(cosmo.H0.to_value(u.km / u.s / u.Mpc)),
+        "Om0": float(cosmo.Om0),
+    }
     for attr in ("Ode0", "w0", "wa"):
         if hasattr(cosmo, attr):
             out[attr] = float(getattr(cosmo, attr))

@@ -6,6 +6,7 @@ turns such mappings (already parsed from TOML) into :class:`ModelParameter` obje
 validates them, and builds :class:`lensdelay.lens.Lens` objects for given values --
 scalars for a fit, or arrays for many posterior samples at once.
 """
+
 from __future__ import annotations
 
 import math
@@ -74,6 +75,7 @@ class ComponentRecipe:
 
     @property
     def profile_class(self) -> type[MassProfile]:
+        """The profile class this component builds."""
         return PROFILES[self.kind]
 
 
@@ -94,6 +96,7 @@ class MassModel:
     # -- parameters -----------------------------------------------------------------
     @property
     def parameters(self) -> list[ModelParameter]:
+        """Every parameter of every component, in order."""
         return [p for c in self.components for p in c.parameters.values()]
 
     @property
@@ -103,24 +106,30 @@ class MassModel:
 
     @property
     def free_names(self) -> list[str]:
+        """Names of the free parameters."""
         return [p.name for p in self.free]
 
     def start_vector(self) -> np.ndarray:
+        """Start values of the free parameters."""
         return np.array([p.value for p in self.free])
 
     def with_values(self, values: dict[str, float]) -> "MassModel":
         """A copy whose parameters take ``values`` (by full name) as their values."""
         comps = []
         for c in self.components:
-            params = {k: (replace(p, value=float(values[p.name])) if p.name in values else p)
-                      for k, p in c.parameters.items()}
+            params = {
+                k: (replace(p, value=float(values[p.name])) if p.name in values else p)
+                for k, p in c.parameters.items()
+            }
             comps.append(ComponentRecipe(c.kind, params))
         return MassModel(tuple(comps), self.label)
 
     def fixed(self) -> "MassModel":
         """A copy with every parameter held at its value."""
-        comps = [ComponentRecipe(c.kind, {k: replace(p, vary=False) for k, p in c.parameters.items()})
-                 for c in self.components]
+        comps = [
+            ComponentRecipe(c.kind, {k: replace(p, vary=False) for k, p in c.parameters.items()})
+            for c in self.components
+        ]
         return MassModel(tuple(comps), self.label)
 
     # -- building lenses -------------------------------------------------------------
@@ -140,6 +149,7 @@ class MassModel:
         return Lens(tuple(comps))
 
     def n_free(self) -> int:
+        """Number of free parameters."""
         return len(self.free)
 
 
@@ -160,13 +170,17 @@ def parse_parameter(name: str, raw, where: str) -> ModelParameter:
     allowed = ("value", "min", "max", "prior", "vary")
     for key in raw:
         if key not in allowed:
-            raise InputError(f"{where}.{key} is not a parameter field{suggest(key, allowed)}; "
-                             f"allowed: {choices_text(allowed)}, got {key!r}")
+            raise InputError(
+                f"{where}.{key} is not a parameter field{suggest(key, allowed)}; "
+                f"allowed: {choices_text(allowed)}, got {key!r}"
+            )
     default_lo, default_hi = DEFAULT_BOUNDS.get(name, (-math.inf, math.inf))
     lo = _number(raw["min"], f"{where}.min") if "min" in raw else default_lo
     hi = _number(raw["max"], f"{where}.max") if "max" in raw else default_hi
     if lo > hi:
-        raise InputError(f"{where}.min must not exceed {where}.max, got min = {lo:g} > max = {hi:g}")
+        raise InputError(
+            f"{where}.min must not exceed {where}.max, got min = {lo:g} > max = {hi:g}"
+        )
     prior = None
     if "prior" in raw:
         pr = raw["prior"]
@@ -184,9 +198,13 @@ def parse_parameter(name: str, raw, where: str) -> ModelParameter:
     elif math.isfinite(lo) and math.isfinite(hi):
         value = 0.5 * (lo + hi)
     else:
-        raise InputError(f"{where} needs a 'value' (or a prior, or finite min and max), got {raw!r}")
+        raise InputError(
+            f"{where} needs a 'value' (or a prior, or finite min and max), got {raw!r}"
+        )
     if not lo <= value <= hi:
-        raise InputError(f"{where}.value must lie within [min, max] = [{lo:g}, {hi:g}], got {value:g}")
+        raise InputError(
+            f"{where}.value must lie within [min, max] = [{lo:g}, {hi:g}], got {value:g}"
+        )
     vary = raw.get("vary", True)
     if not isinstance(vary, bool):
         raise InputError(f"{where}.vary must be true or false, got {vary!r}")
@@ -196,8 +214,9 @@ def parse_parameter(name: str, raw, where: str) -> ModelParameter:
 def parse_mass_entries(entries, label: str = "model") -> MassModel:
     """Turn the list of ``[[mass]]`` tables into a validated :class:`MassModel`."""
     if not isinstance(entries, list) or not entries:
-        raise InputError("mass must be a non-empty list of [[mass]] tables, "
-                         f"got {type(entries).__name__}")
+        raise InputError(
+            f"mass must be a non-empty list of [[mass]] tables, got {type(entries).__name__}"
+        )
     comps = []
     for i, entry in enumerate(entries):
         where = f"mass[{i}]"
@@ -205,10 +224,14 @@ def parse_mass_entries(entries, label: str = "model") -> MassModel:
             raise InputError(f"{where} must be a table, got {entry!r}")
         kind = entry.get("profile")
         if kind is None:
-            raise InputError(f"{where}.profile is required; allowed: {choices_text(PROFILES)}, got nothing")
+            raise InputError(
+                f"{where}.profile is required; allowed: {choices_text(PROFILES)}, got nothing"
+            )
         if kind not in PROFILES:
-            raise InputError(f"{where}.profile must be one of {choices_text(PROFILES)}"
-                             f"{suggest(str(kind), PROFILES)}, got {kind!r}")
+            raise InputError(
+                f"{where}.profile must be one of {choices_text(PROFILES)}"
+                f"{suggest(str(kind), PROFILES)}, got {kind!r}"
+            )
         cls = PROFILES[kind]
         names = cls.parameter_names()
         params = {}
@@ -217,10 +240,15 @@ def parse_mass_entries(entries, label: str = "model") -> MassModel:
                 continue
             if key not in names:
                 hint = suggest(key, names)
-                extra = (" (shear and sheet are centred on the origin)"
-                         if key in ("x", "y") and not cls.centred else "")
-                raise InputError(f"{where}.{key} is not a parameter of {kind}{hint}{extra}; "
-                                 f"allowed: {choices_text(names)}, got {key!r}")
+                extra = (
+                    " (shear and sheet are centred on the origin)"
+                    if key in ("x", "y") and not cls.centred
+                    else ""
+                )
+                raise InputError(
+                    f"{where}.{key} is not a parameter of {kind}{hint}{extra}; "
+                    f"allowed: {choices_text(names)}, got {key!r}"
+                )
             params[key] = parse_parameter(key, raw, f"{where}.{key}")
         for req in cls.required_names():
             if req not in params:

@@ -6,6 +6,7 @@ and names its mass model inline (``[[mass]]``) or by a file in ``models/``. This
 module turns the parsed document into frozen dataclasses; it reads no files itself
 (the model file, if any, comes through a callback from :mod:`lensdelay.loading`).
 """
+
 from __future__ import annotations
 
 import math
@@ -44,6 +45,7 @@ class Family:
     images: tuple[ImageObs, ...]
 
     def image(self, label: str) -> ImageObs:
+        """The image called ``label``."""
         for im in self.images:
             if im.label == label:
                 return im
@@ -51,11 +53,14 @@ class Family:
 
     @property
     def labels(self) -> list[str]:
+        """Image labels in the file's order."""
         return [im.label for im in self.images]
 
 
 @dataclass(frozen=True)
 class LensLight:
+    """The measured centre of the lens light and its 1-σ error (arcsec)."""
+
     x: float
     y: float
     sigma: float
@@ -87,13 +92,13 @@ class MeasuredDelay:
 class Site:
     """A ground site (latitude, longitude, height) or a space observatory (elongation range)."""
 
-    kind: str                      # "ground" or "space"
+    kind: str  # "ground" or "space"
     latitude: float = 0.0
     longitude: float = 0.0
     height: float = 0.0
-    twilight: float = -12.0        # Sun altitude limit, degrees
-    min_altitude: float = 30.0     # target altitude limit, degrees
-    min_hours: float = 1.0         # needed per night
+    twilight: float = -12.0  # Sun altitude limit, degrees
+    min_altitude: float = 30.0  # target altitude limit, degrees
+    min_hours: float = 1.0  # needed per night
     solar_elongation: tuple[float, float] = (0.0, 180.0)
 
 
@@ -116,6 +121,7 @@ class Scenario:
     extra: dict = field(default_factory=dict)
 
     def family(self, label: str) -> Family:
+        """The family called ``label``."""
         for f in self.families:
             if f.label == label:
                 return f
@@ -123,6 +129,7 @@ class Scenario:
 
     @property
     def n_images(self) -> int:
+        """Number of observed images over all families."""
         return sum(len(f.images) for f in self.families)
 
 
@@ -132,14 +139,18 @@ class _Table:
 
     def __init__(self, data: Any, where: str, allowed: tuple[str, ...]):
         if data is None:
-            raise InputError(f"{where} is required ([{where}] with {', '.join(allowed[:2])}), got nothing")
+            raise InputError(
+                f"{where} is required ([{where}] with {', '.join(allowed[:2])}), got nothing"
+            )
         if not isinstance(data, dict):
             raise InputError(f"{where} must be a table, got {data!r}")
         self.data, self.where, self.allowed = data, where, allowed
         for key in data:
             if key not in allowed:
-                raise InputError(f"{where}.{key} is not a known key{suggest(key, allowed)}; "
-                                 f"allowed: {choices_text(allowed)}, got {key!r}")
+                raise InputError(
+                    f"{where}.{key} is not a known key{suggest(key, allowed)}; "
+                    f"allowed: {choices_text(allowed)}, got {key!r}"
+                )
 
     def name(self, key):
         return f"{self.where}.{key}"
@@ -156,9 +167,13 @@ class _Table:
         if not math.isfinite(v):
             raise InputError(f"{self.name(key)} must be finite, got {v}")
         if lo is not None and (v < lo or (lo_open and v == lo)):
-            raise InputError(f"{self.name(key)} must be {'>' if lo_open else '>='} {lo:g}, got {v:g}")
+            raise InputError(
+                f"{self.name(key)} must be {'>' if lo_open else '>='} {lo:g}, got {v:g}"
+            )
         if hi is not None and (v > hi or (hi_open and v == hi)):
-            raise InputError(f"{self.name(key)} must be {'<' if hi_open else '<='} {hi:g}, got {v:g}")
+            raise InputError(
+                f"{self.name(key)} must be {'<' if hi_open else '<='} {hi:g}, got {v:g}"
+            )
         return v
 
     def text(self, key, default: Any = ...):
@@ -198,16 +213,31 @@ def parse_date(value, where: str) -> Time:
     try:
         parsed = _dt.datetime.fromisoformat(text)
     except ValueError as err:
-        raise InputError(f"{where} must be an ISO 8601 date such as 2027-03-04, got {value!r}") from err
+        raise InputError(
+            f"{where} must be an ISO 8601 date such as 2027-03-04, got {value!r}"
+        ) from err
     return Time(parsed.replace(tzinfo=None), scale="utc")
 
 
-TOP_KEYS = ("name", "description", "lens", "sky", "cosmology", "family", "lens_light",
-            "transient", "delay", "site", "mass", "model")
+TOP_KEYS = (
+    "name",
+    "description",
+    "lens",
+    "sky",
+    "cosmology",
+    "family",
+    "lens_light",
+    "transient",
+    "delay",
+    "site",
+    "mass",
+    "model",
+)
 
 
-def parse_scenario(doc: dict, source: str,
-                   load_model: Callable[[str], MassModel] | None = None) -> Scenario:
+def parse_scenario(
+    doc: dict, source: str, load_model: Callable[[str], MassModel] | None = None
+) -> Scenario:
     """Validate a parsed scenario document.
 
     Parameters
@@ -234,8 +264,11 @@ def _parse(doc, source, load_model):
     sky = None
     if "sky" in doc:
         st = _Table(doc["sky"], "sky", ("ra", "dec"))
-        sky = SkyCoord(st.number("ra", lo=0.0, hi=360.0) * u.deg,
-                       st.number("dec", lo=-90.0, hi=90.0) * u.deg, frame="icrs")
+        sky = SkyCoord(
+            st.number("ra", lo=0.0, hi=360.0) * u.deg,
+            st.number("dec", lo=-90.0, hi=90.0) * u.deg,
+            frame="icrs",
+        )
 
     cosmo = cosmology_from_spec(_check_cosmology(doc.get("cosmology")))
 
@@ -249,75 +282,116 @@ def _parse(doc, source, load_model):
         seen_fam.add(label)
         z_s = ft.number("redshift", hi=20.0)
         if z_s <= z_l:
-            raise InputError(f"family[{i}].redshift must be greater than lens.redshift {z_l:g}, got {z_s:g}")
+            raise InputError(
+                f"family[{i}].redshift must be greater than lens.redshift {z_l:g}, got {z_s:g}"
+            )
         images, labels = [], set()
         for j, im_raw in enumerate(ft.table_list("image", required=True)):
-            it = _Table(im_raw, f"family[{i}].image[{j}]", ("label", "x", "y", "sigma", "flux", "magnitude"))
+            it = _Table(
+                im_raw, f"family[{i}].image[{j}]", ("label", "x", "y", "sigma", "flux", "magnitude")
+            )
             lab = it.text("label")
             if lab in labels:
-                raise InputError(f"family[{i}].image[{j}].label must be unique within family "
-                                 f"{label!r}, got {lab!r} twice")
+                raise InputError(
+                    f"family[{i}].image[{j}].label must be unique within family "
+                    f"{label!r}, got {lab!r} twice"
+                )
             labels.add(lab)
             x = it.number("x", lo=-3600.0, hi=3600.0)
             y = it.number("y", lo=-3600.0, hi=3600.0)
             sigma = it.number("sigma", lo=0.0, lo_open=True, hi=60.0)
             if sigma < 1e-5:
-                warnings.warn(f"{source}: family[{i}].image[{j}].sigma = {sigma:g} arcsec is below "
-                              "0.01 mas; is it in arcsec?", LensdelayWarning, stacklevel=2)
+                warnings.warn(
+                    f"{source}: family[{i}].image[{j}].sigma = {sigma:g} arcsec is below "
+                    "0.01 mas; is it in arcsec?",
+                    LensdelayWarning,
+                    stacklevel=2,
+                )
             flux = it.number("flux", default=None, lo=0.0, lo_open=True)
             mag = it.number("magnitude", default=None, lo=-30.0, hi=40.0)
             images.append(ImageObs(lab, x, y, sigma, flux, mag))
         families.append(Family(label, z_s, tuple(images)))
     z_ref = lens_tab.number("reference_source_redshift", default=families[0].redshift, hi=20.0)
     if z_ref <= z_l:
-        raise InputError(f"lens.reference_source_redshift must be greater than lens.redshift "
-                         f"{z_l:g}, got {z_ref:g}")
+        raise InputError(
+            f"lens.reference_source_redshift must be greater than lens.redshift "
+            f"{z_l:g}, got {z_ref:g}"
+        )
 
     lens_light = None
     if "lens_light" in doc:
         lt = _Table(doc["lens_light"], "lens_light", ("x", "y", "sigma"))
-        lens_light = LensLight(lt.number("x"), lt.number("y"), lt.number("sigma", lo=0.0, lo_open=True))
+        lens_light = LensLight(
+            lt.number("x"), lt.number("y"), lt.number("sigma", lo=0.0, lo_open=True)
+        )
 
     fam_by = {f.label: f for f in families}
     transient = None
     if "transient" in doc:
-        tt = _Table(doc["transient"], "transient",
-                    ("family", "seen_in", "date", "date_sigma_days", "magnitude"))
+        tt = _Table(
+            doc["transient"],
+            "transient",
+            ("family", "seen_in", "date", "date_sigma_days", "magnitude"),
+        )
         fam = tt.text("family", default=families[0].label)
         if fam not in fam_by:
-            raise InputError(f"transient.family must name a family ({choices_text(fam_by)}), got {fam!r}")
+            raise InputError(
+                f"transient.family must name a family ({choices_text(fam_by)}), got {fam!r}"
+            )
         seen = tt.text("seen_in")
         if seen not in fam_by[fam].labels:
-            raise InputError(f"transient.seen_in must be an image of family {fam!r} "
-                             f"({choices_text(fam_by[fam].labels)}), got {seen!r}")
+            raise InputError(
+                f"transient.seen_in must be an image of family {fam!r} "
+                f"({choices_text(fam_by[fam].labels)}), got {seen!r}"
+            )
         if "date" not in tt.data:
             raise InputError("transient.date is required (ISO 8601, UTC), got nothing")
         date = parse_date(tt.data["date"], "transient.date")
-        transient = Transient(fam, seen, date, tt.number("date_sigma_days", 0.0, lo=0.0, hi=3650.0),
-                              tt.number("magnitude", None, lo=-30.0, hi=40.0))
+        transient = Transient(
+            fam,
+            seen,
+            date,
+            tt.number("date_sigma_days", 0.0, lo=0.0, hi=3650.0),
+            tt.number("magnitude", None, lo=-30.0, hi=40.0),
+        )
 
     delays = []
     for k, d_raw in enumerate(top.table_list("delay")):
         dt = _Table(d_raw, f"delay[{k}]", ("family", "image", "relative_to", "days", "sigma"))
         fam = dt.text("family", default=families[0].label)
         if fam not in fam_by:
-            raise InputError(f"delay[{k}].family must name a family ({choices_text(fam_by)}), got {fam!r}")
+            raise InputError(
+                f"delay[{k}].family must name a family ({choices_text(fam_by)}), got {fam!r}"
+            )
         labels = fam_by[fam].labels
         for key in ("image", "relative_to"):
             if dt.text(key) not in labels:
-                raise InputError(f"delay[{k}].{key} must be an image of family {fam!r} "
-                                 f"({choices_text(labels)}), got {dt.text(key)!r}")
+                raise InputError(
+                    f"delay[{k}].{key} must be an image of family {fam!r} "
+                    f"({choices_text(labels)}), got {dt.text(key)!r}"
+                )
         if dt.text("image") == dt.text("relative_to"):
-            raise InputError(f"delay[{k}].relative_to must differ from delay[{k}].image, got {dt.text('image')!r} for both")
-        delays.append(MeasuredDelay(fam, dt.text("image"), dt.text("relative_to"),
-                                    dt.number("days", lo=-1e6, hi=1e6),
-                                    dt.number("sigma", lo=0.0, lo_open=True)))
+            raise InputError(
+                f"delay[{k}].relative_to must differ from delay[{k}].image, got "
+                f"{dt.text('image')!r} for both"
+            )
+        delays.append(
+            MeasuredDelay(
+                fam,
+                dt.text("image"),
+                dt.text("relative_to"),
+                dt.number("days", lo=-1e6, hi=1e6),
+                dt.number("sigma", lo=0.0, lo_open=True),
+            )
+        )
 
     site = _parse_site(doc["site"]) if "site" in doc else None
 
     if ("mass" in doc) == ("model" in doc):
-        raise InputError("scenario must give either [[mass]] entries or model = \"models/NAME.toml\", "
-                         f"got {'both' if 'mass' in doc else 'neither'}")
+        raise InputError(
+            'scenario must give either [[mass]] entries or model = "models/NAME.toml", '
+            f"got {'both' if 'mass' in doc else 'neither'}"
+        )
     if "mass" in doc:
         model = parse_mass_entries(doc["mass"], label=f"{name}-inline")
     else:
@@ -326,8 +400,20 @@ def _parse(doc, source, load_model):
             raise InputError(f"model = {ref!r} needs a file loader, got none")
         model = load_model(ref)
 
-    return Scenario(name, source, z_l, z_ref, sky, cosmo, tuple(families), model,
-                    lens_light, transient, tuple(delays), site)
+    return Scenario(
+        name,
+        source,
+        z_l,
+        z_ref,
+        sky,
+        cosmo,
+        tuple(families),
+        model,
+        lens_light,
+        transient,
+        tuple(delays),
+        site,
+    )
 
 
 def _check_cosmology(spec):
@@ -340,23 +426,44 @@ def _check_cosmology(spec):
 
 
 def _parse_site(raw) -> Site:
-    st = _Table(raw, "site", ("latitude", "longitude", "height", "twilight", "min_altitude",
-                              "min_hours", "solar_elongation"))
+    st = _Table(
+        raw,
+        "site",
+        (
+            "latitude",
+            "longitude",
+            "height",
+            "twilight",
+            "min_altitude",
+            "min_hours",
+            "solar_elongation",
+        ),
+    )
     if "solar_elongation" in st.data:
         if any(k in st.data for k in ("latitude", "longitude", "height")):
-            raise InputError("site must be either a ground site (latitude, longitude, height) or "
-                             "a space observatory (solar_elongation), got both")
+            raise InputError(
+                "site must be either a ground site (latitude, longitude, height) or "
+                "a space observatory (solar_elongation), got both"
+            )
         el = st.data["solar_elongation"]
-        if not (isinstance(el, list) and len(el) == 2
-                and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in el)):
+        if not (
+            isinstance(el, list)
+            and len(el) == 2
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in el)
+        ):
             raise InputError(f"site.solar_elongation must be [min, max] in degrees, got {el!r}")
         lo, hi = float(el[0]), float(el[1])
         if not (0.0 <= lo < hi <= 180.0):
-            raise InputError(f"site.solar_elongation must satisfy 0 <= min < max <= 180 degrees, got {el!r}")
+            raise InputError(
+                f"site.solar_elongation must satisfy 0 <= min < max <= 180 degrees, got {el!r}"
+            )
         return Site("space", solar_elongation=(lo, hi))
-    return Site("ground", st.number("latitude", lo=-90.0, hi=90.0),
-                st.number("longitude", lo=-180.0, hi=360.0),
-                st.number("height", 0.0, lo=-500.0, hi=9000.0),
-                st.number("twilight", -12.0, lo=-90.0, hi=0.0),
-                st.number("min_altitude", 30.0, lo=0.0, hi=90.0, hi_open=True),
-                st.number("min_hours", 1.0, lo=0.0, lo_open=True, hi=24.0))
+    return Site(
+        "ground",
+        st.number("latitude", lo=-90.0, hi=90.0),
+        st.number("longitude", lo=-180.0, hi=360.0),
+        st.number("height", 0.0, lo=-500.0, hi=9000.0),
+        st.number("twilight", -12.0, lo=-90.0, hi=0.0),
+        st.number("min_altitude", 30.0, lo=0.0, hi=90.0, hi_open=True),
+        st.number("min_hours", 1.0, lo=0.0, lo_open=True, hi=24.0),
+    )

@@ -4,6 +4,7 @@ Given a known lens and source, compute the images, add Gaussian astrometric nois
 (seeded), and describe the result as a scenario document (a dict ready for
 :func:`lensdelay.scenario.parse_scenario`, or TOML text for a demo file).
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -12,9 +13,19 @@ from lensdelay.lensing.images import find_images
 from lensdelay.lensing.lens import Lens
 
 
-def simulate_family(lens: Lens, beta_x: float, beta_y: float, *, label: str, redshift: float,
-                    scale: float = 1.0, sigma: float = 0.003, rng=None, min_abs_mu: float = 0.05,
-                    labels: str = "ABCDEFGH") -> dict:
+def simulate_family(
+    lens: Lens,
+    beta_x: float,
+    beta_y: float,
+    *,
+    label: str,
+    redshift: float,
+    scale: float = 1.0,
+    sigma: float = 0.003,
+    rng=None,
+    min_abs_mu: float = 0.05,
+    labels: str = "ABCDEFGH",
+) -> dict:
     """A ``[[family]]`` table with noisy images of one source (brightest first kept).
 
     Images fainter than ``min_abs_mu`` (e.g. central images) are left out, as an
@@ -26,12 +37,15 @@ def simulate_family(lens: Lens, beta_x: float, beta_y: float, *, label: str, red
     table = table.select(keep)
     images = []
     for k in range(len(table)):
-        images.append({
-            "label": labels[k], "sigma": sigma,
-            "x": float(table.x[k] + rng.normal(0, sigma)),
-            "y": float(table.y[k] + rng.normal(0, sigma)),
-            "magnitude": float(22.0 - 2.5 * np.log10(abs(table.magnification[k]))),
-        })
+        images.append(
+            {
+                "label": labels[k],
+                "sigma": sigma,
+                "x": float(table.x[k] + rng.normal(0, sigma)),
+                "y": float(table.y[k] + rng.normal(0, sigma)),
+                "magnitude": float(22.0 - 2.5 * np.log10(abs(table.magnification[k]))),
+            }
+        )
     return {"label": label, "redshift": redshift, "image": images}
 
 
@@ -56,7 +70,9 @@ def to_toml(doc: dict) -> str:
 
     def emit(prefix, table):
         for k, v in table.items():
-            if not isinstance(v, dict) and not (isinstance(v, list) and v and isinstance(v[0], dict)):
+            if not isinstance(v, dict) and not (
+                isinstance(v, list) and v and isinstance(v[0], dict)
+            ):
                 lines.append(f"{k} = {scalar(v)}")
         for k, v in table.items():
             name = f"{prefix}.{k}" if prefix else k

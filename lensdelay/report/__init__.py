@@ -1,1 +1,1 @@
-"""report"""
+"""Text reports and figures, drawn from result objects only."""

@@ -1,4 +1,5 @@
 """Figures, kept apart from the computation. Sky views: North up, East left, arcsec."""
+
 from __future__ import annotations
 
 import matplotlib
@@ -6,13 +7,13 @@ import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.patches import Circle
 
-from lensdelay.lensing.critical import critical_lines  
+from lensdelay.lensing.critical import critical_lines
 
 MARKERS = {"minimum": "o", "saddle": "s", "maximum": "^"}
 
 
 def _sky_axes(ax, extent):
-    ax.set_xlim(extent, -extent)          # East to the left
+    ax.set_xlim(extent, -extent)  # East to the left
     ax.set_ylim(-extent, extent)
     ax.set_aspect("equal")
     ax.set_xlabel("x = ΔRA cos δ [arcsec]  (East ←)")
@@ -25,30 +26,63 @@ def sky_figure(like, values, fit_result, title=""):
     ax = fig.subplots()
     pts = np.concatenate([np.hypot(f.x, f.y) for f in like.families])
     extent = 1.4 * float(pts.max()) + 0.3
-    lens = like.model.lens(values[:like.n_model])
+    lens = like.model.lens(values[: like.n_model])
     colours = matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
     preds = like.predict(values[None, :])
     for k, (fam, pred) in enumerate(zip(like.families, preds)):
         c = colours[k % len(colours)]
         first = True
         for line in critical_lines(lens, fam.scale, extent=extent, resolution=300):
-            ax.plot(line.x, line.y, "-", color=c, lw=0.9, alpha=0.8,
-                    label=f"{fam.label}: critical curve" if first else None)
-            ax.plot(line.caustic_x, line.caustic_y, ":", color=c, lw=0.9,
-                    label=f"{fam.label}: caustic" if first else None)
+            ax.plot(
+                line.x,
+                line.y,
+                "-",
+                color=c,
+                lw=0.9,
+                alpha=0.8,
+                label=f"{fam.label}: critical curve" if first else None,
+            )
+            ax.plot(
+                line.caustic_x,
+                line.caustic_y,
+                ":",
+                color=c,
+                lw=0.9,
+                label=f"{fam.label}: caustic" if first else None,
+            )
             first = False
-        ax.errorbar(fam.x, fam.y, xerr=fam.sigma, yerr=fam.sigma, fmt="+", color="k", ms=10,
-                    label="observed" if k == 0 else None)
+        ax.errorbar(
+            fam.x,
+            fam.y,
+            xerr=fam.sigma,
+            yerr=fam.sigma,
+            fmt="+",
+            color="k",
+            ms=10,
+            label="observed" if k == 0 else None,
+        )
         for i, lab in enumerate(fam.labels):
-            ax.annotate(f"{fam.label}/{lab}", (fam.x[i], fam.y[i]), textcoords="offset points",
-                        xytext=(6, 6), fontsize=8)
+            ax.annotate(
+                f"{fam.label}/{lab}",
+                (fam.x[i], fam.y[i]),
+                textcoords="offset points",
+                xytext=(6, 6),
+                fontsize=8,
+            )
         ok = pred["ok"][0]
         ax.plot(pred["x"][0, ok], pred["y"][0, ok], "x", color=c, ms=7, label=f"{fam.label}: model")
         b = values[like.source_slice(k)]
         ax.plot(b[0], b[1], "*", color=c, ms=9, label=f"{fam.label}: source")
     for j, im in enumerate(fit_result.unobserved_images):
-        ax.plot(im["x"], im["y"], MARKERS.get(im["parity"], "o"), mfc="none", mec="tab:red", ms=8,
-                label="predicted, not observed" if j == 0 else None)
+        ax.plot(
+            im["x"],
+            im["y"],
+            MARKERS.get(im["parity"], "o"),
+            mfc="none",
+            mec="tab:red",
+            ms=8,
+            label="predicted, not observed" if j == 0 else None,
+        )
     _sky_axes(ax, extent)
     ax.set_title(title or "Sky view (North up, East left)")
     ax.legend(fontsize=7, loc="upper left", framealpha=0.8)
@@ -75,7 +109,9 @@ def residual_figure(fit_result):
     ax.set_aspect("equal")
     ax.set_xlabel("model − observed, x [mas]  (East ←)")
     ax.set_ylabel("model − observed, y [mas]  (North ↑)")
-    ax.set_title(f"Image residuals (χ² = {fit_result.chi2:.2f}, dof = {fit_result.dof}); dotted: 1σ")
+    ax.set_title(
+        f"Image residuals (χ² = {fit_result.chi2:.2f}, dof = {fit_result.dof}); dotted: 1σ"
+    )
     ax.legend(fontsize=8)
     fig.tight_layout()
     return fig
@@ -86,8 +122,10 @@ def corner_figure(samples, names, truths=None):
     n = samples.shape[1]
     fig = Figure(figsize=(1.7 * n + 1, 1.7 * n + 1))
     axes = fig.subplots(n, n, squeeze=False)
-    short = [nm.replace("mass[", "m").replace("].", ".").replace("source[", "src.").replace("]", "")
-             for nm in names]
+    short = [
+        nm.replace("mass[", "m").replace("].", ".").replace("source[", "src.").replace("]", "")
+        for nm in names
+    ]
     for i in range(n):
         for j in range(n):
             ax = axes[i, j]
@@ -131,12 +169,23 @@ def timeline_figure(res):
     if cal is not None:
         start_offset = (cal.start - base).to_value("day")
         days = np.arange(len(cal.observable))
-        ax.axvspan(to_num(start_offset), to_num(start_offset + len(days)), color="0.8", alpha=0.6,
-                   lw=0, label="not observable from the site")
+        ax.axvspan(
+            to_num(start_offset),
+            to_num(start_offset + len(days)),
+            color="0.8",
+            alpha=0.6,
+            lw=0,
+            label="not observable from the site",
+        )
         first = True
         for a, b in cal.windows(0, len(days) - 1):
-            ax.axvspan(to_num(start_offset + a), to_num(start_offset + b + 1), color="#d9f0d3",
-                       lw=0, label="observable from the site" if first else None)
+            ax.axvspan(
+                to_num(start_offset + a),
+                to_num(start_offset + b + 1),
+                color="#d9f0d3",
+                lw=0,
+                label="observable from the site" if first else None,
+            )
             first = False
     for row, im in enumerate(images):
         ok = np.isfinite(im.samples.offsets) & (im.samples.weights > 0)
@@ -146,47 +195,89 @@ def timeline_figure(res):
         if hist.max() > 0:
             h = 0.38 * hist / hist.max()
             centres = to_num(0.5 * (edges[1:] + edges[:-1]))
-            ax.fill_between(centres, row - h, row + h, color="tab:blue", alpha=0.55, lw=0,
-                            label="date distribution" if row == 0 else None)
+            ax.fill_between(
+                centres,
+                row - h,
+                row + h,
+                color="tab:blue",
+                alpha=0.55,
+                lw=0,
+                label="date distribution" if row == 0 else None,
+            )
         q = im.date_offset_days
-        ax.plot(to_num([q["p2.5"], q["p97.5"]]), [row, row], "-", color="k", lw=1,
-                label="95% window" if row == 0 else None)
-        ax.plot(to_num([q["p16"], q["p84"]]), [row, row], "-", color="k", lw=4,
-                label="68% window" if row == 0 else None)
-        ax.plot(to_num(q["median"]), row, "o", color="w", mec="k", ms=5,
-                label="median" if row == 0 else None)
+        ax.plot(
+            to_num([q["p2.5"], q["p97.5"]]),
+            [row, row],
+            "-",
+            color="k",
+            lw=1,
+            label="95% window" if row == 0 else None,
+        )
+        ax.plot(
+            to_num([q["p16"], q["p84"]]),
+            [row, row],
+            "-",
+            color="k",
+            lw=4,
+            label="68% window" if row == 0 else None,
+        )
+        ax.plot(
+            to_num(q["median"]),
+            row,
+            "o",
+            color="w",
+            mec="k",
+            ms=5,
+            label="median" if row == 0 else None,
+        )
     rows = {im.label: row for row, im in enumerate(images)}
     first = True
     for s in res.settings.sightings:
         if s.label in rows:
             off = (s.date - base).to_value("day")
-            ax.errorbar([to_num(off)], [rows[s.label] + 0.25],
-                        xerr=[[to_num(off) - to_num(off - s.sigma_days)], [to_num(off + s.sigma_days) - to_num(off)]],
-                        fmt="D", color="tab:orange", mec="k", ms=5, capsize=2,
-                        label="sighting ± 1σ" if first else None)
+            ax.errorbar(
+                [to_num(off)],
+                [rows[s.label] + 0.25],
+                xerr=[
+                    [to_num(off) - to_num(off - s.sigma_days)],
+                    [to_num(off + s.sigma_days) - to_num(off)],
+                ],
+                fmt="D",
+                color="tab:orange",
+                mec="k",
+                ms=5,
+                capsize=2,
+                label="sighting ± 1σ" if first else None,
+            )
             first = False
     ax.axvline(to_num(0.0), color="tab:red", lw=1.2, label=f"detection {tr.date.isot[:10]}")
     now = (res.now - base).to_value("day")
     if lo - pad <= now <= hi + pad:
         ax.axvline(to_num(now), color="tab:purple", ls="--", lw=1, label=f"now {res.now.isot[:10]}")
     ax.set_yticks(range(len(images)))
-    ax.set_yticklabels([f"{im.family}/{im.label}{'' if im.observed else '*'} ({im.status})"
-                        for im in images])
+    ax.set_yticklabels(
+        [f"{im.family}/{im.label}{'' if im.observed else '*'} ({im.status})" for im in images]
+    )
     ax.set_ylim(-0.7, len(images) - 0.3)
     ax.set_xlim(to_num(lo - pad), to_num(hi + pad))
     ax.xaxis_date()
     ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(ax.xaxis.get_major_locator()))
     ax.set_xlabel("date (UTC)")
-    ax.set_title(f"{res.scenario.name}: when each image shows the event (* = predicted); "
-                 "model-dependent, see cautions", fontsize=9)
+    ax.set_title(
+        f"{res.scenario.name}: when each image shows the event (* = predicted); "
+        "model-dependent, see cautions",
+        fontsize=9,
+    )
     ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     fig.tight_layout()
     return fig
 
 
 def budget_figure(budget):
-    """Each sampled source's share of each image's date variance (signed: after a
-    measurement some sources offset one another)."""
+    """Each sampled source's share of each image's date variance.
+
+    Signed: after a measurement some sources offset one another.
+    """
     from lensdelay.forecast.budget import SAMPLED_TERMS
 
     terms = SAMPLED_TERMS + ("remainder",)
@@ -198,9 +289,16 @@ def budget_figure(budget):
     hatches = ["", "//", "..", "xx", "\\\\", "--"]
     for k, term in enumerate(terms):
         share = np.array([r["date"][term]["percent"] for r in rows])
-        ax.barh(np.arange(len(rows)) - 0.4 + (k + 0.5) * height, share, height=height,
-                color=colours[k % len(colours)], hatch=hatches[k % len(hatches)], edgecolor="k", lw=0.3,
-                label=term)
+        ax.barh(
+            np.arange(len(rows)) - 0.4 + (k + 0.5) * height,
+            share,
+            height=height,
+            color=colours[k % len(colours)],
+            hatch=hatches[k % len(hatches)],
+            edgecolor="k",
+            lw=0.3,
+            label=term,
+        )
     ax.axvline(0, color="k", lw=0.8)
     ax.set_yticks(range(len(rows)))
     ax.set_yticklabels([f"{r['family']}/{r['label']}" for r in rows])
@@ -241,8 +339,13 @@ def h0_figure(res):
     ax = fig.subplots()
     for k in res.kappa_comparison:
         s = k["samples_H0"]
-        ax.hist(s[np.isfinite(s)], bins=60, histtype="step", density=True,
-                label=f"κext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f})")
+        ax.hist(
+            s[np.isfinite(s)],
+            bins=60,
+            histtype="step",
+            density=True,
+            label=f"κext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f})",
+        )
     ax.set_xlabel("H0 [km/s/Mpc]")
     ax.set_ylabel("posterior density")
     ax.set_title("H0 from the measured delays; H0 scales with (1 − κext)", fontsize=10)

@@ -1,27 +1,43 @@
 """Plain-text reports, kept apart from the computation."""
+
 from __future__ import annotations
 
 from lensdelay.cautions import CAUTION
 from lensdelay.forecast.pipeline import STATUS_MEANINGS, TENSION_CAUSES
-from lensdelay.io.forecast_files import instant, iso_utc, window_days, date_summary, day_of, median_day
+from lensdelay.io.forecast_files import (
+    instant,
+    iso_utc,
+    window_days,
+    date_summary,
+    day_of,
+    median_day,
+)
 
 
 def images_text(result: dict) -> str:
     """Table of images from :func:`lensdelay.commands.images_command`."""
     lines = [
-        f"Images of a source at ({result['source']['x']:+.4f}, {result['source']['y']:+.4f}) arcsec, "
+        f"Images of a source at ({result['source']['x']:+.4f}, {result['source']['y']:+.4f}) "
+        f"arcsec, "
         f"z_s = {result['source_redshift']:g}, z_l = {result['lens_redshift']:g}",
-        f"D_dt = {result['time_delay_distance_Mpc']:.1f} Mpc ({result['cosmology']['name'] or result['cosmology']['class']})",
+        f"D_dt = {result['time_delay_distance_Mpc']:.1f} Mpc "
+        f"({result['cosmology']['name'] or result['cosmology']['class']})",
         "",
-        f"{'image':>5} {'x [arcsec]':>11} {'y [arcsec]':>11} {'magnif.':>9} {'parity':>8} {'delay [d]':>10}",
+        f"{'image':>5} {'x [arcsec]':>11} {'y [arcsec]':>11} {'magnif.':>9} {'parity':>8} "
+        f"{'delay [d]':>10}",
     ]
     for im in result["images"]:
-        lines.append(f"{im['label']:>5} {im['x']:+11.5f} {im['y']:+11.5f} {im['magnification']:+9.3f} "
-                     f"{im['parity']:>8} {im['delay_days']:10.3f}")
+        lines.append(
+            f"{im['label']:>5} {im['x']:+11.5f} {im['y']:+11.5f} {im['magnification']:+9.3f} "
+            f"{im['parity']:>8} {im['delay_days']:10.3f}"
+        )
     if not result["images"]:
         lines.append("  (no images)")
-    lines += ["", "x is East, y is North; delay is after the first arrival (positive = later).",
-              CAUTION]
+    lines += [
+        "",
+        "x is East, y is North; delay is after the first arrival (positive = later).",
+        CAUTION,
+    ]
     return "\n".join(lines)
 
 
@@ -33,38 +49,53 @@ def fit_text(res: dict) -> str:
     for n, v, e in zip(fr.names, fr.values, fr.errors):
         err = f"{e:10.4g}" if e == e else f"{'—':>10}"
         lines.append(f"{n:<32} {v:12.5g} {err}")
-    lines += ["", f"chi2 = {fr.chi2:.3f} for {fr.n_constraints} constraints and {fr.n_parameters} "
-              f"free parameters: dof = {fr.dof}; AIC = {fr.aic:.2f}, BIC = {fr.bic:.2f}"]
+    lines += [
+        "",
+        f"chi2 = {fr.chi2:.3f} for {fr.n_constraints} constraints and {fr.n_parameters} "
+        f"free parameters: dof = {fr.dof}; AIC = {fr.aic:.2f}, BIC = {fr.bic:.2f}",
+    ]
     if fr.dof <= 0:
         lines.append("WARNING: no degrees of freedom left: chi2 does not test this model.")
-    lines += ["", "residuals (model − observed):",
-              f"{'image':<10} {'dx [mas]':>9} {'dy [mas]':>9} {'sigma':>7} {'magnif.':>9}"]
+    lines += [
+        "",
+        "residuals (model − observed):",
+        f"{'image':<10} {'dx [mas]':>9} {'dy [mas]':>9} {'sigma':>7} {'magnif.':>9}",
+    ]
     for r in fr.residuals_mas:
         name = f"{r['family']}/{r['image']}"
         if r["reproduced"]:
-            lines.append(f"{name:<10} {r['dx_mas']:9.2f} {r['dy_mas']:9.2f} {r['sigma_mas']:7.1f} "
-                         f"{r['magnification']:+9.3f}")
+            lines.append(
+                f"{name:<10} {r['dx_mas']:9.2f} {r['dy_mas']:9.2f} {r['sigma_mas']:7.1f} "
+                f"{r['magnification']:+9.3f}"
+            )
         else:
             lines.append(f"{name:<10} {'not reproduced by the model':>37}")
     if fr.unobserved_images:
         lines += ["", "predicted images that were not observed:"]
         for im in fr.unobserved_images:
-            lines.append(f"  {im['family']}: ({im['x']:+.4f}, {im['y']:+.4f}) arcsec, "
-                         f"mu = {im['magnification']:+.4f}, {im['parity']}")
+            lines.append(
+                f"  {im['family']}: ({im['x']:+.4f}, {im['y']:+.4f}) arcsec, "
+                f"mu = {im['magnification']:+.4f}, {im['parity']}"
+            )
     if res.linear_delays:
         lines += ["", "delays at the best fit (scenario cosmology; linearised 1-sigma errors):"]
         for d in res.linear_delays:
-            lines.append(f"  {d['family']}/{d['image']} − {d['relative_to']}: {d['days']:+.2f} "
-                         f"± {d['linearised_sigma_days']:.2f} d")
+            lines.append(
+                f"  {d['family']}/{d['image']} − {d['relative_to']}: {d['days']:+.2f} "
+                f"± {d['linearised_sigma_days']:.2f} d"
+            )
     for note in fr.notes:
         lines.append(f"NOTE: {note}")
     ch = res.chain
     if ch is not None:
         s = ch.samples()
-        lines += ["", f"posterior: {ch.chain.shape[1]} walkers × {ch.chain.shape[0]} steps, burn-in "
-                  f"{ch.burn}, thin {ch.thin}, {len(s)} samples; acceptance {ch.acceptance.mean():.2f}; "
-                  f"{ch.move} move, {res.likelihood.prior} prior",
-                  f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7}"]
+        lines += [
+            "",
+            f"posterior: {ch.chain.shape[1]} walkers × {ch.chain.shape[0]} steps, burn-in "
+            f"{ch.burn}, thin {ch.thin}, {len(s)} samples; acceptance {ch.acceptance.mean():.2f}; "
+            f"{ch.move} move, {res.likelihood.prior} prior",
+            f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7}",
+        ]
         import numpy as np
 
         for i, n in enumerate(ch.names):
@@ -87,38 +118,59 @@ def budget_text(budget: dict) -> str:
     from lensdelay.forecast.budget import SAMPLED_TERMS
 
     terms = SAMPLED_TERMS + ("remainder",)
-    lines = ["Uncertainty budget of each image's date (signed 1-sigma days, share of the variance;",
-             "after any update; negative: sources the measurements tied together):",
-             f"{'image':<8}" + "".join(f"{t[:14]:>16}" for t in terms) + f"{'total sigma':>13}"]
+    lines = [
+        "Uncertainty budget of each image's date (signed 1-sigma days, share of the variance;",
+        "after any update; negative: sources the measurements tied together):",
+        f"{'image':<8}" + "".join(f"{t[:14]:>16}" for t in terms) + f"{'total sigma':>13}",
+    ]
     for row in budget["images"]:
         cells = "".join(_budget_cell(row["date"][t]) for t in terms)
-        lines.append(f"{row['family'] + '/' + row['label']:<8}{cells}{row['date_sigma_days']:13.2f}")
+        lines.append(
+            f"{row['family'] + '/' + row['label']:<8}{cells}{row['date_sigma_days']:13.2f}"
+        )
     a = budget["assumptions"]
-    extra = ", ".join(f"{r['family']}/{r['label']} {r['date']['Omega_m']['sigma_days']:.2f} d and "
-                      f"{r['date']['peculiar velocity']['sigma_days']:.2f} d" for r in budget["images"])
-    lines.append(f"Not in the windows (first order): Omega_m (sigma {a['Omega_m_sigma']:g}) and the lens "
-                 f"velocity (sigma {a['peculiar_velocity_sigma_kms']:g} km/s): {extra}")
+    extra = ", ".join(
+        f"{r['family']}/{r['label']} {r['date']['Omega_m']['sigma_days']:.2f} d and "
+        f"{r['date']['peculiar velocity']['sigma_days']:.2f} d"
+        for r in budget["images"]
+    )
+    lines.append(
+        f"Not in the windows (first order): Omega_m (sigma {a['Omega_m_sigma']:g}) and the lens "
+        f"velocity (sigma {a['peculiar_velocity_sigma_kms']:g} km/s): {extra}"
+    )
     return "\n".join(lines)
 
 
 def hubble_text(res) -> str:
+    """The text ``lensdelay hubble`` prints."""
     sc = res.scenario
     lines = [f"H0 dependence of the delays of {sc.name} (lens-model posterior, bands 68%):"]
     for r in res.curves:
         if r["axis"] == "H0" and r["value"] in (60.0, 70.0, 80.0):
-            lines.append(f"  {r['family']}/{r['image']} − {r['relative_to']} at H0 = {r['value']:.0f}: "
-                         f"{r['median']:+.2f} d [{r['p16']:+.2f}, {r['p84']:+.2f}]")
+            lines.append(
+                f"  {r['family']}/{r['image']} − {r['relative_to']} at H0 = {r['value']:.0f}: "
+                f"{r['median']:+.2f} d [{r['p16']:+.2f}, {r['p84']:+.2f}]"
+            )
     if res.h0 is not None:
         h = res.h0["H0"]
         d = res.h0["D_dt_Mpc"]
-        lines += ["", f"H0 = {h['median']:.1f} (+{h['p84'] - h['median']:.1f} / -{h['median'] - h['p16']:.1f}) "
-                  f"km/s/Mpc [95%: {h['p2.5']:.1f}–{h['p97.5']:.1f}] with kappa_ext ~ N{tuple(res.kappa_ext)}",
-                  f"D_dt = {d['median']:.0f} (+{d['p84'] - d['median']:.0f} / -{d['median'] - d['p16']:.0f}) Mpc",
-                  "", "mass-sheet degeneracy: H0 scales with (1 - kappa_ext):"]
+        lines += [
+            "",
+            f"H0 = {h['median']:.1f} (+{h['p84'] - h['median']:.1f} / "
+            f"-{h['median'] - h['p16']:.1f}) "
+            f"km/s/Mpc [95%: {h['p2.5']:.1f}–{h['p97.5']:.1f}] with kappa_ext ~ "
+            f"N{tuple(res.kappa_ext)}",
+            f"D_dt = {d['median']:.0f} (+{d['p84'] - d['median']:.0f} / "
+            f"-{d['median'] - d['p16']:.0f}) Mpc",
+            "",
+            "mass-sheet degeneracy: H0 scales with (1 - kappa_ext):",
+        ]
         for k in res.kappa_comparison:
             q = k["H0"]
-            lines.append(f"  kappa_ext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f}): "
-                         f"H0 = {q['median']:.1f} [{q['p16']:.1f}, {q['p84']:.1f}]")
+            lines.append(
+                f"  kappa_ext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f}): "
+                f"H0 = {q['median']:.1f} [{q['p16']:.1f}, {q['p84']:.1f}]"
+            )
     for n in res.notes:
         lines.append(f"NOTE: {n}")
     lines += ["", CAUTION]
@@ -138,41 +190,62 @@ def forecast_text(res: dict) -> str:
     """The readable terminal summary."""
     sc, st = res.scenario, res.settings
     tr = sc.transient
-    lines = [f"Forecast for {sc.name}: transient seen in {tr.family}/{tr.seen_in} on "
-             f"{tr.date.isot[:10]} (± {tr.date_sigma_days:g} d); as of {res.now.isot[:16]}Z",
-             f"{st.n_samples} samples; {_h0_text(res)}; kappa_ext ~ N({st.kappa_ext[0]:g}, "
-             f"{st.kappa_ext[1]:g}); microlensing {st.microlensing_mag:g} mag"]
+    lines = [
+        f"Forecast for {sc.name}: transient seen in {tr.family}/{tr.seen_in} on "
+        f"{tr.date.isot[:10]} (± {tr.date_sigma_days:g} d); as of {res.now.isot[:16]}Z",
+        f"{st.n_samples} samples; {_h0_text(res)}; kappa_ext ~ N({st.kappa_ext[0]:g}, "
+        f"{st.kappa_ext[1]:g}); microlensing {st.microlensing_mag:g} mag",
+    ]
     timing = res.timing
     for s in timing["sightings"]:
-        lines.append(f"sighting: {s['family']}/{s['image']} on {s['date'][:16]}Z ± {s['sigma_days']:g} d"
-                     + ("" if s["sigma_source"] == "given" else " (default sigma)"))
+        lines.append(
+            f"sighting: {s['family']}/{s['image']} on {s['date'][:16]}Z ± {s['sigma_days']:g} d"
+            + ("" if s["sigma_source"] == "given" else " (default sigma)")
+        )
     for d in timing["delays"]:
-        lines.append(f"measured delay: {d['family']}/{d['image']} - {d['relative_to']} = "
-                     f"{d['days']:g} ± {d['sigma']:g} d")
+        lines.append(
+            f"measured delay: {d['family']}/{d['image']} - {d['relative_to']} = "
+            f"{d['days']:g} ± {d['sigma']:g} d"
+        )
     for m in timing["models"]:
         if m["route"] == "reweight":
-            lines.append(f"update [{m['label']}]: importance weights, {m['effective_samples']:.0f} effective "
-                         f"samples (threshold {timing['min_effective_samples']:.0f})")
+            lines.append(
+                f"update [{m['label']}]: importance weights, {m['effective_samples']:.0f} "
+                f"effective "
+                f"samples (threshold {timing['min_effective_samples']:.0f})"
+            )
         elif m["route"] == "resample":
-            lines.append(f"update [{m['label']}]: posterior sampled again with the measurements "
-                         f"(re-weighting would have left {m['importance_effective_samples']:.0f}); about "
-                         f"{m['effective_samples']:.0f} independent samples")
+            lines.append(
+                f"update [{m['label']}]: posterior sampled again with the measurements "
+                f"(re-weighting would have left {m['importance_effective_samples']:.0f}); about "
+                f"{m['effective_samples']:.0f} independent samples"
+            )
     lines.append("")
-    head = (f"{'image':<8} {'status':<9} {'date (median)':<13} {'68% window':<23} {'95% window':<23} "
-            f"{'delay [d]':>16} {'mag':>6} {'P(obs)':>6}")
+    head = (
+        f"{'image':<8} {'status':<9} {'date (median)':<13} {'68% window':<23} {'95% window':<23} "
+        f"{'delay [d]':>16} {'mag':>6} {'P(obs)':>6}"
+    )
     lines += [head, "-" * len(head)]
     for im in res.images:
         d = date_summary(res, im)
         dl = im.delay_days
         delay = f"{dl['median']:+.1f} ±{0.5 * (dl['p84'] - dl['p16']):.1f}"
         mag = f"{im.magnitude['median']:.1f}" if im.magnitude else "—"
-        pobs = (f"{im.observability['probability_observable']:.2f}" if im.observability is not None else "—")
+        pobs = (
+            f"{im.observability['probability_observable']:.2f}"
+            if im.observability is not None
+            else "—"
+        )
         name = f"{im.family}/{im.label}" + ("" if im.observed else "*")
         lo68, hi68 = window_days(res, im, "p16", "p84")
         lo95, hi95 = window_days(res, im, "p2.5", "p97.5")
-        lines.append(f"{name:<8} {im.status:<9} {median_day(d['median']):<13} "
-                     f"{lo68}..{hi68:<11} {lo95}..{hi95:<11} {delay:>16} {mag:>6} {pobs:>6}")
-    lines.append("(* = predicted, not yet observed; windows include the days that contain their ends)")
+        lines.append(
+            f"{name:<8} {im.status:<9} {median_day(d['median']):<13} "
+            f"{lo68}..{hi68:<11} {lo95}..{hi95:<11} {delay:>16} {mag:>6} {pobs:>6}"
+        )
+    lines.append(
+        "(* = predicted, not yet observed; windows include the days that contain their ends)"
+    )
     used = sorted({im.status for im in res.images}, key=list(STATUS_MEANINGS).index)
     for s in used:
         lines.append(f"  {s}: {STATUS_MEANINGS[s]}")
@@ -190,13 +263,19 @@ def forecast_text(res: dict) -> str:
     lines.append("")
     for t in timing["tensions"]:
         p = t["predicted"]
-        lines.append(f"CHECK {t['measurement']}: measured {t['measured']:+.2f} ± {t['measurement_sigma']:.2f} d, "
-                     f"predicted from the positions {p['median']:+.2f} (68%: {p['p16']:+.2f}..{p['p84']:+.2f}); "
-                     f"{t['sigma']:+.1f} sigma, p = {t['p_value']:.2g}")
+        lines.append(
+            f"CHECK {t['measurement']}: measured {t['measured']:+.2f} ± "
+            f"{t['measurement_sigma']:.2f} d, "
+            f"predicted from the positions {p['median']:+.2f} (68%: "
+            f"{p['p16']:+.2f}..{p['p84']:+.2f}); "
+            f"{t['sigma']:+.1f} sigma, p = {t['p_value']:.2g}"
+        )
         if t["in_tension"]:
-            lines.append(f"WARNING: {t['measurement']} is {abs(t['sigma']):.1f} sigma from the prediction. "
-                         f"Usual causes: {TENSION_CAUSES}. The windows above combine the measurement and "
-                         "the model as the probability model says; treat them with care.")
+            lines.append(
+                f"WARNING: {t['measurement']} is {abs(t['sigma']):.1f} sigma from the prediction. "
+                f"Usual causes: {TENSION_CAUSES}. The windows above combine the measurement and "
+                "the model as the probability model says; treat them with care."
+            )
     for im in res.images:
         for f in im.flags:
             lines.append(f"FLAG {im.family}/{im.label}: {f}")
@@ -204,18 +283,26 @@ def forecast_text(res: dict) -> str:
         if arch is not None:
             a = iso_utc(instant(res, arch["from_offset"]))
             b = iso_utc(instant(res, arch["to_offset"]))
-            lines.append(f"ARCHIVE {im.family}/{im.label}: its 95% window starts before the detection; "
-                         f"search data taken between {day_of(a)} and {day_of(b)}")
+            lines.append(
+                f"ARCHIVE {im.family}/{im.label}: its 95% window starts before the detection; "
+                f"search data taken between {day_of(a)} and {day_of(b)}"
+            )
         if im.fainter_than_depth:
-            lines.append(f"FAINT {im.family}/{im.label}: median magnitude is fainter than the depth "
-                         f"{st.depth:g}")
+            lines.append(
+                f"FAINT {im.family}/{im.label}: median magnitude is fainter than the depth "
+                f"{st.depth:g}"
+            )
         if im.interval95_change is not None and im.status != "seen":
-            lines.append(f"UPDATE {im.family}/{im.label}: 95% window is "
-                         f"{100 * im.interval95_change:.0f}% of its width before the measurements")
+            lines.append(
+                f"UPDATE {im.family}/{im.label}: 95% window is "
+                f"{100 * im.interval95_change:.0f}% of its width before the measurements"
+            )
         if im.observability is not None and im.status not in ("seen", "past"):
             ob = im.observability
-            lines.append(f"SKY {im.family}/{im.label}: {ob['observable_days_in_95']} of "
-                         f"{ob['days_in_95']} days in the 95% window are observable from the site")
+            lines.append(
+                f"SKY {im.family}/{im.label}: {ob['observable_days_in_95']} of "
+                f"{ob['days_in_95']} days in the 95% window are observable from the site"
+            )
     for n in res.notes:
         lines.append(f"NOTE: {n}")
     for label, notes in zip(res.model_labels, res.model_notes):

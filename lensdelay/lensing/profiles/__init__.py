@@ -1,5 +1,11 @@
 """Mass profiles: one file a profile, all following :mod:`lensdelay.profiles.base`."""
-from lensdelay.lensing.profiles.base import PROFILES, AxisymmetricProfile, EllipticalProfile, MassProfile
+
+from lensdelay.lensing.profiles.base import (
+    PROFILES,
+    AxisymmetricProfile,
+    EllipticalProfile,
+    MassProfile,
+)
 from lensdelay.lensing.profiles.nfw import NFWHalo
 from lensdelay.lensing.profiles.point import PointMass
 from lensdelay.lensing.profiles.power_law import EllipticalPowerLaw
@@ -9,7 +15,15 @@ from lensdelay.lensing.profiles.sie import IsothermalEllipsoid
 from lensdelay.lensing.profiles.sis import SingularIsothermalSphere
 
 __all__ = [
-    "PROFILES", "MassProfile", "EllipticalProfile", "AxisymmetricProfile",
-    "PointMass", "SingularIsothermalSphere", "IsothermalEllipsoid",
-    "EllipticalPowerLaw", "NFWHalo", "ExternalShear", "MassSheet",
+    "PROFILES",
+    "MassProfile",
+    "EllipticalProfile",
+    "AxisymmetricProfile",
+    "PointMass",
+    "SingularIsothermalSphere",
+    "IsothermalEllipsoid",
+    "EllipticalPowerLaw",
+    "NFWHalo",
+    "ExternalShear",
+    "MassSheet",
 ]

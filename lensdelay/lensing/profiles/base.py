@@ -16,6 +16,7 @@ Subclasses write only their formulas, in the frame centred on the profile (and, 
 :class:`EllipticalProfile`, rotated so that x' lies along the major axis). The base
 classes do the shifting and rotating.
 """
+
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
@@ -105,8 +106,11 @@ class MassProfile(ABC):
         from dataclasses import MISSING
 
         back = {v: k for k, v in cls.toml_aliases.items()}
-        return tuple(back.get(f.name, f.name) for f in fields(cls)
-                     if f.default is MISSING and f.default_factory is MISSING)
+        return tuple(
+            back.get(f.name, f.name)
+            for f in fields(cls)
+            if f.default is MISSING and f.default_factory is MISSING
+        )
 
     @classmethod
     def from_values(cls, values: dict) -> "MassProfile":
@@ -117,14 +121,17 @@ class MassProfile(ABC):
         """TOML-named parameter values of this component."""
         back = {v: k for k, v in self.toml_aliases.items()}
         names = self.parameter_names()
-        return {back.get(f.name, f.name): getattr(self, f.name) for f in fields(self)
-                if back.get(f.name, f.name) in names}
+        return {
+            back.get(f.name, f.name): getattr(self, f.name)
+            for f in fields(self)
+            if back.get(f.name, f.name) in names
+        }
 
     def _shift(self, x, y):
         x = np.asarray(x, dtype=float)
         y = np.asarray(y, dtype=float)
         if np.ndim(self.x) == 0 and np.ndim(self.y) == 0 and self.x == 0 and self.y == 0:
-            return x, y   # centred on the origin: no array pass needed
+            return x, y  # centred on the origin: no array pass needed
         return x - self.x, y - self.y
 
     def convergence(self, x, y) -> np.ndarray:
@@ -219,9 +226,11 @@ class EllipticalProfile(MassProfile):
     def _frame_hessian(self, dx, dy):
         s, c = self._rotation()
         h11, h12, h22 = self._local_hessian(*self._to_local(dx, dy))
-        return (s * s * h11 - 2 * s * c * h12 + c * c * h22,
-                s * c * (h11 - h22) + (s * s - c * c) * h12,
-                c * c * h11 + 2 * s * c * h12 + s * s * h22)
+        return (
+            s * s * h11 - 2 * s * c * h12 + c * c * h22,
+            s * c * (h11 - h22) + (s * s - c * c) * h12,
+            c * c * h11 + 2 * s * c * h12 + s * s * h22,
+        )
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -262,6 +271,8 @@ class AxisymmetricProfile(MassProfile):
         tangential = self._alpha_r(r) / r
         radial = 2.0 * self._kappa_r(r) - tangential
         nx, ny = x / r, y / r
-        return (radial * nx * nx + tangential * ny * ny,
-                (radial - tangential) * nx * ny,
-                radial * ny * ny + tangential * nx * nx)
+        return (
+            radial * nx * nx + tangential * ny * ny,
+            (radial - tangential) * nx * ny,
+            radial * ny * ny + tangential * nx * nx,
+        )

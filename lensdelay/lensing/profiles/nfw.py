@@ -1,4 +1,5 @@
 """Spherical Navarro-Frenk-White halo."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -20,7 +21,7 @@ def _nfw_f(u):
     below = np.arccosh(1.0 / lo) / np.sqrt(1.0 - lo * lo)
     above = np.arccos(1.0 / hi) / np.sqrt(hi * hi - 1.0)
     t = u - 1.0
-    series = 1.0 - 2.0 * t / 3.0 + 7.0 * t * t / 15.0 - 12.0 * t ** 3 / 35.0
+    series = 1.0 - 2.0 * t / 3.0 + 7.0 * t * t / 15.0 - 12.0 * t**3 / 35.0
     return np.where(np.abs(t) < _NEAR_ONE, series, np.where(u < 1.0, below, above))
 
 
@@ -55,5 +56,5 @@ class NFWHalo(AxisymmetricProfile):
         u = r / self.scale_radius
         lo = np.minimum(u, 1.0)
         hi = np.maximum(u, 1.0)
-        angle2 = np.where(u < 1.0, -np.arccosh(1.0 / lo) ** 2, np.arccos(1.0 / hi) ** 2)
-        return 2.0 * self.kappa_s * self.scale_radius ** 2 * (np.log(0.5 * u) ** 2 + angle2)
+        angle2 = np.where(u < 1.0, -(np.arccosh(1.0 / lo) ** 2), np.arccos(1.0 / hi) ** 2)
+        return 2.0 * self.kappa_s * self.scale_radius**2 * (np.log(0.5 * u) ** 2 + angle2)

@@ -1,4 +1,5 @@
 """Point mass."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -24,7 +25,7 @@ class PointMass(AxisymmetricProfile):
         return np.zeros_like(r * self.einstein_radius)
 
     def _alpha_r(self, r):
-        return self.einstein_radius ** 2 / r
+        return self.einstein_radius**2 / r
 
     def _psi_r(self, r):
-        return self.einstein_radius ** 2 * np.log(r)
+        return self.einstein_radius**2 * np.log(r)

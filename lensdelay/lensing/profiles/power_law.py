@@ -1,4 +1,5 @@
 """Elliptical power-law mass distribution."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -32,6 +33,7 @@ class EllipticalPowerLaw(EllipticalProfile):
 
     @property
     def singular_centre(self) -> bool:  # α diverges or jumps at the centre for γ >= 2
+        """Whether α diverges or jumps at the centre (γ ≥ 2)."""
         return bool(np.all(np.asarray(self.slope) >= 2.0))
 
     def _setup(self, x, y):
@@ -48,8 +50,8 @@ class EllipticalPowerLaw(EllipticalProfile):
     def _local_deflection(self, x, y):
         q, t, b, radius = self._setup(x, y)
         f = (1.0 - q) / (1.0 + q)
-        phase = (q * x + 1j * y) / radius          # e^{iφ}
-        rot2 = phase * phase                        # e^{2iφ}
+        phase = (q * x + 1j * y) / radius  # e^{iφ}
+        rot2 = phase * phase  # e^{2iφ}
         term = phase
         total = phase
         # Terms shrink at least as f^n; stop when the largest f reaches 1e-16.
@@ -70,7 +72,7 @@ class EllipticalPowerLaw(EllipticalProfile):
         ax, ay = self._local_deflection(x, y)
         two_kappa = (2.0 - t) * (b / radius) ** t
         p, qq = (1.0 - t) * ax, (1.0 - t) * ay
-        r2 = np.maximum(x * x + y * y, RADIUS_FLOOR ** 2)
+        r2 = np.maximum(x * x + y * y, RADIUS_FLOOR**2)
         hxx = (p * x - qq * y + y * y * two_kappa) / r2
         hxy = (qq * x + p * y - x * y * two_kappa) / r2
         hyy = (x * x * two_kappa + qq * y - p * x) / r2

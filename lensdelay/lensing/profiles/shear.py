@@ -1,4 +1,5 @@
 """External shear."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -43,7 +44,7 @@ class ExternalShear(MassProfile):
         gc, gs = self._cs()
         ax = gc * x - gs * y
         ay = -gs * x - gc * y
-        return ax, ay, 0.5 * (x * ax + y * ay)   # ψ is quadratic: ψ = θ·α/2
+        return ax, ay, 0.5 * (x * ax + y * ay)  # ψ is quadratic: ψ = θ·α/2
 
     def _local_hessian(self, x, y):
         gc, gs = self._cs()

@@ -1,4 +1,5 @@
 """Uniform mass sheet."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass

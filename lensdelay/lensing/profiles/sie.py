@@ -1,4 +1,5 @@
 """Singular or cored isothermal ellipsoid."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -15,19 +16,19 @@ _ROUND = 1e-4
 def _atan_over(e, z):
     """arctan(e·z)/e, continuous at e → 0."""
     if np.ndim(e) == 0:  # one model: choose the branch once, not per point
-        return z - (e * e) * z ** 3 / 3.0 if e < _ROUND else np.arctan(e * z) / e
+        return z - (e * e) * z**3 / 3.0 if e < _ROUND else np.arctan(e * z) / e
     small = e < _ROUND
     es = np.where(small, 1.0, e)
-    return np.where(small, z - (e * e) * z ** 3 / 3.0, np.arctan(es * z) / es)
+    return np.where(small, z - (e * e) * z**3 / 3.0, np.arctan(es * z) / es)
 
 
 def _atanh_over(e, z):
     """arctanh(e·z)/e, continuous at e → 0."""
     if np.ndim(e) == 0:
-        return z + (e * e) * z ** 3 / 3.0 if e < _ROUND else np.arctanh(e * z) / e
+        return z + (e * e) * z**3 / 3.0 if e < _ROUND else np.arctanh(e * z) / e
     small = e < _ROUND
     es = np.where(small, 1.0, e)
-    return np.where(small, z + (e * e) * z ** 3 / 3.0, np.arctanh(es * z) / es)
+    return np.where(small, z + (e * e) * z**3 / 3.0, np.arctanh(es * z) / es)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -55,6 +56,7 @@ class IsothermalEllipsoid(EllipticalProfile):
 
     @property
     def singular_centre(self) -> bool:  # a cored SIE has a (faint) central image
+        """Whether the centre is singular (no core)."""
         return bool(np.all(np.asarray(self.core) == 0))
 
     def _keeton(self, x, y):
@@ -62,7 +64,7 @@ class IsothermalEllipsoid(EllipticalProfile):
         b = self.einstein_radius * np.sqrt(q)
         s = self.core / np.sqrt(q)
         e = np.sqrt(np.maximum(1.0 - q * q, 0.0))
-        if np.ndim(s) == 0 and s == 0:   # singular: fewer array passes on the hot path
+        if np.ndim(s) == 0 and s == 0:  # singular: fewer array passes on the hot path
             psi = np.maximum(np.sqrt((q * q) * (x * x) + y * y), RADIUS_FLOOR)
         else:
             psi = np.maximum(np.sqrt(q * q * (s * s + x * x) + y * y), RADIUS_FLOOR)
@@ -92,8 +94,9 @@ class IsothermalEllipsoid(EllipticalProfile):
         pot = x * ax + y * ay
         # Core term of Keeton's eq. (33); it vanishes (as s ln s) when s -> 0.
         ss = np.where(s > 0, s, 1.0)
-        core_term = -b * ss * (0.5 * np.log((psi + ss) ** 2 + e * e * x * x)
-                                   - np.log((1.0 + q) * ss))
+        core_term = (
+            -b * ss * (0.5 * np.log((psi + ss) ** 2 + e * e * x * x) - np.log((1.0 + q) * ss))
+        )
         return ax, ay, pot + np.where(s > 0, core_term, 0.0)
 
     def _local_hessian(self, x, y):

@@ -1,4 +1,5 @@
 """Singular isothermal sphere."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
