@@ -20,7 +20,7 @@ import numpy as np
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
 from lensdelay.inference.moves import FisherLangevinMove
-from lensdelay.atomic import atomic_save_npz, load_npz
+from lensdelay.inference.backend import NpzCheckpoint
 
 # our own warning says the chain is short; emcee's logger would say it again
 import logging as _logging
@@ -149,98 +149,34 @@ def sample(
         moves = emcee.moves.StretchMove()
     else:
         raise InputError(f"move must be one of {choices_text(MOVES)}, got {move!r}")
-    sampler = emcee.EnsembleSampler(
-        walkers, ndim, target.log_probability, vectorize=True, moves=moves
-    )
-    # emcee draws from its own RandomState; seed it from our generator
-    sampler.random_state = np.random.RandomState(int(rng.integers(2**31))).get_state()
-    path = Path(checkpoint_dir) / "chain.npz" if checkpoint_dir else None
-    chain = np.empty((0, walkers, ndim))
-    logp = np.empty((0, walkers))
-    accepted = np.zeros(walkers)
     # what a resumed run must share with the checkpoint besides seed and shape
     setup = f"move {move}, prior {getattr(like, 'prior', 'flat')}, components {components}"
-    if resume and path is not None and path.exists():
-        saved = load_npz(path)
-        saved_setup = str(saved.get("setup", "an older lensdelay"))
-        if (
-            int(saved["seed"]) != seed
-            or saved["chain"].shape[1:] != (walkers, ndim)
-            or saved_setup != setup
-        ):
-            raise InputError(
-                f"resume found {path} from a different run (seed "
-                f"{int(saved['seed'])}, shape {saved['chain'].shape[1:]}, {saved_setup}), "
-                f"got seed {seed}, shape {(walkers, ndim)}, {setup}"
-            )
-        chain, logp, accepted = saved["chain"], saved["log_prob"], saved["accepted"]
-        state = emcee.State(chain[-1], log_prob=logp[-1])
-        sampler.random_state = (
-            "MT19937",
-            saved["rs_key"],
-            int(saved["rs_pos"]),
-            int(saved["rs_has_gauss"]),
-            float(saved["rs_cached"]),
-        )
+    path = Path(checkpoint_dir) / "chain.npz" if checkpoint_dir else None
+    backend = NpzCheckpoint(path, seed, setup)
+    resumed = resume and backend.read(walkers, ndim)
+    sampler = emcee.EnsembleSampler(
+        walkers, ndim, target.log_probability, vectorize=True, moves=moves, backend=backend
+    )
+    if resumed:
+        state = None  # emcee continues from the backend's last sample and random state
     else:
-        scales = (
-            np.where(np.isfinite(scales), scales, 1e-3)
-            if scales is not None
-            else np.full(ndim, 1e-3)
-        )
-        ball = start + 0.5 * np.maximum(scales, 1e-6) * rng.standard_normal((walkers, ndim))
-        ball = np.clip(ball, like.lower + 1e-9, like.upper - 1e-9)
-        ball = coords.to_sampling(ball)
-        centre = coords.to_sampling(start)[0]
-        lp = target.log_probability(ball)
-        best = target.log_probability(centre[None, :])[0]
-        if not np.isfinite(best) and not np.any(np.isfinite(lp)):
-            raise FitError("no walker starts with a finite probability; check bounds and priors")
-        # The ball follows the linearised errors, but a curved valley puts some of it far up
-        # the walls (missing images, chi2 in the thousands): pull such starts halfway back
-        # to the best fit until they lie within the typical spread of the posterior.
-        if np.isfinite(best):
-            for _ in range(30):
-                far = ~(lp >= best - (ndim + 10.0))
-                if not np.any(far):
-                    break
-                ball[far] = centre + 0.5 * (ball[far] - centre)
-                lp[far] = target.log_probability(ball[far])
-            ball[~np.isfinite(lp)] = centre  # move bad starts onto the best fit
-        else:
-            ball[~np.isfinite(lp)] = ball[np.isfinite(lp)][0]
-        state = emcee.State(ball, log_prob=target.log_probability(ball))
-    done = len(chain)
+        # emcee draws from its own RandomState; seed it from our generator
+        sampler.random_state = np.random.RandomState(int(rng.integers(2**31))).get_state()
+        state = _starting_ball(like, coords, target, start, scales, walkers, rng)
+    done = backend.iteration
     show = _progress_display(progress, steps)
     show(done)
     STOP.active, STOP.requested = True, False
     while done < steps:
         n = min(checkpoint_every, steps - done)
-        sampler.reset()
         state = sampler.run_mcmc(state, n, progress=False)
-        chain = np.concatenate([chain, sampler.get_chain()])
-        logp = np.concatenate([logp, sampler.get_log_prob()])
-        accepted = accepted + sampler.backend.accepted
         done += n
-        if path is not None:
-            key, pos, has_gauss, cached = sampler.random_state[1:]
-            atomic_save_npz(
-                path,
-                chain=chain,
-                log_prob=logp,
-                accepted=accepted,
-                seed=seed,
-                rs_key=key,
-                rs_pos=pos,
-                rs_has_gauss=has_gauss,
-                rs_cached=cached,
-                names=np.array(like.names),
-                setup=np.array(setup),
-            )
+        backend.write(like.names)
         show(done)
         if STOP.requested:
             STOP.active = False
             raise KeyboardInterrupt
+    chain, logp, accepted = backend.get_chain(), backend.get_log_prob(), backend.accepted
     STOP.active = False
     # τ in the sampling coordinates (no angle wraps there), from the second half so the
     # walkers' initial spread does not inflate it
@@ -262,3 +198,33 @@ def sample(
     return Chain(
         list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move
     )
+
+
+def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.State:
+    """Walkers in a small Gaussian ball around the best fit, pulled back off steep walls."""
+    ndim = len(start)
+    scales = (
+        np.where(np.isfinite(scales), scales, 1e-3) if scales is not None else np.full(ndim, 1e-3)
+    )
+    ball = start + 0.5 * np.maximum(scales, 1e-6) * rng.standard_normal((walkers, ndim))
+    ball = np.clip(ball, like.lower + 1e-9, like.upper - 1e-9)
+    ball = coords.to_sampling(ball)
+    centre = coords.to_sampling(start)[0]
+    lp = target.log_probability(ball)
+    best = target.log_probability(centre[None, :])[0]
+    if not np.isfinite(best) and not np.any(np.isfinite(lp)):
+        raise FitError("no walker starts with a finite probability; check bounds and priors")
+    # The ball follows the linearised errors, but a curved valley puts some of it far up
+    # the walls (missing images, chi2 in the thousands): pull such starts halfway back
+    # to the best fit until they lie within the typical spread of the posterior.
+    if np.isfinite(best):
+        for _ in range(30):
+            far = ~(lp >= best - (ndim + 10.0))
+            if not np.any(far):
+                break
+            ball[far] = centre + 0.5 * (ball[far] - centre)
+            lp[far] = target.log_probability(ball[far])
+        ball[~np.isfinite(lp)] = centre  # move bad starts onto the best fit
+    else:
+        ball[~np.isfinite(lp)] = ball[np.isfinite(lp)][0]
+    return emcee.State(ball, log_prob=target.log_probability(ball))
