@@ -178,7 +178,8 @@ def fit_scenario(
     checkpoint_dir=None,
     progress=False,
     prior="flat",
-) -> dict:
+    stop=None,
+) -> ScenarioFit:
     """Fit (and optionally sample) a scenario's mass model.
 
     Parameters
@@ -191,6 +192,8 @@ def fit_scenario(
     sample : bool
         Also sample the posterior (``walkers`` × ``steps``), checkpointed to
         ``checkpoint_dir`` and resumable with ``resume``.
+    progress, stop
+        Progress display and stop request of :func:`lensdelay.inference.sampling.sample`.
     """
     sc, used = _scenario(scenario, model)
     if not flux_floor > 0:
@@ -236,6 +239,7 @@ def fit_scenario(
                 checkpoint_dir=checkpoint_dir,
                 resume=resume,
                 progress=progress,
+                stop=stop,
                 scales=result.errors,
             )
     return ScenarioFit(

@@ -30,6 +30,7 @@ def run(args) -> int:
         checkpoint_dir=out,
         progress=not args.quiet,
         prior=args.prior,
+        stop=args.stop,
     )
     print(res.report())
     if out is not None:

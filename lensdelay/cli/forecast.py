@@ -34,6 +34,7 @@ def run(args) -> int:
         steps=args.steps,
         progress=not args.quiet,
         prior=args.prior,
+        stop=args.stop,
         now=now,
     )
     # build everything before writing anything

@@ -38,6 +38,7 @@ def run(args) -> int:
         cosmology_class=args.cosmology_class,
         class_params=params,
         prior=args.prior,
+        stop=args.stop,
     )
     doc = hubble_json(res)
     text = res.report()

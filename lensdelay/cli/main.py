@@ -16,7 +16,7 @@ import warnings
 from lensdelay.cli import check, fit, forecast, hubble, images
 from lensdelay.cli.options import with_flags
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
-from lensdelay.inference.sampling import STOP
+from lensdelay.inference.sampling import StopRequest
 from lensdelay.version import __version__
 
 SUBCOMMANDS = (images, check, fit, forecast, hubble)
@@ -54,12 +54,16 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
 _show_warning.shown = set()
 
 
-def _terminate(signum, frame):
+def _stop_handler(stop: StopRequest):
     """SIGINT/SIGTERM: while sampling, stop at the next checkpoint; otherwise unwind now."""
-    if STOP.active:
-        STOP.requested = True
-        return
-    raise KeyboardInterrupt
+
+    def terminate(signum, frame):
+        if stop.active:
+            stop.requested = True
+            return
+        raise KeyboardInterrupt
+
+    return terminate
 
 
 def _configure_astropy() -> None:
@@ -77,11 +81,13 @@ def _configure_astropy() -> None:
 
 def main(argv=None) -> int:
     """Run the command line; return the exit status (2 for bad input)."""
+    stop = StopRequest()
     if threading.current_thread() is threading.main_thread():
-        signal.signal(signal.SIGTERM, _terminate)
-        signal.signal(signal.SIGINT, _terminate)
+        signal.signal(signal.SIGTERM, _stop_handler(stop))
+        signal.signal(signal.SIGINT, _stop_handler(stop))
     parser = build_parser()
     args = parser.parse_args(argv)
+    args.stop = stop
     try:
         with warnings.catch_warnings():
             _configure_astropy()

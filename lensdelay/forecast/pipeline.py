@@ -205,6 +205,7 @@ def run_forecast(
     now: Time | None = None,
     progress=False,
     prior="flat",
+    stop=None,
 ) -> dict:
     """Run the whole forecast; see :mod:`lensdelay.inference.timing` for the probability model.
 
@@ -217,6 +218,8 @@ def run_forecast(
         Sightings ``[FAMILY/]LABEL=DATE[±SIGMA]`` (:func:`parse_sightings`).
     progress : bool
         Show progress bars (off by default: the library is silent).
+    stop : lensdelay.inference.sampling.StopRequest, optional
+        Lets a caller (the command line's signal handler) stop sampling cleanly.
     Other parameters are those of ``lensdelay forecast`` (README).
     """
     scenarios = [scenarios] if isinstance(scenarios, Scenario) else list(scenarios)
@@ -298,6 +301,7 @@ def run_forecast(
                 steps=steps,
                 seed=int_seed(next(stage_seeds)),
                 progress=progress,
+                stop=stop,
                 scales=result.errors,
             )
         stages(f"images and timing update, {sc.model.label}")
@@ -336,6 +340,7 @@ def run_forecast(
                 seed=next(stage_seeds),
                 progress=progress,
                 prior=prior,
+                stop=stop,
             )
             if chain2 is not None:
                 chains.append(chain2)
@@ -509,6 +514,7 @@ def condition_on_timing(
     seed,
     progress=False,
     prior="flat",
+    stop=None,
 ):
     """Condition one model's forecast samples on the timing data.
 
@@ -536,11 +542,12 @@ def condition_on_timing(
         (int_seed(fit_seed), int_seed(sample_seed), np.random.default_rng(draw_seed)),
         progress,
         prior,
+        stop,
     )
 
 
 def _resample(
-    sc, like, chain, tracks, timing, update, settings, walkers, steps, seeds, progress, prior
+    sc, like, chain, tracks, timing, update, settings, walkers, steps, seeds, progress, prior, stop
 ):
     """Sample the joint posterior of lens, H0, κ_ext given positions and timing data."""
     st = settings
@@ -579,6 +586,7 @@ def _resample(
             steps=n_steps,
             seed=sample_seed,
             progress=progress,
+            stop=stop,
             scales=jres.errors,
         )
     flat = jchain.samples()

@@ -35,6 +35,7 @@ def run_hubble(
     cosmology_class=None,
     class_params=None,
     prior="flat",
+    stop=None,
 ) -> dict:
     """Delays against H0 and, with measured delays, the joint lens + H0 posterior.
 
@@ -88,6 +89,7 @@ def run_hubble(
             steps=steps,
             seed=int_seed(sample_seq),
             progress=progress,
+            stop=stop,
             scales=res.errors,
         )
     lens_samples = chain.samples()
@@ -118,6 +120,7 @@ def run_hubble(
                 steps=steps,
                 seed=int_seed(joint_sample_seq),
                 progress=progress,
+                stop=stop,
                 scales=joint_fit.errors,
             )
         h0_eff = jchain.samples()[:, joint.h0_index]

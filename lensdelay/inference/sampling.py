@@ -28,18 +28,19 @@ import logging as _logging
 _logging.getLogger("emcee").setLevel(_logging.ERROR)
 
 
-class _StopRequest:
-    """Set by a signal handler while sampling: stop at the next checkpoint.
+class StopRequest:
+    """A request to stop sampling at the next checkpoint, owned by the caller.
 
-    Raising inside emcee's call of the likelihood would make emcee print a traceback,
-    so a signal only sets this flag, and the sampling loop stops cleanly after saving.
+    The command line makes one and sets :attr:`requested` from its signal handler;
+    :func:`sample` marks :attr:`active` while it runs, so the handler knows whether to
+    let the sampler stop cleanly (raising inside emcee's call of the likelihood would
+    make emcee print a traceback) or to interrupt at once.
     """
 
-    active = False
-    requested = False
+    def __init__(self):
+        self.active = False
+        self.requested = False
 
-
-STOP = _StopRequest()
 
 #: Proposal moves :func:`sample` can use.
 MOVES = ("langevin", "stretch")
@@ -103,6 +104,7 @@ def sample(
     resume: bool = False,
     checkpoint_every: int = 200,
     progress=False,
+    stop: StopRequest | None = None,
     scales=None,
     move: str = "langevin",
     components: bool = True,
@@ -134,6 +136,9 @@ def sample(
     progress : bool or callable
         False (default): silent. True: a progress bar on stderr. A function: called as
         ``progress(steps_done, steps)`` after every checkpoint block.
+    stop : StopRequest, optional
+        Checked after every checkpoint block; when requested, the chain so far is kept
+        in the checkpoint and KeyboardInterrupt is raised.
     """
     ndim = len(start)
     if walkers < 2 * ndim:
@@ -166,18 +171,19 @@ def sample(
     done = backend.iteration
     show = _progress_display(progress, steps)
     show(done)
-    STOP.active, STOP.requested = True, False
+    stop = stop if stop is not None else StopRequest()
+    stop.active, stop.requested = True, False
     while done < steps:
         n = min(checkpoint_every, steps - done)
         state = sampler.run_mcmc(state, n, progress=False)
         done += n
         backend.write(like.names)
         show(done)
-        if STOP.requested:
-            STOP.active = False
+        if stop.requested:
+            stop.active = False
             raise KeyboardInterrupt
     chain, logp, accepted = backend.get_chain(), backend.get_log_prob(), backend.accepted
-    STOP.active = False
+    stop.active = False
     # τ in the sampling coordinates (no angle wraps there), from the second half so the
     # walkers' initial spread does not inflate it
     tau = emcee.autocorr.integrated_time(chain[len(chain) // 2 :], quiet=True)
