@@ -11,7 +11,6 @@ from __future__ import annotations
 import math
 import re
 import sys
-import warnings
 from dataclasses import replace
 
 import numpy as np
@@ -19,8 +18,7 @@ from astropy import units as u
 from astropy.time import Time
 
 from lensdelay.model.cosmology import cosmology_from_spec
-from lensdelay.errors import InputError, LensdelayWarning
-from lensdelay.inference.fit import fit
+from lensdelay.errors import InputError
 from lensdelay.forecast.result import Forecast, ImageForecast, ImageSampleSet
 from lensdelay.forecast.samples import (
     AGREEMENT,
@@ -38,7 +36,7 @@ from lensdelay.forecast.samples import (
     solve_samples,
 )
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import int_seed, sample
+from lensdelay.inference.sampling import fit_and_sample, int_seed
 from lensdelay.model.scenario import Scenario, Site, parse_date
 from lensdelay.forecast.observability import build_calendar
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
@@ -288,22 +286,15 @@ def run_forecast(
     for sc in scenarios:
         stages(f"fitting {sc.model.label}")
         like = ImageLikelihood(sc, sc.model, prior=prior)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", LensdelayWarning)  # reported in the notes instead
-            try:
-                result = fit(like, seed=int_seed(next(stage_seeds)))
-            except InputError as err:
-                raise err.with_source(sc.source) from err
-            chain = sample(
-                like,
-                result.values,
-                walkers=walkers,
-                steps=steps,
-                seed=int_seed(next(stage_seeds)),
-                progress=progress,
-                stop=stop,
-                scales=result.errors,
-            )
+        result, chain = fit_and_sample(
+            like,
+            walkers=walkers,
+            steps=steps,
+            fit_seed=int_seed(next(stage_seeds)),
+            sample_seed=int_seed(next(stage_seeds)),
+            progress=progress,
+            stop=stop,
+        )
         stages(f"images and timing update, {sc.model.label}")
         notes = list(result.notes) + list(chain.warnings)
         if result.dof <= 0:
@@ -567,28 +558,22 @@ def _resample(
         kappa_prior=st.kappa_ext,
         tracked=tracked,
     )
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", LensdelayWarning)
-        fit_seed, sample_seed, rng = seeds
-        jres = fit(joint, seed=fit_seed)
-        # enough steps that the kept chain holds min_ess_fraction·n independent samples,
-        # judged by the autocorrelation time of the positions-only chain
-        tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else 50.0
-        want = st.min_ess_fraction * st.n_samples
-        needed = int(np.ceil(1.5 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(
-            2 * tau
-        )
-        n_steps = int(min(max(steps, needed), 50_000))
-        jchain = sample(
-            joint,
-            jres.values,
-            walkers=walkers,
-            steps=n_steps,
-            seed=sample_seed,
-            progress=progress,
-            stop=stop,
-            scales=jres.errors,
-        )
+    fit_seed, sample_seed, rng = seeds
+    # enough steps that the kept chain holds min_ess_fraction·n independent samples,
+    # judged by the autocorrelation time of the positions-only chain
+    tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else 50.0
+    want = st.min_ess_fraction * st.n_samples
+    needed = int(np.ceil(1.5 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(2 * tau)
+    n_steps = int(min(max(steps, needed), 50_000))
+    jres, jchain = fit_and_sample(
+        joint,
+        walkers=walkers,
+        steps=n_steps,
+        fit_seed=fit_seed,
+        sample_seed=sample_seed,
+        progress=progress,
+        stop=stop,
+    )
     flat = jchain.samples()
     n = st.n_samples
     draws = flat[rng.integers(0, len(flat), n)]

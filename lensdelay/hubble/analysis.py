@@ -52,7 +52,7 @@ def delay_curves(
     h0_grid = np.linspace(50.0, 90.0, 41) if h0_grid is None else np.asarray(h0_grid)
     rows = []
     for (fam, a, b), days in pairs.items():
-        q = np.nanpercentile(days, [50, 16, 84, 2.5, 97.5])
+        q = np.array(list(summary(days).values()))  # median, p16, p84, p2.5, p97.5
         for h0 in h0_grid:
             rows.append(
                 {

@@ -6,17 +6,15 @@ Takes a :class:`~lensdelay.model.scenario.Scenario`; the statistics are in
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass, field, replace
 
 import numpy as np
 from astropy import units as u
 
-from lensdelay.errors import InputError, LensdelayWarning
+from lensdelay.errors import InputError
 from lensdelay.hubble.analysis import delay_curves, h0_posterior, kappa_comparison, pair_delays
-from lensdelay.inference.fit import fit
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import int_seed, sample
+from lensdelay.inference.sampling import fit_and_sample, int_seed
 from lensdelay.model.cosmology import cosmology_from_class, cosmology_from_spec
 from lensdelay.model.scenario import Scenario
 
@@ -75,23 +73,16 @@ def run_hubble(
         seed
     ).spawn(5)
     rng = np.random.default_rng(draw_seq)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", LensdelayWarning)
-        like = ImageLikelihood(sc, sc.model, prior=prior)
-        try:
-            res = fit(like, seed=int_seed(fit_seq))
-        except InputError as err:
-            raise err.with_source(sc.source) from err
-        chain = sample(
-            like,
-            res.values,
-            walkers=walkers,
-            steps=steps,
-            seed=int_seed(sample_seq),
-            progress=progress,
-            stop=stop,
-            scales=res.errors,
-        )
+    like = ImageLikelihood(sc, sc.model, prior=prior)
+    res, chain = fit_and_sample(
+        like,
+        walkers=walkers,
+        steps=steps,
+        fit_seed=int_seed(fit_seq),
+        sample_seed=int_seed(sample_seq),
+        progress=progress,
+        stop=stop,
+    )
     lens_samples = chain.samples()
     pairs = pair_delays(like, lens_samples)
     z_s_of = {f.label: f.redshift for f in sc.families}
@@ -110,19 +101,15 @@ def run_hubble(
     comparison = ()
     if sc.delays:
         joint = ImageLikelihood(sc, sc.model, use_delays=True, prior=prior)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", LensdelayWarning)
-            joint_fit = fit(joint, seed=int_seed(joint_fit_seq))
-            jchain = sample(
-                joint,
-                joint_fit.values,
-                walkers=walkers,
-                steps=steps,
-                seed=int_seed(joint_sample_seq),
-                progress=progress,
-                stop=stop,
-                scales=joint_fit.errors,
-            )
+        joint_fit, jchain = fit_and_sample(
+            joint,
+            walkers=walkers,
+            steps=steps,
+            fit_seed=int_seed(joint_fit_seq),
+            sample_seed=int_seed(joint_sample_seq),
+            progress=progress,
+            stop=stop,
+        )
         h0_eff = jchain.samples()[:, joint.h0_index]
         h0 = h0_posterior(h0_eff, joint, kappa_ext=kappa_ext, om0_prior=om0_prior, rng=rng)
         comparison = tuple(kappa_comparison(h0_eff, joint, om0_prior, extra=kappa_ext))

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import sys
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -19,6 +20,7 @@ import numpy as np
 
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
+from lensdelay.inference.fit import fit
 from lensdelay.inference.moves import FisherLangevinMove
 from lensdelay.inference.backend import NpzCheckpoint
 
@@ -234,3 +236,55 @@ def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.S
     else:
         ball[~np.isfinite(lp)] = ball[np.isfinite(lp)][0]
     return emcee.State(ball, log_prob=target.log_probability(ball))
+
+
+def fit_and_sample(
+    like,
+    *,
+    walkers: int = 32,
+    steps: int | Callable = 2000,
+    fit_seed: int = 1,
+    sample_seed: int = 1,
+    progress=False,
+    stop: StopRequest | None = None,
+    checkpoint_dir=None,
+    resume: bool = False,
+):
+    """Fit ``like`` and sample its posterior around the best fit: the sequence every job runs.
+
+    Warnings of the fit and the sampler (degrees of freedom, short chains) are not
+    raised: they are in the results' ``notes`` and ``warnings``, which the reports print.
+    An input error of the fit names the scenario's file.
+
+    Parameters
+    ----------
+    like : ImageLikelihood
+    steps : int or callable
+        Sampler steps, or a function of the fit result that returns them.
+    fit_seed, sample_seed : int
+        Seeds of the fit's starts and of the sampler.
+
+    Returns
+    -------
+    (FitResult, Chain)
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        try:
+            result = fit(like, seed=fit_seed)
+        except InputError as err:
+            raise err.with_source(like.scenario.source) from err
+        n_steps = steps(result) if callable(steps) else steps
+        chain = sample(
+            like,
+            result.values,
+            walkers=walkers,
+            steps=n_steps,
+            seed=sample_seed,
+            progress=progress,
+            stop=stop,
+            scales=result.errors,
+            checkpoint_dir=checkpoint_dir,
+            resume=resume,
+        )
+    return result, chain

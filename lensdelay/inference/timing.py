@@ -34,6 +34,7 @@ import numpy as np
 from scipy import linalg
 
 from lensdelay.errors import InputError
+from lensdelay.inference.summaries import quantile_summary
 
 
 @dataclass(frozen=True)
@@ -237,8 +238,6 @@ def tensions(
 
 def tensions_from_draws(timing: TimingData, sims: np.ndarray, weights: np.ndarray) -> list[Tension]:
     """Predicted vs measured for every row, from simulated measurements (P, m) and weights (P,)."""
-    from lensdelay.inference.summaries import quantile_summary
-
     weights = np.asarray(weights, dtype=float)
     out = []
     for r, name in enumerate(timing.names):

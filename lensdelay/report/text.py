@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from lensdelay.cautions import CAUTION
+from lensdelay.inference.summaries import quantile_summary
 from lensdelay.forecast.pipeline import STATUS_MEANINGS, TENSION_CAUSES
 from lensdelay.io.forecast_files import (
     instant,
@@ -96,11 +97,12 @@ def fit_text(res: dict) -> str:
             f"{ch.move} move, {res.likelihood.prior} prior",
             f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7}",
         ]
-        import numpy as np
-
         for i, n in enumerate(ch.names):
-            q = np.percentile(s[:, i], [50, 16, 84])
-            lines.append(f"{n:<32} {q[0]:12.5g} {q[1]:12.5g} {q[2]:12.5g} {ch.autocorr[i]:7.0f}")
+            q = quantile_summary(s[:, i])
+            lines.append(
+                f"{n:<32} {q['median']:12.5g} {q['p16']:12.5g} {q['p84']:12.5g} "
+                f"{ch.autocorr[i]:7.0f}"
+            )
         for w in ch.warnings:
             lines.append(f"WARNING: {w}")
     return "\n".join(lines)
