@@ -35,13 +35,10 @@ def run(args) -> int:
     print(res.report())
     if out is not None:
         doc = fit_json(res)
-        like, fr = res.likelihood, res.fit
+        fr = res.fit
         figs = {
             "fit_sky": sky_figure(
-                like,
-                fr.values,
-                fr,
-                title=f"{res.scenario.name}: {fr.model_label} (North up, East left)",
+                res.sky_view(), title=f"{res.scenario.name}: {fr.model_label} (North up, East left)"
             ),
             "fit_residuals": residual_figure(fr),
         }

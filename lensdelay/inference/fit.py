@@ -17,6 +17,7 @@ import numpy as np
 
 from lensdelay.lensing.delays import fermat_difference_to_days
 from lensdelay.errors import FitError, InputError, LensdelayWarning
+from lensdelay.lensing.critical import critical_lines
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import MISSING_IMAGE_PENALTY, ImageLikelihood
 
@@ -360,3 +361,35 @@ class ScenarioFit:
         from lensdelay.report.text import fit_text
 
         return fit_text(self)
+
+    def sky_view(self, resolution: int = 300) -> dict:
+        """What a sky figure of the best fit draws, computed once.
+
+        Returns ``extent`` (arcsec) and per family its label, observed positions, errors
+        and labels, the model images, the source, and the critical curves with their
+        caustics (:func:`lensdelay.lensing.critical.critical_lines`); plus the
+        predicted images nobody observed.
+        """
+        like, values = self.likelihood, self.fit.values
+        pts = np.concatenate([np.hypot(f.x, f.y) for f in like.families])
+        extent = 1.4 * float(pts.max()) + 0.3
+        lens = like.model.lens(values[: like.n_model])
+        families = []
+        for k, (fam, pred) in enumerate(zip(like.families, like.predict(values[None, :]))):
+            ok = pred["ok"][0]
+            families.append(
+                {
+                    "label": fam.label,
+                    "x": fam.x,
+                    "y": fam.y,
+                    "sigma": fam.sigma,
+                    "labels": fam.labels,
+                    "model_x": pred["x"][0, ok],
+                    "model_y": pred["y"][0, ok],
+                    "source": values[like.source_slice(k)],
+                    "critical_lines": critical_lines(
+                        lens, fam.scale, extent=extent, resolution=resolution
+                    ),
+                }
+            )
+        return {"extent": extent, "families": families, "unobserved": self.fit.unobserved_images}

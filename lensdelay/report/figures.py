@@ -7,7 +7,6 @@ import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.patches import Circle
 
-from lensdelay.lensing.critical import critical_lines
 
 MARKERS = {"minimum": "o", "saddle": "s", "maximum": "^"}
 
@@ -20,19 +19,17 @@ def _sky_axes(ax, extent):
     ax.set_ylabel("y = ΔDec [arcsec]  (North ↑)")
 
 
-def sky_figure(like, values, fit_result, title=""):
-    """Observed and model images, critical curves and caustics of every family."""
+def sky_figure(view: dict, title: str = ""):
+    """Observed and model images, critical curves and caustics of every family.
+
+    ``view`` is :meth:`lensdelay.inference.fit.ScenarioFit.sky_view`.
+    """
     fig = Figure(figsize=(6.4, 6.0))
     ax = fig.subplots()
-    pts = np.concatenate([np.hypot(f.x, f.y) for f in like.families])
-    extent = 1.4 * float(pts.max()) + 0.3
-    lens = like.model.lens(values[: like.n_model])
     colours = matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
-    preds = like.predict(values[None, :])
-    for k, (fam, pred) in enumerate(zip(like.families, preds)):
+    for k, fam in enumerate(view["families"]):
         c = colours[k % len(colours)]
-        first = True
-        for line in critical_lines(lens, fam.scale, extent=extent, resolution=300):
+        for n, line in enumerate(fam["critical_lines"]):
             ax.plot(
                 line.x,
                 line.y,
@@ -40,7 +37,7 @@ def sky_figure(like, values, fit_result, title=""):
                 color=c,
                 lw=0.9,
                 alpha=0.8,
-                label=f"{fam.label}: critical curve" if first else None,
+                label=f"{fam['label']}: critical curve" if n == 0 else None,
             )
             ax.plot(
                 line.caustic_x,
@@ -48,32 +45,29 @@ def sky_figure(like, values, fit_result, title=""):
                 ":",
                 color=c,
                 lw=0.9,
-                label=f"{fam.label}: caustic" if first else None,
+                label=f"{fam['label']}: caustic" if n == 0 else None,
             )
-            first = False
         ax.errorbar(
-            fam.x,
-            fam.y,
-            xerr=fam.sigma,
-            yerr=fam.sigma,
+            fam["x"],
+            fam["y"],
+            xerr=fam["sigma"],
+            yerr=fam["sigma"],
             fmt="+",
             color="k",
             ms=10,
             label="observed" if k == 0 else None,
         )
-        for i, lab in enumerate(fam.labels):
+        for x, y, lab in zip(fam["x"], fam["y"], fam["labels"]):
             ax.annotate(
-                f"{fam.label}/{lab}",
-                (fam.x[i], fam.y[i]),
+                f"{fam['label']}/{lab}",
+                (x, y),
                 textcoords="offset points",
                 xytext=(6, 6),
                 fontsize=8,
             )
-        ok = pred["ok"][0]
-        ax.plot(pred["x"][0, ok], pred["y"][0, ok], "x", color=c, ms=7, label=f"{fam.label}: model")
-        b = values[like.source_slice(k)]
-        ax.plot(b[0], b[1], "*", color=c, ms=9, label=f"{fam.label}: source")
-    for j, im in enumerate(fit_result.unobserved_images):
+        ax.plot(fam["model_x"], fam["model_y"], "x", color=c, ms=7, label=f"{fam['label']}: model")
+        ax.plot(*fam["source"], "*", color=c, ms=9, label=f"{fam['label']}: source")
+    for j, im in enumerate(view["unobserved"]):
         ax.plot(
             im["x"],
             im["y"],
@@ -83,7 +77,7 @@ def sky_figure(like, values, fit_result, title=""):
             ms=8,
             label="predicted, not observed" if j == 0 else None,
         )
-    _sky_axes(ax, extent)
+    _sky_axes(ax, view["extent"])
     ax.set_title(title or "Sky view (North up, East left)")
     ax.legend(fontsize=7, loc="upper left", framealpha=0.8)
     fig.tight_layout()
