@@ -214,3 +214,18 @@ def test_nearly_aligned_source_behind_a_large_round_lens():
     )
     t = find_images(lens, [0.0], [0.015625])
     np.testing.assert_allclose(np.sort(t.y), [0.015625 - 2.0, 0.015625 + 2.0], atol=1e-10)
+
+
+def test_find_images_converts_angles_and_refuses_other_units():
+    """50 mas is 0.05 arcsec (astropy units); a length is not an angle."""
+    from astropy import units as u
+
+    from lensdelay.errors import InputError
+
+    sis = Lens((SingularIsothermalSphere(einstein_radius=1.0),))
+    with_units = find_images(sis, 50 * u.mas, 20 * u.mas)
+    plain = find_images(sis, 0.05, 0.02)
+    np.testing.assert_allclose(np.sort(with_units.x), np.sort(plain.x), atol=1e-12)
+    assert np.max(np.hypot(with_units.x, with_units.y)) < 1.1   # not 51 arcsec away
+    with pytest.raises(InputError, match="beta_x must be an angle"):
+        find_images(sis, 3 * u.km, 0.0)
