@@ -4,7 +4,7 @@ For every forecast sample the images of the transient's source are solved at onc
 (Newton, vectorised over samples, started from the best-fit images); their Fermat
 potentials become delays after the image the transient was seen in, scaled sample
 by sample by H0 (D_dt ∝ 1/H0) and by (1 − κ_ext). Each image's date is t0 + Δt_i
-with t0 the date the event reached the reference image (:mod:`lensdelay.timing`).
+with t0 the date the event reached the reference image (:mod:`lensdelay.inference.timing`).
 
 Measured delays and sightings update the samples by one of two routes
 (:func:`update_on_timing`): importance weights when enough effective samples remain

@@ -1,7 +1,7 @@
 """Least-squares fit of a mass model to image positions, with lmfit.
 
 Two stages: a fast magnification-weighted source-plane fit (no lens-equation solve)
-to get close, then the image-plane χ² of :class:`lensdelay.likelihood.ImageLikelihood`,
+to get close, then the image-plane χ² of :class:`lensdelay.inference.likelihood.ImageLikelihood`,
 which solves the lens equation at every step. The result carries everything a report
 needs; reports and figures live elsewhere.
 """

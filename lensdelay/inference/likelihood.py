@@ -27,7 +27,7 @@ sec. 2), which does not depend on how the model is parametrised (axis ratio and 
 or ellipticity components). Both give calibrated delay intervals for the benchmark
 quad (``benchmarks/bench_fit.py``; README). The Jacobian behind the Fisher information
 (:meth:`ImageLikelihood.information_jacobian`) also gives the sampler its local metric
-(:mod:`lensdelay.moves`).
+(:mod:`lensdelay.inference.moves`).
 """
 
 from __future__ import annotations
@@ -83,7 +83,7 @@ class ImageLikelihood:
     prior : {"jeffreys", "flat"}
         Prior of :meth:`log_probability` within the bounds (module docstring); Gaussian
         priors of the recipe and the lens-light centre enter as constraints either way.
-    timing : lensdelay.timing.TimingData, optional
+    timing : lensdelay.inference.timing.TimingData, optional
         Measured delays and sightings to fit (instead of the scenario's delays that
         ``use_delays`` takes). Its columns name observed images or images listed in
         ``tracked``.
@@ -613,7 +613,7 @@ class ImageLikelihood:
 
         The residuals are those of the constraints (the extra-image penalty enters the
         log posterior only). Rows outside the bounds get −inf and zero residuals and
-        Jacobian. Used by :class:`lensdelay.moves.FisherLangevinMove`, which needs the
+        Jacobian. Used by :class:`lensdelay.inference.moves.FisherLangevinMove`, which needs the
         local geometry.
         """
         params = np.atleast_2d(np.asarray(params, dtype=float))

@@ -6,7 +6,7 @@ angle, shear and the lens centre trade off along it. emcee's default stretch mov
 affine-invariant, so it handles straight correlations but not a curved valley; its
 walkers creep along it (measured: walkers started at one end of the valley of the
 calibration quad stay there for about a thousand steps), and the resulting delay
-intervals are too narrow. In the component coordinates of :mod:`lensdelay.coordinates`
+intervals are too narrow. In the component coordinates of :mod:`lensdelay.inference.coordinates`
 the valley is straighter and the stretch move is calibrated already; this move mixes
 faster still (integrated autocorrelation 30 instead of 45 steps in the benchmark).
 
@@ -21,7 +21,7 @@ accepted with the Metropolis–Hastings ratio that includes the proposal densiti
 both directions, so the chain targets the exact posterior whatever G and ε are. Every
 walker is an independent chain; all are advanced in one vectorised evaluation. The
 randomness is emcee's generator (seeded and checkpointed by
-:func:`lensdelay.posterior.sample`), so a resumed run repeats an uninterrupted one.
+:func:`lensdelay.inference.sampling.sample`), so a resumed run repeats an uninterrupted one.
 """
 
 from __future__ import annotations

@@ -113,7 +113,7 @@ def sample(
 ) -> Chain:
     """Sample the posterior of ``like`` around ``start``.
 
-    The walkers move in :class:`lensdelay.coordinates.SamplingCoordinates` (ellipticity
+    The walkers move in :class:`lensdelay.inference.coordinates.SamplingCoordinates` (ellipticity
     and shear components), where the valley is nearly straight; the density is that of
     ``like`` (the change of variables is accounted for), and the returned chain is in
     the model's own parameters. The checkpoint holds the sampling coordinates.

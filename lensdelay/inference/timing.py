@@ -54,7 +54,7 @@ class TimingData:
     ----------
     columns : sequence of (family, label)
         The images whose arrival times the caller will supply, in this order.
-    delays : sequence of lensdelay.scenario.MeasuredDelay
+    delays : sequence of lensdelay.model.scenario.MeasuredDelay
     sightings : sequence of SightingRow
         All of the transient's family; ``days`` counted from the detection date.
     detection_sigma_days : float

@@ -48,7 +48,7 @@ class ImageTable:
     magnification : ndarray
         Signed magnification 1/det A.
     parity : ndarray of int
-        0 minimum, 1 saddle, 2 maximum (names in :data:`lensdelay.lens.PARITIES`).
+        0 minimum, 1 saddle, 2 maximum (names in :data:`lensdelay.lensing.lens.PARITIES`).
     fermat : ndarray
         Fermat potential τ, arcsec²; arrival time = τ · D_dt / c.
     source_error : ndarray

@@ -3,7 +3,7 @@
 A recipe is a list of ``[[mass]]`` entries. Every parameter is a number (held fixed)
 or a table ``{ value = , min = , max = , prior = [mean, sigma] }`` (free). This module
 turns such mappings (already parsed from TOML) into :class:`ModelParameter` objects,
-validates them, and builds :class:`lensdelay.lens.Lens` objects for given values --
+validates them, and builds :class:`lensdelay.lensing.lens.Lens` objects for given values --
 scalars for a fit, or arrays for many posterior samples at once.
 """
 

@@ -4,7 +4,7 @@ A scenario (TOML) holds what was measured -- lens redshift, sky position, image
 families, lens-light centre, the transient, measured delays, the observing site --
 and names its mass model inline (``[[mass]]``) or by a file in ``models/``. This
 module turns the parsed document into frozen dataclasses; it reads no files itself
-(the model file, if any, comes through a callback from :mod:`lensdelay.loading`).
+(the model file, if any, comes through a callback from :mod:`lensdelay.io.reading`).
 """
 
 from __future__ import annotations

@@ -2,7 +2,7 @@
 
 Given a known lens and source, compute the images, add Gaussian astrometric noise
 (seeded), and describe the result as a scenario document (a dict ready for
-:func:`lensdelay.scenario.parse_scenario`, or TOML text for a demo file).
+:func:`lensdelay.model.scenario.parse_scenario`, or TOML text for a demo file).
 """
 
 from __future__ import annotations

@@ -16,7 +16,7 @@ from lensdelay.io.forecast_files import (
 
 
 def images_text(result: dict) -> str:
-    """Table of images from :func:`lensdelay.commands.images_command`."""
+    """Table of images from :func:`lensdelay.api.images_of_source`."""
     lines = [
         f"Images of a source at ({result['source']['x']:+.4f}, {result['source']['y']:+.4f}) "
         f"arcsec, "

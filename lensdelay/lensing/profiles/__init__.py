@@ -1,4 +1,4 @@
-"""Mass profiles: one file a profile, all following :mod:`lensdelay.profiles.base`."""
+"""Mass profiles: one file a profile, all following :mod:`lensdelay.lensing.profiles.base`."""
 
 from lensdelay.lensing.profiles.base import (
     PROFILES,
