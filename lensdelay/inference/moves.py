@@ -39,7 +39,7 @@ class FisherLangevinMove(Move):
     target : object
         Has ``evaluate(rows) -> (log_prob, residuals, jacobian)`` for rows (P, n), with
         residuals (P, m) and their Jacobian (P, m, n) (see
-        :meth:`lensdelay.likelihood.ImageLikelihood.evaluate`).
+        :meth:`lensdelay.inference.likelihood.ImageLikelihood.evaluate`).
     step : float, optional
         ε in units of the local standard deviations; default 1.2 n^(-1/6), the scaling of
         Langevin proposals with the dimension (Roberts & Rosenthal 1998, JRSS B 60, 255).

@@ -3,7 +3,7 @@
 All mass parameters are defined at the reference source redshift. A family whose
 source sits elsewhere sees deflection, potential and Hessian multiplied by its
 ``scale`` = (D_ls/D_s)(z_s) / (D_ls/D_s)(z_ref) (see
-:meth:`lensdelay.cosmology.LensDistances.deflection_scale`).
+:meth:`lensdelay.lensing.distances.LensDistances.deflection_scale`).
 """
 
 from __future__ import annotations
