@@ -319,3 +319,17 @@ def test_bad_elongation_range(tmp_path, capsys):
     path.write_text(text)
     assert main(["check", str(path)]) == 2
     assert "site.solar_elongation must satisfy 0 <= min < max <= 180" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    "text, utc",
+    [
+        ("2027-02-14T10:00:00-05:00", "2027-02-14T15:00:00"),  # west of Greenwich: later in UTC
+        ("2027-02-14T10:00:00+05:30", "2027-02-14T04:30:00"),
+        ("2027-02-14T10:00:00Z", "2027-02-14T10:00:00"),
+        ("2027-02-14", "2027-02-14T00:00:00"),
+    ],
+)
+def test_dates_with_utc_offsets_are_converted_whatever_the_sign(text, utc):
+    """ISO 8601 offsets: local time = UTC + offset (ISO 8601-1:2019, 4.3.13), so UTC = local − offset."""
+    assert parse_date(text, "transient.date").isot[:19] == utc

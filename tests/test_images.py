@@ -226,6 +226,6 @@ def test_find_images_converts_angles_and_refuses_other_units():
     with_units = find_images(sis, 50 * u.mas, 20 * u.mas)
     plain = find_images(sis, 0.05, 0.02)
     np.testing.assert_allclose(np.sort(with_units.x), np.sort(plain.x), atol=1e-12)
-    assert np.max(np.hypot(with_units.x, with_units.y)) < 1.1   # not 51 arcsec away
+    assert np.max(np.hypot(with_units.x, with_units.y)) < 1.1  # not 51 arcsec away
     with pytest.raises(InputError, match="beta_x must be an angle"):
         find_images(sis, 3 * u.km, 0.0)

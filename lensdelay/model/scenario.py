@@ -196,7 +196,11 @@ class _Table:
 
 
 def parse_date(value, where: str) -> Time:
-    """An ISO 8601 date or date-time in UTC (``2027-03-04`` or ``2027-03-04T06:00:00Z``)."""
+    """An ISO 8601 date or date-time as a UTC astropy Time.
+
+    ``2027-03-04``, ``2027-03-04T06:00:00Z``; a date-time with a UTC offset
+    (``2027-03-04T01:00:00-05:00``) is converted to UTC, whatever the offset's sign.
+    """
     import datetime as _dt
 
     if isinstance(value, (_dt.datetime, _dt.date)):
@@ -204,19 +208,17 @@ def parse_date(value, where: str) -> Time:
     if not isinstance(value, str):
         raise InputError(f"{where} must be an ISO 8601 date such as 2027-03-04, got {value!r}")
     text = value.strip()
-    if text.endswith("Z"):
-        text = text[:-1]
-    if "+" in text[10:]:
-        text, _, offset = text.rpartition("+")
-        if offset not in ("00:00", "0000", "00"):
-            raise InputError(f"{where} must be in UTC (Z or +00:00), got {value!r}")
+    if text.endswith(("Z", "z")):
+        text = text[:-1] + "+00:00"
     try:
         parsed = _dt.datetime.fromisoformat(text)
     except ValueError as err:
         raise InputError(
             f"{where} must be an ISO 8601 date such as 2027-03-04, got {value!r}"
         ) from err
-    return Time(parsed.replace(tzinfo=None), scale="utc")
+    if parsed.tzinfo is not None:
+        parsed = parsed.astimezone(_dt.timezone.utc).replace(tzinfo=None)
+    return Time(parsed, scale="utc")
 
 
 TOP_KEYS = (
