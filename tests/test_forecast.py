@@ -331,5 +331,6 @@ def test_bad_elongation_range(tmp_path, capsys):
     ],
 )
 def test_dates_with_utc_offsets_are_converted_whatever_the_sign(text, utc):
-    """ISO 8601 offsets: local time = UTC + offset (ISO 8601-1:2019, 4.3.13), so UTC = local − offset."""
+    """ISO 8601 offsets: local time = UTC + offset (ISO 8601-1:2019, 4.3.13), so UTC = local −
+    offset."""
     assert parse_date(text, "transient.date").isot[:19] == utc

@@ -187,7 +187,8 @@ cases = {
     ),
     "transient_bad_offset": (
         lambda t: t.replace('date = "2027-02-14"', 'date = "2027-02-14T10:00:00+25:00"'),
-        "transient.date must be an ISO 8601 date such as 2027-03-04, got '2027-02-14T10:00:00+25:00'",
+        "transient.date must be an ISO 8601 date such as 2027-03-04, got "
+        "'2027-02-14T10:00:00+25:00'",
     ),
     "transient_unknown_image": (
         lambda t: t.replace('seen_in = "A"', 'seen_in = "E"'),
