@@ -521,3 +521,14 @@ def test_bad_update_arguments_exit_2_with_one_line(tmp_path, capsys, args, messa
     err = capsys.readouterr().err
     assert message in err and err.count("\n") == 1
     assert not out.exists()
+
+
+def test_kappa_draws_stay_below_one(rng):
+    """A prior allowed by the 0.1% rule is truncated at 1: no draw flips delay signs
+    (the mass-sheet factor 1 − κ_ext stays positive; Falco, Gorenstein & Shapiro 1985)."""
+    from lensdelay.inference.priors import check_kappa_prior, draw_kappa
+
+    mean, sigma = check_kappa_prior(0.6, 0.125)  # P(κ ≥ 1) = 6.9e-4: allowed (scipy.stats)
+    draws = draw_kappa(mean, sigma, 200_000, rng)
+    assert draws.max() < 1.0
+    assert abs(np.mean(draws) - 0.6) < 0.002

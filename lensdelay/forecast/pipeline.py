@@ -36,6 +36,7 @@ from lensdelay.forecast.samples import (
     solve_samples,
 )
 from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.priors import check_kappa_prior
 from lensdelay.inference.sampling import fit_and_sample, int_seed
 from lensdelay.model.scenario import Scenario, Site, parse_date
 from lensdelay.forecast.observability import build_calendar
@@ -242,11 +243,7 @@ def run_forecast(
             raise InputError(f"h0 mean must be between 10 and 200 km/s/Mpc, got {h0[0]:g}")
         settings = replace(settings, h0_prior=(float(h0[0]), float(h0[1])))
     if kappa_ext is not None:
-        if not kappa_ext[0] < 1:
-            raise InputError(f"kappa_ext mean must be < 1, got {kappa_ext[0]:g}")
-        if kappa_ext[1] < 0:
-            raise InputError(f"kappa_ext sigma must be >= 0, got {kappa_ext[1]:g}")
-        settings = replace(settings, kappa_ext=(float(kappa_ext[0]), float(kappa_ext[1])))
+        settings = replace(settings, kappa_ext=check_kappa_prior(*kappa_ext))
     if microlensing is not None:
         if microlensing < 0:
             raise InputError(f"microlensing must be >= 0 mag, got {microlensing:g}")

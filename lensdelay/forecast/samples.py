@@ -25,6 +25,7 @@ from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.images import find_images, keep_distinct_tracks, newton_polish
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.priors import draw_kappa
 from lensdelay.inference.summaries import (
     effective_sample_size,
 )  # noqa: F401
@@ -254,8 +255,7 @@ def draw_scale_priors(
         h0 = np.where(h0 > 1.0, h0, np.nan)
     else:
         h0 = np.full(n, h0_ref)
-    mean, sigma = settings.kappa_ext
-    kappa = rng.normal(mean, sigma, n) if sigma > 0 else np.full(n, mean)
+    kappa = draw_kappa(*settings.kappa_ext, n, rng)
     return h0, kappa
 
 

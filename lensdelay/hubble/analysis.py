@@ -19,6 +19,7 @@ from astropy.cosmology import FlatLambdaCDM
 
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import DelayDistanceTable, LensDistances
+from lensdelay.inference.priors import draw_kappa
 from lensdelay.inference.summaries import quantile_summary as summary
 
 KAPPA_COMPARISON = ((0.0, 0.0), (0.0, 0.05), (0.05, 0.05), (-0.05, 0.05), (0.1, 0.05))
@@ -112,9 +113,7 @@ def h0_posterior(h0_eff, like, *, kappa_ext=(0.0, 0.05), om0_prior=None, rng=Non
     cosmo = sc.cosmology
     fam = sc.family(sc.delays[0].family)
     n = len(h0_eff)
-    kappa = (
-        rng.normal(kappa_ext[0], kappa_ext[1], n) if kappa_ext[1] > 0 else np.full(n, kappa_ext[0])
-    )
+    kappa = draw_kappa(kappa_ext[0], kappa_ext[1], n, rng)
     ratio = np.ones(n)
     om_used = None
     if om0_prior is not None and isinstance(cosmo, FlatLambdaCDM) and om0_prior[1] > 0:
