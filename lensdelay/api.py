@@ -22,6 +22,7 @@ from lensdelay.forecast.pipeline import run_forecast
 from lensdelay.hubble.pipeline import run_hubble
 from lensdelay.inference.fit import ScenarioFit, check_constraints, delay_errors, fit
 from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.sampling import check_sampler_settings
 from lensdelay.inference.sampling import sample as run_sampler
 from lensdelay.io import reading
 from lensdelay.io.provenance import provenance
@@ -195,6 +196,10 @@ def fit_scenario(
     progress, stop
         Progress display and stop request of :func:`lensdelay.inference.sampling.sample`.
     """
+    if sample:
+        check_sampler_settings(walkers, steps, seed)
+    elif isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise InputError(f"seed must be an integer >= 0, got {seed!r}")
     sc, used = _scenario(scenario, model)
     if not flux_floor > 0:
         raise InputError(f"flux_floor must be > 0 mag, got {flux_floor:g}")

@@ -182,8 +182,14 @@ def test_peculiar_velocity_terms_are_small():
     [
         (["--kappa-ext", "1.0", "0.05"], "--kappa-ext mean must be in [-0.5, 1), got 1"),
         (["--kappa-ext", "-5", "0.05"], "--kappa-ext mean must be in [-0.5, 1), got -5"),
-        (["--kappa-ext", "0.9", "0.5"], "--kappa-ext prior must put at most 0.001 of its probability"),
-        (["--kappa-ext", "0", "0.6"], "--kappa-ext prior must put at most 0.001 of its probability"),
+        (
+            ["--kappa-ext", "0.9", "0.5"],
+            "--kappa-ext prior must put at most 0.001 of its probability",
+        ),
+        (
+            ["--kappa-ext", "0", "0.6"],
+            "--kappa-ext prior must put at most 0.001 of its probability",
+        ),
         (["--kappa-ext", "0.0", "-0.1"], "--kappa-ext sigma must be >= 0"),
     ],
 )

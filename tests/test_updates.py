@@ -532,3 +532,56 @@ def test_kappa_draws_stay_below_one(rng):
     draws = draw_kappa(mean, sigma, 200_000, rng)
     assert draws.max() < 1.0
     assert abs(np.mean(draws) - 0.6) < 0.002
+
+
+@pytest.mark.parametrize(
+    "argv, message",
+    [
+        (
+            ["forecast", "scenarios/vellmar_quad.toml", "--steps", "0"],
+            "--steps must be an integer >= 50, got 0",
+        ),
+        (
+            ["forecast", "scenarios/vellmar_quad.toml", "--steps", "5"],
+            "--steps must be an integer >= 50, got 5",
+        ),
+        (
+            ["forecast", "scenarios/vellmar_quad.toml", "--seed", "-1"],
+            "--seed must be an integer >= 0, got -1",
+        ),
+        (
+            ["fit", "scenarios/vellmar_quad.toml", "--sample", "--steps", "-5"],
+            "--steps must be an integer >= 50",
+        ),
+        (["fit", "scenarios/vellmar_quad.toml", "--seed", "-1"], "--seed must be an integer >= 0"),
+        (
+            ["hubble", "scenarios/ostrin_double.toml", "--steps", "1"],
+            "--steps must be an integer >= 50",
+        ),
+        (["forecast", "scenarios/vellmar_quad.toml", "--sample", "100"], "unrecognized arguments"),
+        (
+            [
+                "fit",
+                "scenarios/vellmar_quad.toml",
+                "--model",
+                "models/sie_shear.toml",
+                "--model",
+                "models/power_law_shear.toml",
+            ],
+            "--model may be given once",
+        ),
+        (
+            ["forecast", "scenarios/vellmar_quad.toml", "--site", "-30", "-70", "-20000"],
+            "--site height must be within [-500, 9000] metres",
+        ),
+    ],
+)
+def test_settings_that_cannot_work_are_refused_in_one_line(argv, message, capsys):
+    """Refuse or honour, never ignore (issue 12, items 8 and 13): one line, exit 2."""
+    try:
+        code = main(argv)
+    except SystemExit as exit_:  # argparse's own usage errors
+        code = exit_.code
+    assert code == 2
+    err = capsys.readouterr().err
+    assert message in err and err.count("\n") == 1, err

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from lensdelay.cli.options import Once
 from lensdelay.api import check_scenario
 
 
@@ -22,5 +23,5 @@ def register(sub) -> None:
     """Add the ``check`` sub-command to the parser."""
     p = sub.add_parser("check", help="validate a scenario without running anything")
     p.add_argument("scenario", help="scenario TOML file")
-    p.add_argument("--model", help="model TOML replacing the scenario's mass model")
+    p.add_argument("--model", action=Once, help="model TOML replacing the scenario's mass model")
     p.set_defaults(func=run)

@@ -7,7 +7,7 @@ import sys
 import numpy as np
 
 from lensdelay.api import fit_scenario
-from lensdelay.cli.options import add_prior_argument, number, output_folder
+from lensdelay.cli.options import Once, add_prior_argument, number, output_folder
 from lensdelay.io.fit_files import fit_json
 from lensdelay.io.storage import write_output_set
 from lensdelay.report.figures import corner_figure, residual_figure, sky_figure
@@ -68,7 +68,7 @@ def register(sub) -> None:
     """Add the ``fit`` sub-command to the parser."""
     p = sub.add_parser("fit", help="fit a mass model to the image positions")
     p.add_argument("scenario", help="scenario TOML file")
-    p.add_argument("--model", help="model TOML replacing the scenario's mass model")
+    p.add_argument("--model", action=Once, help="model TOML replacing the scenario's mass model")
     p.add_argument("--out", help="folder for fit.json, figures, samples and checkpoints")
     p.add_argument("--use-delays", action="store_true", help="fit measured delays too (H0 free)")
     p.add_argument(

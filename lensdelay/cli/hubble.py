@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 
 from lensdelay.api import infer_h0
-from lensdelay.cli.options import add_prior_argument, number, output_folder
+from lensdelay.cli.options import Once, add_prior_argument, number, output_folder
 from lensdelay.errors import InputError
 from lensdelay.io.hubble_files import curves_table_text, hubble_json
 from lensdelay.io.storage import write_output_set
@@ -66,7 +66,7 @@ def register(sub) -> None:
         "hubble", help="delays vs H0; H0 from measured delays; mass-sheet comparison"
     )
     p.add_argument("scenario", help="scenario TOML file")
-    p.add_argument("--model", help="model TOML replacing the scenario's mass model")
+    p.add_argument("--model", action=Once, help="model TOML replacing the scenario's mass model")
     p.add_argument("--out", help="folder for hubble.json and the figures")
     p.add_argument(
         "--kappa-ext",

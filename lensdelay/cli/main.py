@@ -23,7 +23,14 @@ SUBCOMMANDS = (images, check, fit, forecast, hubble)
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse, but a usage error is one line and exit 2."""
+    """Argparse, but a usage error is one line and exit 2, and options are never abbreviated.
+
+    ``--sample 100`` must not silently mean ``--samples 100``.
+    """
+
+    def __init__(self, *args, **kwargs):
+        kwargs.setdefault("allow_abbrev", False)
+        super().__init__(*args, **kwargs)
 
     def error(self, message):  # noqa: D401 - argparse hook
         self.exit(2, f"lensdelay: argument error: {message}\n")

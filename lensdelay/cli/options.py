@@ -31,6 +31,9 @@ FLAGS = {
     "move": "--move",
     "resume": "--resume",
     "out": "--out",
+    "steps": "--steps",
+    "walkers": "--walkers",
+    "seed": "--seed",
 }
 
 
@@ -40,6 +43,16 @@ def with_flags(message: str) -> str:
         if message.startswith(name + " "):
             return flag + message[len(name) :]
     return message
+
+
+class Once(argparse.Action):
+    """An option that may be given once: a repeat is an error, never silently the last."""
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        """Store the value, or stop with a usage error if the option was given before."""
+        if getattr(namespace, self.dest, None) is not None:
+            parser.error(f"{option_string} may be given once")
+        setattr(namespace, self.dest, values)
 
 
 def number(text: str) -> float:
@@ -92,6 +105,8 @@ def site_from_args(args) -> Site | None:
             raise InputError(f"--site latitude must be within [-90, 90] degrees, got {lat:g}")
         if not -180 <= lon <= 360:
             raise InputError(f"--site longitude must be within [-180, 360] degrees, got {lon:g}")
+        if not -500 <= height <= 9000:
+            raise InputError(f"--site height must be within [-500, 9000] metres, got {height:g}")
         return Site("ground", lat, lon, height)
     if args.elongation is not None:
         lo, hi = args.elongation

@@ -37,7 +37,7 @@ from lensdelay.forecast.samples import (
 )
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.priors import check_kappa_prior
-from lensdelay.inference.sampling import fit_and_sample, int_seed
+from lensdelay.inference.sampling import check_sampler_settings, fit_and_sample, int_seed
 from lensdelay.model.scenario import Scenario, Site, parse_date
 from lensdelay.forecast.observability import build_calendar
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
@@ -222,6 +222,7 @@ def run_forecast(
     Other parameters are those of ``lensdelay forecast`` (README).
     """
     scenarios = [scenarios] if isinstance(scenarios, Scenario) else list(scenarios)
+    check_sampler_settings(walkers, steps, seed)
     if not scenarios:
         raise InputError("scenarios must hold at least one scenario, got none")
     sc0 = scenarios[0]

@@ -15,7 +15,7 @@ from lensdelay.errors import InputError
 from lensdelay.hubble.analysis import delay_curves, h0_posterior, kappa_comparison, pair_delays
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.priors import check_kappa_prior
-from lensdelay.inference.sampling import fit_and_sample, int_seed
+from lensdelay.inference.sampling import check_sampler_settings, fit_and_sample, int_seed
 from lensdelay.model.cosmology import cosmology_from_class, cosmology_from_spec
 from lensdelay.model.scenario import Scenario
 
@@ -56,6 +56,7 @@ def run_hubble(
     progress : bool
         Show progress bars (off by default).
     """
+    check_sampler_settings(walkers, steps, seed)
     kappa_ext = check_kappa_prior(*kappa_ext)
     if om0 is not None and not (0 < om0[0] < 1 and om0[1] >= 0):
         raise InputError(f"om0 must be MEAN in (0, 1) and SIGMA >= 0, got {om0[0]:g} {om0[1]:g}")

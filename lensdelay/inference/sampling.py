@@ -68,6 +68,21 @@ class Chain:
         return self.chain[self.burn :: self.thin].reshape(-1, self.chain.shape[-1])
 
 
+#: Fewest sampler steps accepted: fewer cannot estimate an autocorrelation time.
+MIN_STEPS = 50
+
+
+def check_sampler_settings(walkers: int, steps: int, seed: int) -> None:
+    """Refuse sampler settings that cannot work (before anything is computed)."""
+    for name, value, low in (
+        ("walkers", walkers, 2),
+        ("steps", steps, MIN_STEPS),
+        ("seed", seed, 0),
+    ):
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
+            raise InputError(f"{name} must be an integer >= {low}, got {value!r}")
+
+
 def int_seed(seed_sequence: np.random.SeedSequence) -> int:
     """An int seed (for lmfit's starts and emcee's generator) drawn from a SeedSequence child."""
     return int(seed_sequence.generate_state(1)[0] % (2**31))
@@ -142,6 +157,7 @@ def sample(
         Checked after every checkpoint block; when requested, the chain so far is kept
         in the checkpoint and KeyboardInterrupt is raised.
     """
+    check_sampler_settings(walkers, steps, seed)
     ndim = len(start)
     if walkers < 2 * ndim:
         walkers = 2 * ndim  # emcee's ensemble moves need twice as many walkers as parameters
