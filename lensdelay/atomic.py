@@ -14,12 +14,22 @@ from pathlib import Path
 import numpy as np
 
 
+def _umask() -> int:
+    """The process's umask (read by setting it and putting it back)."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
     """Write ``data`` to ``path`` via a temporary file in the same folder and a rename."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     try:
+        # mkstemp makes the file private (0600); give it the mode any new file of the
+        # user's would have (0666 minus the umask), as an ordinary write would
+        os.chmod(tmp, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

@@ -121,3 +121,42 @@ def test_degenerate_sources_give_finite_images(lens):
     for name in ("x", "y", "fermat"):
         assert np.all(np.isfinite(getattr(t, name)))
     assert not np.any(np.isnan(t.magnification))
+
+
+def test_outputs_keep_the_users_umask_and_identical_runs_give_identical_files(tmp_path):
+    """Files are created as 0666 minus the umask (POSIX open(2)), not 0600, and two runs
+    with the same inputs, seed and --now write byte-identical files, PDF and .ics included."""
+    import os
+
+    from lensdelay.cli.main import main
+
+    old = os.umask(0o022)
+    try:
+        outs = [tmp_path / "a", tmp_path / "b"]
+        for out in outs:
+            assert (
+                main(
+                    [
+                        "forecast",
+                        "scenarios/ostrin_double.toml",
+                        "--out",
+                        str(out),
+                        "--samples",
+                        "500",
+                        "--steps",
+                        "100",
+                        "--walkers",
+                        "16",
+                        "--quiet",
+                        "--now",
+                        "2026-12-01",
+                    ]
+                )
+                == 0
+            )
+    finally:
+        os.umask(old)
+    for name in ("forecast.json", "forecast.ics", "timeline.pdf", "timeline.png", "forecast.ecsv"):
+        a, b = outs[0] / name, outs[1] / name
+        assert (a.stat().st_mode & 0o777) == 0o644, name
+        assert a.read_bytes() == b.read_bytes(), name

@@ -334,3 +334,40 @@ def test_dates_with_utc_offsets_are_converted_whatever_the_sign(text, utc):
     """ISO 8601 offsets: local time = UTC + offset (ISO 8601-1:2019, 4.3.13), so UTC = local −
     offset."""
     assert parse_date(text, "transient.date").isot[:19] == utc
+
+
+def test_ecsv_masks_missing_values_instead_of_nan(tmp_path):
+    """No site and no transient magnitude: those cells are masked (empty in ECSV, the
+    astropy.table convention), never 'nan'; the table reads back with astropy."""
+    from astropy.table import Table
+
+    path = _sis_like_scenario(tmp_path)
+    text = path.read_text()
+    text = text.replace("magnitude = 21.0\n", "").split("[site]")[0]
+    text += '\n[[mass]]\nprofile = "SIS"\neinstein_radius = 1.0\n' if "[[mass]]" not in text else ""
+    path.write_text(text)
+    out = tmp_path / "out"
+    assert (
+        main(
+            [
+                "forecast",
+                str(path),
+                "--out",
+                str(out),
+                "--samples",
+                "500",
+                "--steps",
+                "100",
+                "--walkers",
+                "16",
+                "--quiet",
+                "--now",
+                "2027-01-01",
+            ]
+        )
+        == 0
+    )
+    ecsv = (out / "forecast.ecsv").read_text()
+    assert "nan" not in ecsv.lower()
+    table = Table.read(out / "forecast.ecsv", format="ascii.ecsv")
+    assert table["p_observable"].mask.all() and table["magnitude_median"].mask.all()

@@ -199,7 +199,12 @@ def forecast_table(res) -> Table:
         tension = im.tension
         row["tension_sigma"] = tension["sigma"] if tension else np.nan
         rows.append(row)
-    t = Table(rows=rows)
+    t = Table(rows=rows, masked=True)
+    for c in t.colnames:
+        # a value that does not exist (no site, no magnitude, no sighting) is masked --
+        # an empty cell in ECSV, as null in the JSON -- never a NaN
+        if t[c].dtype.kind == "f":
+            t[c].mask = ~np.isfinite(np.asarray(t[c], dtype=float))
     for c in ("x", "y"):
         t[c].unit = u.arcsec
     for c in t.colnames:

@@ -44,7 +44,9 @@ def atomic_savefig(fig, stem) -> list[str]:
     out = []
     for ext in ("png", "pdf"):
         buf = io.BytesIO()
-        fig.savefig(buf, format=ext, dpi=130, bbox_inches="tight")
+        # no creation date or software version in the files: identical runs, identical bytes
+        metadata = {"CreationDate": None} if ext == "pdf" else {"Software": None}
+        fig.savefig(buf, format=ext, dpi=130, bbox_inches="tight", metadata=metadata)
         path = f"{stem}.{ext}"
         atomic_write_bytes(path, buf.getvalue())
         out.append(path)
