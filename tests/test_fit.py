@@ -337,3 +337,33 @@ def test_unobserved_bright_image_is_penalised():
     assert res.chi2 == pytest.approx(data_chi2 + penalty[0] ** 2)
     assert like.log_probability(res.values)[0] == pytest.approx(-0.5 * res.chi2)
     assert any("brighter than the faintest observed" in n for n in res.notes)
+
+
+def test_resume_refuses_another_scenarios_chain_and_a_shorter_run(tmp_path):
+    """A checkpoint records a fingerprint of the data: resuming it for another scenario is
+    refused, and so is asking for fewer steps than it holds (issue 12, item 3)."""
+    from lensdelay.errors import InputError
+
+    rng = np.random.default_rng(3)
+    first = _like_for_resume(rng)
+    other = _like_for_resume(np.random.default_rng(4))
+    kw = dict(walkers=12, seed=7, checkpoint_every=50, progress=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        best = fit(first).values
+        sample(first, best, steps=100, checkpoint_dir=tmp_path, **kw)
+        with pytest.raises(InputError, match="from a different run"):
+            sample(other, best, steps=150, checkpoint_dir=tmp_path, resume=True, **kw)
+        with pytest.raises(InputError, match="steps must be at least the 100 steps already in"):
+            sample(first, best, steps=50, checkpoint_dir=tmp_path, resume=True, **kw)
+
+
+def _like_for_resume(rng):
+    """A noisy SIE + shear quad (the calibration system) as a likelihood."""
+    import pathlib
+    import sys
+
+    sys.path.insert(0, str(pathlib.Path(__file__).parent.parent / "benchmarks"))
+    import bench_fit
+
+    return bench_fit.system(rng)

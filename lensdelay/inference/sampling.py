@@ -83,6 +83,25 @@ def check_sampler_settings(walkers: int, steps: int, seed: int) -> None:
             raise InputError(f"{name} must be an integer >= {low}, got {value!r}")
 
 
+def _data_fingerprint(like) -> str:
+    """A short hash of what the posterior depends on: parameters, bounds, priors, data.
+
+    A checkpoint records it, so that ``resume`` refuses a chain made for another
+    scenario or model, not only another seed or shape.
+    """
+    import hashlib
+
+    parts = [repr(list(getattr(like, "names", []))), repr(getattr(like, "priors", {}))]
+    for attr in ("lower", "upper"):
+        parts.append(np.asarray(getattr(like, attr, []), dtype=float).tobytes().hex())
+    for fam in getattr(like, "families", []):
+        parts.append(np.concatenate([fam.x, fam.y, fam.sigma, [fam.scale]]).tobytes().hex())
+    timing = getattr(like, "timing", None)
+    if timing is not None:
+        parts.append(np.concatenate([timing.values, timing.sigmas]).tobytes().hex())
+    return hashlib.sha256("|".join(parts).encode()).hexdigest()[:16]
+
+
 def int_seed(seed_sequence: np.random.SeedSequence) -> int:
     """An int seed (for lmfit's starts and emcee's generator) drawn from a SeedSequence child."""
     return int(seed_sequence.generate_state(1)[0] % (2**31))
@@ -173,10 +192,18 @@ def sample(
     else:
         raise InputError(f"move must be one of {choices_text(MOVES)}, got {move!r}")
     # what a resumed run must share with the checkpoint besides seed and shape
-    setup = f"move {move}, prior {getattr(like, 'prior', 'flat')}, components {components}"
+    setup = (
+        f"move {move}, prior {getattr(like, 'prior', 'flat')}, components {components}, "
+        f"data {_data_fingerprint(like)}"
+    )
     path = Path(checkpoint_dir) / "chain.npz" if checkpoint_dir else None
     backend = NpzCheckpoint(path, seed, setup)
     resumed = resume and backend.read(walkers, ndim)
+    if resumed and backend.iteration > steps:
+        raise InputError(
+            f"steps must be at least the {backend.iteration} steps already in {path} to resume, "
+            f"got {steps}"
+        )
     sampler = emcee.EnsembleSampler(
         walkers, ndim, target.log_probability, vectorize=True, moves=moves, backend=backend
     )
