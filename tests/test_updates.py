@@ -585,3 +585,36 @@ def test_settings_that_cannot_work_are_refused_in_one_line(argv, message, capsys
     assert code == 2
     err = capsys.readouterr().err
     assert message in err and err.count("\n") == 1, err
+
+
+@pytest.mark.integration
+def test_an_image_only_some_models_predict_is_not_presented_as_certain(tmp_path):
+    """Two equally weighted recipes, only the cored one predicting a central image: that image
+    exists in about half of the forecast, is flagged, and its calendar entry says so
+    (issue 12, item 5)."""
+    cored = tmp_path / "cored.toml"
+    cored.write_text(
+        '[[mass]]\nprofile = "SIE"\neinstein_radius = { value = 1.0, min = 0.05, max = 5.0 }\n'
+        "axis_ratio = { value = 0.8, min = 0.2, max = 1.0 }\nposition_angle = { value = 30.0 }\n"
+        "x = { value = 0.0, min = -1.0, max = 1.0 }\ny = { value = 0.0, min = -1.0, max = 1.0 }\n"
+        "core = 0.15\n"
+        '\n[[mass]]\nprofile = "shear"\nstrength = { value = 0.05, min = 0.0, max = 0.3 }\n'
+        "position_angle = { value = 10.0 }\n"
+    )
+    res = _quiet_forecast(
+        str(_quad(tmp_path)),
+        models=["models/sie_shear.toml", str(cored)],
+        weighting="equal",
+        now=Time("2027-03-02", scale="utc"),
+        **FAST,
+    )
+    central = [im for im in res.images if not im.observed]
+    assert central, "the cored model predicts a central image"
+    for im in central:
+        assert im.exists_fraction < 0.6
+        assert any("exists in only" in f for f in im.flags)
+    from lensdelay.io.forecast_files import forecast_ics
+
+    ics = forecast_ics(res)
+    if any(im.status in ("now", "future", "uncertain") for im in central):
+        assert "possible image" in ics.replace("\r\n ", "")

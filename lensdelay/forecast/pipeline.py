@@ -725,8 +725,8 @@ def _summarise(
         weights = arr["weights"]
         total = weights.sum()
         weights = weights / total if total > 0 else weights
-        members_weight = sum(w_model[m] for m, _ in g["members"])
-        exists_share = float(total / max(members_weight, 1e-300))
+        # over all models: a model that lacks this image counts as "no image" with its weight
+        exists_share = float(min(total, 1.0))
         valid = np.isfinite(arr["delay"]) & (weights > 0)
         par, par_share = majority(arr["parity"][valid], weights[valid])
         rk, rk_share = majority(arr["rank"][valid], weights[valid])
@@ -766,7 +766,10 @@ def _summarise(
                 f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)"
             )
         if exists_share < AGREEMENT and not is_ref:
-            entry["flag"].append(f"the image exists in only {100 * exists_share:.0f}% of samples")
+            entry["flag"].append(
+                f"the image exists in only {100 * exists_share:.0f}% of the forecast's samples "
+                "(models and posterior together); its dates assume it exists"
+            )
         medians = [v["delay_median"] for v in per_model.values() if v["delay_median"] is not None]
         entry["model_spread_days"] = float(np.ptp(medians)) if len(medians) > 1 else 0.0
         # how much the timing data narrowed the 95% window

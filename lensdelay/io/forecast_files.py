@@ -284,7 +284,14 @@ def forecast_ics(res, stamp: _dt.datetime | None = None) -> str:
             event.add("dtstamp", stamp)
             event.add("dtstart", start)
             event.add("dtend", last + _dt.timedelta(days=1))  # all-day events end exclusively
-            event.add("summary", f"{sc.name} image {im.family}/{im.label}: in its 95% window")
+            possible = (
+                f" (possible image: exists in {100 * im.exists_fraction:.0f}% of the forecast)"
+                if im.exists_fraction < 0.95
+                else ""
+            )
+            event.add(
+                "summary", f"{sc.name} image {im.family}/{im.label}: in its 95% window{possible}"
+            )
             event.add("description", desc + CAUTION)
             event.add("transp", "TRANSPARENT")
             cal.add_component(event)
