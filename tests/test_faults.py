@@ -160,3 +160,28 @@ def test_outputs_keep_the_users_umask_and_identical_runs_give_identical_files(tm
         a, b = outs[0] / name, outs[1] / name
         assert (a.stat().st_mode & 0o777) == 0o644, name
         assert a.read_bytes() == b.read_bytes(), name
+
+
+@pytest.mark.parametrize("case", ["under_a_file", "dangling_link", "read_only"])
+def test_out_problems_are_found_before_computing(tmp_path, capsys, case):
+    """--out is checked before the fit and the sampler run: one line, exit 2."""
+    import os
+
+    from lensdelay.cli.main import main
+
+    if case == "under_a_file":
+        (tmp_path / "file").write_text("x")
+        out = tmp_path / "file" / "sub"
+    elif case == "dangling_link":
+        out = tmp_path / "link"
+        out.symlink_to(tmp_path / "nowhere")
+    else:
+        if os.geteuid() == 0:
+            pytest.skip("root writes to read-only folders")
+        ro = tmp_path / "ro"
+        ro.mkdir()
+        ro.chmod(0o500)
+        out = ro / "out"
+    assert main(["forecast", "scenarios/vellmar_quad.toml", "--out", str(out), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("lensdelay: --out must be") and err.count("\n") == 1

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import tempfile
 from pathlib import Path
 
 from lensdelay.errors import InputError
@@ -67,12 +68,33 @@ def number(text: str) -> float:
 
 
 def output_folder(path: str | None) -> Path | None:
-    """The ``--out`` folder (created only when results are written); refuses a file."""
+    """The ``--out`` folder, checked before anything is computed.
+
+    It is created only when results are written, but it must be creatable and
+    writable now: not a file, not under a file, not a dangling link, and on a
+    writable file system (a probe file is written and removed).
+    """
     if path is None:
         return None
     out = Path(path)
+    if out.is_symlink() and not out.exists():
+        raise InputError(f"--out must be a folder, got a link to nothing: {path!r}")
     if out.exists() and not out.is_dir():
         raise InputError(f"--out must be a folder, got the file {path!r}")
+    existing = out
+    while not existing.exists():
+        if existing.is_symlink():
+            raise InputError(
+                f"--out must be a folder, got a path through a link to nothing: {path!r}"
+            )
+        existing = existing.parent
+    if not existing.is_dir():
+        raise InputError(f"--out must be a folder, got a path under the file {str(existing)!r}")
+    try:
+        with tempfile.TemporaryFile(dir=existing):
+            pass
+    except OSError as err:
+        raise InputError(f"--out must be writable, got {path!r} ({err.strerror})") from err
     return out
 
 
