@@ -299,3 +299,19 @@ def test_rows_that_already_fit_exactly_keep_the_batch_shape():
     assert like.predict(rows)[0]["x"].shape == (5, 2)
     assert like.residuals(rows).shape == (5, like.n_constraints)
     assert np.all(np.isfinite(like.log_probability(rows)))
+
+
+def test_jacobian_at_the_bounds_stays_inside_them():
+    """A best fit on q = 1 or γ = 0: finite differences step inward only, never a false
+    input error from a profile asked for γ < 0 or q > 1 (issue 12, item 9)."""
+    like = bench_fit.system(np.random.default_rng(5))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        values = fit(like).values.copy()
+    for name in ("mass[0].axis_ratio", "mass[1].strength"):
+        i = like.names.index(name)
+        values[i] = like.upper[i] if name.endswith("axis_ratio") else like.lower[i]
+    jac = like.information_jacobian(values)[0]
+    assert np.all(np.isfinite(jac))
+    logp, _, _ = like.evaluate(values[None, :])
+    assert np.isfinite(logp[0])

@@ -329,13 +329,17 @@ def delay_errors(like: ImageLikelihood, result: FitResult, family: int = 0, refe
     steps = np.where(np.isfinite(result.errors) & (result.errors > 0), 1e-3 * result.errors, 1e-7)
     jac = np.empty((len(best), len(result.values)))
     for i, h in enumerate(steps):
+        # one-sided at a bound: a best fit may sit on q = 1 or γ = 0
         up, down = result.values.copy(), result.values.copy()
-        up[i] += h
-        down[i] -= h
+        up[i] = min(up[i] + h, like.upper[i])
+        down[i] = max(down[i] - h, like.lower[i])
+        if up[i] == down[i]:
+            jac[:, i] = 0.0
+            continue
         jac[:, i] = (
             observed_delays(like, up, family, reference)[0]
             - observed_delays(like, down, family, reference)[0]
-        ) / (2 * h)
+        ) / (up[i] - down[i])
     n = cov.shape[0]
     var = np.einsum("ij,jk,ik->i", jac[:, :n], cov, jac[:, :n])
     return best, np.sqrt(np.maximum(var, 0.0))

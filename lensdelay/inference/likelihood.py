@@ -529,10 +529,14 @@ class ImageLikelihood:
         preds = self.predict(params) if preds is None else preds
         n_rows, n_par = params.shape
         step = _INFO_STEP * np.maximum(1.0, np.abs(params))  # (P, n)
-        # rows p + h e_k then p - h e_k for every k: (2 n P, n), k-major
+        # steps never leave the bounds (a best fit may sit on q = 1 or γ = 0): one-sided
+        # there, and every difference is divided by the step actually taken
+        up = np.minimum(step, self.upper - params)  # (P, n), ≥ 0
+        down = np.minimum(step, params - self.lower)
+        # rows p + up e_k then p - down e_k for every k: (2 n P, n), k-major
         eye = np.eye(n_par)
-        plus = params[None, :, :] + step.T[:, :, None] * eye[:, None, :]
-        minus = params[None, :, :] - step.T[:, :, None] * eye[:, None, :]
+        plus = params[None, :, :] + up.T[:, :, None] * eye[:, None, :]
+        minus = params[None, :, :] - down.T[:, :, None] * eye[:, None, :]
         shifted = np.concatenate([plus, minus]).reshape(-1, n_par)
         lens = self.lens_for(shifted)
         need_derived = self.use_delays or self.use_fluxes
@@ -549,9 +553,10 @@ class ImageLikelihood:
                 a11, a12, a22 = pred["lens"].jacobian(x, y, fam.scale)
             ax = ax.reshape(2, n_par, n_rows, -1)
             ay = ay.reshape(2, n_par, n_rows, -1)
-            h = step.T[:, :, None]  # (n, P, 1)
-            dax = (ax[0] - ax[1]) / (2 * h)  # (n, P, I)
-            day = (ay[0] - ay[1]) / (2 * h)
+            h_up, h_down = up.T[:, :, None], down.T[:, :, None]  # (n, P, 1)
+            span = h_up + h_down
+            dax = (ax[0] - ax[1]) / span  # (n, P, I)
+            day = (ay[0] - ay[1]) / span
             # the source position moves the images one for one
             sl = self.source_slice(k)
             dax[sl.start] += 1.0
@@ -565,8 +570,12 @@ class ImageLikelihood:
                 np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1),
             ]
             if need_derived:
-                moved_x = np.concatenate([x + h * dxdp, x - h * dxdp]).reshape(-1, x.shape[1])
-                moved_y = np.concatenate([y + h * dydp, y - h * dydp]).reshape(-1, x.shape[1])
+                moved_x = np.concatenate([x + h_up * dxdp, x - h_down * dxdp]).reshape(
+                    -1, x.shape[1]
+                )
+                moved_y = np.concatenate([y + h_up * dydp, y - h_down * dydp]).reshape(
+                    -1, x.shape[1]
+                )
                 bx = shifted[:, sl][:, :1]
                 by = shifted[:, sl][:, 1:]
                 with np.errstate(all="ignore"):
@@ -585,7 +594,7 @@ class ImageLikelihood:
         if need_derived:
             derived = np.hstack(self._derived_residuals(shifted, fermat_pm, mu_pm))
             derived = derived.reshape(2, n_par, n_rows, -1)
-            ddiff = (derived[0] - derived[1]) / (2 * step.T[:, :, None])  # (n, P, m')
+            ddiff = (derived[0] - derived[1]) / (up + down).T[:, :, None]  # (n, P, m')
             jac = np.concatenate([jac, np.moveaxis(ddiff, 0, -1)], axis=1)
         return jac
 
