@@ -18,7 +18,7 @@ from astropy import units as u
 from astropy.time import Time
 
 from lensdelay.model.cosmology import cosmology_from_spec
-from lensdelay.errors import InputError
+from lensdelay.errors import FitError, InputError
 from lensdelay.forecast.result import Forecast, ImageForecast, ImageSampleSet
 from lensdelay.forecast.samples import (
     AGREEMENT,
@@ -58,6 +58,9 @@ TENSION_CAUSES = (
 )
 
 
+#: Dates further than this from the detection (days, ~10,000 years) are refused: no lens
+#: gives such delays, and calendars and the time library cannot place them.
+MAX_OFFSET_DAYS = 3.65e6
 #: A sighting's 1-σ date error when none is given and the detection has none either, days.
 DEFAULT_SIGHTING_SIGMA_DAYS = 1.0
 _SIGHTING = re.compile(
@@ -355,7 +358,7 @@ def run_forecast(
     tension_rows = _tensions(
         timings, prior_models, w_prior, np.random.default_rng(next(stage_seeds))
     )
-    images = _summarise(
+    images, missing = _summarise(
         models,
         updates,
         w_model,
@@ -382,7 +385,19 @@ def run_forecast(
             _observability(im, calendar, tr, now)
     stages(None)
     cosmology = scenarios[0].cosmology
-    notes = []
+    notes = [f"the best fit's image {name} exists in no sample; it is left out" for name in missing]
+    far = [
+        im["label"]
+        for im in images
+        if max(abs(im["date_offset_days"]["p2.5"]), abs(im["date_offset_days"]["p97.5"]))
+        > MAX_OFFSET_DAYS
+    ]
+    if far:
+        raise FitError(
+            f"the dates of image(s) {', '.join(far)} lie more than {MAX_OFFSET_DAYS / 365.25:.0f} "
+            f"years "
+            "from the detection; check the redshifts and the mass model"
+        )
     if now < tr.date:
         notes.append(
             f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
@@ -661,7 +676,7 @@ def _summarise(
     for row in tension_rows:
         if row["measurement"].startswith("sighting "):
             tension_by_image[row["measurement"].split("/", 1)[1]] = row
-    images = []
+    images, missing = [], []
     for g in groups:
         cols = {
             k: []
@@ -728,6 +743,11 @@ def _summarise(
         # over all models: a model that lacks this image counts as "no image" with its weight
         exists_share = float(min(total, 1.0))
         valid = np.isfinite(arr["delay"]) & (weights > 0)
+        if not np.any(valid):
+            # no sample of any model has this image (e.g. a source on a caustic at the
+            # best fit only): nothing to forecast, and the notes say so
+            missing.append(f"{g['family']}/{g['label']}")
+            continue
         par, par_share = majority(arr["parity"][valid], weights[valid])
         rk, rk_share = majority(arr["rank"][valid], weights[valid])
         is_ref = g["observed"] and g["label"] == tr.seen_in
@@ -804,7 +824,7 @@ def _summarise(
             )
         images.append(entry)
     images.sort(key=lambda e: (e["date_offset_days"]["median"], e["label"]))
-    return images
+    return images, missing
 
 
 def _observability(im, calendar, tr, now):

@@ -309,6 +309,8 @@ def majority(codes, weights):
     """The most common code and the weighted fraction of samples that agree with it."""
     codes = np.asarray(codes)
     values = np.unique(codes)
+    if not len(values):  # no sample has this image
+        return 0, 0.0
     shares = np.array([weights[codes == v].sum() for v in values])
     k = int(np.argmax(shares))
     return values[k], float(shares[k] / max(shares.sum(), 1e-300))

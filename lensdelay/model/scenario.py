@@ -221,6 +221,10 @@ def parse_date(value, where: str) -> Time:
     return Time(parsed, scale="utc")
 
 
+#: Smallest source-minus-lens redshift accepted (common practice: a source this close
+#: behind the lens is not lensed by it to any measurable degree).
+MIN_REDSHIFT_GAP = 0.01
+
 TOP_KEYS = (
     "name",
     "description",
@@ -283,9 +287,10 @@ def _parse(doc, source, load_model):
             raise InputError(f"family[{i}].label must be unique, got {label!r} twice")
         seen_fam.add(label)
         z_s = ft.number("redshift", hi=20.0)
-        if z_s <= z_l:
+        if z_s < z_l + MIN_REDSHIFT_GAP:
             raise InputError(
-                f"family[{i}].redshift must be greater than lens.redshift {z_l:g}, got {z_s:g}"
+                f"family[{i}].redshift must exceed lens.redshift {z_l:g} by at least "
+                f"{MIN_REDSHIFT_GAP:g} (closer, D_ls -> 0 and delays diverge), got {z_s:g}"
             )
         images, labels = [], set()
         for j, im_raw in enumerate(ft.table_list("image", required=True)):
@@ -311,6 +316,12 @@ def _parse(doc, source, load_model):
                 )
             flux = it.number("flux", default=None, lo=0.0, lo_open=True)
             mag = it.number("magnitude", default=None, lo=-30.0, hi=40.0)
+            for other in images:
+                if math.hypot(x - other.x, y - other.y) < 1e-6:
+                    raise InputError(
+                        f"family[{i}].image[{j}] must not lie where image {other.label!r} lies "
+                        f"(two images of one source are distinct), got ({x:g}, {y:g}) twice"
+                    )
             images.append(ImageObs(lab, x, y, sigma, flux, mag))
         families.append(Family(label, z_s, tuple(images)))
     z_ref = lens_tab.number("reference_source_redshift", default=families[0].redshift, hi=20.0)

@@ -97,11 +97,20 @@ cases = {
     ),
     "source_in_front_of_lens": (
         lambda t: t.replace("redshift = 1.5", "redshift = 0.3"),
-        "family[0].redshift must be greater than lens.redshift 0.4, got 0.3",
+        "family[0].redshift must exceed lens.redshift 0.4 by at least 0.01 (closer, D_ls -> 0 and "
+        "delays diverge), got 0.3",
     ),
     "source_at_lens": (
         lambda t: t.replace("redshift = 1.5", "redshift = 0.4"),
-        "family[0].redshift must be greater than lens.redshift 0.4, got 0.4",
+        "family[0].redshift must exceed lens.redshift 0.4 by at least 0.01",
+    ),
+    "source_just_behind_lens": (
+        lambda t: t.replace("redshift = 1.5", "redshift = 0.4000001"),
+        "family[0].redshift must exceed lens.redshift 0.4 by at least 0.01",
+    ),
+    "images_coincide": (
+        lambda t: t.replace("x = 0.2\ny = 1.0", "x = -0.9\ny = 0.5"),
+        "family[0].image[2] must not lie where image 'B' lies",
     ),
     "no_family": (
         lambda t: t.split("[[family]]")[0] + "[[mass]]" + t.split("[[mass]]", 1)[1],
