@@ -143,7 +143,7 @@ def test_no_import_cycles():
 )
 def test_importing_changes_no_global_state(module):
     """Importing the library leaves astropy's IERS settings, the warning filters and
-    matplotlib's backend alone (a fresh interpreter)."""
+    matplotlib's backend and emcee's logger alone (a fresh interpreter)."""
     import subprocess
     import sys
 
@@ -155,13 +155,13 @@ def test_importing_changes_no_global_state(module):
     )
     code = (
         f"import {deps}\n"
-        "import warnings, matplotlib\n"
+        "import warnings, matplotlib, logging\n"
         "from astropy.utils import iers\n"
         "before = (iers.conf.auto_download, iers.conf.auto_max_age, list(warnings.filters), "
-        "matplotlib.get_backend())\n"
+        "matplotlib.get_backend(), logging.getLogger('emcee').level)\n"
         f"import {module}\n"
         "after = (iers.conf.auto_download, iers.conf.auto_max_age, list(warnings.filters), "
-        "matplotlib.get_backend())\n"
+        "matplotlib.get_backend(), logging.getLogger('emcee').level)\n"
         "assert before == after, (before, after)\n"
     )
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)

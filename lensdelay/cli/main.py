@@ -73,6 +73,15 @@ def _stop_handler(stop: StopRequest):
     return terminate
 
 
+def _configure_libraries() -> None:
+    """Process-wide settings the command line (not the library) makes."""
+    import logging
+
+    # our own warning says a chain is short; emcee's logger would say it again
+    logging.getLogger("emcee").setLevel(logging.ERROR)
+    _configure_astropy()
+
+
 def _configure_astropy() -> None:
     from astropy.utils import iers
     from erfa import ErfaWarning
@@ -97,7 +106,7 @@ def main(argv=None) -> int:
     args.stop = stop
     try:
         with warnings.catch_warnings():
-            _configure_astropy()
+            _configure_libraries()
             warnings.simplefilter("default", LensdelayWarning)
             warnings.showwarning = _show_warning
             _show_warning.shown = set()

@@ -24,11 +24,6 @@ from lensdelay.inference.fit import fit
 from lensdelay.inference.moves import FisherLangevinMove
 from lensdelay.inference.backend import NpzCheckpoint
 
-# our own warning says the chain is short; emcee's logger would say it again
-import logging as _logging
-
-_logging.getLogger("emcee").setLevel(_logging.ERROR)
-
 
 class StopRequest:
     """A request to stop sampling at the next checkpoint, owned by the caller.
