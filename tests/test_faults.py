@@ -185,3 +185,36 @@ def test_out_problems_are_found_before_computing(tmp_path, capsys, case):
     assert main(["forecast", "scenarios/vellmar_quad.toml", "--out", str(out), "--quiet"]) == 2
     err = capsys.readouterr().err
     assert err.startswith("lensdelay: --out must be") and err.count("\n") == 1
+
+
+def test_output_set_is_replaced_as_a_whole(tmp_path):
+    """A rerun with fewer outputs removes the older run's extra files (--no-budget drops the
+    budget figures); a leftover .part file is cleared; another command's files and the
+    sampler checkpoint in the same folder are left alone (issue 12, item 4)."""
+    from lensdelay.cli.main import main
+
+    out = tmp_path / "out"
+    common = [
+        "--out",
+        str(out),
+        "--samples",
+        "500",
+        "--steps",
+        "100",
+        "--walkers",
+        "16",
+        "--quiet",
+        "--now",
+        "2026-12-01",
+    ]
+    assert main(["forecast", "scenarios/ostrin_double.toml", *common]) == 0
+    assert (out / "budget.png").exists()
+    (out / ".forecast.json.abc.part").write_text("leftover")
+    (out / "fit.json").write_text("{}")  # another command's output
+    (out / "chain.npz").write_bytes(b"x")  # a checkpoint
+    assert main(["forecast", "scenarios/ostrin_double.toml", *common, "--no-budget"]) == 0
+    assert not (out / "budget.png").exists() and not (out / "budget.pdf").exists()
+    assert not (out / ".forecast.json.abc.part").exists()
+    assert (out / "fit.json").exists() and (out / "chain.npz").exists()
+    assert not list(out.glob(".lensdelay-staging-*"))
+    assert (out / "forecast.json").exists() and (out / "timeline.png").exists()

@@ -17,6 +17,7 @@ from lensdelay.cli import check, fit, forecast, hubble, images
 from lensdelay.cli.options import with_flags
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
 from lensdelay.inference.sampling import StopRequest
+from lensdelay.io.storage import PartialOutputError
 from lensdelay.version import __version__
 
 SUBCOMMANDS = (images, check, fit, forecast, hubble)
@@ -118,6 +119,14 @@ def main(argv=None) -> int:
     except LensdelayError as err:
         print(f"lensdelay: {err}", file=sys.stderr)
         return 2
+    except PartialOutputError as err:
+        print(
+            f"lensdelay: interrupted while replacing the outputs in {err.folder}: "
+            f"{len(err.replaced)} of {err.total} files are new ({', '.join(err.replaced)}); "
+            "the others are from the previous run",
+            file=sys.stderr,
+        )
+        return 130
     except KeyboardInterrupt:
         print(
             "lensdelay: interrupted; no output was written (a sampler checkpoint, if any, "

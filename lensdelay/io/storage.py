@@ -5,6 +5,7 @@ from __future__ import annotations
 from lensdelay.atomic import atomic_save_npz, atomic_write_bytes, load_npz  # noqa: F401  (re-exported)
 
 import json
+import os
 from pathlib import Path
 
 import numpy as np
@@ -53,19 +54,40 @@ def atomic_savefig(fig, stem) -> list[str]:
     return out
 
 
+#: Lists the files of a command's last complete output set in a folder (one manifest per
+#: command, named after its JSON), so a later run can remove what it no longer writes.
+MANIFEST = ".lensdelay-outputs-{stem}.json"
+
+
+class PartialOutputError(KeyboardInterrupt):
+    """Interrupted while new outputs replaced old ones: says which are new."""
+
+    def __init__(self, folder, replaced, total):
+        super().__init__(f"{folder}: {len(replaced)} of {total} files were replaced")
+        self.folder, self.replaced, self.total = folder, list(replaced), total
+
+
 def write_output_set(
     out, *, json_name: str, doc: dict, texts=None, figures=None, arrays=None, inputs=()
 ) -> list[str]:
-    """Write one command's outputs into folder ``out``: texts, arrays, figures, JSON last.
+    """Write one command's outputs into folder ``out`` as one set.
 
-    Every file goes through a temporary file and a rename. Refuses (before writing
-    anything) to overwrite any of ``inputs``.
+    Every file is first written in full into a staging folder inside ``out``; only then
+    are they moved into place (renames, the JSON last), files of the previous set that
+    this run does not write are removed, and the manifest is updated. Leftovers of an
+    interrupted run (staging folders, ``.part`` files) are cleared first. Refuses (before
+    writing anything) to overwrite any of ``inputs``. An interruption while moving
+    raises :class:`PartialOutputError` naming what was replaced.
     """
+    import shutil
+    import tempfile
+
     from lensdelay.errors import InputError
 
     out = Path(out)
-    names = [json_name, *(texts or {}), *(arrays or {})]
+    names = [*(texts or {}), *(arrays or {})]
     names += [f"{stem}.{ext}" for stem in (figures or {}) for ext in ("png", "pdf")]
+    names.append(json_name)
     protected = {Path(p).resolve() for p in inputs}
     for n in names:
         if (out / n).resolve() in protected:
@@ -73,11 +95,44 @@ def write_output_set(
                 f"out {out} would overwrite the input {out / n}; choose another folder"
             )
     out.mkdir(parents=True, exist_ok=True)
-    for name, text in (texts or {}).items():
-        atomic_write_text(out / name, text)
-    for name, arrs in (arrays or {}).items():
-        atomic_save_npz(out / name, **arrs)
-    for stem, fig in (figures or {}).items():
-        atomic_savefig(fig, out / stem)
-    atomic_write_json(out / json_name, doc)
+    for stale in list(out.glob(".lensdelay-staging-*")) + list(out.glob(".*.part")):
+        shutil.rmtree(stale, ignore_errors=True) if stale.is_dir() else stale.unlink(
+            missing_ok=True
+        )
+    staging = Path(tempfile.mkdtemp(prefix=".lensdelay-staging-", dir=out))
+    try:
+        for name, text in (texts or {}).items():
+            atomic_write_text(staging / name, text)
+        for name, arrs in (arrays or {}).items():
+            atomic_save_npz(staging / name, **arrs)
+        for stem, fig in (figures or {}).items():
+            atomic_savefig(fig, staging / stem)
+        atomic_write_json(staging / json_name, doc)
+        manifest = out / MANIFEST.format(stem=Path(json_name).stem)
+        previous = _read_manifest(manifest)
+        replaced = []
+        try:
+            for name in names:
+                os.replace(staging / name, out / name)
+                replaced.append(name)
+        except BaseException as err:
+            if isinstance(err, (KeyboardInterrupt, OSError)) and replaced:
+                raise PartialOutputError(out, replaced, len(names)) from err
+            raise
+        for name in previous - set(names):
+            if (out / name).resolve() not in protected:
+                (out / name).unlink(missing_ok=True)
+        atomic_write_json(manifest, {"files": names})
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
     return names
+
+
+def _read_manifest(manifest: Path) -> set[str]:
+    """File names of the previous output set (empty if none is recorded)."""
+    try:
+        files = json.loads(manifest.read_text()).get("files", [])
+    except (OSError, ValueError, AttributeError):
+        return set()
+    # only plain names inside the folder: a manifest never reaches elsewhere
+    return {f for f in files if isinstance(f, str) and "/" not in f and f not in ("", ".", "..")}
