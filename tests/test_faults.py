@@ -218,3 +218,40 @@ def test_output_set_is_replaced_as_a_whole(tmp_path):
     assert (out / "fit.json").exists() and (out / "chain.npz").exists()
     assert not list(out.glob(".lensdelay-staging-*"))
     assert (out / "forecast.json").exists() and (out / "timeline.png").exists()
+
+
+def test_full_disk_is_one_line_and_leaves_the_previous_outputs(tmp_path, capsys, monkeypatch):
+    """ENOSPC while writing: one line naming the folder, exit 2, the earlier set intact."""
+    import errno
+
+    import lensdelay.io.storage as storage
+    from lensdelay.cli.main import main
+
+    out = tmp_path / "out"
+    common = [
+        "--out",
+        str(out),
+        "--samples",
+        "500",
+        "--steps",
+        "100",
+        "--walkers",
+        "16",
+        "--quiet",
+        "--now",
+        "2026-12-01",
+    ]
+    assert main(["forecast", "scenarios/ostrin_double.toml", *common]) == 0
+    before = {p.name: p.read_bytes() for p in out.iterdir() if p.is_file()}
+    capsys.readouterr()
+
+    def full_disk(path, data):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(storage, "atomic_write_bytes", full_disk)
+    assert main(["forecast", "scenarios/ostrin_double.toml", *common, "--seed", "2"]) == 2
+    err = capsys.readouterr().err
+    assert "No space left on device" in err and err.count("\n") == 1
+    after = {p.name: p.read_bytes() for p in out.iterdir() if p.is_file()}
+    assert after == before
+    assert not list(out.glob(".lensdelay-staging-*"))

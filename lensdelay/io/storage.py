@@ -82,7 +82,7 @@ def write_output_set(
     import shutil
     import tempfile
 
-    from lensdelay.errors import InputError
+    from lensdelay.errors import InputError, LensdelayError
 
     out = Path(out)
     names = [*(texts or {}), *(arrays or {})]
@@ -101,13 +101,20 @@ def write_output_set(
         )
     staging = Path(tempfile.mkdtemp(prefix=".lensdelay-staging-", dir=out))
     try:
-        for name, text in (texts or {}).items():
-            atomic_write_text(staging / name, text)
-        for name, arrs in (arrays or {}).items():
-            atomic_save_npz(staging / name, **arrs)
-        for stem, fig in (figures or {}).items():
-            atomic_savefig(fig, staging / stem)
-        atomic_write_json(staging / json_name, doc)
+        try:
+            for name, text in (texts or {}).items():
+                atomic_write_text(staging / name, text)
+            for name, arrs in (arrays or {}).items():
+                atomic_save_npz(staging / name, **arrs)
+            for stem, fig in (figures or {}).items():
+                atomic_savefig(fig, staging / stem)
+            atomic_write_json(staging / json_name, doc)
+        except OSError as err:
+            # a full disk or a vanished folder: the previous outputs are untouched
+            raise LensdelayError(
+                f"out {out} could not be written ({err.strerror or err}); "
+                "the previous outputs there are unchanged"
+            ) from err
         manifest = out / MANIFEST.format(stem=Path(json_name).stem)
         previous = _read_manifest(manifest)
         replaced = []
