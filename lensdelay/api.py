@@ -118,6 +118,9 @@ def images_of_source(
         raise err.with_source(model_path) from err
     lens = model.lens()
     table = find_images(lens, [beta_x], [beta_y], scale)
+    ring = einstein_ring(lens, table, beta_x, beta_y, scale)
+    if ring is not None:
+        table = table.select(np.abs(table.magnification) < RING_MAGNIFICATION)
     t = fermat_difference_to_days(table.fermat, days)
     first = t.min() if len(t) else 0.0
     labels = [chr(ord("A") + i) if i < 26 else f"I{i + 1}" for i in range(len(table))]
@@ -147,7 +150,34 @@ def images_of_source(
         "time_delay_distance_Mpc": float(distances.time_delay_distance(z_s).value),
         "delay_reference": "first arrival",
         "images": images,
+        "einstein_ring": ring,
     }
+
+
+#: |μ| above which a root sits on a caustic (a point source's magnification diverges there).
+RING_MAGNIFICATION = 1e6
+
+
+def einstein_ring(lens, table, beta_x, beta_y, scale) -> dict | None:
+    """The Einstein ring a source on a point caustic makes, or None.
+
+    A root with |μ| above :data:`RING_MAGNIFICATION` is tested: if every point of the
+    circle through it, about the nearest lens centre, maps back onto the source (to
+    1e-6 arcsec), the image is that whole circle -- a ring of radius r -- not a list of
+    points.
+    """
+    on_caustic = np.abs(table.magnification) >= RING_MAGNIFICATION
+    if not np.any(on_caustic):
+        return None
+    x0, y0 = table.x[on_caustic][0], table.y[on_caustic][0]
+    centres = list(lens.centres()) or [(0.0, 0.0)]
+    cx, cy = min(centres, key=lambda c: np.hypot(x0 - c[0], y0 - c[1]))
+    radius = float(np.hypot(x0 - cx, y0 - cy))
+    phi = np.linspace(0.0, 2 * np.pi, 181)
+    bx, by = lens.source_position(cx + radius * np.sin(phi), cy + radius * np.cos(phi), scale)
+    if np.max(np.hypot(np.asarray(bx) - beta_x, np.asarray(by) - beta_y)) > 1e-6:
+        return None
+    return {"radius_arcsec": radius, "x": float(cx), "y": float(cy)}
 
 
 def check_scenario(scenario, model=None) -> dict:

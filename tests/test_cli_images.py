@@ -122,3 +122,29 @@ def test_bad_argument_is_one_line(capsys):
         main(["images", "m.toml", "--source", "nan", "0"])
     assert ex.value.code == 2
     assert capsys.readouterr().err.count("\n") == 1
+
+
+@pytest.mark.parametrize("profile", ["SIS", "point"])
+def test_source_on_the_axis_of_a_round_lens_is_an_einstein_ring(tmp_path, capsys, profile):
+    """β = 0 behind a round lens: the image is the circle of radius θE (SEF92 Sect. 8.1.4 for
+    the SIS and the point mass), reported as a ring, not as thousands of points."""
+    path = tmp_path / "m.toml"
+    path.write_text(GOOD.replace('"SIS"', f'"{profile}"'))
+    code, out, err = run(capsys, "images", str(path), "--source", "0", "0", "--json")
+    assert code == 0, err
+    res = json.loads(out)
+    assert res["einstein_ring"]["radius_arcsec"] == pytest.approx(1.0, abs=1e-6)
+    assert all(abs(im["magnification"]) < 1e6 for im in res["images"])
+
+
+def test_a_far_source_still_has_its_image(tmp_path, capsys):
+    """Every source has at least one image (SEF92 Sect. 5.4): 1200 arcsec from an SIS it lies
+    at β + θE with μ = 1 + θE/β."""
+    path = tmp_path / "m.toml"
+    path.write_text(GOOD)
+    code, out, err = run(capsys, "images", str(path), "--source", "1200", "0", "--json")
+    assert code == 0, err
+    res = json.loads(out)
+    assert len(res["images"]) == 1
+    assert res["images"][0]["x"] == pytest.approx(1201.0, abs=1e-6)
+    assert res["images"][0]["magnification"] == pytest.approx(1 + 1 / 1200, rel=1e-6)

@@ -168,7 +168,9 @@ class ImageFinder:
     def _search_radius(self) -> float:
         """Half-width of the square outside which no image of |β| ≤ source_radius lies."""
         angles = np.linspace(0.0, 2 * np.pi, 73)[:-1]
-        radii = np.geomspace(1e-3, 1e3, 600)
+        # far enough out for any source: with a bounded deflection an image lies within a
+        # few |β| of the centre (every source has at least one image)
+        radii = np.geomspace(1e-3, max(1e3, 3.0 * self.source_radius + 10.0), 600)
         xx = np.outer(radii, np.sin(angles))
         yy = np.outer(radii, np.cos(angles))
         with np.errstate(all="ignore"):
@@ -178,7 +180,11 @@ class ImageFinder:
         # step is part of the tolerance.
         step = np.gradient(radii)[:, None]
         inside = np.hypot(bx, by) <= 1.05 * self.source_radius + 1e-3 + 2.0 * step
-        reach = radii[np.any(inside, axis=1)].max() if np.any(inside) else 1.0
+        reach = (
+            radii[np.any(inside, axis=1)].max()
+            if np.any(inside)
+            else 2.0 * self.source_radius + 10.0
+        )
         centres = self.lens.centres()
         offset = max((np.hypot(*c) for c in centres), default=0.0)
         return float(1.2 * max(reach, offset + 0.5, 0.5))

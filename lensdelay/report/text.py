@@ -32,7 +32,14 @@ def images_text(result: dict) -> str:
             f"{im['label']:>5} {im['x']:+11.5f} {im['y']:+11.5f} {im['magnification']:+9.3f} "
             f"{im['parity']:>8} {im['delay_days']:10.3f}"
         )
-    if not result["images"]:
+    ring = result.get("einstein_ring")
+    if ring:
+        lines.append(
+            f"  Einstein ring of radius {ring['radius_arcsec']:.5f} arcsec about "
+            f"({ring['x']:+.4f}, {ring['y']:+.4f}): the source lies on a point caustic, so its "
+            "image is the whole circle (infinite magnification for a point source)"
+        )
+    if not result["images"] and not ring:
         lines.append("  (no images)")
     lines += [
         "",
