@@ -315,3 +315,29 @@ def test_jacobian_at_the_bounds_stays_inside_them():
     assert np.all(np.isfinite(jac))
     logp, _, _ = like.evaluate(values[None, :])
     assert np.isfinite(logp[0])
+
+
+class Spike(Banana):
+    """A target that is finite at one point only: no walker can ever move."""
+
+    def evaluate(self, rows):
+        rows = np.atleast_2d(rows)
+        at = np.all(np.abs(rows) < 1e-12, axis=1)
+        n = len(rows)
+        return np.where(at, 0.0, -np.inf), np.zeros((n, 2)), np.zeros((n, 2, 2))
+
+
+def test_walkers_that_never_move_are_reported_not_a_crash():
+    """No autocorrelation time exists for a flat chain: the sampler says so (issue 12,
+    the fold_on case ended in a traceback)."""
+    with pytest.warns(LensdelayWarning, match="walkers did not move"):
+        ch = sample(
+            Spike(),
+            np.array([0.0, 0.0]),
+            walkers=8,
+            steps=60,
+            move="stretch",
+            scales=np.array([1.0, 1.0]),
+        )
+    assert any("did not move" in n for n in ch.warnings)
+    assert ch.burn >= 1 and ch.thin >= 1

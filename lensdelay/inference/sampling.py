@@ -215,7 +215,8 @@ def sample(
     stop.active, stop.requested = True, False
     while done < steps:
         n = min(checkpoint_every, steps - done)
-        state = sampler.run_mcmc(state, n, progress=False)
+        # starts that were all moved onto the best fit are identical: allowed, they spread
+        state = sampler.run_mcmc(state, n, progress=False, skip_initial_state_check=True)
         done += n
         backend.write(like.names)
         show(done)
@@ -226,21 +227,36 @@ def sample(
     stop.active = False
     # τ in the sampling coordinates (no angle wraps there), from the second half so the
     # walkers' initial spread does not inflate it
-    tau = emcee.autocorr.integrated_time(chain[len(chain) // 2 :], quiet=True)
+    with np.errstate(
+        invalid="ignore", divide="ignore"
+    ):  # a flat chain has no τ: NaN, handled below
+        tau = emcee.autocorr.integrated_time(chain[len(chain) // 2 :], quiet=True)
     chain = coords.to_model(chain.reshape(-1, ndim)).reshape(chain.shape)
     # wrap periodic parameters (position angles) around the best fit: no wrap straddling
     for i, period in enumerate(like.periods):
         if period:
             chain[..., i] = start[i] + (chain[..., i] - start[i] + period / 2) % period - period / 2
     notes = []
-    if steps < 50 * np.nanmax(tau):
+    finite = np.isfinite(tau)
+    if not np.any(finite):
+        # every parameter's chain is flat (the walkers never moved, e.g. a source exactly
+        # on a caustic): no autocorrelation time, and the spread means nothing
+        tau_max = steps / 10.0
         notes.append(
-            f"chain of {steps} steps is shorter than 50 autocorrelation times "
-            f"(max tau = {np.nanmax(tau):.0f} steps); run longer before trusting the tails"
+            "the sampler's walkers did not move, so no autocorrelation time could be estimated "
+            "and the posterior spread is not trustworthy; check the images against caustics"
         )
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
-    burn = int(min(steps // 2, max(2 * np.nanmax(tau), steps // 5)))
-    thin = max(1, int(np.nanmax(tau) // 4))
+    else:
+        tau_max = float(np.max(tau[finite]))
+    if steps < 50 * tau_max and np.any(finite):
+        notes.append(
+            f"chain of {steps} steps is shorter than 50 autocorrelation times "
+            f"(max tau = {tau_max:.0f} steps); run longer before trusting the tails"
+        )
+        warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
+    burn = int(min(steps // 2, max(2 * tau_max, steps // 5)))
+    thin = max(1, int(tau_max // 4))
     return Chain(
         list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move
     )
