@@ -29,3 +29,25 @@ def numerical_jacobian(residuals, values, relative_step=1e-4):
 def brute_jacobian():
     """:func:`numerical_jacobian`, for tests that check an analytic Jacobian."""
     return numerical_jacobian
+
+
+@pytest.fixture
+def quick_forecast_args():
+    """``--out OUT`` plus a small, fast, reproducible forecast set-up (as of 2026-12-01)."""
+
+    def args(out):
+        return [
+            "--out",
+            str(out),
+            "--samples",
+            "500",
+            "--steps",
+            "100",
+            "--walkers",
+            "16",
+            "--quiet",
+            "--now",
+            "2026-12-01",
+        ]
+
+    return args

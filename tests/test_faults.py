@@ -13,7 +13,8 @@ from lensdelay.lensing.images import find_images
 from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles import IsothermalEllipsoid, NFWHalo
 from lensdelay.lensing.critical import critical_lines
-from lensdelay.io.storage import atomic_write_json, load_npz
+from lensdelay.atomic import load_npz
+from lensdelay.io.storage import atomic_write_json
 
 pytestmark = pytest.mark.integration
 
@@ -123,7 +124,9 @@ def test_degenerate_sources_give_finite_images(lens):
     assert not np.any(np.isnan(t.magnification))
 
 
-def test_outputs_keep_the_users_umask_and_identical_runs_give_identical_files(tmp_path):
+def test_outputs_keep_the_users_umask_and_identical_runs_give_identical_files(
+    tmp_path, quick_forecast_args
+):
     """Files are created as 0666 minus the umask (POSIX open(2)), not 0600, and two runs
     with the same inputs, seed and --now write byte-identical files, PDF and .ics included."""
     import os
@@ -135,24 +138,7 @@ def test_outputs_keep_the_users_umask_and_identical_runs_give_identical_files(tm
         outs = [tmp_path / "a", tmp_path / "b"]
         for out in outs:
             assert (
-                main(
-                    [
-                        "forecast",
-                        "scenarios/ostrin_double.toml",
-                        "--out",
-                        str(out),
-                        "--samples",
-                        "500",
-                        "--steps",
-                        "100",
-                        "--walkers",
-                        "16",
-                        "--quiet",
-                        "--now",
-                        "2026-12-01",
-                    ]
-                )
-                == 0
+                main(["forecast", "scenarios/ostrin_double.toml", *quick_forecast_args(out)]) == 0
             )
     finally:
         os.umask(old)
@@ -187,26 +173,14 @@ def test_out_problems_are_found_before_computing(tmp_path, capsys, case):
     assert err.startswith("lensdelay: --out must be") and err.count("\n") == 1
 
 
-def test_output_set_is_replaced_as_a_whole(tmp_path):
+def test_output_set_is_replaced_as_a_whole(tmp_path, quick_forecast_args):
     """A rerun with fewer outputs removes the older run's extra files (--no-budget drops the
     budget figures); a leftover .part file is cleared; another command's files and the
     sampler checkpoint in the same folder are left alone (issue 12, item 4)."""
     from lensdelay.cli.main import main
 
     out = tmp_path / "out"
-    common = [
-        "--out",
-        str(out),
-        "--samples",
-        "500",
-        "--steps",
-        "100",
-        "--walkers",
-        "16",
-        "--quiet",
-        "--now",
-        "2026-12-01",
-    ]
+    common = quick_forecast_args(out)
     assert main(["forecast", "scenarios/ostrin_double.toml", *common]) == 0
     assert (out / "budget.png").exists()
     (out / ".forecast.json.abc.part").write_text("leftover")
@@ -220,7 +194,9 @@ def test_output_set_is_replaced_as_a_whole(tmp_path):
     assert (out / "forecast.json").exists() and (out / "timeline.png").exists()
 
 
-def test_full_disk_is_one_line_and_leaves_the_previous_outputs(tmp_path, capsys, monkeypatch):
+def test_full_disk_is_one_line_and_leaves_the_previous_outputs(
+    tmp_path, capsys, monkeypatch, quick_forecast_args
+):
     """ENOSPC while writing: one line naming the folder, exit 2, the earlier set intact."""
     import errno
 
@@ -228,19 +204,7 @@ def test_full_disk_is_one_line_and_leaves_the_previous_outputs(tmp_path, capsys,
     from lensdelay.cli.main import main
 
     out = tmp_path / "out"
-    common = [
-        "--out",
-        str(out),
-        "--samples",
-        "500",
-        "--steps",
-        "100",
-        "--walkers",
-        "16",
-        "--quiet",
-        "--now",
-        "2026-12-01",
-    ]
+    common = quick_forecast_args(out)
     assert main(["forecast", "scenarios/ostrin_double.toml", *common]) == 0
     before = {p.name: p.read_bytes() for p in out.iterdir() if p.is_file()}
     capsys.readouterr()

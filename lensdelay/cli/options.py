@@ -109,14 +109,6 @@ def add_prior_argument(parser) -> None:
     )
 
 
-def add_sampler_arguments(parser, seed_help: str = "seed of every random draw (default 1)") -> None:
-    """``--walkers``, ``--steps``, ``--seed`` and ``--quiet``."""
-    parser.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
-    parser.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")
-    parser.add_argument("--seed", type=int, default=1, help=seed_help)
-    parser.add_argument("--quiet", action="store_true", help="no progress display")
-
-
 def site_from_args(args) -> Site | None:
     """``--site LAT LON HEIGHT`` or ``--elongation MIN MAX`` as a Site (None if neither)."""
     if args.site is not None and args.elongation is not None:

@@ -26,9 +26,7 @@ from lensdelay.lensing.images import find_images, keep_distinct_tracks, newton_p
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.priors import draw_kappa
-from lensdelay.inference.summaries import (
-    effective_sample_size,
-)  # noqa: F401
+from lensdelay.inference.summaries import effective_sample_size
 from lensdelay.inference.timing import TimingData
 
 #: Default H0 prior, km/s/Mpc: wide enough to span both the early-universe (~67) and

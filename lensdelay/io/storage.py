@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from lensdelay.atomic import atomic_save_npz, atomic_write_bytes, load_npz  # noqa: F401  (re-exported)
+from lensdelay.atomic import atomic_save_npz, atomic_write_bytes
 
 import json
 import os
