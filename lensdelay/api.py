@@ -119,17 +119,23 @@ def images_of_source(
     lens = model.lens()
     table = find_images(lens, [beta_x], [beta_y], scale)
     ring = einstein_ring(lens, table, beta_x, beta_y, scale)
+    # the first arrival is over every image, the ring included
+    first = fermat_difference_to_days(table.fermat, days).min() if len(table) else 0.0
     if ring is not None:
-        table = table.select(np.abs(table.magnification) < RING_MAGNIFICATION)
+        on_ring = np.abs(table.magnification) >= RING_MAGNIFICATION
+        ring["delay_days"] = float(
+            fermat_difference_to_days(table.fermat[on_ring][0], days) - first
+        )
+        table = table.select(~on_ring)
     t = fermat_difference_to_days(table.fermat, days)
-    first = t.min() if len(t) else 0.0
     labels = [chr(ord("A") + i) if i < 26 else f"I{i + 1}" for i in range(len(table))]
     images = [
         {
             "label": lab,
             "x": float(x),
             "y": float(y),
-            "magnification": float(mu),
+            # null where images merge on a critical curve (infinite for a point source)
+            "magnification": float(mu) if np.isfinite(mu) else None,
             "parity": PARITIES[int(p)],
             "delay_days": float(dt - first),
         }

@@ -135,6 +135,7 @@ def test_source_on_the_axis_of_a_round_lens_is_an_einstein_ring(tmp_path, capsys
     res = json.loads(out)
     assert res["einstein_ring"]["radius_arcsec"] == pytest.approx(1.0, abs=1e-6)
     assert all(abs(im["magnification"]) < 1e6 for im in res["images"])
+    assert res["einstein_ring"]["delay_days"] == pytest.approx(0.0, abs=1e-6)
 
 
 def test_a_far_source_still_has_its_image(tmp_path, capsys):
@@ -148,3 +149,26 @@ def test_a_far_source_still_has_its_image(tmp_path, capsys):
     assert len(res["images"]) == 1
     assert res["images"][0]["x"] == pytest.approx(1201.0, abs=1e-6)
     assert res["images"][0]["magnification"] == pytest.approx(1 + 1 / 1200, rel=1e-6)
+
+
+def test_a_source_on_a_cusp_prints_one_critical_image(tmp_path, capsys):
+    """A source on the SIE's major-axis cusp (located by brentq on det A along the axis):
+    the merged image is listed once as 'critical' with null magnification in the JSON (valid
+    JSON, no Infinity) and 'infinite' in the table, plus the counter-image (SEF92 Sect. 6.3)."""
+    from scipy.optimize import brentq
+
+    from lensdelay.api import load_model
+
+    path = tmp_path / "m.toml"
+    path.write_text(GOOD.replace('"SIS"', '"SIE"') + "axis_ratio = 0.7\nposition_angle = 0.0\n")
+    lens = load_model(path).lens()
+    y_crit = brentq(lambda y: float(lens.jacobian_determinant(0.0, y)), 0.3, 1.5, xtol=1e-15)
+    beta = float(lens.source_position(0.0, y_crit)[1])
+    code, out, err = run(capsys, "images", str(path), "--source", "0", repr(beta), "--json")
+    assert code == 0, err
+    res = json.loads(out)
+    parities = sorted(im["parity"] for im in res["images"])
+    assert parities == ["critical", "saddle"]
+    assert [im["magnification"] for im in res["images"] if im["parity"] == "critical"] == [None]
+    code, out, err = run(capsys, "images", str(path), "--source", "0", repr(beta))
+    assert code == 0 and "infinite" in out and "merge" in out

@@ -229,3 +229,52 @@ def test_find_images_converts_angles_and_refuses_other_units():
     assert np.max(np.hypot(with_units.x, with_units.y)) < 1.1  # not 51 arcsec away
     with pytest.raises(InputError, match="beta_x must be an angle"):
         find_images(sis, 3 * u.km, 0.0)
+
+
+def _sie_major_axis_cusp(lens):
+    """Source position of the cusp on the +y (major) axis of an SIE with PA = 0, and the
+    critical point mapped onto it (brentq on det A along the axis)."""
+    from scipy.optimize import brentq
+
+    y_crit = brentq(
+        lambda y: float(lens.jacobian_determinant(np.array(0.0), np.array(y))),
+        0.3,
+        1.5,
+        xtol=1e-15,
+    )
+    return float(lens.source_position(np.array(0.0), np.array(y_crit))[1]), y_crit
+
+
+@pytest.mark.parametrize("where", ["fold", "cusp"])
+def test_source_on_a_caustic_gives_one_critical_image_not_copies(where):
+    """At a fold two images of opposite parity merge, at a cusp three (SEF92 Sect. 6.2-6.3):
+    the finder lists the merged image once, as 'critical' with infinite magnification, and
+    never lists two roots closer than 0.1 mas with contradictory parities."""
+    lens = Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.7, position_angle=0.0),))
+    if where == "cusp":
+        beta_y, y_crit = _sie_major_axis_cusp(lens)
+        bx, by = 0.0, beta_y
+    else:
+        tangential = max(critical_lines(lens, extent=2.0), key=lambda c: np.ptp(c.x))
+        k = len(tangential.x) // 7  # away from the four cusps
+        bx, by = tangential.caustic_x[k], tangential.caustic_y[k]
+    t = find_images(lens, [bx], [by])
+    sep = np.hypot(t.x[:, None] - t.x[None, :], t.y[:, None] - t.y[None, :])
+    assert np.all(sep[np.triu_indices(len(t), 1)] > 1e-4)
+    critical = t.select(t.parity == 3)
+    assert len(critical) == 1 and np.isinf(critical.magnification[0])
+    # the image count drops by two at a fold (2 merge into 1 of 4) and a cusp (3 into 1 of 4)
+    assert len(t) == (3 if where == "fold" else 2)
+    if where == "cusp":
+        np.testing.assert_allclose([critical.x[0], critical.y[0]], [0.0, y_crit], atol=1e-4)
+
+
+def test_central_image_at_the_exact_centre_of_a_cuspy_profile_is_a_faint_maximum():
+    """Power law γ = 1.2 (κ ∝ r^-0.2 diverges, α → 0): a source on the axis has an image at
+    the exact centre, a Fermat maximum with |μ| → 0 (Evans & Hunter 2002) -- not the
+    μ = +1 'minimum' of an empty Hessian."""
+    lens = Lens((EllipticalPowerLaw(einstein_radius=1.0, slope=1.2, axis_ratio=0.7),))
+    t = find_images(lens, [0.0], [0.0])
+    centre = t.select(np.hypot(t.x, t.y) < 1e-9)
+    assert len(centre) == 1
+    assert centre.parity[0] == 2 and 0 < centre.magnification[0] < 1e-3

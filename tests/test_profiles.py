@@ -284,3 +284,13 @@ def test_blockwise_evaluation_matches_whole_arrays(rng):
         for bb, ww in zip(b if isinstance(b, tuple) else (b,), w if isinstance(w, tuple) else (w,)):
             assert bb.shape == ww.shape == x.shape
             np.testing.assert_allclose(bb, ww, rtol=1e-13, atol=1e-15)
+
+
+@pytest.mark.parametrize("name", CASES)
+def test_hessian_at_the_exact_centre_keeps_poisson(name):
+    """At r = 0 the Hessian is its direction average (κ, 0, κ), so ∇²ψ = 2κ (SEF92 eq. 5.10)
+    holds at the centre too; an empty Hessian there would give μ = 1."""
+    prof = CASES[name]
+    hxx, hxy, hyy = prof.hessian(np.array([prof.x]), np.array([prof.y]))
+    kappa = prof.convergence(np.array([prof.x]), np.array([prof.y]))
+    np.testing.assert_allclose(hxx + hyy, 2 * kappa, rtol=1e-12)

@@ -33,6 +33,13 @@ SINGULAR_EXCLUSION = 1e-6
 NONLINEAR = 0.05
 #: Roots closer than this (arcsec) are the same image.
 MERGE_TOLERANCE = 1e-7
+#: Roots of one source closer than this (arcsec) cannot be told apart. Near a critical
+#: curve the map is flat in one direction, so a root accepted at SOURCE_TOLERANCE is
+#: only pinned to about sqrt(SOURCE_TOLERANCE) ~ 1e-5 arcsec along it; 1e-4 arcsec
+#: (0.1 milliarcsec) is far below any telescope's resolution.
+UNRESOLVED = 1e-4
+#: Parity code of an image on a critical curve (merging images of both parities).
+CRITICAL = 3
 
 
 @dataclass(frozen=True)
@@ -48,7 +55,9 @@ class ImageTable:
     magnification : ndarray
         Signed magnification 1/det A.
     parity : ndarray of int
-        0 minimum, 1 saddle, 2 maximum (names in :data:`lensdelay.lensing.lens.PARITIES`).
+        0 minimum, 1 saddle, 2 maximum, 3 critical: images of both parities merging on a
+        critical curve, closer than :data:`UNRESOLVED` (their magnification is infinite
+        for a point source). Names in :data:`lensdelay.lensing.lens.PARITIES`.
     fermat : ndarray
         Fermat potential τ, arcsec²; arrival time = τ · D_dt / c.
     source_error : ndarray
@@ -318,6 +327,7 @@ class ImageFinder:
             mu = self.lens.magnification(x, y, self.scale)
         par = self.lens.parity_code(x, y, self.scale)
         tau = self.lens.fermat_potential(x, y, bx, by, self.scale)
+        src, x, y, mu, par, tau, err = _merge_unresolved(src, x, y, mu, par, tau, err)
         order = np.lexsort((tau, src))
         return ImageTable(
             src[order], x[order], y[order], mu[order], par[order], tau[order], err[order]
@@ -346,6 +356,57 @@ def _merge_duplicates(src, x, y, err):
         )
         src, x, y, err = src[~same], x[~same], y[~same], err[~same]
     return src, x, y, err
+
+
+def _unresolved_groups(x, y) -> list[list[int]]:
+    """Groups (single linkage) of the points closer than UNRESOLVED to one another."""
+    parent = list(range(len(x)))
+
+    def root(i):
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    for i in range(len(x)):
+        close = np.hypot(x[i + 1 :] - x[i], y[i + 1 :] - y[i]) < UNRESOLVED
+        for j in np.flatnonzero(close) + i + 1:
+            parent[root(int(j))] = root(i)
+    groups: dict[int, list[int]] = {}
+    for i in range(len(x)):
+        groups.setdefault(root(i), []).append(i)
+    return [g for g in groups.values() if len(g) > 1]
+
+
+def _merge_unresolved(src, x, y, mu, par, tau, err):
+    """One row for each cluster of roots of a source closer than :data:`UNRESOLVED`.
+
+    Roots of one parity are the same image found twice (Newton stops anywhere in the
+    flat direction near a critical curve): the one that maps back best is kept. Roots of
+    both parities are images merging on a critical curve (a source on a fold or cusp):
+    they are one image there, of parity :data:`CRITICAL` and infinite magnification,
+    not several points with contradictory parities.
+    """
+    # cheap screen: only sources with two roots close in x need a closer look
+    order = np.lexsort((x, src))
+    near = (np.diff(src[order]) == 0) & (np.diff(x[order]) < UNRESOLVED)
+    suspects = np.unique(src[order][1:][near])
+    if len(suspects) == 0:
+        return src, x, y, mu, par, tau, err
+    keep = np.ones(len(src), dtype=bool)
+    x, y, mu, par, tau, err = (np.array(a) for a in (x, y, mu, par, tau, err))
+    for s in suspects:
+        rows = np.flatnonzero(src == s)
+        for group in _unresolved_groups(x[rows], y[rows]):
+            members = rows[group]
+            best = members[np.argmin(err[members])]
+            keep[members] = False
+            keep[best] = True
+            if len(np.unique(par[members] == 1)) > 1:  # both signs of det A
+                x[best], y[best] = x[members].mean(), y[members].mean()
+                mu[best], par[best] = np.inf, CRITICAL
+                tau[best], err[best] = tau[members].mean(), err[members].max()
+    return src[keep], x[keep], y[keep], mu[keep], par[keep], tau[keep], err[keep]
 
 
 def keep_distinct_tracks(x, y, exists, tolerance: float, taken=None):

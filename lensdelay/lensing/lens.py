@@ -15,7 +15,7 @@ import numpy as np
 
 from lensdelay.lensing.profiles import MassProfile
 
-PARITIES = ("minimum", "saddle", "maximum")
+PARITIES = ("minimum", "saddle", "maximum", "critical")
 #: Points per block when a large evaluation with scalar parameters is split up: numpy makes
 #: a temporary array per operation, and blocks this size keep them in the CPU cache
 #: (measured in benchmarks/bench_core.py: about twice as fast for 10^6 points).

@@ -28,16 +28,24 @@ def images_text(result: dict) -> str:
         f"{'delay [d]':>10}",
     ]
     for im in result["images"]:
+        mu = im["magnification"]
+        mu_text = f"{mu:+9.3f}" if mu is not None else f"{'infinite':>9}"
         lines.append(
-            f"{im['label']:>5} {im['x']:+11.5f} {im['y']:+11.5f} {im['magnification']:+9.3f} "
+            f"{im['label']:>5} {im['x']:+11.5f} {im['y']:+11.5f} {mu_text} "
             f"{im['parity']:>8} {im['delay_days']:10.3f}"
+        )
+    if any(im["parity"] == "critical" for im in result["images"]):
+        lines.append(
+            "  critical: the source lies on a caustic; images of both parities merge there "
+            "(closer than 0.1 milliarcsec), infinitely magnified for a point source"
         )
     ring = result.get("einstein_ring")
     if ring:
         lines.append(
             f"  Einstein ring of radius {ring['radius_arcsec']:.5f} arcsec about "
             f"({ring['x']:+.4f}, {ring['y']:+.4f}): the source lies on a point caustic, so its "
-            "image is the whole circle (infinite magnification for a point source)"
+            "image is the whole circle (infinite magnification for a point source), "
+            f"arriving {ring['delay_days']:.3f} d after the first arrival"
         )
     if not result["images"] and not ring:
         lines.append("  (no images)")

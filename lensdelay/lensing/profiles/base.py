@@ -151,8 +151,25 @@ class MassProfile(ABC):
         return self._frame_deflection_potential(*self._shift(x, y))
 
     def hessian(self, x, y) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Second derivatives (ψ_xx, ψ_xy, ψ_yy) of the potential at ``(x, y)``."""
-        return self._frame_hessian(*self._shift(x, y))
+        """Second derivatives (ψ_xx, ψ_xy, ψ_yy) of the potential at ``(x, y)``.
+
+        At the centre itself (r below :data:`RADIUS_FLOOR`) the formulas written in
+        terms of direction (x/r, y/r) have no direction to use; there the Hessian is its
+        average over directions, (κ, 0, κ), which keeps ψ_xx + ψ_yy = 2κ (a profile whose
+        κ diverges at the centre then gives a maximum of τ with |μ| → 0 there, as it should,
+        instead of the μ = 1 of an empty Hessian).
+        """
+        dx, dy = self._shift(x, y)
+        hxx, hxy, hyy = self._frame_hessian(dx, dy)
+        if not self.centred:  # a shear or sheet has no centre: its Hessian is uniform
+            return hxx, hxy, hyy
+        at_centre = dx * dx + dy * dy < RADIUS_FLOOR * RADIUS_FLOOR
+        if np.any(at_centre):
+            kappa = self._frame_convergence(dx, dy)
+            hxx = np.where(at_centre, kappa, hxx)
+            hxy = np.where(at_centre, 0.0, hxy)
+            hyy = np.where(at_centre, kappa, hyy)
+        return hxx, hxy, hyy
 
     # -- frame hooks: overridden by EllipticalProfile to rotate ---------------------
     def _frame_convergence(self, dx, dy):
