@@ -367,3 +367,72 @@ def _like_for_resume(rng):
     import bench_fit
 
     return bench_fit.system(rng)
+
+
+def _satellite_quad(satellite: float, sigma: float = 0.001):
+    """A quad made by SIE + shear (+ a point-mass satellite of Einstein radius ``satellite``
+    1.6″ away) and the SIE + shear recipe to fit it."""
+    from lensdelay.lensing.profiles import PointMass
+
+    parts = [
+        IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+        ExternalShear(strength=0.05, position_angle=-40.0),
+    ]
+    if satellite:
+        parts.append(PointMass(einstein_radius=satellite, x=1.4, y=0.8))
+    fam = simulate_family(
+        Lens(tuple(parts)),
+        0.02,
+        0.015,
+        label="s",
+        redshift=1.5,
+        sigma=sigma,
+        rng=np.random.default_rng(5),
+    )
+    return _scenario([fam], SIE_SHEAR, lens_light=0.001)
+
+
+def test_poor_fit_gets_a_position_model_error_and_wider_posterior():
+    """A satellite the recipe lacks: p < 0.01, so the positions get the floor f of the
+    stated rule (Σ r²/(σ² + f²) = dof·n_pos/n_constraints, lensdelay.inference.misfit),
+    the model is refitted and sampled with it, a warning is given, and the posterior of
+    θE is wider than with the stated errors."""
+    from lensdelay.inference.misfit import position_floor
+    from lensdelay.inference.sampling import fit_and_sample
+
+    sc = _satellite_quad(0.2)
+    like = ImageLikelihood(sc, sc.model)
+    first = fit(like)
+    assert first.p_value < 1e-3
+    floor = position_floor(like, first.values)
+    # the rule, recomputed here from the residuals
+    pred = like.predict(first.values[None, :])[0]
+    fam = like.families[0]
+    r2 = (pred["x"][0] - fam.x) ** 2 + (pred["y"][0] - fam.y) ** 2
+    target = like.dof * 8 / like.n_constraints
+    assert np.sum(r2 / (fam.sigma**2 + floor**2)) == pytest.approx(target, rel=1e-6)
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)  # short chain
+        narrow = sample(like, first.values, walkers=16, steps=200, seed=3, scales=first.errors)
+    with pytest.warns(LensdelayWarning, match="poor fit"):
+        result, chain = fit_and_sample(like, walkers=16, steps=200, fit_seed=0, sample_seed=3)
+    q = result.quality()
+    assert q["poor"] and q["position_model_error_mas"] == pytest.approx(1e3 * floor, rel=0.05)
+    assert like.scenario.position_floor == pytest.approx(floor, rel=0.05)
+    assert q["p_value"] > 0.01  # the refit with the floor is acceptable
+    i = chain.names.index("mass[0].einstein_radius")
+    assert np.std(chain.samples()[:, i]) > 2 * np.std(narrow.samples()[:, i])
+
+
+def test_good_fit_is_left_alone():
+    """Data drawn from the recipe itself (seeded): p > 0.01, no model error, no warning."""
+    from lensdelay.inference.sampling import fit_and_sample
+
+    sc = _satellite_quad(0.0)
+    like = ImageLikelihood(sc, sc.model)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", LensdelayWarning)
+        result, _ = fit_and_sample(like, walkers=16, steps=60, fit_seed=0, sample_seed=3)
+    assert result.model_error is None and result.p_value > 0.01
+    assert like.scenario.position_floor == 0.0

@@ -96,10 +96,16 @@ def test_target_next_to_the_sun_is_never_observable(site):
     assert not np.any(cal.observable)
 
 
-def _sis_like_scenario(tmp_path, seen_in="A", date_sigma=0.0, sigma=1e-5):
-    lens = Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.0),))
+def _sis_like_scenario(tmp_path, seen_in="A", date_sigma=0.0, sigma=1e-5, theta_e=1.0):
+    lens = Lens((IsothermalEllipsoid(einstein_radius=theta_e, axis_ratio=1.0),))
     fam = simulate_family(
-        lens, 0.25, 0.0, label="q", redshift=2.0, sigma=sigma, rng=np.random.default_rng(0)
+        lens,
+        0.25 * theta_e,
+        0.0,
+        label="q",
+        redshift=2.0,
+        sigma=sigma * theta_e,
+        rng=np.random.default_rng(0),
     )
     # RA 115° is near opposition in January: observable from the site every night
     doc = {
@@ -116,7 +122,7 @@ def _sis_like_scenario(tmp_path, seen_in="A", date_sigma=0.0, sigma=1e-5):
             "magnitude": 21.0,
         },
         "site": {"latitude": -30.0, "longitude": -70.0, "height": 2000.0},
-        "mass": [{"profile": "SIS", "einstein_radius": 1.0}],
+        "mass": [{"profile": "SIS", "einstein_radius": theta_e}],
     }
     path = tmp_path / "sis.toml"
     path.write_text(to_toml(doc))
@@ -373,3 +379,19 @@ def test_ecsv_masks_missing_values_instead_of_nan(tmp_path):
     assert "nan" not in ecsv.lower()
     table = Table.read(out / "forecast.ecsv", format="ascii.ecsv")
     assert table["p_observable"].mask.all() and table["magnitude_median"].mask.all()
+
+
+def test_dates_beyond_ten_thousand_years_are_refused_in_one_line(tmp_path, capsys):
+    """A 700-arcsec SIS puts the second image ~10^4.5 years after the first (delay ∝ θE²,
+    SEF92 Sect. 8.1.4): beyond what the time library can date (years up to 9999, ERFA), so
+    one line, exit 2, nothing written -- not a traceback after the run."""
+    path = _sis_like_scenario(tmp_path, theta_e=700.0)
+    out = tmp_path / "out"
+    argv = ["forecast", str(path), "--out", str(out), "--samples", "300", "--steps", "60"]
+    code = main([*argv, "--walkers", "16", "--quiet", "--now", "2027-01-11"])
+    err = capsys.readouterr().err
+    assert code == 2, err
+    lines = [line for line in err.splitlines() if not line.startswith("warning:")]
+    assert len(lines) == 1 and "Traceback" not in err
+    assert "lie more than 10000 years from the detection" in lines[0]
+    assert not out.exists() or not any(p.is_file() for p in out.rglob("*"))

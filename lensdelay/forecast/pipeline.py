@@ -60,7 +60,7 @@ TENSION_CAUSES = (
 
 #: Dates further than this from the detection (days, ~10,000 years) are refused: no lens
 #: gives such delays, and calendars and the time library cannot place them.
-MAX_OFFSET_DAYS = 3.65e6
+MAX_OFFSET_DAYS = 10_000 * 365.25
 #: A sighting's 1-σ date error when none is given and the detection has none either, days.
 DEFAULT_SIGHTING_SIGMA_DAYS = 1.0
 _SIGHTING = re.compile(
@@ -370,6 +370,18 @@ def run_forecast(
         np.random.default_rng(next(stage_seeds)),
         tension_rows,
     )
+    # before any date is built: the time library handles years -4712..+9999 at best
+    far = [
+        im["label"]
+        for im in images
+        if max(abs(im["date_offset_days"]["p2.5"]), abs(im["date_offset_days"]["p97.5"]))
+        > MAX_OFFSET_DAYS
+    ]
+    if far:
+        raise FitError(
+            f"the dates of image(s) {', '.join(far)} lie more than {MAX_OFFSET_DAYS / 365.25:.0f} "
+            "years from the detection; check the redshifts and the mass model"
+        )
     stages("observability")
     calendar = None
     if site is not None and sc0.sky is not None:
@@ -386,18 +398,6 @@ def run_forecast(
     stages(None)
     cosmology = scenarios[0].cosmology
     notes = [f"the best fit's image {name} exists in no sample; it is left out" for name in missing]
-    far = [
-        im["label"]
-        for im in images
-        if max(abs(im["date_offset_days"]["p2.5"]), abs(im["date_offset_days"]["p97.5"]))
-        > MAX_OFFSET_DAYS
-    ]
-    if far:
-        raise FitError(
-            f"the dates of image(s) {', '.join(far)} lie more than {MAX_OFFSET_DAYS / 365.25:.0f} "
-            f"years "
-            "from the detection; check the redshifts and the mass model"
-        )
     if now < tr.date:
         notes.append(
             f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
@@ -563,7 +563,7 @@ def _resample(
         }
     }
     joint = ImageLikelihood(
-        sc,
+        like.scenario,  # with the positions' model error, if the fit needed one
         sc.model,
         prior=prior,
         timing=timing,

@@ -99,7 +99,8 @@ def run_hubble(
     joint_fit = h0 = None
     comparison = ()
     if sc.delays:
-        joint = ImageLikelihood(sc, sc.model, use_delays=True, prior=prior)
+        # like.scenario carries the positions' model error if the first fit needed one
+        joint = ImageLikelihood(like.scenario, sc.model, use_delays=True, prior=prior)
         joint_fit, jchain = fit_and_sample(
             joint,
             walkers=walkers,
@@ -112,6 +113,7 @@ def run_hubble(
         h0_eff = jchain.samples()[:, joint.h0_index]
         h0 = h0_posterior(h0_eff, joint, kappa_ext=kappa_ext, om0_prior=om0_prior, rng=rng)
         comparison = tuple(kappa_comparison(h0_eff, joint, om0_prior, extra=kappa_ext))
+        notes += [f"joint fit: {n}" for n in joint_fit.notes if n not in res.notes]
         notes += jchain.warnings
     else:
         notes.append("the scenario has no measured delays: only the delay-vs-H0 curves are given")

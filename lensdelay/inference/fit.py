@@ -20,6 +20,7 @@ from lensdelay.errors import FitError, InputError, LensdelayWarning
 from lensdelay.lensing.critical import critical_lines
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import MISSING_IMAGE_PENALTY, ImageLikelihood
+from lensdelay.inference.misfit import POOR_FIT_P, ModelError, fit_p_value
 
 
 def _safe(name: str) -> str:
@@ -44,6 +45,14 @@ class FitResult:
     message: str
     covariance: np.ndarray | None = None
     notes: list[str] = field(default_factory=list)
+    #: Set when the first fit was poor: the floor given to the image positions and that
+    #: fit's χ² (:mod:`lensdelay.inference.misfit`); chi2 above is then the refit's.
+    model_error: ModelError | None = None
+
+    @property
+    def p_value(self) -> float | None:
+        """P(χ²_dof ≥ chi2), None without degrees of freedom."""
+        return fit_p_value(self.chi2, self.dof)
 
     @property
     def dof(self) -> int:
@@ -59,6 +68,26 @@ class FitResult:
     def bic(self) -> float:
         """Bayesian information criterion, χ² + k ln n."""
         return self.chi2 + self.n_parameters * np.log(max(self.n_constraints, 1))
+
+    def quality(self) -> dict:
+        """How good the fit is, as plain data for files and reports.
+
+        ``chi2``, ``dof`` and ``p_value`` (None without degrees of freedom); ``poor``
+        (p below :data:`lensdelay.inference.misfit.POOR_FIT_P`, judged on the first fit);
+        ``position_model_error_mas`` with the first fit's ``chi2_before``/``p_before``
+        when a floor was given; ``at_bounds``, parameters that ended on a bound.
+        """
+        err = self.model_error
+        return {
+            "chi2": float(self.chi2),
+            "dof": int(self.dof),
+            "p_value": self.p_value,
+            "poor": err is not None or (self.p_value is not None and self.p_value < POOR_FIT_P),
+            "position_model_error_mas": 1e3 * err.floor_arcsec if err else 0.0,
+            "chi2_before": err.chi2 if err else None,
+            "p_before": err.p_value if err else None,
+            "at_bounds": list(self.at_bounds),
+        }
 
     def value(self, name: str) -> float:
         """The best-fit value of one parameter by name."""

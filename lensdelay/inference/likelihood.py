@@ -32,7 +32,7 @@ quad (``benchmarks/bench_fit.py``; README). The Jacobian behind the Fisher infor
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -130,7 +130,7 @@ class ImageLikelihood:
                     self.distances.days_per_arcsec2(fam.redshift),
                     np.array([im.x for im in fam.images]),
                     np.array([im.y for im in fam.images]),
-                    np.array([im.sigma for im in fam.images]),
+                    np.hypot([im.sigma for im in fam.images], scenario.position_floor),
                     fam.labels,
                 )
             )
@@ -240,6 +240,16 @@ class ImageLikelihood:
                         out[self.names.index(p.name)] = (value, ll.sigma)
                 break
         return out
+
+    def set_position_floor(self, floor: float) -> None:
+        """Give every image position a model error ``floor`` (arcsec) in quadrature.
+
+        The scenario the likelihood holds is replaced by one that carries the floor, so
+        likelihoods built later from ``self.scenario`` (timing updates, joint fits) keep it.
+        """
+        self.scenario = replace(self.scenario, position_floor=float(floor))
+        for k, fam in enumerate(self.scenario.families):
+            self.families[k].sigma = np.hypot([im.sigma for im in fam.images], floor)
 
     # -- bookkeeping ---------------------------------------------------------------
     @property

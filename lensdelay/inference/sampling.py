@@ -12,7 +12,7 @@ from __future__ import annotations
 import sys
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import emcee
@@ -21,6 +21,7 @@ import numpy as np
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
 from lensdelay.inference.fit import fit
+from lensdelay.inference.misfit import POOR_FIT_P, ModelError, position_floor
 from lensdelay.inference.moves import FisherLangevinMove
 from lensdelay.inference.backend import NpzCheckpoint
 
@@ -292,6 +293,25 @@ def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.S
     return emcee.State(ball, log_prob=target.log_probability(ball))
 
 
+def _with_model_error(like, result, fit_seed):
+    """A poor fit (p < POOR_FIT_P) is fitted again with a model error on the positions.
+
+    ``like`` is changed in place (:meth:`ImageLikelihood.set_position_floor`); the
+    returned result carries :class:`ModelError` and a note. A scenario that already has
+    a floor is not judged twice.
+    """
+    p = result.p_value
+    if p is None or p >= POOR_FIT_P or like.scenario.position_floor > 0:
+        return result
+    floor = position_floor(like, result.values)
+    if floor <= 0:
+        return result
+    error = ModelError(floor, result.chi2, result.dof, p)
+    like.set_position_floor(floor)
+    refit = fit(like, seed=fit_seed)
+    return replace(refit, model_error=error, notes=[error.note(), *refit.notes])
+
+
 def fit_and_sample(
     like,
     *,
@@ -326,6 +346,7 @@ def fit_and_sample(
         warnings.simplefilter("ignore", LensdelayWarning)
         try:
             result = fit(like, seed=fit_seed)
+            result = _with_model_error(like, result, fit_seed)
         except InputError as err:
             raise err.with_source(like.scenario.source) from err
         n_steps = steps(result) if callable(steps) else steps
@@ -340,5 +361,9 @@ def fit_and_sample(
             scales=result.errors,
             checkpoint_dir=checkpoint_dir,
             resume=resume,
+        )
+    if result.model_error is not None:
+        warnings.warn(
+            f"{like.model.label}: {result.model_error.note()}", LensdelayWarning, stacklevel=2
         )
     return result, chain

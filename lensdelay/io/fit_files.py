@@ -20,6 +20,7 @@ def fit_json(res: dict) -> dict:
                 for n, v, e in zip(fr.names, fr.values, fr.errors)
             },
             "chi2": fr.chi2,
+            "quality": fr.quality(),
             "constraints": fr.n_constraints,
             "free_parameters": fr.n_parameters,
             "dof": fr.dof,

@@ -144,6 +144,7 @@ def forecast_json(res) -> dict:
                 "weight_positions_only": float(wp),
                 "chi2": float(f.chi2),
                 "dof": int(f.dof),
+                "quality": f.quality(),
                 "notes": list(notes),
             }
             for label, f, w, wp, notes in zip(

@@ -24,6 +24,8 @@ def hubble_json(res) -> dict:
         ],
         "delay_vs_H0": [r for r in res.curves if r["axis"] == "H0"],
         "delay_vs_other": [r for r in res.curves if r["axis"] != "H0"],
+        "fit_quality": res.fit.quality(),
+        "joint_fit_quality": res.joint_fit.quality() if res.joint_fit is not None else None,
         "mass_model_prior": res.prior,
         "notes": list(res.notes),
         "cautions": CAUTION,

@@ -119,6 +119,9 @@ class Scenario:
     delays: tuple[MeasuredDelay, ...] = ()
     site: Site | None = None
     extra: dict = field(default_factory=dict)
+    #: Model error of image positions (arcsec), added in quadrature to every image's
+    #: sigma; set after a poor fit (see :mod:`lensdelay.inference.misfit`), 0 as read.
+    position_floor: float = 0.0
 
     def family(self, label: str) -> Family:
         """The family called ``label``."""

@@ -57,6 +57,28 @@ def images_text(result: dict) -> str:
     return "\n".join(lines)
 
 
+def quality_line(q: dict, label: str = "fit") -> str:
+    """One line on a fit's quality: p-value, model error given, parameters on bounds."""
+    if q["p_value"] is None:
+        text = (
+            f"{label}: no degrees of freedom left (dof = {q['dof']}): chi2 does not test "
+            "this model, and priors set part of the answer"
+        )
+    else:
+        text = f"{label}: chi2 = {q['chi2']:.1f} for {q['dof']} dof, p = {q['p_value']:.2g}"
+    if q["position_model_error_mas"] > 0:
+        text = (
+            f"WARNING: {label} was poor (chi2 = {q['chi2_before']:.1f}, p = {q['p_before']:.1e}); "
+            f"image positions given a model error of {q['position_model_error_mas']:.1f} mas, "
+            f"then chi2 = {q['chi2']:.1f} for {q['dof']} dof"
+        )
+    elif q["poor"]:
+        text = f"WARNING: {text}: a poor fit"
+    if q["at_bounds"]:
+        text += f"; ended on a bound: {', '.join(q['at_bounds'])}"
+    return text
+
+
 def fit_text(res: dict) -> str:
     """Plain-text report of a fit (and posterior)."""
     fr = res.fit
@@ -70,8 +92,7 @@ def fit_text(res: dict) -> str:
         f"chi2 = {fr.chi2:.3f} for {fr.n_constraints} constraints and {fr.n_parameters} "
         f"free parameters: dof = {fr.dof}; AIC = {fr.aic:.2f}, BIC = {fr.bic:.2f}",
     ]
-    if fr.dof <= 0:
-        lines.append("WARNING: no degrees of freedom left: chi2 does not test this model.")
+    lines.append(quality_line(fr.quality()))
     lines += [
         "",
         "residuals (model − observed):",
@@ -188,6 +209,9 @@ def hubble_text(res) -> str:
                 f"  kappa_ext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f}): "
                 f"H0 = {q['median']:.1f} [{q['p16']:.1f}, {q['p84']:.1f}]"
             )
+    lines += ["", quality_line(res.fit.quality(), "lens fit to the positions")]
+    if res.joint_fit is not None:
+        lines.append(quality_line(res.joint_fit.quality(), "joint fit with the delays"))
     for n in res.notes:
         lines.append(f"NOTE: {n}")
     lines += ["", CAUTION]
@@ -320,6 +344,8 @@ def forecast_text(res: dict) -> str:
                 f"SKY {im.family}/{im.label}: {ob['observable_days_in_95']} of "
                 f"{ob['days_in_95']} days in the 95% window are observable from the site"
             )
+    for label, f in zip(res.model_labels, res.fits):
+        lines.append(quality_line(f.quality(), f"fit of {label}"))
     for n in res.notes:
         lines.append(f"NOTE: {n}")
     for label, notes in zip(res.model_labels, res.model_notes):
