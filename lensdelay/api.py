@@ -264,7 +264,8 @@ def fit_scenario(
                     "image": lab,
                     "relative_to": fam.labels[0],
                     "days": float(d),
-                    "linearised_sigma_days": float(e),
+                    # None where the linearisation means nothing (no degrees of freedom)
+                    "linearised_sigma_days": float(e) if np.isfinite(e) else None,
                 }
             )
     chain = None

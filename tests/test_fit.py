@@ -206,13 +206,47 @@ def test_two_families_at_two_redshifts():
     )
 
 
-def test_underconstrained_is_refused():
-    """Fewer constraints than free parameters without priors is bad input (issue 3)."""
+def test_underconstrained_without_proper_priors_is_refused():
+    """Fewer constraints than free parameters, and a centre with neither bounds nor prior:
+    the posterior is improper, so it is bad input naming those parameters (issue 3, 13)."""
     lens = Lens((SingularIsothermalSphere(einstein_radius=0.9),))
     fam = simulate_family(lens, 0.2, 0.0, label="q", redshift=2.0)
-    sc = _scenario([fam], SIE_SHEAR, lens_light=None)
-    with pytest.raises(InputError, match="under-constrained"):
+    unbounded = [dict(SIE_SHEAR[0], x={"value": 0.0}, y={"value": 0.0}), SIE_SHEAR[1]]
+    sc = _scenario([fam], unbounded, lens_light=None)
+    with pytest.raises(InputError, match=r"mass\[0\].x, mass\[0\].y have no prior"):
         fit(ImageLikelihood(sc, sc.model))
+
+
+def test_underconstrained_with_bounds_is_sampled_across_its_prior():
+    """SIS + shear on a double with the lens light (7 parameters, 6 constraints; issue 13):
+    every parameter is bounded, so the posterior is proper. It is fitted and sampled with a
+    warning, and the sampler explores the direction the data leave open (the shear
+    strength spreads over a good part of its [0, 0.3] prior) instead of sticking."""
+    from lensdelay.inference.sampling import fit_and_sample
+
+    truth = Lens((SingularIsothermalSphere(einstein_radius=0.9), ExternalShear(strength=0.04)))
+    fam = simulate_family(truth, 0.2, 0.1, label="q", redshift=2.0, sigma=0.003)
+    recipe = [
+        {
+            "profile": "SIS",
+            "einstein_radius": {"value": 1.0, "min": 0.05, "max": 5.0},
+            "x": {"value": 0.0, "min": -1.0, "max": 1.0},
+            "y": {"value": 0.0, "min": -1.0, "max": 1.0},
+        },
+        {
+            "profile": "shear",
+            "strength": {"value": 0.03, "min": 0.0, "max": 0.3},
+            "position_angle": {"value": 0.0},
+        },
+    ]
+    sc = _scenario([fam], recipe)
+    like = ImageLikelihood(sc, sc.model)
+    assert like.dof == -1
+    with pytest.warns(LensdelayWarning, match="proper only through the priors"):
+        result, chain = fit_and_sample(like, walkers=32, steps=600, fit_seed=0, sample_seed=2)
+    g = chain.samples()[:, chain.names.index("mass[1].strength")]
+    assert np.percentile(g, 84) - np.percentile(g, 16) > 0.05
+    assert result.p_value is None
 
 
 def test_missing_image_is_penalised_not_ignored():
@@ -436,3 +470,32 @@ def test_good_fit_is_left_alone():
         result, _ = fit_and_sample(like, walkers=16, steps=60, fit_seed=0, sample_seed=3)
     assert result.model_error is None and result.p_value > 0.01
     assert like.scenario.position_floor == 0.0
+
+
+def test_scenario_without_a_model_gets_the_default_galaxy_recipe():
+    """No [[mass]] and no model line: power law + shear with the population slope prior
+    N(2.078, 0.16) (Auger et al. 2010, ApJ 724, 511; from memory), centred on the lens light,
+    θE started at the images' mean distance from it."""
+    from lensdelay.model.recipe import SLOPE_PRIOR
+
+    lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),))
+    fam = simulate_family(lens, 0.02, 0.015, label="s", redshift=1.5, sigma=0.003)
+    doc = {
+        "lens": {"redshift": 0.4},
+        "family": [fam],
+        "lens_light": {"x": 0.05, "y": -0.02, "sigma": 0.01},
+    }
+    sc = parse_scenario(doc, "simulated.toml")
+    assert sc.model.label == "default_galaxy"
+    assert [c.kind for c in sc.model.components] == ["power_law", "shear"]
+    slope = sc.model.components[0].parameters["slope"]
+    assert slope.vary and slope.prior == SLOPE_PRIOR == (2.078, 0.16)
+    x = sc.model.components[0].parameters["x"]
+    assert x.value == 0.05 and (x.min, x.max) == (-0.95, 1.05)
+    radius = np.mean(
+        np.hypot(
+            np.array([i["x"] for i in fam["image"]]) - 0.05,
+            np.array([i["y"] for i in fam["image"]]) + 0.02,
+        )
+    )
+    assert sc.model.components[0].parameters["einstein_radius"].value == pytest.approx(radius)

@@ -12,6 +12,7 @@ from lensdelay.lensing.profiles import (
     EllipticalPowerLaw,
     ExternalShear,
     IsothermalEllipsoid,
+    IsothermalMultipole,
     MassSheet,
     NFWHalo,
     PointMass,
@@ -36,6 +37,8 @@ CASES = {
         einstein_radius=1.3, slope=1.7, axis_ratio=0.8, position_angle=-40.0, x=0.1
     ),
     "NFW": NFWHalo(kappa_s=0.3, scale_radius=4.0, x=0.3, y=0.2),
+    "multipole-m3": IsothermalMultipole(order=3, cosine=0.02, sine=-0.01, x=0.1, y=-0.05),
+    "multipole-m4": IsothermalMultipole(order=4, cosine=-0.015, sine=0.03),
     "shear": ExternalShear(strength=0.07, position_angle=25.0),
     "sheet": MassSheet(convergence_value=0.1),
 }
@@ -294,3 +297,34 @@ def test_hessian_at_the_exact_centre_keeps_poisson(name):
     hxx, hxy, hyy = prof.hessian(np.array([prof.x]), np.array([prof.y]))
     kappa = prof.convergence(np.array([prof.x]), np.array([prof.y]))
     np.testing.assert_allclose(hxx + hyy, 2 * kappa, rtol=1e-12)
+
+
+@pytest.mark.parametrize("pa", [0.0, 25.0, 70.0])
+def test_slightly_elliptical_sie_is_sis_plus_quadrupole(pa):
+    """To first order in δ = 1 − q the SIE's κ = θE/2R is θE/2r · (1 + (δ/2) cos 2(φ − φ0))
+    (expanding R² = r²(1 − δ cos 2(φ − φ0)), derivation common practice), i.e. an SIS plus
+    the m = 2 multipole with (c, s) = (θE δ/2)(cos 2φ0, sin 2φ0): deflections agree to O(δ²)."""
+    te, delta = 1.3, 1e-3
+    sie = IsothermalEllipsoid(einstein_radius=te, axis_ratio=1 - delta, position_angle=pa)
+    amp = te * delta / 2
+    two_phi = np.deg2rad(2 * pa)
+    approx = Lens(
+        (
+            SingularIsothermalSphere(einstein_radius=te),
+            IsothermalMultipole(order=2, cosine=amp * np.cos(two_phi), sine=amp * np.sin(two_phi)),
+        )
+    )
+    x, y = POINTS.T
+    ax, ay = sie.deflection(x, y)
+    bx, by = approx.deflection(x, y)
+    assert np.max(np.hypot(ax - bx, ay - by)) < 5 * delta**2 * te
+    # and the first-order term itself is seen: without the multipole the error is O(δ)
+    cx, cy = SingularIsothermalSphere(einstein_radius=te).deflection(x, y)
+    assert np.max(np.hypot(ax - cx, ay - cy)) > 0.1 * delta * te
+
+
+def test_multipole_order_must_be_an_integer_from_2_to_10():
+    with pytest.raises(InputError, match="multipole.order must be an integer from 2 to 10"):
+        IsothermalMultipole(order=3.5)
+    with pytest.raises(InputError, match="multipole.order must be an integer from 2 to 10"):
+        IsothermalMultipole(order=1)

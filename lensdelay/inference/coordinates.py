@@ -66,6 +66,25 @@ class SamplingCoordinates:
         """True when no pair is converted (u = p)."""
         return not (self.ellipse_pairs or self.shear_pairs)
 
+    def prior_scales(self, lower, upper) -> np.ndarray:
+        """Width of each sampling coordinate's flat prior (its standard deviation), or 0.
+
+        A parameter with finite bounds has a flat prior of standard deviation
+        (max − min)/√12; a converted pair's components range over ±e_max (ellipticity,
+        from the smallest axis ratio) or ±γ_max, i.e. a standard deviation of about
+        e_max/√3 each. Unbounded coordinates get 0 (no prior width to lean on).
+        """
+        width = np.where(
+            np.isfinite(lower) & np.isfinite(upper), (upper - lower) / np.sqrt(12.0), 0.0
+        )
+        for iq, ia in self.ellipse_pairs:
+            e_max = (1.0 - max(lower[iq], 0.0)) / (1.0 + max(lower[iq], 0.0))
+            width[iq] = width[ia] = e_max / np.sqrt(3.0)
+        for ig, ia in self.shear_pairs:
+            g_max = upper[ig] if np.isfinite(upper[ig]) else 0.0
+            width[ig] = width[ia] = g_max / np.sqrt(3.0)
+        return width
+
     # -- the maps -----------------------------------------------------------------
     def to_sampling(self, params: np.ndarray) -> np.ndarray:
         """P → u."""

@@ -94,14 +94,44 @@ class FitResult:
         return float(self.values[self.names.index(name)])
 
 
+def improper_parameters(like: ImageLikelihood) -> list[str]:
+    """Free mass-model parameters whose prior is not proper on its own.
+
+    A parameter has a proper prior when it has a Gaussian prior, finite bounds on both
+    sides (flat between them) or is an angle (defined modulo its period).
+    """
+    out = []
+    for i in range(like.n_model):
+        bounded = np.isfinite(like.lower[i]) and np.isfinite(like.upper[i])
+        if i not in like.priors and not bounded and not like.periods[i]:
+            out.append(like.names[i])
+    return out
+
+
 def check_constraints(like: ImageLikelihood) -> None:
-    """Refuse under-constrained set-ups; warn on exactly constrained ones."""
+    """Refuse under-constrained set-ups without proper priors; warn on the others.
+
+    With fewer constraints than free parameters the posterior is still proper when every
+    mass-model parameter has a proper prior (:func:`improper_parameters`); it is then
+    sampled, with a warning that the priors set part of the answer.
+    """
     if like.dof < 0:
-        raise InputError(
-            f"model {like.model.label!r} has {like.n_parameters} free parameters (including "
-            f"2 source coordinates per family) but only {like.n_constraints} constraints; "
-            "fix parameters or add priors, got an under-constrained fit"
+        improper = improper_parameters(like)
+        if improper:
+            raise InputError(
+                f"model {like.model.label!r} has {like.n_parameters} free parameters "
+                f"(including 2 source coordinates per family) but only {like.n_constraints} "
+                f"constraints, and {', '.join(improper)} have no prior and no finite bounds; "
+                "fix them or give them bounds or a prior, got an under-constrained fit"
+            )
+        warnings.warn(
+            f"model {like.model.label!r} has {like.n_parameters} free parameters but only "
+            f"{like.n_constraints} constraints: its posterior is proper only through the "
+            "priors and bounds, which set part of the answer",
+            LensdelayWarning,
+            stacklevel=2,
         )
+        return
     if like.dof == 0:
         warnings.warn(
             f"model {like.model.label!r} is exactly constrained (0 degrees of freedom): "
@@ -157,7 +187,11 @@ def _lmfit(like, start, resid_fn, n_data):
         return resid_fn(v)
 
     # sigmas are known: do not rescale the covariance by the reduced chi2
-    out = lmfit.minimize(wrapped, params, method="least_squares", scale_covar=False)
+    with warnings.catch_warnings():
+        # a singular covariance makes lmfit take square roots of negative variances:
+        # those errors come back as NaN, which the callers handle
+        warnings.simplefilter("ignore", RuntimeWarning)
+        out = lmfit.minimize(wrapped, params, method="least_squares", scale_covar=False)
     v = np.array([out.params[_safe(n)].value for n in names])
     errs = np.array([out.params[_safe(n)].stderr or np.nan for n in names])
     if len(names) < len(like.names):
@@ -353,7 +387,8 @@ def delay_errors(like: ImageLikelihood, result: FitResult, family: int = 0, refe
     """Delays at the best fit and their 1-σ errors by linear propagation of the covariance."""
     best = observed_delays(like, result.values, family, reference)[0]
     cov = result.covariance
-    if cov is None:
+    if cov is None or result.dof < 0 or not np.all(np.isfinite(result.errors[: cov.shape[0]])):
+        # a singular covariance (fewer constraints than parameters) has no linear errors
         return best, np.full_like(best, np.nan)
     steps = np.where(np.isfinite(result.errors) & (result.errors > 0), 1e-3 * result.errors, 1e-7)
     jac = np.empty((len(best), len(result.values)))

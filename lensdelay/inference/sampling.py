@@ -182,7 +182,13 @@ def sample(
     if move == "langevin":
         # now and then an ensemble stretch: a walker that strays onto a steep wall, where
         # the local geometry says little, is pulled back by the others
-        moves = [(FisherLangevinMove(target), 0.9), (emcee.moves.StretchMove(), 0.1)]
+        # with fewer constraints than parameters some directions are seen by the priors
+        # alone: the move then explores them at the priors' widths
+        widths = coords.prior_scales(like.lower, like.upper) if like.dof < 0 else None
+        moves = [
+            (FisherLangevinMove(target, prior_widths=widths), 0.9),
+            (emcee.moves.StretchMove(), 0.1),
+        ]
     elif move == "stretch":
         moves = emcee.moves.StretchMove()
     else:
@@ -366,4 +372,12 @@ def fit_and_sample(
         warnings.warn(
             f"{like.model.label}: {result.model_error.note()}", LensdelayWarning, stacklevel=2
         )
+    if like.dof < 0:
+        note = (
+            f"{like.n_parameters} free parameters but only {like.n_constraints} constraints: "
+            "the posterior is proper only through the priors and bounds, which set part of "
+            "the answer"
+        )
+        result.notes.insert(0, note)
+        warnings.warn(f"{like.model.label}: {note}", LensdelayWarning, stacklevel=2)
     return result, chain

@@ -19,9 +19,11 @@ from astropy.coordinates import SkyCoord
 from astropy.cosmology import FLRW
 from astropy.time import Time
 
+import numpy as np
+
 from lensdelay.model.cosmology import cosmology_from_spec
 from lensdelay.errors import InputError, LensdelayWarning, choices_text, suggest
-from lensdelay.model.recipe import MassModel, parse_mass_entries
+from lensdelay.model.recipe import MassModel, default_galaxy_recipe, parse_mass_entries
 
 
 @dataclass(frozen=True)
@@ -403,12 +405,19 @@ def _parse(doc, source, load_model):
 
     site = _parse_site(doc["site"]) if "site" in doc else None
 
-    if ("mass" in doc) == ("model" in doc):
+    if "mass" in doc and "model" in doc:
         raise InputError(
-            'scenario must give either [[mass]] entries or model = "models/NAME.toml", '
-            f"got {'both' if 'mass' in doc else 'neither'}"
+            'scenario must give either [[mass]] entries or model = "models/NAME.toml" '
+            "(or neither, for the default galaxy recipe), got both"
         )
-    if "mass" in doc:
+    if "mass" not in doc and "model" not in doc:
+        # the default galaxy-scale recipe: power law with the population slope prior + shear
+        model = default_galaxy_recipe(
+            np.concatenate([[im.x for im in f.images] for f in families]),
+            np.concatenate([[im.y for im in f.images] for f in families]),
+            (lens_light.x, lens_light.y) if lens_light is not None else (0.0, 0.0),
+        )
+    elif "mass" in doc:
         model = parse_mass_entries(doc["mass"], label=f"{name}-inline")
     else:
         ref = top.text("model")

@@ -119,7 +119,11 @@ def fit_text(res: dict) -> str:
         for d in res.linear_delays:
             lines.append(
                 f"  {d['family']}/{d['image']} − {d['relative_to']}: {d['days']:+.2f} "
-                f"± {d['linearised_sigma_days']:.2f} d"
+                + (
+                    f"± {d['linearised_sigma_days']:.2f} d"
+                    if d["linearised_sigma_days"] is not None
+                    else "d (no linearised error without degrees of freedom: use --sample)"
+                )
             )
     for note in fr.notes:
         lines.append(f"NOTE: {note}")

@@ -298,10 +298,6 @@ cases = {
         lambda t: 'model = "models/sie_shear.toml"\n' + t,
         "scenario must give either [[mass]] entries or model",
     ),
-    "mass_neither": (
-        lambda t: t.split("[[mass]]")[0],
-        "scenario must give either [[mass]] entries or model",
-    ),
     "model_file_missing": (
         lambda t: 'model = "models/does_not_exist.toml"\n' + t.split("[[mass]]")[0],
         "model refers to 'models/does_not_exist.toml', which does not exist",

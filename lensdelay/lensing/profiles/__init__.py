@@ -6,6 +6,7 @@ from lensdelay.lensing.profiles.base import (
     EllipticalProfile,
     MassProfile,
 )
+from lensdelay.lensing.profiles.multipole import IsothermalMultipole
 from lensdelay.lensing.profiles.nfw import NFWHalo
 from lensdelay.lensing.profiles.point import PointMass
 from lensdelay.lensing.profiles.power_law import EllipticalPowerLaw
@@ -24,6 +25,7 @@ __all__ = [
     "IsothermalEllipsoid",
     "EllipticalPowerLaw",
     "NFWHalo",
+    "IsothermalMultipole",
     "ExternalShear",
     "MassSheet",
 ]

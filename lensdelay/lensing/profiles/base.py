@@ -43,6 +43,10 @@ _RULES = {
     "slope": (lambda v: (v > 1) & (v < 3), "must be in (1, 3)"),
     "shear": (lambda v: (v >= 0) & (v < 1), "must be in [0, 1)"),
     "sheet": (lambda v: v < 1, "must be < 1"),
+    "order": (
+        lambda v: (v == np.round(v)) & (v >= 2) & (v <= 10),
+        "must be an integer from 2 to 10",
+    ),
 }
 
 
