@@ -17,6 +17,7 @@ from lensdelay.lensing.profiles import (
     NFWHalo,
     PointMass,
     SingularIsothermalSphere,
+    TruncatedIsothermal,
 )
 
 CASES = {
@@ -39,6 +40,10 @@ CASES = {
     "NFW": NFWHalo(kappa_s=0.3, scale_radius=4.0, x=0.3, y=0.2),
     "multipole-m3": IsothermalMultipole(order=3, cosine=0.02, sine=-0.01, x=0.1, y=-0.05),
     "multipole-m4": IsothermalMultipole(order=4, cosine=-0.015, sine=0.03),
+    "truncated": TruncatedIsothermal(
+        einstein_radius=0.3, cut=2.0, axis_ratio=0.7, position_angle=40.0, x=0.2, y=0.1
+    ),
+    "truncated-cored-round": TruncatedIsothermal(einstein_radius=0.3, core=0.1, cut=1.5),
     "shear": ExternalShear(strength=0.07, position_angle=25.0),
     "sheet": MassSheet(convergence_value=0.1),
 }
@@ -328,3 +333,31 @@ def test_multipole_order_must_be_an_integer_from_2_to_10():
         IsothermalMultipole(order=3.5)
     with pytest.raises(InputError, match="multipole.order must be an integer from 2 to 10"):
         IsothermalMultipole(order=1)
+
+
+@pytest.mark.parametrize("q", [1.0, 0.6])
+def test_truncated_isothermal_total_mass(q):
+    """Total mass π θE (a − s) for any q (CONVENTIONS.md; Elíasdóttir et al. 2007): far
+    outside, the deflection is that of a point of that mass, |α| r = M/π (SEF92 eq. 8.8)."""
+    te, s, a = 0.4, 0.1, 3.0
+    prof = TruncatedIsothermal(einstein_radius=te, core=s, cut=a, axis_ratio=q)
+    r = 3000.0
+    phi = np.linspace(0, 2 * np.pi, 16, endpoint=False)
+    ax, ay = prof.deflection(r * np.sin(phi), r * np.cos(phi))
+    np.testing.assert_allclose(np.hypot(ax, ay) * r, te * (a - s), rtol=2e-3)
+
+
+def test_truncated_isothermal_is_the_cored_sie_inside_the_cut():
+    """a → ∞ gives the cored SIE (CONVENTIONS.md): at a = 10⁶ arcsec the deflections near
+    the centre agree to the outer ellipsoid's tiny interior deflection."""
+    sie = IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.7, position_angle=10.0, core=0.2)
+    far = TruncatedIsothermal(
+        einstein_radius=1.0, axis_ratio=0.7, position_angle=10.0, core=0.2, cut=1e6
+    )
+    x, y = POINTS.T
+    np.testing.assert_allclose(far.deflection(x, y), sie.deflection(x, y), atol=1e-5)
+
+
+def test_truncated_isothermal_needs_cut_beyond_core():
+    with pytest.raises(InputError, match="truncated_isothermal.cut must be greater than core"):
+        TruncatedIsothermal(einstein_radius=0.3, core=1.0, cut=0.5)

@@ -10,11 +10,13 @@ def run(args) -> int:
     """Validate the scenario and print one line about it."""
     res = check_scenario(args.scenario, args.model)
     sc, like = res["scenario"], res["likelihood"]
+    members = sc.model.members
+    with_members = f" + {len(members.ids)} member galaxies" if members is not None else ""
     print(
         f"{args.scenario}: ok — scenario {sc.name!r}, {len(sc.families)} famil"
         f"{'y' if len(sc.families) == 1 else 'ies'}, {sc.n_images} images, model "
-        f"{sc.model.label!r} with {like.n_parameters} free parameters for {like.n_constraints} "
-        f"constraints (dof = {like.dof})"
+        f"{sc.model.label!r}{with_members} with {like.n_parameters} free parameters for "
+        f"{like.n_constraints} constraints (dof = {like.dof})"
     )
     return 0
 

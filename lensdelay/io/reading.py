@@ -87,13 +87,48 @@ def load_scenario(path: str | os.PathLike, model_paths=None):
             "or in the working directory"
         )
 
+    def table(ref: str) -> dict:
+        candidate = path.parent / ref
+        if not candidate.is_file():
+            raise InputError(
+                f"members.catalogue refers to {ref!r}, which does not exist next to the scenario"
+            )
+        used.append(candidate)
+        return read_table(candidate, "members.catalogue")
+
     if model_paths:
         doc = {k: v for k, v in doc.items() if k not in ("mass", "model")}
         doc["model"] = "<command line>"
         scenario = parse_scenario(
-            doc, str(path), load_model=lambda ref: load_model(model_paths[0])[0]
+            doc,
+            str(path),
+            load_model=lambda ref: load_model(model_paths[0])[0],
+            load_table=table,
         )
         used.append(Path(model_paths[0]))
     else:
-        scenario = parse_scenario(doc, str(path), load_model=resolve)
+        scenario = parse_scenario(doc, str(path), load_model=resolve, load_table=table)
     return scenario, used
+
+
+def read_table(path: str | os.PathLike, field: str) -> dict:
+    """Columns of an ECSV table (or a CSV with a header line) as name -> array.
+
+    Empty cells come back masked. Raises InputError naming ``field`` when the file is
+    not such a table.
+    """
+    from astropy.table import Table
+
+    path = Path(path)
+    fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
+    try:
+        tab = Table.read(path, format=fmt)
+    except Exception as err:  # astropy raises many kinds for a malformed table
+        reason = str(err).splitlines()[0] if str(err) else type(err).__name__
+        raise InputError(
+            f"{field} {str(path)!r} must be an ECSV table or a CSV with a header, got an "
+            f"unreadable file ({reason})"
+        ) from err
+    if len(tab) == 0:
+        raise InputError(f"{field} {str(path)!r} must have at least one row, got none")
+    return {name: tab[name] for name in tab.colnames}

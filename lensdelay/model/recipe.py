@@ -31,6 +31,10 @@ DEFAULT_BOUNDS = {
     "convergence": (-0.5, 0.9),
     # multipole terms (arcsec): far beyond the few per cent of θE real galaxies show
     "cosine": (-1.0, 1.0),
+    "cut": (1e-3, 1e3),
+    "einstein_exponent": (0.0, 2.0),
+    "cut_exponent": (0.0, 2.0),
+    "core_exponent": (0.0, 2.0),
     "sine": (-1.0, 1.0),
     "x": (-math.inf, math.inf),
     "y": (-math.inf, math.inf),
@@ -82,6 +86,63 @@ class ComponentRecipe:
         return PROFILES[self.kind]
 
 
+#: Keys of a ``[members]`` table that scale with luminosity, and their exponents' keys.
+MEMBER_SCALED = {
+    "einstein_radius": "einstein_exponent",
+    "cut": "cut_exponent",
+    "core": "core_exponent",
+}
+
+
+@dataclass(frozen=True)
+class MemberGroup:
+    """Galaxies from a members table, each a ``truncated_isothermal`` scaled by luminosity.
+
+    With L/L* = 10^(−0.4 (mag − reference_mag)) a member has θE = θE*·(L/L*)^einstein_exponent,
+    a = a*·(L/L*)^cut_exponent and s = s*·(L/L*)^core_exponent (CONVENTIONS.md, "Cluster
+    scale and galaxy environments"); θE*, a*, s* and the exponents are shared parameters
+    (``members.<key>``), fixed or free.
+
+    Attributes
+    ----------
+    parameters : dict
+        ``reference_mag``, ``einstein_radius``, ``cut``, ``core`` and the three exponents,
+        as ModelParameter.
+    ids : tuple of str
+    x, y, mag, axis_ratio, position_angle : ndarray
+        Per member: position (arcsec), magnitude, shape (1 and 0 for round members).
+    """
+
+    parameters: dict[str, ModelParameter]
+    ids: tuple[str, ...]
+    x: np.ndarray
+    y: np.ndarray
+    mag: np.ndarray
+    axis_ratio: np.ndarray
+    position_angle: np.ndarray
+
+    def profiles(self, lookup: dict) -> list[MassProfile]:
+        """The members' profiles for parameter values ``lookup`` (name -> value)."""
+        value = {k: lookup.get(p.name, p.value) for k, p in self.parameters.items()}
+        cls = PROFILES["truncated_isothermal"]
+        out = []
+        for i in range(len(self.ids)):
+            lum = 10.0 ** (-0.4 * (self.mag[i] - value["reference_mag"]))
+            scaled = {k: value[k] * lum ** value[e] for k, e in MEMBER_SCALED.items()}
+            out.append(
+                cls.from_values(
+                    {
+                        **scaled,
+                        "x": self.x[i],
+                        "y": self.y[i],
+                        "axis_ratio": self.axis_ratio[i],
+                        "position_angle": self.position_angle[i],
+                    }
+                )
+            )
+        return out
+
+
 @dataclass(frozen=True)
 class MassModel:
     """A full recipe; builds lenses from parameter vectors.
@@ -91,16 +152,20 @@ class MassModel:
     components : tuple of ComponentRecipe
     label : str
         A name for reports (e.g. the model file's stem).
+    members : MemberGroup or None
+        Galaxies from the scenario's members table, added to the components.
     """
 
     components: tuple[ComponentRecipe, ...]
     label: str = "model"
+    members: MemberGroup | None = None
 
     # -- parameters -----------------------------------------------------------------
     @property
     def parameters(self) -> list[ModelParameter]:
-        """Every parameter of every component, in order."""
-        return [p for c in self.components for p in c.parameters.values()]
+        """Every parameter of every component (then of the members), in order."""
+        own = [p for c in self.components for p in c.parameters.values()]
+        return own + (list(self.members.parameters.values()) if self.members else [])
 
     @property
     def free(self) -> list[ModelParameter]:
@@ -125,7 +190,16 @@ class MassModel:
                 for k, p in c.parameters.items()
             }
             comps.append(ComponentRecipe(c.kind, params))
-        return MassModel(tuple(comps), self.label)
+        members = self.members
+        if members is not None:
+            members = replace(
+                members,
+                parameters={
+                    k: (replace(p, value=float(values[p.name])) if p.name in values else p)
+                    for k, p in members.parameters.items()
+                },
+            )
+        return MassModel(tuple(comps), self.label, members)
 
     def fixed(self) -> "MassModel":
         """A copy with every parameter held at its value."""
@@ -133,7 +207,17 @@ class MassModel:
             ComponentRecipe(c.kind, {k: replace(p, vary=False) for k, p in c.parameters.items()})
             for c in self.components
         ]
-        return MassModel(tuple(comps), self.label)
+        members = self.members
+        if members is not None:
+            members = replace(
+                members,
+                parameters={k: replace(p, vary=False) for k, p in members.parameters.items()},
+            )
+        return MassModel(tuple(comps), self.label, members)
+
+    def with_members(self, members: "MemberGroup | None") -> "MassModel":
+        """A copy with the members table's galaxies (None: without)."""
+        return MassModel(self.components, self.label, members)
 
     # -- building lenses -------------------------------------------------------------
     def lens(self, free_values=None) -> Lens:
@@ -149,6 +233,8 @@ class MassModel:
         for c in self.components:
             vals = {k: lookup.get(p.name, p.value) for k, p in c.parameters.items()}
             comps.append(c.profile_class.from_values(vals))
+        if self.members is not None:
+            comps += self.members.profiles(lookup)
         return Lens(tuple(comps))
 
     def n_free(self) -> int:
@@ -324,3 +410,37 @@ def default_galaxy_recipe(image_x, image_y, centre: tuple[float, float] = (0.0, 
         },
     ]
     return parse_mass_entries(entries, label="default_galaxy")
+
+
+#: ``[members]`` keys: name -> default (None: required). Exponents default to 0.5
+#: (θE ∝ L^0.5 from σ ∝ L^(1/4), Faber & Jackson 1976, and θE ∝ σ²; a and s ∝ L^0.5 for a
+#: constant mass-to-light ratio: common practice).
+MEMBER_KEYS = {
+    "reference_mag": None,
+    "einstein_radius": None,
+    "cut": None,
+    "core": 0.0,
+    "einstein_exponent": 0.5,
+    "cut_exponent": 0.5,
+    "core_exponent": 0.5,
+}
+
+
+def parse_member_parameters(table: dict) -> dict[str, ModelParameter]:
+    """The shared parameters of a ``[members]`` table (numbers or free-parameter tables)."""
+    out = {}
+    for key, default in MEMBER_KEYS.items():
+        if key not in table:
+            if default is None:
+                raise InputError(f"members.{key} is required, got nothing")
+            out[key] = ModelParameter(f"members.{key}", float(default))
+            continue
+        out[key] = parse_parameter(key, table[key], f"members.{key}")
+    for key in ("einstein_radius", "cut"):
+        p = out[key]
+        low = p.min if p.vary else p.value
+        if not low > 0:
+            raise InputError(f"members.{key} must be > 0 (and so its min), got {low:g}")
+    if out["core"].value < 0 or (out["core"].vary and out["core"].min < 0):
+        raise InputError(f"members.core must be >= 0, got {out['core'].value:g}")
+    return out

@@ -23,7 +23,14 @@ import numpy as np
 
 from lensdelay.model.cosmology import cosmology_from_spec
 from lensdelay.errors import InputError, LensdelayWarning, choices_text, suggest
-from lensdelay.model.recipe import MassModel, default_galaxy_recipe, parse_mass_entries
+from lensdelay.model.recipe import (
+    MEMBER_KEYS,
+    MassModel,
+    MemberGroup,
+    default_galaxy_recipe,
+    parse_mass_entries,
+    parse_member_parameters,
+)
 
 
 @dataclass(frozen=True)
@@ -243,11 +250,16 @@ TOP_KEYS = (
     "site",
     "mass",
     "model",
+    "members",
 )
+MEMBERS_KEYS = ("catalogue", "exclude", *MEMBER_KEYS)
 
 
 def parse_scenario(
-    doc: dict, source: str, load_model: Callable[[str], MassModel] | None = None
+    doc: dict,
+    source: str,
+    load_model: Callable[[str], MassModel] | None = None,
+    load_table: Callable[[str], dict] | None = None,
 ) -> Scenario:
     """Validate a parsed scenario document.
 
@@ -259,14 +271,96 @@ def parse_scenario(
         The file name, for messages.
     load_model : callable, optional
         Reads ``model = "..."`` references; required when the scenario uses one.
+    load_table : callable, optional
+        Reads ``[members] catalogue = "..."``: returns column name -> array (masked
+        where cells are empty); required when the scenario has members.
     """
     try:
-        return _parse(doc, source, load_model)
+        return _parse(doc, source, load_model, load_table)
     except InputError as err:
         raise err.with_source(source) from err.__cause__
 
 
-def _parse(doc, source, load_model):
+def _column(columns: dict, name: str, ref: str, n: int, default=None) -> np.ndarray:
+    """A float column of a members table; masked or missing cells take ``default``."""
+    if name not in columns:
+        if default is None:
+            raise InputError(
+                f"members.catalogue {ref!r} needs a column {name!r}; "
+                f"it has {choices_text(list(columns))}"
+            )
+        return np.full(n, float(default))
+    try:
+        col = np.ma.masked_invalid(np.ma.asarray(columns[name], dtype=float))
+    except (TypeError, ValueError) as err:
+        raise InputError(
+            f"members.catalogue {ref!r} column {name!r} must hold numbers, "
+            f"got {list(columns[name])[:3]!r}"
+        ) from err
+    if default is None and np.any(np.ma.getmaskarray(col)):
+        raise InputError(f"members.catalogue {ref!r} column {name!r} has empty cells")
+    return np.asarray(col.filled(default if default is not None else np.nan), dtype=float)
+
+
+def _parse_members(raw, load_table, sky) -> MemberGroup:
+    """``[members]``: the catalogue's galaxies and their shared scaling parameters."""
+    tab = _Table(raw, "members", MEMBERS_KEYS)
+    ref = tab.text("catalogue")
+    if load_table is None:
+        raise InputError(f"members.catalogue = {ref!r} needs a file loader, got none")
+    exclude = raw.get("exclude", [])
+    if not isinstance(exclude, list):
+        raise InputError(f"members.exclude must be a list of ids, got {exclude!r}")
+    exclude = {str(e) for e in exclude}
+    params = parse_member_parameters({k: v for k, v in raw.items() if k in MEMBER_KEYS})
+    columns = load_table(ref)
+    if "id" not in columns:
+        raise InputError(
+            f"members.catalogue {ref!r} needs a column 'id'; it has {choices_text(list(columns))}"
+        )
+    ids = [str(v) for v in columns["id"]]
+    n = len(ids)
+    if "x" in columns and "y" in columns:
+        x, y = _column(columns, "x", ref, n), _column(columns, "y", ref, n)
+    elif "ra" in columns and "dec" in columns:
+        if sky is None:
+            raise InputError(
+                f"members.catalogue {ref!r} gives ra, dec: the scenario needs [sky] ra, dec "
+                "(its origin) to place them, got nothing"
+            )
+        where = SkyCoord(
+            _column(columns, "ra", ref, n) * u.deg, _column(columns, "dec", ref, n) * u.deg
+        )
+        east, north = sky.spherical_offsets_to(where)
+        x, y = east.to_value(u.arcsec), north.to_value(u.arcsec)
+    else:
+        raise InputError(
+            f"members.catalogue {ref!r} needs columns x, y (arcsec) or ra, dec (degrees); "
+            f"it has {choices_text(list(columns))}"
+        )
+    mag = _column(columns, "mag", ref, n)
+    q = _column(columns, "axis_ratio", ref, n, default=1.0)
+    pa = _column(columns, "position_angle", ref, n, default=0.0)
+    if np.any((q <= 0) | (q > 1)):
+        raise InputError(
+            f"members.catalogue {ref!r} column 'axis_ratio' must be in (0, 1], "
+            f"got {q[(q <= 0) | (q > 1)][0]:g}"
+        )
+    keep = np.array([i not in exclude for i in ids])
+    if not np.any(keep):
+        raise InputError(f"members.catalogue {ref!r} has no member left after exclude, got none")
+    return MemberGroup(
+        params,
+        tuple(i for i, k in zip(ids, keep) if k),
+        x[keep],
+        y[keep],
+        mag[keep],
+        q[keep],
+        pa[keep],
+    )
+
+
+def _parse(doc, source, load_model, load_table=None):
     top = _Table(doc, "scenario", TOP_KEYS)
     name = top.text("name", default=source.rsplit("/", 1)[-1].removesuffix(".toml"))
     lens_tab = _Table(doc.get("lens"), "lens", ("redshift", "reference_source_redshift"))
@@ -424,6 +518,9 @@ def _parse(doc, source, load_model):
         if load_model is None:
             raise InputError(f"model = {ref!r} needs a file loader, got none")
         model = load_model(ref)
+
+    if "members" in doc:
+        model = model.with_members(_parse_members(doc["members"], load_table, sky))
 
     return Scenario(
         name,

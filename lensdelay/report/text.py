@@ -61,8 +61,10 @@ def quality_line(q: dict, label: str = "fit") -> str:
     """One line on a fit's quality: p-value, model error given, parameters on bounds."""
     if q["p_value"] is None:
         text = (
-            f"{label}: no degrees of freedom left (dof = {q['dof']}): chi2 does not test "
-            "this model, and priors set part of the answer"
+            f"{label}: exactly constrained (dof = 0): chi2 does not test this model"
+            if q["dof"] == 0
+            else f"{label}: fewer constraints than parameters (dof = {q['dof']}): chi2 does "
+            "not test this model, and the priors set part of the answer"
         )
     else:
         text = f"{label}: chi2 = {q['chi2']:.1f} for {q['dof']} dof, p = {q['p_value']:.2g}"

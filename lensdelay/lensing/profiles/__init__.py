@@ -14,6 +14,7 @@ from lensdelay.lensing.profiles.shear import ExternalShear
 from lensdelay.lensing.profiles.sheet import MassSheet
 from lensdelay.lensing.profiles.sie import IsothermalEllipsoid
 from lensdelay.lensing.profiles.sis import SingularIsothermalSphere
+from lensdelay.lensing.profiles.truncated import TruncatedIsothermal
 
 __all__ = [
     "PROFILES",
@@ -28,4 +29,5 @@ __all__ = [
     "IsothermalMultipole",
     "ExternalShear",
     "MassSheet",
+    "TruncatedIsothermal",
 ]
