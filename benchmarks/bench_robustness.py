@@ -185,13 +185,15 @@ def main() -> int:
     corpus = Path(args.corpus)
     with tempfile.TemporaryDirectory() as tmp:
         runs = cases(corpus, Path(tmp))
+        tally: dict[str, dict[str, int]] = {}
         with ThreadPoolExecutor(args.jobs) as pool:
-            results = list(pool.map(lambda r: classify(r[1], r[2]), runs))
-    tally: dict[str, dict[str, int]] = {}
-    for (name, _, _), (kind, detail) in zip(runs, results):
-        command = name.split()[0]
-        tally.setdefault(command, {"ran": 0, "refused": 0, "FAILED": 0})[kind] += 1
-        print(f"{kind:8} {name:45} {detail}")
+            # results arrive in order as they finish: print each at once
+            for (name, _, _), (kind, detail) in zip(
+                runs, pool.map(lambda r: classify(r[1], r[2]), runs)
+            ):
+                command = name.split()[0]
+                tally.setdefault(command, {"ran": 0, "refused": 0, "FAILED": 0})[kind] += 1
+                print(f"{kind:8} {name:45} {detail}", flush=True)
     print()
     print(f"{'command':10} {'runs':>5} {'ran':>5} {'refused':>8} {'FAILED':>7}")
     for command, t in tally.items():

@@ -344,13 +344,23 @@ def parse_mass_entries(entries, label: str = "model") -> MassModel:
         for req in cls.required_names():
             if req not in params:
                 raise InputError(f"{where}.{req} is required for profile {kind}, got nothing")
-        # check the physical rules on values and on the finite bounds
+        # check the physical rules on values and on the finite bounds (a fit may go there)
         values = {k: p.value for k, p in params.items()}
         try:
             cls.from_values(values)
         except InputError as err:
             message = err.bare_message.replace(f"{kind}.", f"{where}.", 1)
             raise InputError(message) from err
+        for key, p in params.items():
+            for bound in ("min", "max"):
+                edge = getattr(p, bound)
+                if not p.vary or not math.isfinite(edge) or p.period:
+                    continue
+                try:
+                    cls.from_values({**values, key: edge})
+                except InputError as err:
+                    message = err.bare_message.replace(f"{kind}.{key}", f"{where}.{key}.{bound}", 1)
+                    raise InputError(message) from err
         comps.append(ComponentRecipe(kind, params))
     return MassModel(tuple(comps), label)
 

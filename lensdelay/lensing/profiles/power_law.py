@@ -6,7 +6,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from lensdelay.errors import InputError
 from lensdelay.lensing.profiles.base import RADIUS_FLOOR, EllipticalProfile, param
+
+#: Smallest axis ratio of the power law (see the check in ``__post_init__``).
+MIN_AXIS_RATIO = 0.01
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -30,6 +34,16 @@ class EllipticalPowerLaw(EllipticalProfile):
     kind = "power_law"
     einstein_radius: float = param(rule="positive", doc="θE, arcsec")
     slope: float = param(2.0, rule="slope", doc="3-D density slope γ (2 = isothermal)")
+
+    def __post_init__(self) -> None:
+        super().__post_init__()
+        # the series converges as f^n with f = (1 − q)/(1 + q): ~1,800 terms at q = 0.01,
+        # millions at q = 1e-6; flatter than 1:100 is no galaxy anyway
+        if not np.all(np.asarray(self.axis_ratio) >= MIN_AXIS_RATIO):
+            raise InputError(
+                f"{self.kind}.axis_ratio must be in [{MIN_AXIS_RATIO:g}, 1] (the deflection "
+                f"series converges too slowly below), got {np.min(self.axis_ratio):g}"
+            )
 
     @property
     def singular_centre(self) -> bool:  # α diverges or jumps at the centre for γ >= 2
