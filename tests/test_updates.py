@@ -618,3 +618,25 @@ def test_an_image_only_some_models_predict_is_not_presented_as_certain(tmp_path)
     ics = forecast_ics(res)
     if any(im.status in ("now", "future", "uncertain") for im in central):
         assert "possible image" in ics.replace("\r\n ", "")
+
+
+@pytest.mark.parametrize(
+    "weighting, acceptable, evidence, expected",
+    [
+        # BIC: exp(-ΔBIC/2), a difference of 10 leaves the second recipe e^-5 of the weight
+        ("bic", None, [0.0, 0.0, 0.0], np.array([1.0, np.exp(-5.0), np.exp(-10.0)])),
+        # acceptable recipes share equally, a poor one gets nothing
+        ("acceptable", [True, True, False], [0.0, 0.0, 0.0], np.array([1.0, 1.0, 0.0])),
+        # ... times the timing data's marginal likelihood
+        ("acceptable", [True, True, True], [0.0, np.log(3.0), 0.0], np.array([1.0, 3.0, 1.0])),
+        # none acceptable: all share
+        ("acceptable", [False, False, False], [0.0, 0.0, 0.0], np.array([1.0, 1.0, 1.0])),
+        ("equal", None, [0.0, 5.0, -5.0], np.array([1.0, 1.0, 1.0])),
+    ],
+)
+def test_model_weights(weighting, acceptable, evidence, expected):
+    """Weights of several recipes (README, 'How a forecast is made'); arithmetic by hand."""
+    from lensdelay.forecast.samples import model_weights
+
+    w = model_weights([100.0, 110.0, 120.0], evidence, weighting, acceptable)
+    np.testing.assert_allclose(w, expected / expected.sum(), rtol=1e-12)

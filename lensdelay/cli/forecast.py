@@ -95,7 +95,9 @@ def register(sub) -> None:
     p.add_argument(
         "--weights",
         default="bic",
-        help="model weights: bic (default; times the timing data's likelihood) or equal",
+        help="how several --model recipes are combined: bic (default; exp(-BIC/2) times the "
+        "timing data's likelihood), acceptable (equal among recipes whose fit is acceptable, "
+        "times the timing data's likelihood) or equal",
     )
     p.add_argument(
         "--seen",

@@ -18,7 +18,7 @@ from astropy import units as u
 from astropy.time import Time
 
 from lensdelay.model.cosmology import cosmology_from_spec
-from lensdelay.errors import FitError, InputError
+from lensdelay.errors import FitError, InputError, choices_text
 from lensdelay.forecast.result import Forecast, ImageForecast, ImageSampleSet
 from lensdelay.forecast.samples import (
     AGREEMENT,
@@ -31,6 +31,7 @@ from lensdelay.forecast.samples import (
     importance_update,
     majority,
     match_tracks,
+    WEIGHTINGS,
     model_weights,
     parity_name,
     solve_samples,
@@ -256,8 +257,8 @@ def run_forecast(
         settings = replace(settings, depth=float(depth))
     if n_samples < 100 or n_samples > 5_000_000:
         raise InputError(f"n_samples must be between 100 and 5000000, got {n_samples}")
-    if weighting not in ("bic", "equal"):
-        raise InputError(f"weighting must be 'bic' or 'equal', got {weighting!r}")
+    if weighting not in WEIGHTINGS:
+        raise InputError(f"weighting must be one of {choices_text(WEIGHTINGS)}, got {weighting!r}")
     tr = sc0.transient
     sightings = parse_sightings(seen, sc0)
     settings = replace(
@@ -351,10 +352,16 @@ def run_forecast(
             "(each names images the model has), got none",
             sc0.source,
         )
+    acceptable = [f.model_error is None and not f.quality()["poor"] for f in fits]
     w_model = model_weights(
-        [f.bic for f in fits], [u_.log_evidence for u_ in updates], settings.weighting
+        [f.bic for f in fits],
+        [u_.log_evidence for u_ in updates],
+        settings.weighting,
+        acceptable,
     )
-    w_prior = model_weights([f.bic for f in fits], np.zeros(len(fits)), settings.weighting)
+    w_prior = model_weights(
+        [f.bic for f in fits], np.zeros(len(fits)), settings.weighting, acceptable
+    )
     tension_rows = _tensions(
         timings, prior_models, w_prior, np.random.default_rng(next(stage_seeds))
     )

@@ -314,14 +314,33 @@ def majority(codes, weights):
     return values[k], float(shares[k] / max(shares.sum(), 1e-300))
 
 
-def model_weights(bic, log_evidence, weighting: str = "bic") -> np.ndarray:
-    """Posterior model weights: exp(−BIC/2) × the timing data's marginal likelihood.
+#: How several recipes are combined (``--weights``).
+WEIGHTINGS = ("bic", "acceptable", "equal")
 
-    ``"equal"``: the same for every model whatever the data.
+
+def model_weights(bic, log_evidence, weighting: str = "bic", acceptable=None) -> np.ndarray:
+    """Model weights of a forecast with several recipes.
+
+    ``"bic"``: exp(−BIC/2) × the timing data's marginal likelihood. In practice this puts
+    nearly all the weight on one recipe, and with it the windows lose the spread between
+    plausible recipes. ``"acceptable"``: the same prior weight for every recipe whose fit
+    is acceptable (``acceptable``: p ≥ 0.01, or no degrees of freedom to judge by) and
+    none for the others (all of them when none is acceptable), times the timing data's
+    marginal likelihood, so measured delays can still tell recipes apart. ``"equal"``:
+    the same for every model whatever the data.
     """
     bic = np.asarray(bic, dtype=float)
     if weighting == "equal":
         w = np.ones(len(bic))
+    elif weighting == "acceptable":
+        ok = np.ones(len(bic), dtype=bool) if acceptable is None else np.asarray(acceptable)
+        if not np.any(ok):
+            ok = np.ones(len(bic), dtype=bool)
+        logw = np.where(ok, 0.0, -np.inf) + np.asarray(log_evidence, dtype=float)
+        logw = np.where(np.isfinite(logw), logw, -np.inf)
+        if not np.any(np.isfinite(logw)):
+            logw = np.where(ok, 0.0, -np.inf)
+        w = np.exp(logw - np.max(logw))
     else:
         logw = -0.5 * (bic - bic.min()) + np.asarray(log_evidence, dtype=float)
         logw = np.where(np.isfinite(logw), logw, -np.inf)
