@@ -261,5 +261,11 @@ def test_hubble_command_writes_every_file(tmp_path):
     doc = json.loads((out / "hubble.json").read_text())
     assert set(doc["H0"]) == {"median", "p16", "p84", "p2.5", "p97.5"}
     assert 40 < doc["H0"]["median"] < 110 and doc["kappa_ext_comparison"]
+    # the quality of both fits is kept (issue 13): chi2, dof, p, bound hits
+    for key in ("fit_quality", "joint_fit_quality"):
+        q = doc[key]
+        assert {"chi2", "dof", "p_value", "at_bounds", "position_model_error_mas"} <= set(q)
+    # one more datum (the delay) and one more parameter (H0)
+    assert doc["joint_fit_quality"]["dof"] == doc["fit_quality"]["dof"]
     for name in ("hubble_curves.ecsv", "hubble_curves.png", "hubble_posterior.pdf"):
         assert (out / name).stat().st_size > 0
