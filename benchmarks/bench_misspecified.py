@@ -149,6 +149,8 @@ def one_system(args):
                 d["p2.5"] <= truth <= d["p97.5"],
                 0.5 * (d["p97.5"] - d["p2.5"]) / max(abs(truth), 1e-3),
                 poor,
+                # offset of the truth from the median in units of the 68% half-width
+                (truth - d["median"]) / max(0.5 * (d["p84"] - d["p16"]), 1e-6),
             )
         )
     return index, rows, "", time.perf_counter() - t0, satellite
@@ -187,6 +189,11 @@ def main() -> None:
     print(f"coverage of the 95% windows: {100 * a[:, 1].mean():.1f}%")
     print(f"median 95% half-width / |delay|: {100 * np.median(a[:, 2]):.1f}%")
     print(f"poor fits (model error added): {100 * a[:, 3].mean():.0f}% of delays")
+    z = a[:, 4]
+    print(
+        f"truth - median in 68% half-widths: mean {z.mean():+.2f}, median {np.median(z):+.2f} "
+        "(0 if unbiased)"
+    )
     print(f"median time per forecast: {np.median(seconds):.1f} s")
 
 

@@ -374,18 +374,25 @@ def parse_mass_entries(entries, label: str = "model") -> MassModel:
 SLOPE_PRIOR = (2.078, 0.16)
 #: Hard range of the slope: the prior's ±3.4σ, inside the profile's (1, 3).
 SLOPE_BOUNDS = (1.5, 2.65)
-#: External shear of galaxy-scale lenses rarely exceeds 0.3 (common practice); flat in
-#: its two components within that disc.
+#: External shear of galaxy-scale lenses rarely exceeds 0.3 (common practice).
 SHEAR_MAX = 0.3
+#: Prior on the shear strength: a half-normal of scale 0.1 (median 0.07), the size of the
+#: shears lens models of quads need and line-of-sight studies predict, a few 0.01 to ~0.1
+#: (e.g. Keeton, Kochanek & Seljak 1997, ApJ 482, 604; from memory).
+SHEAR_PRIOR = (0.0, 0.1)
+#: Prior on the axis ratio of the mass: lens galaxies' isodensity contours have q ≈ 0.75
+#: with a scatter of ~0.2 (SLACS, Koopmans et al. 2006, ApJ 649, 599; from memory).
+AXIS_RATIO_PRIOR = (0.75, 0.2)
 
 
 def default_galaxy_recipe(image_x, image_y, centre: tuple[float, float] = (0.0, 0.0)) -> MassModel:
     """The recipe used when a scenario names no mass model: power law + external shear.
 
     An elliptical power law whose slope has the population prior :data:`SLOPE_PRIOR`,
-    axis ratio in [0.2, 1], free position angle, centre within 1″ of ``centre`` (the
-    lens light when given), Einstein radius started at the images' mean distance from
-    the centre (bounds 0.05–10″), plus a shear of strength in [0, :data:`SHEAR_MAX`].
+    axis ratio with :data:`AXIS_RATIO_PRIOR` in [0.2, 1], free position angle, centre
+    within 1″ of ``centre`` (the lens light when given), Einstein radius started at the
+    images' mean distance from the centre (bounds 0.05–10″), plus a shear whose strength
+    has :data:`SHEAR_PRIOR` in [0, :data:`SHEAR_MAX`].
 
     Parameters
     ----------
@@ -408,14 +415,24 @@ def default_galaxy_recipe(image_x, image_y, centre: tuple[float, float] = (0.0, 
                 "max": SLOPE_BOUNDS[1],
                 "prior": list(SLOPE_PRIOR),
             },
-            "axis_ratio": {"value": 0.8, "min": 0.2, "max": 1.0},
+            "axis_ratio": {
+                "value": 0.8,
+                "min": 0.2,
+                "max": 1.0,
+                "prior": list(AXIS_RATIO_PRIOR),
+            },
             "position_angle": {"value": 0.0},
             "x": {"value": cx, "min": cx - 1.0, "max": cx + 1.0},
             "y": {"value": cy, "min": cy - 1.0, "max": cy + 1.0},
         },
         {
             "profile": "shear",
-            "strength": {"value": 0.05, "min": 0.0, "max": SHEAR_MAX},
+            "strength": {
+                "value": 0.05,
+                "min": 0.0,
+                "max": SHEAR_MAX,
+                "prior": list(SHEAR_PRIOR),
+            },
             "position_angle": {"value": 0.0},
         },
     ]
