@@ -473,9 +473,9 @@ def test_good_fit_is_left_alone():
 
 
 def test_scenario_without_a_model_gets_the_default_galaxy_recipe():
-    """No [[mass]] and no model line: power law + shear with the population slope prior
-    N(2.078, 0.16) (Auger et al. 2010, ApJ 724, 511; from memory), centred on the lens light,
-    θE started at the images' mean distance from it."""
+    """No [[mass]] and no model line: power law + shear + m = 3, 4 multipoles, with the
+    population slope prior N(2.078, 0.16) (Auger et al. 2010, ApJ 724, 511; from memory),
+    centred on the lens light, θE started at the images' mean distance from it."""
     from lensdelay.model.recipe import SLOPE_PRIOR
 
     lens = Lens((IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),))
@@ -487,9 +487,16 @@ def test_scenario_without_a_model_gets_the_default_galaxy_recipe():
     }
     sc = parse_scenario(doc, "simulated.toml")
     assert sc.model.label == "default_galaxy"
-    assert [c.kind for c in sc.model.components] == ["power_law", "shear"]
+    kinds = [c.kind for c in sc.model.components]
+    assert kinds == ["power_law", "shear", "multipole", "multipole"]
     slope = sc.model.components[0].parameters["slope"]
     assert slope.vary and slope.prior == SLOPE_PRIOR == (2.078, 0.16)
+    # m = 3 and 4 terms about the lens light, priors N(0, 0.01 θE_start)
+    start = sc.model.components[0].parameters["einstein_radius"].value
+    for comp, order in zip(sc.model.components[2:], (3, 4)):
+        assert comp.parameters["order"].value == order
+        assert comp.parameters["x"].value == 0.05 and not comp.parameters["x"].vary
+        assert comp.parameters["cosine"].prior == pytest.approx((0.0, 0.01 * start))
     x = sc.model.components[0].parameters["x"]
     assert x.value == 0.05 and (x.min, x.max) == (-0.95, 1.05)
     radius = np.mean(

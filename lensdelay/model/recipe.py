@@ -380,6 +380,11 @@ SHEAR_MAX = 0.3
 #: shears lens models of quads need and line-of-sight studies predict, a few 0.01 to ~0.1
 #: (e.g. Keeton, Kochanek & Seljak 1997, ApJ 482, 604; from memory).
 SHEAR_PRIOR = (0.0, 0.1)
+#: Prior on each multipole term (m = 3, 4) relative to θE: lens galaxies' isophotes deviate
+#: from ellipses by |a_m| of about 0.01 (Hao et al. 2006, MNRAS 370, 1339, for a4; from
+#: memory). At the per-cent level such terms move images by tens of mas and shift quads'
+#: delays by tens of per cent, so the default recipe carries them.
+MULTIPOLE_PRIOR = 0.01
 #: Prior on the axis ratio of the mass: lens galaxies' isodensity contours have q ≈ 0.75
 #: with a scatter of ~0.2 (SLACS, Koopmans et al. 2006, ApJ 649, 599; from memory).
 AXIS_RATIO_PRIOR = (0.75, 0.2)
@@ -392,7 +397,9 @@ def default_galaxy_recipe(image_x, image_y, centre: tuple[float, float] = (0.0, 
     axis ratio with :data:`AXIS_RATIO_PRIOR` in [0.2, 1], free position angle, centre
     within 1″ of ``centre`` (the lens light when given), Einstein radius started at the
     images' mean distance from the centre (bounds 0.05–10″), plus a shear whose strength
-    has :data:`SHEAR_PRIOR` in [0, :data:`SHEAR_MAX`].
+    has :data:`SHEAR_PRIOR` in [0, :data:`SHEAR_MAX`], plus m = 3 and m = 4 isothermal
+    multipoles about ``centre`` whose cosine and sine terms have priors
+    N(0, :data:`MULTIPOLE_PRIOR`·θE).
 
     Parameters
     ----------
@@ -436,6 +443,19 @@ def default_galaxy_recipe(image_x, image_y, centre: tuple[float, float] = (0.0, 
             "position_angle": {"value": 0.0},
         },
     ]
+    width = MULTIPOLE_PRIOR * theta_e
+    for order in (3, 4):
+        term = {"value": 0.0, "min": -10 * width, "max": 10 * width, "prior": [0.0, width]}
+        entries.append(
+            {
+                "profile": "multipole",
+                "order": order,
+                "cosine": dict(term),
+                "sine": dict(term),
+                "x": cx,
+                "y": cy,
+            }
+        )
     return parse_mass_entries(entries, label="default_galaxy")
 
 
