@@ -20,7 +20,7 @@ from lensdelay.errors import FitError, InputError, LensdelayWarning
 from lensdelay.lensing.critical import critical_lines
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import MISSING_IMAGE_PENALTY, ImageLikelihood
-from lensdelay.inference.misfit import POOR_FIT_P, ModelError, fit_p_value
+from lensdelay.inference.misfit import POOR_FIT_P, ModelError, fit_p_value, judged_p_value
 
 
 def _safe(name: str) -> str:
@@ -82,7 +82,7 @@ class FitResult:
             "chi2": float(self.chi2),
             "dof": int(self.dof),
             "p_value": self.p_value,
-            "poor": err is not None or (self.p_value is not None and self.p_value < POOR_FIT_P),
+            "poor": err is not None or judged_p_value(self.chi2, self.dof) < POOR_FIT_P,
             "position_model_error_mas": 1e3 * err.floor_arcsec if err else 0.0,
             "chi2_before": err.chi2 if err else None,
             "p_before": err.p_value if err else None,

@@ -9,13 +9,16 @@ fit with the stated errors would give windows as narrow as those of a perfect fi
 the image positions are given a model error instead (the rule, stated in the README):
 
     every image's σ becomes sqrt(σ² + f²), with f the one value for which the
-    positions' χ² at the best fit equals their share of the degrees of freedom,
-    Σ_images (Δx² + Δy²) / (σ² + f²) = dof · n_position / n_constraints,
+    positions' χ² at the best fit comes down to
+    min(d · n_position / n_constraints, χ²_position · d / χ²),  d = max(dof, 1),
 
-and the model is fitted and sampled again with these errors (common practice: an
-astrometric "model-error" floor, cf. the 5 mas floors of time-delay lens modelling).
-A fit with no degrees of freedom cannot be judged; one whose positions are already
-reproduced is left alone.
+i.e. to their share of the degrees of freedom, or lower when the other terms (priors,
+lens light) carry most of the misfit, so that the refit can relax them, and the model is
+fitted again with these errors (while the refit is still poor, up to four rounds, each
+adding in quadrature the floor the new best fit needs) and sampled (common practice: an astrometric
+"model-error" floor, cf. the few-mas floors of time-delay lens modelling). A fit with
+no degrees of freedom left is judged as if it had one (an exactly constrained model
+should reproduce its data: χ² above the 99th percentile of χ²₁, 6.6, is poor).
 """
 
 from __future__ import annotations
@@ -34,6 +37,11 @@ def fit_p_value(chi2: float, dof: int) -> float | None:
     if dof <= 0 or not np.isfinite(chi2):
         return None
     return float(stats.chi2.sf(chi2, dof))
+
+
+def judged_p_value(chi2: float, dof: int) -> float:
+    """The p-value a fit is judged by: that of :func:`fit_p_value` with at least one dof."""
+    return float(stats.chi2.sf(chi2, max(dof, 1))) if np.isfinite(chi2) else 0.0
 
 
 @dataclass(frozen=True)
@@ -67,22 +75,27 @@ class ModelError:
 def position_floor(like, values: np.ndarray) -> float:
     """The model error f (arcsec) of the rule in this module's docstring.
 
-    Images the model does not reproduce at ``values`` are left out of the sum (they are
-    penalised separately). Returns 0 when the positions already meet their share.
+    σ is the likelihood's current error (with any floor already given), so a further
+    floor adds to it in quadrature. Images the model does not reproduce at ``values``
+    are left out of the sum (they are penalised separately). Returns 0 when the
+    positions already meet their share.
     """
     preds = like.predict(np.atleast_2d(values))
     r2, s2 = [], []
-    for fam, image in zip(like.scenario.families, preds):
-        sigma = np.array([im.sigma for im in fam.images])
+    for fam, image in zip(like.families, preds):
         ok = image["ok"][0]
-        dx = image["x"][0] - np.array([im.x for im in fam.images])
-        dy = image["y"][0] - np.array([im.y for im in fam.images])
+        dx, dy = image["x"][0] - fam.x, image["y"][0] - fam.y
         r2.append((dx * dx + dy * dy)[ok])
-        s2.append((sigma * sigma)[ok])
+        s2.append((fam.sigma * fam.sigma)[ok])
     r2, s2 = np.concatenate(r2), np.concatenate(s2)
-    n_position = 2 * sum(len(f.images) for f in like.scenario.families)
-    target = like.dof * n_position / like.n_constraints
-    if target <= 0 or len(r2) == 0 or np.sum(r2 / s2) <= target:
+    n_position = 2 * sum(len(f.x) for f in like.families)
+    d = max(like.dof, 1)
+    chi2_position = float(np.sum(r2 / s2))
+    chi2_total = float(np.sum(like.residuals(np.atleast_2d(values))[0, : like.n_constraints] ** 2))
+    target = d * n_position / like.n_constraints
+    if chi2_total > 0:
+        target = min(target, chi2_position * d / chi2_total)
+    if target <= 0 or len(r2) == 0 or chi2_position <= target:
         return 0.0
 
     def excess(f):

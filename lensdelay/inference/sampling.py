@@ -21,7 +21,7 @@ import numpy as np
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
 from lensdelay.inference.fit import fit
-from lensdelay.inference.misfit import POOR_FIT_P, ModelError, position_floor
+from lensdelay.inference.misfit import POOR_FIT_P, ModelError, judged_p_value, position_floor
 from lensdelay.inference.moves import FisherLangevinMove
 from lensdelay.inference.backend import NpzCheckpoint
 
@@ -300,6 +300,10 @@ def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.S
     return emcee.State(ball, log_prob=target.log_probability(ball))
 
 
+#: Most refits with a growing model error (each sets the floor again at the new best fit).
+MODEL_ERROR_ROUNDS = 4
+
+
 def _with_model_error(like, result, fit_seed):
     """A poor fit (p < POOR_FIT_P) is fitted again with a model error on the positions.
 
@@ -307,15 +311,23 @@ def _with_model_error(like, result, fit_seed):
     returned result carries :class:`ModelError` and a note. A scenario that already has
     a floor is not judged twice.
     """
-    p = result.p_value
-    if p is None or p >= POOR_FIT_P or like.scenario.position_floor > 0:
+    p = judged_p_value(result.chi2, result.dof)
+    if p >= POOR_FIT_P or like.scenario.position_floor > 0:
         return result
-    floor = position_floor(like, result.values)
+    first, floor, refit = result, 0.0, result
+    # the floor is set at the best fit, which moves once positions are looser: a few rounds
+    for _ in range(MODEL_ERROR_ROUNDS):
+        extra = position_floor(like, refit.values)
+        if extra <= 0:
+            break
+        floor = float(np.hypot(floor, extra))
+        like.set_position_floor(floor)
+        refit = fit(like, seed=fit_seed)
+        if judged_p_value(refit.chi2, refit.dof) >= POOR_FIT_P:
+            break
     if floor <= 0:
         return result
-    error = ModelError(floor, result.chi2, result.dof, p)
-    like.set_position_floor(floor)
-    refit = fit(like, seed=fit_seed)
+    error = ModelError(floor, first.chi2, first.dof, p)
     return replace(refit, model_error=error, notes=[error.note(), *refit.notes])
 
 
