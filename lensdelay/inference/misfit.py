@@ -101,7 +101,22 @@ def position_floor(like, values: np.ndarray) -> float:
     def excess(f):
         return float(np.sum(r2 / (s2 + f * f))) - target
 
-    hi = float(np.sqrt(np.max(r2))) + 1e-6
-    while excess(hi) > 0:  # cannot happen for target < n_images, but be sure
-        hi *= 2.0
+    # never more than the largest residual seen: a model error beyond the misfit actually
+    # measured would only throw the positions' information away
+    hi = float(np.sqrt(np.max(r2)))
+    if excess(hi) > 0:
+        return hi
     return float(optimize.brentq(excess, 0.0, hi, xtol=1e-9))
+
+
+def largest_residual(like, values: np.ndarray) -> float:
+    """The largest offset (arcsec) of a reproduced image from its observed position."""
+    preds = like.predict(np.atleast_2d(values))
+    out = 0.0
+    for fam, image in zip(like.families, preds):
+        ok = image["ok"][0]
+        if np.any(ok):
+            out = max(
+                out, float(np.max(np.hypot(image["x"][0] - fam.x, image["y"][0] - fam.y)[ok]))
+            )
+    return out

@@ -21,7 +21,13 @@ import numpy as np
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
 from lensdelay.inference.fit import fit
-from lensdelay.inference.misfit import POOR_FIT_P, ModelError, judged_p_value, position_floor
+from lensdelay.inference.misfit import (
+    POOR_FIT_P,
+    ModelError,
+    judged_p_value,
+    largest_residual,
+    position_floor,
+)
 from lensdelay.inference.moves import FisherLangevinMove
 from lensdelay.inference.backend import NpzCheckpoint
 
@@ -315,12 +321,14 @@ def _with_model_error(like, result, fit_seed):
     if p >= POOR_FIT_P or like.scenario.position_floor > 0:
         return result
     first, floor, refit = result, 0.0, result
+    # never more than the first fit's largest residual (the misfit actually seen)
+    cap = largest_residual(like, result.values)
     # the floor is set at the best fit, which moves once positions are looser: a few rounds
     for _ in range(MODEL_ERROR_ROUNDS):
         extra = position_floor(like, refit.values)
-        if extra <= 0:
+        if extra <= 0 or floor >= cap:
             break
-        floor = float(np.hypot(floor, extra))
+        floor = min(float(np.hypot(floor, extra)), cap)
         like.set_position_floor(floor)
         refit = fit(like, seed=fit_seed)
         if judged_p_value(refit.chi2, refit.dof) >= POOR_FIT_P:
