@@ -448,7 +448,11 @@ def test_poor_fit_gets_a_position_model_error_and_wider_posterior():
     d = max(like.dof, 1)
     chi2 = np.sum(like.residuals(first.values)[0, : like.n_constraints] ** 2)
     target = min(d * 8 / like.n_constraints, chi2_position * d / chi2)
-    assert np.sum(r2 / (fam.sigma**2 + floor**2)) == pytest.approx(target, rel=1e-6)
+    largest = np.sqrt(np.max(r2))
+    if np.sum(r2 / (fam.sigma**2 + largest**2)) > target:
+        assert floor == pytest.approx(largest)  # capped at the misfit actually seen
+    else:
+        assert np.sum(r2 / (fam.sigma**2 + floor**2)) == pytest.approx(target, rel=1e-6)
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)  # short chain

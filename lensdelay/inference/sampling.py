@@ -308,6 +308,8 @@ def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.S
 
 #: Most refits with a growing model error (each sets the floor again at the new best fit).
 MODEL_ERROR_ROUNDS = 4
+#: The model error never exceeds this many times the first fit's largest image residual.
+MODEL_ERROR_CAP = 10.0
 
 
 def _with_model_error(like, result, fit_seed):
@@ -321,8 +323,9 @@ def _with_model_error(like, result, fit_seed):
     if p >= POOR_FIT_P or like.scenario.position_floor > 0:
         return result
     first, floor, refit = result, 0.0, result
-    # never more than the first fit's largest residual (the misfit actually seen)
-    cap = largest_residual(like, result.values)
+    # never far beyond the misfit actually seen: a floor much larger than the first fit's
+    # residuals would only throw the positions' information away
+    cap = MODEL_ERROR_CAP * largest_residual(like, result.values)
     # the floor is set at the best fit, which moves once positions are looser: a few rounds
     for _ in range(MODEL_ERROR_ROUNDS):
         extra = position_floor(like, refit.values)
