@@ -319,6 +319,11 @@ def _with_model_error(like, result, fit_seed):
     returned result carries :class:`ModelError` and a note. A scenario that already has
     a floor is not judged twice.
     """
+    if getattr(like, "use_delays", False):
+        # a joint fit with timing data: its misfit may be a tension between the delays and
+        # the positions, which is reported as such; loosening the positions would hide it.
+        # The positions-only fit before it has already been judged (its floor is inherited).
+        return result
     p = judged_p_value(result.chi2, result.dof)
     if p >= POOR_FIT_P or like.scenario.position_floor > 0:
         return result
