@@ -153,3 +153,24 @@ def test_missing_members_file_and_missing_key(tmp_path, capsys):
     path = write(tmp_path, SCENARIO.replace("reference_mag = 19.0\n", ""))
     assert main(["check", str(path)]) == 2
     assert "members.reference_mag is required" in capsys.readouterr().err
+
+
+def test_members_near_the_images_are_drawn_in_the_sky_figure(tmp_path):
+    """The sky view widens to the member galaxies near the images and draws them."""
+    import warnings
+
+    from lensdelay.api import fit_scenario
+    from lensdelay.errors import LensdelayWarning
+    from lensdelay.report.figures import sky_figure
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)  # an under-constrained double
+        res = fit_scenario(write(tmp_path, table=TABLE.replace("g1 4.2 -3.1", "g1 2.5 -1.5")))
+    view = res.sky_view(resolution=80)
+    # the images span 1.9 arcsec of view: g1 (2.5 arcsec out) is within twice that, g2 and
+    # g3 (6 and 8 arcsec) are not
+    assert view["extent"] == pytest.approx(1.15 * 2.5)
+    np.testing.assert_allclose(view["members"]["x"], [2.5, -6.0, 8.0])
+    fig = sky_figure(view)
+    labels = fig.axes[0].get_legend_handles_labels()[1]
+    assert "member galaxies" in labels

@@ -441,6 +441,13 @@ class ScenarioFit:
         like, values = self.likelihood, self.fit.values
         pts = np.concatenate([np.hypot(f.x, f.y) for f in like.families])
         extent = 1.4 * float(pts.max()) + 0.3
+        members = like.model.members
+        if members is not None:
+            # widen the view to the member galaxies near the images (up to twice as far)
+            far = np.maximum(np.abs(members.x), np.abs(members.y))
+            near = far[far <= 2 * extent]
+            if len(near):
+                extent = max(extent, 1.15 * float(near.max()))
         lens = like.model.lens(values[: like.n_model])
         families = []
         for k, (fam, pred) in enumerate(zip(like.families, like.predict(values[None, :]))):
@@ -460,4 +467,9 @@ class ScenarioFit:
                     ),
                 }
             )
-        return {"extent": extent, "families": families, "unobserved": self.fit.unobserved_images}
+        return {
+            "extent": extent,
+            "families": families,
+            "unobserved": self.fit.unobserved_images,
+            "members": None if members is None else {"x": members.x, "y": members.y},
+        }

@@ -77,6 +77,20 @@ def sky_figure(view: dict, title: str = ""):
             ms=8,
             label="predicted, not observed" if j == 0 else None,
         )
+    members = view.get("members")
+    if members is not None and len(members["x"]):
+        # member galaxies inside the view (a catalogue may reach far beyond it)
+        inside = (np.abs(members["x"]) <= view["extent"]) & (np.abs(members["y"]) <= view["extent"])
+        if np.any(inside):
+            ax.plot(
+                members["x"][inside],
+                members["y"][inside],
+                "D",
+                mfc="none",
+                mec="0.35",
+                ms=6,
+                label="member galaxies",
+            )
     _sky_axes(ax, view["extent"])
     ax.set_title(title or "Sky view (North up, East left)")
     ax.legend(fontsize=7, loc="upper left", framealpha=0.8)
