@@ -344,7 +344,7 @@ def test_dates_with_utc_offsets_are_converted_whatever_the_sign(text, utc):
     assert parse_date(text, "transient.date").isot[:19] == utc
 
 
-def test_ecsv_masks_missing_values_instead_of_nan(tmp_path):
+def test_ecsv_masks_missing_values_instead_of_nan(tmp_path, quick_forecast_args):
     """No site and no transient magnitude: those cells are masked (empty in ECSV, the
     astropy.table convention), never 'nan'; the table reads back with astropy."""
     from astropy.table import Table
@@ -355,40 +355,22 @@ def test_ecsv_masks_missing_values_instead_of_nan(tmp_path):
     text += '\n[[mass]]\nprofile = "SIS"\neinstein_radius = 1.0\n' if "[[mass]]" not in text else ""
     path.write_text(text)
     out = tmp_path / "out"
-    assert (
-        main(
-            [
-                "forecast",
-                str(path),
-                "--out",
-                str(out),
-                "--samples",
-                "500",
-                "--steps",
-                "100",
-                "--walkers",
-                "16",
-                "--quiet",
-                "--now",
-                "2027-01-01",
-            ]
-        )
-        == 0
-    )
+    assert main(["forecast", str(path), *quick_forecast_args(out)]) == 0
     ecsv = (out / "forecast.ecsv").read_text()
     assert "nan" not in ecsv.lower()
     table = Table.read(out / "forecast.ecsv", format="ascii.ecsv")
     assert table["p_observable"].mask.all() and table["magnitude_median"].mask.all()
 
 
-def test_dates_beyond_ten_thousand_years_are_refused_in_one_line(tmp_path, capsys):
+def test_dates_beyond_ten_thousand_years_are_refused_in_one_line(
+    tmp_path, capsys, quick_forecast_args
+):
     """A 700-arcsec SIS puts the second image ~10^4.5 years after the first (delay ∝ θE²,
     SEF92 Sect. 8.1.4): beyond what the time library can date (years up to 9999, ERFA), so
     one line, exit 2, nothing written -- not a traceback after the run."""
     path = _sis_like_scenario(tmp_path, theta_e=700.0)
     out = tmp_path / "out"
-    argv = ["forecast", str(path), "--out", str(out), "--samples", "300", "--steps", "60"]
-    code = main([*argv, "--walkers", "16", "--quiet", "--now", "2027-01-11"])
+    code = main(["forecast", str(path), *quick_forecast_args(out)])
     err = capsys.readouterr().err
     assert code == 2, err
     lines = [line for line in err.splitlines() if not line.startswith("warning:")]

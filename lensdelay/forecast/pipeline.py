@@ -352,7 +352,7 @@ def run_forecast(
             "(each names images the model has), got none",
             sc0.source,
         )
-    acceptable = [f.model_error is None and not f.quality()["poor"] for f in fits]
+    acceptable = [not f.quality()["poor"] for f in fits]  # poor includes a model error
     w_model = model_weights(
         [f.bic for f in fits],
         [u_.log_evidence for u_ in updates],

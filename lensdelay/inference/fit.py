@@ -108,6 +108,15 @@ def improper_parameters(like: ImageLikelihood) -> list[str]:
     return out
 
 
+def underconstrained_note(like: ImageLikelihood) -> str:
+    """What a model with fewer constraints than free parameters means for its answer."""
+    return (
+        f"{like.n_parameters} free parameters but only {like.n_constraints} constraints: "
+        "the posterior is proper only through the priors and bounds, which set part of "
+        "the answer"
+    )
+
+
 def check_constraints(like: ImageLikelihood) -> None:
     """Refuse under-constrained set-ups without proper priors; warn on the others.
 
@@ -125,9 +134,7 @@ def check_constraints(like: ImageLikelihood) -> None:
                 "fix them or give them bounds or a prior, got an under-constrained fit"
             )
         warnings.warn(
-            f"model {like.model.label!r} has {like.n_parameters} free parameters but only "
-            f"{like.n_constraints} constraints: its posterior is proper only through the "
-            "priors and bounds, which set part of the answer",
+            f"model {like.model.label!r}: {underconstrained_note(like)}",
             LensdelayWarning,
             stacklevel=2,
         )

@@ -67,6 +67,11 @@ class FamilyData:
     labels: list[str]
 
 
+def _position_sigmas(family, floor: float) -> np.ndarray:
+    """A family's stated position errors with a model error ``floor`` in quadrature."""
+    return np.hypot([im.sigma for im in family.images], floor)
+
+
 class ImageLikelihood:
     """χ² of observed image positions (plus priors, lens light and delays).
 
@@ -130,7 +135,7 @@ class ImageLikelihood:
                     self.distances.days_per_arcsec2(fam.redshift),
                     np.array([im.x for im in fam.images]),
                     np.array([im.y for im in fam.images]),
-                    np.hypot([im.sigma for im in fam.images], scenario.position_floor),
+                    _position_sigmas(fam, scenario.position_floor),
                     fam.labels,
                 )
             )
@@ -249,7 +254,7 @@ class ImageLikelihood:
         """
         self.scenario = replace(self.scenario, position_floor=float(floor))
         for k, fam in enumerate(self.scenario.families):
-            self.families[k].sigma = np.hypot([im.sigma for im in fam.images], floor)
+            self.families[k].sigma = _position_sigmas(fam, floor)
 
     # -- bookkeeping ---------------------------------------------------------------
     @property

@@ -72,6 +72,18 @@ class ModelError:
         )
 
 
+def _position_residuals(like, values: np.ndarray):
+    """Squared offsets and σ² of the reproduced images, and the predictions (one solve)."""
+    preds = like.predict(np.atleast_2d(values))
+    r2, s2 = [], []
+    for fam, image in zip(like.families, preds):
+        ok = image["ok"][0]
+        dx, dy = image["x"][0] - fam.x, image["y"][0] - fam.y
+        r2.append((dx * dx + dy * dy)[ok])
+        s2.append((fam.sigma * fam.sigma)[ok])
+    return np.concatenate(r2), np.concatenate(s2), preds
+
+
 def position_floor(like, values: np.ndarray) -> float:
     """The model error f (arcsec) of the rule in this module's docstring.
 
@@ -80,22 +92,18 @@ def position_floor(like, values: np.ndarray) -> float:
     are left out of the sum (they are penalised separately). Returns 0 when the
     positions already meet their share.
     """
-    preds = like.predict(np.atleast_2d(values))
-    r2, s2 = [], []
-    for fam, image in zip(like.families, preds):
-        ok = image["ok"][0]
-        dx, dy = image["x"][0] - fam.x, image["y"][0] - fam.y
-        r2.append((dx * dx + dy * dy)[ok])
-        s2.append((fam.sigma * fam.sigma)[ok])
-    r2, s2 = np.concatenate(r2), np.concatenate(s2)
+    r2, s2, preds = _position_residuals(like, values)
+    if len(r2) == 0:
+        return 0.0
     n_position = 2 * sum(len(f.x) for f in like.families)
     d = max(like.dof, 1)
     chi2_position = float(np.sum(r2 / s2))
-    chi2_total = float(np.sum(like.residuals(np.atleast_2d(values))[0, : like.n_constraints] ** 2))
+    residuals = like.residuals(np.atleast_2d(values), preds)
+    chi2_total = float(np.sum(residuals[0, : like.n_constraints] ** 2))
     target = d * n_position / like.n_constraints
     if chi2_total > 0:
         target = min(target, chi2_position * d / chi2_total)
-    if target <= 0 or len(r2) == 0 or chi2_position <= target:
+    if target <= 0 or chi2_position <= target:
         return 0.0
 
     def excess(f):
@@ -111,12 +119,5 @@ def position_floor(like, values: np.ndarray) -> float:
 
 def largest_residual(like, values: np.ndarray) -> float:
     """The largest offset (arcsec) of a reproduced image from its observed position."""
-    preds = like.predict(np.atleast_2d(values))
-    out = 0.0
-    for fam, image in zip(like.families, preds):
-        ok = image["ok"][0]
-        if np.any(ok):
-            out = max(
-                out, float(np.max(np.hypot(image["x"][0] - fam.x, image["y"][0] - fam.y)[ok]))
-            )
-    return out
+    r2 = _position_residuals(like, values)[0]
+    return float(np.sqrt(np.max(r2))) if len(r2) else 0.0

@@ -20,7 +20,7 @@ import numpy as np
 
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
-from lensdelay.inference.fit import fit
+from lensdelay.inference.fit import fit, underconstrained_note
 from lensdelay.inference.misfit import (
     POOR_FIT_P,
     ModelError,
@@ -402,11 +402,7 @@ def fit_and_sample(
             f"{like.model.label}: {result.model_error.note()}", LensdelayWarning, stacklevel=2
         )
     if like.dof < 0:
-        note = (
-            f"{like.n_parameters} free parameters but only {like.n_constraints} constraints: "
-            "the posterior is proper only through the priors and bounds, which set part of "
-            "the answer"
-        )
+        note = underconstrained_note(like)
         result.notes.insert(0, note)
         warnings.warn(f"{like.model.label}: {note}", LensdelayWarning, stacklevel=2)
     return result, chain

@@ -125,9 +125,9 @@ class MemberGroup:
         """The members' profiles for parameter values ``lookup`` (name -> value)."""
         value = {k: lookup.get(p.name, p.value) for k, p in self.parameters.items()}
         cls = PROFILES["truncated_isothermal"]
+        luminosity = 10.0 ** (-0.4 * (self.mag - value["reference_mag"]))  # L/L*, per member
         out = []
-        for i in range(len(self.ids)):
-            lum = 10.0 ** (-0.4 * (self.mag[i] - value["reference_mag"]))
+        for i, lum in enumerate(luminosity):
             scaled = {k: value[k] * lum ** value[e] for k, e in MEMBER_SCALED.items()}
             out.append(
                 cls.from_values(
@@ -181,39 +181,28 @@ class MassModel:
         """Start values of the free parameters."""
         return np.array([p.value for p in self.free])
 
-    def with_values(self, values: dict[str, float]) -> "MassModel":
-        """A copy whose parameters take ``values`` (by full name) as their values."""
-        comps = []
-        for c in self.components:
-            params = {
-                k: (replace(p, value=float(values[p.name])) if p.name in values else p)
-                for k, p in c.parameters.items()
-            }
-            comps.append(ComponentRecipe(c.kind, params))
+    def _map_parameters(self, change) -> "MassModel":
+        """A copy with ``change(parameter)`` applied to every parameter, members' too."""
+        comps = tuple(
+            ComponentRecipe(c.kind, {k: change(p) for k, p in c.parameters.items()})
+            for c in self.components
+        )
         members = self.members
         if members is not None:
             members = replace(
-                members,
-                parameters={
-                    k: (replace(p, value=float(values[p.name])) if p.name in values else p)
-                    for k, p in members.parameters.items()
-                },
+                members, parameters={k: change(p) for k, p in members.parameters.items()}
             )
-        return MassModel(tuple(comps), self.label, members)
+        return MassModel(comps, self.label, members)
+
+    def with_values(self, values: dict[str, float]) -> "MassModel":
+        """A copy whose parameters take ``values`` (by full name) as their values."""
+        return self._map_parameters(
+            lambda p: replace(p, value=float(values[p.name])) if p.name in values else p
+        )
 
     def fixed(self) -> "MassModel":
         """A copy with every parameter held at its value."""
-        comps = [
-            ComponentRecipe(c.kind, {k: replace(p, vary=False) for k, p in c.parameters.items()})
-            for c in self.components
-        ]
-        members = self.members
-        if members is not None:
-            members = replace(
-                members,
-                parameters={k: replace(p, vary=False) for k, p in members.parameters.items()},
-            )
-        return MassModel(tuple(comps), self.label, members)
+        return self._map_parameters(lambda p: replace(p, vary=False))
 
     def with_members(self, members: "MemberGroup | None") -> "MassModel":
         """A copy with the members table's galaxies (None: without)."""
