@@ -521,3 +521,39 @@ def test_scenario_without_a_model_gets_the_default_galaxy_recipe():
         )
     )
     assert sc.model.components[0].parameters["einstein_radius"].value == pytest.approx(radius)
+
+
+def test_default_recipe_double_walkers_spread_over_the_slope_prior_and_all_move():
+    """A double fitted with the default recipe has more parameters than constraints: the
+    image positions see the slope only through the angular structure, so its posterior
+    keeps much of its prior N(2.078, 0.16) (Auger et al. 2010; from memory). Regression of
+    issue 13: walkers that all started at the best fit, some inside the 1/γ spike of a zero shear in component
+    coordinates, never moved and made the windows too narrow. The walkers now start
+    from randomised fits (lensdelay.inference.starts) and move."""
+    from lensdelay.inference.sampling import fit_and_sample
+    from lensdelay.lensing.profiles import EllipticalPowerLaw
+
+    lens = Lens(
+        (
+            EllipticalPowerLaw(einstein_radius=1.0, slope=2.0, axis_ratio=0.8, position_angle=30),
+            ExternalShear(strength=0.03, position_angle=-40),
+        )
+    )
+    fam = simulate_family(lens, 0.15, -0.2, label="s", redshift=2.0, sigma=0.005)
+    assert len(fam["image"]) == 2
+    doc = {
+        "lens": {"redshift": 0.5},
+        "family": [fam],
+        "lens_light": {"x": 0, "y": 0, "sigma": 0.01},
+    }
+    sc = parse_scenario(doc, "double.toml")
+    like = ImageLikelihood(sc, sc.model)
+    assert like.dof < 0
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        _, chain = fit_and_sample(like, walkers=32, steps=400, fit_seed=0, sample_seed=1)
+    slope = chain.chain[:, :, chain.names.index("mass[0].slope")]
+    # walkers are accepted a few per cent of the time here: nearly all have moved
+    assert np.mean(np.std(slope[chain.burn :], axis=0) > 1e-4) >= 0.9
+    # and the slope is not held near its starting value (the old failure: a spike at 2.078)
+    assert np.std(chain.samples()[:, chain.names.index("mass[0].slope")]) > 0.25 * 0.16

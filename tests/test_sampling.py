@@ -190,10 +190,13 @@ def test_langevin_move_samples_the_exact_posterior_of_a_banana():
             scales=np.array([0.1, 0.1]),
         )
     s = ch.samples()
-    # standard errors with ~2000 effective samples: 0.02 on the mean, 0.016 on the std
-    assert abs(np.mean(s[:, 0])) < 0.08
-    assert abs(np.std(s[:, 0]) - 1.0) < 0.06
-    assert abs(np.mean(s[:, 1]) - 1.0) < 0.1
+    # tolerances of 4 standard errors from the chain's own effective sample size
+    # (walkers × kept steps / τ; about 800 here): 1/√ESS on the mean of u₀, 1/√(2 ESS)
+    # on its standard deviation, √2/√ESS on E[u₁] = E[u₀²] (var u₀² = 2 for N(0, 1))
+    ess = s.shape[0] * ch.thin / np.max(ch.autocorr)
+    assert abs(np.mean(s[:, 0])) < 4 / np.sqrt(ess)
+    assert abs(np.std(s[:, 0]) - 1.0) < 4 / np.sqrt(2 * ess)
+    assert abs(np.mean(s[:, 1]) - 1.0) < 4 * np.sqrt(2 / ess)
     assert 0.2 < ch.acceptance.mean() < 0.95
 
 

@@ -43,40 +43,55 @@ class SamplingCoordinates:
         The likelihood's bounds (used to decide whether an angle is unbounded).
     enabled : bool
         False: convert nothing (u = p).
+    polar : collection of int, optional
+        Indices of radius parameters (an ``axis_ratio`` or a ``strength``) whose pair is
+        kept in its own polar parameters. The component density of a prior that is
+        finite at zero shear (or at a round lens) carries the change-of-variables factor
+        1/γ (1/e): an integrable spike at the origin which walkers that reach it hardly
+        ever leave. A pair whose posterior reaches the origin is therefore better sampled
+        as it is written (see :func:`polar_pairs`).
     """
 
-    def __init__(self, names, lower, upper, enabled: bool = True):
+    def __init__(self, names, lower, upper, enabled: bool = True, polar=()):
         self.names = list(names)
         self.ellipse_pairs: list[tuple[int, int]] = []
         self.shear_pairs: list[tuple[int, int]] = []
         index = {n: i for i, n in enumerate(self.names)} if enabled else {}
+        polar = set(polar)
         for name, i in index.items():
             prefix, _, field = name.rpartition(".")
             if field != "position_angle" or not prefix.startswith("mass["):
                 continue
             if np.isfinite(lower[i]) or np.isfinite(upper[i]):
                 continue
-            if f"{prefix}.axis_ratio" in index:
-                self.ellipse_pairs.append((index[f"{prefix}.axis_ratio"], i))
-            elif f"{prefix}.strength" in index:
-                self.shear_pairs.append((index[f"{prefix}.strength"], i))
+            radius = index.get(f"{prefix}.axis_ratio", index.get(f"{prefix}.strength"))
+            if radius is None or radius in polar:
+                continue
+            if names[radius].endswith(".axis_ratio"):
+                self.ellipse_pairs.append((radius, i))
+            else:
+                self.shear_pairs.append((radius, i))
 
     @property
     def identity(self) -> bool:
         """True when no pair is converted (u = p)."""
         return not (self.ellipse_pairs or self.shear_pairs)
 
-    def prior_scales(self, lower, upper) -> np.ndarray:
+    def prior_scales(self, lower, upper, periods=None) -> np.ndarray:
         """Width of each sampling coordinate's flat prior (its standard deviation), or 0.
 
         A parameter with finite bounds has a flat prior of standard deviation
-        (max − min)/√12; a converted pair's components range over ±e_max (ellipticity,
-        from the smallest axis ratio) or ±γ_max, i.e. a standard deviation of about
-        e_max/√3 each. Unbounded coordinates get 0 (no prior width to lean on).
+        (max − min)/√12, and so has an angle over its period (``periods``); a converted
+        pair's components range over ±e_max (ellipticity, from the smallest axis ratio)
+        or ±γ_max, i.e. a standard deviation of about e_max/√3 each. Other unbounded
+        coordinates get 0 (no prior width to lean on).
         """
         width = np.where(
             np.isfinite(lower) & np.isfinite(upper), (upper - lower) / np.sqrt(12.0), 0.0
         )
+        for i, period in enumerate(periods or []):
+            if period:
+                width[i] = period / np.sqrt(12.0)
         for iq, ia in self.ellipse_pairs:
             e_max = (1.0 - max(lower[iq], 0.0)) / (1.0 + max(lower[iq], 0.0))
             width[iq] = width[ia] = e_max / np.sqrt(3.0)
@@ -148,6 +163,52 @@ class SamplingCoordinates:
                 jac[:, ib_, ia_] = -_HALF_TURN * c2 / r2
                 jac[:, ib_, ib_] = _HALF_TURN * c1 / r2
         return np.where(np.isfinite(jac), jac, 0.0)
+
+
+#: A pair is sampled in components only when its best-fit radius lies this many standard
+#: errors away from the origin (zero shear, a round lens).
+ORIGIN_CLEARANCE = 3.0
+
+
+def polar_pairs(names, start, errors, priors) -> set[int]:
+    """Radius parameters whose posterior may reach the origin, to be sampled as written.
+
+    Only a radius with a Gaussian prior of its own (``priors``) is considered: such a
+    prior states a finite density at zero shear or a round lens, which components turn
+    into the 1/γ spike. (A flat-prior radius keeps its components: there the valley of
+    an under-constrained fit is straight in components and curved in polar parameters,
+    and walkers no longer start at the origin, see :mod:`lensdelay.inference.starts`.)
+    A shear strength γ (or an ellipticity 1 − q) counts as clear of the origin when it
+    exceeds :data:`ORIGIN_CLEARANCE` times its standard error at the best fit; without
+    a finite error (an under-constrained fit) it does not. With no errors at all
+    (``errors=None``) only a pair that starts at the origin is kept polar.
+
+    Parameters
+    ----------
+    names : list of str
+        The likelihood's parameter names.
+    start, errors : ndarray
+        Best fit and its standard errors (NaN where unknown).
+    priors : dict
+        Parameter index -> Gaussian prior (mean, sigma).
+    """
+    out = set()
+    for i, name in enumerate(names):
+        if not name.startswith("mass[") or i not in priors:
+            continue
+        if name.endswith(".strength"):
+            distance = start[i]
+        elif name.endswith(".axis_ratio"):
+            distance = 1.0 - start[i]
+        else:
+            continue
+        if errors is None:
+            clear = distance > 0
+        else:
+            clear = np.isfinite(errors[i]) and distance > ORIGIN_CLEARANCE * errors[i]
+        if not clear:
+            out.add(i)
+    return out
 
 
 class SampledTarget:

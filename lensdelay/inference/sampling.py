@@ -19,7 +19,7 @@ import emcee
 import numpy as np
 
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
-from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates
+from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates, polar_pairs
 from lensdelay.inference.fit import fit, underconstrained_note
 from lensdelay.inference.misfit import (
     POOR_FIT_P,
@@ -29,6 +29,7 @@ from lensdelay.inference.misfit import (
     position_floor,
 )
 from lensdelay.inference.moves import FisherLangevinMove
+from lensdelay.inference.starts import AnchoredTarget, flat_anchors, randomised_fits
 from lensdelay.inference.backend import NpzCheckpoint
 
 
@@ -183,19 +184,22 @@ def sample(
     if walkers < 2 * ndim:
         walkers = 2 * ndim  # emcee's ensemble moves need twice as many walkers as parameters
     rng = np.random.default_rng(seed)
-    coords = SamplingCoordinates(like.names, like.lower, like.upper, enabled=components)
+    # pairs whose posterior may reach zero shear or a round lens stay polar (no 1/γ spike)
+    polar = (
+        polar_pairs(like.names, start, scales, getattr(like, "priors", {})) if components else set()
+    )
+    coords = SamplingCoordinates(like.names, like.lower, like.upper, components, polar)
     target = SampledTarget(like, coords)
+    langevin = None
     if move == "langevin":
         # now and then an ensemble stretch: a walker that strays onto a steep wall, where
         # the local geometry says little, is pulled back by the others
         # with fewer constraints than parameters some directions are seen by the priors
         # alone: the move then explores them at the priors' widths
         under = getattr(like, "dof", 0) < 0  # a test target may not count constraints
-        widths = coords.prior_scales(like.lower, like.upper) if under else None
-        moves = [
-            (FisherLangevinMove(target, prior_widths=widths), 0.9),
-            (emcee.moves.StretchMove(), 0.1),
-        ]
+        widths = coords.prior_scales(like.lower, like.upper, like.periods) if under else None
+        langevin = FisherLangevinMove(target, prior_widths=widths)
+        moves = [(langevin, 0.9), (emcee.moves.StretchMove(), 0.1)]
     elif move == "stretch":
         moves = emcee.moves.StretchMove()
     else:
@@ -203,7 +207,7 @@ def sample(
     # what a resumed run must share with the checkpoint besides seed and shape
     setup = (
         f"move {move}, prior {getattr(like, 'prior', 'flat')}, components {components}, "
-        f"data {_data_fingerprint(like)}"
+        f"polar {sorted(polar)}, data {_data_fingerprint(like)}"
     )
     path = Path(checkpoint_dir) / "chain.npz" if checkpoint_dir else None
     backend = NpzCheckpoint(path, seed, setup)
@@ -216,12 +220,17 @@ def sample(
     sampler = emcee.EnsembleSampler(
         walkers, ndim, target.log_probability, vectorize=True, moves=moves, backend=backend
     )
+    # the starting points and the step are drawn again on resume, identically (same
+    # seed), so a resumed chain continues with the step the first run chose
+    emcee_seed = int(rng.integers(2**31))
+    state = _starting_ball(like, coords, target, start, scales, walkers, rng)
+    if langevin is not None:
+        langevin.tune(state.coords, state.log_prob, rng)
     if resumed:
         state = None  # emcee continues from the backend's last sample and random state
     else:
         # emcee draws from its own RandomState; seed it from our generator
-        sampler.random_state = np.random.RandomState(int(rng.integers(2**31))).get_state()
-        state = _starting_ball(like, coords, target, start, scales, walkers, rng)
+        sampler.random_state = np.random.RandomState(emcee_seed).get_state()
     done = backend.iteration
     show = _progress_display(progress, steps)
     show(done)
@@ -277,22 +286,59 @@ def sample(
 
 
 def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.State:
-    """Walkers in a small Gaussian ball around the best fit, pulled back off steep walls."""
+    """Walkers drawn by randomised maximum likelihood around the best fit.
+
+    A small Gaussian ball around the best fit (the fit's errors) is the starting point
+    of one randomised fit per walker (:mod:`lensdelay.inference.starts`), so that the
+    walkers begin spread like the posterior, directions seen only by the priors
+    included; starts that still lie far up a wall are pulled back toward the best fit.
+    """
     ndim = len(start)
     scales = (
         np.where(np.isfinite(scales), scales, 1e-3) if scales is not None else np.full(ndim, 1e-3)
     )
+    # errors of a singular fit can be enormous: never wider than a bounded prior's spread
+    spread = coords.prior_scales(like.lower, like.upper, like.periods)
+    scales = np.where(spread > 0, np.minimum(scales, spread), scales)
     ball = start + 0.5 * np.maximum(scales, 1e-6) * rng.standard_normal((walkers, ndim))
     ball = np.clip(ball, like.lower + 1e-9, like.upper - 1e-9)
     ball = coords.to_sampling(ball)
     centre = coords.to_sampling(start)[0]
+    if hasattr(target, "evaluate"):
+        fitted = target
+        n_residuals = target.evaluate(centre[None, :])[1].shape[1]
+        noise = rng.standard_normal((walkers, n_residuals))
+        if getattr(like, "dof", 0) < 0:
+            # directions only a flat prior bounds: spread the walkers over its range
+            # (components of converted pairs are left alone: their prior is on the radius)
+            skip = set(getattr(like, "priors", {})) | set(getattr(like, "centre_prior", {}))
+            skip |= {i for pair in coords.ellipse_pairs + coords.shear_pairs for i in pair}
+            discs = []
+            component_widths = coords.prior_scales(like.lower, like.upper)
+            for i, j in coords.ellipse_pairs + coords.shear_pairs:
+                if i not in getattr(like, "priors", {}) and component_widths[i] > 0:
+                    # prior_scales gives R/√3 per component of a disc of radius R
+                    discs.append((i, j, component_widths[i] * np.sqrt(3.0)))
+            index, anchors, widths = flat_anchors(
+                target.lower, target.upper, like.periods, skip, rng, walkers, discs
+            )
+            if len(index):
+                fitted = AnchoredTarget(target, index, anchors, widths)
+                noise = np.hstack([noise, np.zeros((walkers, len(index)))])
+        # each randomised fit starts at the best fit: the perturbed optimum is near it
+        ball = randomised_fits(fitted, np.repeat(centre[None, :], walkers, axis=0), noise)
     lp = target.log_probability(ball)
     best = target.log_probability(centre[None, :])[0]
     if not np.isfinite(best) and not np.any(np.isfinite(lp)):
         raise FitError("no walker starts with a finite probability; check bounds and priors")
-    # The ball follows the linearised errors, but a curved valley puts some of it far up
-    # the walls (missing images, chi2 in the thousands): pull such starts halfway back
-    # to the best fit until they lie within the typical spread of the posterior.
+    # A randomised fit that did not converge (or a ball point far up a wall: missing
+    # images, chi2 in the thousands) takes the place of a walker that did, drawn at
+    # random (the chains then part at once); with none, such starts are pulled halfway
+    # back to the best fit until they lie within the typical spread of the posterior.
+    good = lp >= best - (ndim + 10.0)
+    if np.isfinite(best) and np.any(good) and not np.all(good):
+        ball[~good] = ball[rng.choice(np.flatnonzero(good), int(np.sum(~good)))]
+        lp[~good] = target.log_probability(ball[~good])
     if np.isfinite(best):
         for _ in range(30):
             far = ~(lp >= best - (ndim + 10.0))
