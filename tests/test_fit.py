@@ -528,8 +528,8 @@ def test_default_recipe_double_walkers_spread_over_the_slope_prior_and_all_move(
     image positions see the slope only through the angular structure, so its posterior
     keeps much of its prior N(2.078, 0.16) (Auger et al. 2010; from memory). Regression of
     issue 13: walkers that all started at the best fit, some inside the 1/γ spike of a
-    zero shear in component coordinates, never moved and made the windows too narrow. The walkers now start
-    from randomised fits (lensdelay.inference.starts) and move."""
+    zero shear in component coordinates, never moved and made the windows too narrow.
+    The walkers now start from randomised fits (lensdelay.inference.starts) and move."""
     from lensdelay.inference.sampling import fit_and_sample
     from lensdelay.lensing.profiles import EllipticalPowerLaw
 
