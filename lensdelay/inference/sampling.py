@@ -285,13 +285,35 @@ def sample(
     )
 
 
-def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.State:
-    """Walkers drawn by randomised maximum likelihood around the best fit.
+def _flat_prior_anchors(like, coords, target, rng, walkers):
+    """Anchors of the randomised fits for coordinates that only a flat prior bounds.
 
-    A small Gaussian ball around the best fit (the fit's errors) is the starting point
-    of one randomised fit per walker (:mod:`lensdelay.inference.starts`), so that the
-    walkers begin spread like the posterior, directions seen only by the priors
-    included; starts that still lie far up a wall are pulled back toward the best fit.
+    Coordinates with a Gaussian prior (or the lens-light centre) are perturbed through
+    their residuals instead; a pair sampled as components is anchored over the disc of
+    its radius's range when that radius has no Gaussian prior.
+    """
+    priors = getattr(like, "priors", {})
+    pairs = coords.ellipse_pairs + coords.shear_pairs
+    skip = set(priors) | set(getattr(like, "centre_prior", {}))
+    skip |= {i for pair in pairs for i in pair}
+    component_widths = coords.prior_scales(like.lower, like.upper)
+    # prior_scales gives R/√3 per component of a disc of radius R
+    discs = [
+        (i, j, component_widths[i] * np.sqrt(3.0))
+        for i, j in pairs
+        if i not in priors and component_widths[i] > 0
+    ]
+    return flat_anchors(target.lower, target.upper, like.periods, skip, rng, walkers, discs)
+
+
+def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.State:
+    """Walkers drawn by randomised maximum likelihood from the best fit.
+
+    Each walker is the optimum of its own randomised fit (:mod:`lensdelay.inference.starts`),
+    started at the best fit, so that the walkers begin spread like the posterior,
+    directions seen only by the priors included. A target without ``evaluate`` (no
+    residuals to perturb) gets a small Gaussian ball of the fit's errors instead.
+    Starts far up a wall are replaced or pulled back toward the best fit.
     """
     ndim = len(start)
     scales = (
@@ -310,18 +332,7 @@ def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.S
         noise = rng.standard_normal((walkers, n_residuals))
         if getattr(like, "dof", 0) < 0:
             # directions only a flat prior bounds: spread the walkers over its range
-            # (components of converted pairs are left alone: their prior is on the radius)
-            skip = set(getattr(like, "priors", {})) | set(getattr(like, "centre_prior", {}))
-            skip |= {i for pair in coords.ellipse_pairs + coords.shear_pairs for i in pair}
-            discs = []
-            component_widths = coords.prior_scales(like.lower, like.upper)
-            for i, j in coords.ellipse_pairs + coords.shear_pairs:
-                if i not in getattr(like, "priors", {}) and component_widths[i] > 0:
-                    # prior_scales gives R/√3 per component of a disc of radius R
-                    discs.append((i, j, component_widths[i] * np.sqrt(3.0)))
-            index, anchors, widths = flat_anchors(
-                target.lower, target.upper, like.periods, skip, rng, walkers, discs
-            )
+            index, anchors, widths = _flat_prior_anchors(like, coords, target, rng, walkers)
             if len(index):
                 fitted = AnchoredTarget(target, index, anchors, widths)
                 noise = np.hstack([noise, np.zeros((walkers, len(index)))])
