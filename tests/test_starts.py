@@ -149,3 +149,20 @@ def test_step_tuning_maximises_the_expected_squared_jump(monkeypatch):
     jump = candidates**2 * np.exp(-((candidates / 0.1) ** 2))
     assert eps == candidates[np.argmax(jump)]
     assert 0.05 < eps < 0.2
+
+
+def test_potential_scale_reduction_is_one_for_mixed_walkers_and_large_for_stuck_ones():
+    """Gelman & Rubin (1992, Statistical Science 7, 457): walkers that are independent draws
+    of one N(0, 1) give R̂ ≈ 1; walkers each stuck near its own start (means spread 1,
+    spread within 0.1) give R̂ ≈ √(1 + 1/0.01) ≈ 10, far above the 1.1 of common practice."""
+    from lensdelay.inference.sampling import MAX_RHAT, potential_scale_reduction
+
+    rng = np.random.default_rng(9)
+    mixed = rng.standard_normal((1000, 32, 2))
+    assert np.all(potential_scale_reduction(mixed) < 1.01)
+    stuck = rng.standard_normal((1, 32, 2)) + 0.1 * rng.standard_normal((1000, 32, 2))
+    rhat = potential_scale_reduction(stuck)
+    assert np.all(rhat > 5 * MAX_RHAT)
+    np.testing.assert_allclose(
+        rhat, np.sqrt(1 + np.var(stuck.mean(0), 0, ddof=1) / 0.01), rtol=0.05
+    )

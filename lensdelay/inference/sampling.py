@@ -65,6 +65,7 @@ class Chain:
     seed: int
     warnings: list[str]
     move: str = "langevin"
+    rhat: np.ndarray | None = None  # per parameter, walkers as chains (after burn-in)
 
     def samples(self) -> np.ndarray:
         """Flat samples after burn-in and thinning: (n, ndim)."""
@@ -280,9 +281,41 @@ def sample(
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
     burn = int(min(steps // 2, max(2 * tau_max, steps // 5)))
     thin = max(1, int(tau_max // 4))
+    rhat = potential_scale_reduction(chain[burn:])
+    worst = int(np.nanargmax(rhat)) if np.any(np.isfinite(rhat)) else None
+    if worst is not None and rhat[worst] > MAX_RHAT:
+        # τ is estimated from the walkers together and can look fine while each walker
+        # stays near where it started: R̂ compares the walkers with one another
+        notes.append(
+            f"the walkers have not mixed (R-hat {rhat[worst]:.2f} for {like.names[worst]}, "
+            f"more than {MAX_RHAT}): the spread comes largely from their randomised starting "
+            "fits, an approximation of the posterior; run longer before trusting the tails"
+        )
+        warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
     return Chain(
-        list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move
+        list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move, rhat
     )
+
+
+#: Largest potential scale reduction R̂ accepted without a note (Gelman et al. 2013,
+#: Bayesian Data Analysis, 3rd ed., sec. 11.4: common practice).
+MAX_RHAT = 1.1
+
+
+def potential_scale_reduction(chain: np.ndarray) -> np.ndarray:
+    """Gelman–Rubin R̂ per parameter, each walker one chain (chain: (steps, walkers, ndim)).
+
+    With n steps, W the mean of the walkers' variances and B/n the variance of their
+    means, R̂ = √(((n − 1)/n · W + B/n) / W) (Gelman & Rubin 1992, Statistical Science 7,
+    457, eqs. 3–4, without the degrees-of-freedom factor). NaN where no walker moves.
+    """
+    n = chain.shape[0]
+    if n < 2:
+        return np.full(chain.shape[-1], np.nan)
+    within = np.mean(np.var(chain, axis=0, ddof=1), axis=0)
+    between = np.var(np.mean(chain, axis=0), axis=0, ddof=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.sqrt(((n - 1) / n * within + between) / within)
 
 
 def _flat_prior_anchors(like, coords, target, rng, walkers):
