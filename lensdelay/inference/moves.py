@@ -129,21 +129,29 @@ class FisherLangevinMove(Move):
         quad = np.einsum("pi,pij,pj->p", d, geometry["metric"][idx], d) / eps2
         return -0.5 * quad + 0.5 * geometry["logdet"][idx]
 
-    def _trial(self, coords, log_prob, eps, random) -> np.ndarray:
-        """Metropolis–Hastings acceptance probability of one proposal per row, at step ε."""
-        walkers, n = coords.shape
+    def _proposal(self, coords, log_prob, eps, z):
+        """Proposals at step ε from standard normals z, with their Metropolis–Hastings ratio.
+
+        Returns the proposals, their geometry, the log ratio (−inf outside the support)
+        and the geometry at ``coords``.
+        """
         eps2 = eps * eps
         here = self._current(coords)
-        z = random.standard_normal((walkers, n))
         proposal = (
             coords + 0.5 * eps2 * here["drift"] + eps * np.einsum("pij,pj->pi", here["inv_sqrt"], z)
         )
         there = self._evaluate(proposal)
         forward = self._log_q(proposal, coords, eps2, here)
         backward = self._log_q(coords, proposal, eps2, there)
-        with np.errstate(invalid="ignore", over="ignore"):
+        with np.errstate(invalid="ignore"):
             ratio = there["log_prob"] - log_prob + backward - forward
-            ratio = np.where(np.isfinite(there["log_prob"]), ratio, -np.inf)
+        ratio = np.where(np.isfinite(there["log_prob"]), ratio, -np.inf)
+        return proposal, there, ratio, here
+
+    def _trial(self, coords, log_prob, eps, random) -> np.ndarray:
+        """Metropolis–Hastings acceptance probability of one proposal per row, at step ε."""
+        _, _, ratio, _ = self._proposal(coords, log_prob, eps, random.standard_normal(coords.shape))
+        with np.errstate(over="ignore"):
             return np.exp(np.minimum(ratio, 0.0))
 
     def tune(self, coords, log_prob, random, repeats: int = 3) -> float:
@@ -180,18 +188,8 @@ class FisherLangevinMove(Move):
         coords = state.coords
         walkers, n = coords.shape
         eps = self.step if self.step is not None else default_step(n)
-        eps2 = eps * eps
-        here = self._current(coords)
         z = model.random.randn(walkers, n)
-        proposal = (
-            coords + 0.5 * eps2 * here["drift"] + eps * np.einsum("pij,pj->pi", here["inv_sqrt"], z)
-        )
-        there = self._evaluate(proposal)
-        forward = self._log_q(proposal, coords, eps2, here)
-        backward = self._log_q(coords, proposal, eps2, there)
-        with np.errstate(invalid="ignore"):
-            ratio = there["log_prob"] - state.log_prob + backward - forward
-        ratio = np.where(np.isfinite(there["log_prob"]), ratio, -np.inf)
+        proposal, there, ratio, here = self._proposal(coords, state.log_prob, eps, z)
         accepted = np.log(model.random.rand(walkers)) < ratio
         new_state = State(proposal, log_prob=there["log_prob"], blobs=None)
         state = self.update(state, new_state, accepted)
