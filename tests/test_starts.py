@@ -80,6 +80,7 @@ def test_flat_anchors_are_uniform_over_ranges_periods_and_discs():
 
 
 def test_anchored_target_appends_one_residual_per_anchor():
+    """(u − a)/w and its derivative 1/w, hand-computed from the definition."""
     target = LinearGaussian()
     anchored = AnchoredTarget(target, [1], np.array([[0.5], [1.5]]), np.array([2.0]))
     rows = np.array([[0.0, 1.0], [0.0, 1.0]])

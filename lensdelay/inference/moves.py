@@ -173,9 +173,10 @@ class FisherLangevinMove(Move):
         random : numpy.random.Generator
             Draws of the trial proposals.
         """
-        best, best_jump = default_step(coords.shape[1]), -1.0
+        first = default_step(coords.shape[1])
+        best, best_jump = first, -1.0
         for k in range(TUNING_HALVINGS + 1):
-            eps = default_step(coords.shape[1]) / 2.0**k
+            eps = first / 2.0**k
             accept = np.mean([self._trial(coords, log_prob, eps, random) for _ in range(repeats)])
             if eps * eps * accept > best_jump:
                 best, best_jump = eps, eps * eps * accept

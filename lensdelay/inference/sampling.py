@@ -64,8 +64,8 @@ class Chain:
     thin: int
     seed: int
     warnings: list[str]
-    move: str = "langevin"
-    rhat: np.ndarray | None = None  # per parameter, walkers as chains (after burn-in)
+    move: str
+    rhat: np.ndarray  # per parameter, walkers as chains (after burn-in); NaN: none moved
 
     def samples(self) -> np.ndarray:
         """Flat samples after burn-in and thinning: (n, ndim)."""

@@ -154,8 +154,9 @@ def randomised_fits(target, starts: np.ndarray, noise: np.ndarray, iterations: i
         normal = np.einsum("pmi,pmj->pij", jac, jac)
         gradient = np.einsum("pmi,pm->pi", jac, shifted)
         diagonal = np.einsum("pii->pi", normal)
-        scale = np.where(diagonal > 0, diagonal, 1.0)
-        system = normal + damping[:, None, None] * np.einsum("pi,ij->pij", scale, np.eye(n))
+        system = normal.copy()
+        diag = np.arange(n)
+        system[:, diag, diag] += damping[:, None] * np.where(diagonal > 0, diagonal, 1.0)
         with np.errstate(all="ignore"):
             try:
                 step = -np.linalg.solve(system, gradient[..., None])[..., 0]

@@ -56,10 +56,7 @@ def fit_json(res: dict) -> dict:
             "autocorrelation_steps": {n: float(t) for n, t in zip(ch.names, ch.autocorr)},
             # Gelman-Rubin R-hat, walkers as chains (None where no walker moved)
             "potential_scale_reduction": {
-                n: (float(r) if np.isfinite(r) else None)
-                for n, r in zip(
-                    ch.names, ch.rhat if ch.rhat is not None else [np.nan] * len(ch.names)
-                )
+                n: (float(r) if np.isfinite(r) else None) for n, r in zip(ch.names, ch.rhat)
             },
             "warnings": ch.warnings,
             "summary": {n: quantile_summary(s[:, i]) for i, n in enumerate(ch.names)},

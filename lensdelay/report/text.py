@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import numpy as np
-
 from lensdelay.cautions import CAUTION
 from lensdelay.inference.summaries import quantile_summary
 from lensdelay.forecast.pipeline import STATUS_MEANINGS, TENSION_CAUSES
@@ -141,12 +139,11 @@ def fit_text(res: dict) -> str:
             f"{ch.move} move, {res.likelihood.prior} prior",
             f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7} {'R-hat':>6}",
         ]
-        rhat = ch.rhat if ch.rhat is not None else np.full(len(ch.names), np.nan)
         for i, n in enumerate(ch.names):
             q = quantile_summary(s[:, i])
             lines.append(
                 f"{n:<32} {q['median']:12.5g} {q['p16']:12.5g} {q['p84']:12.5g} "
-                f"{ch.autocorr[i]:7.0f} {rhat[i]:6.2f}"
+                f"{ch.autocorr[i]:7.0f} {ch.rhat[i]:6.2f}"
             )
         for w in ch.warnings:
             lines.append(f"WARNING: {w}")
