@@ -557,3 +557,42 @@ def test_default_recipe_double_walkers_spread_over_the_slope_prior_and_all_move(
     assert np.mean(np.std(slope[chain.burn :], axis=0) > 1e-4) >= 0.9
     # and the slope is not held near its starting value (the old failure: a spike at 2.078)
     assert np.std(chain.samples()[:, chain.names.index("mass[0].slope")]) > 0.25 * 0.16
+
+
+def test_bounded_gaussian_priors_are_perturbed_within_their_bounds():
+    """A randomised fit puts a prior-dominated parameter at μ + σz. For the default
+    recipe's half-normal shear prior (and the axis ratio's N(0.75, 0.2) cut at 1), z must
+    come from the normal truncated to the bounds, or half of the walkers start exactly at
+    zero shear (issue 13). E|z| of a half-normal is √(2/π) (closed form)."""
+    from lensdelay.inference.sampling import _truncate_prior_noise
+    from lensdelay.model.recipe import AXIS_RATIO_PRIOR, SHEAR_PRIOR
+
+    lens = Lens(
+        (
+            EllipticalPowerLaw(einstein_radius=1.0, slope=2.0, axis_ratio=0.8, position_angle=30),
+            ExternalShear(strength=0.05, position_angle=10),
+        )
+    )
+    fam = simulate_family(lens, 0.15, -0.2, label="s", redshift=2.0, sigma=0.005)
+    sc = parse_scenario(
+        {"lens": {"redshift": 0.5}, "family": [fam], "lens_light": {"x": 0, "y": 0, "sigma": 0.01}},
+        "double.toml",
+    )
+    like = ImageLikelihood(sc, sc.model)
+    columns = {}
+    first = 2 * len(fam["image"])
+    for k, i in enumerate({**like.priors, **like.centre_prior}):
+        columns[like.names[i]] = first + k
+    found = {c: (lo, hi) for c, lo, hi in like.prior_residual_ranges()}
+    shear = columns["mass[1].strength"]
+    assert found[shear] == pytest.approx((0.0, (0.3 - 0.0) / SHEAR_PRIOR[1]))
+    q = columns["mass[0].axis_ratio"]
+    assert found[q][1] == pytest.approx((1.0 - AXIS_RATIO_PRIOR[0]) / AXIS_RATIO_PRIOR[1])
+    noise = np.random.default_rng(0).standard_normal((20000, like.n_constraints))
+    _truncate_prior_noise(noise, like, np.random.default_rng(1))
+    assert noise[:, shear].min() >= 0.0 and noise[:, shear].max() <= 3.0
+    assert noise[:, shear].mean() == pytest.approx(np.sqrt(2 / np.pi), abs=0.02)
+    assert noise[:, q].max() <= found[q][1]
+    # an unbounded prior row (the lens-light centre) keeps its normal draws
+    centre = columns[like.names[next(iter(like.centre_prior))]]
+    assert noise[:, centre].min() < -3.0

@@ -274,6 +274,25 @@ class ImageLikelihood:
         """Degrees of freedom: constraints minus free parameters."""
         return self.n_constraints - self.n_parameters
 
+    def prior_residual_ranges(self) -> list[tuple[int, float, float]]:
+        """Where each bounded Gaussian prior's residual can go: (column, low, high).
+
+        The residual of a Gaussian prior (mean μ, width σ) on a parameter with bounds
+        [a, b] is (p − μ)/σ and lies in [(a − μ)/σ, (b − μ)/σ]; ``column`` is its index in
+        :meth:`data_residuals`. Angles (periodic) are left out. Used to perturb such a
+        prior by draws from the prior as it is truncated (a shear strength's half-normal),
+        not from the untruncated normal whose negative half would pile the perturbed fits
+        onto the bound.
+        """
+        first = 2 * sum(len(f.x) for f in self.families)
+        out = []
+        for k, (i, (mean, sig)) in enumerate({**self.priors, **self.centre_prior}.items()):
+            if self.periods[i]:
+                continue
+            low, high = (self.lower[i] - mean) / sig, (self.upper[i] - mean) / sig
+            out.append((first + k, float(low), float(high)))
+        return out
+
     def delay_scale(self, params: np.ndarray) -> np.ndarray:
         """(H_ref/H0)(1 − κ_ext) per row, (P,): delays at the reference cosmology times this.
 

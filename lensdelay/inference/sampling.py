@@ -17,6 +17,7 @@ from pathlib import Path
 
 import emcee
 import numpy as np
+from scipy import special
 
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates, polar_pairs
@@ -339,6 +340,27 @@ def _flat_prior_anchors(like, coords, target, rng, walkers):
     return flat_anchors(target.lower, target.upper, like.periods, skip, rng, walkers, discs)
 
 
+#: A prior whose bounds lie beyond this many σ of its mean is perturbed as untruncated.
+TRUNCATION_REACH = 5.0
+
+
+def _truncate_prior_noise(noise, like, rng) -> None:
+    """Draw the perturbation of each bounded Gaussian prior from the truncated normal.
+
+    In a randomised fit a prior-dominated parameter lands at μ + σz; with z ~ N(0, 1) a
+    half-normal shear prior would put half of the walkers exactly at zero shear, where
+    the bound-projected fit stops (measured: posterior shear 0.016 ± 0.017 for a double
+    whose prior median is 0.067). z drawn from N(0, 1) truncated to the bounds puts them
+    at draws from the prior as the sampler sees it. Inverse-CDF draws (common practice).
+    """
+    ranges = getattr(like, "prior_residual_ranges", lambda: [])()
+    for column, low, high in ranges:
+        if low < -TRUNCATION_REACH and high > TRUNCATION_REACH:
+            continue
+        u = rng.uniform(special.ndtr(low), special.ndtr(high), size=len(noise))
+        noise[:, column] = np.clip(special.ndtri(u), low, high)
+
+
 def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.State:
     """Walkers drawn by randomised maximum likelihood from the best fit.
 
@@ -363,6 +385,7 @@ def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.S
         fitted = target
         n_residuals = target.evaluate(centre[None, :])[1].shape[1]
         noise = rng.standard_normal((walkers, n_residuals))
+        _truncate_prior_noise(noise, like, rng)
         if getattr(like, "dof", 0) < 0:
             # directions only a flat prior bounds: spread the walkers over its range
             index, anchors, widths = _flat_prior_anchors(like, coords, target, rng, walkers)
