@@ -548,7 +548,7 @@ class ImageLikelihood:
             cols.append(fermat_difference_to_days(fermat[k][:, j], fam.days_per_arcsec2, scale))
         return np.stack(cols, axis=1)
 
-    def information_jacobian(self, params: np.ndarray, preds=None) -> np.ndarray:
+    def information_jacobian(self, params: np.ndarray, preds=None, columns=None) -> np.ndarray:
         """∂(normalised residuals)/∂(parameters) at the predicted images, (P, m, n).
 
         Image positions move with the parameters by the implicit-function theorem
@@ -558,20 +558,27 @@ class ImageLikelihood:
         delay and flux rows) come from central differences in the parameters, at the
         images moved along dθ/dp, so no lens equation is solved again. Rows of Gaussian
         priors and of the lens-light centre are constant.
+
+        ``columns`` (indices of parameters) limits the differences to those parameters;
+        the other columns are then zero (a conditional fit needs no more, at a fraction
+        of the cost).
         """
         params = np.atleast_2d(np.asarray(params, dtype=float))
         preds = self.predict(params) if preds is None else preds
-        n_rows, n_par = params.shape
+        n_rows, n_all = params.shape
+        cols = np.arange(n_all) if columns is None else np.asarray(columns, dtype=int)
+        position = {int(c): k for k, c in enumerate(cols)}
+        n_par = len(cols)  # the differenced parameters
         step = _INFO_STEP * np.maximum(1.0, np.abs(params))  # (P, n)
         # steps never leave the bounds (a best fit may sit on q = 1 or γ = 0): one-sided
         # there, and every difference is divided by the step actually taken
-        up = np.minimum(step, self.upper - params)  # (P, n), ≥ 0
-        down = np.minimum(step, params - self.lower)
+        up = np.minimum(step, self.upper - params)[:, cols]  # (P, n), ≥ 0
+        down = np.minimum(step, params - self.lower)[:, cols]
         # rows p + up e_k then p - down e_k for every k: (2 n P, n), k-major
-        eye = np.eye(n_par)
+        eye = np.eye(n_all)[cols]
         plus = params[None, :, :] + up.T[:, :, None] * eye[:, None, :]
         minus = params[None, :, :] - down.T[:, :, None] * eye[:, None, :]
-        shifted = np.concatenate([plus, minus]).reshape(-1, n_par)
+        shifted = np.concatenate([plus, minus]).reshape(-1, n_all)
         lens = self.lens_for(shifted)
         need_derived = self.use_delays or self.use_fluxes
         jac_parts, fermat_pm, mu_pm = [], [], []
@@ -593,8 +600,10 @@ class ImageLikelihood:
             day = (ay[0] - ay[1]) / span
             # the source position moves the images one for one
             sl = self.source_slice(k)
-            dax[sl.start] += 1.0
-            day[sl.start + 1] += 1.0
+            if sl.start in position:
+                dax[position[sl.start]] += 1.0
+            if sl.start + 1 in position:
+                day[position[sl.start + 1]] += 1.0
             with np.errstate(all="ignore"):
                 det = a11 * a22 - a12 * a12
                 dxdp = (a22 * dax - a12 * day) / det  # (n, P, I)
@@ -622,7 +631,8 @@ class ImageLikelihood:
                 fermat_pm.append(tau_pm)
         for i, (_, sig) in {**self.priors, **self.centre_prior}.items():
             row = np.zeros((n_rows, 1, n_par))
-            row[:, 0, i] = 1.0 / sig
+            if i in position:
+                row[:, 0, position[i]] = 1.0 / sig
             jac_parts.append(row)
         jac = np.concatenate(jac_parts, axis=1)
         if need_derived:
@@ -630,7 +640,11 @@ class ImageLikelihood:
             derived = derived.reshape(2, n_par, n_rows, -1)
             ddiff = (derived[0] - derived[1]) / (up + down).T[:, :, None]  # (n, P, m')
             jac = np.concatenate([jac, np.moveaxis(ddiff, 0, -1)], axis=1)
-        return jac
+        if columns is None:
+            return jac
+        full = np.zeros(jac.shape[:2] + (n_all,))
+        full[:, :, cols] = jac
+        return full
 
     @staticmethod
     def _half_log_det_information(jac: np.ndarray) -> np.ndarray:
@@ -651,13 +665,14 @@ class ImageLikelihood:
             return np.zeros(len(params))
         return self._half_log_det_information(self.information_jacobian(params, preds))
 
-    def evaluate(self, params: np.ndarray):
+    def evaluate(self, params: np.ndarray, columns=None):
         """Log posterior, residuals and their Jacobian for rows (P, n) in one pass.
 
         The residuals are those of the constraints (the extra-image penalty enters the
         log posterior only). Rows outside the bounds get −inf and zero residuals and
         Jacobian. Used by :class:`lensdelay.inference.moves.FisherLangevinMove`, which needs the
-        local geometry.
+        local geometry. ``columns``: only those columns of the Jacobian (the rest 0;
+        see :meth:`information_jacobian`); the Jeffreys prior then needs them all.
         """
         params = np.atleast_2d(np.asarray(params, dtype=float))
         inside = np.all((params >= self.lower) & (params <= self.upper), axis=1)
@@ -669,7 +684,9 @@ class ImageLikelihood:
             preds = self.predict(rows)
             r = self.data_residuals(rows, preds)
             penalty = self.extra_image_residuals(preds)
-            j = self.information_jacobian(rows, preds)
+            if self.prior == "jeffreys":
+                columns = None  # its log det needs every column
+            j = self.information_jacobian(rows, preds, columns)
             prior = self._half_log_det_information(j) if self.prior == "jeffreys" else 0.0
             logp[inside] = -0.5 * np.sum(r * r, axis=1) - 0.5 * np.sum(penalty**2, axis=1) + prior
             res[inside], jac[inside] = r, np.where(np.isfinite(j), j, 0.0)

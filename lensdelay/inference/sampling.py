@@ -29,6 +29,7 @@ from lensdelay.inference.misfit import (
     largest_residual,
     position_floor,
 )
+from lensdelay.inference.importance import ImportanceDraws, conditional_importance
 from lensdelay.inference.moves import FisherLangevinMove
 from lensdelay.inference.starts import AnchoredTarget, flat_anchors, randomised_fits
 from lensdelay.inference.backend import NpzCheckpoint
@@ -67,6 +68,10 @@ class Chain:
     warnings: list[str]
     move: str
     rhat: np.ndarray  # per parameter, walkers as chains (after burn-in); NaN: none moved
+    #: importance sampling only (``move == "importance"``): draws made and what they are
+    #: worth, (Σw)²/Σw²; the chain then holds equally weighted resampled rows, one walker
+    draws: int | None = None
+    effective_samples: float | None = None
 
     def samples(self) -> np.ndarray:
         """Flat samples after burn-in and thinning: (n, ndim)."""
@@ -460,6 +465,74 @@ def _with_model_error(like, result, fit_seed):
     return replace(refit, model_error=error, notes=[error.note(), *refit.notes])
 
 
+#: Draws of the importance sampler per batch, and most batches.
+IMPORTANCE_DRAWS = 20_000
+IMPORTANCE_BATCHES = 2
+#: Effective samples wanted from importance sampling (another batch is drawn below it),
+#: and fewest accepted (below it the Markov chain samples instead).
+IMPORTANCE_WANTED = 1000
+IMPORTANCE_MIN = 300
+#: Equally weighted rows the importance draws are resampled to.
+IMPORTANCE_ROWS = 8000
+
+
+def importance_chain(like, best: np.ndarray, seed: int) -> Chain | None:
+    """A :class:`Chain` of resampled conditional-importance draws, or None (use MCMC).
+
+    For models with fewer constraints than parameters, whose posterior sheet a Markov
+    chain barely crosses (:mod:`lensdelay.inference.importance`). None when the method
+    does not apply (a free parameter without a proper prior) or its draws are worth
+    fewer than :data:`IMPORTANCE_MIN` independent ones.
+    """
+    rng = np.random.default_rng(seed)
+    batches = []
+    for _ in range(IMPORTANCE_BATCHES):
+        draws = conditional_importance(like, best, IMPORTANCE_DRAWS, rng)
+        if draws is None:
+            return None
+        batches.append(draws)
+        merged = ImportanceDraws(
+            np.concatenate([b.rows for b in batches]),
+            np.concatenate([b.log_weights for b in batches]),
+            draws.pinned,
+            sum(b.n_draws for b in batches),
+        )
+        if merged.effective_samples >= IMPORTANCE_WANTED:
+            break
+    ess = merged.effective_samples
+    if ess < IMPORTANCE_MIN:
+        return None
+    rows = merged.resample(IMPORTANCE_ROWS, rng)
+    ndim = rows.shape[1]
+    # wrap periodic parameters (position angles) around the best fit, as the chain does
+    for i, period in enumerate(like.periods):
+        if period:
+            rows[:, i] = best[i] + (rows[:, i] - best[i] + period / 2) % period - period / 2
+    notes = []
+    if ess < IMPORTANCE_WANTED:
+        notes.append(
+            f"importance sampling gave {ess:.0f} effective samples from {merged.n_draws} draws; "
+            "the tails of the windows are uncertain"
+        )
+        warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
+    return Chain(
+        list(like.names),
+        rows[:, None, :],
+        like.log_probability(rows)[:, None],
+        np.full(1, np.nan),
+        # one "step" per independent draw: walkers × rows / τ equals the effective samples
+        np.full(ndim, IMPORTANCE_ROWS / ess),
+        0,
+        1,
+        seed,
+        notes,
+        "importance",
+        np.full(ndim, np.nan),
+        draws=merged.n_draws,
+        effective_samples=ess,
+    )
+
+
 def fit_and_sample(
     like,
     *,
@@ -498,18 +571,24 @@ def fit_and_sample(
         except InputError as err:
             raise err.with_source(like.scenario.source) from err
         n_steps = steps(result) if callable(steps) else steps
-        chain = sample(
-            like,
-            result.values,
-            walkers=walkers,
-            steps=n_steps,
-            seed=sample_seed,
-            progress=progress,
-            stop=stop,
-            scales=result.errors,
-            checkpoint_dir=checkpoint_dir,
-            resume=resume,
-        )
+        chain = None
+        if like.dof < 0:
+            chain = importance_chain(like, result.values, sample_seed)
+            if progress and chain is not None:
+                _progress_display(progress, 1)(1)
+        if chain is None:
+            chain = sample(
+                like,
+                result.values,
+                walkers=walkers,
+                steps=n_steps,
+                seed=sample_seed,
+                progress=progress,
+                stop=stop,
+                scales=result.errors,
+                checkpoint_dir=checkpoint_dir,
+                resume=resume,
+            )
     if result.model_error is not None:
         warnings.warn(
             f"{like.model.label}: {result.model_error.note()}", LensdelayWarning, stacklevel=2

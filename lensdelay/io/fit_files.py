@@ -45,6 +45,17 @@ def fit_json(res: dict) -> dict:
     ch = res.chain
     if ch is not None:
         s = ch.samples()
+        if ch.move == "importance":
+            doc["posterior"] = {
+                "method": "conditional importance sampling",
+                "prior": like.prior,
+                "draws": ch.draws,
+                "effective_samples": ch.effective_samples,
+                "resampled": len(s),
+                "warnings": ch.warnings,
+                "summary": {n: quantile_summary(s[:, i]) for i, n in enumerate(ch.names)},
+            }
+            return doc
         doc["posterior"] = {
             "move": ch.move,
             "prior": like.prior,

@@ -132,19 +132,30 @@ def fit_text(res: dict) -> str:
     ch = res.chain
     if ch is not None:
         s = ch.samples()
-        lines += [
-            "",
-            f"posterior: {ch.chain.shape[1]} walkers × {ch.chain.shape[0]} steps, burn-in "
-            f"{ch.burn}, thin {ch.thin}, {len(s)} samples; acceptance {ch.acceptance.mean():.2f}; "
-            f"{ch.move} move, {res.likelihood.prior} prior",
-            f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7} {'R-hat':>6}",
-        ]
+        weighted = ch.move == "importance"
+        if weighted:
+            head = (
+                f"posterior: importance sampling (more parameters than constraints), "
+                f"{ch.draws} draws worth {ch.effective_samples:.0f} independent ones, resampled "
+                f"to {len(s)}; {res.likelihood.prior} prior"
+            )
+            columns = f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12}"
+        else:
+            head = (
+                f"posterior: {ch.chain.shape[1]} walkers × {ch.chain.shape[0]} steps, burn-in "
+                f"{ch.burn}, thin {ch.thin}, {len(s)} samples; acceptance "
+                f"{ch.acceptance.mean():.2f}; {ch.move} move, {res.likelihood.prior} prior"
+            )
+            columns = (
+                f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7} {'R-hat':>6}"
+            )
+        lines += ["", head, columns]
         for i, n in enumerate(ch.names):
             q = quantile_summary(s[:, i])
-            lines.append(
-                f"{n:<32} {q['median']:12.5g} {q['p16']:12.5g} {q['p84']:12.5g} "
-                f"{ch.autocorr[i]:7.0f} {ch.rhat[i]:6.2f}"
-            )
+            row = f"{n:<32} {q['median']:12.5g} {q['p16']:12.5g} {q['p84']:12.5g}"
+            if not weighted:
+                row += f" {ch.autocorr[i]:7.0f} {ch.rhat[i]:6.2f}"
+            lines.append(row)
         for w in ch.warnings:
             lines.append(f"WARNING: {w}")
     return "\n".join(lines)
