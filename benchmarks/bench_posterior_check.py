@@ -47,6 +47,13 @@ from lensdelay.model.scenario import parse_scenario
 Z_L, Z_S = 0.5, 2.0
 SIGMA = 0.005
 KAPPA, H0 = (0.0, 0.05), (70.0, 5.0)  # the forecast's default priors
+#: Sources are uniform over a disc of this many θE, wider than any multiply imaged region
+#: of these lenses (the images' selection, ≥ 2 with |μ| ≥ 0.3, does the rest): the
+#: forecast's source prior is flat, and a population whose sources stop short of the
+#: edge of the double region (0.35 θE before) is not drawn from it -- measured: with
+#: 0.35 θE the truths of doubles sat low in their windows (mean quantile 0.42), the
+#: posterior giving weight to sources beyond 0.35 θE that the population never made.
+SOURCE_REACH = 1.5
 
 
 def truncated_normal(rng, mean, sigma, low, high):
@@ -56,26 +63,35 @@ def truncated_normal(rng, mean, sigma, low, high):
 
 
 def draw_truth(rng):
-    """A lens drawn from the default recipe's priors and a source with ≥ 2 bright images."""
-    te = rng.uniform(0.7, 1.6)
-    parts = [
-        EllipticalPowerLaw(
-            einstein_radius=te,
-            slope=truncated_normal(rng, *SLOPE_PRIOR, *SLOPE_BOUNDS),
-            axis_ratio=truncated_normal(rng, *AXIS_RATIO_PRIOR, 0.2, 1.0),
-            position_angle=rng.uniform(-90, 90),
-        ),
-        ExternalShear(
-            strength=truncated_normal(rng, *SHEAR_PRIOR, 0.0, SHEAR_MAX),
-            position_angle=rng.uniform(-90, 90),
-        ),
-    ]
-    for m in (3, 4):
-        c, s = rng.normal(0.0, MULTIPOLE_PRIOR * te, 2)
-        parts.append(IsothermalMultipole(order=m, cosine=c, sine=s))
-    lens = Lens(tuple(parts))
+    """A lens from the default recipe's priors and a source, redrawn together until the
+    source has ≥ 2 images with |μ| ≥ 0.3.
+
+    Lens and source are redrawn together, as nature selects them: a lens with a larger
+    multiply imaged area is more often found lensing something, which is what a flat
+    source prior in the forecast assumes. Redrawing only the source (as before) gives
+    every lens the same chance whatever its cross-section -- measured: the truths of
+    doubles then sat low in their windows (mean quantile 0.42, lens-model part 64% /
+    93%), shallow slopes, whose double cross-section is smaller, being over-represented.
+    """
     while True:
-        radius = 0.35 * te * np.sqrt(rng.uniform())
+        te = rng.uniform(0.7, 1.6)
+        parts = [
+            EllipticalPowerLaw(
+                einstein_radius=te,
+                slope=truncated_normal(rng, *SLOPE_PRIOR, *SLOPE_BOUNDS),
+                axis_ratio=truncated_normal(rng, *AXIS_RATIO_PRIOR, 0.2, 1.0),
+                position_angle=rng.uniform(-90, 90),
+            ),
+            ExternalShear(
+                strength=truncated_normal(rng, *SHEAR_PRIOR, 0.0, SHEAR_MAX),
+                position_angle=rng.uniform(-90, 90),
+            ),
+        ]
+        for m in (3, 4):
+            c, s = rng.normal(0.0, MULTIPOLE_PRIOR * te, 2)
+            parts.append(IsothermalMultipole(order=m, cosine=c, sine=s))
+        lens = Lens(tuple(parts))
+        radius = SOURCE_REACH * te * np.sqrt(rng.uniform())
         angle = rng.uniform(0, 2 * np.pi)
         table = find_images(lens, [radius * np.sin(angle)], [radius * np.cos(angle)])
         table = table.select(np.abs(table.magnification) >= 0.3)
