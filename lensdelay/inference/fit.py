@@ -113,9 +113,7 @@ def underconstrained_note(like: ImageLikelihood) -> str:
     return (
         f"{like.n_parameters} free parameters but only {like.n_constraints} constraints: "
         "the posterior is proper only through the priors and bounds, which set part of "
-        "the answer; the delay windows of such models are not yet calibrated (on doubles "
-        "drawn from the default recipe's own priors the true delays fell below the window's "
-        "median about three times in four: benchmarks/bench_posterior_check.py)"
+        "the answer"
     )
 
 
