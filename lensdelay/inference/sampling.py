@@ -547,6 +547,11 @@ def fit_and_sample(
 ):
     """Fit ``like`` and sample its posterior around the best fit: the sequence every job runs.
 
+    A model with fewer constraints than parameters is sampled by conditional importance
+    sampling (:func:`importance_chain`; no checkpoint is written, it takes seconds), and
+    by the Markov chain only when that does not apply or its draws are worth fewer than
+    :data:`IMPORTANCE_MIN` independent ones.
+
     Warnings of the fit and the sampler (degrees of freedom, short chains) are not
     raised: they are in the results' ``notes`` and ``warnings``, which the reports print.
     An input error of the fit names the scenario's file.
