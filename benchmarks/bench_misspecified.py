@@ -97,6 +97,37 @@ def _draw_lens(rng):
     return Lens(tuple(parts)), satellite, te
 
 
+def blind_scenario(rng, table, name):
+    """The blind scenario of a drawn system: its images (labels A, B, … in the order of
+    ``table``) with 5 mas of noise, the lens light to 10 mas, the event seen in A.
+
+    Returns the scenario and the labels used.
+    """
+    labels = "ABCDEFGH"[: len(table)]
+    images = [
+        {
+            "label": labels[k],
+            "sigma": SIGMA,
+            "x": float(table.x[k] + rng.normal(0, SIGMA)),
+            "y": float(table.y[k] + rng.normal(0, SIGMA)),
+        }
+        for k in range(len(table))
+    ]
+    doc = {
+        "name": name,
+        "lens": {"redshift": Z_L},
+        "cosmology": {"H0": 70.0, "Om0": 0.3},
+        "family": [{"label": "s", "redshift": Z_S, "image": images}],
+        "lens_light": {
+            "x": float(rng.normal(0, 0.01)),
+            "y": float(rng.normal(0, 0.01)),
+            "sigma": 0.01,
+        },
+        "transient": {"family": "s", "seen_in": "A", "date": "2027-01-10", "date_sigma_days": 0.01},
+    }
+    return parse_scenario(doc, f"{name}.toml"), labels
+
+
 def one_system(args):
     """Forecast one system; return per-image (inside68, inside95, half-width/|delay|)."""
     import logging
@@ -109,33 +140,10 @@ def one_system(args):
     kappa = rng.normal(0.0, 0.04)
     distances = LensDistances(DEFAULT_COSMOLOGY, Z_L, Z_S)
     days = distances.days_per_arcsec2(Z_S) * 70.0 / h0 * (1.0 - kappa)
-    labels = "ABCDEFGH"
-    images = []
-    for k in range(len(table)):
-        images.append(
-            {
-                "label": labels[k],
-                "sigma": SIGMA,
-                "x": float(table.x[k] + rng.normal(0, SIGMA)),
-                "y": float(table.y[k] + rng.normal(0, SIGMA)),
-            }
-        )
+    sc, labels = blind_scenario(rng, table, f"misspecified-{index}")
     true_delay = {labels[k]: (table.fermat[k] - table.fermat[0]) * days for k in range(len(table))}
-    doc = {
-        "name": f"misspecified-{index}",
-        "lens": {"redshift": Z_L},
-        "cosmology": {"H0": 70.0, "Om0": 0.3},
-        "family": [{"label": "s", "redshift": Z_S, "image": images}],
-        "lens_light": {
-            "x": float(rng.normal(0, 0.01)),
-            "y": float(rng.normal(0, 0.01)),
-            "sigma": 0.01,
-        },
-        "transient": {"family": "s", "seen_in": "A", "date": "2027-01-10", "date_sigma_days": 0.01},
-    }
     from lensdelay.api import forecast_scenario, load_model
 
-    sc = parse_scenario(doc, f"misspecified-{index}.toml")
     if recipe != "default":
         sc = replace(sc, model=load_model(f"models/{recipe}.toml"))
     t0 = time.perf_counter()

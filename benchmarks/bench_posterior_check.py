@@ -34,6 +34,7 @@ from lensdelay.lensing.images import find_images
 from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles import EllipticalPowerLaw, ExternalShear, IsothermalMultipole
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
+from bench_misspecified import Z_L, Z_S, blind_scenario  # the same blind set-up
 from lensdelay.model.recipe import (
     AXIS_RATIO_PRIOR,
     MULTIPOLE_PRIOR,
@@ -42,10 +43,7 @@ from lensdelay.model.recipe import (
     SLOPE_BOUNDS,
     SLOPE_PRIOR,
 )
-from lensdelay.model.scenario import parse_scenario
 
-Z_L, Z_S = 0.5, 2.0
-SIGMA = 0.005
 KAPPA, H0 = (0.0, 0.05), (70.0, 5.0)  # the forecast's default priors
 #: Sources uniform over a disc of this radius (arcsec) whatever the lens: 1.5 × the largest
 #: θE, beyond every multiply imaged region (the selection, ≥ 2 images with |μ| ≥ 0.3,
@@ -100,33 +98,6 @@ def draw_truth(rng, disc=SOURCE_DISC):
             return lens, table
 
 
-def scenario_for(rng, table):
-    """The blind scenario of a drawn system (positions with noise, lens light)."""
-    labels = "ABCDEFGH"
-    images = [
-        {
-            "label": labels[k],
-            "sigma": SIGMA,
-            "x": float(table.x[k] + rng.normal(0, SIGMA)),
-            "y": float(table.y[k] + rng.normal(0, SIGMA)),
-        }
-        for k in range(len(table))
-    ]
-    doc = {
-        "name": "check",
-        "lens": {"redshift": Z_L},
-        "cosmology": {"H0": 70.0, "Om0": 0.3},
-        "family": [{"label": "s", "redshift": Z_S, "image": images}],
-        "lens_light": {
-            "x": float(rng.normal(0, 0.01)),
-            "y": float(rng.normal(0, 0.01)),
-            "sigma": 0.01,
-        },
-        "transient": {"family": "s", "seen_in": "A", "date": "2027-01-10", "date_sigma_days": 0.01},
-    }
-    return parse_scenario(doc, "check.toml"), labels[: len(table)]
-
-
 def one_system(args):
     """Forecast one system; per delay (n_images, quantile of the truth's lens-model delay,
     quantile of the true delay, 1 if importance sampled else 0, median seconds)."""
@@ -139,7 +110,7 @@ def one_system(args):
     rng = np.random.default_rng(seed)
     lens, table = draw_truth(rng, disc)
     h0, kappa = rng.normal(*H0), rng.normal(*KAPPA)
-    sc, labels = scenario_for(rng, table)
+    sc, labels = blind_scenario(rng, table, "check")
     days = LensDistances(DEFAULT_COSMOLOGY, Z_L, Z_S).days_per_arcsec2(Z_S)
     t0 = time.perf_counter()
     with warnings.catch_warnings():

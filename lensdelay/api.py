@@ -23,7 +23,7 @@ from lensdelay.hubble.pipeline import run_hubble
 from lensdelay.inference.fit import ScenarioFit, check_constraints, delay_errors, fit
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import check_sampler_settings
-from lensdelay.inference.sampling import sample as run_sampler
+from lensdelay.inference.sampling import sample_posterior
 from lensdelay.io import reading
 from lensdelay.io.provenance import provenance
 from lensdelay.lensing.distances import LensDistances
@@ -228,7 +228,9 @@ def fit_scenario(
         Fit the measured delays (H0 free) and flux ratios (``flux_floor`` mag floor) too.
     sample : bool
         Also sample the posterior (``walkers`` × ``steps``), checkpointed to
-        ``checkpoint_dir`` and resumable with ``resume``.
+        ``checkpoint_dir`` and resumable with ``resume``; a model with fewer constraints
+        than parameters by importance sampling instead
+        (:func:`lensdelay.inference.sampling.sample_posterior`).
     progress, stop
         Progress display and stop request of :func:`lensdelay.inference.sampling.sample`.
     """
@@ -272,7 +274,7 @@ def fit_scenario(
     if sample:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", LensdelayWarning)
-            chain = run_sampler(
+            chain = sample_posterior(
                 like,
                 result.values,
                 walkers=walkers,

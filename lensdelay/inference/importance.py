@@ -36,6 +36,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
+from lensdelay.inference.priors import truncated_standard_normal
+
 #: Degrees of freedom of the Student-t proposal of the pinned parameters: heavier tails
 #: than the Laplace approximation, so that the proposal covers the conditional posterior.
 STUDENT_DF = 5.0
@@ -124,9 +126,8 @@ def _draw_from_priors(like, drawn, rows, rng):
     for i in drawn:
         if i in like.priors:
             mean, sigma = like.priors[i]
-            low = special.ndtr((like.lower[i] - mean) / sigma)
-            high = special.ndtr((like.upper[i] - mean) / sigma)
-            z = special.ndtri(rng.uniform(low, high, n))
+            low, high = (like.lower[i] - mean) / sigma, (like.upper[i] - mean) / sigma
+            z = truncated_standard_normal(low, high, n, rng)
             rows[:, i] = mean + sigma * z
             log_p += -0.5 * z * z  # the truncation's normalisation is a constant
         elif like.periods[i]:

@@ -1,4 +1,4 @@
-"""Priors on the external convergence κ_ext: checked, then drawn below 1.
+"""Priors on the external convergence κ_ext: checked, then drawn below 1; truncated draws.
 
 A mass sheet κ_ext scales every delay by (1 − κ_ext); at κ_ext ≥ 1 delays would change
 sign, which is unphysical for a sheet that leaves the images where they are. A
@@ -9,7 +9,7 @@ draws are truncated to κ_ext < 1.
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
+from scipy import special, stats
 
 from lensdelay.errors import InputError
 
@@ -50,3 +50,15 @@ def draw_kappa(mean: float, sigma: float, n: int, rng: np.random.Generator) -> n
     while np.any(bad := draws >= 1.0):
         draws[bad] = rng.normal(mean, sigma, int(bad.sum()))
     return draws
+
+
+def truncated_standard_normal(
+    low: float, high: float, size: int, rng: np.random.Generator
+) -> np.ndarray:
+    """``size`` draws of N(0, 1) truncated to [low, high], by the inverse CDF (common practice).
+
+    A Gaussian prior N(μ, σ²) within bounds [a, b] is drawn as μ + σz with low = (a − μ)/σ,
+    high = (b − μ)/σ.
+    """
+    u = rng.uniform(special.ndtr(low), special.ndtr(high), size=size)
+    return np.clip(special.ndtri(u), low, high)

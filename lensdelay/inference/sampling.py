@@ -17,7 +17,6 @@ from pathlib import Path
 
 import emcee
 import numpy as np
-from scipy import special
 
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates, polar_pairs
@@ -31,6 +30,7 @@ from lensdelay.inference.misfit import (
 )
 from lensdelay.inference.importance import ImportanceDraws, conditional_importance
 from lensdelay.inference.moves import FisherLangevinMove
+from lensdelay.inference.priors import truncated_standard_normal
 from lensdelay.inference.starts import AnchoredTarget, flat_anchors, randomised_fits
 from lensdelay.inference.backend import NpzCheckpoint
 
@@ -362,8 +362,7 @@ def _truncate_prior_noise(noise, like, rng) -> None:
     for column, low, high in ranges:
         if low < -TRUNCATION_REACH and high > TRUNCATION_REACH:
             continue
-        u = rng.uniform(special.ndtr(low), special.ndtr(high), size=len(noise))
-        noise[:, column] = np.clip(special.ndtri(u), low, high)
+        noise[:, column] = truncated_standard_normal(low, high, len(noise), rng)
 
 
 def _starting_ball(like, coords, target, start, scales, walkers, rng) -> emcee.State:
@@ -533,6 +532,25 @@ def importance_chain(like, best: np.ndarray, seed: int) -> Chain | None:
     )
 
 
+def sample_posterior(like, start: np.ndarray, *, seed: int = 1, **chain_options) -> Chain:
+    """The posterior of ``like`` around the best fit ``start``, by the right method.
+
+    A model with fewer constraints than parameters is sampled by conditional importance
+    sampling (:func:`importance_chain`; no checkpoint is written, it takes seconds), and
+    by the Markov chain (:func:`sample`, with ``chain_options``) otherwise, or when
+    importance sampling does not apply or its draws are worth fewer than
+    :data:`IMPORTANCE_MIN` independent ones.
+    """
+    if like.dof < 0:
+        chain = importance_chain(like, start, seed)
+        if chain is not None:
+            progress = chain_options.get("progress", False)
+            if progress:
+                _progress_display(progress, 1)(1)
+            return chain
+    return sample(like, start, seed=seed, **chain_options)
+
+
 def fit_and_sample(
     like,
     *,
@@ -547,10 +565,7 @@ def fit_and_sample(
 ):
     """Fit ``like`` and sample its posterior around the best fit: the sequence every job runs.
 
-    A model with fewer constraints than parameters is sampled by conditional importance
-    sampling (:func:`importance_chain`; no checkpoint is written, it takes seconds), and
-    by the Markov chain only when that does not apply or its draws are worth fewer than
-    :data:`IMPORTANCE_MIN` independent ones.
+    The posterior is sampled by :func:`sample_posterior`.
 
     Warnings of the fit and the sampler (degrees of freedom, short chains) are not
     raised: they are in the results' ``notes`` and ``warnings``, which the reports print.
@@ -576,24 +591,18 @@ def fit_and_sample(
         except InputError as err:
             raise err.with_source(like.scenario.source) from err
         n_steps = steps(result) if callable(steps) else steps
-        chain = None
-        if like.dof < 0:
-            chain = importance_chain(like, result.values, sample_seed)
-            if progress and chain is not None:
-                _progress_display(progress, 1)(1)
-        if chain is None:
-            chain = sample(
-                like,
-                result.values,
-                walkers=walkers,
-                steps=n_steps,
-                seed=sample_seed,
-                progress=progress,
-                stop=stop,
-                scales=result.errors,
-                checkpoint_dir=checkpoint_dir,
-                resume=resume,
-            )
+        chain = sample_posterior(
+            like,
+            result.values,
+            walkers=walkers,
+            steps=n_steps,
+            seed=sample_seed,
+            progress=progress,
+            stop=stop,
+            scales=result.errors,
+            checkpoint_dir=checkpoint_dir,
+            resume=resume,
+        )
     if result.model_error is not None:
         warnings.warn(
             f"{like.model.label}: {result.model_error.note()}", LensdelayWarning, stacklevel=2
