@@ -385,6 +385,8 @@ def test_model_family_term_is_the_spread_between_models(rng):
         kappa=np.zeros(2 * n),
         t0=np.zeros(2 * n),
         model=model,
+        x=np.zeros(2 * n),
+        y=np.zeros(2 * n),
     )
     terms = covariance_terms(samples, 70.0, with_date=True)
     assert terms["model family"] == pytest.approx(1.0, rel=1e-3)

@@ -10,6 +10,7 @@ from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_ta
 from lensdelay.io.storage import write_output_set
 from lensdelay.model.scenario import parse_date
 from lensdelay.report.figures import budget_figure, timeline_figure
+from lensdelay.report.finder import finder_chart, region_text
 
 
 def run(args) -> int:
@@ -43,15 +44,19 @@ def run(args) -> int:
     ics = forecast_ics(res)
     text = res.report()
     if out is not None:
-        figs = {"timeline": timeline_figure(res)}
+        figs = {"timeline": timeline_figure(res), "sky": finder_chart(res)}
         if res.budget is not None:
             figs["budget"] = budget_figure(res.budget)
+        texts = {"forecast.ecsv": ecsv, "forecast.ics": ics}
+        regions = region_text(res)
+        if regions is not None:
+            texts["sky.reg"] = regions
         write_output_set(
             out,
             json_name="forecast.json",
             doc=doc,
             figures=figs,
-            texts={"forecast.ecsv": ecsv, "forecast.ics": ics},
+            texts=texts,
             inputs=res.provenance["inputs"],
         )
     print(text)

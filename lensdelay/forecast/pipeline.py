@@ -36,11 +36,13 @@ from lensdelay.forecast.samples import (
     parity_name,
     solve_samples,
 )
+from lensdelay.inference.fit import ScenarioFit
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.priors import check_kappa_prior
 from lensdelay.inference.sampling import check_sampler_settings, fit_and_sample, int_seed
 from lensdelay.model.scenario import Scenario, Site, parse_date
 from lensdelay.forecast.observability import build_calendar
+from lensdelay.forecast.positions import position_ellipses, sky_position
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
 from lensdelay.inference.timing import SightingRow, TimingData, tensions_from_draws
 
@@ -274,6 +276,7 @@ def run_forecast(
     # one seed for the whole run: every stage draws from its own child of it
     stage_seeds = iter(np.random.SeedSequence(seed).spawn(4 * len(scenarios) + 2))
     n = settings.n_samples
+    likes = []
     models, prior_models, updates, fits, chains, notes_per_model, timings = (
         [],
         [],
@@ -343,6 +346,7 @@ def run_forecast(
         prior_models.append((prior_samples, prior_t0))
         updates.append(update)
         fits.append(result)
+        likes.append((sc, like))
         chains.append(chain)
         notes_per_model.append(notes + update.notes)
         timings.append(timing)
@@ -362,6 +366,8 @@ def run_forecast(
     w_prior = model_weights(
         [f.bic for f in fits], np.zeros(len(fits)), settings.weighting, acceptable
     )
+    best = int(np.argmax(w_model))
+    view = _finder_view(*likes[best], fits[best], tr, first_tracks)
     tension_rows = _tensions(
         timings, prior_models, w_prior, np.random.default_rng(next(stage_seeds))
     )
@@ -453,7 +459,7 @@ def run_forecast(
         settings=settings,
         site=site,
         now=now,
-        images=tuple(_image_forecast(e, tr.date) for e in images),
+        images=tuple(_image_forecast(e, tr.date, sc0.sky) for e in images),
         model_labels=tuple(f.model_label for f in fits),
         fits=tuple(fits),
         chains=tuple(chains),
@@ -465,16 +471,43 @@ def run_forecast(
         notes=tuple(notes),
         calendar=calendar,
         cosmology=cosmology,
+        sky_view=view,
         h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
     )
 
 
-def _image_forecast(entry: dict, detection_date) -> ImageForecast:
-    """The summary entry of one image as a frozen result."""
+def _finder_view(sc, like, result, tr, tracks) -> dict:
+    """What a finder chart draws from the most probable model's best fit.
+
+    The best fit's images, critical curves and caustics (:meth:`ScenarioFit.sky_view`)
+    and the arrival-time surface of the transient's source in days after the reference
+    image, over the same field; ``model_label`` names the model.
+    """
+    fitted = ScenarioFit(sc, like, result)
+    view = fitted.sky_view(resolution=240)
+    ref = next(t for t in tracks if t.label == tr.seen_in)
+    view["arrival"] = fitted.arrival_surface(tr.family, (ref.x, ref.y), view["extent"])
+    view["model_label"] = result.model_label
+    centres = like.model.lens(result.values[: like.n_model]).centres()
+    view["lens_centre"] = centres[0] if centres else None
+    return view
+
+
+def _image_forecast(entry: dict, detection_date, sky) -> ImageForecast:
+    """The summary entry of one image as a frozen result (ICRS position when ``sky`` is set)."""
     fields = {k: v for k, v in entry.items() if k not in ("samples", "offsets", "weights", "flag")}
     samples = ImageSampleSet(offsets=entry["offsets"], weights=entry["weights"], **entry["samples"])
+    ra = dec = None
+    if sky is not None:
+        where = sky_position(sky, entry["x"], entry["y"])
+        ra, dec = float(where.ra.deg), float(where.dec.deg)
     return ImageForecast(
-        **fields, flags=tuple(entry["flag"]), samples=samples, detection_date=detection_date
+        **fields,
+        flags=tuple(entry["flag"]),
+        samples=samples,
+        detection_date=detection_date,
+        ra=ra,
+        dec=dec,
     )
 
 
@@ -763,13 +796,17 @@ def _summarise(
         order = "reference" if is_ref else ("trails" if trails >= leads else "leads")
         order_agreement = 1.0 if is_ref else max(trails, leads) / max(trails + leads, 1e-300)
         off_q = quantile_summary(arr["offsets"], weights)
+        centre_x, centre_y, ellipses = position_ellipses(
+            arr["x"][valid], arr["y"][valid], weights[valid]
+        )
         seen = is_ref or g["label"] in sighted
         entry = {
             "family": g["family"],
             "label": g["label"],
             "observed": bool(g["observed"]),
-            "x": float(weighted_quantiles(arr["x"], weights, [50])[0]),
-            "y": float(weighted_quantiles(arr["y"], weights, [50])[0]),
+            "x": centre_x,
+            "y": centre_y,
+            "position_error": ellipses,
             "parity": parity_name(par),
             "parity_agreement": par_share,
             "arrival_rank": int(rk),
@@ -786,7 +823,9 @@ def _summarise(
             "per_model": per_model,
             "offsets": arr["offsets"],
             "weights": weights,
-            "samples": {k: arr[k] for k in ("lens_days", "h0", "kappa", "t0", "model", "delay")},
+            "samples": {
+                k: arr[k] for k in ("lens_days", "h0", "kappa", "t0", "model", "delay", "x", "y")
+            },
         }
         if min(par_share, rk_share) < AGREEMENT:
             entry["flag"].append(

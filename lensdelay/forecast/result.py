@@ -13,7 +13,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from astropy import units as u
+from astropy.coordinates import SkyCoord
 from astropy.time import Time
+
+from lensdelay.forecast.positions import PositionEllipse
 
 
 @dataclass(frozen=True)
@@ -21,7 +24,8 @@ class ImageSampleSet:
     """Per-sample values behind one image's summaries (all models pooled), with weights.
 
     ``offsets`` are dates as days after the detection date (t0 + Δt); ``lens_days`` the
-    lens-model delays at the reference cosmology; ``model`` the index of each sample's model.
+    lens-model delays at the reference cosmology; ``model`` the index of each sample's model;
+    ``x``, ``y`` the image's position (arcsec offsets; NaN where it does not exist).
     """
 
     offsets: np.ndarray
@@ -32,6 +36,8 @@ class ImageSampleSet:
     kappa: np.ndarray
     t0: np.ndarray
     model: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -40,6 +46,10 @@ class ImageForecast:
 
     ``date_offset_days`` and ``delay_days`` are summaries in days after the detection
     date and after the reference image; :attr:`date` gives the dates themselves.
+    ``x``, ``y`` are the weighted-median position (arcsec offsets), ``position_error``
+    its 68% and 95% error ellipses (:mod:`lensdelay.forecast.positions`), ``ra``, ``dec``
+    the ICRS position in degrees (None when the scenario has no ``[sky]``); :attr:`coord`
+    gives it as a ``SkyCoord``.
     """
 
     family: str
@@ -70,6 +80,25 @@ class ImageForecast:
     detection_date: Time
     samples: ImageSampleSet = field(repr=False)
     observability: dict | None = None
+    position_error: tuple[PositionEllipse, ...] = ()
+    ra: float | None = None
+    dec: float | None = None
+
+    @property
+    def coord(self) -> SkyCoord | None:
+        """The ICRS position (None without a ``[sky]`` origin)."""
+        if self.ra is None:
+            return None
+        return SkyCoord(self.ra * u.deg, self.dec * u.deg, frame="icrs")
+
+    def ellipse(self, level: int = 95) -> PositionEllipse:
+        """The 68% or 95% position error ellipse."""
+        for e in self.position_error:
+            if e.level == level:
+                return e
+        raise KeyError(
+            f"level must be one of {[e.level for e in self.position_error]}, got {level}"
+        )
 
     @property
     def name(self) -> str:
@@ -101,6 +130,9 @@ class Forecast:
         samples, and every measurement's tension (JSON-ready).
     budget, provenance : dict or None
         Added by :func:`lensdelay.api.forecast_scenario`.
+    sky_view : dict or None
+        What a finder chart draws: the most probable model's best-fit images, critical
+        curves, caustics and arrival-time surface (``forecast.pipeline._finder_view``).
     """
 
     scenario: object
@@ -122,6 +154,7 @@ class Forecast:
     calendar: object = field(default=None, repr=False)
     provenance: dict | None = None
     budget: dict | None = None
+    sky_view: dict | None = field(default=None, repr=False)
 
     def image(self, label: str, family: str | None = None) -> ImageForecast:
         """The image called ``label`` (of ``family``, default the transient's)."""

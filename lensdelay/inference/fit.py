@@ -480,3 +480,29 @@ class ScenarioFit:
             "unobserved": self.fit.unobserved_images,
             "members": None if members is None else {"x": members.x, "y": members.y},
         }
+
+    def arrival_surface(
+        self, family: str, reference: tuple[float, float], extent: float, resolution: int = 200
+    ) -> dict:
+        """The arrival-time surface of ``family``'s source at the best fit, on a square grid.
+
+        Days after a point ``reference`` (x, y in arcsec; the reference image), at the
+        scenario's cosmology and κ_ext = 0: t(θ) − t(θ_ref) = (D_Δt/c)(τ(θ) − τ(θ_ref))
+        (CONVENTIONS.md, "Arrival time and delays").
+
+        Returns ``x``, ``y`` (1-D grid axes, arcsec) and ``days`` (resolution × resolution,
+        indexed [y, x]).
+        """
+        like, values = self.likelihood, self.fit.values
+        k = [f.label for f in like.families].index(family)
+        fam = like.families[k]
+        lens = like.model.lens(values[: like.n_model])
+        bx, by = values[like.source_slice(k)]
+        axis = np.linspace(-extent, extent, resolution)
+        gx, gy = np.meshgrid(axis, axis)
+        with np.errstate(all="ignore"):
+            tau = lens.fermat_potential(gx, gy, bx, by, fam.scale)
+            tau_ref = lens.fermat_potential(
+                np.array([reference[0]]), np.array([reference[1]]), bx, by, fam.scale
+            )[0]
+        return {"x": axis, "y": axis, "days": (tau - tau_ref) * fam.days_per_arcsec2}

@@ -78,6 +78,8 @@ def forecast_json(res) -> dict:
                 "magnitude",
             )
         }
+        entry["ra_deg"], entry["dec_deg"] = im.ra, im.dec
+        entry["position_error"] = [e.as_dict() for e in im.position_error]
         entry["date"] = date_summary(res, im)
         entry["date_mjd"] = mjd_summary(res, im)
         entry.update(
@@ -118,6 +120,9 @@ def forecast_json(res) -> dict:
         "cosmology": describe_cosmology(res.cosmology),
         "seed": st.seed,
         "images": images,
+        "sky_origin": None
+        if sc.sky is None
+        else {"ra_deg": float(sc.sky.ra.deg), "dec_deg": float(sc.sky.dec.deg), "frame": "icrs"},
         "now": iso_utc(res.now),
         "now_mjd": float(res.now.utc.mjd),
         "detection": {
@@ -184,7 +189,13 @@ def forecast_table(res) -> Table:
             "y": im.y,
             "parity": im.parity,
             "arrival_rank": im.arrival_rank,
+            "ra": np.nan if im.ra is None else im.ra,
+            "dec": np.nan if im.dec is None else im.dec,
         }
+        for e in im.position_error:
+            row[f"ellipse{e.level}_semi_major"] = e.semi_major
+            row[f"ellipse{e.level}_semi_minor"] = e.semi_minor
+            row[f"ellipse{e.level}_position_angle"] = e.position_angle
         for k in ("median", "p16", "p84", "p2.5", "p97.5"):
             row[f"delay_{k}"] = im.delay_days[k]
         for k in ("median", "p2.5", "p16", "p84", "p97.5"):
@@ -206,14 +217,18 @@ def forecast_table(res) -> Table:
         # an empty cell in ECSV, as null in the JSON -- never a NaN
         if t[c].dtype.kind == "f":
             t[c].mask = ~np.isfinite(np.asarray(t[c], dtype=float))
-    for c in ("x", "y"):
-        t[c].unit = u.arcsec
+    for c in t.colnames:
+        if c in ("x", "y") or c.endswith(("_semi_major", "_semi_minor")):
+            t[c].unit = u.arcsec
+        elif c in ("ra", "dec") or c.endswith("_position_angle"):
+            t[c].unit = u.deg
     for c in t.colnames:
         if c.startswith(("delay_", "mjd_")):
             t[c].unit = u.day
     t.meta["comments"] = [
         "lensdelay forecast; delays relative to the image the transient was seen in "
-        "(positive = later); mjd_* are UTC MJD",
+        "(positive = later); mjd_* are UTC MJD; ra, dec ICRS; ellipseNN_*: the NN% position "
+        "error ellipse (position angle of the major axis, East of North)",
         CAUTION,
     ]
     t.meta["reference_image"] = res.scenario.transient.seen_in

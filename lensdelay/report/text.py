@@ -244,6 +244,41 @@ def _h0_text(res) -> str:
     return f"H0 = {float(cosmo.H0.value):g} km/s/Mpc (fixed{name})"
 
 
+def _ellipse_text(im, level: int) -> str:
+    """'a × b mas @ PA' of an image's error ellipse."""
+    try:
+        e = im.ellipse(level)
+    except KeyError:
+        return "—"
+    return f"{1e3 * e.semi_major:.0f}×{1e3 * e.semi_minor:.0f} @{e.position_angle:3.0f}°"
+
+
+def position_lines(res) -> list[str]:
+    """Where each image is: offsets, ICRS RA/Dec and the 68% / 95% error ellipses."""
+    head = (
+        f"{'image':<8} {'x [arcsec]':>10} {'y [arcsec]':>10} {'RA (ICRS)':>13} {'Dec (ICRS)':>13} "
+        f"{'68% ellipse [mas]':>19} {'95% ellipse [mas]':>19}"
+    )
+    lines = [head, "-" * len(head)]
+    for im in res.images:
+        name = f"{im.family}/{im.label}" + ("" if im.observed else "*")
+        if im.coord is not None:
+            ra = im.coord.ra.to_string(unit="hourangle", sep=":", precision=3, pad=True)
+            dec = im.coord.dec.to_string(sep=":", precision=2, alwayssign=True, pad=True)
+        else:
+            ra = dec = "—"
+        lines.append(
+            f"{name:<8} {im.x:+10.3f} {im.y:+10.3f} {ra:>13} {dec:>13} "
+            f"{_ellipse_text(im, 68):>19} {_ellipse_text(im, 95):>19}"
+        )
+    lines.append(
+        "(x East, y North of the [sky] origin; ellipses: semi-major × semi-minor, position angle "
+        "East of North, from the model samples"
+        + ("; no [sky] in the scenario, so no RA/Dec)" if res.scenario.sky is None else ")")
+    )
+    return lines
+
+
 def forecast_text(res: dict) -> str:
     """The readable terminal summary."""
     sc, st = res.scenario, res.settings
@@ -307,6 +342,7 @@ def forecast_text(res: dict) -> str:
     used = sorted({im.status for im in res.images}, key=list(STATUS_MEANINGS).index)
     for s in used:
         lines.append(f"  {s}: {STATUS_MEANINGS[s]}")
+    lines += ["", *position_lines(res)]
     if len(res.model_labels) > 1:
         lines += ["", "per-model median delays [d] (weight):"]
         labels = res.model_labels
