@@ -291,6 +291,98 @@ def fit_scenario(
     )
 
 
+#: Most pixels along a map's side (a 4001² grid of seven maps is ~450 MB as float32).
+MAX_MAP_PIXELS = 4001
+
+
+def map_scenario(
+    scenario,
+    model=None,
+    *,
+    size: float | None = None,
+    pixel: float | None = None,
+    samples: int = 0,
+    walkers: int = 32,
+    steps: int = 2000,
+    seed: int = 1,
+    progress: bool = False,
+    prior: str = "flat",
+):
+    """Maps of the fitted lens on a square grid (``lensdelay maps``).
+
+    Parameters
+    ----------
+    scenario : Scenario or path
+        Needs ``[sky]`` (the maps' celestial WCS is centred there).
+    model : MassModel or path, optional
+    size, pixel : float, optional
+        Side of the field and pixel size, arcsec (default: a field 2.5 times the farthest
+        image's distance from the origin, 201 pixels across).
+    samples : int
+        With > 0, the posterior is sampled and that many draws give the median and spread
+        maps.
+    walkers, steps, seed, progress, prior
+        As for :func:`fit_scenario`.
+
+    Returns
+    -------
+    LensMaps
+        Best-fit maps (and posterior summaries), with the provenance.
+    """
+    from lensdelay.inference.maps import fitted_maps
+
+    sc, used = _scenario(scenario, model)
+    if sc.sky is None:
+        raise InputError(
+            "sky must give ra and dec (ICRS degrees) for maps with a celestial WCS, got none",
+            sc.source,
+        )
+    if isinstance(samples, bool) or not isinstance(samples, (int, np.integer)) or samples < 0:
+        raise InputError(f"samples must be an integer >= 0, got {samples!r}")
+    if size is None:
+        reach = max(np.hypot(im.x, im.y) for fam in sc.families for im in fam.images)
+        size = 2.5 * reach + 0.5
+    if pixel is None:
+        # a round pixel (1, 2 or 5 × a power of ten) giving about 200 across
+        raw = size / 200.0
+        power = 10.0 ** np.floor(np.log10(raw))
+        pixel = float(power * min(m for m in (1, 2, 5, 10) if m * power >= raw))
+    for name, value in (("size", size), ("pixel", pixel)):
+        if not (np.isfinite(value) and value > 0):
+            raise InputError(f"{name} must be a positive number of arcsec, got {value!r}")
+    if size / pixel > MAX_MAP_PIXELS:
+        raise InputError(
+            f"size / pixel must be <= {MAX_MAP_PIXELS} pixels across, got {size / pixel:.0f} "
+            f"({size:g} / {pixel:g}); choose a larger pixel or a smaller size"
+        )
+    fitted = fit_scenario(
+        sc,
+        sample=samples > 0,
+        walkers=walkers,
+        steps=steps,
+        seed=seed,
+        progress=progress,
+        prior=prior,
+    )
+    rows = None
+    if samples > 0:
+        flat = fitted.chain.samples()
+        rows = flat[np.random.default_rng(seed).integers(0, len(flat), samples)]
+    tr = sc.transient
+    family = tr.family if tr is not None else sc.families[0].label
+    reference = tr.seen_in if tr is not None else sc.families[0].images[0].label
+    maps = fitted_maps(
+        fitted.likelihood,
+        fitted.fit.values,
+        size=size,
+        pixel=pixel,
+        family=family,
+        reference=reference,
+        rows=rows,
+    )
+    return replace(maps, provenance=provenance(used, sc.cosmology, seed))
+
+
 def forecast_scenario(scenario, models=None, *, budget: bool = True, **options) -> dict:
     """When, where and how bright the transient appears in every image (the main job).
 

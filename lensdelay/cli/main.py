@@ -13,14 +13,14 @@ import sys
 import threading
 import warnings
 
-from lensdelay.cli import check, fit, forecast, hubble, images
+from lensdelay.cli import check, fit, forecast, hubble, images, maps
 from lensdelay.cli.options import with_flags
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
 from lensdelay.inference.sampling import StopRequest
 from lensdelay.io.storage import PartialOutputError
 from lensdelay.version import __version__
 
-SUBCOMMANDS = (images, check, fit, forecast, hubble)
+SUBCOMMANDS = (images, check, fit, forecast, hubble, maps)
 
 
 class _Parser(argparse.ArgumentParser):

@@ -68,7 +68,15 @@ class PartialOutputError(KeyboardInterrupt):
 
 
 def write_output_set(
-    out, *, json_name: str, doc: dict, texts=None, figures=None, arrays=None, inputs=()
+    out,
+    *,
+    json_name: str,
+    doc: dict,
+    texts=None,
+    figures=None,
+    arrays=None,
+    binaries=None,
+    inputs=(),
 ) -> list[str]:
     """Write one command's outputs into folder ``out`` as one set.
 
@@ -85,7 +93,7 @@ def write_output_set(
     from lensdelay.errors import InputError, LensdelayError
 
     out = Path(out)
-    names = [*(texts or {}), *(arrays or {})]
+    names = [*(texts or {}), *(arrays or {}), *(binaries or {})]
     names += [f"{stem}.{ext}" for stem in (figures or {}) for ext in ("png", "pdf")]
     names.append(json_name)
     protected = {Path(p).resolve() for p in inputs}
@@ -106,6 +114,8 @@ def write_output_set(
                 atomic_write_text(staging / name, text)
             for name, arrs in (arrays or {}).items():
                 atomic_save_npz(staging / name, **arrs)
+            for name, data in (binaries or {}).items():
+                atomic_write_bytes(staging / name, data)
             for stem, fig in (figures or {}).items():
                 atomic_savefig(fig, staging / stem)
             atomic_write_json(staging / json_name, doc)

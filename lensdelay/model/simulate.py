@@ -70,8 +70,10 @@ def to_toml(doc: dict) -> str:
 
     def emit(prefix, table):
         for k, v in table.items():
-            if not isinstance(v, dict) and not (
-                isinstance(v, list) and v and isinstance(v[0], dict)
+            # a parameter table ({ value = , min = , ... }) is written inline, here with
+            # the scalars: skipping it in both passes lost it
+            if (isinstance(v, dict) and _inline(v)) or not (
+                isinstance(v, dict) or (isinstance(v, list) and v and isinstance(v[0], dict))
             ):
                 lines.append(f"{k} = {scalar(v)}")
         for k, v in table.items():
