@@ -5,9 +5,10 @@ from __future__ import annotations
 import sys
 
 from lensdelay.api import forecast_scenario
+from lensdelay.errors import InputError
 from lensdelay.cli.options import add_prior_argument, number, output_folder, site_from_args
 from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
-from lensdelay.io.storage import write_output_set
+from lensdelay.io.storage import figure_bytes, json_ready, write_output_set
 from lensdelay.model.scenario import parse_date
 from lensdelay.report.figures import budget_figure, timeline_figure
 from lensdelay.report.finder import finder_chart, region_text
@@ -15,6 +16,8 @@ from lensdelay.report.finder import finder_chart, region_text
 
 def run(args) -> int:
     """Forecast, print the report, write every output to --out at once."""
+    if args.report and args.out is None:
+        raise InputError("--report needs --out DIR (the page goes beside the outputs), got none")
     out = output_folder(args.out)
     now = parse_date(args.now, "--now") if args.now is not None else None
     res = forecast_scenario(
@@ -51,6 +54,11 @@ def run(args) -> int:
         regions = region_text(res)
         if regions is not None:
             texts["sky.reg"] = regions
+        if args.report:
+            from lensdelay.report.html import report_html
+
+            pngs = {stem: figure_bytes(fig) for stem, fig in figs.items()}
+            texts["report.html"] = report_html(forecast=json_ready(doc), figures=pngs)
         write_output_set(
             out,
             json_name="forecast.json",
@@ -140,6 +148,11 @@ def register(sub) -> None:
         help="sampler steps (default 2000; more when the measurements need a new sample)",
     )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument(
+        "--report",
+        action="store_true",
+        help="also write report.html (one self-contained page; needs --out)",
+    )
     p.add_argument(
         "--no-budget",
         dest="budget",

@@ -115,6 +115,20 @@ def forecast_json(res) -> dict:
             entry["observability"] = im.observability
         images.append(entry)
     doc = {
+        "scenario": {
+            "name": sc.name,
+            "lens_redshift": float(sc.lens_redshift),
+            "families": [
+                {
+                    "label": f.label,
+                    "redshift": float(f.redshift),
+                    "images": [
+                        {"label": o.label, "x": o.x, "y": o.y, "sigma": o.sigma} for o in f.images
+                    ],
+                }
+                for f in sc.families
+            ],
+        },
         "reference_image": tr.seen_in,
         "reference_family": tr.family,
         "cosmology": describe_cosmology(res.cosmology),

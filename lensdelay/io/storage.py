@@ -38,18 +38,23 @@ def atomic_write_json(path, obj) -> None:
     atomic_write_text(path, json.dumps(json_ready(obj), indent=2, allow_nan=False) + "\n")
 
 
-def atomic_savefig(fig, stem) -> list[str]:
-    """Save a matplotlib figure as PNG and PDF, each atomically. Returns the paths."""
+def figure_bytes(fig, ext: str = "png") -> bytes:
+    """A matplotlib figure as PNG or PDF bytes, as every output figure is saved."""
     import io
 
+    buf = io.BytesIO()
+    # no creation date or software version in the files: identical runs, identical bytes
+    metadata = {"CreationDate": None} if ext == "pdf" else {"Software": None}
+    fig.savefig(buf, format=ext, dpi=130, bbox_inches="tight", metadata=metadata)
+    return buf.getvalue()
+
+
+def atomic_savefig(fig, stem) -> list[str]:
+    """Save a matplotlib figure as PNG and PDF, each atomically. Returns the paths."""
     out = []
     for ext in ("png", "pdf"):
-        buf = io.BytesIO()
-        # no creation date or software version in the files: identical runs, identical bytes
-        metadata = {"CreationDate": None} if ext == "pdf" else {"Software": None}
-        fig.savefig(buf, format=ext, dpi=130, bbox_inches="tight", metadata=metadata)
         path = f"{stem}.{ext}"
-        atomic_write_bytes(path, buf.getvalue())
+        atomic_write_bytes(path, figure_bytes(fig, ext))
         out.append(path)
     return out
 

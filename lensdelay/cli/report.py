@@ -1,0 +1,35 @@
+"""``lensdelay report DIR``: one self-contained HTML page from the outputs in DIR."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from lensdelay.io.report_inputs import read_results
+from lensdelay.io.storage import atomic_write_text
+from lensdelay.report.html import report_html
+
+
+def run(args) -> int:
+    """Read DIR's outputs, write DIR/report.html (or --out) atomically."""
+    docs, figures = read_results(args.folder)
+    page = report_html(
+        forecast=docs.get("forecast"),
+        fit=docs.get("fit"),
+        hubble=docs.get("hubble"),
+        figures=figures,
+    )
+    target = Path(args.out) if args.out else Path(args.folder) / "report.html"
+    atomic_write_text(target, page)
+    print(f"wrote {target} ({', '.join(docs)}; {len(figures)} figures)", file=sys.stderr)
+    return 0
+
+
+def register(sub) -> None:
+    """Add the ``report`` sub-command to the parser."""
+    p = sub.add_parser(
+        "report", help="one self-contained HTML page from the fit, forecast and hubble outputs"
+    )
+    p.add_argument("folder", help="folder holding forecast.json, fit.json and/or hubble.json")
+    p.add_argument("--out", help="the HTML file to write (default: FOLDER/report.html)")
+    p.set_defaults(func=run)

@@ -1,0 +1,113 @@
+"""Reading a folder of job outputs for the report, refusing what it cannot use.
+
+The report needs the JSON document of at least one job (forecast.json, fit.json,
+hubble.json) written by this version of lensdelay, with the keys the page reads; the
+PNG figures beside them are optional. Anything else is refused in one line naming the
+file and what is missing.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from lensdelay.errors import InputError
+from lensdelay.version import __version__
+
+#: Keys each job's JSON must hold for the report (top level, and per image entry).
+REQUIRED = {
+    "forecast": (
+        "scenario",
+        "reference_image",
+        "reference_family",
+        "cosmology",
+        "images",
+        "detection",
+        "priors",
+        "models",
+        "sky_origin",
+        "provenance",
+    ),
+    "fit": ("version", "scenario", "model", "chi2", "dof", "quality", "parameters"),
+    "hubble": ("H0", "kappa_ext_comparison", "provenance"),
+}
+IMAGE_KEYS = (
+    "family",
+    "label",
+    "observed",
+    "status",
+    "x",
+    "y",
+    "ra_deg",
+    "dec_deg",
+    "position_error",
+    "delay_days",
+    "magnification",
+    "parity",
+    "date",
+)
+FIGURE_STEMS = (
+    "sky",
+    "timeline",
+    "budget",
+    "fit_sky",
+    "fit_residuals",
+    "corner",
+    "hubble_curves",
+    "hubble_posterior",
+)
+
+
+def check_document(job: str, doc, where: str) -> dict:
+    """Refuse a job's JSON that this version cannot report on (one line, naming ``where``)."""
+    if not isinstance(doc, dict):
+        raise InputError(f"{where} must hold a JSON object, got {type(doc).__name__}")
+    version = doc.get("version") if job == "fit" else (doc.get("provenance") or {}).get("version")
+    if version != __version__:
+        raise InputError(
+            f"{where} was written by lensdelay {version or 'of unknown version'}, this is "
+            f"{__version__}: run `lensdelay {job}` again to report on it"
+        )
+    missing = [k for k in REQUIRED[job] if k not in doc]
+    if job == "forecast" and not missing:
+        for im in doc["images"]:
+            missing = [f"images[].{k}" for k in IMAGE_KEYS if k not in im]
+            if missing:
+                break
+    if missing:
+        raise InputError(f"{where} lacks {', '.join(missing)}: run `lensdelay {job}` again")
+    return doc
+
+
+def read_results(folder) -> tuple[dict, dict[str, bytes]]:
+    """The jobs' documents and PNG figures found in ``folder``.
+
+    Returns ``({job: document}, {figure stem: PNG bytes})``.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputError(f"report folder {folder} must be a folder of lensdelay outputs, got none")
+    docs = {}
+    for job in ("forecast", "fit", "hubble"):
+        path = folder / f"{job}.json"
+        if not path.exists():
+            continue
+        try:
+            doc = json.loads(path.read_text())
+        except (OSError, ValueError) as err:
+            raise InputError(f"{path} must be readable JSON, got: {err}") from err
+        docs[job] = check_document(job, doc, str(path))
+    if not docs:
+        raise InputError(
+            f"{folder} must hold forecast.json, fit.json or hubble.json (written by "
+            "`lensdelay forecast|fit|hubble --out`), got none"
+        )
+    figures = {}
+    for stem in FIGURE_STEMS:
+        path = folder / f"{stem}.png"
+        if path.exists():
+            data = path.read_bytes()
+            if not data.startswith(b"\x89PNG\r\n\x1a\n"):
+                raise InputError(f"{path} must be a PNG image, got other bytes")
+            figures[stem] = data
+    return docs, figures
