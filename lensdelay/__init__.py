@@ -15,6 +15,7 @@ from lensdelay.api import (
     infer_h0,
     load_model,
     load_scenario,
+    map_scenario,
 )
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
 from lensdelay.inference.likelihood import ImageLikelihood
@@ -48,6 +49,7 @@ __all__ = [
     # the jobs
     "forecast_scenario",
     "infer_h0",
+    "map_scenario",
     # errors
     "LensdelayError",
     "InputError",

@@ -2,13 +2,41 @@
 
 from __future__ import annotations
 
+import functools
+
 import matplotlib
 import numpy as np
+from cycler import cycler
 from matplotlib.figure import Figure
 from matplotlib.patches import Circle
 
 
 MARKERS = {"minimum": "o", "saddle": "s", "maximum": "^"}
+#: The project's colours (ours; distinct in greyscale by lightness where it matters): ink
+#: blue, wine, green, amber, violet, slate.
+PALETTE = ("#1f4e9a", "#7a1f3d", "#2e7d4f", "#b35c00", "#5b3f8c", "#4a5563")
+#: One look for every figure: fonts and sizes, the palette as the colour cycle.
+FIGURE_STYLE = {
+    "font.family": "DejaVu Sans",
+    "font.size": 9,
+    "axes.titlesize": 10,
+    "axes.labelsize": 9,
+    "xtick.labelsize": 8,
+    "ytick.labelsize": 8,
+    "legend.fontsize": 7.5,
+    "axes.prop_cycle": cycler(color=PALETTE),
+}
+
+
+def styled(make):
+    """Build a figure under :data:`FIGURE_STYLE` (a context: nothing global changes)."""
+
+    @functools.wraps(make)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(FIGURE_STYLE):
+            return make(*args, **kwargs)
+
+    return wrapper
 
 
 def _sky_axes(ax, extent):
@@ -19,6 +47,7 @@ def _sky_axes(ax, extent):
     ax.set_ylabel("y = ΔDec [arcsec]  (North ↑)")
 
 
+@styled
 def sky_figure(view: dict, title: str = ""):
     """Observed and model images, critical curves and caustics of every family.
 
@@ -26,7 +55,7 @@ def sky_figure(view: dict, title: str = ""):
     """
     fig = Figure(figsize=(6.4, 6.0))
     ax = fig.subplots()
-    colours = matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
+    colours = PALETTE
     for k, fam in enumerate(view["families"]):
         c = colours[k % len(colours)]
         for n, line in enumerate(fam["critical_lines"]):
@@ -73,7 +102,7 @@ def sky_figure(view: dict, title: str = ""):
             im["y"],
             MARKERS.get(im["parity"], "o"),
             mfc="none",
-            mec="tab:red",
+            mec=PALETTE[1],
             ms=8,
             label="predicted, not observed" if j == 0 else None,
         )
@@ -98,6 +127,7 @@ def sky_figure(view: dict, title: str = ""):
     return fig
 
 
+@styled
 def residual_figure(fit_result):
     """Per-image position residuals in mas, with the 1-σ circle."""
     rows = [r for r in fit_result.residuals_mas if r["reproduced"]]
@@ -125,15 +155,58 @@ def residual_figure(fit_result):
     return fig
 
 
+#: Words for parameter names (the part after the component), with units.
+PARAMETER_WORDS = {
+    "einstein_radius": "Einstein radius [″]",
+    "axis_ratio": "axis ratio",
+    "position_angle": "position angle [°]",
+    "strength": "shear strength",
+    "slope": "radial slope γ′",
+    "convergence": "convergence κ",
+    "kappa_s": "κs",
+    "scale_radius": "scale radius [″]",
+    "core": "core [″]",
+    "cut": "truncation radius [″]",
+    "cosine": "cosine term",
+    "sine": "sine term",
+    "x": "centre x (East) [″]",
+    "y": "centre y (North) [″]",
+}
+
+
+def parameter_label(name: str) -> str:
+    """A parameter's code name in words, with its unit.
+
+    'mass[0].einstein_radius' -> 'Einstein radius [″] (mass 1)'; 'source[sn].x' ->
+    'source x (sn) [″]'; names it does not know are returned with spaces for underscores.
+    """
+    if name.startswith("source[") and "]." in name:
+        family, coord = name[len("source[") :].split("].", 1)
+        return f"source {coord} ({family}) [″]"
+    if name.startswith("mass[") and "]." in name:
+        index, key = name[len("mass[") :].split("].", 1)
+        words = PARAMETER_WORDS.get(key, key.replace("_", " "))
+        return f"{words} (mass {int(index) + 1})" if index.isdigit() else words
+    if name.startswith("members."):
+        key = name.split(".", 1)[1]
+        return f"members: {PARAMETER_WORDS.get(key, key.replace('_', ' '))}"
+    return {"H0": "H0 [km/s/Mpc]", "kappa_ext": "κ_ext"}.get(name, name.replace("_", " "))
+
+
+@styled
 def corner_figure(samples, names, truths=None):
-    """Pairwise scatter and marginal histograms of posterior samples."""
+    """Pairwise 2-D histograms and marginal histograms of posterior samples.
+
+    The pairs are shaded histograms drawn as raster images inside the vector PDF: a
+    scatter of every sample made the file several megabytes.
+    """
     n = samples.shape[1]
-    fig = Figure(figsize=(1.7 * n + 1, 1.7 * n + 1))
+    size = min(1.7 * n + 1, 16.0)
+    fig = Figure(figsize=(size, size))
     axes = fig.subplots(n, n, squeeze=False)
-    short = [
-        nm.replace("mass[", "m").replace("].", ".").replace("source[", "src.").replace("]", "")
-        for nm in names
-    ]
+    labels = [parameter_label(nm) for nm in names]
+    finite = np.all(np.isfinite(samples), axis=1)
+    samples = samples[finite]
     for i in range(n):
         for j in range(n):
             ax = axes[i, j]
@@ -144,21 +217,24 @@ def corner_figure(samples, names, truths=None):
                 ax.hist(samples[:, i], bins=30, histtype="step", color="k")
                 ax.set_yticks([])
             else:
-                ax.plot(samples[:, j], samples[:, i], ",", alpha=0.4, color="k")
+                ax.hist2d(
+                    samples[:, j], samples[:, i], bins=36, cmap="Greys", cmin=1, rasterized=True
+                )
             if i == n - 1:
-                ax.set_xlabel(short[j], fontsize=7)
+                ax.set_xlabel(labels[j], fontsize=7)
             else:
                 ax.set_xticklabels([])
             if j == 0 and i > 0:
-                ax.set_ylabel(short[i], fontsize=7)
+                ax.set_ylabel(labels[i], fontsize=7)
             elif j > 0:
                 ax.set_yticklabels([])
             ax.tick_params(labelsize=6)
-    fig.suptitle("Posterior samples (points) and marginal histograms", fontsize=10)
+    fig.suptitle("Posterior of the mass-model parameters (shading: sample density)", fontsize=10)
     fig.subplots_adjust(top=0.95, hspace=0.08, wspace=0.08)
     return fig
 
 
+@styled
 def timeline_figure(res):
     """Each image's date distribution on a calendar axis, with observable spans shaded."""
     import matplotlib.dates as mdates
@@ -207,8 +283,8 @@ def timeline_figure(res):
                 centres,
                 row - h,
                 row + h,
-                color="tab:blue",
-                alpha=0.55,
+                color=PALETTE[0],
+                alpha=0.45,
                 lw=0,
                 label="date distribution" if row == 0 else None,
             )
@@ -251,17 +327,17 @@ def timeline_figure(res):
                     [to_num(off + s.sigma_days) - to_num(off)],
                 ],
                 fmt="D",
-                color="tab:orange",
+                color=PALETTE[3],
                 mec="k",
                 ms=5,
                 capsize=2,
                 label="sighting ± 1σ" if first else None,
             )
             first = False
-    ax.axvline(to_num(0.0), color="tab:red", lw=1.2, label=f"detection {tr.date.isot[:10]}")
+    ax.axvline(to_num(0.0), color=PALETTE[1], lw=1.2, label=f"detection {tr.date.isot[:10]}")
     now = (res.now - base).to_value("day")
     if lo - pad <= now <= hi + pad:
-        ax.axvline(to_num(now), color="tab:purple", ls="--", lw=1, label=f"now {res.now.isot[:10]}")
+        ax.axvline(to_num(now), color=PALETTE[4], ls="--", lw=1, label=f"now {res.now.isot[:10]}")
     ax.set_yticks(range(len(images)))
     ax.set_yticklabels(
         [f"{im.family}/{im.label}{'' if im.observed else '*'} ({im.status})" for im in images]
@@ -269,8 +345,17 @@ def timeline_figure(res):
     ax.set_ylim(-0.7, len(images) - 0.3)
     ax.set_xlim(to_num(lo - pad), to_num(hi + pad))
     ax.xaxis_date()
-    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(ax.xaxis.get_major_locator()))
-    ax.set_xlabel("date (UTC)")
+    span = (hi - lo) + 2 * pad
+    locator = mdates.AutoDateLocator(minticks=4, maxticks=9)
+    ax.xaxis.set_major_locator(locator)
+    # day and month on every tick (the year in the axis label) for galaxy-scale spans;
+    # month and year for cluster-scale ones
+    ax.xaxis.set_major_formatter(mdates.DateFormatter("%d %b" if span < 400 else "%b %Y"))
+    first = base + (lo - pad) * u.day
+    last = base + (hi + pad) * u.day
+    years = sorted({first.datetime.year, last.datetime.year})
+    year_text = "–".join(str(y) for y in years) if span < 400 else ""
+    ax.set_xlabel(f"date (UTC{', ' + year_text if year_text else ''})")
     ax.set_title(
         f"{res.scenario.name}: when each image shows the event (* = predicted); "
         "model-dependent, see cautions",
@@ -281,6 +366,7 @@ def timeline_figure(res):
     return fig
 
 
+@styled
 def budget_figure(budget):
     """Each sampled source's share of each image's date variance.
 
@@ -293,7 +379,7 @@ def budget_figure(budget):
     fig = Figure(figsize=(8.0, 1.6 + 0.6 * max(len(rows), 1)))
     ax = fig.subplots()
     height = 0.8 / len(terms)
-    colours = matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
+    colours = PALETTE
     hatches = ["", "//", "..", "xx", "\\\\", "--"]
     for k, term in enumerate(terms):
         share = np.array([r["date"][term]["percent"] for r in rows])
@@ -318,29 +404,68 @@ def budget_figure(budget):
     return fig
 
 
+#: Axis words of the delay-curve panels.
+CURVE_AXES = {
+    "H0": "H0 [km/s/Mpc]",
+    "Om0": "Ωm (matter density today)",
+    "w0": "w (dark-energy equation of state)",
+}
+#: Most image pairs drawn, one row of panels each; the others are named in the title.
+MAX_CURVE_ROWS = 6
+
+
+@styled
 def hubble_curves_figure(res):
-    """Predicted delay of each image pair against H0, with 68% and 95% bands."""
-    rows = [r for r in res.curves if r["axis"] == "H0"]
-    keys = sorted({(r["family"], r["image"], r["relative_to"]) for r in rows})
-    fig = Figure(figsize=(7.0, 4.6))
-    ax = fig.subplots()
-    for k, key in enumerate(keys):
-        sel = [r for r in rows if (r["family"], r["image"], r["relative_to"]) == key]
-        h = np.array([r["value"] for r in sel])
-        c = f"C{k % 10}"
-        ax.fill_between(h, [r["p2.5"] for r in sel], [r["p97.5"] for r in sel], color=c, alpha=0.15)
-        ax.fill_between(h, [r["p16"] for r in sel], [r["p84"] for r in sel], color=c, alpha=0.35)
-        ax.plot(h, [r["median"] for r in sel], color=c, label=f"{key[0]}: {key[1]} − {key[2]}")
-    for d in res.scenario.delays:
-        ax.axhline(d.days, color="k", ls=":", lw=0.8, label=f"measured {d.image} − {d.relative_to}")
-    ax.set_xlabel("H0 [km/s/Mpc]")
-    ax.set_ylabel("delay t(image) − t(relative_to) [days]")
-    ax.set_title("Predicted delays vs H0 (bands: 68%, 95%; dotted: measured)", fontsize=10)
-    ax.legend(fontsize=7)
+    """Predicted delay of each image pair against H0 (and Ωm, w when asked), 68%/95% bands.
+
+    One row of panels per image pair (so that many images stay readable), one column per
+    quantity varied; a measured delay is drawn in its pair's panels with its ±1σ band.
+    """
+    axes_present = [a for a in CURVE_AXES if any(r["axis"] == a for r in res.curves)]
+    keys = sorted({(r["family"], r["image"], r["relative_to"]) for r in res.curves})
+    shown = keys[:MAX_CURVE_ROWS]
+    nrow, ncol = len(shown), len(axes_present)
+    fig = Figure(figsize=(3.6 * ncol + 1.0, 2.1 * nrow + 1.0))
+    grid = fig.subplots(nrow, ncol, squeeze=False, sharex="col")
+    measured = {(d.family, d.image, d.relative_to): d for d in res.scenario.delays}
+    for i, key in enumerate(shown):
+        for j, axis in enumerate(axes_present):
+            ax = grid[i, j]
+            sel = [
+                r
+                for r in res.curves
+                if (r["family"], r["image"], r["relative_to"]) == key and r["axis"] == axis
+            ]
+            v = np.array([r["value"] for r in sel])
+            ax.fill_between(
+                v, [r["p2.5"] for r in sel], [r["p97.5"] for r in sel], color="#c9d6ea", lw=0
+            )
+            ax.fill_between(
+                v, [r["p16"] for r in sel], [r["p84"] for r in sel], color="#8fa9d2", lw=0
+            )
+            ax.plot(v, [r["median"] for r in sel], color="#1f4e9a", lw=1.4)
+            d = measured.get(key)
+            if d is not None:
+                ax.axhspan(d.days - d.sigma, d.days + d.sigma, color="#e8b36a", alpha=0.5, lw=0)
+                ax.axhline(d.days, color="#8a3b00", ls="--", lw=1)
+            if j == 0:
+                ax.set_ylabel(f"{key[0]}/{key[1]} after {key[2]}\n[days]", fontsize=8)
+            if i == nrow - 1:
+                ax.set_xlabel(CURVE_AXES[axis], fontsize=9)
+            ax.tick_params(labelsize=7)
+    left_out = len(keys) - len(shown)
+    more = f"; {left_out} more pairs in hubble_curves.ecsv" if left_out else ""
+    fig.suptitle(
+        "Predicted delays (line: median; bands: 68%, 95%)"
+        + ("; measured delay: dashed, ±1σ shaded" if measured else "")
+        + more,
+        fontsize=9,
+    )
     fig.tight_layout()
     return fig
 
 
+@styled
 def h0_figure(res):
     """H0 posterior under several κext priors: the mass-sheet degeneracy."""
     fig = Figure(figsize=(7.0, 4.2))
@@ -352,11 +477,11 @@ def h0_figure(res):
             bins=60,
             histtype="step",
             density=True,
-            label=f"κext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f})",
+            label=f"κ_ext ~ N({k['kappa_ext'][0]:+.2f}, {k['kappa_ext'][1]:.2f})",
         )
     ax.set_xlabel("H0 [km/s/Mpc]")
     ax.set_ylabel("posterior density")
-    ax.set_title("H0 from the measured delays; H0 scales with (1 − κext)", fontsize=10)
+    ax.set_title("H0 from the measured delays; H0 scales with (1 − κ_ext)", fontsize=10)
     ax.legend(fontsize=8)
     fig.tight_layout()
     return fig

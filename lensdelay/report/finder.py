@@ -19,13 +19,13 @@ from astropy.wcs import WCS
 from matplotlib.figure import Figure
 from matplotlib.patches import Ellipse
 
-from lensdelay.report.figures import MARKERS
+from lensdelay.report.figures import MARKERS, PALETTE, styled
 
 #: Line styles and shades of the chart (ours; dark enough for greyscale printing).
-CRITICAL_STYLE = {"color": "#7a1f3d", "ls": "-", "lw": 1.1}
-CAUSTIC_STYLE = {"color": "#7a1f3d", "ls": (0, (3, 2)), "lw": 0.9}
+CRITICAL_STYLE = {"color": PALETTE[1], "ls": "-", "lw": 1.1}
+CAUSTIC_STYLE = {"color": PALETTE[1], "ls": (0, (3, 2)), "lw": 0.9}
 CONTOUR_COLOUR = "0.55"
-PREDICTED_COLOUR = "#1f4e9a"
+PREDICTED_COLOUR = PALETTE[0]
 OBSERVED_COLOUR = "black"
 
 
@@ -55,6 +55,7 @@ def _window_label(res, im) -> str:
     return f"{im.label}{'' if im.observed else '*'}: {lo}..{hi_short}"
 
 
+@styled
 def finder_chart(res) -> Figure:
     """The finder chart of a forecast (:class:`lensdelay.forecast.result.Forecast`).
 
