@@ -215,3 +215,21 @@ def test_maps_without_sky_refused_in_one_line(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "sis.toml" in err[0] and "sky" in err[0]
     assert not out.exists()
+
+
+@pytest.mark.parametrize(
+    "extra, message",
+    [
+        (["--pixel", "0"], "pixel must be a positive number"),
+        (["--size", "-3"], "size must be a positive number"),
+        (["--size", "100", "--pixel", "0.001"], "size / pixel must be <= 4001"),
+        (["--samples", "-2"], "samples must be an integer >= 0"),
+    ],
+)
+def test_bad_map_settings_refused_before_fitting(tmp_path, capsys, extra, message):
+    path, _ = _sis_scenario(tmp_path)
+    out = tmp_path / "out"
+    assert main(["maps", str(path), "--out", str(out), "--quiet", *extra]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and message in err[0]
+    assert not out.exists()
