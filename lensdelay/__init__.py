@@ -16,6 +16,7 @@ from lensdelay.api import (
     load_model,
     load_scenario,
     map_scenario,
+    measure_delays,
 )
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
 from lensdelay.inference.likelihood import ImageLikelihood
@@ -50,6 +51,7 @@ __all__ = [
     "forecast_scenario",
     "infer_h0",
     "map_scenario",
+    "measure_delays",
     # errors
     "LensdelayError",
     "InputError",

@@ -291,6 +291,139 @@ def fit_scenario(
     )
 
 
+def measure_delays(
+    scenario=None,
+    curves=None,
+    *,
+    reference: str | None = None,
+    kind: str = "auto",
+    order: int = 2,
+    max_delay: float | None = None,
+    walkers: int = 32,
+    steps: int = 1500,
+    simulations: int = 10,
+    seed: int = 1,
+):
+    """Delays of every image after the reference, measured from light curves.
+
+    Parameters
+    ----------
+    scenario : Scenario or path, optional
+        Names the curves (``[transient] light_curves``), the family and the reference
+        image (``seen_in``); its image labels are the ones the curves may use.
+    curves : LightCurves or path, optional
+        The curves themselves (instead of, or overriding, the scenario's).
+    reference : str, optional
+        The image whose delay is 0 (default: the scenario's ``seen_in``, else the curves'
+        first image).
+    kind, order, max_delay, walkers, steps, simulations, seed
+        As for :func:`lensdelay.lightcurves.measure.measure_delays`.
+
+    Returns
+    -------
+    MeasuredDelays
+        With ``provenance``; ``.as_dict()`` is delays.json.
+    """
+    from lensdelay.io.lightcurve_files import read_light_curves
+    from lensdelay.lightcurves.curves import LightCurves
+    from lensdelay.lightcurves.measure import measure_delays as _measure
+
+    sc, used = (None, []) if scenario is None else _scenario(scenario)
+    labels = family = None
+    if sc is not None:
+        tr = sc.transient
+        family = tr.family if tr is not None else sc.families[0].label
+        labels = sc.family(family).labels
+        if curves is None:
+            if tr is None or tr.light_curves is None:
+                raise InputError(
+                    "transient.light_curves must name a light-curve file (or give the curves "
+                    "directly), got none",
+                    sc.source,
+                )
+            curves = Path(sc.source).parent / tr.light_curves
+        reference = reference or (tr.seen_in if tr is not None else labels[0])
+    if curves is None:
+        raise InputError("curves must be given (a file or LightCurves) when there is no scenario")
+    if not isinstance(curves, LightCurves):
+        used = used + [Path(curves)]
+        curves = read_light_curves(curves, labels)
+    reference = reference or curves.labels[0]
+    result = _measure(
+        curves,
+        reference,
+        family=family or "",
+        kind=kind,
+        order=order,
+        max_delay=max_delay,
+        walkers=walkers,
+        steps=steps,
+        simulations=simulations,
+        seed=seed,
+    )
+    cosmo = sc.cosmology if sc is not None else None
+    if cosmo is not None:
+        prov = provenance(used, cosmo, seed)
+    else:
+        prov = {
+            "tool": "lensdelay",
+            "version": __version__,
+            "inputs": [str(p) for p in used],
+            "input_sha256": reading.file_hash(*used),
+            "seed": int(seed),
+        }
+    return replace(result, provenance=prov)
+
+
+def _with_light_curve_delays(sc, used, delays):
+    """The scenario with delays measured from light curves added (and the files used).
+
+    ``delays`` is a delays.json path or a MeasuredDelays; None measures the curves the
+    scenario names, if any. The new delays keep their covariance; the scenario's own
+    entries stay independent of them.
+    """
+    from lensdelay.io.lightcurve_files import read_delays_json
+    from lensdelay.model.scenario import MeasuredDelay
+
+    tr = sc.transient
+    if delays is None:
+        if tr is None or tr.light_curves is None:
+            return sc, used
+        delays = measure_delays(sc)
+        used = used + [Path(sc.source).parent / tr.light_curves]
+    if isinstance(delays, (str, os.PathLike)):
+        new, cov = read_delays_json(delays, sc)
+        used = used + [Path(delays)]
+    else:
+        keep = [im for im in delays.images if im.measurable]
+        if not keep:
+            raise InputError("the light curves gave no measurable delay to use, got none")
+        labels = list(delays.covariance_labels)
+        idx = [labels.index(im.label) for im in keep]
+        cov = np.asarray(delays.covariance_days2)[np.ix_(idx, idx)]
+        new = [
+            MeasuredDelay(
+                delays.family or tr.family,
+                im.label,
+                delays.reference,
+                im.delay_days["median"],
+                float(np.sqrt(cov[k, k])),
+            )
+            for k, im in enumerate(keep)
+        ]
+    old = list(sc.delays)
+    old_cov = (
+        np.diag([d.sigma**2 for d in old])
+        if sc.delay_covariance is None
+        else np.asarray(sc.delay_covariance)
+    )
+    n_old, n_new = len(old), len(new)
+    full = np.zeros((n_old + n_new, n_old + n_new))
+    full[:n_old, :n_old] = old_cov
+    full[n_old:, n_old:] = cov
+    return replace(sc, delays=tuple(old + list(new)), delay_covariance=full), used
+
+
 #: Most pixels along a map's side (a 4001² grid of seven maps is ~450 MB as float32).
 MAX_MAP_PIXELS = 4001
 
@@ -342,6 +475,8 @@ def map_scenario(
     if size is None:
         reach = max(np.hypot(im.x, im.y) for fam in sc.families for im in fam.images)
         size = 2.5 * reach + 0.5
+    if not (np.isfinite(size) and size > 0):
+        raise InputError(f"size must be a positive number of arcsec, got {size!r}")
     if pixel is None:
         # a round pixel (1, 2 or 5 × a power of ten) giving about 200 across
         raw = size / 200.0
@@ -383,7 +518,9 @@ def map_scenario(
     return replace(maps, provenance=provenance(used, sc.cosmology, seed))
 
 
-def forecast_scenario(scenario, models=None, *, budget: bool = True, **options) -> dict:
+def forecast_scenario(
+    scenario, models=None, *, budget: bool = True, delays=None, **options
+) -> dict:
     """When, where and how bright the transient appears in every image (the main job).
 
     Parameters
@@ -393,6 +530,11 @@ def forecast_scenario(scenario, models=None, *, budget: bool = True, **options) 
         Mass models to fit and combine (default: the scenario's own).
     budget : bool
         Also compute the uncertainty budget.
+    delays : path or MeasuredDelays, optional
+        Delays measured from light curves (a delays.json file or :func:`measure_delays`'s
+        result), used with their covariance beside the scenario's own ``[[delay]]``
+        entries; without it a scenario whose transient names ``light_curves`` has them
+        measured first.
     **options
         Those of :func:`lensdelay.forecast.pipeline.run_forecast` (``n_samples``,
         ``seed``, ``h0``, ``kappa_ext``, ``seen``, ``now``, ``site``, ...).
@@ -405,6 +547,7 @@ def forecast_scenario(scenario, models=None, *, budget: bool = True, **options) 
         budget and the provenance; ``.report()`` gives the text the command line prints.
     """
     pairs = [_scenario(scenario, m) for m in (models or [None])]
+    pairs = [_with_light_curve_delays(sc, used, delays) for sc, used in pairs]
     inputs = []
     for _, used in pairs:
         inputs += [p for p in used if p not in inputs]
@@ -413,11 +556,12 @@ def forecast_scenario(scenario, models=None, *, budget: bool = True, **options) 
     return replace(res, budget=delay_budget(res)) if budget else res
 
 
-def infer_h0(scenario, model=None, **options) -> dict:
+def infer_h0(scenario, model=None, *, delays=None, **options) -> dict:
     """Delays against H0 and, with measured delays, the H0 posterior (``lensdelay hubble``).
 
-    ``options`` are those of :func:`lensdelay.hubble.pipeline.run_hubble`.
+    ``delays`` as for :func:`forecast_scenario`; ``options`` are those of
+    :func:`lensdelay.hubble.pipeline.run_hubble`.
     """
-    sc, used = _scenario(scenario, model)
+    sc, used = _with_light_curve_delays(*_scenario(scenario, model), delays)
     res = run_hubble(sc, **options)
     return replace(res, provenance=provenance(used, res.scenario.cosmology, options.get("seed", 1)))

@@ -2,8 +2,8 @@
 and no module imports itself back through others (issue 11).
 
 The order, lowest first (README, "Layout"): base modules (errors, version, atomic file
-writes, the caution text), lensing, model, inference, forecast and hubble (side by side,
-neither importing the other), io, report, the Python interface (api), cli. The package's
+writes, the caution text), lensing, model, inference, forecast, hubble and lightcurves
+(side by side, none importing another), io, report, the Python interface (api), cli. The package's
 ``__init__`` is the public facade and may import any layer
 but the command line.
 """
@@ -24,6 +24,7 @@ LAYERS = {
     "inference": 3,
     "forecast": 4,
     "hubble": 4,
+    "lightcurves": 4,
     "io": 5,
     "report": 6,
     "api": 7,

@@ -24,6 +24,7 @@ def run(args) -> int:
         args.scenario,
         args.model,
         budget=args.budget,
+        delays=args.delays,
         n_samples=args.samples,
         seed=args.seed,
         h0=args.h0,
@@ -80,6 +81,12 @@ def register(sub) -> None:
     p = sub.add_parser("forecast", help="when, where and how bright the event reappears")
     p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--model", action="append", help="model TOML (repeat for several models)")
+    p.add_argument(
+        "--delays",
+        metavar="DELAYS_JSON",
+        help="delays measured from light curves (delays.json of lensdelay delays), used with "
+        "their covariance beside the scenario's own [[delay]] entries",
+    )
     p.add_argument("--out", help="folder for forecast.json, .ecsv, .ics and the figures")
     p.add_argument("--samples", type=int, default=20000, help="forecast samples (default 20000)")
     p.add_argument("--seed", type=int, default=1, help="seed of every random draw (default 1)")

@@ -27,6 +27,7 @@ def run(args) -> int:
     res = infer_h0(
         args.scenario,
         args.model,
+        delays=args.delays,
         kappa_ext=tuple(args.kappa_ext),
         om0=args.om0,
         curves=tuple(args.curves.split(",")) if args.curves else (),
@@ -67,6 +68,12 @@ def register(sub) -> None:
     )
     p.add_argument("scenario", help="scenario TOML file")
     p.add_argument("--model", action=Once, help="model TOML replacing the scenario's mass model")
+    p.add_argument(
+        "--delays",
+        metavar="DELAYS_JSON",
+        help="delays measured from light curves (delays.json of lensdelay delays), used with "
+        "their covariance beside the scenario's own [[delay]] entries",
+    )
     p.add_argument("--out", help="folder for hubble.json and the figures")
     p.add_argument(
         "--kappa-ext",

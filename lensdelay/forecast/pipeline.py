@@ -162,8 +162,8 @@ def _timing_for(scenario, tracks, sightings, label_map) -> tuple[TimingData | No
     """The timing data of the transient's family under one model's labels."""
     tr = scenario.transient
     notes = []
-    delays = []
-    for d in scenario.delays:
+    delays, kept = [], []
+    for k, d in enumerate(scenario.delays):
         if d.family != tr.family:
             notes.append(
                 f"the measured delay {d.family}/{d.image} - {d.relative_to} is of another "
@@ -171,6 +171,7 @@ def _timing_for(scenario, tracks, sightings, label_map) -> tuple[TimingData | No
             )
             continue
         delays.append(d)
+        kept.append(k)
     rows = []
     for s in sightings:
         label = label_map.get(s.label)
@@ -182,7 +183,12 @@ def _timing_for(scenario, tracks, sightings, label_map) -> tuple[TimingData | No
     if not delays and not rows:
         return None, notes
     columns = [(t.family, t.label) for t in tracks]
-    return TimingData(columns, delays, rows, tr.date_sigma_days, (tr.family, tr.seen_in)), notes
+    cov = scenario.delay_covariance
+    cov = None if cov is None else np.asarray(cov)[np.ix_(kept, kept)]
+    return (
+        TimingData(columns, delays, rows, tr.date_sigma_days, (tr.family, tr.seen_in), cov),
+        notes,
+    )
 
 
 def _chain_effective_samples(chain) -> float:

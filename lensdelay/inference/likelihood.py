@@ -145,6 +145,7 @@ class ImageLikelihood:
             timing = TimingData(
                 [(f.label, lab) for f in scenario.families for lab in f.labels],
                 list(scenario.delays),
+                delay_covariance=scenario.delay_covariance,
             )
         self.timing = timing
         self.use_delays = timing is not None

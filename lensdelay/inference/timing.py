@@ -61,6 +61,9 @@ class TimingData:
         1-σ error of the detection date (the prior width of ``t0``); may be 0.
     reference : (family, label), optional
         The image the transient was detected in; required when there are sightings.
+    delay_covariance : ndarray (n_delays, n_delays), optional
+        The delays' joint covariance (days²) when they were measured together (light
+        curves); by default they are independent with their own sigmas.
 
     Notes
     -----
@@ -70,7 +73,13 @@ class TimingData:
     """
 
     def __init__(
-        self, columns, delays=(), sightings=(), detection_sigma_days: float = 0.0, reference=None
+        self,
+        columns,
+        delays=(),
+        sightings=(),
+        detection_sigma_days: float = 0.0,
+        reference=None,
+        delay_covariance=None,
     ):
         self.columns = [tuple(c) for c in columns]
         self.delays = tuple(delays)
@@ -132,6 +141,17 @@ class TimingData:
             self.names.append(f"sighting {s.family}/{s.image}")
         b = self.on_t0.astype(float)
         self.covariance = np.diag(self.sigmas**2) + self.detection_sigma**2 * np.outer(b, b)
+        if delay_covariance is not None:
+            nd = len(self.delays)
+            cov = np.asarray(delay_covariance, dtype=float)
+            if cov.shape != (nd, nd) or not np.allclose(cov, cov.T, rtol=1e-9, atol=1e-12):
+                raise InputError(
+                    f"delay covariance must be a symmetric {nd} x {nd} matrix (one row per "
+                    f"measured delay), got shape {cov.shape}"
+                )
+            if nd and np.min(np.linalg.eigvalsh(cov)) <= 0:
+                raise InputError("delay covariance must be positive definite, got a singular one")
+            self.covariance[:nd, :nd] = cov
         self._chol = linalg.cholesky(self.covariance, lower=True) if m else np.zeros((0, 0))
 
     # -- sizes --------------------------------------------------------------------

@@ -84,6 +84,7 @@ class Transient:
     date: Time
     date_sigma_days: float = 0.0
     magnitude: float | None = None
+    light_curves: str | None = None  # a light-curve file, relative to the scenario
 
 
 @dataclass(frozen=True)
@@ -128,6 +129,9 @@ class Scenario:
     delays: tuple[MeasuredDelay, ...] = ()
     site: Site | None = None
     extra: dict = field(default_factory=dict)
+    #: Covariance (days²) of ``delays``, in their order, when they were measured together
+    #: (from light curves: CONVENTIONS.md "Light curves"); None: independent, each its sigma.
+    delay_covariance: np.ndarray | None = field(default=None, repr=False)
     #: Model error of image positions (arcsec), added in quadrature to every image's
     #: sigma; set after a poor fit (see :mod:`lensdelay.inference.misfit`), 0 as read.
     position_floor: float = 0.0
@@ -443,7 +447,7 @@ def _parse(doc, source, load_model, load_table=None):
         tt = _Table(
             doc["transient"],
             "transient",
-            ("family", "seen_in", "date", "date_sigma_days", "magnitude"),
+            ("family", "seen_in", "date", "date_sigma_days", "magnitude", "light_curves"),
         )
         fam = tt.text("family", default=families[0].label)
         if fam not in fam_by:
@@ -465,6 +469,7 @@ def _parse(doc, source, load_model, load_table=None):
             date,
             tt.number("date_sigma_days", 0.0, lo=0.0, hi=3650.0),
             tt.number("magnitude", None, lo=-30.0, hi=40.0),
+            tt.text("light_curves", default=None),
         )
 
     delays = []

@@ -485,3 +485,133 @@ def h0_figure(res):
     ax.legend(fontsize=8)
     fig.tight_layout()
     return fig
+
+
+@styled
+def light_curves_figure(measured):
+    """The light curves laid onto the reference's by the measured delays, with residuals.
+
+    Quasars: every image shifted by −Δ and freed of its own offset and microlensing
+    polynomial, over the intrinsic curve the Gaussian process predicts; supernovae: each
+    band's fluxes shifted by −Δ and divided by the image's flux ratio, over the shared
+    shape. Residuals are in units of each point's error.
+    """
+    model, best = measured.model, measured.best
+    labels = model.labels
+    markers = ("o", "s", "^", "D", "v", "P")
+    if measured.kind == "quasar":
+        panels = [""]
+    else:
+        panels = list(model.bands)
+    fig = Figure(figsize=(8.0, 2.2 + 2.6 * len(panels)))
+    grid = fig.subplots(
+        2 * len(panels),
+        1,
+        squeeze=False,
+        sharex=True,
+        gridspec_kw={"height_ratios": [3, 1] * len(panels)},
+    )
+    n1 = len(labels) - 1
+    for p, band in enumerate(panels):
+        ax, axr = grid[2 * p, 0], grid[2 * p + 1, 0]
+        if measured.kind == "quasar":
+            delays = np.concatenate([[0.0], best[:n1]])
+            beta = model.linear_coefficients(best[:n1], best[-2], best[-1])
+            trend = model.design @ beta
+            ts = model.t - delays[model.which]
+            y = model.y - trend
+            import celerite2
+            from celerite2 import terms
+
+            gp = celerite2.GaussianProcess(
+                terms.RealTerm(a=np.exp(2 * best[-2]), c=np.exp(-best[-1])), mean=0.0
+            )
+            order = np.argsort(ts)
+            gp.compute(ts[order], yerr=model.err[order])
+            dense = np.linspace(ts.min(), ts.max(), 1500)
+            mu, var = gp.predict(y[order], t=dense, return_var=True)
+            ax.fill_between(dense, mu - np.sqrt(var), mu + np.sqrt(var), color="0.85", lw=0)
+            ax.plot(dense, mu, color="0.3", lw=0.8, label="intrinsic curve (±1σ)")
+            # celerite2 predicts at sorted times: predict there, then undo the sort
+            at_points = np.empty(len(ts))
+            at_points[order] = gp.predict(y[order], t=ts[order])
+            for k, lab in enumerate(labels):
+                sel = model.which == k
+                ax.errorbar(
+                    ts[sel],
+                    y[sel],
+                    model.err[sel],
+                    fmt=markers[k % 6],
+                    ms=3,
+                    color=PALETTE[k % len(PALETTE)],
+                    lw=0.5,
+                    label=f"{lab}",
+                )
+                axr.plot(
+                    ts[sel],
+                    (y[sel] - at_points[sel]) / model.err[sel],
+                    markers[k % 6],
+                    ms=2.5,
+                    color=PALETTE[k % len(PALETTE)],
+                )
+            ax.invert_yaxis()
+            ax.set_ylabel("magnitude − own trend")
+        else:
+            b = p
+            k0 = model.n_shape
+            delays = np.concatenate([[0.0], best[k0 : k0 + n1]])
+            full = model.model_flux(best)[0]
+            scale_rows = full / np.maximum(model.model_flux(_unscaled(model, best))[0], 1e-300)
+            dense = np.linspace(model.t.min() - delays.max(), model.t.max() - delays.min(), 800)
+            shape = model.model_flux(
+                _unscaled(model, best),
+                t=dense,
+                which=np.zeros(len(dense), dtype=int),
+                band=np.full(len(dense), b),
+            )[0]
+            ax.plot(dense, shape, color="0.3", lw=0.9, label=f"shared shape, band {band}")
+            for k, lab in enumerate(labels):
+                sel = (model.which == k) & (model.band == b)
+                ts = model.t[sel] - delays[k]
+                f = model.flux[sel] / scale_rows[sel]
+                e = model.flux_err[sel] / scale_rows[sel]
+                ax.errorbar(
+                    ts,
+                    f,
+                    e,
+                    fmt=markers[k % 6],
+                    ms=3,
+                    lw=0.5,
+                    color=PALETTE[k % len(PALETTE)],
+                    label=lab,
+                )
+                sd = np.sqrt(model.flux_err[sel] ** 2 + (np.exp(best[-1]) * full[sel]) ** 2)
+                axr.plot(
+                    ts,
+                    (model.flux[sel] - full[sel]) / sd,
+                    markers[k % 6],
+                    ms=2.5,
+                    color=PALETTE[k % len(PALETTE)],
+                )
+            ax.set_ylabel("flux / flux ratio (relative)")
+        axr.axhline(0, color="0.5", lw=0.6)
+        axr.set_ylabel("residual [σ]")
+        ax.legend(fontsize=7, ncol=min(len(labels) + 1, 5), loc="best")
+    grid[-1, 0].set_xlabel(f"time − delay [MJD] (each image moved onto {measured.reference})")
+    text = ", ".join(
+        f"{im.label}: {im.delay_days['median']:+.1f} d" if im.measurable else f"{im.label}: —"
+        for im in measured.images
+    )
+    fig.suptitle(
+        f"Light curves laid onto {measured.reference} ({measured.kind}); {text}", fontsize=9
+    )
+    fig.tight_layout()
+    return fig
+
+
+def _unscaled(model, best):
+    """The supernova parameters with every image's flux ratio and chromatic term at zero."""
+    theta = np.array(best, dtype=float).copy()
+    k0, n1 = model.n_shape, model.n_images - 1
+    theta[k0 + n1 : -1] = 0.0
+    return theta

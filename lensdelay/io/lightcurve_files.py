@@ -1,0 +1,231 @@
+"""Light-curve files in (CONVENTIONS.md, "Light curves"), delays.json out.
+
+A light-curve file is an ECSV table, or a CSV with a header line, one row per
+measurement: ``image``, ``time`` (MJD, UTC) or ``date`` (ISO 8601, UTC), ``mag`` and
+``mag_err`` (or ``flux`` and ``flux_err``), optional ``band`` and ``upper_limit``. Every
+problem is refused in one line naming the file, the column and what is allowed.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from lensdelay.errors import InputError
+from lensdelay.io.reading import read_table
+from lensdelay.lightcurves.curves import FLUX_ZERO_POINT, LightCurves
+
+
+def _column(columns: dict, name: str, where: str) -> np.ndarray:
+    """A numeric column with no empty or non-finite cell."""
+    col = columns[name]
+    if np.ma.is_masked(col) and np.any(np.ma.getmaskarray(col)):
+        row = int(np.argmax(np.ma.getmaskarray(col)))
+        raise InputError(
+            f"{where} column {name!r} must have no empty cells, got one in row {row + 1}"
+        )
+    try:
+        values = np.asarray(np.ma.getdata(col), dtype=float)
+    except (TypeError, ValueError) as err:
+        raise InputError(f"{where} column {name!r} must hold numbers, got {col[0]!r}") from err
+    bad = ~np.isfinite(values)
+    if np.any(bad):
+        row = int(np.argmax(bad))
+        raise InputError(
+            f"{where} column {name!r} must hold finite numbers, got {values[row]} in row {row + 1}"
+        )
+    return values
+
+
+def read_light_curves(path, images=None) -> LightCurves:
+    """Read and check a light-curve file.
+
+    Parameters
+    ----------
+    path : path
+    images : sequence of str, optional
+        The labels the scenario's family has; any other label is refused.
+    """
+    path = Path(path)
+    where = f"light curves {str(path)!r}"
+    if not path.is_file():
+        raise InputError(f"{where} must be an existing file, got none")
+    columns = read_table(path, "light curves")
+    if "image" not in columns:
+        raise InputError(f"{where} needs a column 'image'; it has {', '.join(columns)}")
+    image = np.asarray([str(v) for v in columns["image"]])
+    if "time" in columns:
+        time = _column(columns, "time", where)
+    elif "date" in columns:
+        from astropy.time import Time
+
+        try:
+            time = Time([str(v) for v in columns["date"]], scale="utc").mjd
+        except ValueError as err:
+            raise InputError(
+                f"{where} column 'date' must hold ISO 8601 dates (UTC), got {columns['date'][0]!r}"
+            ) from err
+    else:
+        raise InputError(
+            f"{where} needs a column 'time' (MJD) or 'date' (ISO 8601, UTC); it has none"
+        )
+    if "mag" in columns:
+        if "mag_err" not in columns:
+            raise InputError(f"{where} needs a column 'mag_err' beside 'mag', got none")
+        mag = _column(columns, "mag", where)
+        err = _column(columns, "mag_err", where)
+        if np.any(err <= 0):
+            raise InputError(f"{where} column 'mag_err' must be > 0, got {err[err <= 0][0]:g}")
+    elif "flux" in columns:
+        if "flux_err" not in columns:
+            raise InputError(f"{where} needs a column 'flux_err' beside 'flux', got none")
+        flux = _column(columns, "flux", where)
+        ferr = _column(columns, "flux_err", where)
+        if np.any(ferr <= 0):
+            raise InputError(f"{where} column 'flux_err' must be > 0, got {ferr[ferr <= 0][0]:g}")
+        if np.any(flux <= 0):
+            raise InputError(
+                f"{where} column 'flux' must be > 0 (mark a non-detection with upper_limit), "
+                f"got {flux[flux <= 0][0]:g}"
+            )
+        mag = FLUX_ZERO_POINT - 2.5 * np.log10(flux)
+        err = 2.5 / np.log(10) * ferr / flux
+    else:
+        raise InputError(
+            f"{where} needs columns 'mag' and 'mag_err' (or 'flux' and 'flux_err'), got neither"
+        )
+    band = (
+        np.asarray([str(v) for v in columns["band"]])
+        if "band" in columns
+        else np.full(len(image), "")
+    )
+    if "upper_limit" in columns:
+        raw = columns["upper_limit"]
+        try:
+            limit = np.asarray(
+                [
+                    v
+                    if isinstance(v, (bool, np.bool_))
+                    else {"true": True, "false": False}[str(v).lower()]
+                    for v in raw
+                ],
+                dtype=bool,
+            )
+        except KeyError as err:
+            raise InputError(
+                f"{where} column 'upper_limit' must hold true or false, got {err}"
+            ) from err
+    else:
+        limit = np.zeros(len(image), dtype=bool)
+    if images is not None:
+        unknown = sorted(set(image) - set(images))
+        if unknown:
+            raise InputError(
+                f"{where} column 'image' must name images of the family ({', '.join(images)}), "
+                f"got {unknown[0]!r}"
+            )
+    for lab in dict.fromkeys(image.tolist()):
+        for b in dict.fromkeys(band[image == lab].tolist()):
+            t = time[(image == lab) & (band == b)]
+            if np.any(np.diff(t) <= 0):
+                k = int(np.argmax(np.diff(t) <= 0))
+                raise InputError(
+                    f"{where} column 'time' must increase within image {lab}"
+                    + (f" band {b}" if b else "")
+                    + f", got {t[k + 1]:.5f} after {t[k]:.5f}"
+                )
+    detected = sorted(set(image[~limit]))
+    if len(detected) < 2:
+        raise InputError(
+            f"{where} must hold detections of at least two images to measure a delay, "
+            f"got {len(detected)} ({', '.join(detected) or 'none'})"
+        )
+    return LightCurves(image, time, mag, err, band, limit, str(path))
+
+
+def delays_json(result, provenance: dict | None = None) -> dict:
+    """``delays.json`` (CONVENTIONS.md, "Light curves") plus the estimator's details."""
+    return result.as_dict() | ({"provenance": provenance} if provenance else {})
+
+
+def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
+    """Measured delays from a delays.json file, for a scenario's family.
+
+    Returns the delays (``MeasuredDelay``, relative to the file's reference image, the
+    measurable ones) and their covariance (days²) in the same order.
+    """
+    import json
+
+    from lensdelay.model.scenario import MeasuredDelay
+
+    path = Path(path)
+    where = f"delays {str(path)!r}"
+    try:
+        doc = json.loads(path.read_text())
+    except FileNotFoundError as err:
+        raise InputError(f"{where} must be an existing delays.json file, got none") from err
+    except (OSError, ValueError) as err:
+        raise InputError(f"{where} must be readable JSON, got: {err}") from err
+    for key in ("reference_image", "family", "images"):
+        if not isinstance(doc, dict) or key not in doc:
+            raise InputError(
+                f"{where} needs the key {key!r} (CONVENTIONS.md, Light curves), got none"
+            )
+    family, ref = doc["family"], doc["reference_image"]
+    if not family:  # measured from curves alone: the scenario's transient's family
+        family = scenario.transient.family if scenario.transient else scenario.families[0].label
+    fams = {f.label: f for f in scenario.families}
+    if family not in fams:
+        raise InputError(f"{where} family must be one of {', '.join(fams)}, got {family!r}")
+    labels = fams[family].labels
+    delays, sigmas = [], []
+    for im in doc["images"]:
+        lab = im.get("label")
+        if lab not in labels:
+            raise InputError(
+                f"{where} images[].label must be an image of family {family} "
+                f"({', '.join(labels)}), got {lab!r}"
+            )
+        d = im.get("delay_days")
+        if lab == ref or d is None:
+            continue  # the reference, or a delay the curves could not measure
+        try:
+            median = float(d["median"])
+            sigma = 0.5 * (float(d["p84"]) - float(d["p16"]))
+        except (KeyError, TypeError, ValueError) as err:
+            raise InputError(
+                f"{where} images[{lab}].delay_days must have numbers median, p16 and p84, got {d!r}"
+            ) from err
+        delays.append(MeasuredDelay(family, lab, ref, median, max(sigma, 1e-6)))
+        sigmas.append(max(sigma, 1e-6))
+    if not delays:
+        raise InputError(f"{where} holds no measured delay (every image unmeasurable), got none")
+    cov = np.diag(np.square(sigmas))
+    block = doc.get("covariance_days2")
+    if block:
+        try:
+            order = list(block["labels"])
+            matrix = np.asarray(block["matrix"], dtype=float)
+        except (KeyError, TypeError, ValueError) as err:
+            raise InputError(
+                f"{where} covariance_days2 needs labels and a matrix, got {block!r}"
+            ) from err
+        if matrix.shape != (len(order), len(order)):
+            raise InputError(
+                f"{where} covariance_days2.matrix must be {len(order)} x {len(order)}, got "
+                f"{matrix.shape}"
+            )
+        pos = {lab: k for k, lab in enumerate(order)}
+        idx = [pos.get(d.image) for d in delays]
+        if None in idx:
+            missing = delays[idx.index(None)].image
+            raise InputError(
+                f"{where} covariance_days2.labels must include {missing!r}, got {order}"
+            )
+        cov = matrix[np.ix_(idx, idx)]
+        delays = [
+            MeasuredDelay(d.family, d.image, d.relative_to, d.days, float(np.sqrt(cov[k, k])))
+            for k, d in enumerate(delays)
+        ]
+    return delays, cov

@@ -1,0 +1,5 @@
+"""Delays measured from the images' light curves.
+
+Quasars: a damped random walk shared by the images; supernovae: a parametric shape per
+band; and a model-free cross-check.
+"""
