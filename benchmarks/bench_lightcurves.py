@@ -143,7 +143,7 @@ def coverage(kind, n, jobs, seed, steps):
 
 def speed(seed, steps):
     rng = np.random.default_rng(seed)
-    epochs = seasonal_epochs(58000.0, 5, 210.0, 3.5, rng)[:300]
+    epochs = seasonal_epochs(58000.0, 6, 210.0, 3.5, rng)[:300]
     truth = {"A": 0.0, "B": 35.0, "C": -20.0, "D": 70.0}
     curves = simulate_quasar(
         {lab: epochs for lab in truth},

@@ -199,6 +199,16 @@ def _sample_quasar(model, rng, walkers, steps):
     starts[:, -2] = ln_sigma + 0.05 * rng.standard_normal(walkers)
     starts[:, -1] = ln_tau + 0.05 * rng.standard_normal(walkers)
     starts[:, :n1] = np.clip(starts[:, :n1], -model.max_delay * 0.999, model.max_delay * 0.999)
+    logp0 = np.array([model.log_posterior(p) for p in starts])
+    good = np.isfinite(logp0)
+    if not np.any(good):
+        raise InputError(
+            "light curves could not be fitted by the quasar model (no starting point with a "
+            "finite likelihood); check the curves, or try kind supernova"
+        )
+    for k in np.nonzero(~good)[0]:
+        # a walker where the likelihood fails: moved next to a working one
+        starts[k] = starts[rng.choice(np.nonzero(good)[0])] + 1e-3 * rng.standard_normal(n1 + 2)
     sampler = emcee.EnsembleSampler(
         walkers,
         n1 + 2,
