@@ -153,6 +153,8 @@ def test_forecast_writes_positions_chart_and_regions(tmp_path, quick_forecast_ar
         assert im["ra_deg"] == pytest.approx(where.ra.deg, abs=1e-9)
         assert im["dec_deg"] == pytest.approx(where.dec.deg, abs=1e-9)
         assert [e["level"] for e in im["position_error"]] == [68, 95]
+        # dates at fixed H0 beside the marginalised ones (issue 16)
+        assert set(im["date_by_H0"]) == {"67", "70", "73"}
     p95 = predicted[0]["position_error"][1]
     assert 0 < p95["semi_minor_arcsec"] <= p95["semi_major_arcsec"] < 1.0
     table = Table.read(out / "forecast.ecsv", format="ascii.ecsv")

@@ -91,6 +91,25 @@ class ImageForecast:
             return None
         return SkyCoord(self.ra * u.deg, self.dec * u.deg, frame="icrs")
 
+    def dates_at_h0(self, h0_values, h0_reference: float) -> dict:
+        """Date-offset quantiles (days after the detection) had H0 been fixed at each value.
+
+        Every sample's delay is its lens-model delay at the reference cosmology
+        (``h0_reference``) times (H_ref/H0)(1 − κ_ext) — a delay scales as 1/H0 (D_Δt ∝
+        1/H0) — plus its own detection-date offset, with the samples' weights. With
+        measured delays or sightings the weights were set with H0 free, so the table is
+        then an approximation of the posterior at fixed H0.
+        """
+        from lensdelay.inference.summaries import quantile_summary
+
+        s = self.samples
+        ok = np.isfinite(s.lens_days) & (s.weights > 0)
+        out = {}
+        for h0 in h0_values:
+            offsets = s.t0[ok] + s.lens_days[ok] * (h0_reference / h0) * (1.0 - s.kappa[ok])
+            out[float(h0)] = quantile_summary(offsets, s.weights[ok])
+        return out
+
     def ellipse(self, level: int = 95) -> PositionEllipse:
         """The 68% or 95% position error ellipse."""
         for e in self.position_error:

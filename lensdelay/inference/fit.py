@@ -89,6 +89,25 @@ class FitResult:
             "at_bounds": list(self.at_bounds),
         }
 
+    def rms_arcsec(self) -> dict:
+        """Image-plane rms offset, model − observed, per family and over all images.
+
+        sqrt(mean |θ_model − θ_obs|²) over the images the model reproduces, in arcsec (the
+        number cluster modellers quote); ``"all"`` pools every family. None for a family
+        with no reproduced image.
+        """
+        per, pooled = {}, []
+        for r in self.residuals_mas:
+            if r["reproduced"]:
+                d2 = (r["dx_mas"] ** 2 + r["dy_mas"] ** 2) * 1e-6
+                per.setdefault(r["family"], []).append(d2)
+                pooled.append(d2)
+            else:
+                per.setdefault(r["family"], [])
+        out = {f: (float(np.sqrt(np.mean(v))) if v else None) for f, v in per.items()}
+        out["all"] = float(np.sqrt(np.mean(pooled))) if pooled else None
+        return out
+
     def value(self, name: str) -> float:
         """The best-fit value of one parameter by name."""
         return float(self.values[self.names.index(name)])

@@ -27,6 +27,7 @@ def fit_json(res: dict) -> dict:
             "aic": fr.aic,
             "bic": fr.bic,
             "residuals_mas": fr.residuals_mas,
+            "rms_arcsec": fr.rms_arcsec(),
             "unobserved_images": fr.unobserved_images,
             "at_bounds": fr.at_bounds,
             "notes": fr.notes,

@@ -57,6 +57,21 @@ def window_days(res, im, lo_key, hi_key) -> tuple[str, str]:
     return day_of(d[lo_key]), day_of(d[hi_key])
 
 
+#: H0 values (km/s/Mpc) at which dates are also given, beside the marginalised ones: the
+#: early-universe and distance-ladder values and the middle (common practice in
+#: published forecasts of cluster-lensed supernovae).
+H0_TABLE = (67.0, 70.0, 73.0)
+
+
+def dates_by_h0(res, im) -> dict:
+    """ISO date quantiles of an image had H0 been fixed at each of :data:`H0_TABLE`."""
+    h_ref = float(res.cosmology.H0.to_value("km / (Mpc s)"))
+    table = im.dates_at_h0(H0_TABLE, h_ref)
+    return {
+        f"{h0:g}": {k: iso_utc(instant(res, v)) for k, v in q.items()} for h0, q in table.items()
+    }
+
+
 def forecast_json(res) -> dict:
     """``forecast.json`` as CONVENTIONS.md defines it, plus provenance and details."""
     sc, st = res.scenario, res.settings
@@ -82,6 +97,7 @@ def forecast_json(res) -> dict:
         entry["position_error"] = [e.as_dict() for e in im.position_error]
         entry["date"] = date_summary(res, im)
         entry["date_mjd"] = mjd_summary(res, im)
+        entry["date_by_H0"] = dates_by_h0(res, im)
         entry.update(
             {
                 k: getattr(im, k)

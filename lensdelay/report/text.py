@@ -100,6 +100,13 @@ def fit_text(res: dict) -> str:
         "residuals (model − observed):",
         f"{'image':<10} {'dx [mas]':>9} {'dy [mas]':>9} {'sigma':>7} {'magnif.':>9}",
     ]
+    rms = fr.rms_arcsec()
+    rms_text = ", ".join(
+        f"{f} {1e3 * v:.1f}" if v is not None else f"{f} —" for f, v in rms.items() if f != "all"
+    )
+    if rms["all"] is not None:
+        rms_text += f"; all images {1e3 * rms['all']:.1f}"
+    lines.insert(-2, f"image-plane rms [mas]: {rms_text}")
     for r in fr.residuals_mas:
         name = f"{r['family']}/{r['image']}"
         if r["reproduced"]:
@@ -279,6 +286,36 @@ def position_lines(res) -> list[str]:
     return lines
 
 
+#: Delays beyond which the terminal also shows dates at fixed H0 and month-level windows.
+LONG_DELAY_DAYS = 100.0
+
+
+def h0_date_lines(res) -> list[str]:
+    """Each image's median date and 95% window (months) at H0 = 67, 70, 73 and marginalised."""
+    from lensdelay.io.forecast_files import H0_TABLE, dates_by_h0
+
+    def cell(q):
+        return f"{q['median'][:7]} [{q['p2.5'][:7]}..{q['p97.5'][:7]}]"
+
+    head = f"{'image':<8}" + "".join(f"{'H0 = ' + format(h, 'g'):>27}" for h in H0_TABLE)
+    head += f"{'H0 marginalised':>27}"
+    lines = [
+        "dates at fixed H0 (km/s/Mpc): median [95% window], year-month, UTC "
+        "(a delay scales as 1/H0)",
+        head,
+        "-" * len(head),
+    ]
+    for im in res.images:
+        by = dates_by_h0(res, im)
+        marg = date_summary(res, im)
+        lines.append(
+            f"{im.family + '/' + im.label + ('' if im.observed else '*'):<8}"
+            + "".join(f"{cell(by[format(h, 'g')]):>27}" for h in H0_TABLE)
+            + f"{cell(marg):>27}"
+        )
+    return lines
+
+
 def forecast_text(res: dict) -> str:
     """The readable terminal summary."""
     sc, st = res.scenario, res.settings
@@ -343,6 +380,8 @@ def forecast_text(res: dict) -> str:
     for s in used:
         lines.append(f"  {s}: {STATUS_MEANINGS[s]}")
     lines += ["", *position_lines(res)]
+    if max(abs(im.delay_days["median"]) for im in res.images) > LONG_DELAY_DAYS:
+        lines += ["", *h0_date_lines(res)]
     if len(res.model_labels) > 1:
         lines += ["", "per-model median delays [d] (weight):"]
         labels = res.model_labels
