@@ -51,3 +51,36 @@ def test_dates_at_fixed_h0_scale_as_one_over_h0(rng):
     table = ImageForecast.dates_at_h0(SimpleNamespace(samples=samples), (67.0, 70.0, 73.0), 70.0)
     assert table[70.0]["median"] == pytest.approx(np.median(lens_days), rel=1e-3)
     assert table[67.0]["median"] / table[73.0]["median"] == pytest.approx(73 / 67, rel=1e-3)
+
+
+@pytest.mark.parametrize("walkers", [None, 5])
+def test_member_stack_equals_the_sum_of_its_members(rng, walkers):
+    """All members in one vectorised pass give what the members give one by one (κ, α, ψ
+    and the Hessian), for one model and for per-walker shared parameters."""
+    from lensdelay.lensing.profiles import TruncatedIsothermal
+    from lensdelay.lensing.profiles.stack import ProfileStack
+
+    m = 25
+    shape = (m,) if walkers is None else (m, walkers, 1)
+    params = {
+        "einstein_radius": rng.uniform(0.1, 1.0, shape),
+        "cut": rng.uniform(2.0, 10.0, shape),
+        "core": rng.uniform(0.0, 0.3, (m,) + (1,) * (len(shape) - 1)),
+        "axis_ratio": rng.uniform(0.5, 1.0, (m,) + (1,) * (len(shape) - 1)),
+        "position_angle": rng.uniform(-90, 90, (m,) + (1,) * (len(shape) - 1)),
+        "x": rng.uniform(-20, 20, (m,) + (1,) * (len(shape) - 1)),
+        "y": rng.uniform(-20, 20, (m,) + (1,) * (len(shape) - 1)),
+    }
+    stack = ProfileStack(TruncatedIsothermal, params)
+    pts = (40,) if walkers is None else (walkers, 40)
+    x, y = rng.uniform(-25, 25, pts), rng.uniform(-25, 25, pts)
+    singles = [TruncatedIsothermal(**{k: v[i] for k, v in params.items()}) for i in range(m)]
+    for method in ("convergence", "potential"):
+        expected = sum(getattr(s, method)(x, y) for s in singles)
+        np.testing.assert_allclose(getattr(stack, method)(x, y), expected, rtol=1e-12, atol=1e-14)
+    for method in ("deflection", "hessian", "deflection_and_potential"):
+        got = getattr(stack, method)(x, y)
+        for k, part in enumerate(got):
+            expected = sum(getattr(s, method)(x, y)[k] for s in singles)
+            np.testing.assert_allclose(part, expected, rtol=1e-12, atol=1e-14)
+    assert len(stack.centre_points()) == m

@@ -160,6 +160,9 @@ class Lens:
         """Centres of the centred components (optionally only (non-)singular ones)."""
         out = []
         for c in self.components:
+            if hasattr(c, "centre_points"):  # a stack of member galaxies: each its own
+                out += c.centre_points(singular)
+                continue
             if not c.centred:
                 continue
             if singular is None or bool(c.singular_centre) == singular:

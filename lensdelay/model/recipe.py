@@ -16,6 +16,7 @@ import numpy as np
 
 from lensdelay.errors import InputError, choices_text, suggest
 from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles.stack import ProfileStack
 from lensdelay.lensing.profiles import PROFILES, MassProfile
 
 #: Default search bounds for free parameters, by parameter name (arcsec, degrees).
@@ -125,22 +126,25 @@ class MemberGroup:
         """The members' profiles for parameter values ``lookup`` (name -> value)."""
         value = {k: lookup.get(p.name, p.value) for k, p in self.parameters.items()}
         cls = PROFILES["truncated_isothermal"]
-        luminosity = 10.0 ** (-0.4 * (self.mag - value["reference_mag"]))  # L/L*, per member
-        out = []
-        for i, lum in enumerate(luminosity):
-            scaled = {k: value[k] * lum ** value[e] for k, e in MEMBER_SCALED.items()}
-            out.append(
-                cls.from_values(
-                    {
-                        **scaled,
-                        "x": self.x[i],
-                        "y": self.y[i],
-                        "axis_ratio": self.axis_ratio[i],
-                        "position_angle": self.position_angle[i],
-                    }
-                )
-            )
-        return out
+        # every member in one stacked profile (one vectorised pass): member arrays get a
+        # leading axis, in front of the shape of the (possibly per-walker) shared values
+        trailing = max((np.ndim(v) for v in value.values()), default=0)
+        lead = (len(self.mag),) + (1,) * trailing
+
+        def per_member(a):
+            return np.asarray(a, dtype=float).reshape(lead)
+
+        luminosity = 10.0 ** (-0.4 * (per_member(self.mag) - value["reference_mag"]))  # L/L*
+        scaled = {k: value[k] * luminosity ** value[e] for k, e in MEMBER_SCALED.items()}
+        named = {
+            **scaled,
+            "x": per_member(self.x),
+            "y": per_member(self.y),
+            "axis_ratio": per_member(self.axis_ratio),
+            "position_angle": per_member(self.position_angle),
+        }
+        fields = {cls.toml_aliases.get(k, k): v for k, v in named.items()}
+        return [ProfileStack(cls, fields)]
 
 
 @dataclass(frozen=True)

@@ -36,6 +36,17 @@ class TruncatedIsothermal(EllipticalProfile):
                 f"{self.kind}.cut must be greater than core, got cut = "
                 f"{np.min(self.cut):g}, core = {np.max(self.core):g}"
             )
+        # the two cored ellipsoids are built (and checked) once: building them at every
+        # evaluation cost more than evaluating them, with hundreds of cluster members
+        common = dict(einstein_radius=self.einstein_radius, axis_ratio=self.axis_ratio)
+        object.__setattr__(
+            self,
+            "_ellipsoids",
+            (
+                IsothermalEllipsoid(core=self.core, **common),
+                IsothermalEllipsoid(core=self.cut, **common),
+            ),
+        )
 
     @property
     def singular_centre(self) -> bool:
@@ -43,11 +54,7 @@ class TruncatedIsothermal(EllipticalProfile):
         return bool(np.all(np.asarray(self.core) == 0))
 
     def _pair(self):
-        common = dict(einstein_radius=self.einstein_radius, axis_ratio=self.axis_ratio)
-        return (
-            IsothermalEllipsoid(core=self.core, **common),
-            IsothermalEllipsoid(core=self.cut, **common),
-        )
+        return self._ellipsoids
 
     def _local_convergence(self, x, y):
         inner, outer = self._pair()
