@@ -100,6 +100,10 @@ def test_quasar_delays_recovered_with_their_covariance(rng):
         d = im.delay_days
         assert im.measurable and d["p2.5"] <= truth[im.label] <= d["p97.5"]
         assert abs(d["median"] - truth[im.label]) < 3.0
+    # flux ratios from the magnitude offsets at the middle of the data (the trends' c0)
+    for im, c0 in zip(res.images, (0.2, -0.1)):
+        r = im.flux_ratio
+        assert r["p2.5"] <= 10 ** (-0.4 * c0) <= r["p97.5"]
     assert res.covariance_labels == ("B", "C")
     np.testing.assert_allclose(
         np.diag(res.covariance_days2), np.var(res.samples, axis=0, ddof=1), rtol=1e-9

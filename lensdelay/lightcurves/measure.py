@@ -19,6 +19,8 @@ from scipy import stats
 from lensdelay.errors import InputError
 from lensdelay.inference.summaries import quantile_summary
 
+#: Posterior draws behind a quasar's flux ratios (each needs one linear solve).
+RATIO_DRAWS = 300
 #: A delay whose 95% interval is wider than this share of the searched range is not
 #: reported as a measurement.
 MEASURABLE_SHARE = 0.5
@@ -326,7 +328,14 @@ def measure_delays(
         model = QuasarDelayModel(det, reference, order=order, max_delay=max_delay)
         flat, best, _ = _sample_quasar(model, rng_sample, walkers, steps)
         delays = flat[:, : model.n_images - 1]
-        ratios = None
+        # flux ratios from the images' magnitude offsets (at the middle of the data, where
+        # the polynomials' other terms vanish), drawn with the posterior
+        rows = flat[rng_sample.integers(0, len(flat), RATIO_DRAWS)]
+        cols = model.flux_ratio_columns()
+        ratios = np.empty((len(rows), model.n_images - 1))
+        for k, row in enumerate(rows):
+            beta = model.draw_linear(row[:-2], row[-2], row[-1], rng_sample)
+            ratios[k] = 10 ** (-0.4 * (beta[cols[1:]] - beta[cols[0]]))
         chi2 = model.whitened_chi2(best[:-2], best[-2], best[-1])
         n_par = model.n_images - 1 + 2 + model.n_images * (order + 1)
     else:
@@ -381,7 +390,7 @@ def measure_delays(
                 delay_days=q if measurable else None,
                 flux_ratio=None
                 if ratios is None
-                else quantile_summary(ratios[:, i], np.ones(len(d))),
+                else quantile_summary(ratios[:, i], np.ones(len(ratios))),
                 cross_check_days=dispersion_delay(det, reference, lab, grid, window),
                 statement=statement,
                 simulation_bias_days=None if bias is None else float(bias[i]),

@@ -128,6 +128,21 @@ class QuasarDelayModel:
         out[used] = linalg.solve(a, b, assume_a="pos")
         return out
 
+    def draw_linear(self, delays, ln_sigma, ln_tau, rng) -> np.ndarray:
+        """One draw of the polynomial coefficients from their conditional posterior.
+
+        That is N(A⁻¹b, A⁻¹) given the delays and the variability (0 where unused).
+        """
+        _, b, a, used, _ = self._solve(delays, ln_sigma, ln_tau)
+        cov = linalg.inv(a)
+        out = np.zeros(len(self.prior_variances))
+        out[used] = rng.multivariate_normal(linalg.solve(a, b, assume_a="pos"), 0.5 * (cov + cov.T))
+        return out
+
+    def flux_ratio_columns(self) -> list[int]:
+        """Column of each image's constant term (its magnitude offset) in the design."""
+        return [k * (self.order + 1) for k in range(self.n_images)]
+
     def whitened_chi2(self, delays, ln_sigma, ln_tau) -> float:
         """(y − Xβ̂)ᵀ K⁻¹ (y − Xβ̂): under the model a χ² with about N − p degrees."""
         _, b, a, used, (gp, order, y, x) = self._solve(delays, ln_sigma, ln_tau)
