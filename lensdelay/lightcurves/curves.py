@@ -59,9 +59,8 @@ class LightCurves:
         t = self.time[~self.upper_limit]
         return float(t.max() - t.min()) if t.size else 0.0
 
-    def detections(self) -> "LightCurves":
-        """The rows that are detections (limits dropped)."""
-        keep = ~self.upper_limit
+    def subset(self, keep: np.ndarray) -> "LightCurves":
+        """The rows where ``keep`` is true."""
         return LightCurves(
             self.image[keep],
             self.time[keep],
@@ -71,6 +70,10 @@ class LightCurves:
             self.upper_limit[keep],
             self.source,
         )
+
+    def detections(self) -> "LightCurves":
+        """The rows that are detections (limits dropped)."""
+        return self.subset(~self.upper_limit)
 
     def select(self, image: str, band: str | None = None) -> np.ndarray:
         """Boolean mask of one image's rows (and one band's)."""

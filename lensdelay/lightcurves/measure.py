@@ -323,7 +323,7 @@ def measure_delays(
         if len(det.bands) > 1:
             counts = {b: int(np.sum(det.band == b)) for b in det.bands}
             band = max(counts, key=counts.get)
-            det = _only_band(det, band)
+            det = det.subset(det.band == band)
             notes.append(f"quasar model fitted to band {band!r}, the best-sampled one")
         model = QuasarDelayModel(det, reference, order=order, max_delay=max_delay)
         flat, best, _ = _sample_quasar(model, rng_sample, walkers, steps)
@@ -424,21 +424,6 @@ def measure_delays(
         best=best,
         model=model,
         curves=det,
-    )
-
-
-def _only_band(curves, band):
-    from lensdelay.lightcurves.curves import LightCurves
-
-    keep = curves.band == band
-    return LightCurves(
-        curves.image[keep],
-        curves.time[keep],
-        curves.mag[keep],
-        curves.mag_err[keep],
-        curves.band[keep],
-        curves.upper_limit[keep],
-        curves.source,
     )
 
 
