@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from lensdelay.lensing.delays import fermat_difference_to_days
+from lensdelay.dates import allows_far_dates
 from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.forecast.budget import delay_budget
 from lensdelay.forecast.pipeline import run_forecast
@@ -200,6 +201,7 @@ def check_scenario(scenario, model=None) -> dict:
     return {"scenario": sc, "likelihood": like, "inputs": used}
 
 
+@allows_far_dates
 def fit_scenario(
     scenario,
     model=None,
@@ -291,6 +293,7 @@ def fit_scenario(
     )
 
 
+@allows_far_dates
 def measure_delays(
     scenario=None,
     curves=None,
@@ -428,6 +431,7 @@ def _with_light_curve_delays(sc, used, delays):
 MAX_MAP_PIXELS = 4001
 
 
+@allows_far_dates
 def map_scenario(
     scenario,
     model=None,
@@ -518,6 +522,7 @@ def map_scenario(
     return replace(maps, provenance=provenance(used, sc.cosmology, seed))
 
 
+@allows_far_dates
 def forecast_scenario(
     scenario, models=None, *, budget: bool = True, delays=None, **options
 ) -> dict:
@@ -556,6 +561,7 @@ def forecast_scenario(
     return replace(res, budget=delay_budget(res)) if budget else res
 
 
+@allows_far_dates
 def infer_h0(scenario, model=None, *, delays=None, **options) -> dict:
     """Delays against H0 and, with measured delays, the H0 posterior (``lensdelay hubble``).
 

@@ -84,3 +84,24 @@ def test_member_stack_equals_the_sum_of_its_members(rng, walkers):
             expected = sum(getattr(s, method)(x, y)[k] for s in singles)
             np.testing.assert_allclose(part, expected, rtol=1e-12, atol=1e-14)
     assert len(stack.centre_points()) == m
+
+
+def test_far_future_dates_raise_no_time_library_warning():
+    """A date 20 years ahead is computed knowingly: no ERFA "dubious year" warning
+    reaches the user (lensdelay.dates); other warnings still do."""
+    import warnings
+
+    from astropy import units as u
+    from astropy.time import Time
+
+    from lensdelay.dates import allows_far_dates
+
+    @allows_far_dates
+    def far():
+        return (Time("2026-12-01", scale="utc") + 7300 * u.day).iso
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert far().startswith("2046-11")
+    with pytest.warns(UserWarning):
+        allows_far_dates(lambda: warnings.warn("kept", UserWarning))()

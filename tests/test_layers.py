@@ -19,6 +19,7 @@ LAYERS = {
     "version": 0,
     "atomic": 0,
     "cautions": 0,
+    "dates": 0,
     "lensing": 1,
     "model": 2,
     "inference": 3,

@@ -16,6 +16,7 @@ from astropy import units as u
 from astropy.coordinates import SkyCoord
 from astropy.time import Time
 
+from lensdelay.dates import allows_far_dates
 from lensdelay.forecast.positions import PositionEllipse
 
 
@@ -125,6 +126,7 @@ class ImageForecast:
         return f"{self.family}/{self.label}"
 
     @property
+    @allows_far_dates
     def date(self) -> dict[str, Time]:
         """The date quantiles as astropy ``Time`` (UTC)."""
         return {k: self.detection_date + v * u.day for k, v in self.date_offset_days.items()}

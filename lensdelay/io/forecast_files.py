@@ -10,16 +10,19 @@ import numpy as np
 from astropy import units as u
 from astropy.table import Table
 
+from lensdelay.dates import allows_far_dates
 from lensdelay.model.cosmology import describe_cosmology
 from lensdelay.cautions import CAUTION
 from lensdelay.forecast.pipeline import STATUS_MEANINGS
 
 
+@allows_far_dates
 def instant(res, offset_days: float):
     """The date ``offset_days`` after the detection (astropy Time)."""
     return res.scenario.transient.date + offset_days * u.day
 
 
+@allows_far_dates
 def iso_utc(t) -> str:
     """ISO 8601 UTC to the second, with a Z."""
     return t.isot[:19] + "Z"

@@ -10,6 +10,8 @@ from cycler import cycler
 from matplotlib.figure import Figure
 from matplotlib.patches import Circle
 
+from lensdelay.dates import far_dates_allowed
+
 
 MARKERS = {"minimum": "o", "saddle": "s", "maximum": "^"}
 #: The project's colours (ours; distinct in greyscale by lightness where it matters): ink
@@ -33,7 +35,7 @@ def styled(make):
 
     @functools.wraps(make)
     def wrapper(*args, **kwargs):
-        with matplotlib.rc_context(FIGURE_STYLE):
+        with matplotlib.rc_context(FIGURE_STYLE), far_dates_allowed():
             return make(*args, **kwargs)
 
     return wrapper
