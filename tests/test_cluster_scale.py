@@ -105,3 +105,18 @@ def test_far_future_dates_raise_no_time_library_warning():
         assert far().startswith("2046-11")
     with pytest.warns(UserWarning):
         allows_far_dates(lambda: warnings.warn("kept", UserWarning))()
+
+
+@pytest.mark.parametrize(
+    "iso, expected",
+    [
+        ("2034-02-11T19:36:15Z", "2034 Q1"),
+        ("2037-03-31T23:59:59Z", "2037 Q1"),
+        ("2028-04-01T00:00:00Z", "2028 Q2"),
+        ("2030-12-31T12:00:00Z", "2030 Q4"),
+    ],
+)
+def test_windows_by_quarter(iso, expected):
+    from lensdelay.report.text import quarter
+
+    assert quarter(iso) == expected

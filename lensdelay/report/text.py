@@ -290,6 +290,11 @@ def position_lines(res) -> list[str]:
 LONG_DELAY_DAYS = 100.0
 
 
+def quarter(iso: str) -> str:
+    """The year and quarter of an ISO date: '2034-02-11...' -> '2034 Q1'."""
+    return f"{iso[:4]} Q{(int(iso[5:7]) - 1) // 3 + 1}"
+
+
 def h0_date_lines(res) -> list[str]:
     """Each image's median date and 95% window (months) at H0 = 67, 70, 73 and marginalised."""
     from lensdelay.io.forecast_files import H0_TABLE, dates_by_h0
@@ -298,10 +303,10 @@ def h0_date_lines(res) -> list[str]:
         return f"{q['median'][:7]} [{q['p2.5'][:7]}..{q['p97.5'][:7]}]"
 
     head = f"{'image':<8}" + "".join(f"{'H0 = ' + format(h, 'g'):>27}" for h in H0_TABLE)
-    head += f"{'H0 marginalised':>27}"
+    head += f"{'H0 marginalised':>27}   95% window by quarter"
     lines = [
         "dates at fixed H0 (km/s/Mpc): median [95% window], year-month, UTC "
-        "(a delay scales as 1/H0)",
+        "(a delay scales as 1/H0); quarters Q1 = Jan-Mar ... Q4 = Oct-Dec",
         head,
         "-" * len(head),
     ]
@@ -311,7 +316,7 @@ def h0_date_lines(res) -> list[str]:
         lines.append(
             f"{im.family + '/' + im.label + ('' if im.observed else '*'):<8}"
             + "".join(f"{cell(by[format(h, 'g')]):>27}" for h in H0_TABLE)
-            + f"{cell(marg):>27}"
+            + f"{cell(marg):>27}   {quarter(marg['p2.5'])} .. {quarter(marg['p97.5'])}"
         )
     return lines
 
