@@ -32,7 +32,7 @@ def test_image_plane_rms_per_family_and_overall():
 
 
 def test_dates_at_fixed_h0_scale_as_one_over_h0(rng):
-    """A delay scales as 1/H0 (D_Δt ∝ 1/H0): with κ_ext = 0 and no detection-date
+    """A delay scales as 1/H0 (D_Δt ∝ 1/H0, common practice): with κ_ext = 0 and no detection-date
     spread, the median date offset at H0 = 67 over that at 73 is 73/67 exactly."""
     n = 5000
     lens_days = rng.normal(1000.0, 50.0, n)  # at the reference H0 = 70

@@ -365,7 +365,7 @@ def measure_delays(
     images = []
     for i, lab in enumerate(labels[1:]):
         d = delays[:, i]
-        q = quantile_summary(d, np.ones(len(d)))
+        q = quantile_summary(d)
         width = q["p97.5"] - q["p2.5"]
         share, points = overlap(det, reference, lab, q["median"], window)
         statement = ""
@@ -388,9 +388,7 @@ def measure_delays(
                 label=lab,
                 measurable=measurable,
                 delay_days=q if measurable else None,
-                flux_ratio=None
-                if ratios is None
-                else quantile_summary(ratios[:, i], np.ones(len(ratios))),
+                flux_ratio=None if ratios is None else quantile_summary(ratios[:, i]),
                 cross_check_days=dispersion_delay(det, reference, lab, grid, window),
                 statement=statement,
                 simulation_bias_days=None if bias is None else float(bias[i]),

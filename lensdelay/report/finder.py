@@ -195,12 +195,12 @@ def finder_chart(res) -> Figure:
             c.set_ticklabel(size=7)
             c.grid(draw_grid=False)
     else:
-        ax.set_xlabel("West offset [arcsec] (East to the left)")
-        ax.set_ylabel("North offset [arcsec]")
+        # data are in pixels (−x, y): label the ticks with the East offsets themselves
         ticks = ax.get_xticks()
         ax.set_xticks(ticks, [f"{-t:g}" for t in ticks])
         ax.set_xlim(-extent, extent)
         ax.set_xlabel("East offset [arcsec] (East to the left)")
+        ax.set_ylabel("North offset [arcsec]")
     where = "" if sky is not None else "; no [sky] origin: offsets only"
     ax.set_title(
         f"{sc.name}: where each image appears (model {view['model_label']})\n"
