@@ -106,7 +106,7 @@ def image_tracks(
     """
     notes = []
     k = [f.label for f in like.families].index(family)
-    fam = like.families[k]
+    fam = like.families_at(best)[k]
     lens_best = like.model.lens(best[: like.n_model])
     bx, by = best[like.source_slice(k)]
     table = find_images(lens_best, [bx], [by], fam.scale)
@@ -199,32 +199,33 @@ def solve_samples(
     """
     family = tracks[0].family
     k_fam = [f.label for f in like.families].index(family)
-    fam = like.families[k_fam]
     n = len(draws)
     sx = np.array([t.x for t in tracks])
     sy = np.array([t.y for t in tracks])
     lens = like.lens_for(draws)
     src = draws[:, like.source_slice(k_fam)]
     sbx, sby = src[:, :1], src[:, 1:]
+    fam_scale = like.family_scale(k_fam, draws)  # per sample when the redshift is free
     x, y, err = newton_polish(
         lens,
         np.broadcast_to(sx, (n, len(sx))),
         np.broadcast_to(sy, (n, len(sy))),
         sbx,
         sby,
-        fam.scale,
+        fam_scale,
         iterations=40,
         max_step=0.05,
     )
     # two tracks on one image: the later one has vanished
     exists = keep_distinct_tracks(x, y, err < 1e-8, 1e-6)
     with np.errstate(all="ignore"):
-        tau = lens.fermat_potential(x, y, sbx, sby, fam.scale)
-        mu = lens.magnification(x, y, fam.scale)
-    parity = lens.parity_code(x, y, fam.scale)
+        tau = lens.fermat_potential(x, y, sbx, sby, fam_scale)
+        mu = lens.magnification(x, y, fam_scale)
+    parity = lens.parity_code(x, y, fam_scale)
     tau = np.where(exists, tau, np.nan)
     ref = [t.label for t in tracks].index(reference)
-    lens_days = fermat_difference_to_days(tau - tau[:, ref : ref + 1], fam.days_per_arcsec2)
+    days = np.reshape(like.family_days(k_fam, draws), (-1, 1))
+    lens_days = fermat_difference_to_days(tau - tau[:, ref : ref + 1], days)
     rank = np.argsort(np.argsort(np.where(exists, tau, np.inf), axis=1), axis=1) + 1
     scale = delay_scale(h0, like.h0_ref, kappa)
     return ModelSamples(

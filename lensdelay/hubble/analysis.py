@@ -29,11 +29,12 @@ def pair_delays(like, rows) -> dict:
     """Lens-model delays (days, scenario cosmology) of every observed image pair, per row."""
     preds = like.predict(rows)
     out = {}
-    for fam, pred in zip(like.families, preds):
+    for k, (fam, pred) in enumerate(zip(like.families, preds)):
+        per_arcsec2 = like.family_days(k, rows)  # per row when the redshift is free
         for i, j in itertools.combinations(range(len(fam.labels)), 2):
             scale = like.delay_scale(rows) if like.use_delays else 1.0
             days = fermat_difference_to_days(
-                pred["fermat"][:, j] - pred["fermat"][:, i], fam.days_per_arcsec2, scale
+                pred["fermat"][:, j] - pred["fermat"][:, i], per_arcsec2, scale
             )
             out[(fam.label, fam.labels[j], fam.labels[i])] = days
     return out

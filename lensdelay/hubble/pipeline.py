@@ -67,6 +67,14 @@ def run_hubble(
         sc = replace(
             sc, cosmology=cosmology_from_class(cosmology_class, class_params or {}, sc.cosmology)
         )
+    for i, d in enumerate(sc.delays):
+        if sc.family(d.family).redshift_free:
+            # D_dt, and so H0, of a delay needs its source's distance: a free redshift
+            # would make H0 and z one degenerate scale
+            raise InputError(
+                f"delay[{i}].family {d.family!r} must have a measured redshift for H0 "
+                "(its redshift is a free parameter), got a free redshift"
+            )
     # one seed for the whole run: every stage draws from its own child of it
     fit_seq, sample_seq, joint_fit_seq, joint_sample_seq, draw_seq = np.random.SeedSequence(
         seed
@@ -84,7 +92,13 @@ def run_hubble(
     )
     lens_samples = chain.samples()
     pairs = pair_delays(like, lens_samples)
-    z_s_of = {f.label: f.redshift for f in sc.families}
+    # a free redshift: the curves along Ωm or w take its posterior median
+    z_s_of = {
+        f.label: float(np.median(lens_samples[:, like.names.index(f"redshift[{f.label}]")]))
+        if f.redshift_free
+        else f.redshift
+        for f in sc.families
+    }
     rows = delay_curves(
         pairs,
         like.h0_ref,

@@ -175,7 +175,7 @@ def _source_plane_start(like: ImageLikelihood, start: np.ndarray) -> np.ndarray:
         params = v[None, :]
         lens = like.lens_for(params)
         out = []
-        for k, fam in enumerate(like.families):
+        for k, fam in enumerate(like.families_at(v)):
             bx, by = v[like.source_slice(k)]
             with np.errstate(all="ignore"):
                 sx, sy = lens.source_position(fam.x, fam.y, fam.scale)
@@ -233,6 +233,8 @@ def initial_vector(like: ImageLikelihood) -> np.ndarray:
     for fam in like.families:
         sx, sy = lens.source_position(fam.x, fam.y, fam.scale)
         v += [float(np.mean(sx)), float(np.mean(sy))]
+    # free family redshifts start where the scenario puts them (FamilyData.scale is there)
+    v += [f.redshift for f in like.scenario.families if f.redshift_free]
     v += like.scale_start
     return np.array(v)
 
@@ -320,7 +322,7 @@ def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult
     preds = like.predict(values[None, :])
     rows, unobserved, notes = [], [], []
     single = like.model.lens(values[: like.n_model])
-    for k, (fam, pred) in enumerate(zip(like.families, preds)):
+    for k, (fam, pred) in enumerate(zip(like.families_at(values), preds)):
         for i, lab in enumerate(fam.labels):
             ok = bool(pred["ok"][0, i])
             rows.append(
@@ -402,10 +404,10 @@ def observed_delays(like: ImageLikelihood, rows: np.ndarray, family: int = 0, re
     """
     rows = np.atleast_2d(rows)
     pred = like.predict(rows)[family]
-    fam = like.families[family]
     scale = like.delay_scale(rows)[:, None] if like.use_delays else 1.0
+    days = np.reshape(like.family_days(family, rows), (-1, 1))
     return fermat_difference_to_days(
-        pred["fermat"] - pred["fermat"][:, reference : reference + 1], fam.days_per_arcsec2, scale
+        pred["fermat"] - pred["fermat"][:, reference : reference + 1], days, scale
     )
 
 
@@ -476,7 +478,8 @@ class ScenarioFit:
                 extent = max(extent, 1.15 * float(near.max()))
         lens = like.model.lens(values[: like.n_model])
         families = []
-        for k, (fam, pred) in enumerate(zip(like.families, like.predict(values[None, :]))):
+        families_now = like.families_at(values)
+        for k, (fam, pred) in enumerate(zip(families_now, like.predict(values[None, :]))):
             ok = pred["ok"][0]
             families.append(
                 {
@@ -514,7 +517,7 @@ class ScenarioFit:
         """
         like, values = self.likelihood, self.fit.values
         k = [f.label for f in like.families].index(family)
-        fam = like.families[k]
+        fam = like.families_at(values)[k]
         lens = like.model.lens(values[: like.n_model])
         bx, by = values[like.source_slice(k)]
         axis = np.linspace(-extent, extent, resolution)

@@ -35,6 +35,7 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 import numpy as np
+from scipy.interpolate import CubicSpline
 
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import LensDistances
@@ -56,7 +57,13 @@ _INFO_STEP = 1e-6
 
 @dataclass
 class FamilyData:
-    """One family as the likelihood uses it: positions, errors, scalings."""
+    """One family as the likelihood uses it: positions, errors, scalings.
+
+    ``scale`` and ``days_per_arcsec2`` are those at the family's redshift -- its start
+    value when the redshift is free (``redshift_index`` is then its parameter column, and
+    :meth:`ImageLikelihood.family_scale` / :meth:`ImageLikelihood.family_days` give them
+    row by row).
+    """
 
     label: str
     scale: float
@@ -65,6 +72,22 @@ class FamilyData:
     y: np.ndarray
     sigma: np.ndarray
     labels: list[str]
+    redshift_index: int | None = None
+    scale_of_redshift: CubicSpline | None = None
+    days_of_redshift: CubicSpline | None = None
+
+
+#: Nodes of the cubic splines of deflection scale and D_dt/c over a free redshift's
+#: range: both are smooth in z, and 513 nodes over Δz = 4 interpolate them to < 1e-7
+#: (tests/test_free_redshift.py checks against astropy at random redshifts).
+REDSHIFT_NODES = 513
+
+
+def _redshift_splines(distances: LensDistances, z_min: float, z_max: float):
+    """Cubic splines z -> deflection scale and z -> days per arcsec² on [z_min, z_max]."""
+    z = np.linspace(z_min, z_max, REDSHIFT_NODES)
+    scale, days = distances.scalings(z)
+    return CubicSpline(z, scale), CubicSpline(z, days)
 
 
 def _position_sigmas(family, floor: float) -> np.ndarray:
@@ -187,10 +210,25 @@ class ImageLikelihood:
             reach = 2.0 * float(np.max(np.hypot(fam.x, fam.y))) + 1.0
             lo += [-reach, -reach]
             hi += [reach, reach]
-        #: lens and source parameters: everything image positions depend on
-        self.n_positional = len(self.names)
         # Gaussian priors: parameter index -> (mean, sigma)
         self.priors = {i: p.prior for i, p in enumerate(free) if p.prior is not None}
+        # families of unknown redshift: one parameter each, after the source positions;
+        # the deflection scale and D_dt follow it row by row (CONVENTIONS.md)
+        for fam, obs in zip(self.families, scenario.families):
+            zp = obs.redshift_parameter
+            if zp is None:
+                continue
+            fam.redshift_index = len(self.names)
+            self.names.append(f"redshift[{fam.label}]")
+            lo.append(zp.min)
+            hi.append(zp.max)
+            if zp.prior is not None:
+                self.priors[fam.redshift_index] = zp.prior
+            fam.scale_of_redshift, fam.days_of_redshift = _redshift_splines(
+                self.distances, zp.min, zp.max
+            )
+        #: lens, source and redshift parameters: everything image positions depend on
+        self.n_positional = len(self.names)
         # the delay scale (H_ref/H0)(1 − κ_ext): free parameters or fixed values
         self.h0_index = self.kappa_index = None
         self.h0_fixed = self.h0_ref
@@ -304,6 +342,38 @@ class ImageLikelihood:
         kappa = params[:, self.kappa_index] if self.kappa_index is not None else self.kappa_fixed
         return np.broadcast_to(delay_scale(h0, self.h0_ref, kappa), (len(params),))
 
+    def family_scale(self, k: int, params: np.ndarray):
+        """Deflection scale of family k: a number, or (P, 1) per row for a free redshift."""
+        fam = self.families[k]
+        if fam.redshift_index is None:
+            return fam.scale
+        z = np.atleast_2d(params)[:, fam.redshift_index]
+        return fam.scale_of_redshift(z)[:, None]
+
+    def family_days(self, k: int, params: np.ndarray):
+        """D_dt/c (days per arcsec²) of family k: a number, or (P,) for a free redshift."""
+        fam = self.families[k]
+        if fam.redshift_index is None:
+            return fam.days_per_arcsec2
+        return fam.days_of_redshift(np.atleast_2d(params)[:, fam.redshift_index])
+
+    def families_at(self, values: np.ndarray) -> list[FamilyData]:
+        """The families with scale and days at one parameter vector (free redshifts set)."""
+        values = np.asarray(values, dtype=float)
+        out = []
+        for k, fam in enumerate(self.families):
+            if fam.redshift_index is None:
+                out.append(fam)
+            else:
+                out.append(
+                    replace(
+                        fam,
+                        scale=float(np.ravel(self.family_scale(k, values[None, :]))[0]),
+                        days_per_arcsec2=float(self.family_days(k, values[None, :])[0]),
+                    )
+                )
+        return out
+
     def source_slice(self, k: int) -> slice:
         """Columns of family k's source position in a parameter row."""
         return slice(self.n_model + 2 * k, self.n_model + 2 * k + 2)
@@ -328,13 +398,14 @@ class ImageLikelihood:
         for k, fam in enumerate(self.families):
             bx = params[:, self.source_slice(k)][:, :1]
             by = params[:, self.source_slice(k)][:, 1:]
+            scale = self.family_scale(k, params)
             x, y, err = newton_polish(
                 lens,
                 fam.x[None, :],
                 fam.y[None, :],
                 bx,
                 by,
-                fam.scale,
+                scale,
                 iterations=15,
                 max_step=np.maximum(0.5 * fam.sigma, 0.05),
                 tolerance=1e-11,
@@ -350,10 +421,10 @@ class ImageLikelihood:
                     ok[:, j] &= ~same
                     near[:, j] &= ~same
             with np.errstate(all="ignore"):
-                tau = lens.fermat_potential(x, y, bx, by, fam.scale)
-                mu = lens.magnification(x, y, fam.scale)
-            extra_mu = self._watched_magnifications(lens, k, x, y, ok, bx, by)
-            tx, ty, t_tau = self._tracked_images(lens, k, x, y, ok, bx, by)
+                tau = lens.fermat_potential(x, y, bx, by, scale)
+                mu = lens.magnification(x, y, scale)
+            extra_mu = self._watched_magnifications(lens, k, x, y, ok, bx, by, scale)
+            tx, ty, t_tau = self._tracked_images(lens, k, x, y, ok, bx, by, scale)
             out.append(
                 {
                     "x": x,
@@ -364,6 +435,7 @@ class ImageLikelihood:
                     "mu": mu,
                     "beta": np.hstack([bx, by]),
                     "lens": lens,
+                    "scale": scale,
                     "extra_mu": extra_mu,
                     "track_x": tx,
                     "track_y": ty,
@@ -372,14 +444,13 @@ class ImageLikelihood:
             )
         return out
 
-    def _tracked_images(self, lens, k, x, y, ok, bx, by):
+    def _tracked_images(self, lens, k, x, y, ok, bx, by, scale):
         """Positions and Fermat potentials of family k's tracked predicted images.
 
         An image that Newton's method cannot find, or that lands on an observed image or
         on another tracked one, does not exist in that row: its potential is NaN.
         """
         labels, sx, sy = self.tracked[k]
-        fam = self.families[k]
         if not labels:
             empty = np.zeros((len(x), 0))
             return empty, empty, empty
@@ -389,20 +460,19 @@ class ImageLikelihood:
             sy[None, :],
             bx,
             by,
-            fam.scale,
+            scale,
             iterations=15,
             max_step=0.05,
             tolerance=1e-11,
         )
         exists = keep_distinct_tracks(tx, ty, err < 1e-8, 1e-4, taken=(x, y, ok))
         with np.errstate(all="ignore"):
-            tau = lens.fermat_potential(tx, ty, bx, by, fam.scale)
+            tau = lens.fermat_potential(tx, ty, bx, by, scale)
         return tx, ty, np.where(exists, tau, np.nan)
 
-    def _watched_magnifications(self, lens, k, x, y, ok, bx, by) -> np.ndarray:
+    def _watched_magnifications(self, lens, k, x, y, ok, bx, by, scale) -> np.ndarray:
         """|μ| of the watched unobserved images of family k, 0 where they do not exist."""
         wx, wy = self.watched[k]
-        fam = self.families[k]
         if len(wx) == 0:
             return np.zeros((len(x), 0))
         ex, ey, err = newton_polish(
@@ -411,7 +481,7 @@ class ImageLikelihood:
             wy[None, :],
             bx,
             by,
-            fam.scale,
+            scale,
             iterations=15,
             max_step=0.05,
             tolerance=1e-11,
@@ -419,7 +489,7 @@ class ImageLikelihood:
         # an extra image must be none of the observed ones and none of the other extras
         exists = keep_distinct_tracks(ex, ey, err < 1e-8, 1e-4, taken=(x, y, ok))
         with np.errstate(all="ignore"):
-            mu = np.abs(lens.magnification(ex, ey, fam.scale))
+            mu = np.abs(lens.magnification(ex, ey, scale))
         return np.where(exists & np.isfinite(mu), mu, np.where(exists, np.inf, 0.0))
 
     def watch_unobserved(self, values: np.ndarray) -> None:
@@ -433,7 +503,7 @@ class ImageLikelihood:
         values = np.asarray(values, dtype=float)
         preds = self.predict(values[None, :])
         single = self.model.lens(values[: self.n_model])
-        for k, (fam, pred) in enumerate(zip(self.families, preds)):
+        for k, (fam, pred) in enumerate(zip(self.families_at(values), preds)):
             bx, by = values[self.source_slice(k)]
             table = find_images(single, [bx], [by], fam.scale)
             keep = np.ones(len(table), dtype=bool)
@@ -485,10 +555,10 @@ class ImageLikelihood:
             dy = (pred["y"] - fam.y) / fam.sigma
             # where no image was found: the magnification-weighted source-plane offset,
             # plus a large constant so that a missing image always costs more than any fit
-            lens = pred["lens"]
+            lens, scale = pred["lens"], pred["scale"]
             with np.errstate(all="ignore"):
-                sbx, sby = lens.source_position(fam.x[None, :], fam.y[None, :], fam.scale)
-                a11, a12, a22 = lens.jacobian(fam.x[None, :], fam.y[None, :], fam.scale)
+                sbx, sby = lens.source_position(fam.x[None, :], fam.y[None, :], scale)
+                a11, a12, a22 = lens.jacobian(fam.x[None, :], fam.y[None, :], scale)
                 det = a11 * a22 - a12 * a12
                 rx, ry = sbx - pred["beta"][:, :1], sby - pred["beta"][:, 1:]
                 fx = (a22 * rx - a12 * ry) / det / fam.sigma
@@ -546,7 +616,9 @@ class ImageLikelihood:
                 if label in fam.labels
                 else len(fam.labels) + self.tracked[k][0].index(label)
             )
-            cols.append(fermat_difference_to_days(fermat[k][:, j], fam.days_per_arcsec2, scale))
+            cols.append(
+                fermat_difference_to_days(fermat[k][:, j], self.family_days(k, params), scale)
+            )
         return np.stack(cols, axis=1)
 
     def information_jacobian(self, params: np.ndarray, preds=None, columns=None) -> np.ndarray:
@@ -590,9 +662,10 @@ class ImageLikelihood:
             y = np.hstack([pred["y"], pred["track_y"]])
             xs = np.tile(x, (2 * n_par, 1))
             ys = np.tile(y, (2 * n_par, 1))
+            shifted_scale = self.family_scale(k, shifted)
             with np.errstate(all="ignore"):
-                ax, ay = lens.deflection(xs, ys, fam.scale)
-                a11, a12, a22 = pred["lens"].jacobian(x, y, fam.scale)
+                ax, ay = lens.deflection(xs, ys, shifted_scale)
+                a11, a12, a22 = pred["lens"].jacobian(x, y, pred["scale"])
             ax = ax.reshape(2, n_par, n_rows, -1)
             ay = ay.reshape(2, n_par, n_rows, -1)
             h_up, h_down = up.T[:, :, None], down.T[:, :, None]  # (n, P, 1)
@@ -623,9 +696,9 @@ class ImageLikelihood:
                 bx = shifted[:, sl][:, :1]
                 by = shifted[:, sl][:, 1:]
                 with np.errstate(all="ignore"):
-                    tau_pm = lens.fermat_potential(moved_x, moved_y, bx, by, fam.scale)
+                    tau_pm = lens.fermat_potential(moved_x, moved_y, bx, by, shifted_scale)
                     mu_pm.append(
-                        lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], fam.scale)
+                        lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], shifted_scale)
                     )
                 exists = np.tile(np.isfinite(pred["track_fermat"]), (2 * n_par, 1))
                 tau_pm[:, n_obs:] = np.where(exists, tau_pm[:, n_obs:], np.nan)

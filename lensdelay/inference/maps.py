@@ -66,6 +66,14 @@ class LensMaps:
     provenance: dict | None = None
 
 
+def _redshift_at(like, k: int, values) -> float:
+    """Family k's redshift: measured, or (free) its value in ``values``."""
+    fam = like.scenario.families[k]
+    if not fam.redshift_free:
+        return float(fam.redshift)
+    return float(values[like.names.index(f"redshift[{fam.label}]")])
+
+
 def grid_axes(size: float, pixel: float) -> tuple[np.ndarray, np.ndarray]:
     """Pixel-centre offsets of a square grid of side about ``size`` centred on the origin.
 
@@ -81,20 +89,21 @@ def grid_axes(size: float, pixel: float) -> tuple[np.ndarray, np.ndarray]:
 
 def _maps_for(like, rows, family: int, reference_xy, gx, gy) -> dict:
     """Every map for parameter rows (P, n_par): arrays (P, ny, nx)."""
-    fam = like.families[family]
     lens = like.lens_for(rows)
     px, py = gx.ravel()[None, :], gy.ravel()[None, :]
-    maps = lens_maps(lens, px, py, fam.scale)
+    fam_scale = like.family_scale(family, rows)  # per row when the redshift is free
+    maps = lens_maps(lens, px, py, fam_scale)
     src = rows[:, like.source_slice(family)]
     bx, by = src[:, :1], src[:, 1:]
     with np.errstate(all="ignore"):
-        tau = lens.fermat_potential(px, py, bx, by, fam.scale)
+        tau = lens.fermat_potential(px, py, bx, by, fam_scale)
         ref = lens.fermat_potential(
-            np.full((1, 1), reference_xy[0]), np.full((1, 1), reference_xy[1]), bx, by, fam.scale
+            np.full((1, 1), reference_xy[0]), np.full((1, 1), reference_xy[1]), bx, by, fam_scale
         )
     # the delay scale: 1 at the fitted cosmology unless H0 or κ_ext are parameters
     scale = like.delay_scale(rows)[:, None]
-    maps["arrival_time"] = (tau - ref) * fam.days_per_arcsec2 * scale
+    days = np.reshape(like.family_days(family, rows), (-1, 1))
+    maps["arrival_time"] = (tau - ref) * days * scale
     shape = (len(rows), *gx.shape)
     return {k: np.broadcast_to(v, (len(rows), px.shape[1])).reshape(shape) for k, v in maps.items()}
 
@@ -152,7 +161,7 @@ def fitted_maps(
         units=units,
         meanings=meanings,
         family=family,
-        source_redshift=float(like.scenario.families[k].redshift),
+        source_redshift=_redshift_at(like, k, best),
         reference=reference,
         model_label=like.model.label,
         parameters={n_: float(v) for n_, v in zip(like.names, best)},

@@ -13,10 +13,30 @@ from astropy.table import Table
 from lensdelay.dates import allows_far_dates
 from lensdelay.model.cosmology import describe_cosmology
 from lensdelay.cautions import CAUTION
+from lensdelay.inference.summaries import quantile_summary
 from lensdelay.forecast.pipeline import STATUS_MEANINGS
 
 
 @allows_far_dates
+def _family_redshift(res, family) -> dict:
+    """A family's redshift: the measured number, or (free) its bounds and posterior.
+
+    The posterior is that of the most probable model (null when it was not sampled).
+    """
+    if not family.redshift_free:
+        return {"redshift": float(family.redshift)}
+    p = family.redshift_parameter
+    out = {"redshift": None, "redshift_bounds": [p.min, p.max], "redshift_posterior": None}
+    name = f"redshift[{family.label}]"
+    if len(res.chains):
+        chain = res.chains[int(np.argmax(res.model_weights))]
+        if chain is not None and name in chain.names:
+            out["redshift_posterior"] = quantile_summary(
+                chain.samples()[:, chain.names.index(name)]
+            )
+    return out
+
+
 def instant(res, offset_days: float):
     """The date ``offset_days`` after the detection (astropy Time)."""
     return res.scenario.transient.date + offset_days * u.day
@@ -140,7 +160,7 @@ def forecast_json(res) -> dict:
             "families": [
                 {
                     "label": f.label,
-                    "redshift": float(f.redshift),
+                    **_family_redshift(res, f),
                     "images": [
                         {"label": o.label, "x": o.x, "y": o.y, "sigma": o.sigma} for o in f.images
                     ],

@@ -108,6 +108,24 @@ class LensDistances:
         """Days of delay per arcsec² of Fermat-potential difference at ``z_s``."""
         return float(self.time_delay_distance(z_s).to_value(u.Mpc)) * DAYS_PER_MPC_ARCSEC2
 
+    def scalings(self, z_s) -> tuple[np.ndarray, np.ndarray]:
+        """:meth:`deflection_scale` and :meth:`days_per_arcsec2` for an array of redshifts.
+
+        The same formulas in one vectorised astropy call each (for the splines over a
+        free family redshift).
+        """
+        z_s = np.atleast_1d(np.asarray(z_s, dtype=float))
+        if not np.all(np.isfinite(z_s) & (z_s > self.lens_redshift)):
+            self._check_source(float(z_s[~(np.isfinite(z_s) & (z_s > self.lens_redshift))][0]))
+        d_s = self.cosmology.angular_diameter_distance(z_s).to_value(u.Mpc)
+        d_ls = self.cosmology.angular_diameter_distance(
+            np.full_like(z_s, self.lens_redshift), z_s
+        ).to_value(u.Mpc)
+        d_l = self.lens_distance.to_value(u.Mpc)
+        scale = (d_ls / d_s) / self._ref_ratio
+        days = (1.0 + self.lens_redshift) * d_l * d_s / d_ls * DAYS_PER_MPC_ARCSEC2
+        return scale, days
+
 
 class DelayDistanceTable:
     """Fast D_dt for arrays of (H0, Om0) in flat ΛCDM without radiation.

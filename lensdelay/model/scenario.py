@@ -27,9 +27,11 @@ from lensdelay.model.recipe import (
     MEMBER_KEYS,
     MassModel,
     MemberGroup,
+    ModelParameter,
     default_galaxy_recipe,
     parse_mass_entries,
     parse_member_parameters,
+    parse_parameter,
 )
 
 
@@ -50,8 +52,16 @@ class Family:
     """The images of one multiply imaged source."""
 
     label: str
-    redshift: float
+    redshift: float  # the measured redshift, or the start value of a free one
     images: tuple[ImageObs, ...]
+    #: A redshift not measured: a free parameter (bounds, optional Gaussian prior);
+    #: None when ``redshift`` is measured (CONVENTIONS.md, "Families of unknown redshift").
+    redshift_parameter: ModelParameter | None = None
+
+    @property
+    def redshift_free(self) -> bool:
+        """True when the redshift is a free parameter of the fit."""
+        return self.redshift_parameter is not None
 
     def image(self, label: str) -> ImageObs:
         """The image called ``label``."""
@@ -364,6 +374,32 @@ def _parse_members(raw, load_table, sky) -> MemberGroup:
     )
 
 
+def _family_redshift(raw, where: str, z_l: float) -> tuple[float, ModelParameter | None]:
+    """A family's redshift: a number (measured) or a free-parameter table (unknown).
+
+    A free redshift's bounds must lie behind the lens by at least ``MIN_REDSHIFT_GAP``
+    over their whole range: the deflection scale D_ls/D_s falls to zero at the lens.
+    """
+    gap = (
+        f"must exceed lens.redshift {z_l:g} by at least {MIN_REDSHIFT_GAP:g} "
+        "(closer, D_ls -> 0 and delays diverge)"
+    )
+    if raw is None:
+        raise InputError(f"{where} is required (a number, or {{ value, min, max }}), got nothing")
+    param = parse_parameter("redshift", raw, where)
+    if param.vary and isinstance(raw, dict):
+        if not math.isfinite(param.min) or param.min < z_l + MIN_REDSHIFT_GAP:
+            raise InputError(f"{where}.min {gap}, got {param.min:g}")
+        if not math.isfinite(param.max) or param.max > 20.0:
+            raise InputError(f"{where}.max must be finite and at most 20, got {param.max:g}")
+        return param.value, param
+    if not param.value <= 20.0:
+        raise InputError(f"{where} must be at most 20, got {param.value:g}")
+    if param.value < z_l + MIN_REDSHIFT_GAP:
+        raise InputError(f"{where} {gap}, got {param.value:g}")
+    return param.value, None
+
+
 def _parse(doc, source, load_model, load_table=None):
     top = _Table(doc, "scenario", TOP_KEYS)
     name = top.text("name", default=source.rsplit("/", 1)[-1].removesuffix(".toml"))
@@ -389,12 +425,7 @@ def _parse(doc, source, load_model, load_table=None):
         if label in seen_fam:
             raise InputError(f"family[{i}].label must be unique, got {label!r} twice")
         seen_fam.add(label)
-        z_s = ft.number("redshift", hi=20.0)
-        if z_s < z_l + MIN_REDSHIFT_GAP:
-            raise InputError(
-                f"family[{i}].redshift must exceed lens.redshift {z_l:g} by at least "
-                f"{MIN_REDSHIFT_GAP:g} (closer, D_ls -> 0 and delays diverge), got {z_s:g}"
-            )
+        z_s, z_free = _family_redshift(fam_raw.get("redshift"), f"family[{i}].redshift", z_l)
         images, labels = [], set()
         for j, im_raw in enumerate(ft.table_list("image", required=True)):
             it = _Table(
@@ -426,8 +457,16 @@ def _parse(doc, source, load_model, load_table=None):
                         f"(two images of one source are distinct), got ({x:g}, {y:g}) twice"
                     )
             images.append(ImageObs(lab, x, y, sigma, flux, mag))
-        families.append(Family(label, z_s, tuple(images)))
-    z_ref = lens_tab.number("reference_source_redshift", default=families[0].redshift, hi=20.0)
+        families.append(Family(label, z_s, tuple(images), z_free))
+    fixed = [f.redshift for f in families if not f.redshift_free]
+    if not fixed and "reference_source_redshift" not in lens_tab.data:
+        raise InputError(
+            "lens.reference_source_redshift is needed when no family has a measured "
+            "redshift (the mass parameters are defined at it), got nothing"
+        )
+    z_ref = lens_tab.number(
+        "reference_source_redshift", default=fixed[0] if fixed else None, hi=20.0
+    )
     if z_ref <= z_l:
         raise InputError(
             f"lens.reference_source_redshift must be greater than lens.redshift "

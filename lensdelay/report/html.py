@@ -67,6 +67,20 @@ code { font-size: 0.85em; word-break: break-all; }
 """
 
 
+def _family_z(family: dict) -> str:
+    """'z = 1.62', or for a free redshift its posterior median and 68% range and bounds."""
+    if family.get("redshift") is not None:
+        return f"z = {family['redshift']:g}"
+    lo, hi = family.get("redshift_bounds", (float("nan"), float("nan")))
+    post = family.get("redshift_posterior")
+    if post:
+        return (
+            f"z = {post['median']:.2f} (68%: {post['p16']:.2f}–{post['p84']:.2f}; "
+            f"fitted within {lo:g}–{hi:g})"
+        )
+    return f"z fitted within {lo:g}–{hi:g}"
+
+
 def _e(value) -> str:
     """HTML-escaped text of a value (em dash for nothing)."""
     if value is None:
@@ -155,7 +169,7 @@ def _forecast_sections(doc: dict) -> list[str]:
         (
             "Image families",
             "; ".join(
-                f"{_e(f['label'])} at z = {f['redshift']:g} ({len(f['images'])} observed images)"
+                f"{_e(f['label'])} at {_family_z(f)} ({len(f['images'])} observed images)"
                 for f in sc.get("families", [])
             )
             or "—",

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import numpy as np
+
 from lensdelay.cautions import CAUTION
 from lensdelay.inference.summaries import quantile_summary
 from lensdelay.forecast.pipeline import STATUS_MEANINGS, TENSION_CAUSES
@@ -321,6 +323,26 @@ def h0_date_lines(res) -> list[str]:
     return lines
 
 
+def free_redshift_lines(res) -> list[str]:
+    """One line per family of unknown redshift: its bounds and posterior (most probable model)."""
+    lines = []
+    if not len(res.chains):
+        return lines
+    chain = res.chains[int(np.argmax(res.model_weights))]
+    for fam in res.scenario.families:
+        name = f"redshift[{fam.label}]"
+        if not fam.redshift_free or chain is None or name not in chain.names:
+            continue
+        z = chain.samples()[:, chain.names.index(name)]
+        lo, mid, hi = np.percentile(z, [16, 50, 84])
+        p = fam.redshift_parameter
+        lines.append(
+            f"redshift of {fam.label} (fitted within {p.min:g}..{p.max:g}): {mid:.3f} "
+            f"(68%: {lo:.3f}..{hi:.3f})"
+        )
+    return lines
+
+
 def forecast_text(res: dict) -> str:
     """The readable terminal summary."""
     sc, st = res.scenario, res.settings
@@ -443,6 +465,7 @@ def forecast_text(res: dict) -> str:
             )
     for label, f in zip(res.model_labels, res.fits):
         lines.append(quality_line(f.quality(), f"fit of {label}"))
+    lines += free_redshift_lines(res)
     for n in res.notes:
         lines.append(f"NOTE: {n}")
     for label, notes in zip(res.model_labels, res.model_notes):
