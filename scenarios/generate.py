@@ -13,12 +13,15 @@ import numpy as np
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
 from lensdelay.lensing.distances import LensDistances
 from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.images import find_images
 from lensdelay.lensing.profiles import (
     ExternalShear,
     IsothermalEllipsoid,
     NFWHalo,
     SingularIsothermalSphere,
+    TruncatedIsothermal,
 )
+from lensdelay.lensing.profiles.stack import ProfileStack
 from lensdelay.model.simulate import simulate_family, to_toml
 from lensdelay.io.storage import atomic_write_text
 
@@ -147,6 +150,221 @@ def main():
             },
             "site": {"latitude": 19.82, "longitude": -155.47, "height": 4200.0},
             "model": "models/nfw_sie_shear.toml",
+        },
+    )
+    cluster(np.random.default_rng(2031))
+
+
+#: The invented cluster's true mass (arcsec; θE at the reference source redshift 3.0).
+CLUSTER_TRUTH = {
+    "halo": dict(
+        einstein_radius=17.0, axis_ratio=0.68, position_angle=33.0, core=4.0, x=1.2, y=-0.8
+    ),
+    "bcg": dict(
+        einstein_radius=2.4, core=0.15, cut=40.0, axis_ratio=0.78, position_angle=30.0, x=0, y=0
+    ),
+    "shear": dict(strength=0.035, position_angle=-25.0),
+    "members": dict(reference_mag=19.0, einstein_radius=0.65, cut=14.0),
+}
+CLUSTER_Z, CLUSTER_Z_REF = 0.34, 3.0
+
+
+def _cluster_members(rng, n=140):
+    """An invented member catalogue: positions within 65", magnitudes 18.4-23.5."""
+    r = 65.0 * rng.uniform(0.0, 1.0, n) ** 0.8
+    phi = rng.uniform(0.0, 2 * np.pi, n)
+    mag = np.clip(18.4 + rng.exponential(1.5, n), 18.4, 23.5)
+    q = np.round(rng.uniform(0.5, 1.0, n), 2)
+    pa = np.round(rng.uniform(-90.0, 90.0, n), 1)
+    rows = [
+        {
+            "id": f"m{k + 1:03d}",
+            "x": r[k] * np.sin(phi[k]),
+            "y": r[k] * np.cos(phi[k]),
+            "mag": mag[k],
+            "axis_ratio": q[k],
+            "position_angle": pa[k],
+        }
+        for k in range(n)
+    ]
+    # the brightest cluster galaxy at the centre: listed, and modelled on its own
+    rows.insert(
+        0,
+        {"id": "bcg", "x": 0.0, "y": 0.0, "mag": 17.1, "axis_ratio": 0.78, "position_angle": 30.0},
+    )
+    return rows
+
+
+def _members_table_text(rows) -> str:
+    from astropy.table import Table
+    import io
+
+    table = Table(
+        rows=[
+            [r[k] for k in ("id", "x", "y", "mag", "axis_ratio", "position_angle")] for r in rows
+        ],
+        names=("id", "x", "y", "mag", "axis_ratio", "position_angle"),
+    )
+    for col in ("x", "y"):
+        table[col].unit = "arcsec"
+        table[col].format = ".3f"
+    table["mag"].format = ".2f"
+    buffer = io.StringIO()
+    table.write(buffer, format="ascii.ecsv")
+    return buffer.getvalue()
+
+
+def cluster_lens(rows):
+    """The true lens of the invented cluster (members from the catalogue rows)."""
+    t = CLUSTER_TRUTH
+    members = [r for r in rows if r["id"] != "bcg"]
+    lum = 10 ** (-0.4 * (np.array([r["mag"] for r in members]) - t["members"]["reference_mag"]))
+    stack = ProfileStack(
+        TruncatedIsothermal,
+        dict(
+            einstein_radius=t["members"]["einstein_radius"] * lum**0.5,
+            core=np.zeros(len(members)),
+            cut=t["members"]["cut"] * lum**0.5,
+            axis_ratio=np.array([r["axis_ratio"] for r in members]),
+            position_angle=np.array([r["position_angle"] for r in members]),
+            x=np.array([r["x"] for r in members]),
+            y=np.array([r["y"] for r in members]),
+        ),
+    )
+    return Lens(
+        (
+            IsothermalEllipsoid(**t["halo"]),
+            TruncatedIsothermal(**t["bcg"]),
+            stack,
+            ExternalShear(**t["shear"]),
+        )
+    )
+
+
+def _arrival_days(table, dist, z):
+    return (table.fermat - table.fermat.min()) * dist.days_per_arcsec2(z)
+
+
+def cluster(rng):
+    """Tarrow cluster: an invented cluster lens, 140 members, 9 families, a lensed supernova."""
+    rows = _cluster_members(rng)
+    lens = cluster_lens(rows)
+    dist = LensDistances(DEFAULT_COSMOLOGY, CLUSTER_Z, CLUSTER_Z_REF)
+    families = []
+    # the supernova: one image years before the one seen, one years after it
+    z_sn = 1.49
+    while True:
+        bx, by = rng.uniform(-2.5, 2.5, 2)
+        table = find_images(lens, [bx], [by], dist.deflection_scale(z_sn))
+        table = table.select(np.abs(table.magnification) >= 0.3)
+        days = np.sort(_arrival_days(table, dist, z_sn))
+        if len(table) >= 3 and np.any(
+            (days[1:-1] - days[0] > 2 * 365) & (days[-1] - days[1:-1] > 3 * 365)
+        ):
+            break
+    sn = simulate_family(
+        lens,
+        bx,
+        by,
+        label="sn",
+        redshift=z_sn,
+        scale=dist.deflection_scale(z_sn),
+        sigma=0.02,
+        rng=rng,
+        min_abs_mu=0.3,
+    )
+    days = _arrival_days(table, dist, z_sn)
+    # seen in the image between the earliest and the latest
+    middle = [
+        k for k in range(len(days)) if days[k] - days.min() > 730 and days.max() - days[k] > 1095
+    ]
+    seen = sn["image"][middle[0]]
+    families.append(sn)
+    # eight arcs, at redshifts 1.2-5; the one at z = 2.71 gets no spectroscopic redshift
+    for k, z in enumerate((1.21, 1.84, 2.17, 2.71, 3.0, 3.42, 4.05, 5.1)):
+        while True:
+            bx, by = rng.uniform(-4.0, 4.0, 2)
+            fam = simulate_family(
+                lens,
+                bx,
+                by,
+                label=f"arc{k + 1}",
+                redshift=z,
+                scale=dist.deflection_scale(z),
+                sigma=0.06,
+                rng=rng,
+                min_abs_mu=0.3,
+                labels="abcdefgh",
+            )
+            if len(fam["image"]) >= 3:
+                break
+        for im in fam["image"]:
+            del im["magnitude"]
+        if z == 2.71:
+            fam["redshift"] = {"value": 2.5, "min": 1.6, "max": 5.5}
+        families.append(fam)
+    atomic_write_text("scenarios/tarrow_members.ecsv", _members_table_text(rows))
+    t = CLUSTER_TRUTH
+    header = (
+        "# Tarrow cluster: an invented cluster lens (140 member galaxies in\n"
+        "# tarrow_members.ecsv), eight arcs (one without a spectroscopic redshift) and a\n"
+        "# lensed supernova whose first image came years before the one seen and whose\n"
+        '# last is years ahead. Simulated from a cored SIE halo (theta_E 17", q 0.68,\n'
+        '# core 4"), a truncated isothermal central galaxy, the members (theta_E* 0.65",\n'
+        '# cut* 14" at mag 19, both scaling as L^0.5) and shear 0.035.'
+    )
+    write(
+        "tarrow_cluster",
+        header,
+        {
+            "name": "Tarrow cluster",
+            "lens": {"redshift": CLUSTER_Z, "reference_source_redshift": CLUSTER_Z_REF},
+            "sky": {"ra": 64.0381, "dec": -23.7154},
+            "cosmology": {"H0": 70.0, "Om0": 0.3},
+            "family": families,
+            # no [lens_light]: it would pull the first luminous component, the dark
+            # halo here, onto the central galaxy (the BCG's own centre is held fixed)
+            "transient": {
+                "family": "sn",
+                "seen_in": seen["label"],
+                "date": "2026-10-15",
+                "date_sigma_days": 2.0,
+                "magnitude": round(seen["magnitude"] + 2.0, 2),
+            },
+            "site": {"latitude": -24.63, "longitude": -70.40, "height": 2640.0},
+            "mass": [
+                {
+                    "profile": "SIE",
+                    "einstein_radius": {"value": 14.0, "min": 5.0, "max": 30.0},
+                    "axis_ratio": {"value": 0.8, "min": 0.3, "max": 1.0},
+                    "position_angle": {"value": 20.0},
+                    "core": {"value": 3.0, "min": 0.5, "max": 10.0},
+                    "x": {"value": 0.0, "min": -5.0, "max": 5.0},
+                    "y": {"value": 0.0, "min": -5.0, "max": 5.0},
+                },
+                {
+                    "profile": "truncated_isothermal",
+                    "einstein_radius": {"value": 2.0, "min": 0.5, "max": 5.0},
+                    "core": 0.15,
+                    "cut": 40.0,
+                    "axis_ratio": 0.78,
+                    "position_angle": 30.0,
+                    "x": 0.0,
+                    "y": 0.0,
+                },
+                {
+                    "profile": "shear",
+                    "strength": {"value": 0.03, "min": 0.0, "max": 0.2},
+                    "position_angle": {"value": 0.0},
+                },
+            ],
+            "members": {
+                "catalogue": "tarrow_members.ecsv",
+                "exclude": ["bcg"],
+                "reference_mag": t["members"]["reference_mag"],
+                "einstein_radius": {"value": 0.5, "min": 0.1, "max": 1.5},
+                "cut": {"value": 10.0, "min": 2.0, "max": 40.0},
+            },
         },
     )
 

@@ -16,19 +16,23 @@ _ROUND = 1e-4
 def _atan_over(e, z):
     """arctan(e·z)/e, continuous at e → 0."""
     if np.ndim(e) == 0:  # one model: choose the branch once, not per point
-        return z - (e * e) * z**3 / 3.0 if e < _ROUND else np.arctan(e * z) / e
+        return z - (e * e) * (z * z * z) / 3.0 if e < _ROUND else np.arctan(e * z) / e
     small = e < _ROUND
+    if not np.any(small):  # many models, none round: one branch (the costly one) only
+        return np.arctan(e * z) / e
     es = np.where(small, 1.0, e)
-    return np.where(small, z - (e * e) * z**3 / 3.0, np.arctan(es * z) / es)
+    return np.where(small, z - (e * e) * (z * z * z) / 3.0, np.arctan(es * z) / es)
 
 
 def _atanh_over(e, z):
     """arctanh(e·z)/e, continuous at e → 0."""
     if np.ndim(e) == 0:
-        return z + (e * e) * z**3 / 3.0 if e < _ROUND else np.arctanh(e * z) / e
+        return z + (e * e) * (z * z * z) / 3.0 if e < _ROUND else np.arctanh(e * z) / e
     small = e < _ROUND
+    if not np.any(small):
+        return np.arctanh(e * z) / e
     es = np.where(small, 1.0, e)
-    return np.where(small, z + (e * e) * z**3 / 3.0, np.arctanh(es * z) / es)
+    return np.where(small, z + (e * e) * (z * z * z) / 3.0, np.arctanh(es * z) / es)
 
 
 @dataclass(frozen=True, kw_only=True)
