@@ -278,3 +278,24 @@ def test_central_image_at_the_exact_centre_of_a_cuspy_profile_is_a_faint_maximum
     centre = t.select(np.hypot(t.x, t.y) < 1e-9)
     assert len(centre) == 1
     assert centre.parity[0] == 2 and 0 < centre.magnification[0] < 1e-3
+
+
+def test_one_mesh_for_several_scales_finds_what_one_mesh_each_finds():
+    """find_images_at_scales (shared mesh) against find_images per family."""
+    from lensdelay.lensing.images import find_images_at_scales
+    from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid, TruncatedIsothermal
+
+    lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.2, axis_ratio=0.7, position_angle=20.0),
+            TruncatedIsothermal(einstein_radius=0.2, cut=2.0, x=1.6, y=0.4),
+            ExternalShear(strength=0.05, position_angle=60.0),
+        )
+    )
+    sources = [([0.05, -0.1], [0.02, 0.08], 0.8), ([0.12], [-0.04], 1.0), ([0.0], [0.15], 1.2)]
+    shared = find_images_at_scales(lens, sources)
+    for (bx, by, s), table in zip(sources, shared):
+        alone = find_images(lens, bx, by, s)
+        assert len(table) == len(alone)
+        assert np.allclose(np.sort(table.x), np.sort(alone.x), atol=1e-8)
+        assert np.allclose(np.sort(table.y), np.sort(alone.y), atol=1e-8)

@@ -498,14 +498,18 @@ class ImageLikelihood:
         Finds every image of each family at ``values`` (complete image finder) and keeps
         those not matched to an observed one in ``self.watched``.
         """
-        from lensdelay.lensing.images import find_images
+        from lensdelay.lensing.images import find_images_at_scales
 
         values = np.asarray(values, dtype=float)
         preds = self.predict(values[None, :])
         single = self.model.lens(values[: self.n_model])
-        for k, (fam, pred) in enumerate(zip(self.families_at(values), preds)):
-            bx, by = values[self.source_slice(k)]
-            table = find_images(single, [bx], [by], fam.scale)
+        families = self.families_at(values)
+        # one mesh for every family (the lens is evaluated once: most of the cost)
+        tables = find_images_at_scales(
+            single,
+            [(*values[self.source_slice(k)], fam.scale) for k, fam in enumerate(families)],
+        )
+        for k, (fam, pred, table) in enumerate(zip(families, preds, tables)):
             keep = np.ones(len(table), dtype=bool)
             for i in range(len(fam.x)):
                 if pred["ok"][0, i]:
