@@ -6,6 +6,7 @@ simulated from the true models below with seeded noise. They are demos, not data
 
 from __future__ import annotations
 
+import json
 import sys
 
 import numpy as np
@@ -280,6 +281,15 @@ def cluster(rng):
     ]
     seen = sn["image"][middle[0]]
     families.append(sn)
+    truth = {
+        "note": "the invented Tarrow cluster's truth, for benchmarks/bench_cluster_demo.py",
+        "mass": CLUSTER_TRUTH,
+        "sources": {"sn": [float(bx), float(by), z_sn]},
+        # true delays after the image seen, at the scenario's cosmology and kappa_ext = 0
+        "sn_delays_days": {
+            im["label"]: float(days[k] - days[middle[0]]) for k, im in enumerate(sn["image"])
+        },
+    }
     # eight arcs, at redshifts 1.2-5; the one at z = 2.71 gets no spectroscopic redshift
     for k, z in enumerate((1.21, 1.84, 2.17, 2.71, 3.0, 3.42, 4.05, 5.1)):
         while True:
@@ -300,10 +310,12 @@ def cluster(rng):
                 break
         for im in fam["image"]:
             del im["magnitude"]
+        truth["sources"][fam["label"]] = [float(bx), float(by), z]
         if z == 2.71:
             fam["redshift"] = {"value": 2.5, "min": 1.6, "max": 5.5}
         families.append(fam)
     atomic_write_text("scenarios/tarrow_members.ecsv", _members_table_text(rows))
+    atomic_write_text("scenarios/tarrow_truth.json", json.dumps(truth, indent=2) + "\n")
     t = CLUSTER_TRUTH
     header = (
         "# Tarrow cluster: an invented cluster lens (140 member galaxies in\n"

@@ -299,3 +299,42 @@ def test_one_mesh_for_several_scales_finds_what_one_mesh_each_finds():
         assert len(table) == len(alone)
         assert np.allclose(np.sort(table.x), np.sort(alone.x), atol=1e-8)
         assert np.allclose(np.sort(table.y), np.sort(alone.y), atol=1e-8)
+
+
+def test_no_image_brighter_than_a_tenth_is_missed_on_a_field_of_members(rng):
+    """Completeness on a small cluster field: 40 truncated members around an elliptical
+    halo, against a brute-force search on a uniform 0.05" grid (tests/grid_search.py;
+    benchmarks/bench_image_finder.py runs a 2' field with 140 members)."""
+    from grid_search import dense_grid_images, missed_images
+
+    from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid, TruncatedIsothermal
+    from lensdelay.lensing.profiles.stack import ProfileStack
+
+    n = 40
+    r = 22.0 * rng.uniform(0.05, 1.0, n) ** 0.7
+    phi = rng.uniform(0, 2 * np.pi, n)
+    luminosity = 10 ** (-0.4 * rng.exponential(1.2, n))
+    members = ProfileStack(
+        TruncatedIsothermal,
+        dict(
+            einstein_radius=0.5 * luminosity**0.5,
+            core=np.zeros(n),
+            cut=8.0 * luminosity**0.5,
+            axis_ratio=rng.uniform(0.5, 1.0, n),
+            position_angle=rng.uniform(-90, 90, n),
+            x=r * np.sin(phi),
+            y=r * np.cos(phi),
+        ),
+    )
+    lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=8.0, axis_ratio=0.7, position_angle=30, core=2.0),
+            members,
+            ExternalShear(strength=0.03, position_angle=-20.0),
+        )
+    )
+    for scale, (bx, by) in ((0.8, (0.4, -0.3)), (1.1, (-0.9, 0.5))):
+        table = find_images(lens, [bx], [by], scale)
+        ((gx, gy, gmu),) = dense_grid_images(lens, bx, by, scale, extent=26.0, spacing=0.05)
+        assert np.sum(gmu > 0.1) >= 3  # a multiply imaged source
+        assert missed_images(table, gx, gy, gmu) == []

@@ -66,6 +66,11 @@ def fit_json(res: dict) -> dict:
             "thin": ch.thin,
             "acceptance_fraction": float(np.mean(ch.acceptance)),
             "autocorrelation_steps": {n: float(t) for n, t in zip(ch.names, ch.autocorr)},
+            # walkers × (steps − burn-in) / τ: what each parameter's draws are worth
+            "effective_samples": {
+                n: (float(e) if np.isfinite(e) else None)
+                for n, e in zip(ch.names, ch.effective_sample_sizes())
+            },
             # Gelman-Rubin R-hat, walkers as chains (None where no walker moved)
             "potential_scale_reduction": {
                 n: (float(r) if np.isfinite(r) else None) for n, r in zip(ch.names, ch.rhat)

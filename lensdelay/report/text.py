@@ -156,14 +156,16 @@ def fit_text(res: dict) -> str:
                 f"{ch.acceptance.mean():.2f}; {ch.move} move, {res.likelihood.prior} prior"
             )
             columns = (
-                f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7} {'R-hat':>6}"
+                f"{'parameter':<32} {'median':>12} {'16%':>12} {'84%':>12} {'tau':>7} "
+                f"{'ESS':>7} {'R-hat':>6}"
             )
         lines += ["", head, columns]
+        ess = ch.effective_sample_sizes()
         for i, n in enumerate(ch.names):
             q = quantile_summary(s[:, i])
             row = f"{n:<32} {q['median']:12.5g} {q['p16']:12.5g} {q['p84']:12.5g}"
             if not weighted:
-                row += f" {ch.autocorr[i]:7.0f} {ch.rhat[i]:6.2f}"
+                row += f" {ch.autocorr[i]:7.0f} {ess[i]:7.0f} {ch.rhat[i]:6.2f}"
             lines.append(row)
         for w in ch.warnings:
             lines.append(f"WARNING: {w}")
