@@ -174,3 +174,24 @@ def test_members_near_the_images_are_drawn_in_the_sky_figure(tmp_path):
     fig = sky_figure(view)
     labels = fig.axes[0].get_legend_handles_labels()[1]
     assert "member galaxies" in labels
+
+
+@pytest.mark.parametrize(
+    "change, message",
+    [
+        ('cut = 6.0\nexclude = ["g9"]', "members.exclude must name ids of members.catalogue"),
+        ("cut = 0.1\ncore = 0.2", "members.cut must be greater than members.core"),
+        (
+            "cut = { value = 6.0, min = 0.1, max = 30.0 }\ncore = 0.2",
+            "members.cut must be greater than members.core over both their ranges",
+        ),
+    ],
+)
+def test_exclude_of_an_unknown_id_and_cut_inside_core_are_one_line(
+    tmp_path, capsys, change, message
+):
+    """Bad input (issue 16): one line naming the scenario and the field, exit 2."""
+    path = write(tmp_path, SCENARIO.replace("cut = 6.0", change))
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and message in err and str(path) in err

@@ -483,4 +483,13 @@ def parse_member_parameters(table: dict) -> dict[str, ModelParameter]:
             raise InputError(f"members.{key} must be > 0 (and so its min), got {low:g}")
     if out["core"].value < 0 or (out["core"].vary and out["core"].min < 0):
         raise InputError(f"members.core must be >= 0, got {out['core'].value:g}")
+    cut, core = out["cut"], out["core"]
+    smallest_cut = cut.min if cut.vary else cut.value
+    largest_core = core.max if core.vary else core.value
+    if not smallest_cut > largest_core:
+        # a member whose cut is inside its core has no mass (CONVENTIONS.md: a > s)
+        raise InputError(
+            "members.cut must be greater than members.core over both their ranges, "
+            f"got cut from {smallest_cut:g} and core up to {largest_core:g}"
+        )
     return out

@@ -360,6 +360,13 @@ def _parse_members(raw, load_table, sky) -> MemberGroup:
             f"members.catalogue {ref!r} column 'axis_ratio' must be in (0, 1], "
             f"got {q[(q <= 0) | (q > 1)][0]:g}"
         )
+    unknown = sorted(exclude - set(ids))
+    if unknown:
+        raise InputError(
+            f"members.exclude must name ids of members.catalogue {ref!r}, got "
+            f"{', '.join(repr(u) for u in unknown[:5])}, not in it (its ids begin "
+            f"{', '.join(repr(i) for i in ids[:5])})"
+        )
     keep = np.array([i not in exclude for i in ids])
     if not np.any(keep):
         raise InputError(f"members.catalogue {ref!r} has no member left after exclude, got none")
