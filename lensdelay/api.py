@@ -571,3 +571,76 @@ def infer_h0(scenario, model=None, *, delays=None, **options) -> dict:
     sc, used = _with_light_curve_delays(*_scenario(scenario, model), delays)
     res = run_hubble(sc, **options)
     return replace(res, provenance=provenance(used, res.scenario.cosmology, options.get("seed", 1)))
+
+
+def prepare_lens(
+    scenario: PathLike,
+    model: PathLike | None = None,
+    *,
+    walkers: int = 32,
+    steps: int = 2000,
+    seed: int = 1,
+    prior: str = "flat",
+    out: PathLike | None = None,
+    progress=False,
+    stop=None,
+):
+    """Fit and sample a lens once, ahead of any alert (``lensdelay prepare``).
+
+    Parameters
+    ----------
+    scenario : path
+        The scenario file (its ``[transient]``, if any, is kept but not needed).
+    model : path, optional
+        A model file replacing the scenario's mass model.
+    out : path, optional
+        Folder to store the prepared lens in (:mod:`lensdelay.io.prepared_files`).
+
+    Returns
+    -------
+    PreparedLens
+        Forecast from it with :func:`forecast_prepared`; the fit and sampling seeds are
+        those a from-scratch forecast with the same ``seed`` uses.
+    """
+    from lensdelay.forecast.prepared import prepare_lens as _prepare
+    from lensdelay.io.prepared_files import write_prepared
+
+    sc, _ = _scenario(scenario, model)
+    prepared = _prepare(
+        sc, walkers=walkers, steps=steps, seed=seed, prior=prior, progress=progress, stop=stop
+    )
+    if out is not None:
+        write_prepared(out, prepared, scenario, model)
+    return prepared
+
+
+@allows_far_dates
+def forecast_prepared(prepared, transient: str | None = None, *, budget: bool = True, **options):
+    """The forecast of an alert from a prepared lens, without fitting again.
+
+    Parameters
+    ----------
+    prepared : PreparedLens or path
+        From :func:`prepare_lens`, or the folder it was stored in.
+    transient : str, optional
+        ``FAMILY/LABEL=DATE±SIGMA``: the event seen in that image on that date (SIGMA in
+        days); default the prepared scenario's own ``[transient]``.
+    **options
+        Those of :func:`forecast_scenario` (``n_samples``, ``seed``, ``h0``, ``now``, ...);
+        with the prepared lens's seed the result equals the from-scratch forecast.
+    """
+    from lensdelay.forecast.prepared import parse_transient, with_transient
+    from lensdelay.io.prepared_files import read_prepared
+
+    inputs = []
+    if not hasattr(prepared, "chain"):
+        folder = Path(prepared)
+        prepared = read_prepared(folder)
+        inputs = [folder / "lens.json", folder / "chain.npz", folder / "scenario.toml"]
+    if transient is not None:
+        prepared = with_transient(prepared, parse_transient(transient, prepared.scenario))
+    for key in ("walkers", "steps", "prior"):
+        options.setdefault(key, getattr(prepared, key))
+    res = run_forecast([prepared.scenario], prepared=[prepared], **options)
+    res = replace(res, provenance=provenance(inputs, res.cosmology, res.settings.seed))
+    return replace(res, budget=delay_budget(res)) if budget else res

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import sys
 
-from lensdelay.api import forecast_scenario
+from lensdelay.api import forecast_prepared, forecast_scenario
+from lensdelay.io.prepared_files import is_prepared
 from lensdelay.errors import InputError
 from lensdelay.cli.options import add_prior_argument, number, output_folder, site_from_args
 from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
@@ -20,7 +21,48 @@ def run(args) -> int:
         raise InputError("--report needs --out DIR (the page goes beside the outputs), got none")
     out = output_folder(args.out)
     now = parse_date(args.now, "--now") if args.now is not None else None
-    res = forecast_scenario(
+    if is_prepared(args.scenario):
+        res = _from_prepared(args, now)
+    else:
+        if args.transient is not None:
+            raise InputError(
+                "--transient needs a prepared lens (a folder from lensdelay prepare), got "
+                f"the scenario file {args.scenario}; give the alert in its [transient]"
+            )
+        res = _from_scratch(args, now)
+    return _write(args, out, res)
+
+
+def _from_prepared(args, now):
+    """The forecast from a prepared lens: no fitting, the alert from --transient."""
+    for flag, value in (("--model", args.model), ("--delays", args.delays)):
+        if value:
+            raise InputError(
+                f"{flag} cannot be used with a prepared lens (it was fitted with its model "
+                f"and data when prepared), got {value!r}"
+            )
+    return forecast_prepared(
+        args.scenario,
+        args.transient,
+        budget=args.budget,
+        n_samples=args.samples,
+        seed=args.seed,
+        h0=args.h0,
+        cosmology_name=args.cosmology,
+        kappa_ext=args.kappa_ext,
+        microlensing=args.microlensing,
+        depth=args.depth,
+        seen=args.seen,
+        site=site_from_args(args),
+        progress=not args.quiet,
+        stop=args.stop,
+        now=now,
+    )
+
+
+def _from_scratch(args, now):
+    """Fit, sample and forecast."""
+    return forecast_scenario(
         args.scenario,
         args.model,
         budget=args.budget,
@@ -42,6 +84,10 @@ def run(args) -> int:
         stop=args.stop,
         now=now,
     )
+
+
+def _write(args, out, res) -> int:
+    """Build every output, then print and write them as one set."""
     # build everything before writing anything
     doc = forecast_json(res)
     ecsv = table_text(forecast_table(res))
@@ -79,7 +125,15 @@ def run(args) -> int:
 def register(sub) -> None:
     """Add the ``forecast`` sub-command to the parser."""
     p = sub.add_parser("forecast", help="when, where and how bright the event reappears")
-    p.add_argument("scenario", help="scenario TOML file")
+    p.add_argument(
+        "scenario", help="scenario TOML file, or a prepared lens's folder (lensdelay prepare)"
+    )
+    p.add_argument(
+        "--transient",
+        metavar="[FAMILY/]LABEL=DATE[±SIGMA]",
+        help="with a prepared lens: the alert, seen in that image on DATE (ISO 8601, UTC), "
+        "SIGMA days (default 1; +- also accepted)",
+    )
     p.add_argument("--model", action="append", help="model TOML (repeat for several models)")
     p.add_argument(
         "--delays",

@@ -13,14 +13,14 @@ import sys
 import threading
 import warnings
 
-from lensdelay.cli import check, delays, fit, forecast, hubble, images, maps, report
+from lensdelay.cli import check, delays, fit, forecast, hubble, images, maps, prepare, report
 from lensdelay.cli.options import with_flags
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
 from lensdelay.inference.sampling import StopRequest
 from lensdelay.io.storage import PartialOutputError
 from lensdelay.version import __version__
 
-SUBCOMMANDS = (images, check, fit, delays, forecast, hubble, maps, report)
+SUBCOMMANDS = (images, check, fit, delays, prepare, forecast, hubble, maps, report)
 
 
 class _Parser(argparse.ArgumentParser):

@@ -217,6 +217,7 @@ def run_forecast(
     progress=False,
     prior="flat",
     stop=None,
+    prepared=None,
 ) -> dict:
     """Run the whole forecast; see :mod:`lensdelay.inference.timing` for the probability model.
 
@@ -231,6 +232,10 @@ def run_forecast(
         Show progress bars (off by default: the library is silent).
     stop : lensdelay.inference.sampling.StopRequest, optional
         Lets a caller (the command line's signal handler) stop sampling cleanly.
+    prepared : sequence of lensdelay.forecast.prepared.PreparedLens, optional
+        One per scenario: its fit and posterior are used instead of fitting and sampling
+        (the stages' seeds are consumed all the same, so the rest repeats a forecast that
+        fitted; the prepared lens's own seed should equal ``seed`` for that).
     Other parameters are those of ``lensdelay forecast`` (README).
     """
     scenarios = [scenarios] if isinstance(scenarios, Scenario) else list(scenarios)
@@ -294,18 +299,29 @@ def run_forecast(
     )
     first_tracks = None
     stages = _stage_display(progress, 2 * len(scenarios) + 1)
-    for sc in scenarios:
-        stages(f"fitting {sc.model.label}")
-        like = ImageLikelihood(sc, sc.model, prior=prior)
-        result, chain = fit_and_sample(
-            like,
-            walkers=walkers,
-            steps=steps,
-            fit_seed=int_seed(next(stage_seeds)),
-            sample_seed=int_seed(next(stage_seeds)),
-            progress=progress,
-            stop=stop,
+    if prepared is not None and len(prepared) != len(scenarios):
+        raise InputError(
+            f"prepared must hold one prepared lens per scenario ({len(scenarios)}), "
+            f"got {len(prepared)}"
         )
+    for k, sc in enumerate(scenarios):
+        fit_seed, sample_seed = next(stage_seeds), next(stage_seeds)
+        if prepared is not None:
+            stages(f"prepared {sc.model.label}")
+            like = prepared[k].likelihood()
+            result, chain = prepared[k].fit, prepared[k].chain
+        else:
+            stages(f"fitting {sc.model.label}")
+            like = ImageLikelihood(sc, sc.model, prior=prior)
+            result, chain = fit_and_sample(
+                like,
+                walkers=walkers,
+                steps=steps,
+                fit_seed=int_seed(fit_seed),
+                sample_seed=int_seed(sample_seed),
+                progress=progress,
+                stop=stop,
+            )
         stages(f"images and timing update, {sc.model.label}")
         notes = list(result.notes) + list(chain.warnings)
         if result.dof <= 0:

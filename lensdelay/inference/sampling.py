@@ -9,6 +9,7 @@ ends with exactly the chain an uninterrupted run would have made.
 
 from __future__ import annotations
 
+import logging
 import sys
 import warnings
 from collections.abc import Callable
@@ -16,6 +17,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 import emcee
+
 import numpy as np
 
 from lensdelay.errors import FitError, InputError, LensdelayWarning, choices_text
@@ -285,10 +287,16 @@ def sample(
     stop.active = False
     # τ in the sampling coordinates (no angle wraps there), from the second half so the
     # walkers' initial spread does not inflate it
-    with np.errstate(
-        invalid="ignore", divide="ignore"
-    ):  # a flat chain has no τ: NaN, handled below
-        tau = emcee.autocorr.integrated_time(chain[len(chain) // 2 :], quiet=True)
+    # emcee logs its own short-chain message; ours (below) says it with the numbers, and
+    # the library stays silent (its logger is quieted for this call only)
+    autocorr_log = logging.getLogger("emcee.autocorr")
+    level = autocorr_log.level
+    autocorr_log.setLevel(logging.ERROR)
+    try:
+        with np.errstate(invalid="ignore", divide="ignore"):  # a flat chain: NaN, below
+            tau = emcee.autocorr.integrated_time(chain[len(chain) // 2 :], quiet=True)
+    finally:
+        autocorr_log.setLevel(level)
     chain = coords.to_model(chain.reshape(-1, ndim)).reshape(chain.shape)
     # wrap periodic parameters (position angles) around the best fit: no wrap straddling
     for i, period in enumerate(like.periods):

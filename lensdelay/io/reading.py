@@ -132,3 +132,60 @@ def read_table(path: str | os.PathLike, field: str) -> dict:
     if len(tab) == 0:
         raise InputError(f"{field} {str(path)!r} must have at least one row, got none")
     return {name: tab[name] for name in tab.colnames}
+
+
+def self_contained_document(path: str | os.PathLike, model_path=None) -> tuple[dict, dict]:
+    """A scenario document that needs no other file but those returned with it.
+
+    The mass model (``model = "..."``, or ``model_path`` in its place) is written inline
+    as ``[[mass]]`` entries; a ``[members]`` catalogue is returned as bytes under a fixed
+    name the document refers to; a transient's ``light_curves`` reference is dropped (a
+    prepared lens is forecast from a given alert). Dates become ISO strings. Returns the
+    document and ``{file name: bytes}``.
+    """
+    import datetime as _dt
+
+    path = Path(path)
+    doc = read_toml(path)
+    files = {}
+    if model_path is not None or "model" in doc:
+        if model_path is not None:
+            candidate = Path(model_path)
+        else:
+            ref = doc["model"]
+            bases = (path.parent, path.parent.parent, Path.cwd())
+            found = [b / ref for b in bases if isinstance(ref, str) and (b / ref).is_file()]
+            if not found:
+                raise InputError(
+                    f"model refers to {ref!r}, which does not exist next to the scenario "
+                    "or in the working directory",
+                    str(path),
+                )
+            candidate = found[0]
+        doc = {k: v for k, v in doc.items() if k not in ("mass", "model")}
+        doc["mass"] = read_toml(candidate).get("mass", [])
+    members = doc.get("members")
+    if isinstance(members, dict) and isinstance(members.get("catalogue"), str):
+        source = path.parent / members["catalogue"]
+        if not source.is_file():
+            raise InputError(
+                f"members.catalogue refers to {members['catalogue']!r}, which does not exist "
+                "next to the scenario",
+                str(path),
+            )
+        name = "members" + (".ecsv" if source.suffix.lower() == ".ecsv" else ".csv")
+        files[name] = source.read_bytes()
+        doc["members"] = {**members, "catalogue": name}
+    if isinstance(doc.get("transient"), dict):
+        doc["transient"] = {k: v for k, v in doc["transient"].items() if k != "light_curves"}
+
+    def plain(value):
+        if isinstance(value, dict):
+            return {k: plain(v) for k, v in value.items()}
+        if isinstance(value, list):
+            return [plain(v) for v in value]
+        if isinstance(value, (_dt.datetime, _dt.date, _dt.time)):
+            return value.isoformat()
+        return value
+
+    return plain(doc), files

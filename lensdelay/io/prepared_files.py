@@ -1,0 +1,193 @@
+"""A prepared lens on disk: one folder, no pickle.
+
+``lens.json`` (settings, the fit, the chain's diagnostics, the watched images, hashes),
+``chain.npz`` (the posterior and the fit's arrays, float64 as drawn), ``scenario.toml``
+(the scenario with its mass model written inline) and, for a scenario with members, its
+catalogue. :func:`read_prepared` rebuilds exactly what :func:`write_prepared` was given.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+import numpy as np
+
+from lensdelay.errors import InputError
+from lensdelay.forecast.prepared import PreparedLens
+from lensdelay.inference.fit import FitResult
+from lensdelay.inference.misfit import ModelError
+from lensdelay.inference.sampling import Chain
+from lensdelay.atomic import load_npz
+from lensdelay.io.reading import load_scenario, self_contained_document
+from lensdelay.io.storage import json_ready, write_output_set
+from lensdelay.model.simulate import to_toml
+from lensdelay.version import __version__
+
+#: What ``lens.json`` says it is (a folder of forecast outputs is not a prepared lens).
+KIND = "lensdelay prepared lens"
+
+
+def _sha(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def write_prepared(out, prepared: PreparedLens, scenario_path, model_path=None) -> list[str]:
+    """Write ``prepared`` into folder ``out`` as one set (atomically; inputs untouched)."""
+    doc, files = self_contained_document(scenario_path, model_path)
+    scenario_text = to_toml(doc)
+    fit, chain = prepared.fit, prepared.chain
+    err = fit.model_error
+    meta = {
+        "kind": KIND,
+        "tool": "lensdelay",
+        "version": __version__,
+        "source": str(scenario_path),
+        "model_label": prepared.scenario.model.label,
+        "seed": prepared.seed,
+        "walkers": prepared.walkers,
+        "steps": prepared.steps,
+        "prior": prepared.prior,
+        "sha256": {"scenario.toml": _sha(scenario_text.encode("utf-8"))}
+        | {name: _sha(data) for name, data in files.items()},
+        "fit": {
+            "model_label": fit.model_label,
+            "names": list(fit.names),
+            "chi2": fit.chi2,
+            "n_constraints": fit.n_constraints,
+            "n_parameters": fit.n_parameters,
+            "residuals_mas": fit.residuals_mas,
+            "unobserved_images": fit.unobserved_images,
+            "at_bounds": list(fit.at_bounds),
+            "success": bool(fit.success),
+            "message": fit.message,
+            "notes": list(fit.notes),
+            "model_error": None
+            if err is None
+            else {
+                "floor_arcsec": err.floor_arcsec,
+                "chi2": err.chi2,
+                "dof": err.dof,
+                "p_value": err.p_value,
+            },
+        },
+        "chain": {
+            "names": list(chain.names),
+            "burn": chain.burn,
+            "thin": chain.thin,
+            "seed": chain.seed,
+            "move": chain.move,
+            "warnings": list(chain.warnings),
+            "draws": chain.draws,
+            "effective_samples": chain.effective_samples,
+        },
+        "watched_families": len(prepared.watched),
+    }
+    arrays = {
+        "chain": chain.chain,
+        "log_prob": chain.log_prob,
+        "acceptance": np.asarray(chain.acceptance, dtype=float),
+        "autocorr": np.asarray(chain.autocorr, dtype=float),
+        "rhat": np.asarray(chain.rhat, dtype=float),
+        "fit_values": np.asarray(fit.values, dtype=float),
+        "fit_errors": np.asarray(fit.errors, dtype=float),
+    }
+    if fit.covariance is not None:
+        arrays["fit_covariance"] = np.asarray(fit.covariance, dtype=float)
+    for k, (x, y) in enumerate(prepared.watched):
+        arrays[f"watched_{k}_x"] = np.asarray(x, dtype=float)
+        arrays[f"watched_{k}_y"] = np.asarray(y, dtype=float)
+    return write_output_set(
+        out,
+        json_name="lens.json",
+        doc=json_ready(meta),
+        texts={"scenario.toml": scenario_text},
+        binaries=files,
+        arrays={"chain.npz": arrays},
+        inputs=[p for p in (scenario_path, model_path) if p is not None],
+    )
+
+
+def is_prepared(path) -> bool:
+    """Whether ``path`` is a folder holding a prepared lens."""
+    return Path(path).is_dir() and (Path(path) / "lens.json").is_file()
+
+
+def read_prepared(folder) -> PreparedLens:
+    """The prepared lens in ``folder``; every problem is one :class:`InputError` line."""
+    from dataclasses import replace
+
+    folder = Path(folder)
+    where = str(folder / "lens.json")
+    try:
+        meta = json.loads((folder / "lens.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError) as err:
+        raise InputError(f"must be a prepared lens's JSON, got an unreadable file ({err})", where)
+    if not isinstance(meta, dict) or meta.get("kind") != KIND:
+        raise InputError(f"kind must be {KIND!r}, got {meta.get('kind')!r}", where)
+    if meta.get("version") != __version__:
+        raise InputError(
+            f"version must be {__version__} (prepare the lens again with this version), "
+            f"got {meta.get('version')!r}",
+            where,
+        )
+    for name, digest in meta.get("sha256", {}).items():
+        path = folder / name
+        if not path.is_file() or _sha(path.read_bytes()) != digest:
+            raise InputError(
+                f"sha256 of {name} must match the one recorded when the lens was prepared "
+                "(the folder was changed since)",
+                where,
+            )
+    scenario, _ = load_scenario(folder / "scenario.toml")
+    scenario = replace(scenario, model=replace(scenario.model, label=meta["model_label"]))
+    a = load_npz(folder / "chain.npz")
+    f = meta["fit"]
+    err = f["model_error"]
+    fit = FitResult(
+        f["model_label"],
+        list(f["names"]),
+        a["fit_values"],
+        a["fit_errors"],
+        float(f["chi2"]),
+        int(f["n_constraints"]),
+        int(f["n_parameters"]),
+        f["residuals_mas"],
+        f["unobserved_images"],
+        list(f["at_bounds"]),
+        bool(f["success"]),
+        f["message"],
+        a.get("fit_covariance"),
+        list(f["notes"]),
+        None if err is None else ModelError(**err),
+    )
+    c = meta["chain"]
+    chain = Chain(
+        list(c["names"]),
+        a["chain"],
+        a["log_prob"],
+        a["acceptance"],
+        a["autocorr"],
+        int(c["burn"]),
+        int(c["thin"]),
+        int(c["seed"]),
+        list(c["warnings"]),
+        c["move"],
+        a["rhat"],
+        draws=c["draws"],
+        effective_samples=c["effective_samples"],
+    )
+    watched = [
+        (a[f"watched_{k}_x"], a[f"watched_{k}_y"]) for k in range(int(meta["watched_families"]))
+    ]
+    return PreparedLens(
+        scenario,
+        fit,
+        chain,
+        watched,
+        int(meta["seed"]),
+        int(meta["walkers"]),
+        int(meta["steps"]),
+        meta["prior"],
+    )
