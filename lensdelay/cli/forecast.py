@@ -86,34 +86,42 @@ def _from_scratch(args, now):
     )
 
 
-def _write(args, out, res) -> int:
-    """Build every output, then print and write them as one set."""
-    # build everything before writing anything
+def write_forecast(out, res, report: bool = False) -> dict:
+    """Build every output of forecast ``res`` first, then write them into ``out`` as one set.
+
+    Returns the forecast's JSON document (as written).
+    """
     doc = forecast_json(res)
-    ecsv = table_text(forecast_table(res))
-    ics = forecast_ics(res)
+    texts = {"forecast.ecsv": table_text(forecast_table(res)), "forecast.ics": forecast_ics(res)}
+    figs = {"timeline": timeline_figure(res), "sky": finder_chart(res)}
+    if res.budget is not None:
+        figs["budget"] = budget_figure(res.budget)
+    regions = region_text(res)
+    if regions is not None:
+        texts["sky.reg"] = regions
+    if report:
+        from lensdelay.report.html import report_html
+
+        pngs = {stem: figure_bytes(fig) for stem, fig in figs.items()}
+        texts["report.html"] = report_html(forecast=json_ready(doc), figures=pngs)
+    write_output_set(
+        out,
+        json_name="forecast.json",
+        doc=doc,
+        figures=figs,
+        texts=texts,
+        inputs=res.provenance["inputs"],
+    )
+    return doc
+
+
+def _write(args, out, res) -> int:
+    """Print the forecast and write every output as one set."""
     text = res.report()
     if out is not None:
-        figs = {"timeline": timeline_figure(res), "sky": finder_chart(res)}
-        if res.budget is not None:
-            figs["budget"] = budget_figure(res.budget)
-        texts = {"forecast.ecsv": ecsv, "forecast.ics": ics}
-        regions = region_text(res)
-        if regions is not None:
-            texts["sky.reg"] = regions
-        if args.report:
-            from lensdelay.report.html import report_html
-
-            pngs = {stem: figure_bytes(fig) for stem, fig in figs.items()}
-            texts["report.html"] = report_html(forecast=json_ready(doc), figures=pngs)
-        write_output_set(
-            out,
-            json_name="forecast.json",
-            doc=doc,
-            figures=figs,
-            texts=texts,
-            inputs=res.provenance["inputs"],
-        )
+        write_forecast(out, res, report=args.report)
+    else:
+        forecast_json(res)  # the same checks as with files, even when none are written
     print(text)
     if out is not None:
         print(

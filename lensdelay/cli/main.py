@@ -13,14 +13,25 @@ import sys
 import threading
 import warnings
 
-from lensdelay.cli import check, delays, fit, forecast, hubble, images, maps, prepare, report
+from lensdelay.cli import (
+    batch,
+    check,
+    delays,
+    fit,
+    forecast,
+    hubble,
+    images,
+    maps,
+    prepare,
+    report,
+)
 from lensdelay.cli.options import with_flags
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
 from lensdelay.inference.sampling import StopRequest
 from lensdelay.io.storage import PartialOutputError
 from lensdelay.version import __version__
 
-SUBCOMMANDS = (images, check, fit, delays, prepare, forecast, hubble, maps, report)
+SUBCOMMANDS = (images, check, fit, delays, prepare, forecast, batch, hubble, maps, report)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -74,7 +85,7 @@ def _stop_handler(stop: StopRequest):
     return terminate
 
 
-def _configure_libraries() -> None:
+def configure_libraries() -> None:
     """Process-wide settings the command line (not the library) makes."""
     import logging
 
@@ -107,7 +118,7 @@ def main(argv=None) -> int:
     args.stop = stop
     try:
         with warnings.catch_warnings():
-            _configure_libraries()
+            configure_libraries()
             warnings.simplefilter("default", LensdelayWarning)
             warnings.showwarning = _show_warning
             _show_warning.shown = set()

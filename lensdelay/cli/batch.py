@@ -1,0 +1,329 @@
+"""``lensdelay batch``: one forecast per system of a catalogue, and a summary to triage them.
+
+The catalogue is a folder of scenario files (``*.toml``) and/or prepared lenses (folders
+from ``lensdelay prepare``). Each system is forecast with its own seed, derived from the
+base seed and the system's name, so the result does not depend on which engine ran it or
+in what order: serially, on a local process pool (``--workers N``) or on a Dask cluster
+(``--scheduler ADDRESS``; the optional extra ``lensdelay[distributed]``). Each system's
+outputs are written as one set into ``OUT/<system>/`` (``forecast.json`` last); a rerun
+skips the systems whose ``forecast.json`` exists, so an interrupted batch resumes.
+A system that fails is recorded in the summary with its one-line error and does not stop
+the others.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import zlib
+from pathlib import Path
+
+import numpy as np
+
+from lensdelay.errors import InputError
+
+#: Triage (README): a system is ranked when its next image is observable on at least
+#: this share of the nights in its 95% window, no fainter than TRIAGE_DEPTH (the
+#: forecast's default depth) and its delay after the image seen at least
+#: TRIAGE_MIN_DELAY days (shorter delays cannot be measured from nightly light curves:
+#: common practice); ranked systems are ordered by the median date of that next image.
+TRIAGE_OBSERVABLE = 0.5
+TRIAGE_DEPTH = 25.0
+TRIAGE_MIN_DELAY = 2.0
+SUMMARY = "summary.ecsv"
+
+
+def list_systems(catalogue) -> list[tuple[str, Path]]:
+    """(name, path) of every scenario file and prepared lens in ``catalogue``, by name."""
+    from lensdelay.io.prepared_files import is_prepared
+
+    folder = Path(catalogue)
+    if not folder.is_dir():
+        raise InputError(
+            "must be a folder of scenario files and/or prepared lenses, got "
+            + ("a file" if folder.exists() else "nothing there"),
+            str(folder),
+        )
+    systems = {}
+    for path in sorted(folder.iterdir()):
+        if path.is_file() and path.suffix == ".toml":
+            name = path.stem
+        elif is_prepared(path):
+            name = path.name
+        else:
+            continue
+        if name in systems:
+            raise InputError(
+                f"system names must be unique, got {name!r} as {systems[name].name} and "
+                f"{path.name}",
+                str(folder),
+            )
+        systems[name] = path
+    if not systems:
+        raise InputError(
+            "must hold at least one scenario (*.toml) or prepared lens, got none", str(folder)
+        )
+    return sorted(systems.items())
+
+
+def system_seed(name: str, seed: int) -> int:
+    """The seed of system ``name``: the base seed and the name's CRC-32, through SeedSequence."""
+    state = np.random.SeedSequence([int(seed), zlib.crc32(name.encode("utf-8"))]).generate_state(1)
+    return int(state[0])
+
+
+def forecast_one(name: str, path: str, out: str, seed: int, options: dict) -> dict:
+    """Forecast one system and write its outputs; never raises (a failure is a row)."""
+    import warnings
+
+    from lensdelay.api import forecast_prepared, forecast_scenario
+    from lensdelay.cli.forecast import write_forecast
+    from lensdelay.errors import LensdelayError, LensdelayWarning
+    from lensdelay.io.prepared_files import is_prepared
+
+    from lensdelay.cli.main import configure_libraries
+
+    configure_libraries()  # in a worker process too: no downloads, no time-library noise
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", LensdelayWarning)
+            if is_prepared(path):
+                # a prepared lens keeps the sampler settings and prior it was drawn with
+                kept = ("walkers", "steps", "prior")
+                res = forecast_prepared(
+                    path, seed=seed, **{k: v for k, v in options.items() if k not in kept}
+                )
+            else:
+                res = forecast_scenario(path, seed=seed, **options)
+            doc = write_forecast(Path(out) / name, res)
+        return summary_row(name, doc)
+    except (LensdelayError, KeyboardInterrupt) as err:
+        if isinstance(err, KeyboardInterrupt):
+            raise
+        return failed_row(name, str(err).splitlines()[0] if str(err) else type(err).__name__)
+    except Exception as err:  # one system's bug must not stop the others; it is reported
+        return failed_row(
+            name, f"{type(err).__name__}: {str(err).splitlines()[0] if str(err) else ''}"
+        )
+
+
+def failed_row(name: str, message: str) -> dict:
+    """The summary row of a system whose forecast failed."""
+    return {"system": name, "status": f"failed: {message}"}
+
+
+def summary_row(name: str, doc: dict) -> dict:
+    """One summary row from a forecast's JSON: the next image ahead and the triage facts."""
+    ahead = [im for im in doc["images"] if im["status"] in ("now", "future")]
+    row = {"system": name, "status": "ok"}
+    if not ahead:
+        return {**row, "triage": "no image ahead"}
+    nxt = min(ahead, key=lambda im: im["date"]["median"])
+    obs = nxt.get("observability") or {}
+    mag = nxt.get("magnitude") or {}
+    row.update(
+        {
+            "next_image": f"{nxt['family']}/{nxt['label']}",
+            "date_median": nxt["date"]["median"],
+            "date_p16": nxt["date"]["p16"],
+            "date_p84": nxt["date"]["p84"],
+            "date_p2.5": nxt["date"]["p2.5"],
+            "date_p97.5": nxt["date"]["p97.5"],
+            "p_observable": obs.get("probability_observable"),
+            "magnitude": mag.get("median"),
+            "delay_days": nxt["delay_days"]["median"],
+        }
+    )
+    if row["p_observable"] is not None and row["p_observable"] < TRIAGE_OBSERVABLE:
+        row["triage"] = "rarely observable"
+    elif row["magnitude"] is not None and row["magnitude"] > TRIAGE_DEPTH:
+        row["triage"] = f"fainter than {TRIAGE_DEPTH:g} mag"
+    elif abs(row["delay_days"]) < TRIAGE_MIN_DELAY:
+        row["triage"] = f"delay under {TRIAGE_MIN_DELAY:g} d"
+    else:
+        row["triage"] = "ranked"
+    return row
+
+
+def summary_table(rows: list[dict]):
+    """The summary as an astropy Table, ranked (rank 0: not ranked)."""
+    from astropy.table import MaskedColumn, Table
+
+    ranked = sorted(
+        (r for r in rows if r.get("triage") == "ranked"), key=lambda r: r["date_median"]
+    )
+    rank = {r["system"]: k + 1 for k, r in enumerate(ranked)}
+    rows = sorted(rows, key=lambda r: (rank.get(r["system"], len(rows) + 1), r["system"]))
+    table = Table()
+    table["rank"] = [rank.get(r["system"], 0) for r in rows]
+    table["system"] = [r["system"] for r in rows]
+    table["status"] = [r["status"] for r in rows]
+    table["triage"] = [r.get("triage", "failed") for r in rows]
+    for key in (
+        "next_image",
+        "date_median",
+        "date_p16",
+        "date_p84",
+        "date_p2.5",
+        "date_p97.5",
+    ):
+        values = [r.get(key) for r in rows]
+        table[key] = MaskedColumn([v or "" for v in values], mask=[v is None for v in values])
+    for key, unit in (("p_observable", None), ("magnitude", "mag"), ("delay_days", "d")):
+        values = [r.get(key) for r in rows]
+        table[key] = MaskedColumn(
+            [np.nan if v is None else float(v) for v in values],
+            mask=[v is None for v in values],
+            unit=unit,
+        )
+    table.meta["triage_rule"] = (
+        f"ranked when the next image is observable on >= {TRIAGE_OBSERVABLE:g} of its 95% "
+        f"window, no fainter than {TRIAGE_DEPTH:g} mag and >= {TRIAGE_MIN_DELAY:g} d after "
+        "the image seen; ranked systems by the next image's median date"
+    )
+    return table
+
+
+def _engine(jobs, workers: int, scheduler: str | None):
+    """Yield each job's row as it completes: serial, a process pool or a Dask cluster."""
+    if scheduler:
+        try:
+            from dask.distributed import Client, as_completed
+        except ImportError as err:
+            raise InputError(
+                "--scheduler needs Dask (pip install 'lensdelay[distributed]'), got no dask"
+            ) from err
+        try:
+            client = Client(scheduler, timeout=30)
+        except OSError as err:
+            raise InputError(f"--scheduler {scheduler!r} could not be reached ({err})") from err
+        with client:
+            futures = [client.submit(forecast_one, *job, pure=False) for job in jobs]
+            try:
+                for future in as_completed(futures):
+                    yield future.result()
+            finally:
+                client.cancel(futures)
+        return
+    if workers <= 1:
+        for job in jobs:
+            yield forecast_one(*job)
+        return
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
+    futures = [pool.submit(forecast_one, *job) for job in jobs]
+    try:
+        for future in as_completed(futures):
+            yield future.result()
+    finally:
+        # on an interruption the running systems finish their (atomic) writes; the rest
+        # are not started
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def run(args) -> int:
+    """Forecast every system of the catalogue not forecast yet, then write the summary."""
+    from lensdelay.cli.options import output_folder, site_from_args
+    from lensdelay.io.storage import atomic_write_text
+    from lensdelay.model.scenario import parse_date
+
+    systems = list_systems(args.catalogue)
+    out = output_folder(args.out) or Path(args.catalogue).with_name(
+        Path(args.catalogue).name + "-forecasts"
+    )
+    if args.workers < 1:
+        raise InputError(f"--workers must be at least 1, got {args.workers}")
+    now = parse_date(args.now, "--now") if args.now is not None else None
+    options = {
+        "n_samples": args.samples,
+        "h0": args.h0,
+        "kappa_ext": args.kappa_ext,
+        "site": site_from_args(args),
+        "now": now,
+        "walkers": args.walkers,
+        "steps": args.steps,
+        "prior": args.prior,
+    }
+    options = {k: v for k, v in options.items() if v is not None}
+    rows, jobs = [], []
+    for name, path in systems:
+        done = out / name / "forecast.json"
+        if done.is_file():
+            rows.append(summary_row(name, json.loads(done.read_text(encoding="utf-8"))))
+        else:
+            jobs.append((name, str(path), str(out), system_seed(name, args.seed), options))
+    bar = None
+    if not args.quiet and jobs:
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(jobs), unit="system", desc="batch", file=sys.stderr)
+    interrupted = False
+    try:
+        for row in _engine(jobs, args.workers, args.scheduler):
+            rows.append(row)
+            if bar is not None:
+                bar.update(1)
+            if args.stop is not None and args.stop.requested:
+                raise KeyboardInterrupt
+    except KeyboardInterrupt:
+        # every finished system's outputs are complete (written as one set); the summary
+        # lists them, and a rerun forecasts only the others
+        interrupted = True
+    finally:
+        if bar is not None:
+            bar.close()
+    table = summary_table(rows)
+    import io
+
+    buffer = io.StringIO()
+    table.write(buffer, format="ascii.ecsv")
+    atomic_write_text(out / SUMMARY, buffer.getvalue())
+    if interrupted:
+        print(
+            f"lensdelay: interrupted after {len(rows)} of {len(systems)} systems; "
+            f"{out / SUMMARY} lists those; run the same command again to forecast the rest",
+            file=sys.stderr,
+        )
+        return 130
+    failed = sum(1 for r in rows if r["status"] != "ok")
+    print(
+        f"{len(rows)} systems ({len(rows) - len(jobs)} done before, {len(jobs)} now), "
+        f"{failed} failed; ranked: {int(np.sum(table['rank'] > 0))}"
+    )
+    for r in table[table["rank"] > 0][:10]:
+        print(
+            f"  {r['rank']:3d}  {r['system']:<24} next {r['next_image']} on "
+            f"{r['date_median'][:10]} (95%: {r['date_p2.5'][:10]} .. "
+            f"{r['date_p97.5'][:10]}), {r['magnitude']:.1f} mag"
+        )
+    print(f"wrote {out / SUMMARY}", file=sys.stderr)
+    return 0
+
+
+def register(sub) -> None:
+    """Add the ``batch`` sub-command to the parser."""
+    from lensdelay.cli.options import add_prior_argument, number
+
+    p = sub.add_parser("batch", help="forecast every system of a catalogue; rank them")
+    p.add_argument("catalogue", help="folder of scenario files and/or prepared lenses")
+    p.add_argument("--out", help="folder for one sub-folder per system and summary.ecsv")
+    p.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
+    p.add_argument(
+        "--scheduler", metavar="ADDRESS", help="run on this Dask scheduler (tcp://host:port)"
+    )
+    p.add_argument("--samples", type=int, default=20000, help="forecast samples (default 20000)")
+    p.add_argument("--seed", type=int, default=1, help="base seed (default 1)")
+    p.add_argument("--h0", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="H0 prior")
+    p.add_argument(
+        "--kappa-ext", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="κ_ext prior"
+    )
+    p.add_argument("--now", metavar="DATE", help="judge past/now/future as of this date")
+    p.add_argument("--site", nargs=3, type=number, metavar=("LAT", "LON", "HEIGHT"))
+    p.add_argument("--elongation", nargs=2, type=number, metavar=("MIN", "MAX"))
+    p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
+    p.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")
+    add_prior_argument(p)
+    p.add_argument("--quiet", action="store_true", help="no progress display")
+    p.set_defaults(func=run)
