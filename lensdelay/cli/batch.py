@@ -81,7 +81,7 @@ def forecast_one(name: str, path: str, out: str, seed: int, options: dict) -> di
     from lensdelay.errors import LensdelayError, LensdelayWarning
     from lensdelay.io.prepared_files import is_prepared
 
-    from lensdelay.cli.main import configure_libraries
+    from lensdelay.cli.libraries import configure_libraries
 
     configure_libraries()  # in a worker process too: no downloads, no time-library noise
     try:
@@ -320,8 +320,20 @@ def register(sub) -> None:
         "--kappa-ext", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="κ_ext prior"
     )
     p.add_argument("--now", metavar="DATE", help="judge past/now/future as of this date")
-    p.add_argument("--site", nargs=3, type=number, metavar=("LAT", "LON", "HEIGHT"))
-    p.add_argument("--elongation", nargs=2, type=number, metavar=("MIN", "MAX"))
+    p.add_argument(
+        "--site",
+        nargs=3,
+        type=number,
+        metavar=("LAT", "LON", "HEIGHT"),
+        help="ground site for every system (degrees, degrees East, metres)",
+    )
+    p.add_argument(
+        "--elongation",
+        nargs=2,
+        type=number,
+        metavar=("MIN", "MAX"),
+        help="space observatory: allowed solar elongation range, degrees",
+    )
     p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
     p.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")
     add_prior_argument(p)
