@@ -205,7 +205,7 @@ def _engine(jobs, workers: int, scheduler: str | None):
             finally:
                 client.cancel(futures)
         return
-    if workers <= 1:
+    if workers <= 1 or len(jobs) <= 1:
         for job in jobs:
             yield forecast_one(*job)
         return
@@ -233,6 +233,10 @@ def run(args) -> int:
     out = output_folder(args.out) or Path(args.catalogue).with_name(
         Path(args.catalogue).name + "-forecasts"
     )
+    if args.workers is None:
+        import os
+
+        args.workers = os.cpu_count() or 1
     if args.workers < 1:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
     now = parse_date(args.now, "--now") if args.now is not None else None
@@ -309,7 +313,11 @@ def register(sub) -> None:
     p = sub.add_parser("batch", help="forecast every system of a catalogue; rank them")
     p.add_argument("catalogue", help="folder of scenario files and/or prepared lenses")
     p.add_argument("--out", help="folder for one sub-folder per system and summary.ecsv")
-    p.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
+    p.add_argument(
+        "--workers",
+        type=int,
+        help="local worker processes (default: one per CPU; 1 runs the systems in this process)",
+    )
     p.add_argument(
         "--scheduler", metavar="ADDRESS", help="run on this Dask scheduler (tcp://host:port)"
     )
