@@ -308,7 +308,7 @@ def run(args) -> int:
 
 def register(sub) -> None:
     """Add the ``batch`` sub-command to the parser."""
-    from lensdelay.cli.options import add_prior_argument, number
+    from lensdelay.cli.options import add_prior_argument, add_site_arguments, number
 
     p = sub.add_parser("batch", help="forecast every system of a catalogue; rank them")
     p.add_argument("catalogue", help="folder of scenario files and/or prepared lenses")
@@ -328,20 +328,7 @@ def register(sub) -> None:
         "--kappa-ext", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="κ_ext prior"
     )
     p.add_argument("--now", metavar="DATE", help="judge past/now/future as of this date")
-    p.add_argument(
-        "--site",
-        nargs=3,
-        type=number,
-        metavar=("LAT", "LON", "HEIGHT"),
-        help="ground site for every system (degrees, degrees East, metres)",
-    )
-    p.add_argument(
-        "--elongation",
-        nargs=2,
-        type=number,
-        metavar=("MIN", "MAX"),
-        help="space observatory: allowed solar elongation range, degrees",
-    )
+    add_site_arguments(p)  # for every system (default: each scenario's own [site])
     p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
     p.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")
     add_prior_argument(p)

@@ -7,7 +7,13 @@ import sys
 from lensdelay.api import forecast_prepared, forecast_scenario
 from lensdelay.io.prepared_files import is_prepared
 from lensdelay.errors import InputError
-from lensdelay.cli.options import add_prior_argument, number, output_folder, site_from_args
+from lensdelay.cli.options import (
+    add_prior_argument,
+    add_site_arguments,
+    number,
+    output_folder,
+    site_from_args,
+)
 from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
 from lensdelay.io.storage import figure_bytes, json_ready, write_output_set
 from lensdelay.model.scenario import parse_date
@@ -41,23 +47,7 @@ def _from_prepared(args, now):
                 f"{flag} cannot be used with a prepared lens (it was fitted with its model "
                 f"and data when prepared), got {value!r}"
             )
-    return forecast_prepared(
-        args.scenario,
-        args.transient,
-        budget=args.budget,
-        n_samples=args.samples,
-        seed=args.seed,
-        h0=args.h0,
-        cosmology_name=args.cosmology,
-        kappa_ext=args.kappa_ext,
-        microlensing=args.microlensing,
-        depth=args.depth,
-        seen=args.seen,
-        site=site_from_args(args),
-        progress=not args.quiet,
-        stop=args.stop,
-        now=now,
-    )
+    return forecast_prepared(args.scenario, args.transient, **_shared_options(args, now))
 
 
 def _from_scratch(args, now):
@@ -65,25 +55,35 @@ def _from_scratch(args, now):
     return forecast_scenario(
         args.scenario,
         args.model,
-        budget=args.budget,
         delays=args.delays,
-        n_samples=args.samples,
-        seed=args.seed,
-        h0=args.h0,
-        cosmology_name=args.cosmology,
-        kappa_ext=args.kappa_ext,
-        microlensing=args.microlensing,
-        depth=args.depth,
         weighting=args.weights,
-        seen=args.seen,
-        site=site_from_args(args),
         walkers=args.walkers,
         steps=args.steps,
-        progress=not args.quiet,
         prior=args.prior,
-        stop=args.stop,
-        now=now,
+        **_shared_options(args, now),
     )
+
+
+def _shared_options(args, now) -> dict:
+    """The options a forecast takes alike from a scenario and from a prepared lens.
+
+    (A prepared lens keeps the sampler settings and prior it was drawn with.)
+    """
+    return {
+        "budget": args.budget,
+        "n_samples": args.samples,
+        "seed": args.seed,
+        "h0": args.h0,
+        "cosmology_name": args.cosmology,
+        "kappa_ext": args.kappa_ext,
+        "microlensing": args.microlensing,
+        "depth": args.depth,
+        "seen": args.seen,
+        "site": site_from_args(args),
+        "progress": not args.quiet,
+        "stop": args.stop,
+        "now": now,
+    }
 
 
 def write_forecast(out, res, report: bool = False) -> dict:
@@ -194,20 +194,7 @@ def register(sub) -> None:
         metavar="DATE",
         help="judge past/now/future as of this ISO 8601 UTC date (default: the current time)",
     )
-    p.add_argument(
-        "--site",
-        nargs=3,
-        type=number,
-        metavar=("LAT", "LON", "HEIGHT"),
-        help="ground site (degrees, degrees East, metres)",
-    )
-    p.add_argument(
-        "--elongation",
-        nargs=2,
-        type=number,
-        metavar=("MIN", "MAX"),
-        help="space observatory: allowed solar elongation range, degrees",
-    )
+    add_site_arguments(p)
     p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
     add_prior_argument(p)
     p.add_argument(

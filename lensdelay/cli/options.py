@@ -109,6 +109,24 @@ def add_prior_argument(parser) -> None:
     )
 
 
+def add_site_arguments(parser) -> None:
+    """``--site`` and ``--elongation`` (read by :func:`site_from_args`): forecast and batch."""
+    parser.add_argument(
+        "--site",
+        nargs=3,
+        type=number,
+        metavar=("LAT", "LON", "HEIGHT"),
+        help="ground site (degrees, degrees East, metres)",
+    )
+    parser.add_argument(
+        "--elongation",
+        nargs=2,
+        type=number,
+        metavar=("MIN", "MAX"),
+        help="space observatory: allowed solar elongation range, degrees",
+    )
+
+
 def site_from_args(args) -> Site | None:
     """``--site LAT LON HEIGHT`` or ``--elongation MIN MAX`` as a Site (None if neither)."""
     if args.site is not None and args.elongation is not None:
