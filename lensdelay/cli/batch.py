@@ -13,6 +13,7 @@ the others.
 
 from __future__ import annotations
 
+import io
 import json
 import sys
 import zlib
@@ -97,14 +98,17 @@ def forecast_one(name: str, path: str, out: str, seed: int, options: dict) -> di
                 res = forecast_scenario(path, seed=seed, **options)
             doc = write_forecast(Path(out) / name, res)
         return summary_row(name, doc)
-    except (LensdelayError, KeyboardInterrupt) as err:
-        if isinstance(err, KeyboardInterrupt):
-            raise
-        return failed_row(name, str(err).splitlines()[0] if str(err) else type(err).__name__)
+    except LensdelayError as err:  # bad input of this system: its one line
+        return failed_row(name, _first_line(err))
     except Exception as err:  # one system's bug must not stop the others; it is reported
-        return failed_row(
-            name, f"{type(err).__name__}: {str(err).splitlines()[0] if str(err) else ''}"
-        )
+        return failed_row(name, f"{type(err).__name__}: {_first_line(err)}")
+    # (a KeyboardInterrupt is no Exception: an interruption stops the whole batch)
+
+
+def _first_line(err: BaseException) -> str:
+    """The first line of an error's message (its type's name when it has none)."""
+    text = str(err)
+    return text.splitlines()[0] if text else type(err).__name__
 
 
 def failed_row(name: str, message: str) -> dict:
@@ -279,8 +283,6 @@ def run(args) -> int:
         if bar is not None:
             bar.close()
     table = summary_table(rows)
-    import io
-
     buffer = io.StringIO()
     table.write(buffer, format="ascii.ecsv")
     atomic_write_text(out / SUMMARY, buffer.getvalue())

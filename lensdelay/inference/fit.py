@@ -173,22 +173,9 @@ def _source_plane_residuals(like: ImageLikelihood, rows: np.ndarray) -> np.ndarr
     lens = like.lens_for(rows)
     out = []
     for k, fam in enumerate(like.families):
-        src = rows[:, like.source_slice(k)]
-        scale = like.family_scale(k, rows)
-        with np.errstate(all="ignore"):
-            sx, sy = lens.source_position(fam.x[None, :], fam.y[None, :], scale)
-            a11, a12, a22 = lens.jacobian(fam.x[None, :], fam.y[None, :], scale)
-            det = a11 * a22 - a12 * a12
-            rx, ry = sx - src[:, :1], sy - src[:, 1:]
-            out += [
-                (a22 * rx - a12 * ry) / det / fam.sigma,
-                (a11 * ry - a12 * rx) / det / fam.sigma,
-            ]
-    for i, (mean, sig) in {**like.priors, **like.centre_prior}.items():
-        diff = rows[:, i] - mean
-        if like.periods[i]:  # an angle: about the nearest equivalent mean
-            diff = (diff + like.periods[i] / 2) % like.periods[i] - like.periods[i] / 2
-        out.append((diff / sig)[:, None])
+        beta = rows[:, like.source_slice(k)]
+        out += like.source_plane_offsets(lens, fam, like.family_scale(k, rows), beta)
+    out += like.prior_residuals(rows)
     r = np.hstack([np.broadcast_to(o, (len(rows), o.shape[1])) for o in out])
     return np.where(np.isfinite(r), r, 1e6)
 

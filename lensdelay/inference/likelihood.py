@@ -559,14 +559,7 @@ class ImageLikelihood:
             dy = (pred["y"] - fam.y) / fam.sigma
             # where no image was found: the magnification-weighted source-plane offset,
             # plus a large constant so that a missing image always costs more than any fit
-            lens, scale = pred["lens"], pred["scale"]
-            with np.errstate(all="ignore"):
-                sbx, sby = lens.source_position(fam.x[None, :], fam.y[None, :], scale)
-                a11, a12, a22 = lens.jacobian(fam.x[None, :], fam.y[None, :], scale)
-                det = a11 * a22 - a12 * a12
-                rx, ry = sbx - pred["beta"][:, :1], sby - pred["beta"][:, 1:]
-                fx = (a22 * rx - a12 * ry) / det / fam.sigma
-                fy = (a11 * ry - a12 * rx) / det / fam.sigma
+            fx, fy = self.source_plane_offsets(pred["lens"], fam, pred["scale"], pred["beta"])
             near = pred["near"]
             bad = ~pred["ok"] & ~near
             dx = np.where(near, fx, dx)
@@ -574,11 +567,7 @@ class ImageLikelihood:
             dx = np.where(bad, MISSING_IMAGE_PENALTY + np.nan_to_num(np.abs(fx), posinf=1e6), dx)
             dy = np.where(bad, MISSING_IMAGE_PENALTY + np.nan_to_num(np.abs(fy), posinf=1e6), dy)
             parts += [dx, dy]
-        for i, (mean, sig) in {**self.priors, **self.centre_prior}.items():
-            diff = params[:, i] - mean
-            if self.periods[i]:  # an angle: the prior is about the nearest equivalent mean
-                diff = (diff + self.periods[i] / 2) % self.periods[i] - self.periods[i] / 2
-            parts.append((diff / sig)[:, None])
+        parts += self.prior_residuals(params)
         parts += self._derived_residuals(
             params,
             [np.hstack([p["fermat"], p["track_fermat"]]) for p in preds],
@@ -586,6 +575,34 @@ class ImageLikelihood:
         )
         res = np.hstack(parts)
         return np.where(np.isfinite(res), res, 1e6)
+
+    @staticmethod
+    def source_plane_offsets(lens, fam: FamilyData, scale, beta: np.ndarray):
+        """Magnification-weighted source-plane offsets A⁻¹(β(θ_obs) − β)/σ, each (P, n_img).
+
+        The observed images mapped back with the lens equation, their offsets from the
+        source positions ``beta`` (P, 2) carried to the image plane by the inverse
+        magnification matrix: the image-plane misfit to first order.
+        """
+        with np.errstate(all="ignore"):
+            sbx, sby = lens.source_position(fam.x[None, :], fam.y[None, :], scale)
+            a11, a12, a22 = lens.jacobian(fam.x[None, :], fam.y[None, :], scale)
+            det = a11 * a22 - a12 * a12
+            rx, ry = sbx - beta[:, :1], sby - beta[:, 1:]
+            return (
+                (a22 * rx - a12 * ry) / det / fam.sigma,
+                (a11 * ry - a12 * rx) / det / fam.sigma,
+            )
+
+    def prior_residuals(self, params: np.ndarray) -> list[np.ndarray]:
+        """Columns (P, 1) of the Gaussian priors and the lens-light centre, in order."""
+        parts = []
+        for i, (mean, sig) in {**self.priors, **self.centre_prior}.items():
+            diff = params[:, i] - mean
+            if self.periods[i]:  # an angle: the prior is about the nearest equivalent mean
+                diff = (diff + self.periods[i] / 2) % self.periods[i] - self.periods[i] / 2
+            parts.append((diff / sig)[:, None])
+        return parts
 
     def _derived_residuals(self, params, fermat, mu) -> list[np.ndarray]:
         """Residual columns of timing data and flux ratios (those in use).

@@ -315,16 +315,15 @@ def sample(
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
     else:
         tau_max = float(np.max(tau[finite]))
+    burn = int(min(steps // 2, max(2 * tau_max, steps // 5)))
     if steps < 50 * tau_max and np.any(finite):
-        burn_in = int(min(steps // 2, max(2 * tau_max, steps // 5)))
-        fewest = chain.shape[1] * (steps - burn_in) / tau_max
+        fewest = chain.shape[1] * (steps - burn) / tau_max
         notes.append(
             f"chain of {steps} steps is shorter than 50 autocorrelation times "
             f"(max tau = {tau_max:.0f} steps; worth about {fewest:.0f} independent samples); "
             "run longer before trusting the tails"
         )
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
-    burn = int(min(steps // 2, max(2 * tau_max, steps // 5)))
     thin = max(1, int(tau_max // 4))
     rhat = potential_scale_reduction(chain[burn:])
     worst = int(np.nanargmax(rhat)) if np.any(np.isfinite(rhat)) else None

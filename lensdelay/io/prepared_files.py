@@ -123,7 +123,9 @@ def read_prepared(folder) -> PreparedLens:
     try:
         meta = json.loads((folder / "lens.json").read_text(encoding="utf-8"))
     except (OSError, ValueError) as err:
-        raise InputError(f"must be a prepared lens's JSON, got an unreadable file ({err})", where)
+        raise InputError(
+            f"must be a prepared lens's JSON, got an unreadable file ({err})", where
+        ) from err
     if not isinstance(meta, dict) or meta.get("kind") != KIND:
         raise InputError(f"kind must be {KIND!r}, got {meta.get('kind')!r}", where)
     if meta.get("version") != __version__:

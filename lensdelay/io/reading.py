@@ -63,6 +63,32 @@ def load_model(path: str | os.PathLike) -> tuple[MassModel, dict]:
     return model, doc
 
 
+def model_file(scenario_path: Path, ref: str) -> Path:
+    """Where a scenario's ``model = ref`` lives.
+
+    Next to the scenario, in the folder above it (where ``models/`` sits), or in the
+    working directory.
+    """
+    for base in (scenario_path.parent, scenario_path.parent.parent, Path.cwd()):
+        candidate = base / ref
+        if candidate.is_file():
+            return candidate
+    raise InputError(
+        f"model refers to {ref!r}, which does not exist next to the scenario "
+        "or in the working directory"
+    )
+
+
+def catalogue_file(scenario_path: Path, ref: str) -> Path:
+    """Where a scenario's ``[members] catalogue = ref`` lives: next to the scenario."""
+    candidate = scenario_path.parent / ref
+    if not candidate.is_file():
+        raise InputError(
+            f"members.catalogue refers to {ref!r}, which does not exist next to the scenario"
+        )
+    return candidate
+
+
 def load_scenario(path: str | os.PathLike, model_paths=None):
     """Read and validate a scenario; ``model_paths`` (a list) replaces its mass model.
 
@@ -77,22 +103,12 @@ def load_scenario(path: str | os.PathLike, model_paths=None):
     used = [path]
 
     def resolve(ref: str) -> MassModel:
-        for base in (path.parent, path.parent.parent, Path.cwd()):
-            candidate = base / ref
-            if candidate.is_file():
-                used.append(candidate)
-                return load_model(candidate)[0]
-        raise InputError(
-            f"model refers to {ref!r}, which does not exist next to the scenario "
-            "or in the working directory"
-        )
+        candidate = model_file(path, ref)
+        used.append(candidate)
+        return load_model(candidate)[0]
 
     def table(ref: str) -> dict:
-        candidate = path.parent / ref
-        if not candidate.is_file():
-            raise InputError(
-                f"members.catalogue refers to {ref!r}, which does not exist next to the scenario"
-            )
+        candidate = catalogue_file(path, ref)
         used.append(candidate)
         return read_table(candidate, "members.catalogue")
 
@@ -148,31 +164,18 @@ def self_contained_document(path: str | os.PathLike, model_path=None) -> tuple[d
     path = Path(path)
     doc = read_toml(path)
     files = {}
-    if model_path is not None or "model" in doc:
-        if model_path is not None:
-            candidate = Path(model_path)
-        else:
-            ref = doc["model"]
-            bases = (path.parent, path.parent.parent, Path.cwd())
-            found = [b / ref for b in bases if isinstance(ref, str) and (b / ref).is_file()]
-            if not found:
-                raise InputError(
-                    f"model refers to {ref!r}, which does not exist next to the scenario "
-                    "or in the working directory",
-                    str(path),
-                )
-            candidate = found[0]
-        doc = {k: v for k, v in doc.items() if k not in ("mass", "model")}
-        doc["mass"] = read_toml(candidate).get("mass", [])
-    members = doc.get("members")
-    if isinstance(members, dict) and isinstance(members.get("catalogue"), str):
-        source = path.parent / members["catalogue"]
-        if not source.is_file():
-            raise InputError(
-                f"members.catalogue refers to {members['catalogue']!r}, which does not exist "
-                "next to the scenario",
-                str(path),
-            )
+    try:
+        if model_path is not None or "model" in doc:
+            candidate = Path(model_path) if model_path else model_file(path, str(doc["model"]))
+            doc = {k: v for k, v in doc.items() if k not in ("mass", "model")}
+            doc["mass"] = read_toml(candidate).get("mass", [])
+        members = doc.get("members")
+        source = None
+        if isinstance(members, dict) and isinstance(members.get("catalogue"), str):
+            source = catalogue_file(path, members["catalogue"])
+    except InputError as err:
+        raise err.with_source(str(path)) from err.__cause__
+    if source is not None:
         name = "members" + (".ecsv" if source.suffix.lower() == ".ecsv" else ".csv")
         files[name] = source.read_bytes()
         doc["members"] = {**members, "catalogue": name}

@@ -317,16 +317,6 @@ class ImageFinder:
             )
         return self._mapped_cache[scale]
 
-    @property
-    def tri_bx(self) -> np.ndarray:
-        """Mapped triangle corners (x) at the first scale."""
-        return self._mapped(self.scale)[0]
-
-    @property
-    def tri_by(self) -> np.ndarray:
-        """Mapped triangle corners (y) at the first scale."""
-        return self._mapped(self.scale)[1]
-
     # -- search ---------------------------------------------------------------------
     def _candidates(self, beta_x, beta_y, scale, tolerance=0.15):
         tri_bx, tri_by = self._mapped(scale)
