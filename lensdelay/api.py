@@ -636,7 +636,8 @@ def forecast_prepared(prepared, transient: str | None = None, *, budget: bool = 
     if not hasattr(prepared, "chain"):
         folder = Path(prepared)
         prepared = read_prepared(folder)
-        inputs = [folder / "lens.json", folder / "chain.npz", folder / "scenario.toml"]
+        # the scenario first: it names the system (lensdelay.io.provenance.system_hash)
+        inputs = [folder / "scenario.toml", folder / "lens.json", folder / "chain.npz"]
     if transient is not None:
         prepared = with_transient(prepared, parse_transient(transient, prepared.scenario))
     for key in ("walkers", "steps", "prior"):

@@ -5,8 +5,11 @@ from ``lensdelay prepare``). Each system is forecast with its own seed, derived 
 base seed and the system's name, so the result does not depend on which engine ran it or
 in what order: serially, on a local process pool (``--workers N``) or on a Dask cluster
 (``--scheduler ADDRESS``; the optional extra ``lensdelay[distributed]``). Each system's
-outputs are written as one set into ``OUT/<system>/`` (``forecast.json`` last); a rerun
-skips the systems whose ``forecast.json`` exists, so an interrupted batch resumes.
+outputs are written as one set into ``OUT/<system>/`` (``forecast.json`` last), with a
+fingerprint of the system's input files and of every setting (``--now`` included: the
+day, when it is not given). A rerun skips a system whose ``forecast.json`` carries the
+same fingerprint, so an interrupted batch resumes; one whose inputs or settings changed,
+or whose outputs are unreadable, is forecast again, and the command says how many.
 A system that fails is recorded in the summary with its one-line error and does not stop
 the others.
 """
@@ -73,9 +76,59 @@ def system_seed(name: str, seed: int) -> int:
     return int(state[0])
 
 
-def forecast_one(name: str, path: str, out: str, seed: int, options: dict) -> dict:
+def system_files(path) -> list[Path]:
+    """Every file a system's forecast reads: a prepared lens's files, or a scenario's.
+
+    A scenario that cannot be read counts as its own file only (its forecast fails, and
+    that failure is the system's row).
+    """
+    from lensdelay.errors import LensdelayError
+    from lensdelay.io.reading import load_scenario
+
+    path = Path(path)
+    if path.is_dir():
+        return sorted(p for p in path.iterdir() if p.is_file() and not p.name.startswith("."))
+    try:
+        return [Path(p) for p in load_scenario(path)[1]]
+    except (LensdelayError, OSError):
+        return [path]
+
+
+def system_fingerprint(path, seed: int, settings: dict) -> str:
+    """The fingerprint of one system's forecast: its files, its seed and the settings."""
+    from lensdelay.io.provenance import fingerprint
+    from lensdelay.version import __version__
+
+    return fingerprint(
+        system_files(path), {**settings, "seed": int(seed), "version": __version__}
+    )
+
+
+def previous_row(name: str, done: Path, wanted: str) -> tuple[dict | None, str]:
+    """The summary row of a finished forecast in ``done`` if it is current, and why not.
+
+    Returns ``(row, "")`` when ``done`` holds a readable forecast.json with fingerprint
+    ``wanted``; otherwise ``(None, reason)`` (reason "" when there is no forecast yet).
+    """
+    if not done.is_file():
+        return None, ""
+    try:
+        doc = json.loads(done.read_text(encoding="utf-8"))
+        recorded = doc["provenance"].get("batch_fingerprint")
+        row = summary_row(name, doc)
+    except (OSError, ValueError, KeyError, TypeError, AttributeError, IndexError):
+        return None, "its forecast.json is unreadable or incomplete"
+    if recorded != wanted:
+        return None, "its inputs or the settings changed since"
+    return row, ""
+
+
+def forecast_one(
+    name: str, path: str, out: str, seed: int, options: dict, fingerprint: str = ""
+) -> dict:
     """Forecast one system and write its outputs; never raises (a failure is a row)."""
     import warnings
+    from dataclasses import replace
 
     from lensdelay.api import forecast_prepared, forecast_scenario
     from lensdelay.cli.forecast import write_forecast
@@ -96,6 +149,8 @@ def forecast_one(name: str, path: str, out: str, seed: int, options: dict) -> di
                 )
             else:
                 res = forecast_scenario(path, seed=seed, **options)
+            if fingerprint:
+                res = replace(res, provenance={**res.provenance, "batch_fingerprint": fingerprint})
             doc = write_forecast(Path(out) / name, res)
         return summary_row(name, doc)
     except LensdelayError as err:  # bad input of this system: its one line
@@ -138,9 +193,14 @@ def summary_row(name: str, doc: dict) -> dict:
             "delay_days": nxt["delay_days"]["median"],
         }
     )
-    if row["p_observable"] is not None and row["p_observable"] < TRIAGE_OBSERVABLE:
+    if row["p_observable"] is None:
+        # not known to be observable: no site, or no sky position (the forecast says which)
+        row["triage"] = "observability unknown"
+    elif row["p_observable"] < TRIAGE_OBSERVABLE:
         row["triage"] = "rarely observable"
-    elif row["magnitude"] is not None and row["magnitude"] > TRIAGE_DEPTH:
+    elif row["magnitude"] is None:
+        row["triage"] = "brightness unknown"
+    elif row["magnitude"] > TRIAGE_DEPTH:
         row["triage"] = f"fainter than {TRIAGE_DEPTH:g} mag"
     elif abs(row["delay_days"]) < TRIAGE_MIN_DELAY:
         row["triage"] = f"delay under {TRIAGE_MIN_DELAY:g} d"
@@ -149,8 +209,11 @@ def summary_row(name: str, doc: dict) -> dict:
     return row
 
 
-def summary_table(rows: list[dict]):
-    """The summary as an astropy Table, ranked (rank 0: not ranked)."""
+def summary_table(rows: list[dict], now: str | None = None):
+    """The summary as an astropy Table, ranked (rank 0: not ranked).
+
+    ``now`` (ISO) is the date the statuses were judged as of; it is kept in the meta.
+    """
     from astropy.table import MaskedColumn, Table
 
     ranked = sorted(
@@ -180,12 +243,52 @@ def summary_table(rows: list[dict]):
             mask=[v is None for v in values],
             unit=unit,
         )
+    if now is not None:
+        table.meta["now"] = now
     table.meta["triage_rule"] = (
         f"ranked when the next image is observable on >= {TRIAGE_OBSERVABLE:g} of its 95% "
         f"window, no fainter than {TRIAGE_DEPTH:g} mag and >= {TRIAGE_MIN_DELAY:g} d after "
         "the image seen; ranked systems by the next image's median date"
     )
     return table
+
+
+#: Seconds to wait for a Dask scheduler to answer before giving up.
+SCHEDULER_TIMEOUT = 30.0
+
+
+def _connect(client_class, scheduler: str):
+    """A Dask client of ``scheduler``, or one line when it is unreachable or silent.
+
+    The connection runs in a daemon thread joined with a deadline: a server that
+    accepts the connection and never answers must not hang the batch (its own timeout
+    does not cover every stage of the handshake).
+    """
+    import threading
+
+    if "://" not in scheduler or not scheduler.rsplit(":", 1)[-1].isdigit():
+        raise InputError(
+            f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}"
+        )
+    box: dict = {}
+
+    def connect():
+        try:
+            box["client"] = client_class(scheduler, timeout=SCHEDULER_TIMEOUT)
+        except BaseException as err:  # reported by the caller's thread
+            box["error"] = err
+
+    thread = threading.Thread(target=connect, daemon=True)
+    thread.start()
+    thread.join(SCHEDULER_TIMEOUT + 15.0)
+    if thread.is_alive() or "error" in box:
+        err = box.get("error")
+        reason = f"{type(err).__name__}: {err}" if err else "no answer"
+        raise InputError(
+            f"--scheduler {scheduler!r} could not be reached within "
+            f"{SCHEDULER_TIMEOUT:.0f} s ({reason})"
+        )
+    return box["client"]
 
 
 def _engine(jobs, workers: int, scheduler: str | None):
@@ -197,10 +300,7 @@ def _engine(jobs, workers: int, scheduler: str | None):
             raise InputError(
                 "--scheduler needs Dask (pip install 'lensdelay[distributed]'), got no dask"
             ) from err
-        try:
-            client = Client(scheduler, timeout=30)
-        except OSError as err:
-            raise InputError(f"--scheduler {scheduler!r} could not be reached ({err})") from err
+        client = _connect(Client, scheduler)
         with client:
             futures = [client.submit(forecast_one, *job, pure=False) for job in jobs]
             try:
@@ -243,7 +343,22 @@ def run(args) -> int:
         args.workers = os.cpu_count() or 1
     if args.workers < 1:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
-    now = parse_date(args.now, "--now") if args.now is not None else None
+    from astropy.time import Time
+
+    from lensdelay.forecast.samples import check_sample_count
+    from lensdelay.inference.sampling import check_sampler_settings
+
+    # settings every system shares are refused once, before any system runs
+    try:
+        check_sampler_settings(args.walkers, args.steps, args.seed)
+        check_sample_count(args.samples)
+    except InputError as err:
+        from lensdelay.cli.options import with_flags
+
+        raise InputError(with_flags(str(err))) from err
+    # one 'now' for every system; when not given, the day it is part of the fingerprint
+    now = parse_date(args.now, "--now") if args.now is not None else Time.now()
+    now_key = now.isot[:19] if args.now is not None else now.isot[:10]
     options = {
         "n_samples": args.samples,
         "h0": args.h0,
@@ -255,13 +370,20 @@ def run(args) -> int:
         "prior": args.prior,
     }
     options = {k: v for k, v in options.items() if v is not None}
-    rows, jobs = [], []
+    settings = {
+        k: (v if k not in ("now", "site") else None) for k, v in options.items()
+    } | {"now": now_key, "site": repr(options.get("site"))}
+    rows, jobs, redone = [], [], []
     for name, path in systems:
-        done = out / name / "forecast.json"
-        if done.is_file():
-            rows.append(summary_row(name, json.loads(done.read_text(encoding="utf-8"))))
-        else:
-            jobs.append((name, str(path), str(out), system_seed(name, args.seed), options))
+        seed = system_seed(name, args.seed)
+        wanted = system_fingerprint(path, seed, settings)
+        row, reason = previous_row(name, out / name / "forecast.json", wanted)
+        if row is not None:
+            rows.append(row)
+            continue
+        if reason:
+            redone.append(f"{name} ({reason})")
+        jobs.append((name, str(path), str(out), seed, options, wanted))
     bar = None
     if not args.quiet and jobs:
         from tqdm import tqdm
@@ -277,12 +399,19 @@ def run(args) -> int:
                 raise KeyboardInterrupt
     except KeyboardInterrupt:
         # every finished system's outputs are complete (written as one set); the summary
-        # lists them, and a rerun forecasts only the others
+        # lists them (also those a worker finished while the interruption was handled),
+        # and a rerun forecasts only the others
         interrupted = True
+        listed = {r["system"] for r in rows}
+        for name, _, _, _, _, wanted in jobs:
+            if name not in listed:
+                row, _ = previous_row(name, out / name / "forecast.json", wanted)
+                if row is not None:
+                    rows.append(row)
     finally:
         if bar is not None:
             bar.close()
-    table = summary_table(rows)
+    table = summary_table(rows, now.isot[:19] + "Z")
     buffer = io.StringIO()
     table.write(buffer, format="ascii.ecsv")
     atomic_write_text(out / SUMMARY, buffer.getvalue())
@@ -295,9 +424,12 @@ def run(args) -> int:
         return 130
     failed = sum(1 for r in rows if r["status"] != "ok")
     print(
-        f"{len(rows)} systems ({len(rows) - len(jobs)} done before, {len(jobs)} now), "
-        f"{failed} failed; ranked: {int(np.sum(table['rank'] > 0))}"
+        f"{len(rows)} systems ({len(rows) - len(jobs)} done before with the same inputs and "
+        f"settings, {len(jobs)} now), {failed} failed; ranked: {int(np.sum(table['rank'] > 0))}"
+        f"; statuses as of {now.isot[:16]}Z"
     )
+    if redone:
+        print(f"forecast again: {', '.join(redone)}")
     for r in table[table["rank"] > 0][:10]:
         print(
             f"  {r['rank']:3d}  {r['system']:<24} next {r['next_image']} on "

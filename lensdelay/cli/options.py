@@ -98,6 +98,28 @@ def output_folder(path: str | None) -> Path | None:
     return out
 
 
+def output_file(path: str, flag: str = "--out") -> Path:
+    """A file to write (``report --out``), checked before anything is computed.
+
+    Not a folder; its folder must exist, be a folder and be writable.
+    """
+    target = Path(path)
+    if target.is_dir():
+        raise InputError(f"{flag} must be a file name, got the folder {path!r}")
+    parent = target.parent if str(target.parent) else Path(".")
+    if not parent.is_dir():
+        what = "a file" if parent.exists() else "nothing"
+        raise InputError(
+            f"{flag} must be in an existing folder, got {path!r} ({str(parent)!r} is {what})"
+        )
+    try:
+        with tempfile.TemporaryFile(dir=parent):
+            pass
+    except OSError as err:
+        raise InputError(f"{flag} must be writable, got {path!r} ({err.strerror})") from err
+    return target
+
+
 def add_prior_argument(parser) -> None:
     """``--prior``, shared by fit, forecast and hubble."""
     parser.add_argument(

@@ -12,14 +12,26 @@ from lensdelay.report.html import report_html
 
 def run(args) -> int:
     """Read DIR's outputs, write DIR/report.html (or --out) atomically."""
+    from lensdelay.cli.options import output_file
+    from lensdelay.errors import InputError
+
+    target = output_file(args.out) if args.out else Path(args.folder) / "report.html"
     docs, figures = read_results(args.folder)
-    page = report_html(
-        forecast=docs.get("forecast"),
-        fit=docs.get("fit"),
-        hubble=docs.get("hubble"),
-        figures=figures,
-    )
-    target = Path(args.out) if args.out else Path(args.folder) / "report.html"
+    try:
+        page = report_html(
+            forecast=docs.get("forecast"),
+            fit=docs.get("fit"),
+            hubble=docs.get("hubble"),
+            figures=figures,
+        )
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as err:
+        # the files passed the key checks but hold a value of the wrong kind (edited by
+        # hand, or damaged): one line naming them, no page
+        names = ", ".join(f"{job}.json" for job in docs)
+        raise InputError(
+            f"{Path(args.folder)}: {names} must hold the values lensdelay wrote, got one the "
+            f"report cannot read ({type(err).__name__}: {err}); run the job again"
+        ) from err
     atomic_write_text(target, page)
     print(f"wrote {target} ({', '.join(docs)}; {len(figures)} figures)", file=sys.stderr)
     return 0

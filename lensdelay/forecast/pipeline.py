@@ -21,6 +21,7 @@ from lensdelay.model.cosmology import cosmology_from_spec
 from lensdelay.errors import FitError, InputError, choices_text
 from lensdelay.forecast.result import Forecast, ImageForecast, ImageSampleSet
 from lensdelay.forecast.samples import (
+    check_sample_count,
     AGREEMENT,
     ForecastSettings,
     ImageTrack,
@@ -268,8 +269,7 @@ def run_forecast(
         settings = replace(settings, microlensing_mag=float(microlensing))
     if depth is not None:
         settings = replace(settings, depth=float(depth))
-    if n_samples < 100 or n_samples > 5_000_000:
-        raise InputError(f"n_samples must be between 100 and 5000000, got {n_samples}")
+    check_sample_count(n_samples)
     if weighting not in WEIGHTINGS:
         raise InputError(f"weighting must be one of {choices_text(WEIGHTINGS)}, got {weighting!r}")
     tr = sc0.transient
@@ -283,6 +283,12 @@ def run_forecast(
         sightings=tuple(sightings),
     )
     now = Time.now() if now is None else now
+    for s in sightings:
+        if s.date > now:
+            raise InputError(
+                f"seen {s.family}/{s.label} date must not be after now ({now.isot[:19]}Z: a "
+                f"sighting has happened; set --now for another day), got {s.date.isot[:19]}Z"
+            )
     site = site or sc0.site
     # one seed for the whole run: every stage draws from its own child of it
     stage_seeds = iter(np.random.SeedSequence(seed).spawn(4 * len(scenarios) + 2))
@@ -308,7 +314,9 @@ def run_forecast(
         fit_seed, sample_seed = next(stage_seeds), next(stage_seeds)
         if prepared is not None:
             stages(f"prepared {sc.model.label}")
-            like = prepared[k].likelihood()
+            # the scenario as given here (a --cosmology replaces the prepared one): the
+            # chain holds lens parameters; distances come from the cosmology in use
+            like = replace(prepared[k], scenario=sc).likelihood()
             result, chain = prepared[k].fit, prepared[k].chain
         else:
             stages(f"fitting {sc.model.label}")
@@ -891,8 +899,44 @@ def _summarise(
                 "prediction made from the image positions"
             )
         images.append(entry)
+    _flag_strained_update(images, tension_rows, tr)
     images.sort(key=lambda e: (e["date_offset_days"]["median"], e["label"]))
     return images, missing
+
+
+#: A detection image whose date median moves more than this many detection-date sigmas
+#: (or a day, when the detection date is exact) has been pulled by the measurements.
+REFERENCE_SHIFT_SIGMA = 3.0
+
+
+def _flag_strained_update(images: list[dict], tension_rows: list[dict], tr) -> None:
+    """Flag every image when a measurement contradicts the model the update relies on.
+
+    An update combines the measurements with the model's prediction as if both were
+    right. A measurement in tension with the prediction (beyond TENSION_SIGMA) means
+    one of them is wrong, and then every window of the update is suspect, not only the
+    image measured; a detection image whose date the update moves far from the
+    detection date is the symptom that shows it most.
+    """
+    strained = [r for r in tension_rows if r["in_tension"]]
+    if strained:
+        worst = max(strained, key=lambda r: abs(r["sigma"]))
+        text = (
+            f"the update combines {len(strained)} measurement(s) in tension with the model "
+            f"({worst['measurement']} at {abs(worst['sigma']):.1f} sigma): these windows hold "
+            "only if both are right; check the measurement and the mass model"
+        )
+        for entry in images:
+            entry["flag"].append(text)
+    tolerance = REFERENCE_SHIFT_SIGMA * tr.date_sigma_days if tr.date_sigma_days > 0 else 1.0
+    for entry in images:
+        if entry["observed"] and entry["label"] == tr.seen_in:
+            shift = entry["date_offset_days"]["median"]
+            if abs(shift) > tolerance:
+                entry["flag"].append(
+                    f"the measurements move the detection image's own date by {shift:+.1f} d "
+                    f"from the detection date (allowed by its error: ±{tolerance:.1f} d)"
+                )
 
 
 def _observability(im, calendar, tr, now):

@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.special import logsumexp
 
+from lensdelay.errors import InputError
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.images import find_images, keep_distinct_tracks, newton_polish
 from lensdelay.lensing.lens import PARITIES
@@ -245,6 +246,21 @@ def solve_samples(
     )
 
 
+#: The forecast's sample count must lie within these (fewer gives no tails; more, no memory).
+SAMPLE_RANGE = (100, 5_000_000)
+
+
+def check_sample_count(n_samples) -> None:
+    """Refuse a forecast sample count outside SAMPLE_RANGE (or not an integer)."""
+    low, high = SAMPLE_RANGE
+    if (
+        isinstance(n_samples, bool)
+        or not isinstance(n_samples, (int, np.integer))
+        or not low <= n_samples <= high
+    ):
+        raise InputError(f"n_samples must be an integer between {low} and {high}, got {n_samples!r}")
+
+
 def draw_scale_priors(
     settings: ForecastSettings, h0_ref: float, n: int, rng: np.random.Generator
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -286,8 +302,10 @@ def importance_update(
     if timing is None or not len(timing):
         w = base / max(base.sum(), 1e-300)
         return TimingUpdate("none", w, float(base.sum()), 0.0), True
-    logl = timing.log_likelihood(samples.columns(timing))
+    arrival = samples.columns(timing)
+    logl = timing.log_likelihood(arrival)
     logl = np.where(samples.valid, logl, -np.inf)
+    notes = _missing_image_notes(timing, arrival, samples.valid)
     if not np.any(np.isfinite(logl)):
         return TimingUpdate(
             "reweight",
@@ -295,13 +313,35 @@ def importance_update(
             0.0,
             -np.inf,
             0.0,
-            ["the timing data are impossible under every sample (an image they name is missing)"],
+            notes
+            + ["the timing data are impossible under every sample (an image they name is missing)"],
         ), False
     log_evidence = float(logsumexp(logl) - np.log(max(base.sum(), 1.0)))
     w = np.exp(logl - np.max(logl))
     ess = effective_sample_size(w)
-    update = TimingUpdate("reweight", w / w.sum(), ess, log_evidence, ess)
+    update = TimingUpdate("reweight", w / w.sum(), ess, log_evidence, ess, notes)
     return update, ess >= min_fraction * n
+
+
+def _missing_image_notes(timing: TimingData, arrival: np.ndarray, valid: np.ndarray) -> list[str]:
+    """A note per image named by the timing data that some samples lack.
+
+    Such a sample has no arrival time for that image, so it cannot produce the
+    measurement: its timing likelihood is zero (the sample keeps no weight).
+    """
+    notes = []
+    needed = np.any(timing.design != 0, axis=0)
+    total = max(int(np.sum(valid)), 1)
+    for col, (family, label) in enumerate(timing.columns):
+        if not needed[col]:
+            continue
+        lacking = int(np.sum(valid & ~np.isfinite(arrival[:, col])))
+        if lacking:
+            notes.append(
+                f"image {family}/{label} is missing in {100.0 * lacking / total:.1f}% of the "
+                f"samples; they cannot produce the measurements that name it (likelihood zero)"
+            )
+    return notes
 
 
 def majority(codes, weights):

@@ -169,11 +169,20 @@ class TimingData:
         return np.atleast_2d(arrival) @ self.design.T
 
     def residuals(self, arrival: np.ndarray) -> np.ndarray:
-        """Whitened residuals L⁻¹(y − A T) per sample, (P, m); NaN where T is NaN."""
+        """Whitened residuals L⁻¹(y − A T) per sample, (P, m); NaN where T is NaN.
+
+        A sample that lacks an image a row needs (its arrival time is NaN: the image does
+        not exist under that sample's lens) cannot produce that measurement: all its
+        residuals are NaN, so :meth:`log_likelihood` gives it likelihood zero.
+        """
         diff = self.values[None, :] - self.predicted(arrival)
         if not len(self):
             return diff
-        return linalg.solve_triangular(self._chol, diff.T, lower=True).T
+        finite = np.all(np.isfinite(diff), axis=1)
+        out = np.full(diff.shape, np.nan)
+        if np.any(finite):
+            out[finite] = linalg.solve_triangular(self._chol, diff[finite].T, lower=True).T
+        return out
 
     def log_likelihood(self, arrival: np.ndarray) -> np.ndarray:
         """Log N(y; A T, C) up to a constant, per sample (P,); −inf where T is not finite."""

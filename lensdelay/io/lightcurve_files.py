@@ -17,11 +17,22 @@ from lensdelay.io.reading import read_table
 from lensdelay.lightcurves.curves import FLUX_ZERO_POINT, LightCurves
 
 
-def _column(columns: dict, name: str, where: str) -> np.ndarray:
-    """A numeric column with no empty or non-finite cell."""
+def _column(columns: dict, name: str, where: str, unit=None, rows=None) -> np.ndarray:
+    """A numeric column with no empty or non-finite cell, in ``unit`` when one is asked.
+
+    A column with a unit (ECSV ``unit:``) is converted to ``unit``; one whose unit cannot
+    be converted is refused, naming both. A column without a unit is taken to be in
+    ``unit`` already (CONVENTIONS.md). ``rows`` (boolean) limits the checks to those
+    rows; the others come back as NaN (upper limits need no error).
+    """
+    from astropy import units as u
+
     col = columns[name]
-    if np.ma.is_masked(col) and np.any(np.ma.getmaskarray(col)):
-        row = int(np.argmax(np.ma.getmaskarray(col)))
+    if rows is None:
+        rows = np.ones(len(col), dtype=bool)
+    mask = np.ma.getmaskarray(col) & rows
+    if np.any(mask):
+        row = int(np.argmax(mask))
         raise InputError(
             f"{where} column {name!r} must have no empty cells, got one in row {row + 1}"
         )
@@ -29,7 +40,16 @@ def _column(columns: dict, name: str, where: str) -> np.ndarray:
         values = np.asarray(np.ma.getdata(col), dtype=float)
     except (TypeError, ValueError) as err:
         raise InputError(f"{where} column {name!r} must hold numbers, got {col[0]!r}") from err
-    bad = ~np.isfinite(values)
+    given = getattr(col, "unit", None)
+    if unit is not None and given is not None:
+        try:
+            values = (values * u.Unit(given)).to_value(unit)
+        except (u.UnitsError, ValueError, TypeError) as err:
+            raise InputError(
+                f"{where} column {name!r} must have a unit convertible to {unit}, got {given}"
+            ) from err
+    values = np.where(rows, values, np.nan)
+    bad = rows & ~np.isfinite(values)
     if np.any(bad):
         row = int(np.argmax(bad))
         raise InputError(
@@ -38,8 +58,73 @@ def _column(columns: dict, name: str, where: str) -> np.ndarray:
     return values
 
 
+def _times(columns: dict, where: str) -> np.ndarray:
+    """MJD (UTC) from a ``time`` column (numbers, a unit, or a Time column) or ``date``."""
+    from astropy.time import Time
+
+    if "time" in columns:
+        col = columns["time"]
+        if isinstance(col, Time):  # an ECSV Time column: any format or scale, as UTC
+            try:
+                return np.asarray(col.utc.mjd, dtype=float)
+            except ValueError as err:
+                raise InputError(
+                    f"{where} column 'time' must be convertible to UTC, got {col.scale} ({err})"
+                ) from err
+        return _column(columns, "time", where, unit="d")
+    if "date" in columns:
+        texts = [str(v) for v in columns["date"]]
+        try:
+            return Time(texts, scale="utc").mjd
+        except ValueError:
+            pass
+        # dates with a UTC offset (ISO 8601 allows "+05:00"): each converted to UTC
+        import datetime as dt
+
+        out = []
+        for row, text in enumerate(texts):
+            try:
+                stamp = dt.datetime.fromisoformat(text.replace("Z", "+00:00"))
+            except ValueError as err:
+                raise InputError(
+                    f"{where} column 'date' must hold ISO 8601 dates (UTC, or with an offset), "
+                    f"got {text!r} in row {row + 1}"
+                ) from err
+            if stamp.tzinfo is not None:
+                stamp = stamp.astimezone(dt.timezone.utc).replace(tzinfo=None)
+            out.append(stamp.isoformat())
+        return Time(out, scale="utc").mjd
+    raise InputError(
+        f"{where} needs a column 'time' (MJD) or 'date' (ISO 8601, UTC); it has none"
+    )
+
+
+def _limits(columns: dict, n: int, where: str) -> np.ndarray:
+    """The ``upper_limit`` column as booleans (all false when absent)."""
+    if "upper_limit" not in columns:
+        return np.zeros(n, dtype=bool)
+    raw = columns["upper_limit"]
+    try:
+        return np.asarray(
+            [
+                v
+                if isinstance(v, (bool, np.bool_))
+                else {"true": True, "false": False}[str(v).lower()]
+                for v in raw
+            ],
+            dtype=bool,
+        )
+    except KeyError as err:
+        raise InputError(f"{where} column 'upper_limit' must hold true or false, got {err}") from err
+
+
 def read_light_curves(path, images=None) -> LightCurves:
     """Read and check a light-curve file.
+
+    Units written in an ECSV header are honoured (``time`` in any unit of time or as a
+    Time column, ``mag``/``mag_err`` in mag or mmag, ``flux``/``flux_err`` in any one
+    unit); a unit that cannot be converted is refused. Rows marked ``upper_limit`` need
+    no error (limits are not used by the estimators).
 
     Parameters
     ----------
@@ -47,6 +132,8 @@ def read_light_curves(path, images=None) -> LightCurves:
     images : sequence of str, optional
         The labels the scenario's family has; any other label is refused.
     """
+    from astropy import units as u
+
     path = Path(path)
     where = f"light curves {str(path)!r}"
     if not path.is_file():
@@ -55,42 +142,36 @@ def read_light_curves(path, images=None) -> LightCurves:
     if "image" not in columns:
         raise InputError(f"{where} needs a column 'image'; it has {', '.join(columns)}")
     image = np.asarray([str(v) for v in columns["image"]])
-    if "time" in columns:
-        time = _column(columns, "time", where)
-    elif "date" in columns:
-        from astropy.time import Time
-
-        try:
-            time = Time([str(v) for v in columns["date"]], scale="utc").mjd
-        except ValueError as err:
-            raise InputError(
-                f"{where} column 'date' must hold ISO 8601 dates (UTC), got {columns['date'][0]!r}"
-            ) from err
-    else:
-        raise InputError(
-            f"{where} needs a column 'time' (MJD) or 'date' (ISO 8601, UTC); it has none"
-        )
+    time = _times(columns, where)
+    limit = _limits(columns, len(image), where)
+    detected_rows = ~limit
     if "mag" in columns:
         if "mag_err" not in columns:
             raise InputError(f"{where} needs a column 'mag_err' beside 'mag', got none")
-        mag = _column(columns, "mag", where)
-        err = _column(columns, "mag_err", where)
-        if np.any(err <= 0):
-            raise InputError(f"{where} column 'mag_err' must be > 0, got {err[err <= 0][0]:g}")
+        mag = _column(columns, "mag", where, unit=u.mag)
+        err = _column(columns, "mag_err", where, unit=u.mag, rows=detected_rows)
+        if np.any(err[detected_rows] <= 0):
+            bad = err[detected_rows]
+            raise InputError(f"{where} column 'mag_err' must be > 0, got {bad[bad <= 0][0]:g}")
     elif "flux" in columns:
         if "flux_err" not in columns:
             raise InputError(f"{where} needs a column 'flux_err' beside 'flux', got none")
         flux = _column(columns, "flux", where)
-        ferr = _column(columns, "flux_err", where)
-        if np.any(ferr <= 0):
-            raise InputError(f"{where} column 'flux_err' must be > 0, got {ferr[ferr <= 0][0]:g}")
-        if np.any(flux <= 0):
+        flux_unit = getattr(columns["flux"], "unit", None)
+        ferr = _column(columns, "flux_err", where, unit=flux_unit, rows=detected_rows)
+        if np.any(ferr[detected_rows] <= 0):
+            bad = ferr[detected_rows]
+            raise InputError(f"{where} column 'flux_err' must be > 0, got {bad[bad <= 0][0]:g}")
+        if np.any(flux[detected_rows] <= 0):
+            bad = flux[detected_rows]
             raise InputError(
                 f"{where} column 'flux' must be > 0 (mark a non-detection with upper_limit), "
-                f"got {flux[flux <= 0][0]:g}"
+                f"got {bad[bad <= 0][0]:g}"
             )
-        mag = FLUX_ZERO_POINT - 2.5 * np.log10(flux)
-        err = 2.5 / np.log(10) * ferr / flux
+        with np.errstate(all="ignore"):
+            # a limit's flux may be <= 0 (a forced measurement): no magnitude then
+            mag = np.where(flux > 0, FLUX_ZERO_POINT - 2.5 * np.log10(np.abs(flux)), np.nan)
+            err = 2.5 / np.log(10) * ferr / flux
     else:
         raise InputError(
             f"{where} needs columns 'mag' and 'mag_err' (or 'flux' and 'flux_err'), got neither"
@@ -100,24 +181,6 @@ def read_light_curves(path, images=None) -> LightCurves:
         if "band" in columns
         else np.full(len(image), "")
     )
-    if "upper_limit" in columns:
-        raw = columns["upper_limit"]
-        try:
-            limit = np.asarray(
-                [
-                    v
-                    if isinstance(v, (bool, np.bool_))
-                    else {"true": True, "false": False}[str(v).lower()]
-                    for v in raw
-                ],
-                dtype=bool,
-            )
-        except KeyError as err:
-            raise InputError(
-                f"{where} column 'upper_limit' must hold true or false, got {err}"
-            ) from err
-    else:
-        limit = np.zeros(len(image), dtype=bool)
     if images is not None:
         unknown = sorted(set(image) - set(images))
         if unknown:

@@ -33,6 +33,26 @@ def _sha(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
+def _arrays_sha(arrays: dict) -> str:
+    """SHA-256 over the arrays' names, dtypes, shapes and bytes, in name order.
+
+    The content of ``chain.npz`` rather than its zip bytes, so it can be computed
+    before the file is written and checked on the arrays as read.
+    """
+    digest = hashlib.sha256()
+    for name in sorted(arrays):
+        a = np.ascontiguousarray(arrays[name])
+        digest.update(f"{name}|{a.dtype.str}|{a.shape}|".encode("utf-8"))
+        digest.update(a.tobytes())
+    return digest.hexdigest()
+
+
+def _document_sha(meta: dict) -> str:
+    """SHA-256 of lens.json's content without its own ``document_sha256`` key."""
+    body = {k: v for k, v in meta.items() if k != "document_sha256"}
+    return _sha(json.dumps(body, sort_keys=True, allow_nan=False).encode("utf-8"))
+
+
 def write_prepared(out, prepared: PreparedLens, scenario_path, model_path=None) -> list[str]:
     """Write ``prepared`` into folder ``out`` as one set (atomically; inputs untouched)."""
     doc, files = self_contained_document(scenario_path, model_path)
@@ -98,10 +118,14 @@ def write_prepared(out, prepared: PreparedLens, scenario_path, model_path=None) 
     for k, (x, y) in enumerate(prepared.watched):
         arrays[f"watched_{k}_x"] = np.asarray(x, dtype=float)
         arrays[f"watched_{k}_y"] = np.asarray(y, dtype=float)
+    meta["sha256"]["chain.npz"] = _arrays_sha(arrays)
+    meta = json_ready(meta)
+    # lens.json's own hash: an edited fit, setting or hash list is refused on reading
+    meta["document_sha256"] = _document_sha(meta)
     return write_output_set(
         out,
         json_name="lens.json",
-        doc=json_ready(meta),
+        doc=meta,
         texts={"scenario.toml": scenario_text},
         binaries=files,
         arrays={"chain.npz": arrays},
@@ -115,8 +139,14 @@ def is_prepared(path) -> bool:
 
 
 def read_prepared(folder) -> PreparedLens:
-    """The prepared lens in ``folder``; every problem is one :class:`InputError` line."""
-    from dataclasses import replace
+    """The prepared lens in ``folder``; every problem is one :class:`InputError` line.
+
+    Every file is checked against the SHA-256 recorded when the lens was prepared
+    (``scenario.toml``, the catalogue, the content of ``chain.npz``), and ``lens.json``
+    against its own, so a file changed, swapped with another lens's or truncated since
+    is refused, naming it.
+    """
+    import zipfile
 
     folder = Path(folder)
     where = str(folder / "lens.json")
@@ -126,7 +156,9 @@ def read_prepared(folder) -> PreparedLens:
         raise InputError(
             f"must be a prepared lens's JSON, got an unreadable file ({err})", where
         ) from err
-    if not isinstance(meta, dict) or meta.get("kind") != KIND:
+    if not isinstance(meta, dict):
+        raise InputError(f"must hold a JSON object, got {type(meta).__name__}", where)
+    if meta.get("kind") != KIND:
         raise InputError(f"kind must be {KIND!r}, got {meta.get('kind')!r}", where)
     if meta.get("version") != __version__:
         raise InputError(
@@ -134,7 +166,27 @@ def read_prepared(folder) -> PreparedLens:
             f"got {meta.get('version')!r}",
             where,
         )
-    for name, digest in meta.get("sha256", {}).items():
+    try:
+        recorded_self = meta.get("document_sha256")
+        same = recorded_self == _document_sha(meta)
+    except (TypeError, ValueError):
+        same = False
+    if not same:
+        raise InputError(
+            "document_sha256 must match lens.json's content (the file was edited since the "
+            "lens was prepared; prepare it again)",
+            where,
+        )
+    hashes = meta.get("sha256")
+    if not isinstance(hashes, dict) or not {"scenario.toml", "chain.npz"} <= set(hashes):
+        raise InputError(
+            "sha256 must list scenario.toml and chain.npz (prepare the lens again), "
+            f"got {sorted(hashes) if isinstance(hashes, dict) else hashes!r}",
+            where,
+        )
+    for name, digest in hashes.items():
+        if name == "chain.npz":
+            continue
         path = folder / name
         if not path.is_file() or _sha(path.read_bytes()) != digest:
             raise InputError(
@@ -142,9 +194,35 @@ def read_prepared(folder) -> PreparedLens:
                 "(the folder was changed since)",
                 where,
             )
+    chain_path = folder / "chain.npz"
+    try:
+        a = load_npz(chain_path)
+    except (OSError, ValueError, zipfile.BadZipFile, EOFError) as err:
+        raise InputError(
+            f"must be the prepared lens's arrays, got an unreadable file ({err})", str(chain_path)
+        ) from err
+    if _arrays_sha(a) != hashes["chain.npz"]:
+        raise InputError(
+            "sha256 of chain.npz must match the one recorded when the lens was prepared "
+            "(another lens's chain, or changed since)",
+            where,
+        )
+    try:
+        return _rebuild(folder, meta, a)
+    except (KeyError, TypeError, ValueError, IndexError) as err:
+        raise InputError(
+            f"must hold every entry a prepared lens needs, got a problem with {err!s} "
+            "(prepare the lens again)",
+            where,
+        ) from err
+
+
+def _rebuild(folder: Path, meta: dict, a: dict) -> PreparedLens:
+    """The prepared lens from its checked parts."""
+    from dataclasses import replace
+
     scenario, _ = load_scenario(folder / "scenario.toml")
     scenario = replace(scenario, model=replace(scenario.model, label=meta["model_label"]))
-    a = load_npz(folder / "chain.npz")
     f = meta["fit"]
     err = f["model_error"]
     fit = FitResult(

@@ -110,7 +110,7 @@ def load_scenario(path: str | os.PathLike, model_paths=None):
     def table(ref: str) -> dict:
         candidate = catalogue_file(path, ref)
         used.append(candidate)
-        return read_table(candidate, "members.catalogue")
+        return read_table(candidate, "members.catalogue", text_columns=("id",))
 
     if model_paths:
         doc = {k: v for k, v in doc.items() if k not in ("mass", "model")}
@@ -127,18 +127,23 @@ def load_scenario(path: str | os.PathLike, model_paths=None):
     return scenario, used
 
 
-def read_table(path: str | os.PathLike, field: str) -> dict:
+def read_table(path: str | os.PathLike, field: str, text_columns=()) -> dict:
     """Columns of an ECSV table (or a CSV with a header line) as name -> array.
 
-    Empty cells come back masked. Raises InputError naming ``field`` when the file is
-    not such a table.
+    Empty cells come back masked. ``text_columns`` of a CSV are read as strings, as
+    written (an id ``01`` stays ``01``; an ECSV declares its own types). Raises
+    InputError naming ``field`` when the file is not such a table.
     """
+    from astropy.io import ascii as ascii_io
     from astropy.table import Table
 
     path = Path(path)
     fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
+    extra = {}
+    if fmt == "ascii.csv" and text_columns:
+        extra["converters"] = {name: [ascii_io.convert_numpy(str)] for name in text_columns}
     try:
-        tab = Table.read(path, format=fmt)
+        tab = Table.read(path, format=fmt, **extra)
     except Exception as err:  # astropy raises many kinds for a malformed table
         reason = str(err).splitlines()[0] if str(err) else type(err).__name__
         raise InputError(

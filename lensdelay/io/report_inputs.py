@@ -79,6 +79,33 @@ def check_document(job: str, doc, where: str) -> dict:
     return doc
 
 
+def _check_same_system(docs: dict, folder: Path) -> None:
+    """Refuse a folder whose job outputs come from different scenarios (one page, one system).
+
+    Each output records the SHA-256 of its first input, the scenario
+    (:func:`lensdelay.io.provenance.system_hash`); outputs that record none are refused
+    as written by another version.
+    """
+    from lensdelay.io.provenance import system_hash
+
+    hashes = {}
+    for job, doc in docs.items():
+        prov = doc if job == "fit" else doc.get("provenance")
+        digest = system_hash(prov)
+        if digest is None:
+            raise InputError(
+                f"{folder / (job + '.json')} lacks provenance.input_files (the scenario it was "
+                f"made from): run `lensdelay {job}` again"
+            )
+        hashes[job] = digest
+    if len(set(hashes.values())) > 1:
+        which = ", ".join(f"{job}.json from {digest[:12]}" for job, digest in hashes.items())
+        raise InputError(
+            f"{folder} must hold the outputs of one system (the same scenario file), got "
+            f"{which}; write each system's outputs into a folder of its own"
+        )
+
+
 def read_results(folder) -> tuple[dict, dict[str, bytes]]:
     """The jobs' documents and PNG figures found in ``folder``.
 
@@ -97,6 +124,7 @@ def read_results(folder) -> tuple[dict, dict[str, bytes]]:
         except (OSError, ValueError) as err:
             raise InputError(f"{path} must be readable JSON, got: {err}") from err
         docs[job] = check_document(job, doc, str(path))
+    _check_same_system(docs, folder)
     if not docs:
         raise InputError(
             f"{folder} must hold forecast.json, fit.json or hubble.json (written by "

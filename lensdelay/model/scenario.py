@@ -295,8 +295,13 @@ def parse_scenario(
         raise err.with_source(source) from err.__cause__
 
 
-def _column(columns: dict, name: str, ref: str, n: int, default=None) -> np.ndarray:
-    """A float column of a members table; masked or missing cells take ``default``."""
+def _column(columns: dict, name: str, ref: str, n: int, default=None, unit=None) -> np.ndarray:
+    """A float column of a members table; masked or missing cells take ``default``.
+
+    A column that carries a unit (ECSV ``unit:``) is converted to ``unit``; one whose
+    unit cannot be converted is refused. Without a unit the column is taken to be in
+    ``unit`` (CONVENTIONS.md: arcsec, degrees, mag).
+    """
     if name not in columns:
         if default is None:
             raise InputError(
@@ -313,7 +318,17 @@ def _column(columns: dict, name: str, ref: str, n: int, default=None) -> np.ndar
         ) from err
     if default is None and np.any(np.ma.getmaskarray(col)):
         raise InputError(f"members.catalogue {ref!r} column {name!r} has empty cells")
-    return np.asarray(col.filled(default if default is not None else np.nan), dtype=float)
+    values = np.asarray(col.filled(default if default is not None else np.nan), dtype=float)
+    given = getattr(columns[name], "unit", None)
+    if unit is not None and given is not None:
+        try:
+            values = (values * u.Unit(given)).to_value(unit)
+        except (u.UnitsError, ValueError, TypeError) as err:
+            raise InputError(
+                f"members.catalogue {ref!r} column {name!r} must have a unit convertible to "
+                f"{unit}, got {given}"
+            ) from err
+    return values
 
 
 def _parse_members(raw, load_table, sky) -> MemberGroup:
@@ -334,8 +349,17 @@ def _parse_members(raw, load_table, sky) -> MemberGroup:
         )
     ids = [str(v) for v in columns["id"]]
     n = len(ids)
+    seen_ids = set()
+    for i in ids:
+        if i in seen_ids:
+            raise InputError(
+                f"members.catalogue {ref!r} column 'id' must name each member once, got "
+                f"{i!r} twice"
+            )
+        seen_ids.add(i)
     if "x" in columns and "y" in columns:
-        x, y = _column(columns, "x", ref, n), _column(columns, "y", ref, n)
+        x = _column(columns, "x", ref, n, unit=u.arcsec)
+        y = _column(columns, "y", ref, n, unit=u.arcsec)
     elif "ra" in columns and "dec" in columns:
         if sky is None:
             raise InputError(
@@ -343,7 +367,8 @@ def _parse_members(raw, load_table, sky) -> MemberGroup:
                 "(its origin) to place them, got nothing"
             )
         where = SkyCoord(
-            _column(columns, "ra", ref, n) * u.deg, _column(columns, "dec", ref, n) * u.deg
+            _column(columns, "ra", ref, n, unit=u.deg) * u.deg,
+            _column(columns, "dec", ref, n, unit=u.deg) * u.deg,
         )
         east, north = sky.spherical_offsets_to(where)
         x, y = east.to_value(u.arcsec), north.to_value(u.arcsec)
@@ -352,9 +377,9 @@ def _parse_members(raw, load_table, sky) -> MemberGroup:
             f"members.catalogue {ref!r} needs columns x, y (arcsec) or ra, dec (degrees); "
             f"it has {choices_text(list(columns))}"
         )
-    mag = _column(columns, "mag", ref, n)
-    q = _column(columns, "axis_ratio", ref, n, default=1.0)
-    pa = _column(columns, "position_angle", ref, n, default=0.0)
+    mag = _column(columns, "mag", ref, n, unit=u.mag)
+    q = _column(columns, "axis_ratio", ref, n, default=1.0, unit=u.dimensionless_unscaled)
+    pa = _column(columns, "position_angle", ref, n, default=0.0, unit=u.deg)
     if np.any((q <= 0) | (q > 1)):
         raise InputError(
             f"members.catalogue {ref!r} column 'axis_ratio' must be in (0, 1], "
@@ -393,7 +418,18 @@ def _family_redshift(raw, where: str, z_l: float) -> tuple[float, ModelParameter
     )
     if raw is None:
         raise InputError(f"{where} is required (a number, or {{ value, min, max }}), got nothing")
+    if isinstance(raw, dict) and not {"min", "max"} <= set(raw):
+        missing = " and ".join(k for k in ("min", "max") if k not in raw)
+        raise InputError(
+            f"{where} must give min and max (the range of an unknown redshift; or a number "
+            f"for a measured one), got no {missing}"
+        )
     param = parse_parameter("redshift", raw, where)
+    if param.vary and isinstance(raw, dict) and not param.max - param.min > 1e-3:
+        raise InputError(
+            f"{where}.max must exceed min by more than 0.001 (for a known redshift give a "
+            f"number), got min {param.min:g}, max {param.max:g}"
+        )
     if param.vary and isinstance(raw, dict):
         if not math.isfinite(param.min) or param.min < z_l + MIN_REDSHIFT_GAP:
             raise InputError(f"{where}.min {gap}, got {param.min:g}")
