@@ -363,6 +363,7 @@ def measure_delays(
         steps=steps,
         simulations=simulations,
         seed=seed,
+        images=labels,
     )
     cosmo = sc.cosmology if sc is not None else None
     if cosmo is not None:
@@ -389,18 +390,25 @@ def _with_light_curve_delays(sc, used, delays):
     from lensdelay.model.scenario import MeasuredDelay
 
     tr = sc.transient
+    notes = []
     if delays is None:
         if tr is None or tr.light_curves is None:
-            return sc, used
+            return sc, used, notes
         delays = measure_delays(sc)
         used = used + [Path(sc.source).parent / tr.light_curves]
+        _check_curves_cover_detection(sc, delays)
     if isinstance(delays, (str, os.PathLike)):
         new, cov = read_delays_json(delays, sc)
         used = used + [Path(delays)]
     else:
         keep = [im for im in delays.images if im.measurable]
         if not keep:
-            raise InputError("the light curves gave no measurable delay to use, got none")
+            why = "; ".join(f"{im.label}: {im.statement}" for im in delays.images)
+            notes.append(
+                "the light curves gave no measurable delay yet, so the forecast uses the image "
+                f"positions alone ({why})"
+            )
+            return sc, used, notes
         labels = list(delays.covariance_labels)
         idx = [labels.index(im.label) for im in keep]
         cov = np.asarray(delays.covariance_days2)[np.ix_(idx, idx)]
@@ -415,6 +423,16 @@ def _with_light_curve_delays(sc, used, delays):
             for k, im in enumerate(keep)
         ]
     old = list(sc.delays)
+    pairs = {frozenset((d.family + "/" + d.image, d.family + "/" + d.relative_to)): d for d in old}
+    for d in new:
+        twin = pairs.get(frozenset((d.family + "/" + d.image, d.family + "/" + d.relative_to)))
+        if twin is not None:
+            raise InputError(
+                f"delay {d.family}/{d.image} - {d.relative_to} must be given once, got it both "
+                "in the scenario's [[delay]] entries and in the delays measured from light "
+                "curves (the same measurement counted twice would halve its error); remove one",
+                sc.source,
+            )
     old_cov = (
         np.diag([d.sigma**2 for d in old])
         if sc.delay_covariance is None
@@ -424,7 +442,43 @@ def _with_light_curve_delays(sc, used, delays):
     full = np.zeros((n_old + n_new, n_old + n_new))
     full[:n_old, :n_old] = old_cov
     full[n_old:, n_old:] = cov
-    return replace(sc, delays=tuple(old + list(new)), delay_covariance=full), used
+    return replace(sc, delays=tuple(old + list(new)), delay_covariance=full), used, notes
+
+
+#: A supernova's light curve of the detection image must reach to within this many days
+#: of the detection date (it shows the event that was detected).
+CURVE_DETECTION_GAP = 30.0
+
+
+def _check_curves_cover_detection(sc, delays) -> None:
+    """Refuse supernova curves that do not show the event the scenario detected.
+
+    A supernova's curves hold one event; when the detection image's curve ends well
+    before or starts well after the detection date, the curves and the detection are
+    of different events (or one date is wrong), and the measured delays would place
+    the images of one event at the dates of the other. A quasar's delays belong to the
+    lens and may come from earlier monitoring.
+    """
+    curves = delays.curves
+    if delays.kind != "supernova" or curves is None:
+        return
+    from astropy.time import Time
+
+    tr = sc.transient
+    t = curves.time[curves.image == delays.reference]
+    if not t.size:
+        return
+    mjd = tr.date.mjd
+    if mjd < t.min() - CURVE_DETECTION_GAP or mjd > t.max() + CURVE_DETECTION_GAP:
+        first = Time(t.min(), format="mjd", scale="utc").isot[:10]
+        last = Time(t.max(), format="mjd", scale="utc").isot[:10]
+        raise InputError(
+            f"transient.date must lie within the {delays.reference} light curve "
+            f"({first}..{last}) or within {CURVE_DETECTION_GAP:g} days of it, got "
+            f"{tr.date.isot[:10]}: the curves show another event than the one detected "
+            "(or a date is wrong)",
+            sc.source,
+        )
 
 
 #: Most pixels along a map's side (a 4001² grid of seven maps is ~450 MB as float32).
@@ -552,12 +606,16 @@ def forecast_scenario(
         budget and the provenance; ``.report()`` gives the text the command line prints.
     """
     pairs = [_scenario(scenario, m) for m in (models or [None])]
-    pairs = [_with_light_curve_delays(sc, used, delays) for sc, used in pairs]
+    triples = [_with_light_curve_delays(sc, used, delays) for sc, used in pairs]
     inputs = []
-    for _, used in pairs:
+    for _, used, _ in triples:
         inputs += [p for p in used if p not in inputs]
-    res = run_forecast([sc for sc, _ in pairs], **options)
-    res = replace(res, provenance=provenance(inputs, res.cosmology, res.settings.seed))
+    res = run_forecast([sc for sc, _, _ in triples], **options)
+    res = replace(
+        res,
+        provenance=provenance(inputs, res.cosmology, res.settings.seed),
+        notes=tuple(res.notes) + tuple(triples[0][2]),
+    )
     return replace(res, budget=delay_budget(res)) if budget else res
 
 
@@ -568,9 +626,13 @@ def infer_h0(scenario, model=None, *, delays=None, **options) -> dict:
     ``delays`` as for :func:`forecast_scenario`; ``options`` are those of
     :func:`lensdelay.hubble.pipeline.run_hubble`.
     """
-    sc, used = _with_light_curve_delays(*_scenario(scenario, model), delays)
+    sc, used, notes = _with_light_curve_delays(*_scenario(scenario, model), delays)
     res = run_hubble(sc, **options)
-    return replace(res, provenance=provenance(used, res.scenario.cosmology, options.get("seed", 1)))
+    return replace(
+        res,
+        provenance=provenance(used, res.scenario.cosmology, options.get("seed", 1)),
+        notes=tuple(notes) + tuple(res.notes),
+    )
 
 
 def prepare_lens(

@@ -280,7 +280,9 @@ def test_updating_on_a_further_image_shrinks_the_others(tmp_path):
         seen_date = (Time("2027-03-01", scale="utc") + c.date_offset_days["median"] * u.day).isot[
             :19
         ]
-        upd = run_forecast(str(path), seen=[f"C={seen_date}Z±0.5"], **FAST)
+        # judged as of a day after the sighting (a sighting after now is refused)
+        after = Time(seen_date, scale="utc") + 1 * u.day
+        upd = run_forecast(str(path), seen=[f"C={seen_date}Z±0.5"], now=after, **FAST)
     d = next(im for im in upd.images if im.label == "D")
     assert d.interval95_change is not None and d.interval95_change < 1.0
     c = next(im for im in upd.images if im.label == "C")

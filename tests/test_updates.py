@@ -181,7 +181,10 @@ def test_sighting_five_sigma_away_is_reported_and_nothing_collapses(tmp_path):
     sigma_s = 0.5
     spread = np.hypot(_half68(d), sigma_s)
     when = Time("2027-03-01", scale="utc") + (d["median"] + 5 * spread) * u.day
-    res = _quiet_forecast(str(path), now=now, seen=[f"sn/D={when.isot}±{sigma_s}"], **FAST)
+    # a sighting has happened: judged as of a day after it
+    res = _quiet_forecast(
+        str(path), now=when + 1 * u.day, seen=[f"sn/D={when.isot}±{sigma_s}"], **FAST
+    )
     tension = res.timing["tensions"][0]
     assert tension["in_tension"] and tension["sigma"] > 3
     assert 0 < tension["p_value"] < 0.01
@@ -205,7 +208,7 @@ def test_a_predicted_image_can_be_reported_seen(tmp_path):
     x1 = _image(base, "X1")
     assert not x1.observed
     when = Time("2027-03-01", scale="utc") + x1.date_offset_days["median"] * u.day
-    res = _quiet_forecast(str(path), now=now, seen=[f"X1={when.isot}±1"], **FAST)
+    res = _quiet_forecast(str(path), now=when + 1 * u.day, seen=[f"X1={when.isot}±1"], **FAST)
     x1 = _image(res, "X1")
     assert x1.status == "seen" and x1.sighted
     assert abs(x1.tension["sigma"]) < 1
@@ -473,6 +476,8 @@ def test_unknown_sighting_label_is_refused_after_the_fit(tmp_path, capsys):
                 str(path),
                 "--seen",
                 "X7=2027-03-04",
+                "--now",
+                "2027-04-01",
                 "--out",
                 str(out),
                 "--samples",
@@ -538,7 +543,7 @@ def test_every_option_has_help():
     [
         (["--now", "yesterday"], "--now must be an ISO 8601 date"),
         (["--seen", "B"], "--seen must be [FAMILY/]LABEL=DATE[±SIGMA]"),
-        (["--seen", "B=2027-01-20±0"], "--seen q/B sigma must be > 0 days"),
+        (["--seen", "B=2027-01-20±0"], "--seen q/B sigma must be > 0 and at most 3650 days"),
     ],
 )
 def test_bad_update_arguments_exit_2_with_one_line(tmp_path, capsys, args, message):

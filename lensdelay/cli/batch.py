@@ -424,9 +424,9 @@ def run(args) -> int:
         return 130
     failed = sum(1 for r in rows if r["status"] != "ok")
     print(
-        f"{len(rows)} systems ({len(rows) - len(jobs)} done before with the same inputs and "
-        f"settings, {len(jobs)} now), {failed} failed; ranked: {int(np.sum(table['rank'] > 0))}"
-        f"; statuses as of {now.isot[:16]}Z"
+        f"{len(rows)} systems ({len(rows) - len(jobs)} done before, {len(jobs)} now), "
+        f"{failed} failed; ranked: {int(np.sum(table['rank'] > 0))}; statuses as of "
+        f"{now.isot[:16]}Z (a system is done before when its inputs and settings are the same)"
     )
     if redone:
         print(f"forecast again: {', '.join(redone)}")

@@ -41,7 +41,7 @@ from lensdelay.inference.fit import ScenarioFit
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.priors import check_kappa_prior
 from lensdelay.inference.sampling import check_sampler_settings, fit_and_sample, int_seed
-from lensdelay.model.scenario import Scenario, Site, parse_date
+from lensdelay.model.scenario import MAX_DATE_SIGMA_DAYS, Scenario, Site, parse_date
 from lensdelay.forecast.observability import build_calendar
 from lensdelay.forecast.positions import position_ellipses, sky_position
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
@@ -119,9 +119,10 @@ def parse_sightings(items, scenario) -> list[Sighting]:
                 raise InputError(
                     f"seen {family}/{label} sigma must be a number of days, got {m['sigma']!r}"
                 ) from err
-            if not (math.isfinite(sigma) and sigma > 0):
+            if not (math.isfinite(sigma) and 0 < sigma <= MAX_DATE_SIGMA_DAYS):
                 raise InputError(
-                    f"seen {family}/{label} sigma must be > 0 days, got {m['sigma']!r}"
+                    f"seen {family}/{label} sigma must be > 0 and at most "
+                    f"{MAX_DATE_SIGMA_DAYS:g} days, got {m['sigma']!r}"
                 )
             out.append(Sighting(family, label, date, sigma, True))
         else:
@@ -425,6 +426,7 @@ def run_forecast(
             f"the dates of image(s) {', '.join(far)} lie more than {MAX_OFFSET_DAYS / 365.25:.0f} "
             "years from the detection; check the redshifts and the mass model"
         )
+    _check_calendar_range(images, tr)
     stages("observability")
     calendar = None
     if site is not None and sc0.sky is not None:
@@ -434,7 +436,9 @@ def run_forecast(
         hi = max(w[1] for w in wide)
         first = tr.date + (np.floor(lo) - 1) * u.day
         n_days = int(np.ceil(hi - lo)) + 3
-        step = 20.0 if n_days <= 1200 else 40.0
+        # crossings are interpolated within a step (observability.usable_time): a few
+        # minutes' step gives each night's usable time to within a minute
+        step = 2.0 if n_days <= 1200 else 5.0
         calendar = build_calendar(site, sc0.sky, first, n_days, step_minutes=step)
         for im in images:
             _observability(im, calendar, tr, now)
@@ -504,6 +508,38 @@ def run_forecast(
         sky_view=view,
         h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
     )
+
+
+#: ISO 8601 dates (and the outputs' calendars) are written with four-digit years.
+CALENDAR_YEARS = (1, 9999)
+
+
+def _check_calendar_range(images: list[dict], tr) -> None:
+    """Refuse a forecast whose samples' dates fall outside the years 1–9999.
+
+    Every sample that carries weight is checked (the files write quantiles, the
+    calendar and the figures span the tails too), not only the 95% windows.
+    """
+    lows, highs = [], []
+    for im in images:
+        off = im["offsets"][np.isfinite(im["offsets"]) & (im["weights"] > 0)]
+        if off.size:
+            lows.append(off.min())
+            highs.append(off.max())
+    if not lows:
+        return
+    first = Time(f"{CALENDAR_YEARS[0]:04d}-01-02", scale="utc")
+    last = Time(f"{CALENDAR_YEARS[1]:04d}-12-30", scale="utc")
+    lo = tr.date + (min(lows) - 1.0) * u.day
+    hi = tr.date + (max(highs) + 1.0) * u.day
+    if lo < first or hi > last:
+        ymd = tr.date.ymdhms
+        raise InputError(
+            f"transient.date must leave every image's dates within the years "
+            f"{CALENDAR_YEARS[0]}-{CALENDAR_YEARS[1]} (ISO 8601 dates), got "
+            f"{int(ymd.year):04d}-{int(ymd.month):02d}-{int(ymd.day):02d}, whose images span "
+            f"{min(lows):+.0f} to {max(highs):+.0f} days"
+        )
 
 
 def _finder_view(sc, like, result, tr, tracks) -> dict:
@@ -885,10 +921,11 @@ def _summarise(
             entry["magnitude"] = None
             entry["fainter_than_depth"] = None
         # part of the 95% window before the detection: archives may hold the event
-        if not seen and off_q["p2.5"] < 0:
+        # (only data already taken: up to now, which may be before the detection date)
+        if not seen and off_q["p2.5"] < min(0.0, now_offset):
             entry["archival_search"] = {
                 "from_offset": off_q["p2.5"],
-                "to_offset": min(off_q["p97.5"], max(now_offset, 0.0)),
+                "to_offset": min(off_q["p97.5"], now_offset),
             }
         else:
             entry["archival_search"] = None

@@ -18,7 +18,7 @@ from lensdelay.errors import InputError, choices_text
 from lensdelay.inference.fit import FitResult
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import Chain, check_sampler_settings, fit_and_sample, int_seed
-from lensdelay.model.scenario import Scenario, Transient, parse_date
+from lensdelay.model.scenario import MAX_DATE_SIGMA_DAYS, Scenario, Transient, parse_date
 
 
 @dataclass(frozen=True)
@@ -128,8 +128,11 @@ def parse_transient(text: str, scenario: Scenario) -> Transient:
             raise InputError(
                 f"--transient SIGMA must be a number of days, got {sigma_text!r}"
             ) from err
-        if not (np.isfinite(sigma) and sigma >= 0):
-            raise InputError(f"--transient SIGMA must be >= 0 days, got {sigma_text!r}")
+        if not (np.isfinite(sigma) and 0 <= sigma <= MAX_DATE_SIGMA_DAYS):
+            raise InputError(
+                f"--transient SIGMA must be between 0 and {MAX_DATE_SIGMA_DAYS:g} days, "
+                f"got {sigma_text!r}"
+            )
     date: Time = parse_date(date_text.strip(), "--transient DATE")
     magnitude = None
     if scenario.transient is not None and scenario.transient.family == family:

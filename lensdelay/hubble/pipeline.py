@@ -179,6 +179,13 @@ class HubbleResult:
     provenance: dict | None = None
 
     @property
+    def h0_prior_text(self) -> str:
+        """The prior H0 was inferred under, in words."""
+        from lensdelay.inference.likelihood import H0_RANGE
+
+        return f"flat on [{H0_RANGE[0]:g}, {H0_RANGE[1]:g}] km/s/Mpc"
+
+    @property
     def h0_quantity(self) -> u.Quantity | None:
         """The median H0 as a Quantity (None without measured delays)."""
         return None if self.h0 is None else self.h0["H0"]["median"] * u.km / u.s / u.Mpc

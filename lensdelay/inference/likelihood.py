@@ -95,6 +95,11 @@ def _position_sigmas(family, floor: float) -> np.ndarray:
     return np.hypot([im.sigma for im in family.images], floor)
 
 
+#: H0's range (km/s/Mpc) when timing data make it a parameter: a flat prior within it
+#: unless a Gaussian one is given.
+H0_RANGE = (10.0, 200.0)
+
+
 class ImageLikelihood:
     """χ² of observed image positions (plus priors, lens light and delays).
 
@@ -243,8 +248,8 @@ class ImageLikelihood:
             else:
                 self.h0_index = len(self.names)
                 self.names.append("H0")
-                lo.append(10.0)
-                hi.append(200.0)
+                lo.append(H0_RANGE[0])
+                hi.append(H0_RANGE[1])
                 if h0_prior is not None:
                     self.priors[self.h0_index] = (float(h0_prior[0]), float(h0_prior[1]))
                 self.scale_start.append(self.h0_ref if h0_prior is None else float(h0_prior[0]))

@@ -10,6 +10,7 @@ pixel by pixel by their median and their spread (half the 16–84% range).
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -18,8 +19,9 @@ from lensdelay.lensing.maps import LENS_QUANTITIES, lens_maps
 
 #: The arrival-time map's unit and meaning.
 ARRIVAL = ("d", "arrival time after the reference image's position, days")
-#: Pixels evaluated at once for posterior rows (bounds the memory of one block).
-BLOCK_VALUES = 4_000_000
+#: Values (rows x pixels) of one quantity evaluated at once for posterior summaries: bounds
+#: the memory of a block (seven quantities and the lens's temporaries, a few hundred MB).
+BLOCK_VALUES = 1_000_000
 
 
 @dataclass(frozen=True)
@@ -89,8 +91,15 @@ def grid_axes(size: float, pixel: float) -> tuple[np.ndarray, np.ndarray]:
 
 def _maps_for(like, rows, family: int, reference_xy, gx, gy) -> dict:
     """Every map for parameter rows (P, n_par): arrays (P, ny, nx)."""
+    flat = _values_at(like, rows, family, reference_xy, gx.ravel(), gy.ravel())
+    shape = (len(rows), *gx.shape)
+    return {k: v.reshape(shape) for k, v in flat.items()}
+
+
+def _values_at(like, rows, family: int, reference_xy, x, y) -> dict:
+    """Every quantity for parameter rows (P, n_par) at pixels ``x``, ``y``: arrays (P, n)."""
     lens = like.lens_for(rows)
-    px, py = gx.ravel()[None, :], gy.ravel()[None, :]
+    px, py = np.asarray(x)[None, :], np.asarray(y)[None, :]
     fam_scale = like.family_scale(family, rows)  # per row when the redshift is free
     maps = lens_maps(lens, px, py, fam_scale)
     src = rows[:, like.source_slice(family)]
@@ -104,8 +113,7 @@ def _maps_for(like, rows, family: int, reference_xy, gx, gy) -> dict:
     scale = like.delay_scale(rows)[:, None]
     days = np.reshape(like.family_days(family, rows), (-1, 1))
     maps["arrival_time"] = (tau - ref) * days * scale
-    shape = (len(rows), *gx.shape)
-    return {k: np.broadcast_to(v, (len(rows), px.shape[1])).reshape(shape) for k, v in maps.items()}
+    return {k: np.broadcast_to(v, (len(rows), px.shape[1])) for k, v in maps.items()}
 
 
 def fitted_maps(
@@ -137,18 +145,24 @@ def fitted_maps(
     median = spread = None
     n = 0
     if rows is not None and len(rows):
+        # pixel-wise quantiles need every row of a pixel at once: the grid is taken in
+        # blocks of pixels holding at most BLOCK_VALUES values per quantity, so memory
+        # stays bounded whatever the number of rows (only the summaries are kept)
         n = len(rows)
-        per_block = max(1, BLOCK_VALUES // gx.size)
-        parts = [
-            _maps_for(like, rows[s : s + per_block], k, ref_xy, gx, gy)
-            for s in range(0, n, per_block)
-        ]
-        stacked = {m: np.concatenate([p[m] for p in parts]) for m in best_maps}
-        median, spread = {}, {}
-        for m, v in stacked.items():
-            with np.errstate(all="ignore"):
-                q16, q50, q84 = np.nanpercentile(v, [16, 50, 84], axis=0)
-            median[m], spread[m] = q50, 0.5 * (q84 - q16)
+        per_block = max(1, BLOCK_VALUES // n)
+        xs, ys = gx.ravel(), gy.ravel()
+        median = {m: np.empty(gx.size) for m in best_maps}
+        spread = {m: np.empty(gx.size) for m in best_maps}
+        for s in range(0, gx.size, per_block):
+            block = _values_at(like, rows, k, ref_xy, xs[s : s + per_block], ys[s : s + per_block])
+            for m, v in block.items():
+                with np.errstate(all="ignore"), warnings.catch_warnings():
+                    warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN pixels
+                    q16, q50, q84 = np.nanpercentile(v, [16, 50, 84], axis=0)
+                median[m][s : s + per_block] = q50
+                spread[m][s : s + per_block] = 0.5 * (q84 - q16)
+        median = {m: v.reshape(gx.shape) for m, v in median.items()}
+        spread = {m: v.reshape(gx.shape) for m, v in spread.items()}
     units = {m: u for m, (u, _) in LENS_QUANTITIES.items()} | {"arrival_time": ARRIVAL[0]}
     meanings = {m: d for m, (_, d) in LENS_QUANTITIES.items()} | {"arrival_time": ARRIVAL[1]}
     return LensMaps(

@@ -16,6 +16,7 @@ def hubble_json(res) -> dict:
         "cosmology": describe_cosmology(res.scenario.cosmology),
         "kappa_ext": list(res.kappa_ext),
         "Om0_prior": list(res.om0_prior),
+        "H0_prior": res.h0_prior_text,
         "H0": res.h0["H0"] if res.h0 is not None else None,
         "D_dt_Mpc": res.h0["D_dt_Mpc"] if res.h0 is not None else None,
         "measured_delays": [vars(d) for d in res.scenario.delays],

@@ -212,14 +212,23 @@ def delays_json(result, provenance: dict | None = None) -> dict:
     return result.as_dict() | ({"provenance": provenance} if provenance else {})
 
 
+#: A delays.json covariance whose standard deviations differ from the half 68% widths of
+#: the same file by more than this factor is used, with a warning.
+COVARIANCE_MISMATCH = 2.0
+
+
 def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
     """Measured delays from a delays.json file, for a scenario's family.
 
     Returns the delays (``MeasuredDelay``, relative to the file's reference image, the
-    measurable ones) and their covariance (days²) in the same order.
+    measurable ones) and their covariance (days²) in the same order. Every problem is
+    one :class:`InputError` naming the file and the key.
     """
     import json
+    import math
+    import warnings
 
+    from lensdelay.errors import LensdelayWarning
     from lensdelay.model.scenario import MeasuredDelay
 
     path = Path(path)
@@ -239,29 +248,54 @@ def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
     if not family:  # measured from curves alone: the scenario's transient's family
         family = scenario.transient.family if scenario.transient else scenario.families[0].label
     fams = {f.label: f for f in scenario.families}
-    if family not in fams:
+    if not isinstance(family, str) or family not in fams:
         raise InputError(f"{where} family must be one of {', '.join(fams)}, got {family!r}")
     labels = fams[family].labels
-    delays, sigmas = [], []
-    for im in doc["images"]:
+    if not isinstance(ref, str) or ref not in labels:
+        raise InputError(
+            f"{where} reference_image must be an image of family {family} "
+            f"({', '.join(labels)}), got {ref!r}"
+        )
+    images = doc["images"]
+    if not isinstance(images, list) or not all(isinstance(im, dict) for im in images):
+        raise InputError(
+            f"{where} images must be a list of objects (label, delay_days), got "
+            f"{type(images).__name__}"
+            + (" of other things" if isinstance(images, list) else "")
+        )
+    delays, sigmas, listed = [], [], set()
+    for im in images:
         lab = im.get("label")
         if lab not in labels:
             raise InputError(
                 f"{where} images[].label must be an image of family {family} "
                 f"({', '.join(labels)}), got {lab!r}"
             )
+        if lab in listed:
+            raise InputError(f"{where} images[].label must list each image once, got {lab!r} twice")
+        listed.add(lab)
         d = im.get("delay_days")
         if lab == ref or d is None:
             continue  # the reference, or a delay the curves could not measure
         try:
-            median = float(d["median"])
-            sigma = 0.5 * (float(d["p84"]) - float(d["p16"]))
+            median, p16, p84 = (float(d[k]) for k in ("median", "p16", "p84"))
         except (KeyError, TypeError, ValueError) as err:
             raise InputError(
                 f"{where} images[{lab}].delay_days must have numbers median, p16 and p84, got {d!r}"
             ) from err
-        delays.append(MeasuredDelay(family, lab, ref, median, max(sigma, 1e-6)))
-        sigmas.append(max(sigma, 1e-6))
+        if not all(math.isfinite(v) for v in (median, p16, p84)):
+            raise InputError(
+                f"{where} images[{lab}].delay_days must hold finite numbers, got {d!r}"
+            )
+        if not (p16 < p84 and p16 <= median <= p84):
+            raise InputError(
+                f"{where} images[{lab}].delay_days must have p16 <= median <= p84 with "
+                f"p16 < p84 (an interval of positive width), got p16 {p16:g}, median "
+                f"{median:g}, p84 {p84:g}"
+            )
+        sigma = 0.5 * (p84 - p16)
+        delays.append(MeasuredDelay(family, lab, ref, median, sigma))
+        sigmas.append(sigma)
     if not delays:
         raise InputError(f"{where} holds no measured delay (every image unmeasurable), got none")
     cov = np.diag(np.square(sigmas))
@@ -272,12 +306,25 @@ def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
             matrix = np.asarray(block["matrix"], dtype=float)
         except (KeyError, TypeError, ValueError) as err:
             raise InputError(
-                f"{where} covariance_days2 needs labels and a matrix, got {block!r}"
+                f"{where} covariance_days2 needs labels and a matrix of numbers, got {block!r}"
             ) from err
         if matrix.shape != (len(order), len(order)):
             raise InputError(
                 f"{where} covariance_days2.matrix must be {len(order)} x {len(order)}, got "
                 f"{matrix.shape}"
+            )
+        if not np.all(np.isfinite(matrix)):
+            raise InputError(f"{where} covariance_days2.matrix must hold finite numbers, got NaN")
+        if not np.allclose(matrix, matrix.T, rtol=1e-9, atol=1e-12):
+            raise InputError(
+                f"{where} covariance_days2.matrix must be symmetric, got a difference of "
+                f"{np.max(np.abs(matrix - matrix.T)):.3g} days^2"
+            )
+        if np.any(np.diag(matrix) <= 0):
+            k = int(np.argmax(np.diag(matrix) <= 0))
+            raise InputError(
+                f"{where} covariance_days2.matrix variances must be > 0, got "
+                f"{matrix[k, k]:g} for {order[k]!r}"
             )
         pos = {lab: k for k, lab in enumerate(order)}
         idx = [pos.get(d.image) for d in delays]
@@ -287,6 +334,16 @@ def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
                 f"{where} covariance_days2.labels must include {missing!r}, got {order}"
             )
         cov = matrix[np.ix_(idx, idx)]
+        ratio = np.sqrt(np.diag(cov)) / np.asarray(sigmas)
+        if np.any((ratio > COVARIANCE_MISMATCH) | (ratio < 1 / COVARIANCE_MISMATCH)):
+            k = int(np.argmax(np.abs(np.log(ratio))))
+            warnings.warn(
+                f"{where}: the covariance gives {delays[k].image} a sigma of "
+                f"{np.sqrt(cov[k, k]):.3g} d, but its p16-p84 half width is {sigmas[k]:.3g} d; "
+                "the covariance is used",
+                LensdelayWarning,
+                stacklevel=2,
+            )
         delays = [
             MeasuredDelay(d.family, d.image, d.relative_to, d.days, float(np.sqrt(cov[k, k])))
             for k, d in enumerate(delays)

@@ -86,6 +86,16 @@ class LightCurves:
         return f, f * 0.4 * np.log(10) * self.mag_err
 
     def cadence(self) -> float:
-        """Median spacing of one image's epochs, days (the reference's, or the first's)."""
-        t = np.unique(self.time[self.image == self.labels[0]])
-        return float(np.median(np.diff(t))) if t.size > 1 else 1.0
+        """Median spacing of one image's epochs, days (the first image's), band by band.
+
+        Each band's epochs are spaced on their own and the median over bands is taken:
+        several bands taken minutes apart on each night are one visit, not a cadence
+        of minutes.
+        """
+        spacings = []
+        first = self.image == self.labels[0]
+        for b in self.bands:
+            t = np.unique(self.time[first & (self.band == b)])
+            if t.size > 1:
+                spacings.append(float(np.median(np.diff(t))))
+        return float(np.median(spacings)) if spacings else 1.0

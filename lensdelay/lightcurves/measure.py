@@ -17,6 +17,7 @@ import numpy as np
 from scipy import stats
 
 from lensdelay.errors import InputError
+from lensdelay.inference.sampling import potential_scale_reduction
 from lensdelay.inference.summaries import quantile_summary
 
 #: Posterior draws behind a quasar's flux ratios (each needs one linear solve).
@@ -33,6 +34,19 @@ MIN_OVERLAP_POINTS = 10
 #: find a partner: with less, a short stretch matched by its own offset beats the whole
 #: curves, whose microlensing the single offset does not remove.
 CROSS_CHECK_OVERLAP = 0.45
+#: A delay whose posterior's 95% interval reaches within this share of the searched
+#: range's edge (±max_delay) is held there by the bound, not by the data.
+BOUND_MARGIN = 0.02
+#: Convergence of a delay's chain (after burn-in), judged three ways: the walkers agree
+#: (Gelman–Rubin R-hat, walkers as chains, below DELAY_MAX_RHAT: looser than a lens
+#: fit's, as an ensemble's walkers are not independent chains), the chain is at least
+#: MIN_TAU_LENGTHS integrated autocorrelation times long (emcee's estimator; Goodman &
+#: Weare 2010 for the ensemble), and the ensemble has stopped widening (its spread over
+#: the last tenth of the steps at most MAX_WIDENING times that over the first tenth: a
+#: chain started in a small ball on a flat posterior is still diffusing).
+DELAY_MAX_RHAT = 1.2
+MIN_TAU_LENGTHS = 10.0
+MAX_WIDENING = 2.0
 
 
 @dataclass(frozen=True)
@@ -223,7 +237,7 @@ def _sample_quasar(model, rng, walkers, steps):
     logp = sampler.get_log_prob(discard=steps // 2)
     flat = chain.reshape(-1, n1 + 2)
     best = flat[np.argmax(logp.ravel())]
-    return flat, best, scans
+    return flat, best, chain[:, :, :n1]
 
 
 def _sample_supernova(model, rng, walkers, steps):
@@ -254,7 +268,8 @@ def _sample_supernova(model, rng, walkers, steps):
     chain = sampler.get_chain(discard=steps // 2)
     logp = sampler.get_log_prob(discard=steps // 2)
     flat = chain.reshape(-1, ndim)
-    return flat, flat[np.argmax(logp.ravel())]
+    k, n1 = model.n_shape, model.n_images - 1
+    return flat, flat[np.argmax(logp.ravel())], chain[:, :, k : k + n1]
 
 
 # -- the job ---------------------------------------------------------------------------
@@ -270,6 +285,7 @@ def measure_delays(
     steps: int = 1500,
     simulations: int = 10,
     seed: int = 1,
+    images=None,
 ) -> MeasuredDelays:
     """Measure every image's delay after ``reference`` from ``curves`` (LightCurves).
 
@@ -291,6 +307,17 @@ def measure_delays(
         point estimates give each delay's bias and spread; 0 skips them.
     seed : int
         Every random draw comes from generators spawned from this seed.
+    images : sequence of str, optional
+        Every image of the family: one the curves lack (or hold only upper limits of,
+        or only in a band the model does not use) is listed as not measurable, saying
+        why (default: the curves' images).
+
+    Notes
+    -----
+    A delay is reported as a measurement only when its posterior is narrower than
+    MEASURABLE_SHARE of the searched range, stays clear of the range's bounds, the
+    curves overlap at it and its chain converged (:func:`chain_verdicts`);
+    otherwise the image is "not measurable from these data", with the reason.
     """
     from lensdelay.lightcurves.quasar import QuasarDelayModel
     from lensdelay.lightcurves.supernova import SupernovaDelayModel
@@ -304,6 +331,11 @@ def measure_delays(
     ):
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
             raise InputError(f"{name} must be an integer >= {low}, got {value!r}")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise InputError(f"seed must be an integer >= 0, got {seed!r}")
+    if max_delay is not None and not (np.isfinite(max_delay) and max_delay > 0):
+        raise InputError(f"max_delay must be a number of days > 0, got {max_delay!r}")
+    all_images = list(images) if images is not None else list(curves.labels)
     det = curves.detections()
     if reference not in det.labels:
         raise InputError(
@@ -319,14 +351,40 @@ def measure_delays(
         kind = _guess_kind(det, reference)
         notes.append(f"source kind taken as {kind} from the reference's light curve")
     rng_sample, rng_sims = (np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(2))
+    missing = {}  # image -> why it has no delay at all
+    for lab in all_images:
+        if lab == reference:
+            continue
+        if lab not in curves.labels:
+            missing[lab] = "not measurable: the light curves hold no data of this image"
+        elif lab not in det.labels:
+            missing[lab] = (
+                "not measurable: the light curves hold only upper limits (non-detections) "
+                "of this image"
+            )
     if kind == "quasar":
         if len(det.bands) > 1:
-            counts = {b: int(np.sum(det.band == b)) for b in det.bands}
-            band = max(counts, key=counts.get)
+            band = _quasar_band(det, reference)
+            for lab in det.labels:
+                if lab != reference and not np.any(det.select(lab, band)):
+                    others = sorted(set(det.band[det.image == lab].tolist()))
+                    missing[lab] = (
+                        f"not measurable: the quasar model is fitted to one band ({band!r}, "
+                        f"the best-sampled one with the reference), and this image was "
+                        f"observed only in {', '.join(repr(b) for b in others)}"
+                    )
             det = det.subset(det.band == band)
-            notes.append(f"quasar model fitted to band {band!r}, the best-sampled one")
+            notes.append(
+                f"quasar model fitted to band {band!r}, the best-sampled one holding the "
+                "reference image"
+            )
+        if len(det.labels) < 2:
+            raise InputError(
+                "light curves must hold detections of the reference and at least one other "
+                f"image in one band, got only {', '.join(det.labels)}"
+            )
         model = QuasarDelayModel(det, reference, order=order, max_delay=max_delay)
-        flat, best, _ = _sample_quasar(model, rng_sample, walkers, steps)
+        flat, best, delay_chain = _sample_quasar(model, rng_sample, walkers, steps)
         delays = flat[:, : model.n_images - 1]
         # flux ratios from the images' magnitude offsets (at the middle of the data, where
         # the polynomials' other terms vanish), drawn with the posterior
@@ -340,7 +398,7 @@ def measure_delays(
         n_par = model.n_images - 1 + 2 + model.n_images * (order + 1)
     else:
         model = SupernovaDelayModel(det, reference, max_delay=max_delay)
-        flat, best = _sample_supernova(model, rng_sample, walkers, steps)
+        flat, best, delay_chain = _sample_supernova(model, rng_sample, walkers, steps)
         k = model.n_shape
         n1 = model.n_images - 1
         delays = flat[:, k : k + n1]
@@ -362,6 +420,7 @@ def measure_delays(
     bias = spread = None
     if simulations:
         bias, spread = _simulation_budget(model, kind, best, det, rng_sims, simulations)
+    verdicts = chain_verdicts(delay_chain, steps, delay_chain.shape[1])
     images = []
     for i, lab in enumerate(labels[1:]):
         d = delays[:, i]
@@ -369,7 +428,17 @@ def measure_delays(
         width = q["p97.5"] - q["p2.5"]
         share, points = overlap(det, reference, lab, q["median"], window)
         statement = ""
-        if width > MEASURABLE_SHARE * search:
+        edge = model.max_delay * (1.0 - BOUND_MARGIN)
+        if verdicts[i]:
+            statement = verdicts[i]
+        elif width <= MEASURABLE_SHARE * search and (q["p97.5"] > edge or q["p2.5"] < -edge):
+            statement = (
+                f"not measurable from these data within the searched range: the posterior runs "
+                f"into the bound "
+                f"(95% interval {q['p2.5']:+.1f}..{q['p97.5']:+.1f} d, search ±"
+                f"{model.max_delay:.0f} d); the delay may lie beyond it — widen --max-delay"
+            )
+        elif width > MEASURABLE_SHARE * search:
             statement = (
                 f"not measurable from these data: the posterior spreads over {width:.0f} of the "
                 f"{search:.0f} days searched (the curves overlap too little, or the delay lies "
@@ -395,11 +464,17 @@ def measure_delays(
                 simulation_spread_days=None if spread is None else float(spread[i]),
             )
         )
+    for lab, why in missing.items():
+        images.append(ImageDelay(lab, False, None, None, None, why))
+    order_of = {lab: k for k, lab in enumerate(all_images + [im.label for im in images])}
+    images.sort(key=lambda im: order_of.get(im.label, len(order_of)))
     keep = [i for i, im in enumerate(images) if im.measurable]
+    column = {lab: i for i, lab in enumerate(labels[1:])}  # the samples' columns
+    kept = [column[images[i].label] for i in keep]
     cov = (
-        np.cov(delays[:, keep].T)
-        if len(keep) > 1
-        else np.array([[float(np.var(delays[:, keep[0]]))]] if keep else np.zeros((0, 0)))
+        np.cov(delays[:, kept].T)
+        if len(kept) > 1
+        else np.array([[float(np.var(delays[:, kept[0]]))]] if kept else np.zeros((0, 0)))
     )
     return MeasuredDelays(
         family=family,
@@ -423,6 +498,51 @@ def measure_delays(
         model=model,
         curves=det,
     )
+
+
+def chain_verdicts(chain: np.ndarray, steps: int, walkers: int) -> list[str]:
+    """Per delay, "" when its chain converged, or why it did not (naming the flags).
+
+    ``chain`` holds the delays after burn-in, (steps, walkers, n_delays).
+    """
+    import emcee
+
+    rhat = potential_scale_reduction(chain)
+    out = []
+    advice = f"run longer (--steps, now {steps}) or with more walkers (--walkers, now {walkers})"
+    for i in range(chain.shape[2]):
+        x = chain[:, :, i]
+        tau = float(emcee.autocorr.integrated_time(x[:, :, None], quiet=True)[0])
+        spread = x.std(axis=1)
+        tenth = max(len(spread) // 10, 1)
+        early, late = float(np.mean(spread[:tenth])), float(np.mean(spread[-tenth:]))
+        if np.isfinite(rhat[i]) and rhat[i] > DELAY_MAX_RHAT:
+            why = f"the walkers disagree (R-hat {rhat[i]:.2f}, more than {DELAY_MAX_RHAT})"
+        elif late > MAX_WIDENING * max(early, 1e-12):
+            why = f"the walkers are still spreading out (their spread grew {late / early:.1f}x)"
+        elif len(x) < MIN_TAU_LENGTHS * tau:
+            why = (
+                f"the chain is {len(x) / tau:.1f} autocorrelation times long (at least "
+                f"{MIN_TAU_LENGTHS:g} are needed)"
+            )
+        else:
+            out.append("")
+            continue
+        out.append(f"not measurable from this chain: it did not converge — {why}; {advice}")
+    return out
+
+
+def _quasar_band(curves, reference: str) -> str:
+    """The band the quasar model uses: it holds the reference, then most images, most rows."""
+    def rank(b):
+        in_band = curves.band == b
+        return (
+            bool(np.any(in_band & (curves.image == reference))),
+            len(set(curves.image[in_band].tolist())),
+            int(np.sum(in_band)),
+        )
+
+    return max(curves.bands, key=rank)
 
 
 def _guess_kind(curves, reference) -> str:

@@ -35,6 +35,15 @@ from lensdelay.model.recipe import (
 )
 
 
+#: The largest 1-σ error of a date the tool accepts (detection, alert or sighting): ten
+#: years; a date known worse than that is no date to forecast from.
+MAX_DATE_SIGMA_DAYS = 3650.0
+#: Above this many member galaxies a scenario is warned about the cost of a fit; the
+#: cost per member and sampler step of 64 walkers on two cores (benchmarks/bench_cluster.py:
+#: 3.5 ms per member per step with 40 images).
+MANY_MEMBERS = 500
+MEMBER_STEP_SECONDS = 3.5e-3
+
 @dataclass(frozen=True)
 class ImageObs:
     """One measured image: label, position (arcsec), 1-σ per coordinate, brightness."""
@@ -210,6 +219,21 @@ class _Table:
         v = self.data[key]
         if not isinstance(v, str) or not v.strip():
             raise InputError(f"{self.name(key)} must be a non-empty string, got {v!r}")
+        return v
+
+    def label(self, key) -> str:
+        """A family or image label: a string every output can carry as written.
+
+        Control characters (line breaks, tabs), braces and double quotes are refused:
+        they would end a line of a table or calendar, or a text field of a region file.
+        """
+        v = self.text(key)
+        bad = [c for c in v if c in '{}"' or ord(c) < 32 or ord(c) == 127]
+        if bad:
+            raise InputError(
+                f"{self.name(key)} must not contain braces, double quotes or control "
+                f"characters (they cannot be written into every output), got {v!r}"
+            )
         return v
 
     def table_list(self, key, required=False) -> list:
@@ -464,7 +488,7 @@ def _parse(doc, source, load_model, load_table=None):
     seen_fam = set()
     for i, fam_raw in enumerate(top.table_list("family", required=True)):
         ft = _Table(fam_raw, f"family[{i}]", ("label", "redshift", "image"))
-        label = ft.text("label")
+        label = ft.label("label")
         if label in seen_fam:
             raise InputError(f"family[{i}].label must be unique, got {label!r} twice")
         seen_fam.add(label)
@@ -474,7 +498,7 @@ def _parse(doc, source, load_model, load_table=None):
             it = _Table(
                 im_raw, f"family[{i}].image[{j}]", ("label", "x", "y", "sigma", "flux", "magnitude")
             )
-            lab = it.text("label")
+            lab = it.label("label")
             if lab in labels:
                 raise InputError(
                     f"family[{i}].image[{j}].label must be unique within family "
@@ -549,7 +573,7 @@ def _parse(doc, source, load_model, load_table=None):
             fam,
             seen,
             date,
-            tt.number("date_sigma_days", 0.0, lo=0.0, hi=3650.0),
+            tt.number("date_sigma_days", 0.0, lo=0.0, hi=MAX_DATE_SIGMA_DAYS),
             tt.number("magnitude", None, lo=-30.0, hi=40.0),
             tt.text("light_curves", default=None),
         )
@@ -607,7 +631,19 @@ def _parse(doc, source, load_model, load_table=None):
         model = load_model(ref)
 
     if "members" in doc:
-        model = model.with_members(_parse_members(doc["members"], load_table, sky))
+        members = _parse_members(doc["members"], load_table, sky)
+        if len(members.ids) > MANY_MEMBERS:
+            # the cost of a fit grows with members x images x walkers x steps
+            hours = len(members.ids) * MEMBER_STEP_SECONDS * 2000 / 3600.0
+            warnings.warn(
+                f"{source}: members.catalogue lists {len(members.ids)} member galaxies; a fit "
+                f"and forecast evaluates every one at every image for each walker and step "
+                f"(about {hours:.0f} h for 2000 sampler steps on two cores): keep the members "
+                "near the images, or expect a long run",
+                LensdelayWarning,
+                stacklevel=2,
+            )
+        model = model.with_members(members)
 
     return Scenario(
         name,

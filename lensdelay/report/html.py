@@ -277,6 +277,17 @@ def _forecast_sections(doc: dict) -> list[str]:
         + " ".join(f"<b>{_e(s)}</b>: {_e(statuses.get(s, ''))}." for s in used)
         + "</p>"
     )
+    archive = [im for im in doc["images"] if im.get("archival_search")]
+    if archive:
+        out.append("<h2 id='archive'>Archival search</h2><ul class='notes'>")
+        out += [
+            f"<li><b>{_e(im['family'])}/{_e(im['label'])}</b>: its 95% window starts before "
+            f"the detection; search data taken between {_e(_day(im['archival_search']['from']))}"
+            f" and {_e(_day(im['archival_search']['to']))}.</li>"
+            for im in archive
+        ]
+        out.append("</ul>")
+    out += _timing_section(doc.get("timing") or {})
     flagged = [(im, f) for im in doc["images"] for f in im.get("flag", [])]
     if flagged:
         out.append("<ul class='notes'>")
@@ -285,6 +296,60 @@ def _forecast_sections(doc: dict) -> list[str]:
         ]
         out.append("</ul>")
     return out
+
+
+def _timing_section(timing: dict) -> list[str]:
+    """The measured delays and sightings the forecast used, each against its prediction."""
+    delays = timing.get("delays") or []
+    sightings = timing.get("sightings") or []
+    if not delays and not sightings:
+        return []
+    out = ["<h2 id='timing'>Measurements used: delays and sightings</h2>"]
+    tension = {t["measurement"]: t for t in timing.get("tensions") or []}
+    rows = []
+    for d in delays:
+        name = f"delay {d['family']}/{d['image']} - {d['relative_to']}"
+        t = tension.get(name, {})
+        rows.append(
+            [
+                _e(name),
+                f"{d['days']:+.2f} ± {d['sigma']:.2f} d",
+                _prediction(t),
+                _verdict(t),
+            ]
+        )
+    for s_ in sightings:
+        name = f"sighting {s_['family']}/{s_['image']}"
+        t = tension.get(name, {})
+        rows.append(
+            [
+                _e(name),
+                f"{_e(_day(s_['date']))} ± {s_['sigma_days']:g} d",
+                _prediction(t),
+                _verdict(t),
+            ]
+        )
+    out.append(
+        _table(["measurement", "value", "predicted from the positions (95%)", "check"], rows)
+        + "<p>Each measurement is compared with what the image positions alone predict "
+        "(model spread, H0, κ_ext, the detection date and the measurement's own error); "
+        "the windows above combine the two.</p>"
+    )
+    return out
+
+
+def _prediction(t: dict) -> str:
+    p = t.get("predicted")
+    if not p:
+        return "—"
+    return f"{p['median']:+.2f} [{p['p2.5']:+.2f}, {p['p97.5']:+.2f}] d"
+
+
+def _verdict(t: dict) -> str:
+    if not t:
+        return "—"
+    text = f"{abs(t['sigma']):.1f} σ, p = {t['p_value']:.2g}"
+    return f"<b>in tension</b>: {_e(text)}" if t.get("in_tension") else _e(text)
 
 
 def _budget_section(doc: dict) -> list[str]:
@@ -342,22 +407,36 @@ def _h0_section(forecast: dict | None, hubble: dict | None) -> list[str]:
                 )
                 + ".</p>"
             )
-    if forecast is not None:
+    timing = (forecast or {}).get("timing") or {}
+    measured = bool(timing.get("delays") or timing.get("sightings"))
+    if forecast is not None and measured:
+        out.append(
+            "<p>The forecast used measured delays or sightings: they fix the delays "
+            "themselves, whatever H0 is, so no table of delays at other values of H0 is "
+            "shown (H0 from the delays: <code>lensdelay hubble</code>).</p>"
+        )
+    elif forecast is not None:
+        # the delays scale as 1/H0 from the H0 the forecast's samples are centred on
+        priors = forecast.get("priors") or {}
+        h0_prior = priors.get("H0")
+        h0_ref = h0_prior[0] if isinstance(h0_prior, list) else priors.get("H0_used")
+        h0_ref = h0_ref[0] if isinstance(h0_ref, list) else h0_ref
         rows = []
         for im in forecast["images"]:
             med = im["delay_days"]["median"]
-            if im["label"] == forecast["reference_image"] or med is None:
+            if im["label"] == forecast["reference_image"] or med is None or not h0_ref:
                 continue
             rows.append(
                 [f"{_e(im['family'])}/{_e(im['label'])}"]
-                + [f"{med * 70.0 / h0:+.1f}" for h0 in (60.0, 65.0, 70.0, 75.0, 80.0)]
+                + [f"{med * h0_ref / h0:+.1f}" for h0 in (60.0, 65.0, 70.0, 75.0, 80.0)]
             )
         if rows:
             out.append(
                 _table(["image", "H0 = 60", "65", "70", "75", "80"], rows, numeric=(1, 2, 3, 4, 5))
-                + "<p>Median delays [days] had H0 been fixed at each value (a delay is "
-                "proportional to 1/H0; the forecast's own windows marginalise over its H0 "
-                "prior; the column at 70 assumes that prior centred there).</p>"
+                + f"<p>Median delays [days] had H0 been fixed at each value (a delay is "
+                f"proportional to 1/H0; the forecast's own windows are for H0 "
+                f"{_e(_prior(h0_prior, 'H0') if isinstance(h0_prior, list) else h0_ref)}"
+                ").</p>"
             )
     return out if len(out) > 1 else []
 

@@ -226,6 +226,8 @@ def hubble_text(res) -> str:
             f"-{h['median'] - h['p16']:.1f}) "
             f"km/s/Mpc [95%: {h['p2.5']:.1f}–{h['p97.5']:.1f}] with kappa_ext ~ "
             f"N{tuple(res.kappa_ext)}",
+            f"priors: H0 {res.h0_prior_text}; Omega_m ~ N{tuple(res.om0_prior)}; "
+            f"mass-model parameters: {res.prior} within their bounds",
             f"D_dt = {d['median']:.0f} (+{d['p84'] - d['median']:.0f} / "
             f"-{d['median'] - d['p16']:.0f}) Mpc",
             "",
