@@ -258,7 +258,9 @@ def check_sample_count(n_samples) -> None:
         or not isinstance(n_samples, (int, np.integer))
         or not low <= n_samples <= high
     ):
-        raise InputError(f"n_samples must be an integer between {low} and {high}, got {n_samples!r}")
+        raise InputError(
+            f"n_samples must be an integer between {low} and {high}, got {n_samples!r}"
+        )
 
 
 def draw_scale_priors(

@@ -115,7 +115,9 @@ def _limits(columns: dict, n: int, where: str) -> np.ndarray:
             dtype=bool,
         )
     except KeyError as err:
-        raise InputError(f"{where} column 'upper_limit' must hold true or false, got {err}") from err
+        raise InputError(
+            f"{where} column 'upper_limit' must hold true or false, got {err}"
+        ) from err
 
 
 def read_light_curves(path, images=None) -> LightCurves:
