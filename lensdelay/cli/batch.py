@@ -257,6 +257,14 @@ def summary_table(rows: list[dict], now: str | None = None):
 SCHEDULER_TIMEOUT = 30.0
 
 
+def check_scheduler_address(scheduler: str) -> None:
+    """Refuse a scheduler address that is not ``PROTOCOL://HOST:PORT``."""
+    if "://" not in scheduler or not scheduler.rsplit(":", 1)[-1].isdigit():
+        raise InputError(
+            f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}"
+        )
+
+
 def _connect(client_class, scheduler: str):
     """A Dask client of ``scheduler``, or one line when it is unreachable or silent.
 
@@ -266,10 +274,7 @@ def _connect(client_class, scheduler: str):
     """
     import threading
 
-    if "://" not in scheduler or not scheduler.rsplit(":", 1)[-1].isdigit():
-        raise InputError(
-            f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}"
-        )
+    check_scheduler_address(scheduler)
     box: dict = {}
 
     def connect():
@@ -280,7 +285,7 @@ def _connect(client_class, scheduler: str):
 
     thread = threading.Thread(target=connect, daemon=True)
     thread.start()
-    thread.join(SCHEDULER_TIMEOUT + 15.0)
+    thread.join(1.5 * SCHEDULER_TIMEOUT)
     if thread.is_alive() or "error" in box:
         err = box.get("error")
         reason = f"{type(err).__name__}: {err}" if err else "no answer"
@@ -352,6 +357,8 @@ def run(args) -> int:
     try:
         check_sampler_settings(args.walkers, args.steps, args.seed)
         check_sample_count(args.samples)
+        if args.scheduler:
+            check_scheduler_address(args.scheduler)
     except InputError as err:
         from lensdelay.cli.options import with_flags
 

@@ -713,8 +713,8 @@ def _resample(
     notes += list(jchain.warnings)
     if ess < want:
         notes.append(
-            f"only about {ess:.0f} independent samples (goal {want:.0f}); increase the sampler "
-            f"steps"
+            f"only about {ess:.0f} independent samples (goal {want:.0f}); raise --steps (this "
+            f"run took {n_steps}) or --walkers"
         )
     valid = samples.valid.astype(float)
     return (

@@ -321,7 +321,7 @@ def sample(
         notes.append(
             f"chain of {steps} steps is shorter than 50 autocorrelation times "
             f"(max tau = {tau_max:.0f} steps; worth about {fewest:.0f} independent samples); "
-            "run longer before trusting the tails"
+            f"run longer (--steps, now {steps}) before trusting the tails"
         )
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
     thin = max(1, int(tau_max // 4))
@@ -333,7 +333,8 @@ def sample(
         notes.append(
             f"the walkers have not mixed (R-hat {rhat[worst]:.2f} for {like.names[worst]}, "
             f"more than {MAX_RHAT}): the spread comes largely from their randomised starting "
-            "fits, an approximation of the posterior; run longer before trusting the tails"
+            f"fits, an approximation of the posterior; run longer (--steps, now {steps}) or "
+            f"with more walkers (--walkers, now {chain.shape[1]}) before trusting the tails"
         )
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
     return Chain(
@@ -513,20 +514,20 @@ IMPORTANCE_MIN = 300
 IMPORTANCE_ROWS = 8000
 
 
-def importance_chain(like, best: np.ndarray, seed: int) -> Chain | None:
+def importance_chain(like, best: np.ndarray, seed: int) -> tuple[Chain | None, str]:
     """A :class:`Chain` of resampled conditional-importance draws, or None (use MCMC).
 
-    For models with fewer constraints than parameters, whose posterior sheet a Markov
+    For models with no more constraints than parameters, whose posterior sheet a Markov
     chain barely crosses (:mod:`lensdelay.inference.importance`). None when the method
     does not apply (a free parameter without a proper prior) or its draws are worth
-    fewer than :data:`IMPORTANCE_MIN` independent ones.
+    fewer than :data:`IMPORTANCE_MIN` independent ones; the second element then says why.
     """
     rng = np.random.default_rng(seed)
     batches = []
     for _ in range(IMPORTANCE_BATCHES):
         draws = conditional_importance(like, best, IMPORTANCE_DRAWS, rng)
         if draws is None:
-            return None
+            return None, "a free parameter has no proper prior to draw it from"
         batches.append(draws)
         merged = ImportanceDraws(
             np.concatenate([b.rows for b in batches]),
@@ -538,7 +539,9 @@ def importance_chain(like, best: np.ndarray, seed: int) -> Chain | None:
             break
     ess = merged.effective_samples
     if ess < IMPORTANCE_MIN:
-        return None
+        return None, (
+            f"its draws were worth {ess:.0f} independent samples (fewer than {IMPORTANCE_MIN})"
+        )
     rows = merged.resample(IMPORTANCE_ROWS, rng)
     ndim = rows.shape[1]
     # wrap periodic parameters (position angles) around the best fit, as the chain does
@@ -567,7 +570,7 @@ def importance_chain(like, best: np.ndarray, seed: int) -> Chain | None:
         np.full(ndim, np.nan),
         draws=merged.n_draws,
         effective_samples=ess,
-    )
+    ), ""
 
 
 def sample_posterior(like, start: np.ndarray, *, seed: int = 1, **chain_options) -> Chain:
@@ -579,13 +582,21 @@ def sample_posterior(like, start: np.ndarray, *, seed: int = 1, **chain_options)
     importance sampling does not apply or its draws are worth fewer than
     :data:`IMPORTANCE_MIN` independent ones.
     """
-    if like.dof < 0:
-        chain = importance_chain(like, start, seed)
+    if like.dof <= 0:
+        chain, why = importance_chain(like, start, seed)
         if chain is not None:
             progress = chain_options.get("progress", False)
             if progress:
                 _progress_display(progress, 1)(1)
             return chain
+        chain = sample(like, start, seed=seed, **chain_options)
+        note = (
+            f"the model has {like.dof} degrees of freedom, a case importance sampling serves "
+            f"best, but it could not be used ({why}): the posterior was sampled by the Markov "
+            "chain instead"
+        )
+        warnings.warn(note, LensdelayWarning, stacklevel=2)
+        return replace(chain, warnings=[note, *chain.warnings])
     return sample(like, start, seed=seed, **chain_options)
 
 

@@ -47,7 +47,7 @@ table { border-collapse: collapse; width: 100%; font-size: 0.86rem; margin: 0.4r
 th, td { padding: 0.3rem 0.45rem; border-bottom: 1px solid var(--rule); text-align: left;
          vertical-align: top; }
 th { background: var(--band); font-weight: 600; }
-td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 td.when { white-space: nowrap; font-variant-numeric: tabular-nums; }
 .scroll { overflow-x: auto; }
 figure { margin: 1rem 0 1.6rem; }
@@ -109,7 +109,11 @@ def _table(head: list[str], rows: list[list[str]], numeric=(), table_id: str = "
     """A table whose cells are already HTML; columns in ``numeric`` right-aligned."""
     ident = f' id="{table_id}"' if table_id else ""
     out = [f'<div class="scroll"><table{ident}><thead><tr>']
-    out += [f"<th>{_e(h)}</th>" for h in head]
+    # a numeric column's header is right-aligned like its cells, so it sits over them
+    out += [
+        f'<th class="num">{_e(h)}</th>' if i in numeric else f"<th>{_e(h)}</th>"
+        for i, h in enumerate(head)
+    ]
     out.append("</tr></thead><tbody>")
     for row in rows:
         out.append("<tr>")
