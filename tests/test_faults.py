@@ -36,7 +36,7 @@ y = -0.01
 sigma = 0.003
 [[mass]]
 profile = "SIS"
-einstein_radius = { value = 1.0, min = 0.2, max = 3.0 }
+einstein_radius = { value = 1.0, min = 0.2, max = 3.0, prior = [1.0, 0.5] }
 [[mass]]
 profile = "shear"
 strength = { value = 0.02, min = 0.0, max = 0.3, prior = [0.02, 0.02] }
@@ -65,6 +65,8 @@ def test_signal_during_sampling_keeps_checkpoint_and_resume_matches(tmp_path, si
         str(scen),
         "--sample",
         "--steps",
+        # long enough that the signal arrives mid-sampling; a chain that has not mixed
+        # runs on (sampling.EXTEND_FACTOR), and the resumed run must follow it exactly
         "2400",
         "--walkers",
         "12",

@@ -118,11 +118,13 @@ def main(argv=None) -> int:
         )
         return 130
     except KeyboardInterrupt:
-        print(
-            "lensdelay: interrupted; no output was written (a sampler checkpoint, if any, "
-            "is kept in --out for --resume)",
-            file=sys.stderr,
+        # only a command with --resume (fit) continues a checkpoint; the others start again
+        tail = (
+            " (the sampler's checkpoint, if any, is kept in --out: run again with --resume)"
+            if hasattr(args, "resume")
+            else "; run the command again"
         )
+        print(f"lensdelay: interrupted; no output was written{tail}", file=sys.stderr)
         return 130
 
 

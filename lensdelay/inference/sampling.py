@@ -249,7 +249,9 @@ def sample(
     path = Path(checkpoint_dir) / "chain.npz" if checkpoint_dir else None
     backend = NpzCheckpoint(path, seed, setup)
     resumed = resume and backend.read(walkers, ndim)
-    if resumed and backend.iteration > steps:
+    # a run of the default length or longer goes on until the walkers agree (or a cap)
+    max_steps = steps * EXTEND_FACTOR if steps >= MIN_STEPS_TO_EXTEND else steps
+    if resumed and backend.iteration > max_steps:
         raise InputError(
             f"steps must be at least the {backend.iteration} steps already in {path} to resume, "
             f"got {steps}"
@@ -273,16 +275,33 @@ def sample(
     show(done)
     stop = stop if stop is not None else StopRequest()
     stop.active, stop.requested = True, False
-    while done < steps:
-        n = min(checkpoint_every, steps - done)
-        # starts that were all moved onto the best fit are identical: allowed, they spread
-        state = sampler.run_mcmc(state, n, progress=False, skip_initial_state_check=True)
-        done += n
-        backend.write(like.names)
-        show(done)
-        if stop.requested:
-            stop.active = False
-            raise KeyboardInterrupt
+    # the lengths at which convergence is judged: steps, then every half of it up to the
+    # cap; a resumed run continues to the next of them, as the uninterrupted run did
+    checks = list(range(steps, max_steps + 1, max(steps // 2, 1)))
+    checks = checks if checks[-1] == max_steps else [*checks, max_steps]
+    goal = next(c for c in checks if c >= done) if done <= max_steps else done
+    extended_from = (steps, float("nan")) if done > steps else None
+    while True:
+        while done < goal:
+            n = min(checkpoint_every, goal - done)
+            # starts that were all moved onto the best fit are identical: allowed, they spread
+            state = sampler.run_mcmc(state, n, progress=False, skip_initial_state_check=True)
+            done += n
+            backend.write(like.names)
+            show(done)
+            if stop.requested:
+                stop.active = False
+                raise KeyboardInterrupt
+        if done >= max_steps:
+            break
+        # R-hat over the second half, in the sampling coordinates (no angle wraps there)
+        worst = np.nanmax(potential_scale_reduction(backend.get_chain()[done // 2 :]))
+        if not worst > RHAT_GOAL:
+            break
+        if extended_from is None or not np.isfinite(extended_from[1]):
+            extended_from = (steps, float(worst)) if done == steps else extended_from
+        goal = next(c for c in checks if c > done)
+    steps = done
     chain, logp, accepted = backend.get_chain(), backend.get_log_prob(), backend.accepted
     stop.active = False
     # τ in the sampling coordinates (no angle wraps there), from the second half so the
@@ -324,6 +343,13 @@ def sample(
             f"run longer (--steps, now {steps}) before trusting the tails"
         )
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
+    if extended_from is not None:
+        notes.append(
+            f"the walkers had not mixed after {extended_from[0]} steps ("
+            + (f"R-hat {extended_from[1]:.2f}, " if np.isfinite(extended_from[1]) else "R-hat ")
+            + f"above the goal {RHAT_GOAL}): the chain ran on to {steps} steps "
+            f"(at most {EXTEND_FACTOR}x --steps)"
+        )
     thin = max(1, int(tau_max // 4))
     rhat = potential_scale_reduction(chain[burn:])
     worst = int(np.nanargmax(rhat)) if np.any(np.isfinite(rhat)) else None
@@ -341,6 +367,14 @@ def sample(
         list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move, rhat
     )
 
+
+#: A chain of at least MIN_STEPS_TO_EXTEND steps whose walkers do not agree (R̂ above
+#: RHAT_GOAL, the note's threshold, over its second half) runs on, half its length at a
+#: time, to at most EXTEND_FACTOR times its steps; a shorter run (a quick look asked for)
+#: stays as asked and its notes say whether it mixed.
+RHAT_GOAL = 1.1
+MIN_STEPS_TO_EXTEND = 1000
+EXTEND_FACTOR = 2
 
 #: Largest potential scale reduction R̂ accepted without a note (Gelman et al. 2013,
 #: Bayesian Data Analysis, 3rd ed., sec. 11.4: common practice).

@@ -126,6 +126,7 @@ def finder_chart(res) -> Figure:
         label="observed image",
     )
     drew_predicted = False
+    labels = []
     for im in res.images:
         if im.family != tr.family:
             continue
@@ -158,14 +159,7 @@ def finder_chart(res) -> Figure:
                 label="predicted image (68%, 95% ellipses)" if not drew_predicted else None,
             )
             drew_predicted = True
-        ax.annotate(
-            _window_label(res, im),
-            (-im.x, im.y),
-            textcoords="offset points",
-            xytext=(8, 7),
-            fontsize=7.5,
-            bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.8},
-        )
+        labels.append((-im.x, im.y, _window_label(res, im)))
 
     _scale_bar(ax, extent)
     if sky is not None:
@@ -201,6 +195,7 @@ def finder_chart(res) -> Figure:
         ax.set_xlim(-extent, extent)
         ax.set_xlabel("East offset [arcsec] (East to the left)")
         ax.set_ylabel("North offset [arcsec]")
+    _place_labels(fig, ax, labels)  # once the axes' limits are final
     where = "" if sky is not None else "; no [sky] origin: offsets only"
     ax.set_title(
         f"{sc.name}: where each image appears (model {view['model_label']})\n"
@@ -210,6 +205,72 @@ def finder_chart(res) -> Figure:
     )
     ax.legend(fontsize=7, loc="lower left", framealpha=0.85)
     return fig
+
+
+#: Where a label may sit around its image (offset points), tried in this order.
+LABEL_OFFSETS = [
+    (dx * r, dy * r)
+    for r in (1.0, 2.0, 3.2)
+    for dx, dy in ((8, 7), (8, -14), (-8, 7), (-8, -14), (0, 12), (0, -18), (14, 0), (-14, 0))
+]
+
+
+def _place_labels(fig, ax, labels) -> None:
+    """Annotate each point with its text where it overlaps no label placed before it.
+
+    Greedy: points are labelled from the most crowded outwards; each label takes the
+    first offset of LABEL_OFFSETS (near the point first) whose box overlaps no other
+    label and no other point, else the offset with the least overlap. A cluster's
+    images can lie within arcseconds on a field of minutes, where fixed offsets pile up.
+    """
+    if not labels:
+        return
+    canvas = fig.canvas
+    if not hasattr(canvas, "get_renderer"):  # a bare Figure: measure text with Agg
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        canvas = FigureCanvasAgg(fig)
+    renderer = canvas.get_renderer()
+    points = ax.transData.transform(np.array([(x, y) for x, y, _ in labels]))
+    gaps = np.hypot(*(points[:, None, :] - points[None, :, :]).transpose(2, 0, 1))
+    np.fill_diagonal(gaps, np.inf)
+    order = np.argsort(gaps.min(axis=1))
+    placed = []
+    for k in order:
+        x, y, text = labels[k]
+        best = None
+        for dx, dy in LABEL_OFFSETS:
+            note = ax.annotate(
+                text,
+                (x, y),
+                textcoords="offset points",
+                xytext=(dx, dy),
+                fontsize=7.5,
+                ha="left" if dx >= 0 else "right",
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.8},
+            )
+            box = note.get_window_extent(renderer).expanded(1.05, 1.15)
+            overlap = sum(_overlap(box, other) for other in placed) + sum(
+                float(box.contains(px, py)) * 50.0
+                for j, (px, py) in enumerate(points)
+                if j != k
+            )
+            if best is None or overlap < best[0]:
+                if best is not None:
+                    best[1].remove()
+                best = (overlap, note, box)
+            else:
+                note.remove()
+            if overlap == 0:
+                break
+        placed.append(best[2])
+
+
+def _overlap(a, b) -> float:
+    """Area (display pixels²) shared by two boxes."""
+    w = min(a.x1, b.x1) - max(a.x0, b.x0)
+    h = min(a.y1, b.y1) - max(a.y0, b.y0)
+    return max(w, 0.0) * max(h, 0.0)
 
 
 def _nice_step(x: float) -> float:

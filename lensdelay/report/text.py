@@ -144,7 +144,7 @@ def fit_text(res: dict) -> str:
         weighted = ch.move == "importance"
         if weighted:
             head = (
-                f"posterior: importance sampling (more parameters than constraints), "
+                f"posterior: importance sampling (no more constraints than parameters), "
                 f"{ch.draws} draws worth {ch.effective_samples:.0f} independent ones, resampled "
                 f"to {len(s)}; {res.likelihood.prior} prior"
             )
