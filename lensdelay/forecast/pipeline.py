@@ -372,6 +372,18 @@ def run_forecast(
             if chain2 is not None:
                 chains.append(chain2)
         t0 = _draw_t0(timing, samples, tr, rng)
+        lacking = ~np.isfinite(t0) & (update.weights > 0)
+        if np.any(lacking):
+            # a sample (of a chain drawn again with the timing data) lacking an image a
+            # sighting names cannot produce that sighting: likelihood zero, as in the
+            # re-weighting (inference.timing)
+            kept = np.where(lacking, 0.0, update.weights)
+            if kept.sum() > 0:
+                update = replace(update, weights=kept / kept.sum())
+            else:  # no sample has the images the data name: impossible under this model
+                update = replace(
+                    update, weights=kept, effective_samples=0.0, log_evidence=-np.inf
+                )
         models.append((samples, t0))
         prior_t0 = tr.date_sigma_days * rng.standard_normal(n)
         prior_models.append((prior_samples, prior_t0))
@@ -426,12 +438,13 @@ def run_forecast(
             f"the dates of image(s) {', '.join(far)} lie more than {MAX_OFFSET_DAYS / 365.25:.0f} "
             "years from the detection; check the redshifts and the mass model"
         )
-    _check_calendar_range(images, tr)
+    _check_calendar_range(images, tr, sc0.source)
     stages("observability")
     calendar = None
     if site is not None and sc0.sky is not None:
         # cover the tails too (0.1–99.9%), so the probability counts every sample
         wide = [weighted_quantiles(im["offsets"], im["weights"], [0.1, 99.9]) for im in images]
+        wide = [w for w in wide if np.all(np.isfinite(w))]
         lo = min(w[0] for w in wide)
         hi = max(w[1] for w in wide)
         first = tr.date + (np.floor(lo) - 1) * u.day
@@ -514,7 +527,7 @@ def run_forecast(
 CALENDAR_YEARS = (1, 9999)
 
 
-def _check_calendar_range(images: list[dict], tr) -> None:
+def _check_calendar_range(images: list[dict], tr, source: str | None = None) -> None:
     """Refuse a forecast whose samples' dates fall outside the years 1–9999.
 
     Every sample that carries weight is checked (the files write quantiles, the
@@ -538,7 +551,8 @@ def _check_calendar_range(images: list[dict], tr) -> None:
             f"transient.date must leave every image's dates within the years "
             f"{CALENDAR_YEARS[0]}-{CALENDAR_YEARS[1]} (ISO 8601 dates), got "
             f"{int(ymd.year):04d}-{int(ymd.month):02d}-{int(ymd.day):02d}, whose images span "
-            f"{min(lows):+.0f} to {max(highs):+.0f} days"
+            f"{min(lows):+.0f} to {max(highs):+.0f} days",
+            source,
         )
 
 

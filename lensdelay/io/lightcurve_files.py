@@ -328,6 +328,11 @@ def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
                 f"{where} covariance_days2.matrix variances must be > 0, got "
                 f"{matrix[k, k]:g} for {order[k]!r}"
             )
+        if np.min(np.linalg.eigvalsh(matrix)) <= 0:
+            raise InputError(
+                f"{where} covariance_days2.matrix must be positive definite, got eigenvalues "
+                f"down to {np.min(np.linalg.eigvalsh(matrix)):.3g} days^2"
+            )
         pos = {lab: k for k, lab in enumerate(order)}
         idx = [pos.get(d.image) for d in delays]
         if None in idx:
