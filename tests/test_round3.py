@@ -567,3 +567,27 @@ def test_posterior_maps_do_not_depend_on_the_block_size(monkeypatch):
     for key in whole.median:
         assert np.array_equal(whole.median[key], blocks.median[key], equal_nan=True)
         assert np.array_equal(whole.spread[key], blocks.spread[key], equal_nan=True)
+
+
+# -- figures: labels of crowded images (the cluster finder chart) -------------------------
+def test_finder_labels_do_not_overlap_on_a_crowded_field():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from lensdelay.report.finder import _overlap, _place_labels
+
+    fig = Figure(figsize=(6, 6))
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    ax.set_xlim(-60, 60)
+    ax.set_ylim(-60, 60)
+    # five images within a few arcseconds on a two-arcminute field
+    xy = [(0.0, 0.0), (2.0, 1.0), (-1.5, 2.5), (1.0, -2.0), (3.0, 3.0)]
+    labels = [(x, y, f"X{k}: 2043-05-01..2047-11-30") for k, (x, y) in enumerate(xy)]
+    _place_labels(fig, ax, labels)
+    renderer = fig.canvas.get_renderer()
+    boxes = [t.get_window_extent(renderer) for t in ax.texts]
+    assert len(boxes) == len(labels)
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert _overlap(boxes[i], boxes[j]) == 0.0

@@ -539,7 +539,7 @@ def _with_model_error(like, result, fit_seed):
 
 #: Draws of the importance sampler per batch, and most batches.
 IMPORTANCE_DRAWS = 20_000
-IMPORTANCE_BATCHES = 2
+IMPORTANCE_BATCHES = 5
 #: Effective samples wanted from importance sampling (another batch is drawn below it),
 #: and fewest accepted (below it the Markov chain samples instead).
 IMPORTANCE_WANTED = 1000
