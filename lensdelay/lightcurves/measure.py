@@ -379,9 +379,11 @@ def measure_delays(
                 "reference image"
             )
         if len(det.labels) < 2:
+            where = f"light curves {curves.source!r} " if curves.source else "light curves "
             raise InputError(
-                "light curves must hold detections of the reference and at least one other "
-                f"image in one band, got only {', '.join(det.labels)}"
+                f"{where}must hold detections of the reference and at least one other "
+                f"image in one band (the quasar model uses one), got only "
+                f"{', '.join(det.labels)} in band {det.bands[0]!r}"
             )
         model = QuasarDelayModel(det, reference, order=order, max_delay=max_delay)
         flat, best, delay_chain = _sample_quasar(model, rng_sample, walkers, steps)
