@@ -2,7 +2,8 @@
 
 A light-curve file is an ECSV table, or a CSV with a header line, one row per
 measurement: ``image``, ``time`` (MJD, UTC) or ``date`` (ISO 8601, UTC), ``mag`` and
-``mag_err`` (or ``flux`` and ``flux_err``), optional ``band`` and ``upper_limit``. Every
+``mag_err`` (or ``flux`` and ``flux_err``), optional ``band``, ``upper_limit`` and
+``instrument``. Every
 problem is refused in one line naming the file, the column and what is allowed.
 """
 
@@ -206,7 +207,17 @@ def read_light_curves(path, images=None) -> LightCurves:
             f"{where} must hold detections of at least two images to measure a delay, "
             f"got {len(detected)} ({', '.join(detected) or 'none'})"
         )
-    return LightCurves(image, time, mag, err, band, limit, str(path))
+    instrument = None
+    if "instrument" in columns:
+        raw = columns["instrument"]
+        mask = np.ma.getmaskarray(raw)
+        if np.any(mask):
+            raise InputError(
+                f"{where} column 'instrument' must name the instrument of every row, got an "
+                f"empty cell in row {int(np.argmax(mask)) + 1}"
+            )
+        instrument = np.asarray([str(v) for v in raw])
+    return LightCurves(image, time, mag, err, band, limit, str(path), instrument)
 
 
 def delays_json(result, provenance: dict | None = None) -> dict:

@@ -33,6 +33,10 @@ class LightCurves:
         Rows whose ``mag`` is a limiting magnitude (a non-detection).
     source : str
         Where the rows came from, for messages.
+    instrument : ndarray of str, optional
+        The telescope/camera of each row (CONVENTIONS.md, "Light curves"): zero points
+        differ between instruments, so each image's magnitude offset is fitted per
+        instrument. None: one instrument.
     """
 
     image: np.ndarray
@@ -42,6 +46,14 @@ class LightCurves:
     band: np.ndarray
     upper_limit: np.ndarray
     source: str = ""
+    instrument: np.ndarray | None = None
+
+    @property
+    def instruments(self) -> np.ndarray:
+        """The instrument of each row ("" when the curves name none)."""
+        if self.instrument is None:
+            return np.full(len(self.image), "")
+        return np.asarray(self.instrument)
 
     @property
     def labels(self) -> list[str]:
@@ -69,6 +81,7 @@ class LightCurves:
             self.band[keep],
             self.upper_limit[keep],
             self.source,
+            None if self.instrument is None else np.asarray(self.instrument)[keep],
         )
 
     def detections(self) -> "LightCurves":

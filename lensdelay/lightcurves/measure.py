@@ -386,6 +386,13 @@ def measure_delays(
                 f"{', '.join(det.labels)} in band {det.bands[0]!r}"
             )
         model = QuasarDelayModel(det, reference, order=order, max_delay=max_delay)
+        if model.instrument_columns:
+            notes.append(
+                f"{len(model.instrument_columns)} instrument offset(s) fitted and marginalised "
+                "(an image's magnitude offset per instrument: "
+                + ", ".join(f"{lab}/{name}" for lab, name in model.instrument_columns)
+                + ")"
+            )
         flat, best, delay_chain = _sample_quasar(model, rng_sample, walkers, steps)
         delays = flat[:, : model.n_images - 1]
         # flux ratios from the images' magnitude offsets (at the middle of the data, where
@@ -397,8 +404,9 @@ def measure_delays(
             beta = model.draw_linear(row[:-2], row[-2], row[-1], rng_sample)
             ratios[k] = 10 ** (-0.4 * (beta[cols[1:]] - beta[cols[0]]))
         chi2 = model.whitened_chi2(best[:-2], best[-2], best[-1])
-        n_par = model.n_images - 1 + 2 + model.n_images * (order + 1)
+        n_par = model.n_images - 1 + 2 + model.design.shape[1]  # delays, σ, τ, linear terms
     else:
+        _one_instrument_per_image(det)
         model = SupernovaDelayModel(det, reference, max_delay=max_delay)
         flat, best, delay_chain = _sample_supernova(model, rng_sample, walkers, steps)
         k = model.n_shape
@@ -500,6 +508,27 @@ def measure_delays(
         model=model,
         curves=det,
     )
+
+
+def _one_instrument_per_image(curves) -> None:
+    """Refuse supernova curves in which one image and band mix instruments.
+
+    The supernova model fits one flux ratio per image and band; instruments with other
+    zero points within one image's band would need an offset each, which only the
+    quasar model fits so far.
+    """
+    inst = curves.instruments
+    for lab in curves.labels:
+        for b in curves.bands:
+            names = sorted(set(inst[curves.select(lab, b)].tolist()))
+            if len(names) > 1:
+                where = f"light curves {curves.source!r} " if curves.source else "light curves "
+                raise InputError(
+                    f"{where}column 'instrument' must name one instrument per image and band "
+                    f"for the supernova model (instrument offsets are fitted by the quasar "
+                    f"model only, so far), got {', '.join(names)} for image {lab}"
+                    + (f" band {b}" if b else "")
+                )
 
 
 def chain_verdicts(chain: np.ndarray, steps: int, walkers: int) -> list[str]:
@@ -611,6 +640,7 @@ def _simulation_budget(model, kind, best, curves, rng, n):
                 np.full(len(y), ""),
                 np.zeros(len(y), dtype=bool),
                 "simulation",
+                model.instrument,
             )
             m = QuasarDelayModel(sim, model.labels[0], order=model.order, max_delay=model.max_delay)
             est = np.zeros(n1)

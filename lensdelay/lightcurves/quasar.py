@@ -9,7 +9,9 @@ walk kernel k(Δt) = σ² exp(−|Δt|/τ) (Kelly, Bechtold & Siemiginowska 2009
 eq. 1-3), Δ_i is the delay of image i after the reference image (Δ_ref = 0), and p_i is a
 polynomial of order ``order`` in the image's own time: its magnitude offset (the
 magnification) and slow microlensing by stars in the lens, which acts in the image's
-frame. The noise is Gaussian with the stated errors.
+frame. Where the curves name several instruments, an image's offset is one per instrument
+(their zero points differ; CONVENTIONS.md, "Light curves"). The noise is Gaussian with
+the stated errors.
 
 The polynomial coefficients enter linearly with Gaussian priors N(0, Λ) and are
 marginalised in closed form: y ~ N(0, K + X Λ Xᵀ), evaluated with the Woodbury identity
@@ -78,6 +80,16 @@ class QuasarDelayModel:
             for p in range(order + 1):
                 cols.append(on * u**p)
                 variances.append((OFFSET_PRIOR_MAG if p == 0 else TREND_PRIOR_MAG) ** 2)
+        # several instruments: each image's offset differs per instrument (zero points);
+        # one more offset column for every instrument of an image after its first
+        self.instrument = curves.instruments
+        self.instrument_columns = []
+        for k in range(self.n_images):
+            mine = self.which == k
+            for name in list(dict.fromkeys(self.instrument[mine].tolist()))[1:]:
+                cols.append((mine & (self.instrument == name)).astype(float))
+                variances.append(OFFSET_PRIOR_MAG**2)
+                self.instrument_columns.append((self.labels[k], name))
         self.design = np.column_stack(cols)
         self.prior_variances = np.array(variances)
         self._log_det_prior = float(np.sum(np.log(self.prior_variances)))
