@@ -90,12 +90,17 @@ def output_folder(path: str | None) -> Path | None:
         existing = existing.parent
     if not existing.is_dir():
         raise InputError(f"--out must be a folder, got a path under the file {str(existing)!r}")
+    _check_writable(existing, "--out", path)
+    return out
+
+
+def _check_writable(folder: Path, flag: str, path: str) -> None:
+    """Refuse ``flag`` when ``folder`` cannot take a new file (a probe is written and removed)."""
     try:
-        with tempfile.TemporaryFile(dir=existing):
+        with tempfile.TemporaryFile(dir=folder):
             pass
     except OSError as err:
-        raise InputError(f"--out must be writable, got {path!r} ({err.strerror})") from err
-    return out
+        raise InputError(f"{flag} must be writable, got {path!r} ({err.strerror})") from err
 
 
 def output_file(path: str, flag: str = "--out") -> Path:
@@ -112,11 +117,7 @@ def output_file(path: str, flag: str = "--out") -> Path:
         raise InputError(
             f"{flag} must be in an existing folder, got {path!r} ({str(parent)!r} is {what})"
         )
-    try:
-        with tempfile.TemporaryFile(dir=parent):
-            pass
-    except OSError as err:
-        raise InputError(f"{flag} must be writable, got {path!r} ({err.strerror})") from err
+    _check_writable(parent, flag, path)
     return target
 
 

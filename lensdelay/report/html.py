@@ -310,29 +310,21 @@ def _timing_section(timing: dict) -> list[str]:
         return []
     out = ["<h2 id='timing'>Measurements used: delays and sightings</h2>"]
     tension = {t["measurement"]: t for t in timing.get("tensions") or []}
-    rows = []
-    for d in delays:
-        name = f"delay {d['family']}/{d['image']} - {d['relative_to']}"
-        t = tension.get(name, {})
-        rows.append(
-            [
-                _e(name),
-                f"{d['days']:+.2f} ± {d['sigma']:.2f} d",
-                _prediction(t),
-                _verdict(t),
-            ]
+    # (the name the tension checks use, the value as measured) for every measurement
+    measured = [
+        (
+            f"delay {d['family']}/{d['image']} - {d['relative_to']}",
+            f"{d['days']:+.2f} ± {d['sigma']:.2f} d",
         )
-    for s_ in sightings:
-        name = f"sighting {s_['family']}/{s_['image']}"
-        t = tension.get(name, {})
-        rows.append(
-            [
-                _e(name),
-                f"{_e(_day(s_['date']))} ± {s_['sigma_days']:g} d",
-                _prediction(t),
-                _verdict(t),
-            ]
-        )
+        for d in delays
+    ] + [
+        (f"sighting {s_['family']}/{s_['image']}", f"{_day(s_['date'])} ± {s_['sigma_days']:g} d")
+        for s_ in sightings
+    ]
+    rows = [
+        [_e(name), _e(value), _prediction(tension.get(name, {})), _verdict(tension.get(name, {}))]
+        for name, value in measured
+    ]
     out.append(
         _table(["measurement", "value", "predicted from the positions (95%)", "check"], rows)
         + "<p>Each measurement is compared with what the image positions alone predict "
