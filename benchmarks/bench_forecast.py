@@ -10,6 +10,7 @@ import time
 import warnings
 
 import numpy as np
+from astropy.time import Time
 
 from lensdelay.errors import LensdelayWarning
 from lensdelay.report.figures import timeline_figure
@@ -94,7 +95,11 @@ def main():
     ):
         t0 = time.perf_counter()
         upd = forecast_scenario(
-            "scenarios/vellmar_quad.toml", n_samples=100_000, budget=False, seen=[seen]
+            "scenarios/vellmar_quad.toml",
+            n_samples=100_000,
+            budget=False,
+            seen=[seen],
+            now=Time("2027-02-01", scale="utc"),  # after the sightings (they have happened)
         )
         route = upd.timing["models"][0]
         print(
