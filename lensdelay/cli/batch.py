@@ -377,9 +377,8 @@ def run(args) -> int:
         "prior": args.prior,
     }
     options = {k: v for k, v in options.items() if v is not None}
-    settings = {
-        k: (v if k not in ("now", "site") else None) for k, v in options.items()
-    } | {"now": now_key, "site": repr(options.get("site"))}
+    settings = {k: v for k, v in options.items() if k not in ("now", "site")}
+    settings |= {"now": now_key, "site": repr(options.get("site"))}
     rows, jobs, redone = [], [], []
     for name, path in systems:
         seed = system_seed(name, args.seed)

@@ -372,18 +372,6 @@ def run_forecast(
             if chain2 is not None:
                 chains.append(chain2)
         t0 = _draw_t0(timing, samples, tr, rng)
-        lacking = ~np.isfinite(t0) & (update.weights > 0)
-        if np.any(lacking):
-            # a sample (of a chain drawn again with the timing data) lacking an image a
-            # sighting names cannot produce that sighting: likelihood zero, as in the
-            # re-weighting (inference.timing)
-            kept = np.where(lacking, 0.0, update.weights)
-            if kept.sum() > 0:
-                update = replace(update, weights=kept / kept.sum())
-            else:  # no sample has the images the data name: impossible under this model
-                update = replace(
-                    update, weights=kept, effective_samples=0.0, log_evidence=-np.inf
-                )
         models.append((samples, t0))
         prior_t0 = tr.date_sigma_days * rng.standard_normal(n)
         prior_models.append((prior_samples, prior_t0))
@@ -730,12 +718,17 @@ def _resample(
             f"only about {ess:.0f} independent samples (goal {want:.0f}); raise --steps (this "
             f"run took {n_steps}) or --walkers"
         )
-    valid = samples.valid.astype(float)
+    # re-solved images may lack one the timing data name: such a sample cannot produce
+    # the measurement, likelihood zero as in the re-weighting (TimingData.log_likelihood)
+    possible = samples.valid & np.isfinite(timing.log_likelihood(samples.columns(timing)))
+    if not np.any(possible):  # impossible under this model (no sample has those images)
+        return samples, TimingUpdate("resample", np.zeros(n), 0.0, -np.inf, 0.0, notes), jchain
+    weights = possible.astype(float)
     return (
         samples,
         TimingUpdate(
             "resample",
-            valid / max(valid.sum(), 1e-300),
+            weights / weights.sum(),
             ess,
             update.log_evidence,
             update.importance_effective_samples,

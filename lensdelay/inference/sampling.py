@@ -280,7 +280,7 @@ def sample(
     checks = list(range(steps, max_steps + 1, max(steps // 2, 1)))
     checks = checks if checks[-1] == max_steps else [*checks, max_steps]
     goal = next(c for c in checks if c >= done) if done <= max_steps else done
-    extended_from = (steps, float("nan")) if done > steps else None
+    first_rhat = None  # R̂ where the run-on began (unknown when resumed past it)
     while True:
         while done < goal:
             n = min(checkpoint_every, goal - done)
@@ -298,10 +298,10 @@ def sample(
         worst = np.nanmax(potential_scale_reduction(backend.get_chain()[done // 2 :]))
         if not worst > RHAT_GOAL:
             break
-        if extended_from is None or not np.isfinite(extended_from[1]):
-            extended_from = (steps, float(worst)) if done == steps else extended_from
+        if done == steps:
+            first_rhat = float(worst)
         goal = next(c for c in checks if c > done)
-    steps = done
+    asked, steps = steps, done
     chain, logp, accepted = backend.get_chain(), backend.get_log_prob(), backend.accepted
     stop.active = False
     # τ in the sampling coordinates (no angle wraps there), from the second half so the
@@ -343,12 +343,11 @@ def sample(
             f"run longer (--steps, now {steps}) before trusting the tails"
         )
         warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
-    if extended_from is not None:
+    if steps > asked:
+        measured = "" if first_rhat is None else f"R-hat {first_rhat:.2f}, "
         notes.append(
-            f"the walkers had not mixed after {extended_from[0]} steps ("
-            + (f"R-hat {extended_from[1]:.2f}, " if np.isfinite(extended_from[1]) else "R-hat ")
-            + f"above the goal {RHAT_GOAL}): the chain ran on to {steps} steps "
-            f"(at most {EXTEND_FACTOR}x --steps)"
+            f"the walkers had not mixed after {asked} steps ({measured}above the goal "
+            f"{RHAT_GOAL}): the chain ran on to {steps} steps (at most {EXTEND_FACTOR}x --steps)"
         )
     thin = max(1, int(tau_max // 4))
     rhat = potential_scale_reduction(chain[burn:])

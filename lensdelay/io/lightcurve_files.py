@@ -26,7 +26,7 @@ def _column(columns: dict, name: str, where: str, unit=None, rows=None) -> np.nd
     ``unit`` already (CONVENTIONS.md). ``rows`` (boolean) limits the checks to those
     rows; the others come back as NaN (upper limits need no error).
     """
-    from astropy import units as u
+    from lensdelay.model.scenario import values_in_unit
 
     col = columns[name]
     if rows is None:
@@ -41,14 +41,7 @@ def _column(columns: dict, name: str, where: str, unit=None, rows=None) -> np.nd
         values = np.asarray(np.ma.getdata(col), dtype=float)
     except (TypeError, ValueError) as err:
         raise InputError(f"{where} column {name!r} must hold numbers, got {col[0]!r}") from err
-    given = getattr(col, "unit", None)
-    if unit is not None and given is not None:
-        try:
-            values = (values * u.Unit(given)).to_value(unit)
-        except (u.UnitsError, ValueError, TypeError) as err:
-            raise InputError(
-                f"{where} column {name!r} must have a unit convertible to {unit}, got {given}"
-            ) from err
+    values = values_in_unit(values, getattr(col, "unit", None), unit, f"{where} column {name!r}")
     values = np.where(rows, values, np.nan)
     bad = rows & ~np.isfinite(values)
     if np.any(bad):
@@ -79,22 +72,13 @@ def _times(columns: dict, where: str) -> np.ndarray:
             return Time(texts, scale="utc").mjd
         except ValueError:
             pass
-        # dates with a UTC offset (ISO 8601 allows "+05:00"): each converted to UTC
-        import datetime as dt
+        # dates with a UTC offset (ISO 8601 allows "+05:00"): each converted to UTC by the
+        # scenario's own date reader
+        from lensdelay.model.scenario import parse_date
 
-        out = []
-        for row, text in enumerate(texts):
-            try:
-                stamp = dt.datetime.fromisoformat(text.replace("Z", "+00:00"))
-            except ValueError as err:
-                raise InputError(
-                    f"{where} column 'date' must hold ISO 8601 dates (UTC, or with an offset), "
-                    f"got {text!r} in row {row + 1}"
-                ) from err
-            if stamp.tzinfo is not None:
-                stamp = stamp.astimezone(dt.timezone.utc).replace(tzinfo=None)
-            out.append(stamp.isoformat())
-        return Time(out, scale="utc").mjd
+        return Time(
+            [parse_date(text, f"{where} column 'date' row {k + 1}") for k, text in enumerate(texts)]
+        ).mjd
     raise InputError(
         f"{where} needs a column 'time' (MJD) or 'date' (ISO 8601, UTC); it has none"
     )

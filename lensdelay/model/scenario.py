@@ -344,15 +344,21 @@ def _column(columns: dict, name: str, ref: str, n: int, default=None, unit=None)
         raise InputError(f"members.catalogue {ref!r} column {name!r} has empty cells")
     values = np.asarray(col.filled(default if default is not None else np.nan), dtype=float)
     given = getattr(columns[name], "unit", None)
-    if unit is not None and given is not None:
-        try:
-            values = (values * u.Unit(given)).to_value(unit)
-        except (u.UnitsError, ValueError, TypeError) as err:
-            raise InputError(
-                f"members.catalogue {ref!r} column {name!r} must have a unit convertible to "
-                f"{unit}, got {given}"
-            ) from err
-    return values
+    return values_in_unit(values, given, unit, f"members.catalogue {ref!r} column {name!r}")
+
+
+def values_in_unit(values: np.ndarray, given, unit, what: str) -> np.ndarray:
+    """``values`` (in unit ``given``, as a table column declares it) converted to ``unit``.
+
+    No conversion when either is None (a column without a unit is taken to be in the
+    unit CONVENTIONS.md states). A unit that does not convert is refused, naming ``what``.
+    """
+    if unit is None or given is None:
+        return values
+    try:
+        return (values * u.Unit(given)).to_value(unit)
+    except (u.UnitsError, ValueError, TypeError) as err:
+        raise InputError(f"{what} must have a unit convertible to {unit}, got {given}") from err
 
 
 def _parse_members(raw, load_table, sky) -> MemberGroup:
