@@ -144,8 +144,19 @@ def test_cosmology_of_a_prepared_forecast_is_the_one_used(prepared):
     planck = forecast_prepared(prepared, cosmology_name="Planck18", **options)
     d_own = next(im for im in own.images if im.label == "D").delay_days["median"]
     d_planck = next(im for im in planck.images if im.label == "D").delay_days["median"]
-    # H0 67.66 instead of 70 (and another Om0): delays longer by about 70/67.66
+    # H0 67.66 instead of 70 (astropy's Planck18 realisation, Planck 2018 VI table 2) and
+    # another Om0: delays longer by about 70/67.66
     assert d_planck / d_own == pytest.approx(70.0 / 67.66, rel=0.02)
+
+
+@pytest.mark.integration
+def test_another_cosmology_is_refused_where_the_prepared_fit_depends_on_it(tmp_path):
+    """Families at two redshifts were fitted with distance ratios of the prepared
+    cosmology: a forecast under another one would use a chain made with other settings."""
+    group = tmp_path / "group"
+    prepare_lens(ROOT / "scenarios" / "kessoway_group.toml", seed=2, out=group, **FAST)
+    with pytest.raises(InputError, match="cosmology must be the one the lens was prepared"):
+        forecast_prepared(group, n_samples=500, budget=False, cosmology_name="Planck18")
 
 
 @pytest.mark.parametrize("date", ["9999-12-25", "0001-01-05"])

@@ -17,7 +17,7 @@ import numpy as np
 from astropy import units as u
 from astropy.time import Time
 
-from lensdelay.model.cosmology import cosmology_from_spec
+from lensdelay.model.cosmology import cosmology_from_spec, describe_cosmology
 from lensdelay.errors import FitError, InputError, choices_text
 from lensdelay.forecast.result import Forecast, ImageForecast, ImageSampleSet
 from lensdelay.forecast.samples import (
@@ -315,6 +315,7 @@ def run_forecast(
         fit_seed, sample_seed = next(stage_seeds), next(stage_seeds)
         if prepared is not None:
             stages(f"prepared {sc.model.label}")
+            _check_prepared_cosmology(prepared[k], sc)
             # the scenario as given here (a --cosmology replaces the prepared one): the
             # chain holds lens parameters; distances come from the cosmology in use
             like = replace(prepared[k], scenario=sc).likelihood()
@@ -509,6 +510,25 @@ def run_forecast(
         sky_view=view,
         h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
     )
+
+
+def _check_prepared_cosmology(prepared, sc) -> None:
+    """Refuse another cosmology for a prepared lens whose fit depends on it.
+
+    With one source redshift the chain holds lens parameters alone, and distances are
+    applied afterwards; with families at several redshifts (or a free one) the fit used
+    the ratios D_ls/D_s between them, which another cosmology changes.
+    """
+    if describe_cosmology(prepared.scenario.cosmology) == describe_cosmology(sc.cosmology):
+        return
+    redshifts = {f.redshift for f in sc.families}
+    if len(redshifts) > 1 or any(f.redshift_free for f in sc.families):
+        raise InputError(
+            "cosmology must be the one the lens was prepared with when its families lie at "
+            "several redshifts (the fit used their distance ratios): prepare the lens again "
+            f"with this cosmology in its scenario, got {describe_cosmology(sc.cosmology)}",
+            sc.source,
+        )
 
 
 #: ISO 8601 dates (and the outputs' calendars) are written with four-digit years.
