@@ -306,6 +306,8 @@ def measure_delays(
     steps: int = 1500,
     simulations: int = 10,
     seed: int = 1,
+    delay_ranges: dict | None = None,
+    delay_prior=None,
 ):
     """Delays of every image after the reference, measured from light curves.
 
@@ -319,8 +321,12 @@ def measure_delays(
     reference : str, optional
         The image whose delay is 0 (default: the scenario's ``seen_in``, else the curves'
         first image).
-    kind, order, max_delay, walkers, steps, simulations, seed
+    kind, order, max_delay, walkers, steps, simulations, seed, delay_ranges
         As for :func:`lensdelay.lightcurves.measure.measure_delays`.
+    delay_prior : path, optional
+        A forecast.json of the same system: each image's predicted delay (its 95%
+        interval, widened by its own width on both sides) bounds the search, a prior
+        from the mass model (quasars; default: none, the curves' overlap alone).
 
     Returns
     -------
@@ -352,6 +358,13 @@ def measure_delays(
         used = used + [Path(curves)]
         curves = read_light_curves(curves, labels)
     reference = reference or curves.labels[0]
+    if delay_prior is not None:
+        from lensdelay.io.lightcurve_files import delay_ranges_from_forecast
+
+        used = used + [Path(delay_prior)]
+        from_forecast = delay_ranges_from_forecast(delay_prior, reference, family)
+        delay_ranges = {**from_forecast, **(delay_ranges or {})}
+        delay_ranges = {k: v for k, v in delay_ranges.items() if k in curves.labels}
     result = _measure(
         curves,
         reference,
@@ -364,6 +377,7 @@ def measure_delays(
         simulations=simulations,
         seed=seed,
         images=labels,
+        delay_ranges=delay_ranges,
     )
     cosmo = sc.cosmology if sc is not None else None
     if cosmo is not None:

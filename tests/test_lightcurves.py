@@ -252,36 +252,6 @@ def test_delays_json_feeds_the_forecast_with_its_covariance(tmp_path, rng):
 
 
 @pytest.mark.integration
-def test_quasar_in_two_bands_uses_the_best_sampled_one(rng):
-    """A quasar model fits one band: the one with the most points, and it says so."""
-    epochs = seasonal_epochs(58000, 2, 200, 4.0, rng)
-    curves = simulate_quasar(
-        {"A": epochs, "B": epochs},
-        {"A": 0.0, "B": 15.0},
-        0.2,
-        80.0,
-        {"A": 0.02, "B": 0.02},
-        {},
-        rng,
-    )
-    n = len(curves.time)
-    sparse = np.arange(n) % 3 == 0  # a second band with a third of the epochs
-    two = LightCurves(
-        np.concatenate([curves.image, curves.image[sparse]]),
-        np.concatenate([curves.time, curves.time[sparse]]),
-        np.concatenate([curves.mag, curves.mag[sparse] + 0.3]),
-        np.concatenate([curves.mag_err, curves.mag_err[sparse]]),
-        np.concatenate([np.full(n, "r"), np.full(sparse.sum(), "g")]),
-        np.zeros(n + sparse.sum(), dtype=bool),
-    )
-    res = measure_delays(two, "A", kind="quasar", order=0, steps=300, simulations=0)
-    assert any("band 'r'" in note for note in res.notes)
-    assert len(res.curves.time) == n
-    b = res.image("B").delay_days
-    assert b["p2.5"] <= 15.0 <= b["p97.5"]
-
-
-@pytest.mark.integration
 def test_instrument_offsets_are_fitted(rng):
     """Two instruments whose zero points differ by 0.3 mag, switching mid-campaign (as
     monitoring programmes merge telescopes): with the `instrument` column the quasar model

@@ -6,6 +6,8 @@ import sys
 from pathlib import Path
 
 from lensdelay.api import measure_delays
+import argparse
+
 from lensdelay.cli.options import number, output_folder
 from lensdelay.io.lightcurve_files import delays_json
 from lensdelay.io.storage import write_output_set
@@ -14,10 +16,15 @@ from lensdelay.report.figures import light_curves_figure
 
 def delays_text(res) -> str:
     """The terminal summary of a measurement."""
+    st = res.settings
+    how = (
+        f"{st['walkers']} walkers x {st['steps']} steps"
+        if "walkers" in st
+        else f"global search, {len(st['models'])} microlensing models"
+    )
     lines = [
         f"Delays after {res.reference} measured from light curves ({res.kind} model; "
-        f"{res.settings['walkers']} walkers x {res.settings['steps']} steps, searched within "
-        f"±{res.settings['max_delay_days']:.0f} d)",
+        f"{how}, searched within ±{st['max_delay_days']:.0f} d)",
         "",
         f"{'image':<8} {'delay [d]':>10} {'68% interval':>20} {'95% interval':>20} "
         f"{'cross-check':>12} {'sim. bias':>10} {'sim. spread':>11}",
@@ -46,12 +53,16 @@ def delays_text(res) -> str:
     lines.append(f"fit: chi2 = {g['chi2']:.1f} for {g['dof']} dof, p = {g['p_value']:.2g}")
     lines.append(
         "(cross-check: the dispersion minimum; sim.: point estimates on curves simulated with "
-        "the data's epochs and errors at the measured values)"
+        "the data's epochs and errors at the measured values"
+        + (", with intrinsic and microlensing variability of other families than the fitted; "
+           "the intervals include them and the spread between microlensing models)"
+           if res.kind == "quasar" else ")")
     )
     lines += [f"NOTE: {n}" for n in res.notes]
     lines.append(
         "Caution: microlensing by stars in the lens adds variability of its own to each image; "
-        "the model treats it as a slow trend (quasars) or a flux ratio per band (supernovae)."
+        "quasars compare a trend, splines and a slow random process for it; supernovae fit a "
+        "flux ratio per band. Delays measured this way are model-dependent."
     )
     return "\n".join(lines)
 
@@ -72,6 +83,8 @@ def run(args) -> int:
         steps=args.steps,
         simulations=args.simulations,
         seed=args.seed,
+        delay_ranges=dict(args.delay_range) if args.delay_range else None,
+        delay_prior=args.delay_prior,
     )
     text = delays_text(res)
     if out is not None:
@@ -86,6 +99,22 @@ def run(args) -> int:
     if out is not None:
         print(f"wrote {out}/delays.json and light_curves.png/pdf", file=sys.stderr)
     return 0
+
+
+def delay_range(text: str) -> tuple[str, tuple[float, float]]:
+    """Argparse type of --delay-range: ``LABEL=LOW:HIGH`` (days, LOW < HIGH)."""
+    try:
+        label, span = text.split("=", 1)
+        low, high = (float(v) for v in span.split(":"))
+    except ValueError as err:
+        raise argparse.ArgumentTypeError(
+            f"must be LABEL=LOW:HIGH (days, e.g. B=-20:80), got {text!r}"
+        ) from err
+    if not (label and low < high and abs(low) < 1e6 and abs(high) < 1e6):
+        raise argparse.ArgumentTypeError(
+            f"must name an image and LOW < HIGH (finite days), got {text!r}"
+        )
+    return label, (low, high)
 
 
 def register(sub) -> None:
@@ -107,6 +136,19 @@ def register(sub) -> None:
         "--order", type=int, default=2, help="quasars: microlensing polynomial order (default 2)"
     )
     p.add_argument("--max-delay", type=number, help="search delays within ± this many days")
+    p.add_argument(
+        "--delay-range",
+        action="append",
+        type=delay_range,
+        metavar="LABEL=LOW:HIGH",
+        help="quasars: a range (days after the reference) the image's delay lies in (a prior)",
+    )
+    p.add_argument(
+        "--delay-prior",
+        metavar="FORECAST_JSON",
+        help="quasars: bound each delay by a forecast's predicted one (its 95%% interval "
+        "widened by its width on both sides); default: the curves' overlap alone",
+    )
     p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
     p.add_argument("--steps", type=int, default=1500, help="sampler steps (default 1500)")
     p.add_argument(

@@ -351,3 +351,56 @@ def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
             for k, d in enumerate(delays)
         ]
     return delays, cov
+
+
+#: A forecast's 95% interval of a delay, widened by this many of its own widths on each
+#: side, bounds the light-curve search (about ±6σ for a Gaussian).
+FORECAST_PRIOR_WIDTHS = 1.0
+
+
+def delay_ranges_from_forecast(path, reference: str, family: str | None = None) -> dict:
+    """Per image, (low, high) days after ``reference`` from a forecast.json's delays.
+
+    The forecast gives each image's delay after the image the transient was seen in; the
+    range after ``reference`` is the widest difference of the two intervals, each widened
+    by FORECAST_PRIOR_WIDTHS of its width on both sides.
+    """
+    import json
+
+    where = str(path)
+    try:
+        doc = json.loads(Path(path).read_text())
+        images = doc["images"]
+    except (OSError, ValueError, KeyError, TypeError) as err:
+        raise InputError(
+            "must be a forecast.json with an 'images' list (lensdelay forecast --out), got "
+            f"{type(err).__name__}",
+            where,
+        ) from err
+    ranges = {}
+    for k, im in enumerate(images if isinstance(images, list) else []):
+        try:
+            if family and im.get("family") not in (None, family):
+                continue
+            d = im["delay_days"]
+            lo, hi = float(d["p2.5"]), float(d["p97.5"])
+        except (KeyError, TypeError, ValueError, AttributeError) as err:
+            raise InputError(
+                f"images[{k}].delay_days must hold numbers p2.5 and p97.5, got "
+                f"{type(err).__name__}",
+                where,
+            ) from err
+        if not (np.isfinite(lo) and np.isfinite(hi) and lo <= hi):
+            raise InputError(
+                f"images[{k}].delay_days must have finite p2.5 <= p97.5, got {lo}, {hi}", where
+            )
+        pad = FORECAST_PRIOR_WIDTHS * max(hi - lo, 0.5)
+        ranges[str(im.get("label"))] = (lo - pad, hi + pad)
+    if reference not in ranges:
+        raise InputError(
+            f"images must include the reference image {reference!r} (of the same system), "
+            f"got {', '.join(sorted(ranges)) or 'none'}",
+            where,
+        )
+    ref_lo, ref_hi = ranges.pop(reference)
+    return {lab: (lo - ref_hi, hi - ref_lo) for lab, (lo, hi) in ranges.items()}

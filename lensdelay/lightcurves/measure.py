@@ -45,6 +45,9 @@ BOUND_MARGIN = 0.02
 #: the last tenth of the steps at most MAX_WIDENING times that over the first tenth: a
 #: chain started in a small ball on a flat posterior is still diffusing).
 DELAY_MAX_RHAT = 1.2
+#: A supernova chain whose delays have not converged runs on, up to this many times the
+#: steps asked for.
+RUN_ON_FACTOR = 4
 MIN_TAU_LENGTHS = 10.0
 MAX_WIDENING = 2.0
 
@@ -61,6 +64,8 @@ class ImageDelay:
     statement: str = ""
     simulation_bias_days: float | None = None
     simulation_spread_days: float | None = None
+    statistical_days: dict | None = None
+    model_spread_days: float | None = None
 
 
 @dataclass(frozen=True)
@@ -122,6 +127,8 @@ class MeasuredDelays:
                     "cross_check_days": im.cross_check_days,
                     "simulation_bias_days": im.simulation_bias_days,
                     "simulation_spread_days": im.simulation_spread_days,
+                    "statistical_days": im.statistical_days,
+                    "model_spread_days": im.model_spread_days,
                 }
             )
         return {
@@ -195,51 +202,6 @@ def overlap(curves, reference: str, image: str, delay: float, window: float) -> 
 
 
 # -- sampling --------------------------------------------------------------------------
-def _sample_quasar(model, rng, walkers, steps):
-    """Sample (delays, ln σ, ln τ) with emcee, walkers drawn from each image's scan."""
-    import emcee
-
-    ln_sigma, ln_tau = model.fit_variability()
-    n1 = model.n_images - 1
-    starts = np.empty((walkers, n1 + 2))
-    scans = []
-    for i in range(1, model.n_images):
-        grid, ll = model.scan(i, ln_sigma, ln_tau)
-        p = np.exp(ll - np.max(ll))
-        p /= p.sum()
-        scans.append((grid, ll))
-        step = grid[1] - grid[0] if len(grid) > 1 else 1.0
-        starts[:, i - 1] = rng.choice(grid, size=walkers, p=p) + rng.uniform(
-            -step / 2, step / 2, walkers
-        )
-    starts[:, -2] = ln_sigma + 0.05 * rng.standard_normal(walkers)
-    starts[:, -1] = ln_tau + 0.05 * rng.standard_normal(walkers)
-    starts[:, :n1] = np.clip(starts[:, :n1], -model.max_delay * 0.999, model.max_delay * 0.999)
-    logp0 = np.array([model.log_posterior(p) for p in starts])
-    good = np.isfinite(logp0)
-    if not np.any(good):
-        raise InputError(
-            "light curves could not be fitted by the quasar model (no starting point with a "
-            "finite likelihood); check the curves, or try kind supernova"
-        )
-    for k in np.nonzero(~good)[0]:
-        # a walker where the likelihood fails: moved next to a working one
-        starts[k] = starts[rng.choice(np.nonzero(good)[0])] + 1e-3 * rng.standard_normal(n1 + 2)
-    sampler = emcee.EnsembleSampler(
-        walkers,
-        n1 + 2,
-        model.log_posterior,
-        moves=[(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)],
-    )
-    sampler.random_state = np.random.RandomState(int(rng.integers(2**31))).get_state()
-    sampler.run_mcmc(starts, steps, progress=False)
-    chain = sampler.get_chain(discard=steps // 2)
-    logp = sampler.get_log_prob(discard=steps // 2)
-    flat = chain.reshape(-1, n1 + 2)
-    best = flat[np.argmax(logp.ravel())]
-    return flat, best, chain[:, :, :n1]
-
-
 def _sample_supernova(model, rng, walkers, steps):
     """Sample with emcee (stretch move, vectorised) from a jittered maximum-posterior point."""
     import emcee
@@ -265,11 +227,20 @@ def _sample_supernova(model, rng, walkers, steps):
     sampler = emcee.EnsembleSampler(walkers, ndim, model.log_posterior, vectorize=True)
     sampler.random_state = np.random.RandomState(int(rng.integers(2**31))).get_state()
     sampler.run_mcmc(p0, steps, progress=False)
-    chain = sampler.get_chain(discard=steps // 2)
-    logp = sampler.get_log_prob(discard=steps // 2)
-    flat = chain.reshape(-1, ndim)
     k, n1 = model.n_shape, model.n_images - 1
-    return flat, flat[np.argmax(logp.ravel())], chain[:, :, k : k + n1]
+    total = steps
+    # run on while the delays' walkers disagree (R-hat over the second half), up to
+    # RUN_ON_FACTOR times the steps asked for: a quad's shared shape mixes slowly
+    while total < RUN_ON_FACTOR * steps:
+        chain = sampler.get_chain(discard=total // 2)[:, :, k : k + n1]
+        if np.all(potential_scale_reduction(chain) <= DELAY_MAX_RHAT):
+            break
+        sampler.run_mcmc(None, steps, progress=False)
+        total += steps
+    chain = sampler.get_chain(discard=total // 2)
+    logp = sampler.get_log_prob(discard=total // 2)
+    flat = chain.reshape(-1, ndim)
+    return flat, flat[np.argmax(logp.ravel())], chain[:, :, k : k + n1], total
 
 
 # -- the job ---------------------------------------------------------------------------
@@ -286,6 +257,7 @@ def measure_delays(
     simulations: int = 10,
     seed: int = 1,
     images=None,
+    delay_ranges: dict | None = None,
 ) -> MeasuredDelays:
     """Measure every image's delay after ``reference`` from ``curves`` (LightCurves).
 
@@ -301,7 +273,8 @@ def measure_delays(
         Search delays within ±max_delay days (default: 0.8 × the span for quasars, the
         span for supernovae).
     walkers, steps : int
-        emcee settings (half of the steps are discarded as burn-in).
+        Supernovae: emcee settings (half of the steps are discarded as burn-in). The
+        quasar search (:mod:`.search`) needs none.
     simulations : int
         Simulated data sets (the data's epochs and errors, the measured values) whose
         point estimates give each delay's bias and spread; 0 skips them.
@@ -311,6 +284,9 @@ def measure_delays(
         Every image of the family: one the curves lack (or hold only upper limits of,
         or only in a band the model does not use) is listed as not measurable, saying
         why (default: the curves' images).
+    delay_ranges : dict image -> (low, high), optional
+        Quasars: ranges (days) each delay is known to lie in, e.g. a forecast's predicted
+        delays; a prior on top of the curves' own overlap rule (default: none).
 
     Notes
     -----
@@ -319,7 +295,6 @@ def measure_delays(
     curves overlap at it and its chain converged (:func:`chain_verdicts`);
     otherwise the image is "not measurable from these data", with the reason.
     """
-    from lensdelay.lightcurves.quasar import QuasarDelayModel
     from lensdelay.lightcurves.supernova import SupernovaDelayModel
 
     if kind not in ("auto", "quasar", "supernova"):
@@ -363,52 +338,37 @@ def measure_delays(
                 "of this image"
             )
     if kind == "quasar":
-        if len(det.bands) > 1:
-            band = _quasar_band(det, reference)
-            for lab in det.labels:
-                if lab != reference and not np.any(det.select(lab, band)):
-                    others = sorted(set(det.band[det.image == lab].tolist()))
-                    missing[lab] = (
-                        f"not measurable: the quasar model is fitted to one band ({band!r}, "
-                        f"the best-sampled one with the reference), and this image was "
-                        f"observed only in {', '.join(repr(b) for b in others)}"
-                    )
-            det = det.subset(det.band == band)
-            notes.append(
-                f"quasar model fitted to band {band!r}, the best-sampled one holding the "
-                "reference image"
-            )
         if len(det.labels) < 2:
             where = f"light curves {curves.source!r} " if curves.source else "light curves "
             raise InputError(
                 f"{where}must hold detections of the reference and at least one other "
-                f"image in one band (the quasar model uses one), got only "
-                f"{', '.join(det.labels)} in band {det.bands[0]!r}"
+                f"image, got only {', '.join(det.labels)}"
             )
-        model = QuasarDelayModel(det, reference, order=order, max_delay=max_delay)
-        if model.instrument_columns:
-            notes.append(
-                f"{len(model.instrument_columns)} instrument offset(s) fitted and marginalised "
-                "(an image's magnitude offset per instrument: "
-                + ", ".join(f"{lab}/{name}" for lab, name in model.instrument_columns)
-                + ")"
-            )
-        flat, best, delay_chain = _sample_quasar(model, rng_sample, walkers, steps)
-        delays = flat[:, : model.n_images - 1]
-        # flux ratios from the images' magnitude offsets (at the middle of the data, where
-        # the polynomials' other terms vanish), drawn with the posterior
-        rows = flat[rng_sample.integers(0, len(flat), RATIO_DRAWS)]
-        cols = model.flux_ratio_columns()
-        ratios = np.empty((len(rows), model.n_images - 1))
-        for k, row in enumerate(rows):
-            beta = model.draw_linear(row[:-2], row[-2], row[-1], rng_sample)
-            ratios[k] = 10 ** (-0.4 * (beta[cols[1:]] - beta[cols[0]]))
-        chi2 = model.whitened_chi2(best[:-2], best[-2], best[-1])
-        n_par = model.n_images - 1 + 2 + model.design.shape[1]  # delays, σ, τ, linear terms
+        _check_variability(det, reference)
+        return _measure_quasar(
+            det,
+            reference,
+            family=family,
+            order=order,
+            max_delay=max_delay,
+            simulations=simulations,
+            seed=seed,
+            rng=rng_sample,
+            rng_sims=rng_sims,
+            missing=missing,
+            notes=notes,
+            all_images=all_images,
+            delay_ranges=delay_ranges,
+        )
     else:
         _one_instrument_per_image(det)
         model = SupernovaDelayModel(det, reference, max_delay=max_delay)
-        flat, best, delay_chain = _sample_supernova(model, rng_sample, walkers, steps)
+        flat, best, delay_chain, steps_run = _sample_supernova(model, rng_sample, walkers, steps)
+        if steps_run > steps:
+            notes.append(
+                f"the chain ran on to {steps_run} steps (from {steps}): its walkers had not "
+                "agreed on the delays"
+            )
         k = model.n_shape
         n1 = model.n_images - 1
         delays = flat[:, k : k + n1]
@@ -430,7 +390,7 @@ def measure_delays(
     bias = spread = None
     if simulations:
         bias, spread = _simulation_budget(model, kind, best, det, rng_sims, simulations)
-    verdicts = chain_verdicts(delay_chain, steps, delay_chain.shape[1])
+    verdicts = chain_verdicts(delay_chain, steps_run, delay_chain.shape[1])
     images = []
     for i, lab in enumerate(labels[1:]):
         d = delays[:, i]
@@ -496,7 +456,7 @@ def measure_delays(
         goodness=goodness,
         settings={
             "walkers": int(walkers),
-            "steps": int(steps),
+            "steps": int(steps_run),
             "max_delay_days": float(model.max_delay),
             "order": int(order) if kind == "quasar" else None,
             "simulations": int(simulations),
@@ -563,19 +523,6 @@ def chain_verdicts(chain: np.ndarray, steps: int, walkers: int) -> list[str]:
     return out
 
 
-def _quasar_band(curves, reference: str) -> str:
-    """The band the quasar model uses: it holds the reference, then most images, most rows."""
-    def rank(b):
-        in_band = curves.band == b
-        return (
-            bool(np.any(in_band & (curves.image == reference))),
-            len(set(curves.image[in_band].tolist())),
-            int(np.sum(in_band)),
-        )
-
-    return max(curves.bands, key=rank)
-
-
 def _guess_kind(curves, reference) -> str:
     """A supernova rises and fades within the data; a quasar flickers throughout."""
     for b in curves.bands:
@@ -589,65 +536,16 @@ def _guess_kind(curves, reference) -> str:
 
 
 # -- the error budget from simulated data ------------------------------------------------------
-def _refined_scan_peak(model, image, ln_sigma, ln_tau) -> float:
-    """The scan's best delay, refined between its neighbours (the pairwise likelihood)."""
-    from scipy import optimize
-
-    grid, ll = model.scan(image, ln_sigma, ln_tau)
-    j = int(np.argmax(ll))
-    step = grid[1] - grid[0] if len(grid) > 1 else 1.0
-    rows = (model.which == 0) | (model.which == image)
-    delays = np.zeros(model.n_images - 1)
-
-    def cost(d):
-        delays[image - 1] = d
-        return -model.log_likelihood(delays, ln_sigma, ln_tau, rows)
-
-    res = optimize.minimize_scalar(
-        cost, bounds=(grid[j] - step, grid[j] + step), method="bounded", options={"xatol": 1e-3}
-    )
-    return float(res.x)
-
-
 def _simulation_budget(model, kind, best, curves, rng, n):
     """Bias and spread of point estimates on ``n`` simulated data sets, per image (days).
 
     The data sets have the data's epochs and errors and the measured values ``best``.
     """
     from lensdelay.lightcurves.curves import FLUX_ZERO_POINT, LightCurves
-    from lensdelay.lightcurves.simulate import damped_random_walk
 
     n1 = model.n_images - 1
     errors = np.zeros((n, n1))
-    if kind == "quasar":
-        from lensdelay.lightcurves.quasar import QuasarDelayModel
-
-        truth = best[:n1]
-        beta = model.linear_coefficients(best[:n1], best[-2], best[-1])
-        trend = model.design @ beta
-        shift = np.concatenate([[0.0], truth])[model.which]
-        for s in range(n):
-            y = (
-                damped_random_walk(model.t - shift, np.exp(best[-2]), np.exp(best[-1]), rng)
-                + trend
-                + model.err * rng.standard_normal(len(model.t))
-            )
-            sim = LightCurves(
-                np.array(model.labels)[model.which],
-                model.t,
-                y,
-                model.err,
-                np.full(len(y), ""),
-                np.zeros(len(y), dtype=bool),
-                "simulation",
-                model.instrument,
-            )
-            m = QuasarDelayModel(sim, model.labels[0], order=model.order, max_delay=model.max_delay)
-            est = np.zeros(n1)
-            for i in range(1, m.n_images):
-                est[i - 1] = _refined_scan_peak(m, i, best[-2], best[-1])
-            errors[s] = est - truth
-    else:
+    if kind == "supernova":
         from lensdelay.lightcurves.supernova import SupernovaDelayModel
 
         k = model.n_shape
@@ -672,3 +570,228 @@ def _simulation_budget(model, kind, best, curves, rng, n):
             est = m.point_estimate()
             errors[s] = est[k : k + n1] - truth
     return errors.mean(axis=0), errors.std(axis=0, ddof=1) if n > 1 else np.zeros(n1)
+
+
+# -- quasars: the global search (search.py) --------------------------------------------------
+#: A quasar delay whose final 95% interval is wider than this share of the admitted range
+#: of delays is not reported as a measurement: the curves hardly constrain it.
+QUASAR_MEASURABLE_SHARE = 0.1
+#: Draws of the linear terms behind a quasar's flux ratios (each solves the whole model).
+QUASAR_RATIO_DRAWS = 40
+
+
+def _cross_check_grid(admitted_range, cadence) -> np.ndarray:
+    """The dispersion cross-check's trial delays: the admitted range, at most 1500 of them."""
+    lo, hi = admitted_range
+    step = max(0.25 * cadence, (hi - lo) / 1500.0)
+    return np.arange(lo, hi + step / 2, step)
+
+
+def _check_variability(curves, reference: str) -> None:
+    """Refuse curves that cannot carry a delay: an image whose magnitudes never change."""
+    for lab in curves.labels:
+        m = curves.mag[curves.image == lab]
+        if m.size > 1 and np.ptp(m) == 0:
+            where = f"light curves {curves.source!r} " if curves.source else "light curves "
+            raise InputError(
+                f"{where}column mag of image {lab} must vary (a delay is read from "
+                f"variability seen in two images), got the constant {m[0]:g} in all "
+                f"{m.size} rows"
+            )
+
+
+def _measure_quasar(
+    det,
+    reference,
+    *,
+    family,
+    order,
+    max_delay,
+    simulations,
+    seed,
+    rng,
+    rng_sims,
+    missing,
+    notes,
+    all_images,
+    delay_ranges,
+) -> MeasuredDelays:
+    """The quasar branch of :func:`measure_delays`: the global search and its budget."""
+    from lensdelay.lightcurves import search
+
+    labels = [reference] + [lab for lab in det.labels if lab != reference]
+    ranges = None
+    if delay_ranges:
+        unknown = sorted(set(delay_ranges) - set(labels[1:]))
+        if unknown:
+            raise InputError(
+                f"delay_ranges must name images of the curves other than the reference "
+                f"({', '.join(labels[1:])}), got {', '.join(unknown)}"
+            )
+        ranges = [delay_ranges.get(lab) for lab in labels[1:]]
+        for lab, r in delay_ranges.items():
+            if r is None or not (np.all(np.isfinite(r)) and r[0] < r[1]):
+                raise InputError(
+                    f"delay_ranges[{lab!r}] must be (low, high) days with low < high, got {r!r}"
+                )
+    found = search.search_quasar(
+        det,
+        reference,
+        max_delay=max_delay,
+        prior_ranges=ranges,
+        simulations=simulations,
+        rng=rng,
+        rng_sims=rng_sims,
+        order=order,
+    )
+    model = found.model
+    if len(det.bands) > 1:
+        notes.append(
+            f"all {len(det.bands)} bands used ({', '.join(det.bands)}): each has its own "
+            "intrinsic curve (same σ and τ) and its own microlensing terms; the delays are shared"
+        )
+    if model.instrument_columns:
+        notes.append(
+            f"{len(model.instrument_columns)} instrument offset(s) fitted and marginalised "
+            "(an image's magnitude offset per instrument: "
+            + ", ".join(f"{lab}/{name}" for lab, name in model.instrument_columns)
+            + ")"
+        )
+    notes.append(
+        f"microlensing model of the highest evidence: {model.extrinsic.name}; the delays are "
+        "averaged over all models compared, by their evidence"
+    )
+    if ranges is not None:
+        notes.append(
+            "delays searched within the given ranges (a prior, e.g. a forecast's): "
+            + ", ".join(
+                f"{lab} {r[0]:+.0f}..{r[1]:+.0f} d" for lab, r in zip(labels[1:], ranges) if r
+            )
+        )
+    else:
+        notes.append(
+            "delays searched wherever the curves overlap enough (no prior from a mass model)"
+        )
+    notes += found.notes
+    g = found.goodness
+    refused_fit = found.scale > search.MAX_SCALE
+    if found.scale > 1.0 and not refused_fit:
+        notes.append(
+            f"the fit is poor (chi2 = {g['chi2']:.0f} for {g['dof']} dof, p = {g['p_value']:.1g}):"
+            f" every interval widened by sqrt(chi2/dof) = {found.scale:.2f}"
+        )
+    window = max(2.0 * det.cadence(), 1.0)
+    images = []
+    draws = found.statistical[:: max(len(found.statistical) // QUASAR_RATIO_DRAWS, 1)]
+    for i, lab in enumerate(labels[1:]):
+        d = found.final[:, i]
+        statement = ""
+        adm = found.admitted[i]
+        if adm is None or np.all(np.isnan(d)):
+            statement = (
+                f"not measurable from these data: at no delay within ±{model.max_delay:.0f} d "
+                f"do the curves overlap enough (at least {100 * search.MIN_OVERLAP_SHARE:.0f}% "
+                f"of the shorter curve's points, and {search.MIN_OVERLAP_POINTS}, within "
+                f"{window:.1f} d of a reference point)"
+            )
+            q = None
+        else:
+            q = quantile_summary(d)
+            width = q["p97.5"] - q["p2.5"]
+            extent = (
+                adm[1] - adm[0]
+                if ranges is None or ranges[i] is None
+                else min(adm[1], ranges[i][1]) - max(adm[0], ranges[i][0])
+            )
+            if refused_fit:
+                statement = (
+                    f"not measurable: the model does not describe these curves (chi2 = "
+                    f"{g['chi2']:.0f} for {g['dof']} dof; sqrt(chi2/dof) = {found.scale:.1f} > "
+                    f"{search.MAX_SCALE:g}) — check the errors, instruments and outliers"
+                )
+            elif not found.shared_odds[i] >= search.MIN_SHARED_LN_ODDS:
+                statement = (
+                    "not measurable from these data: the curves show no variability in common "
+                    f"(log Bayes factor of one source against two independent curves "
+                    f"{found.shared_odds[i]:.1f}, below {search.MIN_SHARED_LN_ODDS:g}); the "
+                    "delay may lie where these data cannot show it"
+                )
+            elif found.edge[i]:
+                statement = (
+                    f"not measurable from these data: the posterior reaches delays where the "
+                    f"curves no longer overlap enough (95% interval {q['p2.5']:+.1f}.."
+                    f"{q['p97.5']:+.1f} d); the delay may lie where these data cannot show it"
+                )
+            elif width > QUASAR_MEASURABLE_SHARE * max(extent, 1e-9):
+                statement = (
+                    f"not measurable from these data: the 95% interval spans {width:.0f} d, more "
+                    f"than {100 * QUASAR_MEASURABLE_SHARE:.0f}% of the {extent:.0f} d of delays "
+                    "at which the curves overlap"
+                )
+        measurable = not statement
+        ratio = None
+        if measurable:
+            cols = model.flux_ratio_columns()
+            r = []
+            for row in draws[:QUASAR_RATIO_DRAWS]:
+                if np.any(np.isnan(row)):
+                    continue
+                beta = model.draw_linear(np.nan_to_num(row), *found.hyper, rng)
+                if cols[i + 1] is not None and cols[0] is not None:
+                    r.append(10 ** (-0.4 * (beta[cols[i + 1]] - beta[cols[0]])))
+            ratio = quantile_summary(np.array(r)) if r else None
+        images.append(
+            ImageDelay(
+                label=lab,
+                measurable=measurable,
+                delay_days=q if measurable else None,
+                flux_ratio=ratio,
+                cross_check_days=None
+                if adm is None
+                else dispersion_delay(
+                    det, reference, lab, _cross_check_grid(adm, det.cadence()), window
+                ),
+                statement=statement,
+                simulation_bias_days=float(found.simulation_bias[i]) if simulations else None,
+                simulation_spread_days=float(found.simulation_spread[i]) if simulations else None,
+                statistical_days=quantile_summary(found.statistical[:, i]) if q else None,
+                model_spread_days=float(found.model_spread[i]),
+            )
+        )
+    for lab, why in missing.items():
+        images.append(ImageDelay(lab, False, None, None, None, why))
+    order_of = {lab: k for k, lab in enumerate(all_images + [im.label for im in images])}
+    images.sort(key=lambda im: order_of.get(im.label, len(order_of)))
+    kept = [labels.index(im.label) - 1 for im in images if im.measurable]
+    cov = np.atleast_2d(np.cov(found.final[:, kept].T)) if kept else np.zeros((0, 0))
+    models = [
+        {"model": ms.extrinsic.name, "log_evidence": round(ms.log_evidence, 2)}
+        for ms in found.model_scans
+    ]
+    return MeasuredDelays(
+        family=family,
+        reference=reference,
+        kind="quasar",
+        images=tuple(images),
+        covariance_labels=tuple(labels[k + 1] for k in kept),
+        covariance_days2=cov,
+        goodness=g,
+        settings={
+            "search": "grid over the admitted delays, every mode kept; joint posterior by "
+            "importance sampling",
+            "max_delay_days": float(model.max_delay),
+            "order": int(order),
+            "simulations": int(simulations),
+            "seed": int(seed),
+            "models": models,
+            "poor_fit_scale": float(found.scale),
+            "delay_ranges": None
+            if ranges is None
+            else {lab: list(r) for lab, r in zip(labels[1:], ranges) if r is not None},
+        },
+        notes=tuple(notes),
+        samples=found.final,
+        best=np.concatenate([found.best, found.hyper]),
+        model=model,
+        curves=det,
+    )

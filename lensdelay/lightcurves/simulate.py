@@ -164,3 +164,33 @@ def simulate_supernova(
         np.zeros(n, dtype=bool),
         "simulated supernova",
     )
+
+
+def matern32_process(times, sigma: float, scale: float, rng) -> np.ndarray:
+    """One realisation at ``times`` of a zero-mean Matérn-3/2 process (rms σ, scale days).
+
+    Smoother than a damped random walk (its spectrum falls as f⁻⁴, not f⁻²): drawn exactly
+    by a Cholesky factor of its covariance (Rasmussen & Williams 2006, eq. 4.17) at the
+    unique times, for the error budget's curves of another family than the one fitted.
+    """
+    times = np.asarray(times, dtype=float)
+    u, inverse = np.unique(times, return_inverse=True)
+    r = np.sqrt(3.0) * np.abs(u[:, None] - u[None, :]) / scale
+    cov = sigma**2 * (1.0 + r) * np.exp(-r) + 1e-10 * sigma**2 * np.eye(len(u))
+    draw = np.linalg.cholesky(cov) @ rng.standard_normal(len(u))
+    return draw[inverse]
+
+
+def smooth_drift(times, amplitude: float, period: float, rng) -> np.ndarray:
+    """A slow drift: a random cubic over the data plus a sinusoid of ``period`` days.
+
+    Both parts have rms about ``amplitude`` / √2 (mag): microlensing as a deterministic
+    trend, a family the Gaussian models do not draw from.
+    """
+    times = np.asarray(times, dtype=float)
+    mid, half = 0.5 * (times.max() + times.min()), max(0.5 * np.ptp(times), 1e-9)
+    u = (times - mid) / half
+    cubic = np.polynomial.legendre.legval(u, rng.standard_normal(4))
+    cubic *= amplitude / np.sqrt(2) / max(float(np.std(cubic)), 1e-12)
+    phase = rng.uniform(0, 2 * np.pi)
+    return cubic + amplitude * np.sin(2 * np.pi * times / period + phase)

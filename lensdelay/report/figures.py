@@ -522,6 +522,7 @@ def light_curves_figure(measured):
             trend = model.design @ beta
             ts = model.t - delays[model.which]
             y = model.y - trend
+            err = model.err * model.error_scale[model.which]  # as fitted (stated × factor)
             import celerite2
             from celerite2 import terms
 
@@ -529,7 +530,7 @@ def light_curves_figure(measured):
                 terms.RealTerm(a=np.exp(2 * best[-2]), c=np.exp(-best[-1])), mean=0.0
             )
             order = np.argsort(ts)
-            gp.compute(ts[order], yerr=model.err[order])
+            gp.compute(ts[order], yerr=err[order])
             dense = np.linspace(ts.min(), ts.max(), 1500)
             mu, var = gp.predict(y[order], t=dense, return_var=True)
             ax.fill_between(dense, mu - np.sqrt(var), mu + np.sqrt(var), color="0.85", lw=0)
@@ -542,7 +543,7 @@ def light_curves_figure(measured):
                 ax.errorbar(
                     ts[sel],
                     y[sel],
-                    model.err[sel],
+                    err[sel],
                     fmt=markers[k % 6],
                     ms=3,
                     color=PALETTE[k % len(PALETTE)],
@@ -551,7 +552,7 @@ def light_curves_figure(measured):
                 )
                 axr.plot(
                     ts[sel],
-                    (y[sel] - at_points[sel]) / model.err[sel],
+                    (y[sel] - at_points[sel]) / err[sel],
                     markers[k % 6],
                     ms=2.5,
                     color=PALETTE[k % len(PALETTE)],
