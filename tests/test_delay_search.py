@@ -217,7 +217,7 @@ def test_a_pair_with_foreign_microlensing_does_not_run_off(rng):
     assert b.measurable, b.statement
     assert b.delay_days["p2.5"] <= -15.0 <= b.delay_days["p97.5"]
     assert abs(b.delay_days["median"] + 15.0) < 5.0
-    assert res.settings["models"] and len(res.settings["models"]) == 7
+    assert len(res.settings["models"]) == 9  # the models compared (search.extrinsic_models)
 
 
 @pytest.mark.integration
@@ -301,3 +301,55 @@ def test_given_delay_ranges_are_a_prior_and_are_recorded(rng):
     assert res.settings["delay_ranges"] == {"B": [0.0, 60.0]}
     with pytest.raises(InputError, match="delay_ranges must name images"):
         measure_delays(c, "A", kind="quasar", simulations=0, delay_ranges={"Q": (0, 1)})
+
+
+def _pair(a, b, mean, sd, rng, why=""):
+    from lensdelay.lightcurves.search import PairResult
+
+    x = rng.normal(mean, sd, 20_000)
+    return PairResult(a, b, x, x, mean, 0.0, 0.0, 0.0, 10.0, 1.0, {}, why)
+
+
+def test_network_links_an_image_through_another_pair(rng):
+    """C − A not measurable, but B − A = 10 ± 1 and C − B = 5 ± 1: C = 15 ± √2 (the sum of
+    two independent Gaussians); two pairs for two unknowns, no widening."""
+    from lensdelay.lightcurves.search import network
+
+    pairs = [
+        _pair("A", "B", 10.0, 1.0, rng),
+        _pair("A", "C", 0.0, 1.0, rng, why="not measurable: no variability in common"),
+        _pair("B", "C", 5.0, 1.0, rng),
+    ]
+    _, final, linked = network(["A", "B", "C"], pairs, 20_000, rng)
+    assert linked == [True, True]
+    assert np.median(final[:, 1]) == pytest.approx(15.0, abs=0.05)
+    assert np.std(final[:, 1]) == pytest.approx(np.sqrt(2.0), rel=0.03)
+
+
+def test_network_weighted_least_squares_and_its_widening(rng):
+    """Three pairs for two unknowns, B − A = 10 ± 1, C − A = 16 ± 1, C − B = 5 ± 1: the
+    least-squares solution (by hand: B = 10 + (16 − 10 − 5)/3 = 10.333, C = 15.667) with
+    the spread sqrt(2/3) × sqrt(3/2) = 1 (the GLS error times √(pairs/unknowns))."""
+    from lensdelay.lightcurves.search import network
+
+    pairs = [
+        _pair("A", "B", 10.0, 1.0, rng),
+        _pair("A", "C", 16.0, 1.0, rng),
+        _pair("B", "C", 5.0, 1.0, rng),
+    ]
+    _, final, linked = network(["A", "B", "C"], pairs, 20_000, rng)
+    assert np.median(final[:, 0]) == pytest.approx(10.0 + 1.0 / 3.0, abs=0.05)
+    assert np.median(final[:, 1]) == pytest.approx(16.0 - 1.0 / 3.0, abs=0.05)
+    assert np.std(final[:, 0]) == pytest.approx(1.0, rel=0.03)
+
+
+def test_an_image_no_measurable_pair_reaches_is_not_linked(rng):
+    from lensdelay.lightcurves.search import network
+
+    pairs = [
+        _pair("A", "B", 10.0, 1.0, rng),
+        _pair("A", "C", 0.0, 1.0, rng, why="no"),
+        _pair("B", "C", 5.0, 1.0, rng, why="no"),
+    ]
+    _, final, linked = network(["A", "B", "C"], pairs, 1000, rng)
+    assert linked == [True, False] and np.all(np.isnan(final[:, 1]))

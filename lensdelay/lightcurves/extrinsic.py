@@ -18,7 +18,9 @@ Three families:
     time scale ℓ = ``scale`` days, represented on inducing times every ℓ/4 (the
     subset-of-regressors approximation, Quiñonero-Candela & Rasmussen 2005, JMLR 6, 1939,
     eq. 16): Φ = K(t, u) L⁻ᵀ with L Lᵀ = K(u, u) / a². For ℓ much longer than the knot
-    spacing the approximation is exact to well below the photometric errors.
+    spacing the approximation is exact to well below the photometric errors. Over a
+    campaign longer than MAX_COLUMNS × ℓ/4 the inducing times are spread to MAX_COLUMNS:
+    a smoother process of the same covariance at the inducing times.
 """
 
 from __future__ import annotations
@@ -31,6 +33,10 @@ from scipy import linalg
 from lensdelay.errors import InputError
 
 FAMILIES = ("polynomial", "spline", "slow-gp")
+#: At most this many columns per image and band: a finer spline or inducing grid over a
+#: long campaign would make each likelihood cost grow as its square for little gain (the
+#: curve then bends at most once per span/MAX_COLUMNS days).
+MAX_COLUMNS = 48
 
 
 @dataclass(frozen=True)
@@ -95,7 +101,7 @@ def _spline_columns(t, start, end, spacing):
     """Cubic B-splines with interior knots every ``spacing`` days (partition of unity)."""
     from scipy.interpolate import BSpline
 
-    n_int = max(int(np.ceil((end - start) / spacing)), 1)
+    n_int = min(max(int(np.ceil((end - start) / spacing)), 1), MAX_COLUMNS - 2)
     inner = np.linspace(start, end, n_int + 1)
     knots = np.concatenate([[start] * 3, inner, [end] * 3])
     x = np.clip(t, start, end)
@@ -107,7 +113,7 @@ def _spline_columns(t, start, end, spacing):
 
 def _matern_columns(t, start, end, scale):
     """Subset-of-regressors columns of a unit Matérn-3/2 process on inducing times."""
-    step = scale / 4.0
+    step = max(scale / 4.0, (end - start) / (MAX_COLUMNS - 1))
     n = max(int(np.ceil((end - start) / step)), 1) + 1
     u = np.linspace(start, start + (n - 1) * step, n) - 0.5 * ((n - 1) * step - (end - start))
 

@@ -580,9 +580,9 @@ QUASAR_MEASURABLE_SHARE = 0.1
 QUASAR_RATIO_DRAWS = 40
 
 
-def _cross_check_grid(admitted_range, cadence) -> np.ndarray:
-    """The dispersion cross-check's trial delays: the admitted range, at most 1500 of them."""
-    lo, hi = admitted_range
+def _cross_check_grid(max_delay, cadence) -> np.ndarray:
+    """The dispersion cross-check's trial delays: the whole searched range, ≤ 1500 of them."""
+    lo, hi = -max_delay, max_delay
     step = max(0.25 * cadence, (hi - lo) / 1500.0)
     return np.arange(lo, hi + step / 2, step)
 
@@ -657,10 +657,6 @@ def _measure_quasar(
             + ", ".join(f"{lab}/{name}" for lab, name in model.instrument_columns)
             + ")"
         )
-    notes.append(
-        f"microlensing model of the highest evidence: {model.extrinsic.name}; the delays are "
-        "averaged over all models compared, by their evidence"
-    )
     if ranges is not None:
         notes.append(
             "delays searched within the given ranges (a prior, e.g. a forecast's): "
@@ -674,87 +670,47 @@ def _measure_quasar(
         )
     notes += found.notes
     g = found.goodness
-    refused_fit = found.scale > search.MAX_SCALE
-    if found.scale > 1.0 and not refused_fit:
-        notes.append(
-            f"the fit is poor (chi2 = {g['chi2']:.0f} for {g['dof']} dof, p = {g['p_value']:.1g}):"
-            f" every interval widened by sqrt(chi2/dof) = {found.scale:.2f}"
-        )
     window = max(2.0 * det.cadence(), 1.0)
     images = []
     draws = found.statistical[:: max(len(found.statistical) // QUASAR_RATIO_DRAWS, 1)]
+    cols = model.flux_ratio_columns()
     for i, lab in enumerate(labels[1:]):
         d = found.final[:, i]
-        statement = ""
-        adm = found.admitted[i]
-        if adm is None or np.all(np.isnan(d)):
-            statement = (
-                f"not measurable from these data: at no delay within ±{model.max_delay:.0f} d "
-                f"do the curves overlap enough (at least {100 * search.MIN_OVERLAP_SHARE:.0f}% "
-                f"of the shorter curve's points, and {search.MIN_OVERLAP_POINTS}, within "
-                f"{window:.1f} d of a reference point)"
-            )
-            q = None
-        else:
+        statement = found.verdicts[i]
+        if not statement:
             q = quantile_summary(d)
-            width = q["p97.5"] - q["p2.5"]
-            extent = (
-                adm[1] - adm[0]
-                if ranges is None or ranges[i] is None
-                else min(adm[1], ranges[i][1]) - max(adm[0], ranges[i][0])
+        elif lab in [p.later for p in found.pairs if p.earlier == reference]:
+            statement += (
+                "; no chain of measurable pairs links it to the reference either"
+                if len(labels) > 2
+                else ""
             )
-            if refused_fit:
-                statement = (
-                    f"not measurable: the model does not describe these curves (chi2 = "
-                    f"{g['chi2']:.0f} for {g['dof']} dof; sqrt(chi2/dof) = {found.scale:.1f} > "
-                    f"{search.MAX_SCALE:g}) — check the errors, instruments and outliers"
-                )
-            elif not found.shared_odds[i] >= search.MIN_SHARED_LN_ODDS:
-                statement = (
-                    "not measurable from these data: the curves show no variability in common "
-                    f"(log Bayes factor of one source against two independent curves "
-                    f"{found.shared_odds[i]:.1f}, below {search.MIN_SHARED_LN_ODDS:g}); the "
-                    "delay may lie where these data cannot show it"
-                )
-            elif found.edge[i]:
-                statement = (
-                    f"not measurable from these data: the posterior reaches delays where the "
-                    f"curves no longer overlap enough (95% interval {q['p2.5']:+.1f}.."
-                    f"{q['p97.5']:+.1f} d); the delay may lie where these data cannot show it"
-                )
-            elif width > QUASAR_MEASURABLE_SHARE * max(extent, 1e-9):
-                statement = (
-                    f"not measurable from these data: the 95% interval spans {width:.0f} d, more "
-                    f"than {100 * QUASAR_MEASURABLE_SHARE:.0f}% of the {extent:.0f} d of delays "
-                    "at which the curves overlap"
-                )
         measurable = not statement
         ratio = None
         if measurable:
-            cols = model.flux_ratio_columns()
             r = []
             for row in draws[:QUASAR_RATIO_DRAWS]:
-                if np.any(np.isnan(row)):
-                    continue
                 beta = model.draw_linear(np.nan_to_num(row), *found.hyper, rng)
                 if cols[i + 1] is not None and cols[0] is not None:
                     r.append(10 ** (-0.4 * (beta[cols[i + 1]] - beta[cols[0]])))
             ratio = quantile_summary(np.array(r)) if r else None
+        direct = next(p for p in found.pairs if p.earlier == reference and p.later == lab)
+        adm = direct.final is not None
         images.append(
             ImageDelay(
                 label=lab,
                 measurable=measurable,
                 delay_days=q if measurable else None,
                 flux_ratio=ratio,
-                cross_check_days=None
-                if adm is None
-                else dispersion_delay(
-                    det, reference, lab, _cross_check_grid(adm, det.cadence()), window
-                ),
+                cross_check_days=dispersion_delay(
+                    det, reference, lab, _cross_check_grid(model.max_delay, det.cadence()), window
+                )
+                if adm
+                else None,
                 statement=statement,
                 simulation_bias_days=float(found.simulation_bias[i]) if simulations else None,
                 simulation_spread_days=float(found.simulation_spread[i]) if simulations else None,
-                statistical_days=quantile_summary(found.statistical[:, i]) if q else None,
+                statistical_days=quantile_summary(found.statistical[:, i]) if measurable else None,
                 model_spread_days=float(found.model_spread[i]),
             )
         )
@@ -764,10 +720,10 @@ def _measure_quasar(
     images.sort(key=lambda im: order_of.get(im.label, len(order_of)))
     kept = [labels.index(im.label) - 1 for im in images if im.measurable]
     cov = np.atleast_2d(np.cov(found.final[:, kept].T)) if kept else np.zeros((0, 0))
-    models = [
-        {"model": ms.extrinsic.name, "log_evidence": round(ms.log_evidence, 2)}
-        for ms in found.model_scans
-    ]
+    models = {}
+    for p in found.pairs:
+        for ms in p.model_scans:
+            models[ms.extrinsic.name] = models.get(ms.extrinsic.name, 0.0) + ms.log_evidence
     return MeasuredDelays(
         family=family,
         reference=reference,
@@ -783,14 +739,17 @@ def _measure_quasar(
             "order": int(order),
             "simulations": int(simulations),
             "seed": int(seed),
-            "models": models,
-            "poor_fit_scale": float(found.scale),
+            "models": [
+                {"model": name, "log_evidence_summed_over_pairs": round(v, 2)}
+                for name, v in models.items()
+            ],
+            "pairs": [p.summary() for p in found.pairs],
             "delay_ranges": None
             if ranges is None
             else {lab: list(r) for lab, r in zip(labels[1:], ranges) if r is not None},
         },
         notes=tuple(notes),
-        samples=found.final,
+        samples=np.nan_to_num(found.final),
         best=np.concatenate([found.best, found.hyper]),
         model=model,
         curves=det,

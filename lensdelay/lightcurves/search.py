@@ -229,7 +229,7 @@ def _scan_result(grid, lp, admitted_width, step) -> PairScan:
 # -- the models compared, and the search over all of them ---------------------------------
 #: Prior amplitudes (mag) of the spline and slow-process terms, averaged over with equal
 #: weight (a prior uniform in log a on these four values).
-AMPLITUDES = (0.05, 0.2, 0.8)
+AMPLITUDES = (0.05, 0.25)
 #: Families whose log evidence is within this of the best one's count in the spread
 #: between models (odds of 1 in 20 or better).
 MODEL_SPREAD_LN_Z = 3.0
@@ -248,19 +248,25 @@ def season_length(t: np.ndarray) -> float:
 def extrinsic_models(curves, order: int = 2) -> list:
     """The models of each image's extrinsic variability compared on these curves.
 
-    A quadratic trend (the earlier default); cubic splines with knots every half season
-    (at least 8 cadences); a slow Matérn-3/2 process with a time scale of a season (at
-    least 16 cadences); the latter two at each of AMPLITUDES. The scales follow the data:
-    a season is the longest stretch over which curves constrain microlensing.
+    A polynomial trend of order ``order``; cubic splines with knots every half and every
+    fifth of a season (at least 8 and 6 cadences); a Matérn-3/2 process with a time scale
+    of a season and of a quarter season (at least 16 and 8 cadences); the latter four at
+    each of AMPLITUDES: nine models. The scales follow the data: a season is the longest
+    stretch over which the curves constrain microlensing, and real microlensing varies
+    on weeks as well as years.
     """
     from lensdelay.lightcurves.extrinsic import Extrinsic
 
     season = season_length(curves.time)
     cadence = curves.cadence()
-    knots = max(0.5 * season, 8.0 * cadence)
-    scale = max(season, 16.0 * cadence)
+    scales = (
+        ("spline", max(0.5 * season, 8.0 * cadence)),
+        ("spline", max(0.2 * season, 6.0 * cadence)),
+        ("slow-gp", max(season, 16.0 * cadence)),
+        ("slow-gp", max(0.25 * season, 8.0 * cadence)),
+    )
     out = [Extrinsic("polynomial", float(order), 1.0)]
-    for family, s in (("spline", knots), ("slow-gp", scale)):
+    for family, s in scales:
         out += [Extrinsic(family, s, a) for a in AMPLITUDES]
     return out
 
@@ -339,6 +345,9 @@ def model_spread(model_scans, image: int, rng) -> tuple[float, list]:
 
 
 # -- the whole search, with its error budget ------------------------------------------------
+#: A pair's delay whose final 95% interval is wider than this share of the admitted
+#: delays is not reported as a measurement: the curves hardly constrain it.
+MEASURABLE_SHARE = 0.1
 #: A fit whose χ² p-value is below POOR_FIT_P widens every interval by √(χ²/dof) (the
 #: scale factor of the Particle Data Group's averages, Workman et al. 2022, PTEP 083C01,
 #: "Introduction", eq. 5.7 there); above MAX_SCALE the model does not describe the curves
@@ -348,53 +357,109 @@ MAX_SCALE = 3.0
 
 
 @dataclass(frozen=True)
+class PairResult:
+    """One pair of images measured against each other: ``later`` after ``earlier``.
+
+    Draws of Δ_later − Δ_earlier (days): ``statistical`` from the grid posterior averaged
+    over the models, ``final`` widened by the systematic terms and the poor-fit scale.
+    ``why`` is "" when the pair's delay is a measurement, else the reason it is not.
+    """
+
+    earlier: str
+    later: str
+    statistical: np.ndarray | None
+    final: np.ndarray | None
+    best: float
+    model_spread: float
+    simulation_bias: float
+    simulation_spread: float
+    shared_odds: float
+    scale: float
+    goodness: dict
+    why: str
+    model: object = None
+    model_scans: tuple = ()
+
+    @property
+    def measurable(self) -> bool:
+        """True when the pair's delay is reported as a measurement."""
+        return not self.why
+
+    def summary(self) -> dict:
+        """The pair's delay quantiles (final) and verdict, for delays.json."""
+        out = {"pair": f"{self.later}-{self.earlier}", "measurable": self.measurable}
+        if self.final is not None:
+            q = np.percentile(self.final, [2.5, 16, 50, 84, 97.5])
+            out.update(
+                {
+                    k: round(float(v), 3)
+                    for k, v in zip(("p2.5", "p16", "median", "p84", "p97.5"), q)
+                }
+            )
+        out["log_shared_odds"] = None if np.isnan(self.shared_odds) else round(self.shared_odds, 1)
+        if self.why:
+            out["why"] = self.why
+        return out
+
+
+@dataclass(frozen=True)
 class QuasarSearch:
-    """Everything the global search found (one entry per non-reference image where listed).
+    """Everything the search found; per-image arrays are in the order of ``labels[1:]``.
 
     Attributes
     ----------
+    labels : list of str
+        The reference first.
     model : QuasarDelayModel
-        The model of the highest evidence, at its scales.
+        All images under the extrinsic model of the highest evidence (flux ratios, the
+        figure, the overall goodness of fit).
     hyper : tuple
         ln σ and ln τ of the intrinsic damped random walk.
     best : ndarray
-        Each delay's posterior peak under the model of the highest evidence.
-    statistical : ndarray (draws, n_images − 1)
-        Posterior draws, averaged over the models by their evidence (NaN columns where
-        no delay is admitted); columns independent (step 4).
-    final : ndarray
-        The same widened by the systematic terms (and the poor-fit scale).
-    model_spread, simulation_bias, simulation_spread : ndarray
-        Per image, days.
-    model_rows : list
-        Per image, (family, median, log evidence) of each family.
-    admitted : list
-        Per image, (low, high) of the admitted delays or None.
+        Each delay at the network's solution of the pairs' posterior peaks.
+    statistical, final : ndarray (draws, n_images − 1)
+        Draws of each delay after the reference from the network of measurable pairs
+        (NaN for an image no chain of measurable pairs links to the reference).
+    pairs : list of PairResult
+    verdicts : list of str
+        Per image, "" when measured, else why not.
+    model_spread, simulation_bias, simulation_spread, shared_odds : ndarray
+        Per image, from its pair with the reference.
     goodness : dict
-    scale : float
-        The poor-fit widening applied (1: none).
+        χ² of all curves at ``best`` under ``model``.
     notes : list of str
     """
 
+    labels: list
     model: object
     hyper: tuple
     best: np.ndarray
     statistical: np.ndarray
     final: np.ndarray
+    pairs: list
+    verdicts: list
     model_spread: np.ndarray
     simulation_bias: np.ndarray
     simulation_spread: np.ndarray
-    model_rows: list
-    admitted: list
+    shared_odds: np.ndarray
     goodness: dict
-    scale: float
     notes: list
-    edge: list  # per image: True where the 95% interval reaches a non-admitted delay
-    model_scans: list
-    shared_odds: np.ndarray  # per image: ln Bayes factor, shared source vs independent
 
 
-def search_quasar(
+def search_quasar(*args, **kwargs) -> QuasarSearch:
+    """Every pair of images searched, then the network of measurable pairs (module docstring).
+
+    The likelihood's matrix products are small (hundreds of rows, tens of columns) and
+    many: threaded BLAS only adds overhead (10-20 times slower on a busy machine), so the
+    search runs them on one thread (threadpoolctl). Arguments as :func:`_search_quasar`.
+    """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _search_quasar(*args, **kwargs)
+
+
+def _search_quasar(
     curves,
     reference: str,
     *,
@@ -406,7 +471,7 @@ def search_quasar(
     rng_sims=None,
     order: int = 2,
 ) -> QuasarSearch:
-    """Steps 1-4 for every model, their average, and the error budget (module docstring).
+    """The search of :func:`search_quasar`.
 
     Parameters
     ----------
@@ -417,9 +482,9 @@ def search_quasar(
         The outer bound of the search (default 0.8 × the data span); the overlap prior
         admits less.
     prior_ranges : list of (low, high) or None, optional
-        Per non-reference image, a range the delay is known to lie in (a forecast's).
+        Per non-reference image, a range its delay after the reference is known to lie in.
     simulations : int
-        Simulated data sets for the bias and spread (0: none).
+        Simulated data sets per pair for the bias and spread (0: none).
     draws : int
         Posterior draws returned.
     rng, rng_sims : numpy Generator
@@ -434,113 +499,292 @@ def search_quasar(
     rng_sims = np.random.default_rng(1) if rng_sims is None else rng_sims
     notes = []
     base = QuasarDelayModel(curves, reference, order=order, max_delay=max_delay)
-    n1 = base.n_images - 1
-    window = max(2.0 * base.cadence, 1.0)
+    labels = base.labels
+    n1 = len(labels) - 1
     ln_sigma, ln_tau, error_scale = base.fit_noise()
     hyper = (ln_sigma, ln_tau)
+    factor = dict(zip(labels, error_scale))
     if np.any(error_scale > 1.05):
         notes.append(
             "stated errors scaled by a factor fitted to each curve alone ("
-            + ", ".join(f"{lab} x{f:.2f}" for lab, f in zip(base.labels, error_scale))
+            + ", ".join(f"{lab} x{f:.2f}" for lab, f in factor.items())
             + "): the curves scatter more than their errors say"
         )
-    admitted_ranges = [admitted_range(base, i, window) for i in range(1, base.n_images)]
+    ranges = {lab: (0.0, 0.0) for lab in labels[:1]}
+    if prior_ranges is not None:
+        ranges.update({lab: r for lab, r in zip(labels[1:], prior_ranges) if r is not None})
     models = extrinsic_models(curves, order)
-    scans = scan_models(
-        curves, reference, models, hyper, window, base.max_delay, prior_ranges, error_scale
-    )
-    best_scan = max(scans, key=lambda m: m.log_evidence)
-    model = QuasarDelayModel(
-        curves, reference, extrinsic=best_scan.extrinsic, max_delay=base.max_delay
-    )
+    pairs = []
+    for a_i, a in enumerate(labels):
+        for b in labels[a_i + 1 :]:
+            pr = None
+            if a in ranges and b in ranges:
+                pr = (ranges[b][0] - ranges[a][1], ranges[b][1] - ranges[a][0])
+            pairs.append(
+                _measure_pair(
+                    curves,
+                    a,
+                    b,
+                    models,
+                    hyper,
+                    factor,
+                    base.max_delay,
+                    pr,
+                    simulations,
+                    draws,
+                    rng,
+                    rng_sims,
+                )
+            )
+    direct = {p.later: p for p in pairs if p.earlier == reference}
+    stat, final, linked = network(labels, pairs, draws, rng)
+    verdicts = []
+    for i, lab in enumerate(labels[1:]):
+        if linked[i]:
+            verdicts.append("")
+            continue
+        why = direct[lab].why or "its pairs do not link it to the reference"
+        verdicts.append(why)
+    used = [p for p in pairs if p.measurable]
+    if any(p.earlier != reference for p in used):
+        notes.append(
+            "delays combined over every measurable pair of images ("
+            + ", ".join(f"{p.later}-{p.earlier}" for p in used)
+            + "), weighted by their errors; the combined errors are widened by "
+            "sqrt(pairs / delays) because pairs share curves"
+        )
+    best = np.array([float(np.median(final[:, i])) if linked[i] else 0.0 for i in range(n1)])
+    # the model of all curves: the family of the highest summed evidence over the pairs
+    totals = {}
+    for p in pairs:
+        for ms in p.model_scans:
+            totals[ms.extrinsic] = totals.get(ms.extrinsic, 0.0) + ms.log_evidence
+    best_extrinsic = max(totals, key=totals.get) if totals else models[0]
+    model = QuasarDelayModel(curves, reference, extrinsic=best_extrinsic, max_delay=base.max_delay)
     model.set_error_scale(error_scale)
-    averaged = [averaged_scan(scans, i) for i in range(1, base.n_images)]
-    spread = np.zeros(n1)
-    rows = []
-    for i in range(1, base.n_images):
-        sd, r = model_spread(scans, i, rng)
-        spread[i - 1] = sd
-        rows.append(r)
-    stat = np.full((draws, n1), np.nan)
-    live = [i for i in range(n1) if averaged[i] is not None]
-    best = np.zeros(n1)
-    for i in live:
-        stat[:, i] = averaged[i].draw(draws, rng)
-        s = best_scan.scans[i]
-        best[i] = s.peak() if s is not None else float(np.median(stat[:, i]))
-    # goodness of fit at the best delays, under the best model
     chi2 = model.whitened_chi2(best, *hyper)
     n_fixed = len(model.offset_columns) + len(model.instrument_columns)
     dof = max(len(model.t) - n_fixed - n1 - 2, 1)
-    p_value = float(stats.chi2.sf(chi2, dof))
-    scale = 1.0
-    if p_value < POOR_FIT_P:
-        scale = float(np.sqrt(chi2 / dof))
-    goodness = {"chi2": float(chi2), "dof": int(dof), "p_value": p_value}
-    bias = np.zeros(n1)
-    sim_spread = np.zeros(n1)
-    if simulations and live:
-        # the simulated data are searched near their truth: wide enough for the estimator's
-        # local errors and its jumps between neighbouring (seasonal) modes; far modes are
-        # the posterior's own business (kept in step 3)
-        ranges = []
-        for i in range(n1):
-            lo, hi = np.nanpercentile(stat[:, i], [2.5, 97.5]) if i in live else (0.0, 0.0)
-            half = max(10.0 * model.cadence, 3.0 * (hi - lo), 10.0)
-            ranges.append((best[i] - half, best[i] + half))
-        errors = simulation_errors(model, hyper, best, simulations, rng_sims, window, ranges)
-        # robust: the median and the normalised median absolute deviation
-        bias = np.nanmedian(errors, axis=0)
-        mad = np.nanmedian(np.abs(errors - bias), axis=0)
-        sim_spread = 1.4826 * mad if simulations > 2 else np.zeros(n1)
-    final = stat.copy()
-    for i in live:
-        q16, q50, q84 = np.percentile(stat[:, i], [16, 50, 84])
-        sigma_stat = 0.5 * (q84 - q16)
-        rms = float(np.hypot(bias[i], sim_spread[i]))
-        extra = np.sqrt(spread[i] ** 2 + max(0.0, rms**2 - sigma_stat**2))
-        widened = stat[:, i] + extra * rng.standard_normal(draws)
-        final[:, i] = q50 + scale * (widened - q50)
-    # is there variability in common at all? the evidence of a shared source (the best
-    # model's pairwise evidence) against the same curves as independent sources
-    shared_odds = np.full(n1, np.nan)
-    for i in live:
-        s = best_scan.scans[i]
-        if s is None:
-            continue
-        alone = sum(
-            model.log_likelihood(np.zeros(n1), *hyper, model.which == k) for k in (0, i + 1)
+    goodness = {"chi2": float(chi2), "dof": int(dof), "p_value": float(stats.chi2.sf(chi2, dof))}
+    notes.append(
+        f"microlensing model of the highest evidence: {best_extrinsic.name}; each pair's delay "
+        "is averaged over all models compared, by their evidence"
+    )
+    scaled = [p for p in pairs if p.scale > 1.0 and p.final is not None]
+    if scaled:
+        notes.append(
+            "poor fits (chi2 p-value below "
+            f"{POOR_FIT_P:g}) widened by sqrt(chi2/dof): "
+            + ", ".join(f"{p.later}-{p.earlier} x{p.scale:.2f}" for p in scaled)
         )
-        shared_odds[i] = s.log_evidence - alone
-    edge = []
-    for i in range(n1):
-        if i not in live:
-            edge.append(False)
-            continue
-        lo, hi = np.percentile(final[:, i], [2.5, 97.5])
-        probe = np.array([lo - model.cadence, hi + model.cadence])
-        ok = admitted(model, i + 1, probe, window)
-        if prior_ranges is not None and prior_ranges[i] is not None:
-            ok &= (probe >= prior_ranges[i][0]) & (probe <= prior_ranges[i][1])
-        edge.append(not bool(np.all(ok)))
+
+    def per_image(attr):
+        return np.array([getattr(direct[lab], attr) for lab in labels[1:]], dtype=float)
+
     return QuasarSearch(
+        labels,
         model,
         hyper,
         best,
         stat,
         final,
-        spread,
+        pairs,
+        verdicts,
+        per_image("model_spread"),
+        per_image("simulation_bias"),
+        per_image("simulation_spread"),
+        per_image("shared_odds"),
+        goodness,
+        notes,
+    )
+
+
+def _measure_pair(
+    curves,
+    a,
+    b,
+    models,
+    hyper,
+    factor,
+    max_delay,
+    prior_range,
+    simulations,
+    draws,
+    rng,
+    rng_sims,
+) -> PairResult:
+    """Steps 0-3 for images ``a`` (earlier in the list) and ``b``, with the error budget."""
+    from scipy import stats
+
+    from lensdelay.lightcurves.quasar import QuasarDelayModel
+
+    sub = curves.subset(np.isin(curves.image, [a, b]))
+    scale_ab = [factor[a], factor[b]]
+    base = QuasarDelayModel(sub, a, max_delay=max_delay)
+    window = max(2.0 * base.cadence, 1.0)
+    span = admitted_range(base, 1, window)
+    nothing = dict(
+        statistical=None,
+        final=None,
+        best=np.nan,
+        model_spread=0.0,
+        simulation_bias=0.0,
+        simulation_spread=0.0,
+        shared_odds=np.nan,
+        scale=1.0,
+        goodness={},
+    )
+    if span is None:
+        why = (
+            f"not measurable from these data: at no delay within ±{base.max_delay:.0f} d do "
+            f"the curves overlap enough (at least {100 * MIN_OVERLAP_SHARE:.0f}% of the "
+            f"shorter curve's points, and {MIN_OVERLAP_POINTS}, within {window:.1f} d of a "
+            f"point of {a})"
+        )
+        return PairResult(a, b, why=why, **nothing)
+    scans = scan_models(sub, a, models, hyper, window, max_delay, [prior_range], scale_ab)
+    averaged = averaged_scan(scans, 1)
+    if averaged is None:
+        why = "not measurable from these data: no delay in the given range is admitted"
+        return PairResult(a, b, why=why, **nothing)
+    best_scan = max(scans, key=lambda m: m.log_evidence)
+    model = QuasarDelayModel(sub, a, extrinsic=best_scan.extrinsic, max_delay=max_delay)
+    model.set_error_scale(scale_ab)
+    spread, _ = model_spread(scans, 1, rng)
+    stat = averaged.draw(draws, rng)
+    best = best_scan.scans[0].peak()
+    chi2 = model.whitened_chi2([best], *hyper)
+    dof = max(len(model.t) - len(model.offset_columns) - len(model.instrument_columns) - 3, 1)
+    p_value = float(stats.chi2.sf(chi2, dof))
+    scale = float(np.sqrt(chi2 / dof)) if p_value < POOR_FIT_P else 1.0
+    goodness = {"chi2": float(chi2), "dof": int(dof), "p_value": p_value}
+    bias = sim_spread = 0.0
+    if simulations:
+        # simulated data searched near their truth: wide enough for the estimator's local
+        # errors and its jumps between neighbouring (seasonal) modes; far modes are the
+        # posterior's own business (kept in step 3)
+        lo, hi = np.percentile(stat, [2.5, 97.5])
+        half = max(10.0 * model.cadence, 3.0 * (hi - lo), 10.0)
+        errors = simulation_errors(
+            model,
+            hyper,
+            np.array([best]),
+            simulations,
+            rng_sims,
+            window,
+            [(best - half, best + half)],
+        )[:, 0]
+        # robust: the median and the normalised median absolute deviation
+        bias = float(np.nanmedian(errors))
+        if simulations > 2:
+            sim_spread = float(1.4826 * np.nanmedian(np.abs(errors - bias)))
+    q16, q50, q84 = np.percentile(stat, [16, 50, 84])
+    rms = float(np.hypot(bias, sim_spread))
+    extra = np.sqrt(spread**2 + max(0.0, rms**2 - (0.5 * (q84 - q16)) ** 2))
+    final = q50 + scale * (stat + extra * rng.standard_normal(draws) - q50)
+    # is there variability in common at all? the best model's evidence of one source
+    # against the same two curves as independent sources
+    alone = sum(model.log_likelihood([0.0], *hyper, model.which == k) for k in (0, 1))
+    odds = float(best_scan.scans[0].log_evidence - alone)
+    lo, hi = np.percentile(final, [2.5, 97.5])
+    probe = np.array([lo - model.cadence, hi + model.cadence])
+    inside = admitted(model, 1, probe, window)
+    if prior_range is not None:
+        inside &= (probe >= prior_range[0]) & (probe <= prior_range[1])
+    extent = span[1] - span[0]
+    if prior_range is not None:
+        extent = max(min(span[1], prior_range[1]) - max(span[0], prior_range[0]), 1e-9)
+    why = ""
+    if scale > MAX_SCALE:
+        why = (
+            f"not measurable: the model does not describe these curves (chi2 = {chi2:.0f} for "
+            f"{dof} dof; sqrt(chi2/dof) = {scale:.1f} > {MAX_SCALE:g}) — check the errors, "
+            "instruments and outliers"
+        )
+    elif not odds >= MIN_SHARED_LN_ODDS:
+        why = (
+            "not measurable from these data: the curves show no variability in common (log "
+            f"Bayes factor of one source against two independent curves {odds:.1f}, below "
+            f"{MIN_SHARED_LN_ODDS:g})"
+        )
+    elif not np.all(inside):
+        why = (
+            "not measurable from these data: the posterior reaches delays where the curves "
+            f"no longer overlap enough (95% interval {lo:+.1f}..{hi:+.1f} d)"
+        )
+    elif hi - lo > MEASURABLE_SHARE * extent:
+        why = (
+            f"not measurable from these data: the 95% interval spans {hi - lo:.0f} d, more "
+            f"than {100 * MEASURABLE_SHARE:.0f}% of the {extent:.0f} d of delays at which "
+            "the curves overlap"
+        )
+    return PairResult(
+        a,
+        b,
+        stat,
+        final,
+        best,
+        float(spread),
         bias,
         sim_spread,
-        rows,
-        admitted_ranges,
-        goodness,
+        odds,
         scale,
-        notes,
-        edge,
-        scans,
-        shared_odds,
+        goodness,
+        why,
+        model,
+        tuple(scans),
     )
+
+
+def network(labels, pairs, draws: int, rng):
+    """Each image's delay after ``labels[0]`` from the measurable pairs, draw by draw.
+
+    Unknowns Δ_j (j ≠ reference); each measurable pair (a, b) says Δ_b − Δ_a = d_ab with
+    weight 1/σ_ab² (σ_ab half its final 68% interval). For every draw the weighted least
+    squares solution is taken with each pair's draw (Aitken's generalised least squares,
+    Aitken 1936, Proc. R. Soc. Edinb. 55, 42). Pairs share curves, so they are not
+    independent: the spread about the median is widened by √(pairs / unknowns) when there
+    are more pairs than unknowns (a quad's six pairs carry at most three delays' worth of
+    data). Returns (statistical, final, linked) — images not linked to the reference by
+    measurable pairs get NaN.
+    """
+    n1 = len(labels) - 1
+    index = {lab: k - 1 for k, lab in enumerate(labels)}  # reference -> -1
+    used = [p for p in pairs if p.measurable]
+    # which images a chain of measurable pairs links to the reference
+    linked_set = {labels[0]}
+    grew = True
+    while grew:
+        grew = False
+        for p in used:
+            if (p.earlier in linked_set) != (p.later in linked_set):
+                linked_set |= {p.earlier, p.later}
+                grew = True
+    linked = [lab in linked_set for lab in labels[1:]]
+    stat = np.full((draws, n1), np.nan)
+    final = np.full((draws, n1), np.nan)
+    keep = [p for p in used if p.earlier in linked_set and p.later in linked_set]
+    unknowns = [k for k in range(n1) if linked[k]]
+    if not unknowns:
+        return stat, final, linked
+    col = {k: j for j, k in enumerate(unknowns)}
+    design = np.zeros((len(keep), len(unknowns)))
+    weights = np.empty(len(keep))
+    for r, p in enumerate(keep):
+        if index[p.later] >= 0:
+            design[r, col[index[p.later]]] = 1.0
+        if index[p.earlier] >= 0:
+            design[r, col[index[p.earlier]]] = -1.0
+        q16, q84 = np.percentile(p.final, [16, 84])
+        weights[r] = 1.0 / max(0.5 * (q84 - q16), 1e-6) ** 2
+    solve = np.linalg.solve(design.T @ (weights[:, None] * design), design.T * weights)
+    inflate = np.sqrt(max(len(keep) / len(unknowns), 1.0))
+    for name, out in (("statistical", stat), ("final", final)):
+        pair_draws = np.column_stack([rng.permutation(getattr(p, name)) for p in keep])
+        x = pair_draws @ solve.T
+        med = np.median(x, axis=0)
+        out[:, unknowns] = med + inflate * (x - med)
+    return stat, final, linked
 
 
 def simulation_errors(model, hyper, truth, n, rng, window, prior_ranges=None) -> np.ndarray:
