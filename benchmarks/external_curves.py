@@ -21,6 +21,21 @@ TDC = DATA / "tdc1"
 REAL = DATA / "light-curves-real"
 
 
+def _assemble(image, time, mag, err, source, instrument=None) -> LightCurves:
+    """LightCurves from per-image lists of arrays (one band, detections only)."""
+    n = sum(len(x) for x in time)
+    return LightCurves(
+        np.concatenate(image),
+        np.concatenate(time),
+        np.concatenate(mag),
+        np.concatenate(err),
+        np.full(n, ""),
+        np.zeros(n, dtype=bool),
+        str(source),
+        None if instrument is None else np.concatenate(instrument),
+    )
+
+
 def read_tdc(path) -> LightCurves:
     """One TDC1 pair as LightCurves (images A and B); non-positive fluxes dropped."""
     d = np.loadtxt(path, comments="#")
@@ -32,16 +47,7 @@ def read_tdc(path) -> LightCurves:
         time.append(t[ok])
         mag.append(22.5 - 2.5 * np.log10(f[ok]))
         err.append(2.5 / np.log(10) * e[ok] / f[ok])
-    n = sum(len(x) for x in time)
-    return LightCurves(
-        np.concatenate(image),
-        np.concatenate(time),
-        np.concatenate(mag),
-        np.concatenate(err),
-        np.full(n, ""),
-        np.zeros(n, dtype=bool),
-        str(path),
-    )
+    return _assemble(image, time, mag, err, path)
 
 
 def tdc_truths(rung: int) -> dict:
@@ -85,14 +91,4 @@ def read_rdb(path, images=None) -> LightCurves:
         err.append(e[ok])
         if tel is not None:
             inst.append(np.array(tel)[ok])
-    n = sum(len(x) for x in time)
-    return LightCurves(
-        np.concatenate(image),
-        np.concatenate(time),
-        np.concatenate(mag),
-        np.concatenate(err),
-        np.full(n, ""),
-        np.zeros(n, dtype=bool),
-        str(path),
-        np.concatenate(inst) if tel is not None else None,
-    )
+    return _assemble(image, time, mag, err, path, inst if tel is not None else None)

@@ -1,33 +1,34 @@
-"""A global search for quasar delays: every mode on a grid, then the joint posterior.
+"""A global search for quasar delays: every pair of images, every mode, every model.
 
-The steps, for one model of the extrinsic variability (:mod:`.extrinsic`):
+For each pair of images (a quad has six), and each model of the extrinsic variability
+(:mod:`.extrinsic`, nine of them, :func:`extrinsic_models`):
 
 0. **Is there a delay to measure?** The curves must share variability: the evidence of
    one source seen by both images (step 3's, integrated over the admitted delays) must
    beat that of two independent curves by MIN_SHARED_LN_ODDS.
-1. **Which delays are admitted.** Image i's delay Δ is admitted only where, moved back by Δ,
-   at least ``MIN_OVERLAP_SHARE`` of the shorter curve's points (and at least
-   ``MIN_OVERLAP_POINTS``) lie within ``window`` days of a reference point: elsewhere the
-   curves barely overlap and each is fitted alone by its own flexible terms, a likelihood
-   that says nothing about the delay. This is the delay's prior: uniform over the admitted
-   delays, zero elsewhere, fixed before the likelihood is seen. The admitted range is the
-   data's own; a forecast's predicted delays may narrow it further (``prior_range``).
+1. **Which delays are admitted.** A delay Δ is admitted only where, moved back by Δ, at
+   least ``MIN_OVERLAP_SHARE`` of the shorter curve's points (and ``MIN_OVERLAP_POINTS``)
+   lie within two cadences of a point of the other curve: elsewhere the curves barely
+   overlap and each is fitted alone by its own flexible terms, a likelihood that says
+   nothing about the delay. This is the delay's prior: uniform over the admitted delays,
+   zero elsewhere, fixed before the likelihood is seen. The admitted range is the data's
+   own; a forecast's predicted delays may narrow it further (``prior_ranges``).
 2. **The variability's scales**: σ and τ of the damped random walk and a factor on each
    image's stated errors are set by maximising the marginal likelihood of each curve
    alone (type-II maximum likelihood; no delay enters). The extrinsic models' prior
    amplitudes are not fitted but averaged over (AMPLITUDES), as are the families.
-3. **Each image against the reference, on a grid**: the marginal likelihood on a coarse
-   grid (one point per cadence) over every admitted delay, then on a fine grid (a tenth of
-   the cadence) wherever the coarse posterior holds more than e^-12 of its peak. Every mode
-   is kept.
-4. **Draws** of each delay from its grid posterior (averaged over the models by their
-   evidence). With three images or more each delay comes from its image against the
-   reference alone; the draws of different images are independent, which overstates the
-   error of a difference of two delays (the shared reference's noise would partly cancel)
-   and keeps a microlensed image from pulling the others. A joint posterior over all
-   images was tried by importance sampling: the joint likelihood of real curves is too
-   rough in the delays (every reordering of interleaved epochs moves it) for the draws
-   to settle.
+3. **On a grid**: the marginal likelihood on a coarse grid (a cadence, at least 1/400
+   of the admitted range) over every admitted delay, then on finer grids (a tenth of
+   the cadence, then a quarter of the posterior's width) wherever the coarse posterior
+   is within e^-12 of its peak. Every mode is kept; the models' posteriors are averaged
+   by their evidence and the spread of the families' medians is a systematic term.
+4. **The error budget** (:func:`simulation_errors`) and the poor-fit scale widen each
+   pair's draws; the pair's verdict says whether it is a measurement.
+5. **The network** (:func:`network`): each image's delay after the reference is the
+   least-squares combination of the measurable pairs, draw by draw. A joint posterior of
+   all delays at once was tried by importance sampling: the joint likelihood of real
+   curves is too rough in the delays (every reordering of interleaved epochs moves it)
+   for the draws to settle, and a microlensed reference would pull every image.
 """
 
 from __future__ import annotations
