@@ -781,7 +781,13 @@ def network(labels, pairs, draws: int, rng):
     solve = np.linalg.solve(design.T @ (weights[:, None] * design), design.T * weights)
     inflate = np.sqrt(max(len(keep) / len(unknowns), 1.0))
     for name, out in (("statistical", stat), ("final", final)):
-        pair_draws = np.column_stack([rng.permutation(getattr(p, name)) for p in keep])
+        # each pair's draws in a fresh random order (pairs independent), ``draws`` of them
+        pair_draws = np.column_stack(
+            [
+                rng.choice(getattr(p, name), size=draws, replace=len(getattr(p, name)) < draws)
+                for p in keep
+            ]
+        )
         x = pair_draws @ solve.T
         med = np.median(x, axis=0)
         out[:, unknowns] = med + inflate * (x - med)
