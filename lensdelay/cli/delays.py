@@ -54,9 +54,12 @@ def delays_text(res) -> str:
     lines.append(
         "(cross-check: the dispersion minimum; sim.: point estimates on curves simulated with "
         "the data's epochs and errors at the measured values"
-        + (", with intrinsic and microlensing variability of other families than the fitted; "
-           "the intervals include them and the spread between microlensing models)"
-           if res.kind == "quasar" else ")")
+        + (
+            ", with intrinsic and microlensing variability of other families than the fitted; "
+            "the intervals include them and the spread between microlensing models)"
+            if res.kind == "quasar"
+            else ")"
+        )
     )
     lines += [f"NOTE: {n}" for n in res.notes]
     lines.append(
@@ -133,7 +136,10 @@ def register(sub) -> None:
         help="source model (default: judged from the reference's curve)",
     )
     p.add_argument(
-        "--order", type=int, default=2, help="quasars: microlensing polynomial order (default 2)"
+        "--order",
+        type=int,
+        default=2,
+        help="quasars: order of the polynomial among the microlensing models (default 2)",
     )
     p.add_argument("--max-delay", type=number, help="search delays within ± this many days")
     p.add_argument(
@@ -149,8 +155,15 @@ def register(sub) -> None:
         help="quasars: bound each delay by a forecast's predicted one (its 95%% interval "
         "widened by its width on both sides); default: the curves' overlap alone",
     )
-    p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
-    p.add_argument("--steps", type=int, default=1500, help="sampler steps (default 1500)")
+    p.add_argument(
+        "--walkers", type=int, default=32, help="supernovae: sampler walkers (default 32)"
+    )
+    p.add_argument(
+        "--steps",
+        type=int,
+        default=1500,
+        help="supernovae: sampler steps (default 1500; runs on to 4x until converged)",
+    )
     p.add_argument(
         "--simulations",
         type=int,

@@ -1,12 +1,13 @@
 """Measuring delays from light curves: the posterior, a cross-check and an error budget.
 
-:func:`measure_delays` samples the delays of every image after the reference with the
-model of the source kind (:mod:`.quasar` or :mod:`.supernova`), reports each delay's
-quantiles and their joint covariance, the flux ratios, a goodness of fit, a model-free
-cross-check (:func:`dispersion_delay`) and — from curves simulated with the data's own
-epochs and errors at the measured values — the bias and spread a point estimate shows.
-A delay whose 95% interval covers more than half of the searched range is reported as not
-measurable from these data, with no number.
+:func:`measure_delays` measures the delays of every image after the reference with the
+model of the source kind: quasars by the global search of :mod:`.search` (every pair,
+every mode, nine microlensing models, systematic terms included), supernovae by sampling
+the shared-shape model of :mod:`.supernova`. It reports each delay's quantiles and their
+joint covariance, the flux ratios, a goodness of fit, a model-free cross-check
+(:func:`dispersion_delay`) and — from simulated curves with the data's own epochs and
+errors — the bias and spread a point estimate shows. A delay the data cannot carry is
+reported as not measurable from these data, with the reason and no number.
 """
 
 from __future__ import annotations
@@ -20,8 +21,6 @@ from lensdelay.errors import InputError
 from lensdelay.inference.sampling import potential_scale_reduction
 from lensdelay.inference.summaries import quantile_summary
 
-#: Posterior draws behind a quasar's flux ratios (each needs one linear solve).
-RATIO_DRAWS = 300
 #: A delay whose 95% interval is wider than this share of the searched range is not
 #: reported as a measurement.
 MEASURABLE_SHARE = 0.5
