@@ -418,3 +418,23 @@ def test_a_forecast_json_bounds_the_search(tmp_path):
     path.write_text("{}")
     with pytest.raises(InputError, match="forecast.json.*'images' list"):
         delay_ranges_from_forecast(path, "A")
+
+
+@pytest.mark.integration
+def test_a_delay_held_by_the_given_range_is_not_a_measurement(rng):
+    """A range of 3 d that excludes the true 25 d: no number — within the range the curves
+    do not match (no variability in common) or the posterior piles up at its bound."""
+    epochs = seasonal_epochs(58000, 3, 200, 3.0, rng)
+    c = simulate_quasar(
+        {"A": epochs, "B": epochs},
+        {"A": 0.0, "B": 25.0},
+        0.2,
+        100.0,
+        {"A": 0.02, "B": 0.02},
+        {},
+        rng,
+    )
+    res = measure_delays(c, "A", kind="quasar", simulations=0, delay_ranges={"B": (10.0, 13.0)})
+    b = res.image("B")
+    assert not b.measurable and b.delay_days is None
+    assert "held by the given range" in b.statement or "no variability in common" in b.statement

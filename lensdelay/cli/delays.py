@@ -153,7 +153,8 @@ def register(sub) -> None:
         "--delay-prior",
         metavar="FORECAST_JSON",
         help="quasars: bound each delay by a forecast's predicted one (its 95%% interval "
-        "widened by its width on both sides); default: the curves' overlap alone",
+        "widened by its width on both sides; use a forecast made without these curves' "
+        "delays); default: the curves' overlap alone",
     )
     p.add_argument(
         "--walkers", type=int, default=32, help="supernovae: sampler walkers (default 32)"

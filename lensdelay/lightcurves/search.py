@@ -349,6 +349,9 @@ def model_spread(model_scans, image: int, rng) -> tuple[float, list]:
 #: A pair's delay whose final 95% interval is wider than this share of the admitted
 #: delays is not reported as a measurement: the curves hardly constrain it.
 MEASURABLE_SHARE = 0.1
+#: With a given range (a forecast's), the curves must also narrow it: the 95% interval
+#: at most this share of the range, clear of its bounds.
+PRIOR_SHARE = 0.5
 #: A fit whose χ² p-value is below POOR_FIT_P widens every interval by √(χ²/dof) (the
 #: scale factor of the Particle Data Group's averages, Workman et al. 2022, PTEP 083C01,
 #: "Introduction", eq. 5.7 there); above MAX_SCALE the model does not describe the curves
@@ -690,11 +693,12 @@ def _measure_pair(
     lo, hi = np.percentile(final, [2.5, 97.5])
     probe = np.array([lo - model.cadence, hi + model.cadence])
     inside = admitted(model, 1, probe, window)
+    within_prior = True
+    prior_width = np.inf
     if prior_range is not None:
-        inside &= (probe >= prior_range[0]) & (probe <= prior_range[1])
+        within_prior = bool(np.all((probe >= prior_range[0]) & (probe <= prior_range[1])))
+        prior_width = max(min(span[1], prior_range[1]) - max(span[0], prior_range[0]), 1e-9)
     extent = span[1] - span[0]
-    if prior_range is not None:
-        extent = max(min(span[1], prior_range[1]) - max(span[0], prior_range[0]), 1e-9)
     why = ""
     if scale > MAX_SCALE:
         why = (
@@ -718,6 +722,12 @@ def _measure_pair(
             f"not measurable from these data: the 95% interval spans {hi - lo:.0f} d, more "
             f"than {100 * MEASURABLE_SHARE:.0f}% of the {extent:.0f} d of delays at which "
             "the curves overlap"
+        )
+    elif not within_prior or hi - lo > PRIOR_SHARE * prior_width:
+        why = (
+            f"not measurable from these data: the delay is held by the given range "
+            f"({prior_range[0]:+.1f}..{prior_range[1]:+.1f} d), not by the curves (95% "
+            f"interval {lo:+.1f}..{hi:+.1f} d)"
         )
     return PairResult(
         a,
