@@ -79,7 +79,6 @@ class QuasarDelayModel:
                 raise InputError(f"polynomial order must be 0 to 5, got {order}")
             extrinsic = Extrinsic("polynomial", float(order), TREND_PRIOR_MAG)
         self.extrinsic = extrinsic
-        self.order = int(extrinsic.scale) if extrinsic.family == "polynomial" else None
         self.labels = [reference] + [lab for lab in curves.labels if lab != reference]
         index = {lab: k for k, lab in enumerate(self.labels)}
         self.t = np.asarray(curves.time, dtype=float)
