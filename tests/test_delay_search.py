@@ -325,7 +325,7 @@ def test_network_links_an_image_through_another_pair(rng):
         _pair("A", "C", 0.0, 1.0, rng, why="not measurable: no variability in common"),
         _pair("B", "C", 5.0, 1.0, rng),
     ]
-    _, final, linked = network(["A", "B", "C"], pairs, 20_000, rng)
+    _, final, linked, _ = network(["A", "B", "C"], pairs, 20_000, rng)
     assert linked == [True, True]
     assert np.median(final[:, 1]) == pytest.approx(15.0, abs=0.05)
     assert np.std(final[:, 1]) == pytest.approx(np.sqrt(2.0), rel=0.03)
@@ -342,10 +342,28 @@ def test_network_weighted_least_squares_and_its_widening(rng):
         _pair("A", "C", 16.0, 1.0, rng),
         _pair("B", "C", 5.0, 1.0, rng),
     ]
-    _, final, linked = network(["A", "B", "C"], pairs, 20_000, rng)
+    _, final, linked, _ = network(["A", "B", "C"], pairs, 20_000, rng)
     assert np.median(final[:, 0]) == pytest.approx(10.0 + 1.0 / 3.0, abs=0.05)
     assert np.median(final[:, 1]) == pytest.approx(16.0 - 1.0 / 3.0, abs=0.05)
     assert np.std(final[:, 0]) == pytest.approx(1.0, rel=0.03)
+
+
+def test_network_widens_pairs_that_disagree(rng):
+    """B − A = 10 ± 1, C − A = 20 ± 1, C − B = 5 ± 1: the loop misses by 5, χ² = 25/3 for
+    one degree of freedom, so the spread (1, as above) is widened by S = √(25/3) (Birge
+    1932; the Particle Data Group's scale factor)."""
+    from lensdelay.lightcurves.search import network
+
+    pairs = [
+        _pair("A", "B", 10.0, 1.0, rng),
+        _pair("A", "C", 20.0, 1.0, rng),
+        _pair("B", "C", 5.0, 1.0, rng),
+    ]
+    stat, final, _, scale = network(["A", "B", "C"], pairs, 20_000, rng)
+    assert scale == pytest.approx(np.sqrt(25.0 / 3.0), rel=0.02)
+    assert np.std(final[:, 0]) == pytest.approx(np.sqrt(25.0 / 3.0), rel=0.04)
+    # the statistical draws are not widened by the disagreement
+    assert np.std(stat[:, 0]) == pytest.approx(1.0, rel=0.03)
 
 
 def test_an_image_no_measurable_pair_reaches_is_not_linked(rng):
@@ -356,7 +374,7 @@ def test_an_image_no_measurable_pair_reaches_is_not_linked(rng):
         _pair("A", "C", 0.0, 1.0, rng, why="no"),
         _pair("B", "C", 5.0, 1.0, rng, why="no"),
     ]
-    _, final, linked = network(["A", "B", "C"], pairs, 1000, rng)
+    _, final, linked, _ = network(["A", "B", "C"], pairs, 1000, rng)
     assert linked == [True, False] and np.all(np.isnan(final[:, 1]))
 
 

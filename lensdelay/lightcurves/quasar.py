@@ -123,6 +123,9 @@ class QuasarDelayModel:
         self._band_rows = [np.nonzero(self.band == b)[0] for b in range(len(self.bands))]
         #: Per image, the factor on its stated errors (1: as stated; :meth:`fit_noise`).
         self.error_scale = np.ones(self.n_images)
+        #: The intrinsic kernel: "drw" (damped random walk, σ and τ) or "matern32"
+        #: (Matérn-3/2, σ and length scale ℓ in the place of τ: smoother at short lags).
+        self.kernel = "drw"
         self._celerite2, self._terms = _celerite()
 
     def set_error_scale(self, scale) -> None:
@@ -176,7 +179,7 @@ class QuasarDelayModel:
         b = np.zeros(int(used.sum()))
         a = np.diag(1.0 / self.prior_variances[used])
         parts = []
-        kernel = self._terms.RealTerm(a=np.exp(2 * ln_sigma), c=np.exp(-ln_tau))
+        kernel = self._intrinsic_kernel(ln_sigma, ln_tau)
         for sel, t, which, y_all, err, x_all in bands:
             ts = t - shifts[which]
             order = np.argsort(ts, kind="stable")
@@ -190,6 +193,18 @@ class QuasarDelayModel:
             a += x.T @ k_inv[:, 1:]
             parts.append((gp, sel[order], y, x))
         return ll, b, a, used, parts
+
+    def _intrinsic_kernel(self, ln_sigma, ln_scale):
+        """celerite2 term of :attr:`kernel`.
+
+        Damped random walk: k(Δt) = σ² exp(−|Δt|/τ) (Kelly et al. 2009, eq. 1-3).
+        Matérn-3/2: k(Δt) = σ² (1 + √3|Δt|/ℓ) exp(−√3|Δt|/ℓ) (Rasmussen & Williams 2006,
+        Gaussian Processes for Machine Learning, eq. 4.17), celerite's approximation of it
+        (Foreman-Mackey et al. 2017, section 4.3).
+        """
+        if self.kernel == "matern32":
+            return self._terms.Matern32Term(sigma=np.exp(ln_sigma), rho=np.exp(ln_scale))
+        return self._terms.RealTerm(a=np.exp(2 * ln_sigma), c=np.exp(-ln_scale))
 
     def log_likelihood(self, delays, ln_sigma: float, ln_tau: float, rows=None) -> float:
         """The log-likelihood p(curves | delays, σ, τ) with the linear terms marginalised."""
@@ -249,32 +264,52 @@ class QuasarDelayModel:
         understate them; the factor keeps a misfit from being read as a delay). The
         factor is at least 1 and at most 10. Sets :attr:`error_scale`.
         """
+        ln_sigma, ln_tau, scales, _ = self.fit_alone("drw")
+        self.set_error_scale(scales)
+        return ln_sigma, ln_tau, scales
+
+    def fit_alone(self, kernel: str = "drw") -> tuple[float, float, np.ndarray, float]:
+        """Maximum-likelihood fit of every curve alone with the intrinsic ``kernel``.
+
+        Returns the reference's ln σ and ln scale (τ or ℓ), the error factors and the sum
+        of the curves' maximum log-likelihoods (for comparing kernels: both have the same
+        number of parameters). :attr:`error_scale` and :attr:`kernel` are left as found.
+        """
+        if kernel not in ("drw", "matern32"):
+            raise InputError(f"kernel must be 'drw' or 'matern32', got {kernel!r}")
+        saved_kernel, saved_scale = self.kernel, self.error_scale.copy()
+        self.kernel = kernel
         scales = np.ones(self.n_images)
         ref = (0.0, 0.0)
-        for k in range(self.n_images):
-            rows = self.which == k
+        total = 0.0
+        try:
+            for k in range(self.n_images):
+                rows = self.which == k
 
-            def cost(p, rows=rows, k=k):
-                if not (self.ln_sigma_range[0] <= p[0] <= self.ln_sigma_range[1]):
-                    return 1e30
-                if not (self.ln_tau_range[0] <= p[1] <= self.ln_tau_range[1]):
-                    return 1e30
-                if not (0.0 <= p[2] <= np.log(10.0)):
-                    return 1e30
-                trial = scales.copy()
-                trial[k] = np.exp(p[2])
-                self.set_error_scale(trial)
-                v = self.log_likelihood(np.zeros(self.n_images - 1), p[0], p[1], rows)
-                return -v if np.isfinite(v) else 1e30
+                def cost(p, rows=rows, k=k):
+                    if not (self.ln_sigma_range[0] <= p[0] <= self.ln_sigma_range[1]):
+                        return 1e30
+                    if not (self.ln_tau_range[0] <= p[1] <= self.ln_tau_range[1]):
+                        return 1e30
+                    if not (0.0 <= p[2] <= np.log(10.0)):
+                        return 1e30
+                    trial = scales.copy()
+                    trial[k] = np.exp(p[2])
+                    self.set_error_scale(trial)
+                    v = self.log_likelihood(np.zeros(self.n_images - 1), p[0], p[1], rows)
+                    return -v if np.isfinite(v) else 1e30
 
-            start = np.array(
-                [np.log(max(np.std(self.y[rows]), 0.01)), np.log(max(self.span / 5, 2.0)), 0.1]
-            )
-            res = optimize.minimize(
-                cost, start, method="Nelder-Mead", options={"xatol": 1e-3, "maxfev": 600}
-            )
-            scales[k] = float(np.exp(np.clip(res.x[2], 0.0, np.log(10.0))))
-            if k == 0:
-                ref = (float(res.x[0]), float(res.x[1]))
-        self.set_error_scale(scales)
-        return ref[0], ref[1], scales
+                start = np.array(
+                    [np.log(max(np.std(self.y[rows]), 0.01)), np.log(max(self.span / 5, 2.0)), 0.1]
+                )
+                res = optimize.minimize(
+                    cost, start, method="Nelder-Mead", options={"xatol": 1e-3, "maxfev": 600}
+                )
+                scales[k] = float(np.exp(np.clip(res.x[2], 0.0, np.log(10.0))))
+                total += -float(res.fun)
+                if k == 0:
+                    ref = (float(res.x[0]), float(res.x[1]))
+        finally:
+            self.kernel = saved_kernel
+            self.set_error_scale(saved_scale)
+        return ref[0], ref[1], scales, total

@@ -23,7 +23,11 @@ For each pair of images (a quad has six), and each model of the extrinsic variab
    is within e^-12 of its peak. Every mode is kept; the models' posteriors are averaged
    by their evidence and the spread of the families' medians is a systematic term.
 4. **The error budget** (:func:`simulation_errors`) and the poor-fit scale widen each
-   pair's draws; the pair's verdict says whether it is a measurement.
+   pair's draws; the pair's verdict says whether it is a measurement. The simulations'
+   intrinsic variability is a damped random walk or a Matérn-3/2 process in proportion
+   to the two kernels' posterior odds on the curves alone (each fitted alone, same
+   number of parameters; :func:`intrinsic_share`): the data decide how smooth the
+   source is, not the simulation's author.
 5. **The network** (:func:`network`): each image's delay after the reference is the
    least-squares combination of the measurable pairs, draw by draw. A joint posterior of
    all delays at once was tried by importance sampling: the joint likelihood of real
@@ -505,8 +509,17 @@ def _search_quasar(
     base = QuasarDelayModel(curves, reference, order=order, max_delay=max_delay)
     labels = base.labels
     n1 = len(labels) - 1
-    ln_sigma, ln_tau, error_scale = base.fit_noise()
+    ln_sigma, ln_tau, error_scale, ln_l_drw = base.fit_alone("drw")
+    base.set_error_scale(error_scale)
     hyper = (ln_sigma, ln_tau)
+    smooth = intrinsic_share(base, ln_l_drw) if simulations else (0.0, 0.0, 0.0, 0.0)
+    if simulations:
+        notes.append(
+            "simulated curves for the error budget: intrinsic variability a damped random "
+            f"walk in {100 * (1 - smooth[0]):.0f}% and a Matérn-3/2 process (ℓ = "
+            f"{np.exp(smooth[3]):.0f} d) in {100 * smooth[0]:.0f}%, by the two kernels' odds "
+            f"on the curves alone (ln odds {smooth[1]:+.1f} for the Matérn)"
+        )
     factor = dict(zip(labels, error_scale))
     if np.any(error_scale > 1.05):
         notes.append(
@@ -532,6 +545,7 @@ def _search_quasar(
                     models,
                     hyper,
                     factor,
+                    smooth,
                     base.max_delay,
                     pr,
                     simulations,
@@ -541,7 +555,7 @@ def _search_quasar(
                 )
             )
     direct = {p.later: p for p in pairs if p.earlier == reference}
-    stat, final, linked = network(labels, pairs, draws, rng)
+    stat, final, linked, birge = network(labels, pairs, draws, rng)
     verdicts = []
     for i, lab in enumerate(labels[1:]):
         if linked[i]:
@@ -556,6 +570,12 @@ def _search_quasar(
             + ", ".join(f"{p.later}-{p.earlier}" for p in used)
             + "), weighted by their errors; the combined errors are widened by "
             "sqrt(pairs / delays) because pairs share curves"
+        )
+    if birge > 1.0:
+        notes.append(
+            f"the pairs disagree with one another by more than their errors (scale factor "
+            f"sqrt(chi2/dof) = {birge:.2f}, e.g. an image's microlensing pulls the pairs "
+            "through it): the combined errors are widened by it"
         )
     best = np.array([float(np.median(final[:, i])) if linked[i] else 0.0 for i in range(n1)])
     # the model of all curves: the family of the highest summed evidence over the pairs
@@ -610,6 +630,7 @@ def _measure_pair(
     models,
     hyper,
     factor,
+    smooth,
     max_delay,
     prior_range,
     simulations,
@@ -677,6 +698,8 @@ def _measure_pair(
             rng_sims,
             window,
             [(best - half, best + half)],
+            smooth_share=smooth[0],
+            smooth_hyper=smooth[2:],
         )[:, 0]
         # robust: the median and the normalised median absolute deviation
         bias = float(np.nanmedian(errors))
@@ -756,8 +779,13 @@ def network(labels, pairs, draws: int, rng):
     Aitken 1936, Proc. R. Soc. Edinb. 55, 42). Pairs share curves, so they are not
     independent: the spread about the median is widened by √(pairs / unknowns) when there
     are more pairs than unknowns (a quad's six pairs carry at most three delays' worth of
-    data). Returns (statistical, final, linked) — images not linked to the reference by
-    measurable pairs get NaN.
+    data). When the pairs disagree with one another by more than their errors allow (the
+    weighted residual χ² of the pairs' medians about the solution above its degrees of
+    freedom, pairs − unknowns), the spread is widened further by the scale factor
+    S = √(χ²/dof) (Birge 1932, Phys. Rev. 40, 207; the Particle Data Group's practice for
+    inconsistent measurements): e.g. a microlensed image that pulls the paths through it
+    away from the paths around it. Returns (statistical, final, linked, scale factor) —
+    images not linked to the reference by measurable pairs get NaN.
     """
     n1 = len(labels) - 1
     index = {lab: k - 1 for k, lab in enumerate(labels)}  # reference -> -1
@@ -777,7 +805,7 @@ def network(labels, pairs, draws: int, rng):
     keep = [p for p in used if p.earlier in linked_set and p.later in linked_set]
     unknowns = [k for k in range(n1) if linked[k]]
     if not unknowns:
-        return stat, final, linked
+        return stat, final, linked, 1.0
     col = {k: j for j, k in enumerate(unknowns)}
     design = np.zeros((len(keep), len(unknowns)))
     weights = np.empty(len(keep))
@@ -789,6 +817,10 @@ def network(labels, pairs, draws: int, rng):
         q16, q84 = np.percentile(p.final, [16, 84])
         weights[r] = 1.0 / max(0.5 * (q84 - q16), 1e-6) ** 2
     solve = np.linalg.solve(design.T @ (weights[:, None] * design), design.T * weights)
+    medians = np.array([np.median(p.final) for p in keep])
+    residual = medians - design @ (solve @ medians)
+    dof = len(keep) - len(unknowns)
+    birge = float(np.sqrt(max(weights @ residual**2 / dof, 1.0))) if dof > 0 else 1.0
     inflate = np.sqrt(max(len(keep) / len(unknowns), 1.0))
     for name, out in (("statistical", stat), ("final", final)):
         # each pair's draws in a fresh random order (pairs independent), ``draws`` of them
@@ -800,16 +832,45 @@ def network(labels, pairs, draws: int, rng):
         )
         x = pair_draws @ solve.T
         med = np.median(x, axis=0)
-        out[:, unknowns] = med + inflate * (x - med)
-    return stat, final, linked
+        widen = inflate * (birge if name == "final" else 1.0)
+        out[:, unknowns] = med + widen * (x - med)
+    return stat, final, linked, birge
 
 
-def simulation_errors(model, hyper, truth, n, rng, window, prior_ranges=None) -> np.ndarray:
+def intrinsic_share(model, ln_l_drw: float) -> tuple[float, float, float]:
+    """How much of the simulations' intrinsic variability should be a Matérn-3/2 process.
+
+    Every curve alone is fitted with each kernel (:meth:`QuasarDelayModel.fit_alone`);
+    both have two scales and the error factors, so the difference of the maximum
+    log-likelihoods is the log odds of the two kernels with equal priors (the Bayesian
+    information criterion's penalties cancel; Schwarz 1978, Ann. Stat. 6, 461).
+    Returns (share of Matérn simulations, ln odds, the reference's fitted ln σ and ln ℓ).
+    """
+    from scipy.special import expit
+
+    ln_sigma, ln_scale, _, ln_l_matern = model.fit_alone("matern32")
+    ln_odds = float(ln_l_matern - ln_l_drw)
+    return float(expit(ln_odds)), ln_odds, float(ln_sigma), float(ln_scale)
+
+
+def simulation_errors(
+    model,
+    hyper,
+    truth,
+    n,
+    rng,
+    window,
+    prior_ranges=None,
+    smooth_share: float = 0.5,
+    smooth_hyper: tuple[float, float] | None = None,
+) -> np.ndarray:
     """Point-estimate errors (days) on ``n`` data sets simulated from *other* families.
 
     Each has the data's epochs, errors, bands and instruments and the delays ``truth``.
-    Intrinsic variability alternates between a damped random walk and a smoother
-    Matérn-3/2 process (σ and τ of the data's fit); each image's extrinsic variability
+    Intrinsic variability is a damped random walk (σ and τ of the data's fit) or, in a
+    share ``smooth_share`` of the sets spread evenly among them, a smoother Matérn-3/2
+    process (ln σ and ln ℓ ``smooth_hyper``, by default the walk's σ and the ℓ matching
+    the walk's structure function at ten cadences); each image's extrinsic variability
     (its own per band: chromatic) cycles through a slow damped random walk (a season), a
     deterministic drift (cubic plus sinusoid) and a fast flicker (five cadences), with
     the rms of the fitted extrinsic terms. The point estimate is the best pairwise match
@@ -830,6 +891,9 @@ def simulation_errors(model, hyper, truth, n, rng, window, prior_ranges=None) ->
     # the lags that fix a delay
     lag = 10.0 * model.cadence
     smooth_scale = float(np.sqrt(1.5 * lag * tau))
+    smooth_sigma = sigma
+    if smooth_hyper is not None:
+        smooth_sigma, smooth_scale = (float(np.exp(v)) for v in smooth_hyper)
     beta = model.linear_coefficients(truth, *hyper)
     fitted = model.design @ beta  # offsets, instrument offsets and the fitted microlensing
     cols = model._extrinsic_columns
@@ -845,10 +909,11 @@ def simulation_errors(model, hyper, truth, n, rng, window, prior_ranges=None) ->
         src = model.t - shift
         for b in range(len(model.bands)):
             rows = model.band == b
-            if s % 2 == 0:
+            # Matérn sets spread evenly: set s is one when floor((s+1)w) > floor(s w)
+            if np.floor((s + 1) * smooth_share) == np.floor(s * smooth_share):
                 y[rows] += damped_random_walk(src[rows], sigma, tau, rng)
             else:
-                y[rows] += matern32_process(src[rows], sigma, smooth_scale, rng)
+                y[rows] += matern32_process(src[rows], smooth_sigma, smooth_scale, rng)
             for k in range(model.n_images):
                 mine = rows & (model.which == k)
                 if not np.any(mine):
