@@ -23,6 +23,7 @@ import numpy as np
 from astropy import units as u
 
 from lensdelay.errors import InputError
+from lensdelay.lensing import compiled
 from lensdelay.lensing.lens import Lens
 
 #: An image is accepted when it maps back to its source within this (arcsec).
@@ -113,6 +114,11 @@ def newton_polish(
     x, y, error : ndarray
         Final positions and |β(θ) − β_s|.
     """
+    solved = compiled.newton_solve(
+        lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance
+    )
+    if solved is not None:  # the same steps in the compiled kernel, all points in one call
+        return solved
     x = np.array(x, dtype=float)
     y = np.array(y, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from lensdelay.lensing import compiled
 from lensdelay.lensing.profiles import MassProfile
 
 PARITIES = ("minimum", "saddle", "maximum", "critical")
@@ -20,6 +21,16 @@ PARITIES = ("minimum", "saddle", "maximum", "critical")
 #: a temporary array per operation, and blocks this size keep them in the CPU cache
 #: (measured in benchmarks/bench_core.py: about twice as fast for 10^6 points).
 BLOCK_POINTS = 16384
+
+
+#: Which of the compiled kernel's outputs (α_x, α_y, ψ, ψ_xx, ψ_xy, ψ_yy, κ) each method is.
+_FUSED = {
+    "convergence": (6,),
+    "deflection": (0, 1),
+    "deflection_and_potential": (0, 1, 2),
+    "potential": (2,),
+    "hessian": (3, 4, 5),
+}
 
 
 def _blockwise(method):
@@ -30,10 +41,17 @@ def _blockwise(method):
     broadcast against the coordinates) the method runs on the whole arrays at once.
     The results agree either way: the formulas act point by point (the power law's
     series takes as many terms as the block's slowest point needs for 1e-16).
+
+    Before either, the compiled kernels (:mod:`lensdelay.lensing.compiled`) answer when
+    they can: all components have kernels and the parameters are one model or one per row.
     """
+    picks = _FUSED[method.__name__]
 
     @functools.wraps(method)
     def wrapper(self, x, y, scale=1.0):
+        fused = compiled.evaluate(self, x, y, scale)  # None: the numpy path below
+        if fused is not None:
+            return fused[picks[0]] if len(picks) == 1 else tuple(fused[k] for k in picks)
         if np.size(x) <= 2 * BLOCK_POINTS and np.size(y) <= 2 * BLOCK_POINTS:
             return method(self, x, y, scale)
         if np.ndim(scale) or not self._scalar_parameters():

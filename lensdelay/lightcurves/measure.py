@@ -20,15 +20,16 @@ from scipy import stats
 from lensdelay.errors import InputError
 from lensdelay.inference.sampling import potential_scale_reduction
 from lensdelay.inference.summaries import quantile_summary
+from lensdelay.lightcurves.search import MIN_OVERLAP_POINTS
 
 #: A delay whose 95% interval is wider than this share of the searched range is not
 #: reported as a measurement.
-MEASURABLE_SHARE = 0.5
+SUPERNOVA_MEASURABLE_SHARE = 0.5
 #: Nor is one at which fewer than this share of the image's points (and fewer than
 #: MIN_OVERLAP_POINTS of them) fall, shifted by the delay, near a reference point: the
 #: curves then hardly overlap and any match is a coincidence of their ends.
-MIN_OVERLAP_SHARE = 0.3
-MIN_OVERLAP_POINTS = 10
+SUPERNOVA_MIN_OVERLAP_SHARE = 0.3
+#: (the quasar search's own rules, a prior on the admitted delays, are in search.py)
 #: The dispersion cross-check compares curves only where nearly half of the image's points
 #: find a partner: with less, a short stretch matched by its own offset beats the whole
 #: curves, whose microlensing the single offset does not remove.
@@ -180,7 +181,7 @@ def dispersion_delay(curves, reference: str, image: str, grid: np.ndarray, windo
             den += np.sum(w)
             n_pairs += len(np.unique(j))  # the image's points that found a partner
         # trials where the curves barely overlap match by chance: need pairs for a good
-        # share of the points (the overlap rule of the posterior's, MIN_OVERLAP_SHARE)
+        # share of the points (the overlap rule of the posterior's, SUPERNOVA_MIN_OVERLAP_SHARE)
         if n_pairs >= needed and den > 0 and num / den < best_d:
             best_d, best = num / den, float(d)
     return best
@@ -290,7 +291,7 @@ def measure_delays(
     Notes
     -----
     A delay is reported as a measurement only when its posterior is narrower than
-    MEASURABLE_SHARE of the searched range, stays clear of the range's bounds, the
+    SUPERNOVA_MEASURABLE_SHARE of the searched range, stays clear of the range's bounds, the
     curves overlap at it and its chain converged (:func:`chain_verdicts`);
     otherwise the image is "not measurable from these data", with the reason.
     """
@@ -400,25 +401,28 @@ def measure_delays(
         edge = model.max_delay * (1.0 - BOUND_MARGIN)
         if verdicts[i]:
             statement = verdicts[i]
-        elif width <= MEASURABLE_SHARE * search and (q["p97.5"] > edge or q["p2.5"] < -edge):
+        elif width <= SUPERNOVA_MEASURABLE_SHARE * search and (
+            q["p97.5"] > edge or q["p2.5"] < -edge
+        ):
             statement = (
                 f"not measurable from these data within the searched range: the posterior runs "
                 f"into the bound "
                 f"(95% interval {q['p2.5']:+.1f}..{q['p97.5']:+.1f} d, search ±"
                 f"{model.max_delay:.0f} d); the delay may lie beyond it — widen --max-delay"
             )
-        elif width > MEASURABLE_SHARE * search:
+        elif width > SUPERNOVA_MEASURABLE_SHARE * search:
             statement = (
                 f"not measurable from these data: the posterior spreads over {width:.0f} of the "
                 f"{search:.0f} days searched (the curves overlap too little, or the delay lies "
                 f"beyond ±{model.max_delay:.0f} d)"
             )
-        elif share < MIN_OVERLAP_SHARE or points < MIN_OVERLAP_POINTS:
+        elif share < SUPERNOVA_MIN_OVERLAP_SHARE or points < MIN_OVERLAP_POINTS:
             statement = (
                 f"not measurable from these data: at the best delay ({q['median']:+.0f} d) only "
                 f"{points} of the image's points ({100 * share:.0f}%) overlap the reference's "
                 f"curve; the delay may lie beyond what the data cover (|delay| ≳ "
-                f"{model.span * (1 - MIN_OVERLAP_SHARE):.0f} d) — longer monitoring is needed"
+                f"{model.span * (1 - SUPERNOVA_MIN_OVERLAP_SHARE):.0f} d) — longer monitoring "
+                "is needed"
             )
         measurable = not statement
         images.append(
@@ -572,9 +576,6 @@ def _simulation_budget(model, kind, best, curves, rng, n):
 
 
 # -- quasars: the global search (search.py) --------------------------------------------------
-#: A quasar delay whose final 95% interval is wider than this share of the admitted range
-#: of delays is not reported as a measurement: the curves hardly constrain it.
-QUASAR_MEASURABLE_SHARE = 0.1
 #: Draws of the linear terms behind a quasar's flux ratios (each solves the whole model).
 QUASAR_RATIO_DRAWS = 40
 

@@ -1,0 +1,184 @@
+"""The compiled lens kernels against the numpy formulas (the reference) and closed forms."""
+
+import numpy as np
+import pytest
+from test_profiles import CASES, POINTS
+
+from lensdelay.lensing import compiled
+from lensdelay.lensing.images import newton_polish
+from lensdelay.lensing.lens import Lens
+from lensdelay.lensing.profiles import (
+    EllipticalPowerLaw,
+    ExternalShear,
+    IsothermalEllipsoid,
+    IsothermalMultipole,
+    MassSheet,
+    NFWHalo,
+    PointMass,
+    SingularIsothermalSphere,
+    TruncatedIsothermal,
+)
+from lensdelay.lensing.profiles.stack import ProfileStack
+
+pytestmark = pytest.mark.skipif(not compiled.enabled(), reason="numba not installed")
+
+METHODS = ("deflection", "potential", "hessian", "convergence", "deflection_and_potential")
+
+
+def _both(lens, method, *args):
+    fast = getattr(lens, method)(*args)
+    with compiled.disabled():
+        slow = getattr(lens, method)(*args)
+    return fast, slow
+
+
+def _close(fast, slow, rtol=1e-12):
+    """Relative agreement, with zero judged against the largest value of the output."""
+    fast = fast if isinstance(fast, tuple) else (fast,)
+    slow = slow if isinstance(slow, tuple) else (slow,)
+    for a, b in zip(fast, slow):
+        a, b = np.asarray(a), np.asarray(b)
+        assert a.shape == b.shape
+        scale = max(float(np.max(np.abs(b))), 1e-300)
+        np.testing.assert_allclose(a, b, rtol=rtol, atol=rtol * scale)
+
+
+def _points(rng):
+    """The profile tests' points, random ones and the exact origin and profile centres."""
+    extra = rng.uniform(-3, 3, size=(40, 2))
+    centres = np.array([[0.0, 0.0], [0.1, -0.2], [-0.05, 0.1], [0.02, -0.03], [0.2, 0.1]])
+    return np.vstack([POINTS, extra, centres])
+
+
+@pytest.mark.parametrize("name", CASES)
+@pytest.mark.parametrize("method", METHODS)
+def test_kernel_matches_numpy_formulas(name, method, rng):
+    """Every profile's kernel reproduces its numpy formula to 1e-12 (centres included)."""
+    lens = Lens((CASES[name],))
+    p = _points(rng)
+    with np.errstate(all="ignore"):
+        fast, slow = _both(lens, method, p[:, 0], p[:, 1], 0.8)
+    _close(fast, slow)
+
+
+def _recipe(values):
+    """The default galaxy recipe's components with parameters of any shape."""
+    return Lens(
+        (
+            EllipticalPowerLaw(
+                einstein_radius=values[0],
+                slope=values[1],
+                axis_ratio=values[2],
+                position_angle=values[3],
+                x=values[4],
+                y=values[5],
+            ),
+            ExternalShear(strength=values[6], position_angle=values[7]),
+            IsothermalMultipole(
+                order=3, cosine=values[8], sine=values[9], x=values[4], y=values[5]
+            ),
+            IsothermalMultipole(
+                order=4, cosine=values[10], sine=values[11], x=values[4], y=values[5]
+            ),
+        )
+    )
+
+
+def _walkers(rng, n):
+    centre = np.array([1.1, 2.05, 0.7, 30.0, 0.01, -0.02, 0.06, 100.0, 0.01, -0.005, 0.008, 0.01])
+    spread = np.array([0.05, 0.1, 0.1, 10.0, 0.01, 0.01, 0.02, 20.0, 0.005, 0.005, 0.005, 0.005])
+    return centre + spread * rng.standard_normal((n, len(centre)))
+
+
+@pytest.mark.parametrize("coords", ["per-walker", "shared"])
+def test_walkers_times_points(coords, rng):
+    """Parameters (P, 1) against coordinates (P, n) or (1, n): one model per row."""
+    values = _walkers(rng, 16)
+    lens = _recipe([v[:, None] for v in values.T])
+    shape = (16, 5) if coords == "per-walker" else (1, 5)
+    x, y = rng.uniform(-1.5, 1.5, size=(2,) + shape)
+    scale = rng.uniform(0.8, 1.2, size=(16, 1))
+    for method in METHODS:
+        fast, slow = _both(lens, method, x, y, scale)
+        _close(fast, slow)
+        assert (fast[0] if isinstance(fast, tuple) else fast).shape == (16, 5)
+    # each row is that walker's own model
+    row = 3 if coords == "per-walker" else 0
+    with compiled.disabled():
+        alone = _recipe(values[3]).deflection(x[row], y[row], scale[3, 0])[0]
+    _close(lens.deflection(x, y, scale)[0][3], alone)
+
+
+def test_cluster_members_summed_in_the_kernel(rng):
+    """A stack of 60 truncated members plus a halo: the kernel sums them per point."""
+    m = 60
+    members = ProfileStack(
+        TruncatedIsothermal,
+        {
+            "einstein_radius": rng.uniform(0.1, 0.5, m),
+            "cut": rng.uniform(2.0, 6.0, m),
+            "core": np.zeros(m),
+            "axis_ratio": rng.uniform(0.5, 1.0, m),
+            "position_angle": rng.uniform(0, 180, m),
+            "x": rng.uniform(-30, 30, m),
+            "y": rng.uniform(-30, 30, m),
+        },
+    )
+    halo = IsothermalEllipsoid(einstein_radius=15.0, axis_ratio=0.8, core=2.0, position_angle=20)
+    lens = Lens((halo, members, NFWHalo(kappa_s=0.2, scale_radius=40.0, x=5.0)))
+    x, y = rng.uniform(-40, 40, size=(2, 300))
+    for method in METHODS:
+        fast, slow = _both(lens, method, x, y)
+        _close(fast, slow)
+
+
+def test_newton_in_the_kernel_matches_numpy(rng):
+    """Newton's method from perturbed images: the same roots (to 1e-10 arcsec) per walker."""
+    values = _walkers(rng, 8)
+    lens = _recipe([v[:, None] for v in values.T])
+    with compiled.disabled():
+        single = _recipe(values[0])
+        from lensdelay.lensing.images import find_images
+
+        found = find_images(single, 0.05, 0.03)
+    starts_x, starts_y = found.x[None, :], found.y[None, :]
+    args = (lens, starts_x + 0.01, starts_y - 0.01, np.full((8, 1), 0.05), np.full((8, 1), 0.03))
+    kw = dict(iterations=15, max_step=0.05, tolerance=1e-11)
+    fx, fy, ferr = newton_polish(*args, **kw)
+    with compiled.disabled():
+        sx, sy, serr = newton_polish(*args, **kw)
+    ok = serr < 1e-8
+    assert ok.sum() >= 8  # at least the first walker's images converge
+    np.testing.assert_array_equal(ferr < 1e-8, ok)
+    np.testing.assert_allclose(fx[ok], sx[ok], atol=1e-10)
+    np.testing.assert_allclose(fy[ok], sy[ok], atol=1e-10)
+
+
+def test_closed_forms_through_the_kernel():
+    """Published closed forms evaluated by the kernels (not through numpy)."""
+    r = np.array([0.3, 1.0, 2.7])
+    x, y = r * np.cos(0.4), r * np.sin(0.4)
+    # SIS: |α| = θE, κ = θE/2r (Schneider, Ehlers & Falco 1992, eqs. 8.35-8.36)
+    ax, ay = Lens((SingularIsothermalSphere(einstein_radius=1.3),)).deflection(x, y)
+    np.testing.assert_allclose(np.hypot(ax, ay), 1.3, rtol=1e-14)
+    k = Lens((SingularIsothermalSphere(einstein_radius=1.3),)).convergence(x, y)
+    np.testing.assert_allclose(k, 0.65 / r, rtol=1e-14)
+    # point mass: |α| = θE²/r (SEF 1992, eq. 8.33)
+    ax, ay = Lens((PointMass(einstein_radius=0.9),)).deflection(x, y)
+    np.testing.assert_allclose(np.hypot(ax, ay), 0.81 / r, rtol=1e-14)
+    # NFW: κ(r = rs) = 2κs/3 (Wright & Brainerd 2000, eq. 11, limit u → 1)
+    k = Lens((NFWHalo(kappa_s=0.3, scale_radius=4.0),)).convergence(
+        np.array([4.0]), np.array([0.0])
+    )
+    np.testing.assert_allclose(k, 0.2, rtol=1e-12)
+    # mass sheet: α = κ θ (Falco, Gorenstein & Shapiro 1985)
+    ax, _ = Lens((MassSheet(convergence_value=0.1),)).deflection(x, y)
+    np.testing.assert_allclose(ax, 0.1 * x, rtol=1e-14)
+
+
+def test_shapes_the_kernel_cannot_take_fall_back_to_numpy(rng):
+    """Parameters varying along two axes: no kernel layout; the numpy path answers."""
+    lens = Lens((IsothermalEllipsoid(einstein_radius=rng.uniform(1, 2, (3, 4))),))
+    x = rng.uniform(-1, 1, (3, 4))
+    assert compiled.evaluate(lens, x, x) is None
+    assert lens.deflection(x, x)[0].shape == (3, 4)
