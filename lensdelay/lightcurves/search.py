@@ -684,7 +684,20 @@ def _measure_pair(
     scale = float(np.sqrt(chi2 / dof)) if p_value < POOR_FIT_P else 1.0
     goodness = {"chi2": float(chi2), "dof": int(dof), "p_value": p_value}
     bias = sim_spread = 0.0
-    if simulations:
+    # the budget only widens: a pair refused already on its statistical posterior (no
+    # variability in common, too broad, or reaching delays without overlap) is refused
+    # whatever the simulations say, so they are not run (they were most of the time of
+    # the slowest TDC1 pairs)
+    alone = sum(model.log_likelihood([0.0], *hyper, model.which == k) for k in (0, 1))
+    odds = float(best_scan.scans[0].log_evidence - alone)
+    s_lo, s_hi = np.percentile(stat, [2.5, 97.5])
+    s_probe = np.array([s_lo - model.cadence, s_hi + model.cadence])
+    hopeless = (
+        not odds >= MIN_SHARED_LN_ODDS
+        or s_hi - s_lo > MEASURABLE_SHARE * (span[1] - span[0])
+        or not np.all(admitted(model, 1, s_probe, window))
+    )
+    if simulations and not hopeless:
         # simulated data searched near their truth: wide enough for the estimator's local
         # errors and its jumps between neighbouring (seasonal) modes; far modes are the
         # posterior's own business (kept in step 3)
@@ -709,10 +722,8 @@ def _measure_pair(
     rms = float(np.hypot(bias, sim_spread))
     extra = np.sqrt(spread**2 + max(0.0, rms**2 - (0.5 * (q84 - q16)) ** 2))
     final = q50 + scale * (stat + extra * rng.standard_normal(draws) - q50)
-    # is there variability in common at all? the best model's evidence of one source
-    # against the same two curves as independent sources
-    alone = sum(model.log_likelihood([0.0], *hyper, model.which == k) for k in (0, 1))
-    odds = float(best_scan.scans[0].log_evidence - alone)
+    # is there variability in common at all? ``odds``: the best model's evidence of one
+    # source against the same two curves as independent sources (computed above)
     lo, hi = np.percentile(final, [2.5, 97.5])
     probe = np.array([lo - model.cadence, hi + model.cadence])
     inside = admitted(model, 1, probe, window)
