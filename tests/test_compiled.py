@@ -182,3 +182,16 @@ def test_shapes_the_kernel_cannot_take_fall_back_to_numpy(rng):
     x = rng.uniform(-1, 1, (3, 4))
     assert compiled.evaluate(lens, x, x) is None
     assert lens.deflection(x, x)[0].shape == (3, 4)
+
+
+def test_empty_and_single_points(rng):
+    """No points give empty outputs of the broadcast shape; one point a 0-d answer."""
+    lens = Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.7),))
+    empty = np.zeros(0)
+    ax, ay = lens.deflection(empty, empty, 0.9)
+    assert ax.shape == (0,) and ay.shape == (0,)
+    x, y, err = newton_polish(lens, empty, empty, 0.1, 0.0)
+    assert x.shape == (0,) and err.shape == (0,)
+    fast, slow = _both(lens, "hessian", 0.3, -0.4)
+    assert np.shape(fast[0]) == ()
+    _close(fast, slow)

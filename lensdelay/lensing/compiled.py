@@ -43,7 +43,12 @@ CODES = {
     "point": 8,
     "truncated_isothermal": 9,
 }
-#: Parameters per component in the table (the widest kernel's).
+#: Kinds whose numpy formulas are a few vectorised transcendental calls: for one model on
+#: more than LARGE points their numpy path is as fast as the kernel or faster
+#: (benchmarks/bench_kernels.py); the power law's series and the multipoles' angles are not.
+SIMD_FRIENDLY = {CODES[k] for k in ("SIE", "SIS", "shear", "sheet", "NFW", "point")}
+LARGE = 32768
+#: Parameters per component in the table before the power law's series factors.
 WIDTH = 8
 
 _state = {"off": False}
@@ -64,11 +69,11 @@ def enabled() -> bool:
     """Whether the kernels are used: numba importable, not switched off."""
     if _state["off"] or os.environ.get("LENSDELAY_COMPILED", "1") == "0":
         return False
-    return _kernels() is not None
+    return kernel_module() is not None
 
 
 @functools.lru_cache(maxsize=1)
-def _kernels():
+def kernel_module():
     """The compiled functions (numba imported on first use: no import-time cost)."""
     try:
         import numba  # noqa: F401
@@ -85,13 +90,19 @@ def _rows(a, shape):
     return np.broadcast_to(np.asarray(a, dtype=float), shape).reshape(-1)
 
 
+def _column(a, n):
+    """A parameter's values for the n rows: one value, or one per row (size n)."""
+    a = np.asarray(a, dtype=float)
+    return a.reshape(-1) if a.size == n else a.reshape(())
+
+
 def _component_rows(kind: str, v: dict, shape) -> np.ndarray | None:
     """The table entries (rows, WIDTH) of one component with values ``v``."""
     n = int(np.prod(shape, dtype=int)) if shape else 1
     out = np.zeros((n, WIDTH))
 
     def put(col, value):
-        out[:, col] = _rows(value, shape)
+        out[:, col] = _column(value, n)  # the row shape is () or (n, 1, ...): sizes 1 or n
 
     if kind in ("SIE", "power_law", "truncated_isothermal"):
         phi = np.deg2rad(np.asarray(v["position_angle"], dtype=float))
@@ -103,7 +114,11 @@ def _component_rows(kind: str, v: dict, shape) -> np.ndarray | None:
         put(4, q)
         put(5, np.asarray(v["einstein_radius"], dtype=float) * np.sqrt(q))  # b = θE √q
         if kind == "power_law":
-            put(6, np.asarray(v["slope"], dtype=float) - 1.0)  # t = γ − 1
+            t = np.asarray(v["slope"], dtype=float) - 1.0  # t = γ − 1
+            put(6, t)
+            terms, factors = series_factors(_rows(q, shape), _rows(t, shape))
+            out[:, 7] = terms
+            out = np.hstack([out, factors])
         else:
             put(6, np.asarray(v["core"], dtype=float) / np.sqrt(q))  # s_K = s/√q
         if kind == "truncated_isothermal":
@@ -134,6 +149,21 @@ def _component_rows(kind: str, v: dict, shape) -> np.ndarray | None:
     else:
         return None
     return out
+
+
+def series_factors(q, t):
+    """The power law's recurrence factors per model row (Tessore & Metcalf 2015, eqs. 26-27).
+
+    Ω_n = −f (2n − 2 + t)/(2n + 2 − t) e^{2iφ} Ω_{n−1}, f = (1 − q)/(1 + q): the factors
+    −f (2n − 2 + t)/(2n + 2 − t) depend on the model only, so they are computed once per
+    row here, not per point. Each row takes N = ⌈ln 1e-16 / ln f⌉ + 1 terms, as the numpy
+    path does. Returns (N per row, factors (rows, largest N), zero beyond a row's N).
+    """
+    f = (1.0 - q) / (1.0 + q)
+    terms = np.maximum(np.ceil(np.log(1e-16) / np.log(np.maximum(f, 1e-16))) + 1, 1)
+    n = np.arange(1, int(terms.max()) + 1)
+    factors = -f[:, None] * (2 * n - 2 + t[:, None]) / (2 * n + 2 - t[:, None])
+    return terms, np.where(n[None, :] <= terms[:, None], factors, 0.0)
 
 
 def _row_shape(shapes) -> tuple | None:
@@ -183,17 +213,19 @@ def _pack(lens):
     codes, blocks = [], []
     for kind, values, count in members:
         if count is None:
-            block = _component_rows(kind, _with_defaults(kind, values), shape)
+            blocks.append(_component_rows(kind, _with_defaults(kind, values), shape))
             codes.append(CODES[kind])
-            blocks.append(block[None])
         else:
             for j in range(count):
-                block = _component_rows(
-                    kind, _with_defaults(kind, {k: a[j] for k, a in values.items()}), shape
-                )
+                member = _with_defaults(kind, {k: a[j] for k, a in values.items()})
+                blocks.append(_component_rows(kind, member, shape))
                 codes.append(CODES[kind])
-                blocks.append(block[None])
-    table = np.ascontiguousarray(np.concatenate(blocks)) if blocks else np.zeros((0, 1, WIDTH))
+    if not blocks:
+        return np.zeros(0, dtype=np.int64), np.zeros((0, 1, WIDTH)), shape
+    width = max(b.shape[1] for b in blocks)  # a power law's series factors widen its rows
+    table = np.zeros((len(blocks), blocks[0].shape[0], width))
+    for c, block in enumerate(blocks):
+        table[c, :, : block.shape[1]] = block
     return np.asarray(codes, dtype=np.int64), table, shape
 
 
@@ -211,19 +243,29 @@ def _layout(shape, x, y, *others):
     """Broadcast coordinates (and others) with the row shape; the flat row index stride.
 
     Returns (output shape, flat arrays, stride, rows) with row = (i // stride) % rows
-    for flat output index i, or None when the rows do not line up with the output.
+    for flat output index i, or None when the rows do not line up with the output. A
+    single value stays one element long (the kernels read element 0 of such an array):
+    no copy of a scalar scale or step over every point.
     """
+    arrays = [np.asarray(a, dtype=float) for a in (x, y, *others)]
     try:
-        out_shape = np.broadcast_shapes(shape, np.shape(x), np.shape(y), *map(np.shape, others))
+        out_shape = np.broadcast(np.empty(shape), *arrays).shape
     except ValueError:
         return None
     rows = int(shape[0]) if len(shape) else 1
-    axis = len(out_shape) - len(shape)
-    stride = int(np.prod(out_shape[axis + 1 :], dtype=int)) if len(shape) else 1
-    flat = [
-        np.ascontiguousarray(np.broadcast_to(np.asarray(a, dtype=float), out_shape).reshape(-1))
-        for a in (x, y, *others)
-    ]
+    size = int(np.prod(out_shape, dtype=int))
+    if rows == 1:  # one model: every point in one block
+        stride = size
+    else:
+        stride = int(np.prod(out_shape[len(out_shape) - len(shape) + 1 :], dtype=int))
+    flat = []
+    for a in arrays:
+        if a.size == 1 and size != 1:
+            flat.append(a.reshape(1))
+        elif a.shape == out_shape:
+            flat.append(np.ascontiguousarray(a).reshape(-1))
+        else:
+            flat.append(np.ascontiguousarray(np.broadcast_to(a, out_shape)).reshape(-1))
     return out_shape, flat, max(stride, 1), rows
 
 
@@ -242,7 +284,12 @@ def evaluate(lens, x, y, scale=1.0):
     if laid is None:
         return None
     out_shape, (fx, fy, fs), stride, rows = laid
-    out = _kernels().evaluate_all(codes, table, fx, fy, fs, stride, rows)
+    if rows == 1 and stride > LARGE and set(codes.tolist()) <= SIMD_FRIENDLY:
+        # one model on a large grid of a lens numpy does well: its vectorised arctan,
+        # arctanh and square roots (SIMD) beat the kernel's scalar calls per point
+        return None
+    size = int(np.prod(out_shape, dtype=int))
+    out = kernel_module().evaluate_all(codes, table, fx, fy, fs, size, stride, rows)
     return tuple(out[k].reshape(out_shape) for k in range(7))
 
 
@@ -263,7 +310,19 @@ def newton_solve(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolera
     if laid is None:
         return None
     out_shape, (fx, fy, fbx, fby, fs, fstep), stride, rows = laid
-    nx, ny, err = _kernels().newton_all(
-        codes, table, fx, fy, fbx, fby, fs, fstep, stride, rows, int(iterations), float(tolerance)
+    nx, ny, err = kernel_module().newton_all(
+        codes,
+        table,
+        fx,
+        fy,
+        fbx,
+        fby,
+        fs,
+        fstep,
+        int(np.prod(out_shape, dtype=int)),
+        stride,
+        rows,
+        int(iterations),
+        float(tolerance),
     )
     return nx.reshape(out_shape), ny.reshape(out_shape), err.reshape(out_shape)

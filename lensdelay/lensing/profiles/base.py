@@ -84,17 +84,37 @@ class MassProfile(ABC):
             PROFILES[cls.kind] = cls
 
     def __post_init__(self) -> None:
-        back = {v: k for k, v in self.toml_aliases.items()}
-        for f in fields(self):
-            name = f"{self.kind}.{back.get(f.name, f.name)}"
-            value = np.asarray(getattr(self, f.name), dtype=float)
-            rule = f.metadata.get("rule", "any")
-            test, wording = _RULES[rule]
+        for field_name, name, test, wording in self._checks():
+            value = np.asarray(getattr(self, field_name), dtype=float)
+            # one pass for the common case (all good); the error path says which rule
+            with np.errstate(invalid="ignore"):
+                if np.all(test(value) & np.isfinite(value)):
+                    continue
             if not np.all(np.isfinite(value)):
-                raise InputError(f"{name} must be finite, got {getattr(self, f.name)}")
-            if not np.all(test(value)):
-                bad = value[~test(value)] if value.ndim else value
-                raise InputError(f"{name} {wording}, got {np.ravel(bad)[0]:g}")
+                raise InputError(f"{name} must be finite, got {getattr(self, field_name)}")
+            bad = value[~test(value)] if value.ndim else value
+            raise InputError(f"{name} {wording}, got {np.ravel(bad)[0]:g}")
+
+    @classmethod
+    def _checks(cls) -> list:
+        """(field, TOML-named parameter, test, wording) per field, built once per class.
+
+        Profiles are built at every likelihood call (a sampler's every step), so the
+        field list and rules are not looked up again each time.
+        """
+        cached = cls.__dict__.get("_check_list")
+        if cached is None:
+            back = {v: k for k, v in cls.toml_aliases.items()}
+            cached = [
+                (
+                    f.name,
+                    f"{cls.kind}.{back.get(f.name, f.name)}",
+                    *_RULES[f.metadata.get("rule", "any")],
+                )
+                for f in fields(cls)
+            ]
+            cls._check_list = cached
+        return cached
 
     # -- public API: sky frame ----------------------------------------------------
     @classmethod
