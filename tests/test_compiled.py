@@ -195,3 +195,22 @@ def test_empty_and_single_points(rng):
     fast, slow = _both(lens, "hessian", 0.3, -0.4)
     assert np.shape(fast[0]) == ()
     _close(fast, slow)
+
+
+def test_rules_are_trusted_only_inside_checked_bounds():
+    """Within rules_trusted() a profile skips its checks; bounds decide when that is safe."""
+    from lensdelay.errors import InputError
+    from lensdelay.lensing.profiles.base import rule_holds_between, rules_trusted
+
+    with pytest.raises(InputError, match="axis_ratio must be in"):
+        IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.5)
+    with rules_trusted():
+        IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.5)  # not checked here
+    with pytest.raises(InputError):  # and checked again after the block
+        IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=1.5)
+    assert rule_holds_between(IsothermalEllipsoid, "axis_ratio", 0.2, 1.0)
+    assert not rule_holds_between(IsothermalEllipsoid, "axis_ratio", 0.2, 1.2)
+    assert not rule_holds_between(EllipticalPowerLaw, "slope", 0.5, 2.5)
+    assert rule_holds_between(EllipticalPowerLaw, "slope", 1.5, 2.65)
+    assert rule_holds_between(MassSheet, "convergence", -0.2, 0.5)
+    assert not rule_holds_between(IsothermalMultipole, "order", 2.0, 4.0)

@@ -41,6 +41,7 @@ from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, choices_text
 from lensdelay.lensing.images import keep_distinct_tracks, newton_polish
+from lensdelay.lensing.profiles.base import rules_trusted
 from lensdelay.model.recipe import MassModel
 from lensdelay.model.scenario import Scenario
 
@@ -266,6 +267,8 @@ class ImageLikelihood:
                 else:
                     self.kappa_fixed = mean
         self.lower, self.upper = np.array(lo), np.array(hi)
+        # rows within the bounds build valid profiles: no per-step checks (lens_for)
+        self._rules_hold = model.rules_hold_within_bounds()
         self.periods = [p.period for p in free] + [None] * (len(self.names) - self.n_model)
         self.centre_prior = self._lens_light_prior()
         # unobserved images to follow, per family: (x, y) arrays (see watch_unobserved)
@@ -386,6 +389,13 @@ class ImageLikelihood:
     def lens_for(self, params: np.ndarray):
         """Lens for parameter rows of shape (P, n) (profile parameters become (P, 1))."""
         cols = params[:, : self.n_model].T[:, :, None]
+        n = self.n_model
+        model_rows = params[:, :n]
+        if self._rules_hold and np.all(
+            (model_rows >= self.lower[:n]) & (model_rows <= self.upper[:n])
+        ):
+            with rules_trusted():
+                return self.model.lens(list(cols))
         return self.model.lens(list(cols))
 
     # -- predictions ----------------------------------------------------------------

@@ -234,6 +234,25 @@ class MassModel:
         """Number of free parameters."""
         return len(self.free)
 
+    def rules_hold_within_bounds(self) -> bool:
+        """Whether every free component parameter obeys its profile's rule over [min, max].
+
+        Then lenses built from values within the bounds need no checks
+        (:func:`lensdelay.lensing.profiles.base.rules_trusted`). Member parameters go
+        through luminosity scalings: not covered, so a model with free member parameters
+        answers False.
+        """
+        from lensdelay.lensing.profiles.base import rule_holds_between
+
+        if self.members is not None and any(p.vary for p in self.members.parameters.values()):
+            return False
+        return all(
+            rule_holds_between(c.profile_class, key, p.min, p.max)
+            for c in self.components
+            for key, p in c.parameters.items()
+            if p.vary
+        )
+
 
 # -- parsing -------------------------------------------------------------------------
 def _number(value, where: str) -> float:

@@ -19,6 +19,7 @@ classes do the shifting and rotating.
 
 from __future__ import annotations
 
+import contextlib
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field, fields
 from typing import ClassVar
@@ -48,6 +49,47 @@ _RULES = {
         "must be an integer from 2 to 10",
     ),
 }
+
+
+#: Interval form of each rule: does every value in [low, high] obey it? (The domains are
+#: intervals, so both ends obeying it is enough; an integer order must be fixed.)
+_INTERVAL_RULES = {
+    "any": lambda lo, hi: True,
+    "positive": lambda lo, hi: lo > 0,
+    "nonnegative": lambda lo, hi: lo >= 0,
+    "axis_ratio": lambda lo, hi: lo > 0 and hi <= 1,
+    "slope": lambda lo, hi: lo > 1 and hi < 3,
+    "shear": lambda lo, hi: lo >= 0 and hi < 1,
+    "sheet": lambda lo, hi: hi < 1,
+    "order": lambda lo, hi: lo == hi and lo == round(lo) and 2 <= lo <= 10,
+}
+
+_TRUSTED = {"on": False}
+
+
+@contextlib.contextmanager
+def rules_trusted():
+    """Build profiles inside the block without checking their parameters' rules.
+
+    For a sampler's every step: its parameters lie within bounds that were checked
+    against the rules once (:func:`rule_holds_between`), and checking thousands of
+    arrays again each step cost as much as evaluating the lens.
+    """
+    before = _TRUSTED["on"]
+    _TRUSTED["on"] = True
+    try:
+        yield
+    finally:
+        _TRUSTED["on"] = before
+
+
+def rule_holds_between(profile_class, name: str, low: float, high: float) -> bool:
+    """Whether every value of parameter ``name`` (TOML name) in [low, high] obeys its rule."""
+    field_name = profile_class.toml_aliases.get(name, name)
+    for f in fields(profile_class):
+        if f.name == field_name:
+            return bool(_INTERVAL_RULES[f.metadata.get("rule", "any")](low, high))
+    return False
 
 
 def param(default=None, rule: str = "any", doc: str = ""):
@@ -84,6 +126,8 @@ class MassProfile(ABC):
             PROFILES[cls.kind] = cls
 
     def __post_init__(self) -> None:
+        if _TRUSTED["on"]:  # inside rules_trusted(): values known to obey the rules
+            return
         for field_name, name, test, wording in self._checks():
             value = np.asarray(getattr(self, field_name), dtype=float)
             # one pass for the common case (all good); the error path says which rule
