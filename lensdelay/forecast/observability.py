@@ -18,7 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from astropy import units as u
-from astropy.coordinates import TETE, SkyCoord, get_sun
+from astropy.coordinates import SkyCoord, get_sun
 from astropy.time import Time
 from astropy.utils.exceptions import AstropyWarning
 
@@ -130,12 +130,36 @@ def usable_time(margin: np.ndarray, per_day: int) -> np.ndarray:
     return share.reshape(-1, per_day).sum(axis=1) / per_day
 
 
+def _apparent_sidereal_time(times: Time, longitude_deg: float) -> np.ndarray:
+    """Local apparent sidereal time (rad) with UT1 taken as UTC.
+
+    Greenwich apparent sidereal time from ERFA's IAU 2006/2000A model (erfa.gst06a, the
+    function astropy's own ``sidereal_time("apparent")`` calls; Capitaine et al. 2003,
+    A&A 412, 567) plus the site's longitude. astropy would first read the IERS tables for
+    UT1 − UTC, which took 1.4 s of a 6 s alert; |UT1 − UTC| < 0.9 s by the definition of
+    UTC, i.e. < 0.004° of hour angle, far below the 0.1° these altitudes promise.
+    """
+    import erfa
+
+    utc = times.utc
+    tt = times.tt
+    gst = erfa.gst06a(utc.jd1, utc.jd2, tt.jd1, tt.jd2)
+    return np.asarray(gst) + np.deg2rad(longitude_deg)
+
+
+def _rotated(rotation, ra, dec):
+    """(ra, dec) in rad of unit vectors (ra, dec) rotated by the matrices ``rotation``."""
+    v = np.stack([np.cos(dec) * np.cos(ra), np.cos(dec) * np.sin(ra), np.sin(dec)], axis=-1)
+    w = np.einsum("nij,nj->ni", rotation, v)
+    return np.arctan2(w[:, 1], w[:, 0]), np.arcsin(np.clip(w[:, 2], -1.0, 1.0))
+
+
 def altitudes(site: Site, target: SkyCoord, start: Time, grid_days: np.ndarray, n_days: int):
     """Altitudes (deg) of the Sun and the target at ``start + grid_days``.
 
-    Apparent sidereal time comes from astropy for every instant; the Sun's and the
-    target's apparent places (true equator and equinox of date, astropy's TETE frame, so
-    precession and nutation are included) once a day, interpolated (the Sun moves about
+    Apparent sidereal time comes from ERFA (UT1 taken as UTC) for every instant; the Sun's
+    and the target's apparent places (true equator and equinox of date, as astropy's TETE
+    frame, so precession and nutation are included) once a day, interpolated (the Sun moves about
     1° a day). Altitude then follows from the hour angle,
     sin a = sin φ sin δ + cos φ cos δ cos H (Meeus 1998, *Astronomical Algorithms*,
     eq. 13.6), without refraction. This is within 0.1° of a full AltAz transform from
@@ -148,31 +172,35 @@ def altitudes(site: Site, target: SkyCoord, start: Time, grid_days: np.ndarray, 
         # it runs at a near-constant rate (nutation changes it over days), so a fine grid
         # costs no more astropy calls than a coarse one
         knots = np.arange(np.floor(grid_days.min()) - 1, np.ceil(grid_days.max()) + 1.25, 0.25)
-        knot_lst = (
-            (start + knots * u.day)
-            .sidereal_time("apparent", longitude=site.longitude * u.deg)
-            .to_value(u.rad)
-        )
+        knot_lst = _apparent_sidereal_time(start + knots * u.day, site.longitude)
         lst = np.interp(grid_days, knots, np.unwrap(knot_lst))
         daily = start + np.arange(-1, n_days + 2) * u.day
-        # apparent places (true equator and equinox of date, TETE) to go with the apparent
+        # apparent places (true equator and equinox of date) to go with the apparent
         # sidereal time: ICRS coordinates would ignore precession (0.4° by 2027, degrees
-        # over centuries)
-        frame = TETE(obstime=daily)
-        sun = get_sun(daily).transform_to(frame)
-        tgt = SkyCoord(
-            np.full(len(daily), target.ra.deg) * u.deg,
-            np.full(len(daily), target.dec.deg) * u.deg,
-            frame="icrs",
-        ).transform_to(frame)
+        # over centuries). ERFA's IAU 2006/2000A bias-precession-nutation matrix
+        # (erfa.pnm06a; the rotation inside astropy's TETE frame) turns the Sun's
+        # geocentric place and the target's ICRS direction into them; the target's annual
+        # aberration (≤ 20.5″) is left out, and astropy's frame machinery, which reads the
+        # IERS tables for polar motion it does not need here (1.3 s), is not called.
+        import erfa
+
+        tt = daily.tt
+        rotation = erfa.pnm06a(tt.jd1, tt.jd2)  # (days, 3, 3)
+        sun = get_sun(daily)
+        sun_place = _rotated(rotation, sun.ra.to_value(u.rad), sun.dec.to_value(u.rad))
+        target_place = _rotated(
+            rotation,
+            np.full(len(daily), target.icrs.ra.to_value(u.rad)),
+            np.full(len(daily), target.icrs.dec.to_value(u.rad)),
+        )
     day_index = np.arange(-1, n_days + 2)
 
-    def daily_to_grid(coord):
-        ra = np.interp(grid_days, day_index, np.unwrap(coord.ra.to_value(u.rad)))
-        return ra, np.interp(grid_days, day_index, coord.dec.to_value(u.rad))
+    def daily_to_grid(place):
+        ra = np.interp(grid_days, day_index, np.unwrap(place[0]))
+        return ra, np.interp(grid_days, day_index, place[1])
 
-    ra_s, dec_s = daily_to_grid(sun)
-    ra_t, dec_t = daily_to_grid(tgt)
+    ra_s, dec_s = daily_to_grid(sun_place)
+    ra_t, dec_t = daily_to_grid(target_place)
     phi = np.deg2rad(site.latitude)
 
     def alt(ra, dec):
