@@ -261,11 +261,14 @@ def _layout(shape, x, y, *others):
     flat = []
     for a in arrays:
         if a.size == 1 and size != 1:
-            flat.append(a.reshape(1))
+            a = a.reshape(1)
         elif a.shape == out_shape:
-            flat.append(np.ascontiguousarray(a).reshape(-1))
+            a = np.ascontiguousarray(a).reshape(-1)
         else:
-            flat.append(np.ascontiguousarray(np.broadcast_to(a, out_shape)).reshape(-1))
+            a = np.ascontiguousarray(np.broadcast_to(a, out_shape)).reshape(-1)
+        # one array type for the kernels: a read-only input would be another numba
+        # signature, compiled again (seconds) the first time it is met
+        flat.append(a if a.flags.writeable else a.copy())
     return out_shape, flat, max(stride, 1), rows
 
 
