@@ -132,6 +132,27 @@ def test_cluster_members_summed_in_the_kernel(rng):
         _close(fast, slow)
 
 
+def test_fixed_members_beside_walkers(rng):
+    """Members with one value each (M,) beside a halo with one per walker (P, 1)."""
+    m = 7
+    members = ProfileStack(
+        TruncatedIsothermal,
+        {
+            "einstein_radius": rng.uniform(0.1, 0.5, m),
+            "cut": rng.uniform(2.0, 6.0, m),
+            "x": rng.uniform(-5, 5, m),
+            "y": rng.uniform(-5, 5, m),
+        },
+    )
+    halo = IsothermalEllipsoid(einstein_radius=rng.uniform(4, 5, (5, 1)), core=1.0)
+    lens = Lens((halo, members))
+    x, y = rng.uniform(-6, 6, size=(2, 5, 9))
+    for method in METHODS:
+        fast, slow = _both(lens, method, x, y)
+        _close(fast, slow)
+    assert compiled.pack(lens) is not None
+
+
 def test_newton_in_the_kernel_matches_numpy(rng):
     """Newton's method from perturbed images: the same roots (to 1e-10 arcsec) per walker."""
     values = _walkers(rng, 8)

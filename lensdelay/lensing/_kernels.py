@@ -40,14 +40,14 @@ def _atanh_over(e, z):
 
 
 @_inline
-def _keeton(x, y, q, b, s):
+def _keeton(x, y, q, b, s, want_potential):
     """Cored isothermal ellipsoid in its frame (Keeton 2001, eqs. 33-34)."""
     e = math.sqrt(max(1.0 - q * q, 0.0))
     psi = max(math.sqrt(q * q * (s * s + x * x) + y * y), RADIUS_FLOOR)
     ax = b * _atan_over(e, x / (psi + s))
     ay = b * _atanh_over(e, y / (psi + q * q * s))
     pot = x * ax + y * ay
-    if s > 0.0:
+    if s > 0.0 and want_potential:  # the core term's logarithms only when ψ is asked for
         pot += -b * s * (0.5 * math.log((psi + s) ** 2 + e * e * x * x) - math.log((1.0 + q) * s))
     d1 = psi * ((psi + s) ** 2 + e * e * x * x)
     d2 = psi * ((psi + q * q * s) ** 2 - e * e * y * y)
@@ -109,8 +109,12 @@ def _nfw_f(u):
 
 
 @_inline
-def _component(code, table, c, row, gx, gy):
-    """Component c's seven values at sky point (gx, gy) for parameter row ``row``."""
+def _component(code, table, c, row, gx, gy, want_potential):
+    """Component c's seven values at sky point (gx, gy) for parameter row ``row``.
+
+    ``want_potential`` False skips the potential's own transcendental calls where it has
+    any (cored ellipsoids, NFW, point mass): ψ is then not computed (0).
+    """
     if code == 5:  # shear, about the origin
         gc, gs = table[c, row, 0], table[c, row, 1]
         pot = -0.5 * ((gy * gy - gx * gx) * gc + 2.0 * gx * gy * gs)
@@ -131,9 +135,13 @@ def _component(code, table, c, row, gx, gy):
                 lx, ly, q, b, table[c, row, 6], table, c, row
             )
         else:
-            ax, ay, pot, h11, h12, h22, kap = _keeton(lx, ly, q, b, table[c, row, 6])
+            ax, ay, pot, h11, h12, h22, kap = _keeton(
+                lx, ly, q, b, table[c, row, 6], want_potential
+            )
             if code == 9:  # truncated: minus the ellipsoid of core a
-                bx, by, bpot, b11, b12, b22, bkap = _keeton(lx, ly, q, b, table[c, row, 7])
+                bx, by, bpot, b11, b12, b22, bkap = _keeton(
+                    lx, ly, q, b, table[c, row, 7], want_potential
+                )
                 ax, ay, pot = ax - bx, ay - by, pot - bpot
                 h11, h12, h22, kap = h11 - b11, h12 - b12, h22 - b22, kap - bkap
         if at_centre:  # the Hessian's average over directions (base.MassProfile.hessian)
@@ -182,7 +190,8 @@ def _component(code, table, c, row, gx, gy):
         kappa, alpha, pot = 0.5 * te / r, te, te * r
     elif code == 8:  # point mass
         te2 = table[c, row, 2] * table[c, row, 2]
-        kappa, alpha, pot = 0.0, te2 / r, te2 * math.log(r)
+        kappa, alpha = 0.0, te2 / r
+        pot = te2 * math.log(r) if want_potential else 0.0
     else:  # 7: NFW
         ks, rs = table[c, row, 2], table[c, row, 3]
         u = r / rs
@@ -192,11 +201,13 @@ def _component(code, table, c, row, gx, gy):
         else:
             kappa = 2.0 * ks * (1.0 - _nfw_f(u)) / (u * u - 1.0)
         alpha = 4.0 * ks * rs * (math.log(0.5 * u) + _nfw_f(u)) / u
-        if u < 1.0:
-            angle2 = -(math.acosh(1.0 / u) ** 2)
-        else:
-            angle2 = math.acos(1.0 / u) ** 2
-        pot = 2.0 * ks * rs * rs * (math.log(0.5 * u) ** 2 + angle2)
+        pot = 0.0
+        if want_potential:
+            if u < 1.0:
+                angle2 = -(math.acosh(1.0 / u) ** 2)
+            else:
+                angle2 = math.acos(1.0 / u) ** 2
+            pot = 2.0 * ks * rs * rs * (math.log(0.5 * u) ** 2 + angle2)
     # axisymmetric: from κ(r), α(r), ψ(r) (Schneider, Ehlers & Falco 1992, Sect. 8.1)
     tangential = alpha / r
     if at_centre:
@@ -216,11 +227,11 @@ def _component(code, table, c, row, gx, gy):
 
 
 @_inline
-def _sum_at(codes, table, row, gx, gy):
+def _sum_at(codes, table, row, gx, gy, want_potential):
     """The lens's seven values at (gx, gy): the sum over its components."""
     a0 = a1 = a2 = a3 = a4 = a5 = a6 = 0.0
     for c in range(codes.shape[0]):
-        v0, v1, v2, v3, v4, v5, v6 = _component(codes[c], table, c, row, gx, gy)
+        v0, v1, v2, v3, v4, v5, v6 = _component(codes[c], table, c, row, gx, gy, want_potential)
         a0 += v0
         a1 += v1
         a2 += v2
@@ -238,7 +249,7 @@ def _at(a, i):
 
 
 @_jit
-def evaluate_all(codes, table, x, y, scale, n, stride, rows):
+def evaluate_all(codes, table, x, y, scale, n, stride, rows, want_potential):
     """(7, N): α_x, α_y, ψ, ψ_xx, ψ_xy, ψ_yy, κ at the N points, each times its scale."""
     out = np.empty((7, n))
     # flat index i = (outer · rows + row) · stride + j: loops, not a division per point
@@ -246,7 +257,9 @@ def evaluate_all(codes, table, x, y, scale, n, stride, rows):
         for row in range(rows):
             start = (outer * rows + row) * stride
             for i in range(start, start + stride):
-                a0, a1, a2, a3, a4, a5, a6 = _sum_at(codes, table, row, _at(x, i), _at(y, i))
+                a0, a1, a2, a3, a4, a5, a6 = _sum_at(
+                    codes, table, row, _at(x, i), _at(y, i), want_potential
+                )
                 s = _at(scale, i)
                 out[0, i] = s * a0
                 out[1, i] = s * a1
@@ -271,7 +284,7 @@ def newton_all(
         x, y, s = _at(x0, i), _at(y0, i), _at(scale, i)
         beta_x, beta_y, limit = _at(bx, i), _at(by, i), _at(max_step, i)
         for _ in range(iterations):
-            ax, ay, _p, h11, h12, h22, _k = _sum_at(codes, table, row, x, y)
+            ax, ay, _p, h11, h12, h22, _k = _sum_at(codes, table, row, x, y, False)
             rx = beta_x - (x - s * ax)
             ry = beta_y - (y - s * ay)
             if abs(rx) + abs(ry) < tolerance:
@@ -292,7 +305,7 @@ def newton_all(
                 x += dx
             if math.isfinite(dy):
                 y += dy
-        ax, ay, _p, _h11, _h12, _h22, _k = _sum_at(codes, table, row, x, y)
+        ax, ay, _p, _h11, _h12, _h22, _k = _sum_at(codes, table, row, x, y, False)
         e = math.hypot(beta_x - (x - s * ax), beta_y - (y - s * ay))
         xs[i] = x
         ys[i] = y

@@ -26,6 +26,7 @@ Brainerd 2000, eq. 11, Golse & Kneib 2002, eqs. 7-9; point mass and SIS, Schneid
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import functools
 import os
 
@@ -90,19 +91,27 @@ def _rows(a, shape):
     return np.broadcast_to(np.asarray(a, dtype=float), shape).reshape(-1)
 
 
-def _column(a, n):
-    """A parameter's values for the n rows: one value, or one per row (size n)."""
+def _column(a, n, shape):
+    """A parameter's values for the n entries of ``shape``, flattened (one value stays one)."""
     a = np.asarray(a, dtype=float)
-    return a.reshape(-1) if a.size == n else a.reshape(())
+    if a.size == n:
+        return a.reshape(-1)
+    if a.size == 1:
+        return a.reshape(())
+    return np.broadcast_to(a, shape).reshape(-1)
 
 
 def _component_rows(kind: str, v: dict, shape) -> np.ndarray | None:
-    """The table entries (rows, WIDTH) of one component with values ``v``."""
+    """The table entries (entries of ``shape``, WIDTH) of one component with values ``v``.
+
+    ``shape`` is the row shape, or (members,) + the row shape for a stack of members
+    (all members' entries in one pass).
+    """
     n = int(np.prod(shape, dtype=int)) if shape else 1
     out = np.zeros((n, WIDTH))
 
     def put(col, value):
-        out[:, col] = _column(value, n)  # the row shape is () or (n, 1, ...): sizes 1 or n
+        out[:, col] = _column(value, n, shape)
 
     if kind in ("SIE", "power_law", "truncated_isothermal"):
         phi = np.deg2rad(np.asarray(v["position_angle"], dtype=float))
@@ -197,8 +206,11 @@ def _pack(lens):
     for c in lens.components:
         if hasattr(c, "profile_class"):  # a stack of members
             kind = c.profile_class.kind
-            values = c.values()  # field names: the TOML names for these kinds but the sheet's
+            values = dict(c.values())  # field names: TOML names for these kinds (not sheet)
             first = next(iter(values.values()))
+            for f in dataclasses.fields(c.profile_class):  # what the stack left at defaults
+                if f.name not in values and f.default is not dataclasses.MISSING:
+                    values[f.name] = np.full(first.shape[0], float(f.default))
             shapes.append(first.shape[1:])
             members.append((kind, values, first.shape[0]))
         else:
@@ -215,11 +227,15 @@ def _pack(lens):
         if count is None:
             blocks.append(_component_rows(kind, _with_defaults(kind, values), shape))
             codes.append(CODES[kind])
-        else:
-            for j in range(count):
-                member = _with_defaults(kind, {k: a[j] for k, a in values.items()})
-                blocks.append(_component_rows(kind, member, shape))
-                codes.append(CODES[kind])
+        else:  # all members at once: (members × rows, width) -> one entry per member
+            # a member axis first, then the row axes (members' own may be fewer)
+            padded = {
+                k: a.reshape((count,) + (1,) * (len(shape) + 1 - a.ndim) + a.shape[1:])
+                for k, a in values.items()
+            }
+            block = _component_rows(kind, _with_defaults(kind, padded), (count, *shape))
+            blocks += list(block.reshape(count, -1, block.shape[1]))
+            codes += [CODES[kind]] * count
     if not blocks:
         return np.zeros(0, dtype=np.int64), np.zeros((0, 1, WIDTH)), shape
     width = max(b.shape[1] for b in blocks)  # a power law's series factors widen its rows
@@ -272,10 +288,11 @@ def _layout(shape, x, y, *others):
     return out_shape, flat, max(stride, 1), rows
 
 
-def evaluate(lens, x, y, scale=1.0):
+def evaluate(lens, x, y, scale=1.0, potential: bool = True):
     """(α_x, α_y, ψ, ψ_xx, ψ_xy, ψ_yy, κ) of ``lens`` at (x, y), or None (numpy path).
 
     All seven times ``scale`` (a family's deflection scale, scalar or broadcastable).
+    ``potential`` False leaves ψ out (0) and skips its costly terms.
     """
     if not enabled():
         return None
@@ -292,7 +309,9 @@ def evaluate(lens, x, y, scale=1.0):
         # arctanh and square roots (SIMD) beat the kernel's scalar calls per point
         return None
     size = int(np.prod(out_shape, dtype=int))
-    out = kernel_module().evaluate_all(codes, table, fx, fy, fs, size, stride, rows)
+    out = kernel_module().evaluate_all(
+        codes, table, fx, fy, fs, size, stride, rows, bool(potential)
+    )
     return tuple(out[k].reshape(out_shape) for k in range(7))
 
 

@@ -49,7 +49,8 @@ def _blockwise(method):
 
     @functools.wraps(method)
     def wrapper(self, x, y, scale=1.0):
-        fused = compiled.evaluate(self, x, y, scale)  # None: the numpy path below
+        # None: the numpy path below; ψ only for the methods that return it
+        fused = compiled.evaluate(self, x, y, scale, potential=2 in picks)
         if fused is not None:
             return fused[picks[0]] if len(picks) == 1 else tuple(fused[k] for k in picks)
         if np.size(x) <= 2 * BLOCK_POINTS and np.size(y) <= 2 * BLOCK_POINTS:
