@@ -109,20 +109,22 @@ def test_walkers_times_points(coords, rng):
     _close(lens.deflection(x, y, scale)[0][3], alone)
 
 
+def _members(rng, m, half_width, **more):
+    """A stack of m truncated isothermal members scattered over ±half_width arcsec."""
+    values = {
+        "einstein_radius": rng.uniform(0.1, 0.5, m),
+        "cut": rng.uniform(2.0, 6.0, m),
+        "x": rng.uniform(-half_width, half_width, m),
+        "y": rng.uniform(-half_width, half_width, m),
+        **more,
+    }
+    return ProfileStack(TruncatedIsothermal, values)
+
+
 def test_cluster_members_summed_in_the_kernel(rng):
     """A stack of 60 truncated members plus a halo: the kernel sums them per point."""
-    m = 60
-    members = ProfileStack(
-        TruncatedIsothermal,
-        {
-            "einstein_radius": rng.uniform(0.1, 0.5, m),
-            "cut": rng.uniform(2.0, 6.0, m),
-            "core": np.zeros(m),
-            "axis_ratio": rng.uniform(0.5, 1.0, m),
-            "position_angle": rng.uniform(0, 180, m),
-            "x": rng.uniform(-30, 30, m),
-            "y": rng.uniform(-30, 30, m),
-        },
+    members = _members(
+        rng, 60, 30.0, axis_ratio=rng.uniform(0.5, 1.0, 60), position_angle=rng.uniform(0, 180, 60)
     )
     halo = IsothermalEllipsoid(einstein_radius=15.0, axis_ratio=0.8, core=2.0, position_angle=20)
     lens = Lens((halo, members, NFWHalo(kappa_s=0.2, scale_radius=40.0, x=5.0)))
@@ -134,16 +136,7 @@ def test_cluster_members_summed_in_the_kernel(rng):
 
 def test_fixed_members_beside_walkers(rng):
     """Members with one value each (M,) beside a halo with one per walker (P, 1)."""
-    m = 7
-    members = ProfileStack(
-        TruncatedIsothermal,
-        {
-            "einstein_radius": rng.uniform(0.1, 0.5, m),
-            "cut": rng.uniform(2.0, 6.0, m),
-            "x": rng.uniform(-5, 5, m),
-            "y": rng.uniform(-5, 5, m),
-        },
-    )
+    members = _members(rng, 7, 5.0)  # the rest of their parameters left at the defaults
     halo = IsothermalEllipsoid(einstein_radius=rng.uniform(4, 5, (5, 1)), core=1.0)
     lens = Lens((halo, members))
     x, y = rng.uniform(-6, 6, size=(2, 5, 9))

@@ -288,22 +288,28 @@ def _layout(shape, x, y, *others):
     return out_shape, flat, max(stride, 1), rows
 
 
-def evaluate(lens, x, y, scale=1.0, potential: bool = True):
-    """(α_x, α_y, ψ, ψ_xx, ψ_xy, ψ_yy, κ) of ``lens`` at (x, y), or None (numpy path).
-
-    All seven times ``scale`` (a family's deflection scale, scalar or broadcastable).
-    ``potential`` False leaves ψ out (0) and skips its costly terms.
-    """
+def _prepared(lens, *arrays):
+    """(codes, table, output shape, flat arrays, stride, rows), or None (numpy path)."""
     if not enabled():
         return None
     packed = pack(lens)
     if packed is None:
         return None
     codes, table, shape = packed
-    laid = _layout(shape, x, y, scale)
+    laid = _layout(shape, *arrays)
+    return None if laid is None else (codes, table, *laid)
+
+
+def evaluate(lens, x, y, scale=1.0, potential: bool = True):
+    """(α_x, α_y, ψ, ψ_xx, ψ_xy, ψ_yy, κ) of ``lens`` at (x, y), or None (numpy path).
+
+    All seven times ``scale`` (a family's deflection scale, scalar or broadcastable).
+    ``potential`` False leaves ψ out (0) and skips its costly terms.
+    """
+    laid = _prepared(lens, x, y, scale)
     if laid is None:
         return None
-    out_shape, (fx, fy, fs), stride, rows = laid
+    codes, table, out_shape, (fx, fy, fs), stride, rows = laid
     if rows == 1 and stride > LARGE and set(codes.tolist()) <= SIMD_FRIENDLY:
         # one model on a large grid of a lens numpy does well: its vectorised arctan,
         # arctanh and square roots (SIMD) beat the kernel's scalar calls per point
@@ -321,17 +327,11 @@ def newton_solve(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolera
     Same steps, limits and stopping rule as :func:`lensdelay.lensing.images.newton_polish`;
     every point is solved to convergence or the iteration budget inside one call.
     """
-    if not enabled():
-        return None
-    packed = pack(lens)
-    if packed is None:
-        return None
-    codes, table, shape = packed
     step = np.inf if max_step is None else max_step
-    laid = _layout(shape, x, y, beta_x, beta_y, scale, step)
+    laid = _prepared(lens, x, y, beta_x, beta_y, scale, step)
     if laid is None:
         return None
-    out_shape, (fx, fy, fbx, fby, fs, fstep), stride, rows = laid
+    codes, table, out_shape, (fx, fy, fbx, fby, fs, fstep), stride, rows = laid
     nx, ny, err = kernel_module().newton_all(
         codes,
         table,
