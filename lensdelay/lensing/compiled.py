@@ -28,6 +28,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import functools
+import math
 import os
 
 import numpy as np
@@ -107,7 +108,7 @@ def _component_rows(kind: str, v: dict, shape) -> np.ndarray | None:
     ``shape`` is the row shape, or (members,) + the row shape for a stack of members
     (all members' entries in one pass).
     """
-    n = int(np.prod(shape, dtype=int)) if shape else 1
+    n = math.prod(shape)
     out = np.zeros((n, WIDTH))
 
     def put(col, value):
@@ -269,11 +270,11 @@ def _layout(shape, x, y, *others):
     except ValueError:
         return None
     rows = int(shape[0]) if len(shape) else 1
-    size = int(np.prod(out_shape, dtype=int))
+    size = math.prod(out_shape)
     if rows == 1:  # one model: every point in one block
         stride = size
     else:
-        stride = int(np.prod(out_shape[len(out_shape) - len(shape) + 1 :], dtype=int))
+        stride = math.prod(out_shape[len(out_shape) - len(shape) + 1 :])
     flat = []
     for a in arrays:
         if a.size == 1 and size != 1:
@@ -314,7 +315,7 @@ def evaluate(lens, x, y, scale=1.0, potential: bool = True):
         # one model on a large grid of a lens numpy does well: its vectorised arctan,
         # arctanh and square roots (SIMD) beat the kernel's scalar calls per point
         return None
-    size = int(np.prod(out_shape, dtype=int))
+    size = math.prod(out_shape)
     out = kernel_module().evaluate_all(
         codes, table, fx, fy, fs, size, stride, rows, bool(potential)
     )
@@ -341,7 +342,7 @@ def newton_solve(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolera
         fby,
         fs,
         fstep,
-        int(np.prod(out_shape, dtype=int)),
+        math.prod(out_shape),
         stride,
         rows,
         int(iterations),
