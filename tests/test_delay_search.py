@@ -282,9 +282,9 @@ def test_curves_that_never_overlap_give_no_number(rng):
     assert "no variability in common" in b.statement
 
 
-def _three_season_pair(rng, delay):
-    """A DRW quasar double (σ 0.2 mag, τ 100 d), three seasons at a 3-day cadence."""
-    epochs = seasonal_epochs(58000, 3, 200, 3.0, rng)
+def _three_season_pair(rng, delay, cadence=3.0):
+    """A DRW quasar double (σ 0.2 mag, τ 100 d), three seasons at ``cadence`` days."""
+    epochs = seasonal_epochs(58000, 3, 200, cadence, rng)
     return simulate_quasar(
         {"A": epochs, "B": epochs},
         {"A": 0.0, "B": delay},
@@ -384,16 +384,7 @@ def test_an_instrument_seen_by_one_image_only(rng):
     fitted for B alone and the delay still holds the truth (no false precision)."""
     from dataclasses import replace
 
-    epochs = seasonal_epochs(58000, 3, 200, 4.0, rng)
-    c = simulate_quasar(
-        {"A": epochs, "B": epochs},
-        {"A": 0.0, "B": 30.0},
-        0.2,
-        100.0,
-        {"A": 0.02, "B": 0.02},
-        {},
-        rng,
-    )
+    c = _three_season_pair(rng, 30.0, cadence=4.0)
     late_b = (c.image == "B") & (c.time > np.median(c.time))
     c = replace(c, mag=c.mag + 0.3 * late_b, instrument=np.where(late_b, "cam2", "cam1"))
     res = measure_delays(c, "A", kind="quasar", simulations=0)

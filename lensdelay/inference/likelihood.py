@@ -32,6 +32,7 @@ quad (``benchmarks/bench_fit.py``; README). The Jacobian behind the Fisher infor
 
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -388,15 +389,13 @@ class ImageLikelihood:
 
     def lens_for(self, params: np.ndarray):
         """Lens for parameter rows of shape (P, n) (profile parameters become (P, 1))."""
-        cols = params[:, : self.n_model].T[:, :, None]
         n = self.n_model
         model_rows = params[:, :n]
-        if self._rules_hold and np.all(
+        trusted = self._rules_hold and np.all(
             (model_rows >= self.lower[:n]) & (model_rows <= self.upper[:n])
-        ):
-            with rules_trusted():
-                return self.model.lens(list(cols))
-        return self.model.lens(list(cols))
+        )
+        with rules_trusted() if trusted else contextlib.nullcontext():
+            return self.model.lens(list(model_rows.T[:, :, None]))
 
     # -- predictions ----------------------------------------------------------------
     def predict(self, params: np.ndarray):

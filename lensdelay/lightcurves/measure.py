@@ -181,7 +181,7 @@ def dispersion_delay(curves, reference: str, image: str, grid: np.ndarray, windo
             den += np.sum(w)
             n_pairs += len(np.unique(j))  # the image's points that found a partner
         # trials where the curves barely overlap match by chance: need pairs for a good
-        # share of the points (the overlap rule of the posterior's, SUPERNOVA_MIN_OVERLAP_SHARE)
+        # share of the points (as the supernova verdict's SUPERNOVA_MIN_OVERLAP_SHARE)
         if n_pairs >= needed and den > 0 and num / den < best_d:
             best_d, best = num / den, float(d)
     return best
@@ -290,10 +290,11 @@ def measure_delays(
 
     Notes
     -----
-    A delay is reported as a measurement only when its posterior is narrower than
-    SUPERNOVA_MEASURABLE_SHARE of the searched range, stays clear of the range's bounds, the
-    curves overlap at it and its chain converged (:func:`chain_verdicts`);
-    otherwise the image is "not measurable from these data", with the reason.
+    A supernova delay is reported as a measurement only when its posterior is narrower
+    than SUPERNOVA_MEASURABLE_SHARE of the searched range, stays clear of the range's
+    bounds, the curves overlap at it and its chain converged (:func:`chain_verdicts`); a
+    quasar delay by the rules of :mod:`.search`. Otherwise the image is "not measurable
+    from these data", with the reason.
     """
     from lensdelay.lightcurves.supernova import SupernovaDelayModel
 

@@ -684,19 +684,17 @@ def _measure_pair(
     scale = float(np.sqrt(chi2 / dof)) if p_value < POOR_FIT_P else 1.0
     goodness = {"chi2": float(chi2), "dof": int(dof), "p_value": p_value}
     bias = sim_spread = 0.0
-    # the budget only widens: a pair refused already on its statistical posterior (no
-    # variability in common, too broad, or reaching delays without overlap) is refused
-    # whatever the simulations say, so they are not run (they were most of the time of
-    # the slowest TDC1 pairs)
+    # is there variability in common at all? the best model's evidence of one source
+    # against the same two curves as independent sources
     alone = sum(model.log_likelihood([0.0], *hyper, model.which == k) for k in (0, 1))
     odds = float(best_scan.scans[0].log_evidence - alone)
-    s_lo, s_hi = np.percentile(stat, [2.5, 97.5])
-    s_probe = np.array([s_lo - model.cadence, s_hi + model.cadence])
-    hopeless = (
-        not odds >= MIN_SHARED_LN_ODDS
-        or s_hi - s_lo > MEASURABLE_SHARE * (span[1] - span[0])
-        or not np.all(admitted(model, 1, s_probe, window))
+    verdict = dict(
+        odds=odds, scale=scale, chi2=chi2, dof=dof, span=span, window=window, prior=prior_range
     )
+    # the budget only widens: a pair its statistical posterior already refuses is refused
+    # whatever the simulations say, so they are not run (they were most of the time of
+    # the slowest TDC1 pairs)
+    hopeless = bool(_refusal(model, stat, **verdict))
     if simulations and not hopeless:
         # simulated data searched near their truth: wide enough for the estimator's local
         # errors and its jumps between neighbouring (seasonal) modes; far modes are the
@@ -722,47 +720,7 @@ def _measure_pair(
     rms = float(np.hypot(bias, sim_spread))
     extra = np.sqrt(spread**2 + max(0.0, rms**2 - (0.5 * (q84 - q16)) ** 2))
     final = q50 + scale * (stat + extra * rng.standard_normal(draws) - q50)
-    # is there variability in common at all? ``odds``: the best model's evidence of one
-    # source against the same two curves as independent sources (computed above)
-    lo, hi = np.percentile(final, [2.5, 97.5])
-    probe = np.array([lo - model.cadence, hi + model.cadence])
-    inside = admitted(model, 1, probe, window)
-    within_prior = True
-    prior_width = np.inf
-    if prior_range is not None:
-        within_prior = bool(np.all((probe >= prior_range[0]) & (probe <= prior_range[1])))
-        prior_width = max(min(span[1], prior_range[1]) - max(span[0], prior_range[0]), 1e-9)
-    extent = span[1] - span[0]
-    why = ""
-    if scale > MAX_SCALE:
-        why = (
-            f"not measurable: the model does not describe these curves (chi2 = {chi2:.0f} for "
-            f"{dof} dof; sqrt(chi2/dof) = {scale:.1f} > {MAX_SCALE:g}) — check the errors, "
-            "instruments and outliers"
-        )
-    elif not odds >= MIN_SHARED_LN_ODDS:
-        why = (
-            "not measurable from these data: the curves show no variability in common (log "
-            f"Bayes factor of one source against two independent curves {odds:.1f}, below "
-            f"{MIN_SHARED_LN_ODDS:g})"
-        )
-    elif not np.all(inside):
-        why = (
-            "not measurable from these data: the posterior reaches delays where the curves "
-            f"no longer overlap enough (95% interval {lo:+.1f}..{hi:+.1f} d)"
-        )
-    elif hi - lo > MEASURABLE_SHARE * extent:
-        why = (
-            f"not measurable from these data: the 95% interval spans {hi - lo:.0f} d, more "
-            f"than {100 * MEASURABLE_SHARE:.0f}% of the {extent:.0f} d of delays at which "
-            "the curves overlap"
-        )
-    elif not within_prior or hi - lo > PRIOR_SHARE * prior_width:
-        why = (
-            f"not measurable from these data: the delay is held by the given range "
-            f"({prior_range[0]:+.1f}..{prior_range[1]:+.1f} d), not by the curves (95% "
-            f"interval {lo:+.1f}..{hi:+.1f} d)"
-        )
+    why = _refusal(model, final, **verdict)
     return PairResult(
         a,
         b,
@@ -779,6 +737,53 @@ def _measure_pair(
         model,
         tuple(scans),
     )
+
+
+def _refusal(model, draws, *, odds, scale, chi2, dof, span, window, prior) -> str:
+    """Why a pair's delay draws are not a measurement ("" when they are).
+
+    The fit must describe the curves (scale ≤ MAX_SCALE), the curves must share
+    variability (odds), the 95% interval must stay where they overlap and be narrower than
+    MEASURABLE_SHARE of the admitted delays, and with a given range (``prior``) it must
+    narrow that range to PRIOR_SHARE and stay clear of its bounds. Wider draws are refused
+    wherever narrower ones are.
+    """
+    lo, hi = np.percentile(draws, [2.5, 97.5])
+    probe = np.array([lo - model.cadence, hi + model.cadence])
+    extent = span[1] - span[0]
+    if scale > MAX_SCALE:
+        return (
+            f"not measurable: the model does not describe these curves (chi2 = {chi2:.0f} for "
+            f"{dof} dof; sqrt(chi2/dof) = {scale:.1f} > {MAX_SCALE:g}) — check the errors, "
+            "instruments and outliers"
+        )
+    if not odds >= MIN_SHARED_LN_ODDS:
+        return (
+            "not measurable from these data: the curves show no variability in common (log "
+            f"Bayes factor of one source against two independent curves {odds:.1f}, below "
+            f"{MIN_SHARED_LN_ODDS:g})"
+        )
+    if not np.all(admitted(model, 1, probe, window)):
+        return (
+            "not measurable from these data: the posterior reaches delays where the curves "
+            f"no longer overlap enough (95% interval {lo:+.1f}..{hi:+.1f} d)"
+        )
+    if hi - lo > MEASURABLE_SHARE * extent:
+        return (
+            f"not measurable from these data: the 95% interval spans {hi - lo:.0f} d, more "
+            f"than {100 * MEASURABLE_SHARE:.0f}% of the {extent:.0f} d of delays at which "
+            "the curves overlap"
+        )
+    if prior is not None:
+        within = bool(np.all((probe >= prior[0]) & (probe <= prior[1])))
+        width = max(min(span[1], prior[1]) - max(span[0], prior[0]), 1e-9)
+        if not within or hi - lo > PRIOR_SHARE * width:
+            return (
+                f"not measurable from these data: the delay is held by the given range "
+                f"({prior[0]:+.1f}..{prior[1]:+.1f} d), not by the curves (95% "
+                f"interval {lo:+.1f}..{hi:+.1f} d)"
+            )
+    return ""
 
 
 def network(labels, pairs, draws: int, rng):
@@ -848,7 +853,7 @@ def network(labels, pairs, draws: int, rng):
     return stat, final, linked, birge
 
 
-def intrinsic_share(model, ln_l_drw: float) -> tuple[float, float, float]:
+def intrinsic_share(model, ln_l_drw: float) -> tuple[float, float, float, float]:
     """How much of the simulations' intrinsic variability should be a Matérn-3/2 process.
 
     Every curve alone is fitted with each kernel (:meth:`QuasarDelayModel.fit_alone`);
