@@ -247,5 +247,5 @@ class SampledTarget:
         if self.coordinates.identity:
             return self.like.evaluate(u)
         logp, res, jac = self.like.evaluate(self.coordinates.to_model(u))
-        jac = np.einsum("pmi,pij->pmj", jac, self.coordinates.model_jacobian(u))
+        jac = jac @ self.coordinates.model_jacobian(u)
         return logp + self.coordinates.log_volume(u), res, jac

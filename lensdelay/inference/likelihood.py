@@ -435,8 +435,11 @@ class ImageLikelihood:
                     ok[:, j] &= ~same
                     near[:, j] &= ~same
             with np.errstate(all="ignore"):
-                tau = lens.fermat_potential(x, y, bx, by, scale)
-                mu = lens.magnification(x, y, scale)
+                # τ = |θ − β|²/2 − ψ and μ = 1/det A from one pass over the lens
+                psi, hxx, hxy, hyy = lens.potential_and_hessian(x, y, scale)
+                tau = 0.5 * ((x - bx) ** 2 + (y - by) ** 2) - psi
+                a11, a12, a22 = 1.0 - hxx, -hxy, 1.0 - hyy
+                mu = 1.0 / (a11 * a22 - a12 * a12)
             extra_mu = self._watched_magnifications(lens, k, x, y, ok, bx, by, scale)
             tx, ty, t_tau = self._tracked_images(lens, k, x, y, ok, bx, by, scale)
             out.append(
@@ -447,6 +450,7 @@ class ImageLikelihood:
                     "near": near,
                     "fermat": tau,
                     "mu": mu,
+                    "magnification_matrix": (a11, a12, a22),
                     "beta": np.hstack([bx, by]),
                     "lens": lens,
                     "scale": scale,
@@ -573,9 +577,12 @@ class ImageLikelihood:
             dy = (pred["y"] - fam.y) / fam.sigma
             # where no image was found: the magnification-weighted source-plane offset,
             # plus a large constant so that a missing image always costs more than any fit
-            fx, fy = self.source_plane_offsets(pred["lens"], fam, pred["scale"], pred["beta"])
             near = pred["near"]
             bad = ~pred["ok"] & ~near
+            if np.any(near | bad):
+                fx, fy = self.source_plane_offsets(pred["lens"], fam, pred["scale"], pred["beta"])
+            else:  # every image found: the offsets are not used (a lens pass saved)
+                fx = fy = np.zeros_like(dx)
             dx = np.where(near, fx, dx)
             dy = np.where(near, fy, dy)
             dx = np.where(bad, MISSING_IMAGE_PENALTY + np.nan_to_num(np.abs(fx), posinf=1e6), dx)
@@ -656,7 +663,9 @@ class ImageLikelihood:
             )
         return np.stack(cols, axis=1)
 
-    def information_jacobian(self, params: np.ndarray, preds=None, columns=None) -> np.ndarray:
+    def information_jacobian(
+        self, params: np.ndarray, preds=None, columns=None, scheme: str = "central"
+    ) -> np.ndarray:
         """∂(normalised residuals)/∂(parameters) at the predicted images, (P, m, n).
 
         Image positions move with the parameters by the implicit-function theorem
@@ -670,7 +679,15 @@ class ImageLikelihood:
         ``columns`` (indices of parameters) limits the differences to those parameters;
         the other columns are then zero (a conditional fit needs no more, at a fraction
         of the cost).
+
+        ``scheme``: ``"central"`` (error O(h²), 2 lens evaluations per parameter) or
+        ``"forward"`` (error O(h), about 1e-6 relative at the step h = 1e-6·max(1, |p|);
+        n + 1 evaluations, half the cost). The forward scheme serves where the Jacobian
+        only shapes proposals (a Metropolis–Hastings ratio keeps the target exact); the
+        Jeffreys prior, part of the target, uses the central one.
         """
+        if scheme not in ("central", "forward"):
+            raise ValueError(f"scheme must be 'central' or 'forward', got {scheme!r}")
         params = np.atleast_2d(np.asarray(params, dtype=float))
         preds = self.predict(params) if preds is None else preds
         n_rows, n_all = params.shape
@@ -682,11 +699,18 @@ class ImageLikelihood:
         # there, and every difference is divided by the step actually taken
         up = np.minimum(step, self.upper - params)[:, cols]  # (P, n), ≥ 0
         down = np.minimum(step, params - self.lower)[:, cols]
-        # rows p + up e_k then p - down e_k for every k: (2 n P, n), k-major
+        # central: rows p + up e_k, then p - down e_k, for every k (2 n P rows, k-major);
+        # forward: rows p + h e_k (h = up, or -down on an upper bound), then p itself
+        # ((n + 1) P rows). hi/lo: the signed steps of the two blocks, (n, P, 1).
+        if scheme == "central":
+            hi, lo = up.T[:, :, None], -down.T[:, :, None]
+        else:
+            hi, lo = np.where(up > 0, up, -down).T[:, :, None], np.zeros((1, n_rows, 1))
         eye = np.eye(n_all)[cols]
-        plus = params[None, :, :] + up.T[:, :, None] * eye[:, None, :]
-        minus = params[None, :, :] - down.T[:, :, None] * eye[:, None, :]
-        shifted = np.concatenate([plus, minus]).reshape(-1, n_all)
+        high = params[None, :, :] + hi * eye[:, None, :]
+        low = params[None, :, :] + lo * eye[:, None, :] if scheme == "central" else params[None]
+        shifted = np.concatenate([high, low]).reshape(-1, n_all)
+        span = hi - lo  # (n, P, 1)
         lens = self.lens_for(shifted)
         need_derived = self.use_delays or self.use_fluxes
         jac_parts, fermat_pm, mu_pm = [], [], []
@@ -695,18 +719,20 @@ class ImageLikelihood:
             # observed images, then tracked predicted ones (timing rows may need them)
             x = np.hstack([pred["x"], pred["track_x"]])  # (P, I)
             y = np.hstack([pred["y"], pred["track_y"]])
-            xs = np.tile(x, (2 * n_par, 1))
-            ys = np.tile(y, (2 * n_par, 1))
+            n_copies = len(shifted) // n_rows
+            xs = np.tile(x, (n_copies, 1))
+            ys = np.tile(y, (n_copies, 1))
             shifted_scale = self.family_scale(k, shifted)
             with np.errstate(all="ignore"):
                 ax, ay = lens.deflection(xs, ys, shifted_scale)
-                a11, a12, a22 = pred["lens"].jacobian(x, y, pred["scale"])
-            ax = ax.reshape(2, n_par, n_rows, -1)
-            ay = ay.reshape(2, n_par, n_rows, -1)
-            h_up, h_down = up.T[:, :, None], down.T[:, :, None]  # (n, P, 1)
-            span = h_up + h_down
-            dax = (ax[0] - ax[1]) / span  # (n, P, I)
-            day = (ay[0] - ay[1]) / span
+                if pred["track_x"].shape[1]:
+                    a11, a12, a22 = pred["lens"].jacobian(x, y, pred["scale"])
+                else:  # at the observed images' predictions: known from predict
+                    a11, a12, a22 = pred["magnification_matrix"]
+            ax = ax.reshape(-1, n_rows, ax.shape[-1])
+            ay = ay.reshape(-1, n_rows, ay.shape[-1])
+            dax = (ax[:n_par] - ax[n_par:]) / span  # (n, P, I)
+            day = (ay[:n_par] - ay[n_par:]) / span
             # the source position moves the images one for one
             sl = self.source_slice(k)
             if sl.start in position:
@@ -722,12 +748,12 @@ class ImageLikelihood:
                 np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1),
             ]
             if need_derived:
-                moved_x = np.concatenate([x + h_up * dxdp, x - h_down * dxdp]).reshape(
-                    -1, x.shape[1]
-                )
-                moved_y = np.concatenate([y + h_up * dydp, y - h_down * dydp]).reshape(
-                    -1, x.shape[1]
-                )
+                # the images moved along dθ/dp with each row's step (not at all for p)
+                central = scheme == "central"
+                low_x = x + lo * dxdp if central else x[None]
+                low_y = y + lo * dydp if central else y[None]
+                moved_x = np.concatenate([x + hi * dxdp, low_x]).reshape(-1, x.shape[1])
+                moved_y = np.concatenate([y + hi * dydp, low_y]).reshape(-1, x.shape[1])
                 bx = shifted[:, sl][:, :1]
                 by = shifted[:, sl][:, 1:]
                 with np.errstate(all="ignore"):
@@ -735,7 +761,7 @@ class ImageLikelihood:
                     mu_pm.append(
                         lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], shifted_scale)
                     )
-                exists = np.tile(np.isfinite(pred["track_fermat"]), (2 * n_par, 1))
+                exists = np.tile(np.isfinite(pred["track_fermat"]), (n_copies, 1))
                 tau_pm[:, n_obs:] = np.where(exists, tau_pm[:, n_obs:], np.nan)
                 fermat_pm.append(tau_pm)
         for i, (_, sig) in {**self.priors, **self.centre_prior}.items():
@@ -746,8 +772,8 @@ class ImageLikelihood:
         jac = np.concatenate(jac_parts, axis=1)
         if need_derived:
             derived = np.hstack(self._derived_residuals(shifted, fermat_pm, mu_pm))
-            derived = derived.reshape(2, n_par, n_rows, -1)
-            ddiff = (derived[0] - derived[1]) / (up + down).T[:, :, None]  # (n, P, m')
+            derived = derived.reshape(-1, n_rows, derived.shape[-1])
+            ddiff = (derived[:n_par] - derived[n_par:]) / span  # (n, P, m')
             jac = np.concatenate([jac, np.moveaxis(ddiff, 0, -1)], axis=1)
         if columns is None:
             return jac
@@ -759,7 +785,7 @@ class ImageLikelihood:
     def _half_log_det_information(jac: np.ndarray) -> np.ndarray:
         """½ log det(Jᵀ J) per row; −inf where the information is singular."""
         with np.errstate(all="ignore"):
-            sign, logdet = np.linalg.slogdet(np.einsum("pmi,pmj->pij", jac, jac))
+            sign, logdet = np.linalg.slogdet(np.swapaxes(jac, 1, 2) @ jac)
         return np.where((sign > 0) & np.isfinite(logdet), 0.5 * logdet, -np.inf)
 
     def log_prior(self, params: np.ndarray, preds=None) -> np.ndarray:
@@ -795,7 +821,9 @@ class ImageLikelihood:
             penalty = self.extra_image_residuals(preds)
             if self.prior == "jeffreys":
                 columns = None  # its log det needs every column
-            j = self.information_jacobian(rows, preds, columns)
+            # the flat prior's Jacobian only shapes proposals: forward differences suffice
+            scheme = "central" if self.prior == "jeffreys" else "forward"
+            j = self.information_jacobian(rows, preds, columns, scheme)
             prior = self._half_log_det_information(j) if self.prior == "jeffreys" else 0.0
             logp[inside] = -0.5 * np.sum(r * r, axis=1) - 0.5 * np.sum(penalty**2, axis=1) + prior
             res[inside], jac[inside] = r, np.where(np.isfinite(j), j, 0.0)

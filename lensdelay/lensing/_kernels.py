@@ -311,3 +311,27 @@ def newton_all(
         ys[i] = y
         err[i] = e if math.isfinite(e) else math.inf
     return xs, ys, err
+
+
+@_jit
+def series_factors(q, t):
+    """The power law's per-row series length and factors (compiled.series_factors's rule).
+
+    Same operations in the same order as the numpy version (equal to the last bit):
+    N = max(⌈ln 1e-16 / ln max(f, 1e-16)⌉ + 1, 1) terms, factor_n = −f (2n − 2 + t)/(2n + 2 − t)
+    for n ≤ N, zero beyond; f = (1 − q)/(1 + q).
+    """
+    rows = q.size
+    terms = np.empty(rows)
+    most = 1.0
+    for i in range(rows):
+        f = (1.0 - q[i]) / (1.0 + q[i])
+        n = max(math.ceil(math.log(1e-16) / math.log(max(f, 1e-16))) + 1.0, 1.0)
+        terms[i] = n
+        most = max(most, n)
+    factors = np.zeros((rows, int(most)))
+    for i in range(rows):
+        f = (1.0 - q[i]) / (1.0 + q[i])
+        for k in range(1, int(terms[i]) + 1):
+            factors[i, k - 1] = -f * (2.0 * k - 2.0 + t[i]) / (2.0 * k + 2.0 - t[i])
+    return terms, factors

@@ -30,6 +30,7 @@ _FUSED = {
     "deflection_and_potential": (0, 1, 2),
     "potential": (2,),
     "hessian": (3, 4, 5),
+    "potential_and_hessian": (2, 3, 4, 5),
 }
 
 
@@ -138,6 +139,11 @@ class Lens:
             a, b, d = c.hessian(x, y)
             hxx, hxy, hyy = hxx + a, hxy + b, hyy + d
         return scale * hxx, scale * hxy, scale * hyy
+
+    @_blockwise
+    def potential_and_hessian(self, x, y, scale=1.0):
+        """(ψ, ψ_xx, ψ_xy, ψ_yy) in one pass (Fermat potential and magnification together)."""
+        return (self.potential(x, y, scale), *self.hessian(x, y, scale))
 
     # -- derived quantities -------------------------------------------------------
     def source_position(self, x, y, scale=1.0):
