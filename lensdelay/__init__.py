@@ -7,27 +7,48 @@ measured delays. Every job of the command line is a function here (README, "Usin
 lensdelay from Python"); importing the package changes no global state.
 """
 
-from lensdelay.api import (
-    check_scenario,
-    fit_scenario,
-    forecast_scenario,
-    images_of_source,
-    infer_h0,
-    load_model,
-    load_scenario,
-    map_scenario,
-    measure_delays,
-)
-from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
-from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import sample
-from lensdelay.lensing import profiles
-from lensdelay.lensing.distances import LensDistances
-from lensdelay.lensing.images import find_images
-from lensdelay.lensing.lens import Lens
-from lensdelay.model.recipe import MassModel
-from lensdelay.model.scenario import Scenario
 from lensdelay.version import __version__
+
+#: Where each public name lives. Imported on first use (PEP 562): ``import lensdelay`` alone
+#: loads nothing heavy, so a command of the command line imports only what it needs.
+_LOCATIONS = {
+    "check_scenario": "lensdelay.api",
+    "fit_scenario": "lensdelay.api",
+    "forecast_scenario": "lensdelay.api",
+    "images_of_source": "lensdelay.api",
+    "infer_h0": "lensdelay.api",
+    "load_model": "lensdelay.api",
+    "load_scenario": "lensdelay.api",
+    "map_scenario": "lensdelay.api",
+    "measure_delays": "lensdelay.api",
+    "InputError": "lensdelay.errors",
+    "LensdelayError": "lensdelay.errors",
+    "LensdelayWarning": "lensdelay.errors",
+    "ImageLikelihood": "lensdelay.inference.likelihood",
+    "sample": "lensdelay.inference.sampling",
+    "profiles": "lensdelay.lensing",
+    "LensDistances": "lensdelay.lensing.distances",
+    "find_images": "lensdelay.lensing.images",
+    "Lens": "lensdelay.lensing.lens",
+    "MassModel": "lensdelay.model.recipe",
+    "Scenario": "lensdelay.model.scenario",
+}
+
+
+def __getattr__(name: str):
+    """The public names of ``__all__``, imported from their modules on first use."""
+    if name not in _LOCATIONS:
+        raise AttributeError(f"module 'lensdelay' has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(_LOCATIONS[name]), name)
+    globals()[name] = value  # later look-ups skip this function
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LOCATIONS))
+
 
 __all__ = [
     "__version__",
