@@ -40,6 +40,24 @@ def default_step(n: int) -> float:
 TUNING_HALVINGS = 6
 
 
+def _cholesky_rows(matrices: np.ndarray) -> np.ndarray:
+    """Cholesky factors of a stack of matrices; NaN for a row that is not positive definite.
+
+    Each row's result depends on that row alone (a resumed chain, whose batches differ,
+    repeats an uninterrupted one): a batch that fails is factored row by row.
+    """
+    try:
+        return np.linalg.cholesky(matrices)
+    except np.linalg.LinAlgError:
+        out = np.full_like(matrices, np.nan)
+        for i, m in enumerate(matrices):
+            try:
+                out[i] = np.linalg.cholesky(m)
+            except np.linalg.LinAlgError:
+                pass
+        return out
+
+
 class FisherLangevinMove(Move):
     """Position-dependent-metric Langevin proposal for ``ImageLikelihood``-like targets.
 
@@ -89,22 +107,21 @@ class FisherLangevinMove(Move):
         drift = np.zeros_like(grad)
         inv_sqrt = np.zeros_like(metric)
         logdet = np.zeros(len(metric))
-        by_eigen = np.ones(len(metric), dtype=bool)
         with np.errstate(all="ignore"):
             finite = np.all(np.isfinite(metric), axis=(1, 2))
-            try:
-                chol = np.linalg.cholesky(np.where(finite[:, None, None], metric, np.eye(n)))
-            except np.linalg.LinAlgError:  # some row is not positive definite
-                chol = None
-            if chol is not None:
-                pivots = np.diagonal(chol, axis1=1, axis2=2) ** 2
-                # pivots bracket the eigenvalues' range: well away from the floor below
-                by_eigen = ~finite | (np.min(pivots, axis=1) < 1e-10 * np.max(pivots, axis=1))
-                good = ~by_eigen
-                root = np.swapaxes(np.linalg.inv(chol[good]), 1, 2)  # L⁻ᵀ
-                inv_sqrt[good] = root
-                drift[good] = (root @ (np.swapaxes(root, 1, 2) @ grad[good][:, :, None]))[..., 0]
-                logdet[good] = np.sum(np.log(pivots[good]), axis=1)
+            chol = _cholesky_rows(np.where(finite[:, None, None], metric, np.eye(n)))
+            pivots = np.diagonal(chol, axis1=1, axis2=2) ** 2
+            # pivots bracket the eigenvalues' range: well away from the floor below
+            by_eigen = (
+                ~finite
+                | ~np.all(np.isfinite(chol), axis=(1, 2))
+                | (np.min(pivots, axis=1) < 1e-10 * np.max(pivots, axis=1))
+            )
+            good = ~by_eigen
+            root = np.swapaxes(np.linalg.inv(chol[good]), 1, 2)  # L⁻ᵀ
+            inv_sqrt[good] = root
+            drift[good] = (root @ (np.swapaxes(root, 1, 2) @ grad[good][:, :, None]))[..., 0]
+            logdet[good] = np.sum(np.log(pivots[good]), axis=1)
         if np.any(by_eigen):
             e = by_eigen
             d, r, g, l_ = self._eigen_geometry(metric[e], grad[e])
