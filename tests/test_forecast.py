@@ -134,8 +134,14 @@ def test_sis_end_to_end_date_is_detection_plus_closed_form_delay(tmp_path):
     path = _sis_like_scenario(tmp_path)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
+        # the closed form is the smooth lens's: no unseen perturbers
         res = run_forecast(
-            str(path), h0=(70.0, 1e-9), kappa_ext=(0.0, 0.0), microlensing=0.0, **FAST
+            str(path),
+            h0=(70.0, 1e-9),
+            kappa_ext=(0.0, 0.0),
+            microlensing=0.0,
+            unseen=(0.0, 0.0),
+            **FAST,
         )
     d_dt = LensDistances(DEFAULT_COSMOLOGY, 0.5, 2.0).time_delay_distance(2.0).to_value(u.Mpc)
     expected = d_dt * DAYS_PER_MPC_ARCSEC2 * 2 * 1.0 * 0.25

@@ -77,6 +77,7 @@ def _shared_options(args, now) -> dict:
         "cosmology_name": args.cosmology,
         "kappa_ext": args.kappa_ext,
         "microlensing": args.microlensing,
+        "unseen": args.unseen,
         "depth": args.depth,
         "seen": args.seen,
         "site": site_from_args(args),
@@ -171,6 +172,14 @@ def register(sub) -> None:
         help="external convergence prior (default 0 0.05)",
     )
     p.add_argument("--microlensing", type=number, help="magnitude scatter per image (default 0.3)")
+    p.add_argument(
+        "--unseen",
+        nargs=2,
+        type=number,
+        metavar=("FRACTION", "MASS"),
+        help="unseen perturbers marginalised per sample: their share of the convergence "
+        "and the detection mass in Msun (default 0.01 1e10; 0 0 turns them off)",
+    )
     p.add_argument(
         "--depth", type=number, help="flag images fainter than this magnitude (default 25)"
     )

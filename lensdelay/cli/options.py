@@ -20,6 +20,7 @@ FLAGS = {
     "h0": "--h0",
     "kappa_ext": "--kappa-ext",
     "microlensing": "--microlensing",
+    "unseen": "--unseen",
     "n_samples": "--samples",
     "weighting": "--weights",
     "seen": "--seen",

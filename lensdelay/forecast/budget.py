@@ -5,18 +5,20 @@ lens-model delay at the reference cosmology. Around the means, per sample,
 
     D − D̄ ≈ c_lens + c_family + c_H0 + c_κ + c_t0,
 
-    c_lens   = s̄ (L − L̄_m)            (within the sample's own model m)
+    c_lens   = s̄ (S − S̄_m)            (within the sample's own model m)
+    c_pert   = s̄ (P − P̄_m)            (unseen perturbers, drawn per sample)
     c_family = s̄ (L̄_m − L̄)            (between models: their mixture)
     c_H0     = L̄ (1 − κ̄) H_ref (1/H0 − mean(1/H0))
     c_κ      = L̄ H_ref mean(1/H0) (κ̄ − κ_ext)
     c_t0     = t0 − t̄0
 
-with s̄ the mean delay scale. Each term is Cov(D, c_k) (weighted): the terms sum to
-Var(D) up to the linearisation's remainder, which is reported too. Before any
-measurement the sources are independent and each term is simply Var(c_k); after a
-measured delay or a sighting they are correlated (a delay fixes L·(H_ref/H0)(1 − κ),
-not each factor) and the covariance terms split what variance is left, some of
-them negative. The budget is computed on the samples after the update.
+with s̄ the mean delay scale, L = S + P the smooth model's delay S plus the change P
+the unseen perturbers make (:mod:`lensdelay.forecast.perturbers`). Each term is
+Cov(D, c_k) (weighted): the terms sum to Var(D) up to the linearisation's remainder,
+which is reported too. Before any measurement the sources are independent and each
+term is simply Var(c_k); after a measured delay or a sighting they are correlated (a
+delay fixes L·(H_ref/H0)(1 − κ), not each factor) and the covariance terms split what
+variance is left, some of them negative. The budget is computed on the samples after the update.
 
 Two more terms are not sampled in the windows (each below 1% of a delay for galaxy
 lenses) and are given by first-order propagation (the delta method):
@@ -44,7 +46,14 @@ DEFAULT_VELOCITY_KMS = 300.0
 #: precision; common practice).
 DEFAULT_OM0_SIGMA = 0.02
 #: Terms carried by the forecast's samples.
-SAMPLED_TERMS = ("lens model", "model family", "H0 prior", "kappa_ext", "detection date")
+SAMPLED_TERMS = (
+    "lens model",
+    "unseen perturbers",
+    "model family",
+    "H0 prior",
+    "kappa_ext",
+    "detection date",
+)
 #: Terms propagated to first order only (not in the windows).
 EXTRA_TERMS = ("Omega_m", "peculiar velocity")
 TERMS = SAMPLED_TERMS + EXTRA_TERMS
@@ -83,6 +92,11 @@ def covariance_terms(samples, h0_ref: float, with_date: bool) -> dict:
     ok = (weights > 0) & np.isfinite(samples.delay) & np.isfinite(samples.t0)
     w = weights[ok] / weights[ok].sum()
     L = samples.lens_days[ok]
+    P = (
+        np.nan_to_num(samples.perturber_days[ok])
+        if samples.perturber_days is not None
+        else np.zeros_like(L)
+    )
     inv_h0 = 1.0 / samples.h0[ok]
     kappa = samples.kappa[ok]
     t0 = samples.t0[ok]
@@ -91,11 +105,15 @@ def covariance_terms(samples, h0_ref: float, with_date: bool) -> dict:
     scale = h0_ref * inv_h0 * (1.0 - kappa)
     s_bar, L_bar = _mean(scale, w), _mean(L, w)
     L_model = np.zeros_like(L)
+    P_model = np.zeros_like(L)
     for m in np.unique(model):
         sel = model == m
-        L_model[sel] = np.sum(w[sel] * L[sel]) / max(np.sum(w[sel]), 1e-300)
+        norm = max(np.sum(w[sel]), 1e-300)
+        L_model[sel] = np.sum(w[sel] * L[sel]) / norm
+        P_model[sel] = np.sum(w[sel] * P[sel]) / norm
     contrib = {
-        "lens model": s_bar * (L - L_model),
+        "lens model": s_bar * ((L - P) - (L_model - P_model)),
+        "unseen perturbers": s_bar * (P - P_model),
         "model family": s_bar * (L_model - L_bar),
         "H0 prior": L_bar * (1.0 - _mean(kappa, w)) * h0_ref * (inv_h0 - _mean(inv_h0, w)),
         "kappa_ext": L_bar * h0_ref * _mean(inv_h0, w) * (_mean(kappa, w) - kappa),
@@ -161,6 +179,16 @@ def delay_budget(
             "dlnDdt_dzl": d_z,
             "H0_prior": list(st.h0_prior) if st.h0_prior else None,
             "kappa_ext": list(st.kappa_ext),
+            "unseen_perturbers": (
+                {
+                    "mass_fraction": st.perturbers.mass_fraction,
+                    "mass_function_slope": st.perturbers.slope,
+                    "mass_range_msun": list(st.perturbers.mass_range),
+                    "radius_range_einstein_radii": list(st.perturbers.radius_range),
+                }
+                if st.perturbers is not None and st.perturbers.active
+                else None
+            ),
             "note": "each sampled term is Cov(date, contribution) over the forecast's samples "
             "after any "
             "update, so the terms add up to the variance (negative terms: sources the "

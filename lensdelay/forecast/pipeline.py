@@ -25,6 +25,7 @@ from lensdelay.forecast.samples import (
     AGREEMENT,
     ForecastSettings,
     ImageTrack,
+    ModelSamples,
     Sighting,
     TimingUpdate,
     draw_scale_priors,
@@ -43,6 +44,11 @@ from lensdelay.inference.priors import check_kappa_prior
 from lensdelay.inference.sampling import check_sampler_settings, fit_and_sample, int_seed
 from lensdelay.model.scenario import MAX_DATE_SIGMA_DAYS, Scenario, Site, parse_date
 from lensdelay.forecast.observability import build_calendar
+from lensdelay.forecast.perturbers import (
+    PerturberPopulation,
+    perturber_notes,
+    perturber_response,
+)
 from lensdelay.forecast.positions import position_ellipses, sky_position
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
 from lensdelay.inference.timing import SightingRow, TimingData, tensions_from_draws
@@ -210,6 +216,7 @@ def run_forecast(
     kappa_ext=None,
     microlensing=None,
     depth=None,
+    unseen=None,
     weighting="bic",
     seen=None,
     site: Site | None = None,
@@ -230,6 +237,10 @@ def run_forecast(
         model: :func:`lensdelay.api.forecast` builds them from files).
     seen : sequence of str, optional
         Sightings ``[FAMILY/]LABEL=DATE[±SIGMA]`` (:func:`parse_sightings`).
+    unseen : (float, float) or PerturberPopulation, optional
+        The unseen perturbers marginalised (:mod:`lensdelay.forecast.perturbers`): their
+        share of the convergence f_sub and the detection limit in solar masses (f_sub 0
+        turns the term off), or a whole population; default f_sub 0.01 up to 10¹⁰ M☉.
     progress : bool
         Show progress bars (off by default: the library is silent).
     stop : lensdelay.inference.sampling.StopRequest, optional
@@ -270,6 +281,8 @@ def run_forecast(
         settings = replace(settings, microlensing_mag=float(microlensing))
     if depth is not None:
         settings = replace(settings, depth=float(depth))
+    if unseen is not None:
+        settings = replace(settings, perturbers=_population(unseen))
     check_sample_count(n_samples)
     if weighting not in WEIGHTINGS:
         raise InputError(f"weighting must be one of {choices_text(WEIGHTINGS)}, got {weighting!r}")
@@ -292,7 +305,9 @@ def run_forecast(
             )
     site = site or sc0.site
     # one seed for the whole run: every stage draws from its own child of it
-    stage_seeds = iter(np.random.SeedSequence(seed).spawn(4 * len(scenarios) + 2))
+    root_seed = np.random.SeedSequence(seed)
+    stage_seeds = iter(root_seed.spawn(4 * len(scenarios) + 2))
+    perturber_seeds = iter(root_seed.spawn(len(scenarios)))  # children after the stages
     n = settings.n_samples
     likes = []
     models, prior_models, updates, fits, chains, notes_per_model, timings = (
@@ -345,7 +360,12 @@ def run_forecast(
         rng = np.random.default_rng(next(stage_seeds))
         draws = chain.samples()[rng.integers(0, len(chain.samples()), n)]
         h0_draws, kappa_draws = draw_scale_priors(settings, like.h0_ref, n, rng)
-        prior_samples = solve_samples(like, draws, tracks, tr.seen_in, h0_draws, kappa_draws)
+        response = perturber_response(like, result.values, tracks, settings.perturbers)
+        notes += perturber_notes(response, settings.perturbers, like)
+        perturber_rng = np.random.default_rng(next(perturber_seeds))
+        prior_samples = solve_samples(
+            like, draws, tracks, tr.seen_in, h0_draws, kappa_draws, response, perturber_rng
+        )
         if not np.all(prior_samples.valid):
             notes.append(
                 f"the reference image {tr.seen_in} is missing in "
@@ -369,6 +389,7 @@ def run_forecast(
                 progress=progress,
                 prior=prior,
                 stop=stop,
+                perturbers=(response, perturber_rng),
             )
             if chain2 is not None:
                 chains.append(chain2)
@@ -623,6 +644,69 @@ def _stage_display(progress, total: int):
     return next_stage
 
 
+def perturber_covariance(samples: ModelSamples) -> np.ndarray:
+    """Covariance (days², delay units) of the perturbers' delay changes over the tracks."""
+    shifts = samples.perturber_days * samples.scale[:, None]
+    shifts = shifts[np.all(np.isfinite(shifts), axis=1)]
+    if len(shifts) < 2:
+        return np.zeros((shifts.shape[1],) * 2)
+    return np.atleast_2d(np.cov(shifts, rowvar=False))
+
+
+def draw_conditional_perturbations(
+    samples: ModelSamples, timing: TimingData, covariance: np.ndarray, rng
+) -> ModelSamples:
+    """Each sample's perturber delay change P drawn given the measurements (Gaussian).
+
+    With P ~ N(0, Σ) over the tracks, the rows y = A (T + P) + b t0 + ε with
+    Cov(b t0 + ε) = C, P given y − A T is Gaussian with mean K (y − A T) and covariance
+    Σ − K A Σ, K = Σ Aᵀ (A Σ Aᵀ + C)⁻¹ (conditioning of a joint Gaussian; Rasmussen &
+    Williams 2006, Gaussian Processes for Machine Learning, eq. A.6). The samples' smooth
+    delays T are their own; P is added to ``lens_days`` (divided by each sample's scale).
+    """
+    index = {(t.family, t.label): i for i, t in enumerate(samples.tracks)}
+    n_img = len(samples.tracks)
+    design = np.zeros((len(timing), n_img))
+    for j, c in enumerate(timing.columns):
+        design[:, index[c]] += timing.design[:, j]
+    arrival = np.where(samples.exists, samples.delay, np.nan)
+    residual = timing.values[None, :] - np.nan_to_num(arrival) @ design.T  # (n, m)
+    gain = covariance @ design.T @ np.linalg.inv(design @ covariance @ design.T + timing.covariance)
+    mean = residual @ gain.T
+    posterior = covariance - gain @ design @ covariance
+    vals, vecs = np.linalg.eigh(0.5 * (posterior + posterior.T))
+    root = vecs * np.sqrt(np.clip(vals, 0.0, None))[None, :]
+    shift = mean + rng.standard_normal(mean.shape) @ root.T
+    shift = shift - shift[:, samples.reference : samples.reference + 1]  # delays after it
+    per_lens = np.where(samples.exists, shift / samples.scale[:, None], np.nan)
+    return replace(
+        samples,
+        lens_days=samples.lens_days + np.nan_to_num(per_lens),
+        perturber_days=per_lens,
+    )
+
+
+def _population(unseen) -> PerturberPopulation:
+    """The unseen perturbers from (f_sub, detection mass) or a population as given."""
+    if isinstance(unseen, PerturberPopulation):
+        return unseen
+    try:
+        fraction, limit = (float(v) for v in unseen)
+    except (TypeError, ValueError) as err:
+        raise InputError(
+            f"unseen must be two numbers (mass fraction, detection mass in Msun), got {unseen!r}"
+        ) from err
+    if fraction == 0.0:
+        return PerturberPopulation(mass_fraction=0.0)
+    low = PerturberPopulation().mass_range[0]
+    if not limit > low:
+        raise InputError(
+            f"unseen detection mass must be above the smallest perturber mass {low:.0e} Msun, "
+            f"got {limit:g}"
+        )
+    return PerturberPopulation(mass_fraction=fraction, mass_range=(low, limit))
+
+
 def _draw_t0(timing, samples, tr, rng) -> np.ndarray:
     """t0 − detection date per sample: from its exact conditional given the delays."""
     n = len(samples.scale)
@@ -647,17 +731,24 @@ def condition_on_timing(
     progress=False,
     prior="flat",
     stop=None,
+    perturbers=(None, None),
 ):
     """Condition one model's forecast samples on the timing data.
 
     Importance weights when they leave at least ``settings.min_ess_fraction`` of the
     samples effective; otherwise the joint posterior (positions and timing, H0 and
     κ_ext free with their priors) is sampled again. Returns the samples, the update
-    and the new chain (None when re-weighting sufficed).
+    and the new chain (None when re-weighting sufficed). ``perturbers``: the unseen
+    perturbers' response and generator (:func:`solve_samples`), drawn anew for a new
+    sample.
     """
     update, good = importance_update(prior_samples, timing, settings.min_ess_fraction)
     if good:
         return prior_samples, update, None
+    response, perturber_rng = perturbers
+    # a new sample: the perturbers enter as Gaussian scatter of the arrival times with the
+    # covariance of their drawn delay changes (drawn anew given the measurements below)
+    scatter = perturber_covariance(prior_samples) if response is not None else None
     fit_seed, sample_seed, draw_seed = (
         np.random.SeedSequence(seed).spawn(3) if isinstance(seed, int) else seed.spawn(3)
     )
@@ -675,14 +766,40 @@ def condition_on_timing(
         progress,
         prior,
         stop,
+        (scatter, perturber_rng),
     )
 
 
 def _resample(
-    sc, like, chain, tracks, timing, update, settings, walkers, steps, seeds, progress, prior, stop
+    sc,
+    like,
+    chain,
+    tracks,
+    timing,
+    update,
+    settings,
+    walkers,
+    steps,
+    seeds,
+    progress,
+    prior,
+    stop,
+    scatter=(None, None),
 ):
-    """Sample the joint posterior of lens, H0, κ_ext given positions and timing data."""
+    """Sample the joint posterior of lens, H0, κ_ext given positions and timing data.
+
+    ``scatter``: the unseen perturbers' delay covariance over the tracks (days², or None)
+    and a generator. The timing likelihood then carries it as extra scatter of the
+    arrival times, and each sample's perturbation is drawn from its Gaussian
+    conditional given the measurements (:func:`draw_conditional_perturbations`).
+    """
     st = settings
+    covariance, perturber_rng = scatter
+    if covariance is not None:
+        index = {(t.family, t.label): i for i, t in enumerate(tracks)}
+        cols = [index[c] for c in timing.columns]
+        smooth_timing = timing
+        timing = timing.with_arrival_covariance(covariance[np.ix_(cols, cols)])
     tracked = {
         tracks[0].family: {
             t.label: (t.x, t.y)
@@ -725,6 +842,8 @@ def _resample(
         else np.full(n, joint.kappa_fixed)
     )
     samples = solve_samples(joint, draws, tracks, sc.transient.seen_in, h0, kappa)
+    if covariance is not None:
+        samples = draw_conditional_perturbations(samples, smooth_timing, covariance, perturber_rng)
     ess = min(float(n), _chain_effective_samples(jchain))
     notes = list(update.notes) + [
         f"the measurements left {update.importance_effective_samples:.0f} effective samples of "
@@ -821,6 +940,7 @@ def _summarise(
                 "rank",
                 "weights",
                 "lens_days",
+                "perturber_days",
                 "h0",
                 "kappa",
                 "t0",
@@ -843,6 +963,7 @@ def _summarise(
             cols["rank"].append(samples.rank[:, col])
             cols["weights"].append(w)
             cols["lens_days"].append(samples.lens_days[:, col])
+            cols["perturber_days"].append(samples.perturber_days[:, col])
             cols["h0"].append(samples.h0)
             cols["kappa"].append(samples.kappa)
             cols["t0"].append(t0)
@@ -917,7 +1038,18 @@ def _summarise(
             "offsets": arr["offsets"],
             "weights": weights,
             "samples": {
-                k: arr[k] for k in ("lens_days", "h0", "kappa", "t0", "model", "delay", "x", "y")
+                k: arr[k]
+                for k in (
+                    "lens_days",
+                    "perturber_days",
+                    "h0",
+                    "kappa",
+                    "t0",
+                    "model",
+                    "delay",
+                    "x",
+                    "y",
+                )
             },
         }
         if min(par_share, rk_share) < AGREEMENT:

@@ -39,6 +39,7 @@ class ImageSampleSet:
     model: np.ndarray
     x: np.ndarray
     y: np.ndarray
+    perturber_days: np.ndarray | None = None  # the unseen perturbers' part of lens_days
 
 
 @dataclass(frozen=True)

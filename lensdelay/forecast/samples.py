@@ -22,6 +22,7 @@ import numpy as np
 from scipy.special import logsumexp
 
 from lensdelay.errors import InputError
+from lensdelay.forecast.perturbers import PerturberPopulation
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.images import find_images, keep_distinct_tracks, newton_polish
 from lensdelay.lensing.lens import PARITIES
@@ -73,6 +74,8 @@ class ForecastSettings:
     sightings: tuple[Sighting, ...] = ()
     model_prior: str = "flat"  # prior of the mass-model posterior
     min_ess_fraction: float = MIN_ESS_FRACTION
+    # unseen perturbers marginalised per sample (None: off); see forecast/perturbers.py
+    perturbers: PerturberPopulation | None = field(default_factory=PerturberPopulation)
 
 
 @dataclass(frozen=True)
@@ -137,6 +140,8 @@ class ModelSamples:
 
     ``lens_days`` are delays after the reference image at the reference cosmology and
     κ_ext = 0; ``delay = lens_days · scale`` with scale = (H_ref/H0)(1 − κ_ext).
+    ``perturber_days`` is the part of ``lens_days`` that unseen perturbers add
+    (:mod:`lensdelay.forecast.perturbers`; zero when the term is off).
     """
 
     model_label: str
@@ -152,6 +157,11 @@ class ModelSamples:
     h0: np.ndarray
     kappa: np.ndarray
     scale: np.ndarray
+    perturber_days: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        if self.perturber_days is None:
+            self.perturber_days = np.zeros_like(self.lens_days)
 
     @property
     def labels(self) -> list[str]:
@@ -182,6 +192,8 @@ def solve_samples(
     reference: str,
     h0: np.ndarray,
     kappa: np.ndarray,
+    perturbers=None,
+    rng: np.random.Generator | None = None,
 ) -> ModelSamples:
     """All images of the tracks' family for every parameter row of ``draws`` at once.
 
@@ -197,6 +209,9 @@ def solve_samples(
         Label of the image the transient was seen in.
     h0, kappa : ndarray, (n,)
         H0 (km/s/Mpc) and κ_ext per sample.
+    perturbers : lensdelay.forecast.perturbers.PerturberResponse, optional
+        Unseen perturbers to draw for every sample (with ``rng``); their delay change is
+        added to ``lens_days`` and kept apart in ``perturber_days``.
     """
     family = tracks[0].family
     k_fam = [f.label for f in like.families].index(family)
@@ -227,6 +242,14 @@ def solve_samples(
     ref = [t.label for t in tracks].index(reference)
     days = np.reshape(like.family_days(k_fam, draws), (-1, 1))
     lens_days = fermat_difference_to_days(tau - tau[:, ref : ref + 1], days)
+    perturber_days = np.zeros_like(lens_days)
+    if perturbers is not None:
+        from lensdelay.forecast.perturbers import perturber_delays
+
+        perturber_days = np.where(
+            exists, perturber_delays(perturbers, x, y, ref, np.ravel(days), rng), np.nan
+        )
+        lens_days = lens_days + perturber_days
     rank = np.argsort(np.argsort(np.where(exists, tau, np.inf), axis=1), axis=1) + 1
     scale = delay_scale(h0, like.h0_ref, kappa)
     return ModelSamples(
@@ -243,6 +266,7 @@ def solve_samples(
         h0,
         kappa,
         scale,
+        perturber_days,
     )
 
 

@@ -28,6 +28,7 @@ This module is pure computation: no files, no command-line flags.
 
 from __future__ import annotations
 
+import copy
 from dataclasses import dataclass
 
 import numpy as np
@@ -153,6 +154,25 @@ class TimingData:
                 raise InputError("delay covariance must be positive definite, got a singular one")
             self.covariance[:nd, :nd] = cov
         self._chol = linalg.cholesky(self.covariance, lower=True) if m else np.zeros((0, 0))
+
+    def with_arrival_covariance(self, covariance: np.ndarray) -> TimingData:
+        """A copy whose arrival times carry extra Gaussian scatter of this covariance.
+
+        ``covariance`` (days², one row and column per entry of :attr:`columns`) is a
+        model error of the predicted arrival times (e.g. unseen perturbers): the rows'
+        covariance becomes C + A Σ Aᵀ.
+        """
+        cov = np.asarray(covariance, dtype=float)
+        k = len(self.columns)
+        if cov.shape != (k, k) or not np.all(np.isfinite(cov)):
+            raise InputError(
+                f"arrival covariance must be a finite {k} x {k} matrix, got shape {cov.shape}"
+            )
+        out = copy.copy(self)
+        out.covariance = self.covariance + self.design @ cov @ self.design.T
+        m = len(self.values)
+        out._chol = linalg.cholesky(out.covariance, lower=True) if m else np.zeros((0, 0))
+        return out
 
     # -- sizes --------------------------------------------------------------------
     def __len__(self) -> int:
