@@ -16,7 +16,10 @@ default, ``--satellites unseen``, leaves it out.
 
 Run:  python benchmarks/bench_misspecified.py [--n 100] [--recipe default|sie_shear]
       [--satellites unseen|catalogued] [--samples 4000] [--steps 1500] [--jobs 2]
-      [--seed 2026]
+      [--seed 2026] [--quads N] [--ablate satellite|multipoles|slope|kappa]...
+      [--unseen FRACTION MASS]
+(--quads N: the first N systems are drawn until they are quads -- the quad-rich sample
+of issue 28 is --n 100 --quads 64; --ablate switches an ingredient of the truth off.)
 """
 
 from __future__ import annotations
@@ -59,7 +62,11 @@ SATELLITE_EINSTEIN = {"value": 0.12, "min": 0.02, "max": 0.4}
 SATELLITE_CUT = {"value": 2.0, "min": 0.5, "max": 6.0}
 
 
-def draw_truth(rng):
+#: Ingredients of the truth that --ablate can switch off, one at a time.
+INGREDIENTS = ("satellite", "multipoles", "slope", "kappa")
+
+
+def draw_truth(rng, quad=False, ablate=()):
     """One lens richer than the recipe, and a source with at least two bright images.
 
     Lens and source are redrawn together until the source has ≥ 2 images with |μ| ≥ 0.3:
@@ -68,27 +75,33 @@ def draw_truth(rng):
     over-represents lenses with small cross-sections; see bench_posterior_check.py).
     """
     while True:
-        lens, satellite, _ = _draw_lens(rng)
+        lens, satellite, _ = _draw_lens(rng, ablate)
         radius = SOURCE_DISC * np.sqrt(rng.uniform())
         ang = rng.uniform(0, 2 * np.pi)
         bx, by = radius * np.sin(ang), radius * np.cos(ang)
         table = find_images(lens, [bx], [by])
         table = table.select(np.abs(table.magnification) >= 0.3)
-        if len(table) >= 2:
+        # a quad-rich sample keeps drawing (lens and source together) until a quad: the
+        # same population, conditioned on four or more bright images
+        if len(table) >= (4 if quad else 2):
             return lens, bx, by, table, satellite
 
 
-def _draw_lens(rng):
+def _draw_lens(rng, ablate=()):
     """A power law + shear + m = 3, 4 multipoles (+ a satellite in 30%).
+
+    ``ablate`` switches ingredients off (INGREDIENTS): no satellite, no multipoles, the
+    slope fixed at the population's mean (κ_ext is the caller's).
 
     Returns (lens, satellite, θE); ``satellite`` is the satellite's (x, y) in arcsec, or
     None.
     """
     te = rng.uniform(0.7, 1.6)
+    slope = float(np.clip(rng.normal(*SLOPE), 1.65, 2.55))
     parts = [
         EllipticalPowerLaw(
             einstein_radius=te,
-            slope=float(np.clip(rng.normal(*SLOPE), 1.65, 2.55)),
+            slope=SLOPE[0] if "slope" in ablate else slope,
             axis_ratio=rng.uniform(0.5, 0.95),
             position_angle=rng.uniform(-90, 90),
         ),
@@ -96,9 +109,10 @@ def _draw_lens(rng):
     ]
     for m in (3, 4):
         c, s = rng.normal(0.0, 0.01 * te, 2)
-        parts.append(IsothermalMultipole(order=m, cosine=c, sine=s))
+        if "multipoles" not in ablate:
+            parts.append(IsothermalMultipole(order=m, cosine=c, sine=s))
     satellite = None
-    if rng.uniform() < 0.3:
+    if rng.uniform() < 0.3 and "satellite" not in ablate:
         r, phi = rng.uniform(1.5, 3.0) * te, rng.uniform(0, 2 * np.pi)
         satellite = (r * np.sin(phi), r * np.cos(phi))
         parts.append(
@@ -163,11 +177,13 @@ def one_system(args):
     import logging
 
     logging.getLogger("emcee").setLevel(logging.ERROR)  # short-chain notes are in the result
-    index, seed, recipe, samples, steps, satellites = args
+    index, seed, recipe, samples, steps, satellites, quad, ablate, unseen = args
     rng = np.random.default_rng(seed)
-    lens, bx, by, table, satellite = draw_truth(rng)
+    lens, bx, by, table, satellite = draw_truth(rng, quad, ablate)
     h0 = rng.normal(70.0, 5.0)
     kappa = rng.normal(0.0, 0.04)
+    if "kappa" in ablate:
+        kappa = 0.0
     distances = LensDistances(DEFAULT_COSMOLOGY, Z_L, Z_S)
     days = distances.days_per_arcsec2(Z_S) * 70.0 / h0 * (1.0 - kappa)
     seen = satellite if satellites == "catalogued" else None
@@ -190,6 +206,7 @@ def one_system(args):
                 seed=seed % 2**31,
                 progress=False,
                 now=Time("2027-01-11", scale="utc"),
+                unseen=unseen,
             )
         except LensdelayError as err:
             return index, [], f"refused: {err}", 0.0, satellite
@@ -225,12 +242,40 @@ def main() -> None:
     parser.add_argument("--steps", type=int, default=1500)
     parser.add_argument("--jobs", type=int, default=2)
     parser.add_argument("--seed", type=int, default=2026)
+    parser.add_argument(
+        "--quads", type=int, default=0, help="the first QUADS systems drawn until a quad"
+    )
+    parser.add_argument(
+        "--ablate",
+        choices=INGREDIENTS,
+        action="append",
+        default=[],
+        help="switch an ingredient of the truth off (repeatable)",
+    )
+    parser.add_argument(
+        "--unseen",
+        nargs=2,
+        type=float,
+        metavar=("FRACTION", "MASS"),
+        help="the forecast's unseen-perturber population (default: the forecast's own)",
+    )
     args = parser.parse_args()
     seeds = np.random.SeedSequence(args.seed).generate_state(args.n)
     tasks = [
-        (i, int(s), args.recipe, args.samples, args.steps, args.satellites)
+        (
+            i,
+            int(s),
+            args.recipe,
+            args.samples,
+            args.steps,
+            args.satellites,
+            i < args.quads,
+            tuple(args.ablate),
+            args.unseen,
+        )
         for i, s in enumerate(seeds)
     ]
+    systems = {"double": [], "quad": []}  # per system: every delay inside its 95% window
     rows, refused, seconds = [], 0, []
     with ProcessPoolExecutor(args.jobs) as pool:
         for index, r, note, sec, satellite in pool.map(one_system, tasks):
@@ -240,6 +285,8 @@ def main() -> None:
                 continue
             rows += r
             seconds.append(sec)
+            if r:
+                systems["double" if r[0][6] else "quad"].append(all(x[1] for x in r))
             print(
                 f"system {index:3d}: {len(r)} delays, inside 68% {sum(x[0] for x in r)}, "
                 f"95% {sum(x[1] for x in r)}{' (satellite)' if satellite else ''}"
@@ -249,7 +296,11 @@ def main() -> None:
             )
     a = np.array(rows, dtype=float)
     print()
-    print(f"recipe {args.recipe}: {args.n} systems ({refused} refused), {len(a)} delays")
+    print(
+        f"recipe {args.recipe}: {args.n} systems ({refused} refused), {len(a)} delays; "
+        f"truth without {', '.join(args.ablate) or 'nothing'}; unseen perturbers "
+        f"{args.unseen if args.unseen is not None else 'default'}"
+    )
     print(f"coverage of the 68% windows: {100 * a[:, 0].mean():.1f}%")
     print(f"coverage of the 95% windows: {100 * a[:, 1].mean():.1f}%")
     print(f"median 95% half-width / |delay|: {100 * np.median(a[:, 2]):.1f}%")
@@ -270,6 +321,12 @@ def main() -> None:
             print(
                 f"{kind} ({args.satellites}): {100 * a[mask, 0].mean():.1f}% / "
                 f"{100 * a[mask, 1].mean():.1f}% ({mask.sum()} delays)"
+            )
+    for kind, flags in systems.items():
+        if flags:
+            print(
+                f"{kind} systems with every delay inside its 95% window: "
+                f"{100 * np.mean(flags):.0f}% of {len(flags)}"
             )
     print(f"median time per forecast: {np.median(seconds):.1f} s")
 
