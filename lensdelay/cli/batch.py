@@ -99,9 +99,7 @@ def system_fingerprint(path, seed: int, settings: dict) -> str:
     from lensdelay.io.provenance import fingerprint
     from lensdelay.version import __version__
 
-    return fingerprint(
-        system_files(path), {**settings, "seed": int(seed), "version": __version__}
-    )
+    return fingerprint(system_files(path), {**settings, "seed": int(seed), "version": __version__})
 
 
 def previous_row(name: str, done: Path, wanted: str) -> tuple[dict | None, str]:
@@ -260,9 +258,7 @@ SCHEDULER_TIMEOUT = 30.0
 def check_scheduler_address(scheduler: str) -> None:
     """Refuse a scheduler address that is not ``PROTOCOL://HOST:PORT``."""
     if "://" not in scheduler or not scheduler.rsplit(":", 1)[-1].isdigit():
-        raise InputError(
-            f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}"
-        )
+        raise InputError(f"--scheduler must be an address like tcp://HOST:PORT, got {scheduler!r}")
 
 
 def _connect(client_class, scheduler: str):
@@ -370,6 +366,7 @@ def run(args) -> int:
         "n_samples": args.samples,
         "h0": args.h0,
         "kappa_ext": args.kappa_ext,
+        "unseen": args.unseen,
         "site": site_from_args(args),
         "now": now,
         "walkers": args.walkers,
@@ -466,6 +463,14 @@ def register(sub) -> None:
     p.add_argument("--h0", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="H0 prior")
     p.add_argument(
         "--kappa-ext", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="κ_ext prior"
+    )
+    p.add_argument(
+        "--unseen",
+        nargs=2,
+        type=number,
+        metavar=("FRACTION", "MASS"),
+        help="unseen perturbers: share of the convergence and detection mass in Msun "
+        "(default 0.01 1e10; 0 0: off)",
     )
     p.add_argument("--now", metavar="DATE", help="judge past/now/future as of this date")
     add_site_arguments(p)  # for every system (default: each scenario's own [site])

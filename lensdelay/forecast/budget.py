@@ -180,12 +180,7 @@ def delay_budget(
             "H0_prior": list(st.h0_prior) if st.h0_prior else None,
             "kappa_ext": list(st.kappa_ext),
             "unseen_perturbers": (
-                {
-                    "mass_fraction": st.perturbers.mass_fraction,
-                    "mass_function_slope": st.perturbers.slope,
-                    "mass_range_msun": list(st.perturbers.mass_range),
-                    "radius_range_einstein_radii": list(st.perturbers.radius_range),
-                }
+                st.perturbers.as_dict()
                 if st.perturbers is not None and st.perturbers.active
                 else None
             ),

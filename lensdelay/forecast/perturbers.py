@@ -110,6 +110,15 @@ class PerturberPopulation:
         if not 1.0 < self.slope < 3.0:
             raise InputError(f"unseen mass-function slope must be in (1, 3), got {self.slope!r}")
 
+    def as_dict(self) -> dict:
+        """The population as written into the output files."""
+        return {
+            "mass_fraction": self.mass_fraction,
+            "mass_function_slope": self.slope,
+            "mass_range_msun": list(self.mass_range),
+            "radius_range_einstein_radii": list(self.radius_range),
+        }
+
     @property
     def active(self) -> bool:
         """Whether there is anything to draw."""

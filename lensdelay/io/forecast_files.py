@@ -189,6 +189,11 @@ def forecast_json(res) -> dict:
             "H0_used": res.h0_used if np.ndim(res.h0_used) == 0 else list(res.h0_used),
             "kappa_ext": list(st.kappa_ext),
             "microlensing_mag": st.microlensing_mag,
+            "unseen_perturbers": (
+                st.perturbers.as_dict()
+                if st.perturbers is not None and st.perturbers.active
+                else None
+            ),
             "depth_mag": st.depth,
             "mass_model": st.model_prior,
         },
