@@ -445,7 +445,12 @@ def run(args) -> int:
 
 def register(sub) -> None:
     """Add the ``batch`` sub-command to the parser."""
-    from lensdelay.cli.options import add_prior_argument, add_site_arguments, number
+    from lensdelay.cli.options import (
+        add_prior_argument,
+        add_site_arguments,
+        add_unseen_argument,
+        number,
+    )
 
     p = sub.add_parser("batch", help="forecast every system of a catalogue; rank them")
     p.add_argument("catalogue", help="folder of scenario files and/or prepared lenses")
@@ -464,14 +469,7 @@ def register(sub) -> None:
     p.add_argument(
         "--kappa-ext", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="κ_ext prior"
     )
-    p.add_argument(
-        "--unseen",
-        nargs=2,
-        type=number,
-        metavar=("FRACTION", "MASS"),
-        help="unseen perturbers: share of the convergence and detection mass in Msun "
-        "(default 0.01 1e10; 0 0: off)",
-    )
+    add_unseen_argument(p)
     p.add_argument("--now", metavar="DATE", help="judge past/now/future as of this date")
     add_site_arguments(p)  # for every system (default: each scenario's own [site])
     p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")

@@ -10,6 +10,7 @@ from lensdelay.errors import InputError
 from lensdelay.cli.options import (
     add_prior_argument,
     add_site_arguments,
+    add_unseen_argument,
     number,
     output_folder,
     site_from_args,
@@ -172,14 +173,7 @@ def register(sub) -> None:
         help="external convergence prior (default 0 0.05)",
     )
     p.add_argument("--microlensing", type=number, help="magnitude scatter per image (default 0.3)")
-    p.add_argument(
-        "--unseen",
-        nargs=2,
-        type=number,
-        metavar=("FRACTION", "MASS"),
-        help="unseen perturbers marginalised per sample: their share of the convergence "
-        "and the detection mass in Msun (default 0.01 1e10; 0 0 turns them off)",
-    )
+    add_unseen_argument(p)
     p.add_argument(
         "--depth", type=number, help="flag images fainter than this magnitude (default 25)"
     )

@@ -133,6 +133,18 @@ def add_prior_argument(parser) -> None:
     )
 
 
+def add_unseen_argument(parser) -> None:
+    """``--unseen FRACTION MASS`` (the unseen perturbers marginalised): forecast and batch."""
+    parser.add_argument(
+        "--unseen",
+        nargs=2,
+        type=number,
+        metavar=("FRACTION", "MASS"),
+        help="unseen perturbers marginalised per sample: their share of the convergence "
+        "and the detection mass in Msun (default 0.01 1e10; 0 0 turns them off)",
+    )
+
+
 def add_site_arguments(parser) -> None:
     """``--site`` and ``--elongation`` (read by :func:`site_from_args`): forecast and batch."""
     parser.add_argument(
