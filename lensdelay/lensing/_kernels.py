@@ -335,3 +335,24 @@ def series_factors(q, t):
         for k in range(1, int(terms[i]) + 1):
             factors[i, k - 1] = -f * (2.0 * k - 2.0 + t[i]) / (2.0 * k + 2.0 - t[i])
     return terms, factors
+
+
+@_jit
+def softened_points_field(owner, px, py, theta2, x, y, psi, ax, ay):
+    """Add each softened point mass's ψ and α at its own row's points (in place).
+
+    Row ``owner[t]`` of ``x``, ``y`` (rows × points) gets ψ = ½ θ² ln(r² + θ²) and
+    α = θ² Δ/(r² + θ²) of point t (the perturbers of
+    :mod:`lensdelay.forecast.perturbers`; the numpy version there is the reference).
+    """
+    n_points = x.shape[1]
+    for t in range(owner.size):
+        row = owner[t]
+        t2 = theta2[t]
+        for i in range(n_points):
+            dx = x[row, i] - px[t]
+            dy = y[row, i] - py[t]
+            soft = dx * dx + dy * dy + t2
+            psi[row, i] += 0.5 * t2 * math.log(soft)
+            ax[row, i] += t2 * dx / soft
+            ay[row, i] += t2 * dy / soft
