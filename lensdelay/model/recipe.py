@@ -402,7 +402,13 @@ MULTIPOLE_PRIOR = 0.01
 AXIS_RATIO_PRIOR = (0.75, 0.2)
 
 
-def default_galaxy_recipe(image_x, image_y, centre: tuple[float, float] = (0.0, 0.0)) -> MassModel:
+def default_galaxy_recipe(
+    image_x,
+    image_y,
+    centre: tuple[float, float] = (0.0, 0.0),
+    shear_prior: tuple[float, float] = SHEAR_PRIOR,
+    shear_max: float = SHEAR_MAX,
+) -> MassModel:
     """The recipe used when a scenario names no mass model: power law + external shear.
 
     An elliptical power law whose slope has the population prior :data:`SLOPE_PRIOR`,
@@ -419,6 +425,9 @@ def default_galaxy_recipe(image_x, image_y, centre: tuple[float, float] = (0.0, 
         Observed image positions (arcsec), for the starting Einstein radius.
     centre : (float, float)
         Where the lens galaxy is thought to be (arcsec).
+    shear_prior, shear_max : (float, float), float
+        The shear strength's half-normal prior and upper bound: wider for a lens inside a
+        group or cluster whose tidal field the model takes as its shear.
     """
     cx, cy = float(centre[0]), float(centre[1])
     theta_e = float(
@@ -449,8 +458,8 @@ def default_galaxy_recipe(image_x, image_y, centre: tuple[float, float] = (0.0, 
             "strength": {
                 "value": 0.05,
                 "min": 0.0,
-                "max": SHEAR_MAX,
-                "prior": list(SHEAR_PRIOR),
+                "max": float(shear_max),
+                "prior": list(shear_prior),
             },
             "position_angle": {"value": 0.0},
         },
