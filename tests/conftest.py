@@ -1,5 +1,9 @@
+import warnings
+
 import numpy as np
 import pytest
+
+from lensdelay.errors import LensdelayWarning
 
 
 @pytest.fixture
@@ -51,3 +55,23 @@ def quick_forecast_args():
         ]
 
     return args
+
+
+QUAD_SCENARIO = "scenarios/vellmar_quad.toml"
+
+
+@pytest.fixture(scope="module")
+def quad():
+    """The invented Vellmar quad fitted once (SIE + shear): likelihood, best fit, tracks."""
+    from lensdelay.forecast.samples import image_tracks
+    from lensdelay.inference.fit import fit
+    from lensdelay.inference.likelihood import ImageLikelihood
+    from lensdelay.io.reading import load_scenario
+
+    sc, _ = load_scenario(QUAD_SCENARIO)
+    like = ImageLikelihood(sc, sc.model)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        result = fit(like)
+    tracks, _ = image_tracks(like, result.values, "sn")
+    return like, result.values, tracks

@@ -22,26 +22,10 @@ from lensdelay.forecast.perturbers import (
     einstein_radius2_per_mass,
     perturber_response,
 )
-from lensdelay.forecast.samples import image_tracks
-from lensdelay.inference.fit import fit
-from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.io.reading import load_scenario
 from lensdelay.lensing.distances import LensDistances
 from lensdelay.model.cosmology import DEFAULT_COSMOLOGY
 
 QUAD = "scenarios/vellmar_quad.toml"
-
-
-@pytest.fixture(scope="module")
-def quad():
-    """The invented Vellmar quad fitted once (SIE + shear): likelihood, best fit, tracks."""
-    sc, _ = load_scenario(QUAD)
-    like = ImageLikelihood(sc, sc.model)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", LensdelayWarning)
-        result = fit(like)
-    tracks, _ = image_tracks(like, result.values, "sn")
-    return like, result.values, tracks
 
 
 def test_mean_mass_is_the_power_laws_first_moment():

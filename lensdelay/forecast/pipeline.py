@@ -33,6 +33,7 @@ from lensdelay.forecast.samples import (
     importance_update,
     majority,
     match_tracks,
+    mode_notes,
     WEIGHTINGS,
     model_weights,
     parity_name,
@@ -353,6 +354,7 @@ def run_forecast(
             notes.insert(0, f"model {result.model_label!r} has {result.dof} degrees of freedom")
         tracks, track_notes = image_tracks(like, result.values, tr.family)
         notes += track_notes
+        notes += mode_notes(like, result, tracks, tr.seen_in)
         first_tracks = first_tracks or tracks
         label_map = _resolve_sightings(sightings, tracks, first_tracks)
         timing, timing_notes = _timing_for(sc, tracks, sightings, label_map)

@@ -270,6 +270,44 @@ def solve_samples(
     )
 
 
+#: Δχ² within which another fit mode holds at least about 1% of the posterior (e^(−9.2/2)).
+MODE_DCHI2 = 9.2
+
+
+def mode_notes(like: ImageLikelihood, result, tracks: list[ImageTrack], reference: str):
+    """A note for each other fit mode whose delays differ from the best fit's.
+
+    The fit keeps the polished optima that lie apart from the best
+    (:attr:`lensdelay.inference.fit.FitResult.alternatives`); one within
+    :data:`MODE_DCHI2` whose arrival order differs, or any of whose delays differs by
+    more than 20% and 0.5 d, is reported with its delays: the windows follow the best
+    fit's mode only.
+    """
+    notes = []
+    for chi2, values in getattr(result, "alternatives", []):
+        if chi2 - result.chi2 > MODE_DCHI2:
+            continue
+        rows = np.vstack([result.values, values])
+        both = solve_samples(like, rows, tracks, reference, np.full(2, like.h0_ref), np.zeros(2))
+        best, other = both.lens_days
+        exists = both.exists[0] & both.exists[1]
+        differ = np.any(both.rank[0] != both.rank[1]) or np.any(
+            exists & (np.abs(other - best) > np.maximum(0.5, 0.2 * np.abs(best)))
+        )
+        if not differ:
+            continue
+
+        def listing(days):
+            return ", ".join(f"{t.label} {d:+.1f}" for t, d, e in zip(tracks, days, exists) if e)
+
+        notes.append(
+            f"another fit mode (chi2 {chi2:.1f} against the best {result.chi2:.1f}) predicts "
+            f"delays {listing(other)} d (best fit: {listing(best)} d); the windows follow the "
+            "best fit's mode only"
+        )
+    return notes
+
+
 #: The forecast's sample count must lie within these (fewer gives no tails; more, no memory).
 SAMPLE_RANGE = (100, 5_000_000)
 

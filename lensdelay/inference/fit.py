@@ -48,6 +48,9 @@ class FitResult:
     #: Set when the first fit was poor: the floor given to the image positions and that
     #: fit's χ² (:mod:`lensdelay.inference.misfit`); chi2 above is then the refit's.
     model_error: ModelError | None = None
+    #: Other local optima the fit's polished starts reached, distinct from the best (more
+    #: than DISTINCT_MODE error bars apart in some parameter): (χ², values) each.
+    alternatives: list = field(default_factory=list)
 
     @property
     def p_value(self) -> float | None:
@@ -297,6 +300,7 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
         raise FitError(f"model {like.model.label!r}: no starting point gave a finite chi2")
     candidates.sort(key=lambda c: c[0])
     best = None
+    polished = []
     for _, _, v in candidates[: max(polish, 1)]:
         if like.h0_index is not None:
             # the best H0 for the current Fermat differences, then fit everything
@@ -307,9 +311,11 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
             v[i] = grid[np.argmin(np.sum(like.residuals(trial) ** 2, axis=1))]
         values, errors, out = _lmfit(like, v, like.residuals, n_data=like.n_constraints)
         chi2 = float(np.sum(like.residuals(values) ** 2))
+        polished.append((chi2, values))
         if best is None or chi2 < best[0] - 1e-9:
             best = (chi2, values, errors, out)
     chi2, values, errors, out = best
+    alternatives = _distinct_modes(like, polished, values, errors)
     like.watch_unobserved(values)
     resid = like.residuals(values)[0]  # constraints, then the extra-image penalties
     chi2 = float(np.sum(resid**2))
@@ -323,7 +329,37 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
     for i, period in enumerate(like.periods):  # report angles in (-90, 90]
         if period:
             values[i] = -((-values[i] + period / 2) % period - period / 2)
-    return describe(like, values, errors, chi2, out)
+    result = describe(like, values, errors, chi2, out)
+    result.alternatives = alternatives
+    return result
+
+
+#: Error bars (of the best fit) apart in some parameter for another optimum to be a mode.
+DISTINCT_MODE = 3.0
+
+
+def _distinct_modes(like, polished, best, errors) -> list:
+    """The polished optima other than ``best`` that lie apart from it and from each other.
+
+    Apart: more than DISTINCT_MODE of the best fit's error bars in some parameter (angles
+    compared modulo their period).
+    """
+    scale = np.where(np.isfinite(errors) & (errors > 0), errors, np.inf)
+    kept: list = []
+    for chi2, v in sorted(polished, key=lambda c: c[0]):
+        others = [best] + [k[1] for k in kept]
+        distinct = True
+        for o in others:
+            diff = np.abs(v - o)
+            for i, period in enumerate(like.periods):
+                if period:
+                    diff[i] = min(diff[i] % period, period - diff[i] % period)
+            if not np.any(diff / scale > DISTINCT_MODE):
+                distinct = False
+                break
+        if distinct:
+            kept.append((float(chi2), np.array(v, dtype=float)))
+    return kept
 
 
 def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult:
