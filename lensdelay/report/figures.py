@@ -376,21 +376,27 @@ def budget_figure(budget):
     """
     from lensdelay.forecast.budget import SAMPLED_TERMS
 
-    terms = SAMPLED_TERMS + ("remainder",)
     rows = budget["images"]
+    # one colour and hatch per source (the remainder in grey); a source with no share in
+    # any image is left out of the bars and the legend
+    style = {
+        term: (PALETTE[k % len(PALETTE)], ["", "//", "..", "xx", "\\\\", "--", "++"][k % 7])
+        for k, term in enumerate(SAMPLED_TERMS)
+    }
+    style["remainder"] = ("#bbbbbb", "")
+    shares = {t: np.array([r["date"][t]["percent"] for r in rows]) for t in style}
+    terms = [t for t in style if np.any(np.abs(shares[t]) >= 0.05)] or ["remainder"]
     fig = Figure(figsize=(8.0, 1.6 + 0.6 * max(len(rows), 1)))
     ax = fig.subplots()
     height = 0.8 / len(terms)
-    colours = PALETTE
-    hatches = ["", "//", "..", "xx", "\\\\", "--"]
     for k, term in enumerate(terms):
-        share = np.array([r["date"][term]["percent"] for r in rows])
+        share = shares[term]
         ax.barh(
             np.arange(len(rows)) - 0.4 + (k + 0.5) * height,
             share,
             height=height,
-            color=colours[k % len(colours)],
-            hatch=hatches[k % len(hatches)],
+            color=style[term][0],
+            hatch=style[term][1],
             edgecolor="k",
             lw=0.3,
             label=term,
