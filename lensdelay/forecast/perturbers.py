@@ -393,7 +393,7 @@ def delays_for(
     return (tau - tau[:, reference : reference + 1]) * np.reshape(days, (-1, 1))
 
 
-def perturber_notes(response: PerturberResponse | None, population, like) -> list[str]:
+def perturber_notes(response: PerturberResponse | None, population) -> list[str]:
     """What the forecast did about unseen perturbers, for the model's notes."""
     if population is None or not population.active:
         return ["unseen perturbers (subhaloes, faint satellites) not marginalised: switched off"]

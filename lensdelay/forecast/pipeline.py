@@ -38,6 +38,7 @@ from lensdelay.forecast.samples import (
     model_weights,
     parity_name,
     solve_samples,
+    track_columns,
 )
 from lensdelay.inference.fit import ScenarioFit
 from lensdelay.inference.likelihood import ImageLikelihood
@@ -363,7 +364,7 @@ def run_forecast(
         draws = chain.samples()[rng.integers(0, len(chain.samples()), n)]
         h0_draws, kappa_draws = draw_scale_priors(settings, like.h0_ref, n, rng)
         response = perturber_response(like, result.values, tracks, settings.perturbers)
-        notes += perturber_notes(response, settings.perturbers, like)
+        notes += perturber_notes(response, settings.perturbers)
         perturber_rng = np.random.default_rng(next(perturber_seeds))
         prior_samples = solve_samples(
             like, draws, tracks, tr.seen_in, h0_draws, kappa_draws, response, perturber_rng
@@ -666,11 +667,9 @@ def draw_conditional_perturbations(
     Williams 2006, Gaussian Processes for Machine Learning, eq. A.6). The samples' smooth
     delays T are their own; P is added to ``lens_days`` (divided by each sample's scale).
     """
-    index = {(t.family, t.label): i for i, t in enumerate(samples.tracks)}
-    n_img = len(samples.tracks)
-    design = np.zeros((len(timing), n_img))
-    for j, c in enumerate(timing.columns):
-        design[:, index[c]] += timing.design[:, j]
+    design = np.zeros((len(timing), len(samples.tracks)))
+    for j, col in enumerate(track_columns(samples.tracks, timing.columns)):
+        design[:, col] += timing.design[:, j]
     arrival = np.where(samples.exists, samples.delay, np.nan)
     residual = timing.values[None, :] - np.nan_to_num(arrival) @ design.T  # (n, m)
     gain = covariance @ design.T @ np.linalg.inv(design @ covariance @ design.T + timing.covariance)
@@ -798,8 +797,7 @@ def _resample(
     st = settings
     covariance, perturber_rng = scatter
     if covariance is not None:
-        index = {(t.family, t.label): i for i, t in enumerate(tracks)}
-        cols = [index[c] for c in timing.columns]
+        cols = track_columns(tracks, timing.columns)
         smooth_timing = timing
         timing = timing.with_arrival_covariance(covariance[np.ix_(cols, cols)])
     tracked = {

@@ -180,9 +180,14 @@ class ModelSamples:
 
     def columns(self, timing: TimingData) -> np.ndarray:
         """Delays of the images ``timing`` refers to, in its column order (NaN: absent)."""
-        index = {(t.family, t.label): i for i, t in enumerate(self.tracks)}
-        cols = [index[c] for c in timing.columns]
+        cols = track_columns(self.tracks, timing.columns)
         return np.where(self.exists[:, cols], self.delay[:, cols], np.nan)
+
+
+def track_columns(tracks, columns) -> list[int]:
+    """Position in ``tracks`` of each (family, label) of ``columns`` (a timing's columns)."""
+    index = {(t.family, t.label): i for i, t in enumerate(tracks)}
+    return [index[c] for c in columns]
 
 
 def solve_samples(
