@@ -725,10 +725,17 @@ class ImageLikelihood:
             shifted_scale = self.family_scale(k, shifted)
             with np.errstate(all="ignore"):
                 ax, ay = lens.deflection(xs, ys, shifted_scale)
+                # A at the observed images' predictions is known from predict; only the
+                # tracked images' is computed (none on the sampler's usual path)
+                a11, a12, a22 = pred["magnification_matrix"]
                 if pred["track_x"].shape[1]:
-                    a11, a12, a22 = pred["lens"].jacobian(x, y, pred["scale"])
-                else:  # at the observed images' predictions: known from predict
-                    a11, a12, a22 = pred["magnification_matrix"]
+                    tracked_a = pred["lens"].jacobian(
+                        pred["track_x"], pred["track_y"], pred["scale"]
+                    )
+                    a11, a12, a22 = (
+                        np.hstack([known, np.broadcast_to(extra, pred["track_x"].shape)])
+                        for known, extra in zip((a11, a12, a22), tracked_a)
+                    )
             ax = ax.reshape(-1, n_rows, ax.shape[-1])
             ay = ay.reshape(-1, n_rows, ay.shape[-1])
             dax = (ax[:n_par] - ax[n_par:]) / span  # (n, P, I)
