@@ -355,7 +355,7 @@ def run_forecast(
             notes.insert(0, f"model {result.model_label!r} has {result.dof} degrees of freedom")
         tracks, track_notes = image_tracks(like, result.values, tr.family)
         notes += track_notes
-        notes += mode_notes(like, result, tracks, tr.seen_in)
+        notes += mode_notes(like, result, tracks, tr.seen_in, chain.modes)
         first_tracks = first_tracks or tracks
         label_map = _resolve_sightings(sightings, tracks, first_tracks)
         timing, timing_notes = _timing_for(sc, tracks, sightings, label_map)

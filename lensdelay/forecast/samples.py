@@ -27,6 +27,7 @@ from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.images import find_images, keep_distinct_tracks, newton_polish
 from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import ImageLikelihood
+from lensdelay.inference.modes import MODE_DCHI2
 from lensdelay.inference.priors import draw_kappa
 from lensdelay.inference.summaries import effective_sample_size
 from lensdelay.inference.timing import TimingData
@@ -275,20 +276,18 @@ def solve_samples(
     )
 
 
-#: Δχ² within which another fit mode holds at least about 1% of the posterior (e^(−9.2/2)).
-MODE_DCHI2 = 9.2
-
-
-def mode_notes(like: ImageLikelihood, result, tracks: list[ImageTrack], reference: str):
+def mode_notes(like: ImageLikelihood, result, tracks: list[ImageTrack], reference: str, mixed=()):
     """A note for each other fit mode whose delays differ from the best fit's.
 
     The fit keeps the polished optima that lie apart from the best
     (:attr:`lensdelay.inference.fit.FitResult.alternatives`); one within
-    :data:`MODE_DCHI2` whose arrival order differs, or any of whose delays differs by
-    more than 20% and 0.5 d, is reported with its delays: the windows follow the best
-    fit's mode only.
+    :data:`~lensdelay.inference.modes.MODE_DCHI2` whose arrival order differs, or any of
+    whose delays differs by more than 20% and 0.5 d, is reported with its delays, and
+    whether the windows mix it in (its χ² among the ``mixed`` modes' shares, a chain's
+    :attr:`~lensdelay.inference.sampling.Chain.modes`) or follow the best fit's mode only.
     """
     notes = []
+    in_mix = {round(s.chi2, 6) for s in mixed if s.walkers > 0}
     for chi2, values in getattr(result, "alternatives", []):
         if chi2 - result.chi2 > MODE_DCHI2:
             continue
@@ -307,8 +306,12 @@ def mode_notes(like: ImageLikelihood, result, tracks: list[ImageTrack], referenc
 
         notes.append(
             f"another fit mode (chi2 {chi2:.1f} against the best {result.chi2:.1f}) predicts "
-            f"delays {listing(other)} d (best fit: {listing(best)} d); the windows follow the "
-            "best fit's mode only"
+            f"delays {listing(other)} d (best fit: {listing(best)} d); "
+            + (
+                "the windows mix both modes by their posterior mass"
+                if round(float(chi2), 6) in in_mix
+                else "the windows follow the best fit's mode only"
+            )
         )
     return notes
 

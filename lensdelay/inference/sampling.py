@@ -31,6 +31,7 @@ from lensdelay.inference.misfit import (
     position_floor,
 )
 from lensdelay.inference.importance import ImportanceDraws, conditional_importance
+from lensdelay.inference.modes import mix_modes, modes_to_sample
 from lensdelay.inference.moves import FisherLangevinMove
 from lensdelay.inference.priors import truncated_standard_normal
 from lensdelay.inference.starts import AnchoredTarget, flat_anchors, randomised_fits
@@ -80,6 +81,9 @@ class Chain:
     #: worth, (Σw)²/Σw²; the chain then holds equally weighted resampled rows, one walker
     draws: int | None = None
     effective_samples: float | None = None
+    #: Fit modes mixed in this chain (:func:`lensdelay.inference.modes.mix_modes`), each
+    #: with its weight and walkers; empty when the best fit's valley was sampled alone.
+    modes: tuple = ()
 
     def samples(self) -> np.ndarray:
         """Flat samples after burn-in and thinning: (n, ndim)."""
@@ -633,6 +637,41 @@ def sample_posterior(like, start: np.ndarray, *, seed: int = 1, **chain_options)
     return sample(like, start, seed=seed, **chain_options)
 
 
+def _sample_other_modes(
+    like, result, chain, others, steps, walkers, seed, progress, stop, checkpoint_dir, resume
+):
+    """``chain`` mixed with a chain of each other fit mode (:mod:`lensdelay.inference.modes`).
+
+    Each mode's chain has its own seed (spawned from ``seed``) and checkpoint folder
+    (``mode1``, ``mode2`` inside ``checkpoint_dir``), so a resumed run repeats this one.
+    """
+    chains, chi2s = [chain], [result.chi2]
+    children = np.random.SeedSequence(seed).spawn(len(others))
+    for k, ((chi2, values), child) in enumerate(zip(others, children), start=1):
+        folder = Path(checkpoint_dir) / f"mode{k}" if checkpoint_dir else None
+        try:
+            other = sample(
+                like,
+                values,
+                walkers=walkers,
+                steps=steps,
+                seed=int_seed(child),
+                progress=progress,
+                stop=stop,
+                scales=result.errors,
+                checkpoint_dir=folder,
+                resume=resume,
+            )
+        except (FitError, FloatingPointError, ValueError, np.linalg.LinAlgError):
+            # a mode the sampler cannot start in (no finite density near it) adds nothing
+            continue
+        if other.chain.shape[1] == chain.chain.shape[1]:
+            chains.append(other)
+            chi2s.append(chi2)
+    mixed, shares, _ = mix_modes(like, result, chains, chi2s)
+    return replace(mixed, modes=tuple(shares))
+
+
 def fit_and_sample(
     like,
     *,
@@ -685,6 +724,21 @@ def fit_and_sample(
             checkpoint_dir=checkpoint_dir,
             resume=resume,
         )
+        others = modes_to_sample(result)
+        if others and chain.move != "importance":
+            chain = _sample_other_modes(
+                like,
+                result,
+                chain,
+                others,
+                n_steps,
+                walkers,
+                sample_seed,
+                progress,
+                stop,
+                checkpoint_dir,
+                resume,
+            )
     if result.model_error is not None:
         warnings.warn(
             f"{like.model.label}: {result.model_error.note()}", LensdelayWarning, stacklevel=2
