@@ -161,14 +161,14 @@ def images_of_source(
     }
 
 
-#: |μ| above which a root sits on a caustic (a point source's magnification diverges there).
+#: abs(μ) above which a root sits on a caustic (a point source's magnification diverges there).
 RING_MAGNIFICATION = 1e6
 
 
 def einstein_ring(lens, table, beta_x, beta_y, scale) -> dict | None:
     """The Einstein ring a source on a point caustic makes, or None.
 
-    A root with |μ| above :data:`RING_MAGNIFICATION` is tested: if every point of the
+    A root with abs(μ) above :data:`RING_MAGNIFICATION` is tested: if every point of the
     circle through it, about the nearest lens centre, maps back onto the source (to
     1e-6 arcsec), the image is that whole circle -- a ring of radius r -- not a list of
     points.

@@ -16,12 +16,12 @@ change they cause, given that the team has *fitted* the image positions:
    number per unit radius is flat: radii are uniform in the annulus, angles uniform, and
    the expected number is N̄ = f_sub θE (r₂ − r₁) / ⟨θ_p²⟩, with θ_p the Einstein radius
    of a point of mass M, θ_p² = (4GM/c²) D_ls/(D_l D_s) (Schneider, Ehlers & Falco 1992,
-   eq. 2.6a [1]). Each perturber is a point mass softened over its own Einstein radius
+   eq. 2.6a [1]_). Each perturber is a point mass softened over its own Einstein radius
    (ψ = ½ θ_p² ln(r² + θ_p²), the Plummer potential), a stand-in for a truncated halo.
-   Defaults: f_sub = 0.01 (Vegetti et al. 2014 [2] infer f_sub = 0.0076, +0.0208/−0.0052,
-   for 4×10⁶–4×10⁹ M☉ in SLACS lenses; Dalal & Kochanek 2002 [3] 0.006–0.07; both from
+   Defaults: f_sub = 0.01 (Vegetti et al. 2014 [2]_ infer f_sub = 0.0076, +0.0208/−0.0052,
+   for 4×10⁶–4×10⁹ M☉ in SLACS lenses; Dalal & Kochanek 2002 [3]_ 0.006–0.07; both from
    memory), α = 1.9 (subhalo mass function of the Aquarius simulations, Springel et al.
-   2008 [4], from memory), masses 10⁷–10¹⁰ M☉ (below 10⁷ M☉ the delay change is
+   2008 [4]_, from memory), masses 10⁷–10¹⁰ M☉ (below 10⁷ M☉ the delay change is
    negligible: its variance grows as M_max^(3 − α); 10¹⁰ M☉, a satellite of about 1/10 of
    the lens's Einstein mass, is the detection limit assumed, common practice), radii
    0.5–3 θE.
@@ -41,7 +41,7 @@ What is left out, and said so: the astrometric anomalies the fit cannot absorb a
 used to down-weight perturber configurations (conservative: wider windows); the population
 is that of galaxy lenses and is not applied to cluster lenses (their galaxies are
 modelled as ``[members]``); line-of-sight haloes are not counted separately (they roughly
-double the number for high source redshifts, Despali et al. 2018 [5], from memory —
+double the number for high source redshifts, Despali et al. 2018 [5]_, from memory —
 raise f_sub to include them).
 
 References

@@ -17,10 +17,10 @@ free and the angle has no finite bounds of its own (it is then defined modulo 18
 Every other parameter is sampled as it is.
 
 The posterior density is kept the same: the target in the new coordinates is the
-original one times |det ∂p/∂u| (change of variables). For that factor: with
-e = (1 − q)/(1 + q), |∂q/∂e| = 2/(1 + e)²; going from polar (e, 2φ) to (e₁, e₂)
+original one times abs(det ∂p/∂u) (change of variables). For that factor: with
+e = (1 − q)/(1 + q), abs(∂q/∂e) = 2/(1 + e)²; going from polar (e, 2φ) to (e₁, e₂)
 divides by e; φ in degrees multiplies by 180/(2π). So
-|∂(q, φ)/∂(e₁, e₂)| = (2/(1 + e)²) · (90/π) / e, and |∂(γ, φγ)/∂(γ₁, γ₂)| = (90/π) / γ.
+abs(det ∂(q, φ)/∂(e₁, e₂)) = (2/(1 + e)²) · (90/π) / e, and abs(det ∂(γ, φγ)/∂(γ₁, γ₂)) = (90/π) / γ.
 """
 
 from __future__ import annotations
@@ -133,7 +133,7 @@ class SamplingCoordinates:
         return p
 
     def log_volume(self, coords: np.ndarray) -> np.ndarray:
-        """Log |det ∂p/∂u| per row (−inf where an angle is undefined: e = 0 or γ = 0)."""
+        """Log abs(det ∂p/∂u) per row (−inf where an angle is undefined: e = 0 or γ = 0)."""
         u = np.atleast_2d(coords)
         out = np.zeros(len(u))
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -214,7 +214,7 @@ def polar_pairs(names, start, errors, priors) -> set[int]:
 class SampledTarget:
     """A likelihood seen in sampling coordinates: what the sampler and its moves call.
 
-    ``log_probability(u) = like.log_probability(p(u)) + log |det ∂p/∂u|``, and
+    ``log_probability(u) = like.log_probability(p(u)) + log abs(det ∂p/∂u)``, and
     ``evaluate`` returns the residual Jacobian with respect to u (chain rule).
     """
 

@@ -95,7 +95,7 @@ class FitResult:
     def rms_arcsec(self) -> dict:
         """Image-plane rms offset, model − observed, per family and over all images.
 
-        sqrt(mean |θ_model − θ_obs|²) over the images the model reproduces, in arcsec (the
+        sqrt(mean (θ_model − θ_obs)²) over the images the model reproduces, in arcsec (the
         number cluster modellers quote); ``"all"`` pools every family. None for a family
         with no reproduced image.
         """

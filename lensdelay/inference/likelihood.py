@@ -489,7 +489,7 @@ class ImageLikelihood:
         return tx, ty, np.where(exists, tau, np.nan)
 
     def _watched_magnifications(self, lens, k, x, y, ok, bx, by, scale) -> np.ndarray:
-        """|μ| of the watched unobserved images of family k, 0 where they do not exist."""
+        """abs(μ) of the watched unobserved images of family k, 0 where they do not exist."""
         wx, wy = self.watched[k]
         if len(wx) == 0:
             return np.zeros((len(x), 0))
@@ -681,7 +681,7 @@ class ImageLikelihood:
         of the cost).
 
         ``scheme``: ``"central"`` (error O(h²), 2 lens evaluations per parameter) or
-        ``"forward"`` (error O(h), about 1e-6 relative at the step h = 1e-6·max(1, |p|);
+        ``"forward"`` (error O(h), about 1e-6 relative at the step h = 1e-6·max(1, abs(p));
         n + 1 evaluations, half the cost). The forward scheme serves where the Jacobian
         only shapes proposals (a Metropolis–Hastings ratio keeps the target exact); the
         Jeffreys prior, part of the target, uses the central one.

@@ -8,10 +8,10 @@ sampled by its own chain, and the chains are mixed by the posterior mass of thei
 
 The mass of a valley k is estimated from its own chain by the Laplace approximation
 (e.g. MacKay 2003, Information Theory, Inference, and Learning Algorithms, sec. 27.1):
-for a Gaussian valley of d parameters, Z_k = p_k,max (2π)^(d/2) |Σ_k|^(1/2) and the mean of
+for a Gaussian valley of d parameters, Z_k = p_k,max (2π)^(d/2) (det Σ_k)^(1/2) and the mean of
 ln p over its samples is ln p_k,max − d/2, so
 
-    ln Z_k ≈ ⟨ln p⟩_k + d/2 + ½ ln |Σ_k| + const,
+    ln Z_k ≈ ⟨ln p⟩_k + d/2 + ½ ln det Σ_k + const,
 
 with p the posterior density in the model's parameters (likelihood × prior) and Σ_k the
 chain's covariance; the constant is the same for every valley. The valleys' chains are

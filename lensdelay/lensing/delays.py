@@ -1,6 +1,6 @@
 """Relative arrival times from Fermat potentials and the time-delay distance.
 
-t(θ) = (D_dt / c) · τ(θ) · (π/648000)², τ = |θ − β|²/2 − ψ(θ) (Schneider, Ehlers &
+t(θ) = (D_dt / c) · τ(θ) · (π/648000)², τ = (θ − β)²/2 − ψ(θ) (Schneider, Ehlers &
 Falco 1992, eq. 5.45; CONVENTIONS.md). A delay Δt_i = t_i − t_ref is positive when
 image i shows an event *later* than the reference image. An external convergence
 κext outside the model multiplies every delay by (1 − κext) (Falco, Gorenstein &

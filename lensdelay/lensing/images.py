@@ -62,7 +62,7 @@ class ImageTable:
     fermat : ndarray
         Fermat potential τ, arcsec²; arrival time = τ · D_dt / c.
     source_error : ndarray
-        |β(θ) − β_s|, arcsec.
+        The length of β(θ) − β_s, arcsec.
     """
 
     source_index: np.ndarray
@@ -112,7 +112,7 @@ def newton_polish(
     Returns
     -------
     x, y, error : ndarray
-        Final positions and |β(θ) − β_s|.
+        Final positions and the length of β(θ) − β_s.
     """
     solved = compiled.newton_solve(
         lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance
@@ -162,7 +162,7 @@ class ImageFinder:
         Deflection scale of the source family (1 at the reference redshift), or the
         scales of several families; :meth:`solve` then takes the one to use.
     source_radius : float
-        Largest |β| (arcsec) that will be asked for; sets the searched area.
+        Largest source offset β (arcsec) that will be asked for; sets the searched area.
     base_cells : int
         Cells along each side of the coarse mesh.
     critical_levels, centre_levels : int
@@ -189,7 +189,7 @@ class ImageFinder:
 
     # -- mesh -----------------------------------------------------------------------
     def _search_radius(self) -> float:
-        """Half-width of the square outside which no image of |β| ≤ source_radius lies."""
+        """Half-width of the square outside which no image of a source within source_radius lies."""
         angles = np.linspace(0.0, 2 * np.pi, 73)[:-1]
         # far enough out for any source: with a bounded deflection an image lies within a
         # few |β| of the centre (every source has at least one image)

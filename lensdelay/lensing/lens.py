@@ -152,7 +152,7 @@ class Lens:
         return np.asarray(x) - ax, np.asarray(y) - ay
 
     def fermat_potential(self, x, y, beta_x, beta_y, scale=1.0) -> np.ndarray:
-        """τ(θ) = |θ − β|²/2 − ψ(θ), arcsec²."""
+        """τ(θ) = (θ − β)²/2 − ψ(θ), arcsec²."""
         return 0.5 * (
             (np.asarray(x) - beta_x) ** 2 + (np.asarray(y) - beta_y) ** 2
         ) - self.potential(x, y, scale)

@@ -151,7 +151,7 @@ def dispersion_delay(curves, reference: str, image: str, grid: np.ndarray, windo
     """The delay minimising the dispersion of the two curves laid on each other.
 
     For each trial delay Δ, pairs of points (reference at t, image at t') with
-    |t − (t' − Δ)| ≤ ``window`` days in the same band are compared after removing their
+    abs(t − (t' − Δ)) ≤ ``window`` days in the same band are compared after removing their
     weighted mean magnitude difference; the statistic is the weighted mean squared
     difference (the D² dispersion of Pelt et al. 1996, A&A 305, 97, eq. 8, with a flat
     window); trials pairing fewer than CROSS_CHECK_OVERLAP of the image's points (or

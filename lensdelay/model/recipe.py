@@ -393,7 +393,7 @@ SHEAR_MAX = 0.3
 #: (e.g. Keeton, Kochanek & Seljak 1997, ApJ 482, 604; from memory).
 SHEAR_PRIOR = (0.0, 0.1)
 #: Prior on each multipole term (m = 3, 4) relative to θE: lens galaxies' isophotes deviate
-#: from ellipses by |a_m| of about 0.01 (Hao et al. 2006, MNRAS 370, 1339, for a4; from
+#: from ellipses by a_m of about 0.01 in size (Hao et al. 2006, MNRAS 370, 1339, for a4; from
 #: memory). At the per-cent level such terms move images by tens of mas and shift quads'
 #: delays by tens of per cent, so the default recipe carries them.
 MULTIPOLE_PRIOR = 0.01

@@ -224,7 +224,7 @@ class MassProfile(ABC):
         At the centre itself (r below :data:`RADIUS_FLOOR`) the formulas written in
         terms of direction (x/r, y/r) have no direction to use; there the Hessian is its
         average over directions, (κ, 0, κ), which keeps ψ_xx + ψ_yy = 2κ (a profile whose
-        κ diverges at the centre then gives a maximum of τ with |μ| → 0 there, as it should,
+        κ diverges at the centre then gives a maximum of τ with μ → 0 there, as it should,
         instead of the μ = 1 of an empty Hessian).
         """
         dx, dy = self._shift(x, y)

@@ -11,7 +11,7 @@ from lensdelay.lensing.profiles.base import AxisymmetricProfile, param
 
 @dataclass(frozen=True, kw_only=True)
 class SingularIsothermalSphere(AxisymmetricProfile):
-    """SIS: ψ = θE r, κ = θE / 2r, |α| = θE.
+    """SIS: ψ = θE r, κ = θE / 2r, deflection of length θE.
 
     Schneider, Ehlers & Falco 1992, *Gravitational Lenses*, eqs. (8.35)-(8.36).
     """
