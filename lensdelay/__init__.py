@@ -3,7 +3,7 @@
 Fit parametric mass models to measured image positions, turn Fermat potentials and
 angular-diameter distances into relative arrival times, forecast when, where and how
 bright each image of a lensed supernova or quasar flare appears, and infer H0 from
-measured delays. Every job of the command line is a function here (README, "Using
+measured delays. Every job of the command line is a function here (docs/python.md, "Using
 lensdelay from Python"); importing the package changes no global state.
 """
 

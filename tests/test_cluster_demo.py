@@ -1,7 +1,7 @@
 """Injection–recovery on the invented Tarrow cluster (issue 16), end to end; slow (~13 min).
 
 The scenario was simulated from scenarios/tarrow_truth.json (scenarios/generate.py);
-benchmarks/bench_cluster_demo.py runs the same and prints the figures in the README.
+benchmarks/bench_cluster_demo.py runs the same and prints the figures in docs/benchmarks.md.
 """
 
 import pathlib

@@ -1,7 +1,7 @@
 """The package's layers: every import points down or sideways within a subpackage, never up,
 and no module imports itself back through others (issue 11).
 
-The order, lowest first (README, "Layout"): base modules (errors, version, atomic file
+The order, lowest first (docs/development.md, "Layout"): base modules (errors, version, atomic file
 writes, the caution text), lensing, model, inference, forecast, hubble and lightcurves
 (side by side, none importing another), io, report, the Python interface (api), cli. The package's
 ``__init__`` is the public facade and may import any layer

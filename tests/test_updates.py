@@ -269,7 +269,7 @@ def test_seen_in_the_last_image_of_a_quad_gives_archival_advice(tmp_path):
     ],
 )
 def test_status_definitions(seen, q, now, agreement, expected):
-    """The statuses as the README defines them."""
+    """The statuses as docs/statistics.md defines them."""
     assert _status(seen, {"p2.5": q[0], "p97.5": q[1]}, now, agreement) == expected
 
 
@@ -667,7 +667,7 @@ def test_an_image_only_some_models_predict_is_not_presented_as_certain(tmp_path)
     ],
 )
 def test_model_weights(weighting, acceptable, evidence, expected):
-    """Weights of several recipes (README, 'How a forecast is made'); arithmetic by hand."""
+    """Weights of several recipes (docs/statistics.md, 'How a forecast is made'); by hand."""
     from lensdelay.forecast.samples import model_weights
 
     w = model_weights([100.0, 110.0, 120.0], evidence, weighting, acceptable)

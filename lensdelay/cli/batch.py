@@ -26,9 +26,9 @@ import numpy as np
 
 from lensdelay.errors import InputError
 
-#: Triage (README): a system is ranked when its next image is observable on at least
-#: this share of the nights in its 95% window, no fainter than TRIAGE_DEPTH (the
-#: forecast's default depth) and its delay after the image seen at least
+#: Triage (docs/benchmarks.md, "Many systems"): a system is ranked when its next image
+#: is observable on at least this share of the nights in its 95% window, no fainter than
+#: TRIAGE_DEPTH (the forecast's default depth) and its delay after the image seen at least
 #: TRIAGE_MIN_DELAY days (shorter delays cannot be measured from nightly light curves:
 #: common practice); ranked systems are ordered by the median date of that next image.
 TRIAGE_OBSERVABLE = 0.5

@@ -55,7 +55,7 @@ from lensdelay.forecast.positions import position_ellipses, sky_position
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
 from lensdelay.inference.timing import SightingRow, TimingData, tensions_from_draws
 
-#: What each status means (README: "Statuses"); printed under the table.
+#: What each status means (docs/statistics.md: "Statuses"); printed under the table.
 STATUS_MEANINGS = {
     "seen": "the event was observed in this image (the detection or a reported sighting)",
     "past": "its whole 95% window is over as of now: search archives",
@@ -251,7 +251,7 @@ def run_forecast(
         One per scenario: its fit and posterior are used instead of fitting and sampling
         (the stages' seeds are consumed all the same, so the rest repeats a forecast that
         fitted; the prepared lens's own seed should equal ``seed`` for that).
-    Other parameters are those of ``lensdelay forecast`` (README).
+    Other parameters are those of ``lensdelay forecast`` (docs/commands.md).
     """
     scenarios = [scenarios] if isinstance(scenarios, Scenario) else list(scenarios)
     check_sampler_settings(walkers, steps, seed)
@@ -905,7 +905,7 @@ def _tensions(timings, prior_models, w_prior, rng) -> list[dict]:
 
 
 def _status(is_seen, q, now_offset, order_agreement) -> str:
-    """seen, past, uncertain, now or future (README: "Statuses")."""
+    """seen, past, uncertain, now or future (docs/statistics.md: "Statuses")."""
     if is_seen:
         return "seen"
     if q["p97.5"] < now_offset:

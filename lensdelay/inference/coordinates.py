@@ -20,7 +20,8 @@ The posterior density is kept the same: the target in the new coordinates is the
 original one times abs(det ∂p/∂u) (change of variables). For that factor: with
 e = (1 − q)/(1 + q), abs(∂q/∂e) = 2/(1 + e)²; going from polar (e, 2φ) to (e₁, e₂)
 divides by e; φ in degrees multiplies by 180/(2π). So
-abs(det ∂(q, φ)/∂(e₁, e₂)) = (2/(1 + e)²) · (90/π) / e, and abs(det ∂(γ, φγ)/∂(γ₁, γ₂)) = (90/π) / γ.
+abs(det ∂(q, φ)/∂(e₁, e₂)) = (2/(1 + e)²) · (90/π) / e, and
+abs(det ∂(γ, φγ)/∂(γ₁, γ₂)) = (90/π) / γ.
 """
 
 from __future__ import annotations

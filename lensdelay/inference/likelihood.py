@@ -25,7 +25,7 @@ the square root of the determinant of the Fisher information of all the constrai
 (Jeffreys 1946, Proc. R. Soc. A 186, 453; Kass & Wasserman 1996, JASA 91, 1343,
 sec. 2), which does not depend on how the model is parametrised (axis ratio and angle,
 or ellipticity components). Both give calibrated delay intervals for the benchmark
-quad (``benchmarks/bench_fit.py``; README). The Jacobian behind the Fisher information
+quad (``benchmarks/bench_fit.py``; docs/benchmarks.md). The Jacobian behind the Fisher information
 (:meth:`ImageLikelihood.information_jacobian`) also gives the sampler its local metric
 (:mod:`lensdelay.inference.moves`).
 """

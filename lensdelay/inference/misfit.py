@@ -6,7 +6,7 @@ parameters: the p-value is P(χ²_dof ≥ χ²_min). When p < :data:`POOR_FIT_P`
 recipe cannot reproduce the images to within their stated errors: something it lacks
 (a satellite, angular structure, a different radial profile) moves them. Sampling such a
 fit with the stated errors would give windows as narrow as those of a perfect fit, so
-the image positions are given a model error instead (the rule, stated in the README):
+the image positions are given a model error instead (the rule, stated in docs/statistics.md):
 
     every image's σ becomes sqrt(σ² + f²), with f the one value for which the
     positions' χ² at the best fit comes down to
