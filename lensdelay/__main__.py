@@ -4,4 +4,7 @@ import sys
 
 from lensdelay.cli.main import main
 
+__all__: list[str] = []
+
+
 sys.exit(main())

@@ -15,16 +15,19 @@ from pathlib import Path
 
 import numpy as np
 
+from typing import TYPE_CHECKING
+
 from lensdelay.lensing.delays import fermat_difference_to_days
 from lensdelay.dates import allows_far_dates
 from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.forecast.budget import delay_budget
 from lensdelay.forecast.pipeline import run_forecast
-from lensdelay.hubble.pipeline import run_hubble
-from lensdelay.inference.fit import ScenarioFit, check_constraints, delay_errors, fit
+from lensdelay.forecast.result import Forecast
+from lensdelay.hubble.pipeline import HubbleResult, run_hubble
+from lensdelay.inference.fit import ScenarioFit, check_constraints, delay_errors
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import check_sampler_settings
-from lensdelay.inference.sampling import sample_posterior
+from lensdelay.inference.sampling import fit_and_sample
 from lensdelay.io import reading
 from lensdelay.io.provenance import provenance
 from lensdelay.lensing.distances import LensDistances
@@ -36,6 +39,30 @@ from lensdelay.model.scenario import Scenario
 from lensdelay.version import __version__
 
 PathLike = str | os.PathLike
+
+if TYPE_CHECKING:  # annotations only: these modules load on first use of their job
+    from lensdelay.inference.maps import LensMaps
+    from lensdelay.lightcurves.measure import MeasuredDelays
+
+__all__ = [
+    "PathLike",
+    "load_scenario",
+    "load_model",
+    "images_of_source",
+    "RING_MAGNIFICATION",
+    "einstein_ring",
+    "check_scenario",
+    "fit_scenario",
+    "CURVE_SUFFIXES",
+    "measure_delays",
+    "CURVE_DETECTION_GAP",
+    "MAX_MAP_PIXELS",
+    "map_scenario",
+    "forecast_scenario",
+    "infer_h0",
+    "prepare_lens",
+    "forecast_prepared",
+]
 
 
 def load_scenario(path: PathLike, model: PathLike | None = None) -> Scenario:
@@ -252,12 +279,22 @@ def fit_scenario(
         prior=prior,
     )
     with warnings.catch_warnings():
-        # the report states these (dof, short chains); a warning would say it twice
+        # the report states these (dof, a model error, short chains); a warning would say
+        # it twice. The sequence every job runs: fit, judge (a poor fit gets a model error
+        # on the positions), then sample
         warnings.simplefilter("ignore", LensdelayWarning)
-        try:
-            result = fit(like, seed=seed)
-        except InputError as err:
-            raise err.with_source(sc.source) from err
+        result, chain = fit_and_sample(
+            like,
+            walkers=walkers,
+            steps=steps,
+            fit_seed=seed,
+            sample_seed=seed,
+            progress=progress,
+            stop=stop,
+            checkpoint_dir=checkpoint_dir,
+            resume=resume,
+            sample=sample,
+        )
     linear_delays = []
     for k, fam in enumerate(like.families):
         days, errs = delay_errors(like, result, family=k)
@@ -272,25 +309,13 @@ def fit_scenario(
                     "linearised_sigma_days": float(e) if np.isfinite(e) else None,
                 }
             )
-    chain = None
-    if sample:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", LensdelayWarning)
-            chain = sample_posterior(
-                like,
-                result.values,
-                walkers=walkers,
-                steps=steps,
-                seed=seed,
-                checkpoint_dir=checkpoint_dir,
-                resume=resume,
-                progress=progress,
-                stop=stop,
-                scales=result.errors,
-            )
     return ScenarioFit(
         sc, like, result, chain, tuple(linear_delays), provenance(used, sc.cosmology, seed)
     )
+
+
+#: Suffixes of light-curve files (a scenario is TOML).
+CURVE_SUFFIXES = (".ecsv", ".csv")
 
 
 @allows_far_dates
@@ -308,14 +333,16 @@ def measure_delays(
     seed: int = 1,
     delay_ranges: dict | None = None,
     delay_prior=None,
-):
+) -> "MeasuredDelays":
     """Delays of every image after the reference, measured from light curves.
 
     Parameters
     ----------
-    scenario : Scenario or path, optional
+    scenario : Scenario, LightCurves or path, optional
         Names the curves (``[transient] light_curves``), the family and the reference
-        image (``seen_in``); its image labels are the ones the curves may use.
+        image (``seen_in``); its image labels are the ones the curves may use. A
+        light-curve file (``.ecsv``, ``.csv``) or ``LightCurves`` here is taken as
+        ``curves``, with no scenario.
     curves : LightCurves or path, optional
         The curves themselves (instead of, or overriding, the scenario's).
     reference : str, optional
@@ -337,6 +364,14 @@ def measure_delays(
     from lensdelay.lightcurves.curves import LightCurves
     from lensdelay.lightcurves.measure import measure_delays as _measure
 
+    if curves is None and (
+        isinstance(scenario, LightCurves)
+        or (
+            isinstance(scenario, (str, os.PathLike))
+            and Path(scenario).suffix.lower() in CURVE_SUFFIXES
+        )
+    ):
+        scenario, curves = None, scenario  # a curves file where curves are expected
     sc, used = (None, []) if scenario is None else _scenario(scenario)
     labels = family = None
     if sc is not None:
@@ -512,7 +547,7 @@ def map_scenario(
     seed: int = 1,
     progress: bool = False,
     prior: str = "flat",
-):
+) -> "LensMaps":
     """Maps of the fitted lens on a square grid (``lensdelay maps``).
 
     Parameters
@@ -593,7 +628,7 @@ def map_scenario(
 @allows_far_dates
 def forecast_scenario(
     scenario, models=None, *, budget: bool = True, delays=None, **options
-) -> dict:
+) -> Forecast:
     """When, where and how bright the transient appears in every image (the main job).
 
     Parameters
@@ -634,7 +669,7 @@ def forecast_scenario(
 
 
 @allows_far_dates
-def infer_h0(scenario, model=None, *, delays=None, **options) -> dict:
+def infer_h0(scenario, model=None, *, delays=None, **options) -> HubbleResult:
     """Delays against H0 and, with measured delays, the H0 posterior (``lensdelay hubble``).
 
     ``delays`` as for :func:`forecast_scenario`; ``options`` are those of
@@ -678,11 +713,11 @@ def prepare_lens(
         Forecast from it with :func:`forecast_prepared`; the fit and sampling seeds are
         those a from-scratch forecast with the same ``seed`` uses.
     """
-    from lensdelay.forecast.prepared import prepare_lens as _prepare
+    from lensdelay.forecast.prepared import fit_lens_ahead
     from lensdelay.io.prepared_files import write_prepared
 
     sc, _ = _scenario(scenario, model)
-    prepared = _prepare(
+    prepared = fit_lens_ahead(
         sc, walkers=walkers, steps=steps, seed=seed, prior=prior, progress=progress, stop=stop
     )
     if out is not None:
@@ -691,7 +726,9 @@ def prepare_lens(
 
 
 @allows_far_dates
-def forecast_prepared(prepared, transient: str | None = None, *, budget: bool = True, **options):
+def forecast_prepared(
+    prepared, transient: str | None = None, *, budget: bool = True, **options
+) -> Forecast:
     """The forecast of an alert from a prepared lens, without fitting again.
 
     Parameters

@@ -13,6 +13,8 @@ from pathlib import Path
 
 import numpy as np
 
+__all__ = ["atomic_write_bytes", "atomic_save_npz", "load_npz"]
+
 
 def _umask() -> int:
     """The process's umask (read by setting it and putting it back)."""

@@ -1,5 +1,8 @@
 """The caution every result carries: forecasts and H0 are model-dependent."""
 
+__all__ = ["CAUTION"]
+
+
 #: Printed with every forecast and H0 result, and written into their files.
 CAUTION = (
     "Caution: delays and dates are model-dependent. Line-of-sight structure and the "

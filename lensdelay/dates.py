@@ -14,6 +14,8 @@ import contextlib
 import functools
 import warnings
 
+__all__ = ["far_dates_allowed", "allows_far_dates"]
+
 
 @contextlib.contextmanager
 def far_dates_allowed():

@@ -11,6 +11,15 @@ from __future__ import annotations
 import difflib
 from collections.abc import Iterable
 
+__all__ = [
+    "LensdelayError",
+    "InputError",
+    "FitError",
+    "LensdelayWarning",
+    "suggest",
+    "choices_text",
+]
+
 
 class LensdelayError(Exception):
     """Base class of every error lensdelay raises on purpose."""

@@ -2,6 +2,9 @@
 
 from importlib.metadata import PackageNotFoundError, version as _version
 
+__all__: list[str] = []
+
+
 try:
     __version__ = _version("lensdelay")
 except PackageNotFoundError:  # running from a source tree without installing

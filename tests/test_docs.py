@@ -82,3 +82,15 @@ def test_the_formats_page_examples_are_valid_input(tmp_path, monkeypatch):
     path.write_text(path.read_text() + members.replace('"members.ecsv"', '"members.csv"'))
     sc, _ = load_scenario(path)
     assert sc.model.members is not None
+
+
+def test_closing_line_names_files_and_what_to_open():
+    """Every command ends with what it wrote and what to open next (issue 29, item 6)."""
+    from lensdelay.cli.options import written_line
+
+    names = ["forecast.ecsv", "timeline.png", "timeline.pdf", "sky.png", "sky.pdf", "x.json"]
+    line = written_line("out/v", names, [("timeline.png", "the dates")], "--report adds a page")
+    assert line == (
+        "wrote out/v: forecast.ecsv, timeline.png/pdf, sky.png/pdf, x.json; "
+        "open timeline.png (the dates); --report adds a page"
+    )

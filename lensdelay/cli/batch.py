@@ -26,6 +26,27 @@ import numpy as np
 
 from lensdelay.errors import InputError
 
+__all__ = [
+    "TRIAGE_OBSERVABLE",
+    "TRIAGE_DEPTH",
+    "TRIAGE_MIN_DELAY",
+    "SUMMARY",
+    "list_systems",
+    "system_seed",
+    "system_files",
+    "system_fingerprint",
+    "previous_row",
+    "forecast_one",
+    "failed_row",
+    "summary_row",
+    "summary_table",
+    "SCHEDULER_TIMEOUT",
+    "check_scheduler_address",
+    "run",
+    "register",
+]
+
+
 #: Triage (docs/benchmarks.md, "Many systems"): a system is ranked when its next image
 #: is observable on at least this share of the nights in its 95% window, no fainter than
 #: TRIAGE_DEPTH (the forecast's default depth) and its delay after the image seen at least
@@ -149,7 +170,7 @@ def forecast_one(
                 res = forecast_scenario(path, seed=seed, **options)
             if fingerprint:
                 res = replace(res, provenance={**res.provenance, "batch_fingerprint": fingerprint})
-            doc = write_forecast(Path(out) / name, res)
+            doc, _ = write_forecast(Path(out) / name, res)
         return summary_row(name, doc)
     except LensdelayError as err:  # bad input of this system: its one line
         return failed_row(name, _first_line(err))
@@ -439,7 +460,11 @@ def run(args) -> int:
             f"{r['date_median'][:10]} (95%: {r['date_p2.5'][:10]} .. "
             f"{r['date_p97.5'][:10]}), {r['magnitude']:.1f} mag"
         )
-    print(f"wrote {out / SUMMARY}", file=sys.stderr)
+    print(
+        f"wrote {out / SUMMARY}; each system's forecast is in {out}/<system>/ "
+        "(lensdelay report FOLDER makes one page of a system)",
+        file=sys.stderr,
+    )
     return 0
 
 

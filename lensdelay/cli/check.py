@@ -5,6 +5,8 @@ from __future__ import annotations
 from lensdelay.cli.options import Once
 from lensdelay.api import check_scenario
 
+__all__ = ["run", "register"]
+
 
 def run(args) -> int:
     """Validate the scenario and print one line about it."""

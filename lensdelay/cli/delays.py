@@ -8,66 +8,13 @@ from pathlib import Path
 from lensdelay.api import measure_delays
 import argparse
 
-from lensdelay.cli.options import number, output_folder
+from lensdelay.cli.options import number, output_folder, written_line
 from lensdelay.io.lightcurve_files import delays_json
 from lensdelay.io.storage import write_output_set
 from lensdelay.report.figures import light_curves_figure
+from lensdelay.report.text import delays_text
 
-
-def delays_text(res) -> str:
-    """The terminal summary of a measurement."""
-    st = res.settings
-    how = (
-        f"{st['walkers']} walkers x {st['steps']} steps"
-        if "walkers" in st
-        else f"global search, {len(st['models'])} microlensing models"
-    )
-    lines = [
-        f"Delays after {res.reference} measured from light curves ({res.kind} model; "
-        f"{how}, searched within ±{st['max_delay_days']:.0f} d)",
-        "",
-        f"{'image':<8} {'delay [d]':>10} {'68% interval':>20} {'95% interval':>20} "
-        f"{'cross-check':>12} {'sim. bias':>10} {'sim. spread':>11}",
-    ]
-    lines.append("-" * len(lines[-1]))
-    for im in res.images:
-        if not im.measurable:
-            lines.append(f"{im.label:<8} {im.statement}")
-            continue
-        d = im.delay_days
-        cc = "—" if im.cross_check_days is None else f"{im.cross_check_days:+.1f}"
-        bias = "—" if im.simulation_bias_days is None else f"{im.simulation_bias_days:+.2f}"
-        spread = "—" if im.simulation_spread_days is None else f"{im.simulation_spread_days:.2f}"
-        lines.append(
-            f"{im.label:<8} {d['median']:+10.2f} {d['p16']:+9.2f} .. {d['p84']:+7.2f} "
-            f"{d['p2.5']:+9.2f} .. {d['p97.5']:+7.2f} {cc:>12} {bias:>10} {spread:>11}"
-        )
-    for im in res.images:
-        if im.flux_ratio is not None and im.measurable:
-            r = im.flux_ratio
-            lines.append(
-                f"flux ratio {im.label}/{res.reference}: {r['median']:.3f} "
-                f"({r['p16']:.3f} .. {r['p84']:.3f})"
-            )
-    g = res.goodness
-    lines.append(f"fit: chi2 = {g['chi2']:.1f} for {g['dof']} dof, p = {g['p_value']:.2g}")
-    lines.append(
-        "(cross-check: the dispersion minimum; sim.: point estimates on curves simulated with "
-        "the data's epochs and errors at the measured values"
-        + (
-            ", with intrinsic and microlensing variability of other families than the fitted; "
-            "the intervals include them and the spread between microlensing models)"
-            if res.kind == "quasar"
-            else ")"
-        )
-    )
-    lines += [f"NOTE: {n}" for n in res.notes]
-    lines.append(
-        "Caution: microlensing by stars in the lens adds variability of its own to each image; "
-        "quasars compare a trend, splines and a slow random process for it; supernovae fit a "
-        "flux ratio per band. Delays measured this way are model-dependent."
-    )
-    return "\n".join(lines)
+__all__ = ["run", "delay_range", "register"]
 
 
 def run(args) -> int:
@@ -91,7 +38,7 @@ def run(args) -> int:
     )
     text = delays_text(res)
     if out is not None:
-        write_output_set(
+        written = write_output_set(
             out,
             json_name="delays.json",
             doc=delays_json(res, res.provenance),
@@ -100,7 +47,9 @@ def run(args) -> int:
         )
     print(text)
     if out is not None:
-        print(f"wrote {out}/delays.json and light_curves.png/pdf", file=sys.stderr)
+        look = [("light_curves.png", "the curves laid onto each other")]
+        then = f"forecast --delays {out}/delays.json or hubble --delays use them"
+        print(written_line(out, written, look, then), file=sys.stderr)
     return 0
 
 

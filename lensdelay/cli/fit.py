@@ -7,10 +7,12 @@ import sys
 import numpy as np
 
 from lensdelay.api import fit_scenario
-from lensdelay.cli.options import Once, add_prior_argument, number, output_folder
+from lensdelay.cli.options import Once, add_prior_argument, number, output_folder, written_line
 from lensdelay.io.fit_files import fit_json
 from lensdelay.io.storage import write_output_set
 from lensdelay.report.figures import corner_figure, residual_figure, sky_figure
+
+__all__ = ["run", "register"]
 
 
 def run(args) -> int:
@@ -52,7 +54,7 @@ def run(args) -> int:
                 "log_prob": ch.log_prob[ch.burn :: ch.thin].ravel(),
                 "seed": ch.seed,
             }
-        write_output_set(
+        written = write_output_set(
             out,
             json_name="fit.json",
             doc=doc,
@@ -60,7 +62,9 @@ def run(args) -> int:
             arrays=arrays,
             inputs=res.provenance["inputs"],
         )
-        print(f"wrote {out}/fit.json and figures", file=sys.stderr)
+        look = [("fit_sky.png", "the fit on the sky"), ("fit_residuals.png", "the residuals")]
+        then = f"lensdelay report {out} makes one page of it"
+        print(written_line(out, written, look, then), file=sys.stderr)
     return 0
 
 

@@ -14,12 +14,15 @@ from lensdelay.cli.options import (
     number,
     output_folder,
     site_from_args,
+    written_line,
 )
 from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
 from lensdelay.io.storage import figure_bytes, json_ready, write_output_set
 from lensdelay.model.scenario import parse_date
 from lensdelay.report.figures import budget_figure, timeline_figure
 from lensdelay.report.finder import finder_chart, region_text
+
+__all__ = ["run", "write_forecast", "register"]
 
 
 def run(args) -> int:
@@ -88,10 +91,10 @@ def _shared_options(args, now) -> dict:
     }
 
 
-def write_forecast(out, res, report: bool = False) -> dict:
+def write_forecast(out, res, report: bool = False) -> tuple[dict, list[str]]:
     """Build every output of forecast ``res`` first, then write them into ``out`` as one set.
 
-    Returns the forecast's JSON document (as written).
+    Returns the forecast's JSON document (as written) and the names of the files written.
     """
     doc = forecast_json(res)
     texts = {"forecast.ecsv": table_text(forecast_table(res)), "forecast.ics": forecast_ics(res)}
@@ -106,7 +109,7 @@ def write_forecast(out, res, report: bool = False) -> dict:
 
         pngs = {stem: figure_bytes(fig) for stem, fig in figs.items()}
         texts["report.html"] = report_html(forecast=json_ready(doc), figures=pngs)
-    write_output_set(
+    written = write_output_set(
         out,
         json_name="forecast.json",
         doc=doc,
@@ -114,21 +117,23 @@ def write_forecast(out, res, report: bool = False) -> dict:
         texts=texts,
         inputs=res.provenance["inputs"],
     )
-    return doc
+    return doc, written
 
 
 def _write(args, out, res) -> int:
     """Print the forecast and write every output as one set."""
     text = res.report()
     if out is not None:
-        write_forecast(out, res, report=args.report)
+        _, written = write_forecast(out, res, report=args.report)
     else:
         forecast_json(res)  # the same checks as with files, even when none are written
     print(text)
     if out is not None:
-        print(
-            f"wrote {out}/forecast.json, forecast.ecsv, forecast.ics and figures", file=sys.stderr
-        )
+        look = [("timeline.png", "the dates"), ("sky.png", "the finder chart")]
+        if args.report:
+            look.insert(0, ("report.html", "everything on one page"))
+        then = "" if args.report else "--report adds report.html, everything on one page"
+        print(written_line(out, written, look, then), file=sys.stderr)
     return 0
 
 

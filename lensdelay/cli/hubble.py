@@ -5,11 +5,13 @@ from __future__ import annotations
 import sys
 
 from lensdelay.api import infer_h0
-from lensdelay.cli.options import Once, add_prior_argument, number, output_folder
+from lensdelay.cli.options import Once, add_prior_argument, number, output_folder, written_line
 from lensdelay.errors import InputError
 from lensdelay.io.hubble_files import curves_table_text, hubble_json
 from lensdelay.io.storage import write_output_set
 from lensdelay.report.figures import h0_figure, hubble_curves_figure
+
+__all__ = ["run", "HUBBLE_FIGURES", "register"]
 
 
 def run(args) -> int:
@@ -47,7 +49,7 @@ def run(args) -> int:
         figs = {"hubble_curves": hubble_curves_figure(res)}
         if res.h0 is not None:
             figs["hubble_posterior"] = h0_figure(res)
-        write_output_set(
+        written = write_output_set(
             out,
             json_name="hubble.json",
             doc=doc,
@@ -57,8 +59,17 @@ def run(args) -> int:
         )
     print(text)
     if out is not None:
-        print(f"wrote {out}/hubble.json, hubble_curves.ecsv and figures", file=sys.stderr)
+        look = [(f"{stem}.png", what) for stem, what in HUBBLE_FIGURES.items() if stem in figs]
+        then = f"lensdelay report {out} makes one page of it"
+        print(written_line(out, written, look, then), file=sys.stderr)
     return 0
+
+
+#: The H0 job's figures, in the order a reader opens them, with what each shows.
+HUBBLE_FIGURES = {
+    "hubble_posterior": "the H0 posterior under each kappa_ext prior",
+    "hubble_curves": "the predicted delays against H0",
+}
 
 
 def register(sub) -> None:

@@ -8,6 +8,8 @@ from lensdelay.api import images_of_source
 from lensdelay.cli.options import number
 from lensdelay.report.text import images_text
 
+__all__ = ["run", "register"]
+
 
 def run(args) -> int:
     """Print every image of the source as a table or JSON."""

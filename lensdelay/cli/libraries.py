@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import warnings
 
+__all__ = ["configure_libraries"]
+
 
 def configure_libraries() -> None:
     """Process-wide settings the command line (not the library) makes."""

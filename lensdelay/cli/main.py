@@ -32,6 +32,9 @@ from lensdelay.inference.sampling import StopRequest
 from lensdelay.io.storage import PartialOutputError
 from lensdelay.version import __version__
 
+__all__ = ["SUBCOMMANDS", "build_parser", "main"]
+
+
 SUBCOMMANDS = (images, check, fit, delays, prepare, forecast, batch, hubble, maps, report)
 
 

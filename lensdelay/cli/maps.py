@@ -5,9 +5,11 @@ from __future__ import annotations
 import sys
 
 from lensdelay.api import map_scenario
-from lensdelay.cli.options import add_prior_argument, number, output_folder
+from lensdelay.cli.options import add_prior_argument, number, output_folder, written_line
 from lensdelay.io.maps_files import maps_fits, maps_json
 from lensdelay.io.storage import write_output_set
+
+__all__ = ["run", "register"]
 
 
 def run(args) -> int:
@@ -28,7 +30,7 @@ def run(args) -> int:
     sc = maps.scenario
     files = maps_fits(sc, maps, sc.cosmology)
     doc = maps_json(sc, maps, files, maps.provenance)
-    write_output_set(
+    written = write_output_set(
         out, json_name="maps.json", doc=doc, binaries=files, inputs=maps.provenance["inputs"]
     )
     n = len(maps.x)
@@ -39,7 +41,8 @@ def run(args) -> int:
         "Model-dependent: line-of-sight mass and the mass-sheet degeneracy rescale "
         "the convergence and every delay."
     )
-    print(f"wrote {out}/maps.json and {', '.join(files)}", file=sys.stderr)
+    then = "open the FITS files in an image viewer (each carries a celestial WCS)"
+    print(written_line(out, written, (), then), file=sys.stderr)
     return 0
 
 

@@ -15,6 +15,21 @@ from lensdelay.errors import InputError
 from lensdelay.inference.likelihood import PRIOR_CHOICES
 from lensdelay.model.scenario import Site
 
+__all__ = [
+    "FLAGS",
+    "with_flags",
+    "Once",
+    "number",
+    "output_folder",
+    "output_file",
+    "add_prior_argument",
+    "add_unseen_argument",
+    "add_site_arguments",
+    "site_from_args",
+    "written_line",
+]
+
+
 #: Library parameter names → command-line flags, for messages.
 FLAGS = {
     "h0": "--h0",
@@ -184,3 +199,33 @@ def site_from_args(args) -> Site | None:
             )
         return Site("space", solar_elongation=(lo, hi))
     return None
+
+
+def written_line(out, names, look=(), then: str = "") -> str:
+    """A command's closing line: the files it wrote into ``out`` and what to open next.
+
+    Parameters
+    ----------
+    out : path
+        The output folder.
+    names : list of str
+        The files written (as :func:`lensdelay.io.storage.write_output_set` returns them);
+        a figure's PNG and PDF are listed once as ``stem.png/pdf``.
+    look : sequence of (str, str)
+        The files to open first, each with what it shows.
+    then : str
+        The next step, if any (a command or an option).
+    """
+    shown, seen = [], set()
+    for name in names:
+        stem, _, ext = name.rpartition(".")
+        if ext in ("png", "pdf") and f"{stem}.png" in names and f"{stem}.pdf" in names:
+            if stem not in seen:
+                seen.add(stem)
+                shown.append(f"{stem}.png/pdf")
+        else:
+            shown.append(name)
+    line = f"wrote {out}: {', '.join(shown)}"
+    if look:
+        line += "; open " + " and ".join(f"{name} ({what})" for name, what in look)
+    return line + (f"; {then}" if then else "")

@@ -8,6 +8,8 @@ from lensdelay.api import prepare_lens
 from lensdelay.cli.options import add_prior_argument, output_folder
 from lensdelay.errors import InputError
 
+__all__ = ["run", "register"]
+
 
 def run(args) -> int:
     """Prepare the lens and store it in --out (one set of files, written at the end)."""

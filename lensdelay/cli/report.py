@@ -9,6 +9,8 @@ from lensdelay.io.report_inputs import read_results
 from lensdelay.io.storage import atomic_write_text
 from lensdelay.report.html import report_html
 
+__all__ = ["run", "register"]
+
 
 def run(args) -> int:
     """Read DIR's outputs, write DIR/report.html (or --out) atomically."""

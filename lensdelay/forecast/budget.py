@@ -40,6 +40,18 @@ from astropy.cosmology import FlatLambdaCDM
 
 from lensdelay.lensing.distances import LensDistances
 
+__all__ = [
+    "DEFAULT_VELOCITY_KMS",
+    "DEFAULT_OM0_SIGMA",
+    "SAMPLED_TERMS",
+    "EXTRA_TERMS",
+    "TERMS",
+    "ddt_log_derivatives",
+    "covariance_terms",
+    "delay_budget",
+]
+
+
 #: Typical line-of-sight velocity dispersion of lens galaxies and groups (common practice).
 DEFAULT_VELOCITY_KMS = 300.0
 #: Ωm uncertainty used for the budget when the cosmology is flat ΛCDM (Planck-2018-like

@@ -24,6 +24,14 @@ from astropy.utils.exceptions import AstropyWarning
 
 from lensdelay.model.scenario import Site
 
+__all__ = [
+    "Calendar",
+    "solar_elongation",
+    "build_calendar",
+    "usable_time",
+    "altitudes",
+]
+
 
 @dataclass(frozen=True)
 class Calendar:
@@ -100,9 +108,10 @@ def build_calendar(
     per_day = int(round(24 * 60 / step_minutes))
     grid = noon + np.arange(n_days * per_day + 1) / per_day
     sun_alt, tgt_alt = altitudes(site, target, start, grid, n_days)
-    hours = usable_time(
-        np.minimum(site.twilight - sun_alt, tgt_alt - site.min_altitude), per_day
-    ) * 24.0
+    hours = (
+        usable_time(np.minimum(site.twilight - sun_alt, tgt_alt - site.min_altitude), per_day)
+        * 24.0
+    )
     return Calendar(start, hours >= site.min_hours, hours)
 
 

@@ -65,6 +65,21 @@ from astropy import units as u
 from lensdelay.errors import InputError
 from lensdelay.lensing import compiled
 
+__all__ = [
+    "CHUNK_SAMPLES",
+    "PerturberPopulation",
+    "einstein_radius2_per_mass",
+    "PerturberDraws",
+    "draw_perturbers",
+    "PerturberResponse",
+    "lens_scale_and_centre",
+    "perturber_response",
+    "perturber_delays",
+    "delays_for",
+    "perturber_notes",
+]
+
+
 #: Samples handled at once when the perturbers' field is summed (memory ~ 100 MB).
 CHUNK_SAMPLES = 20_000
 #: Relative parameter step of the Fermat-potential derivatives (central differences).

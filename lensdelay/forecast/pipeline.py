@@ -55,6 +55,22 @@ from lensdelay.forecast.positions import position_ellipses, sky_position
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
 from lensdelay.inference.timing import SightingRow, TimingData, tensions_from_draws
 
+__all__ = [
+    "STATUS_MEANINGS",
+    "TENSION_CAUSES",
+    "MAX_OFFSET_DAYS",
+    "DEFAULT_SIGHTING_SIGMA_DAYS",
+    "default_sighting_sigma",
+    "parse_sightings",
+    "run_forecast",
+    "CALENDAR_YEARS",
+    "perturber_covariance",
+    "draw_conditional_perturbations",
+    "condition_on_timing",
+    "REFERENCE_SHIFT_SIGMA",
+]
+
+
 #: What each status means (docs/statistics.md: "Statuses"); printed under the table.
 STATUS_MEANINGS = {
     "seen": "the event was observed in this image (the detection or a reported sighting)",

@@ -19,6 +19,15 @@ from astropy.coordinates import SkyCoord
 
 from lensdelay.inference.summaries import weighted_quantiles
 
+__all__ = [
+    "ELLIPSE_LEVELS",
+    "PositionEllipse",
+    "position_ellipses",
+    "sky_position",
+    "sky_offsets",
+]
+
+
 #: The error-ellipse levels every image gets (percent).
 ELLIPSE_LEVELS = (68, 95)
 

@@ -1,7 +1,7 @@
 """Prepared lenses: fit and sample a lens once, forecast any transient from it in seconds.
 
 A watch-list lens is fitted and its posterior sampled before any alert
-(:func:`prepare_lens`); when an alert arrives, :func:`lensdelay.forecast.pipeline.run_forecast`
+(:func:`fit_lens_ahead`); when an alert arrives, :func:`lensdelay.forecast.pipeline.run_forecast`
 takes the prepared fit and chain (``prepared=``) instead of fitting again. The fit and
 sampling seeds are the ones a from-scratch forecast with the same ``seed`` would use, so
 the two forecasts are the same (``tests/test_prepared.py``).
@@ -19,6 +19,14 @@ from lensdelay.inference.fit import FitResult
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import Chain, check_sampler_settings, fit_and_sample, int_seed
 from lensdelay.model.scenario import MAX_DATE_SIGMA_DAYS, Scenario, Transient, parse_date
+
+__all__ = [
+    "PreparedLens",
+    "stage_seeds",
+    "fit_lens_ahead",
+    "parse_transient",
+    "with_transient",
+]
 
 
 @dataclass(frozen=True)
@@ -64,7 +72,7 @@ def stage_seeds(seed: int, n_models: int = 1) -> list:
     return list(np.random.SeedSequence(seed).spawn(4 * n_models + 2))
 
 
-def prepare_lens(
+def fit_lens_ahead(
     scenario: Scenario,
     *,
     walkers: int = 32,

@@ -19,6 +19,8 @@ from astropy.time import Time
 from lensdelay.dates import allows_far_dates
 from lensdelay.forecast.positions import PositionEllipse
 
+__all__ = ["ImageSampleSet", "ImageForecast", "Forecast"]
+
 
 @dataclass(frozen=True)
 class ImageSampleSet:
@@ -177,6 +179,13 @@ class Forecast:
     provenance: dict | None = None
     budget: dict | None = None
     sky_view: dict | None = field(default=None, repr=False)
+
+    def __repr__(self) -> str:
+        labels = ", ".join(f"{im.label}: {im.status}" for im in self.images)
+        return (
+            f"<Forecast of {self.scenario.name!r} as of {self.now.isot[:16]}Z: "
+            f"{len(self.images)} images ({labels}); models {', '.join(self.model_labels)}>"
+        )
 
     def image(self, label: str, family: str | None = None) -> ImageForecast:
         """The image called ``label`` (of ``family``, default the transient's)."""

@@ -32,6 +32,35 @@ from lensdelay.inference.priors import draw_kappa
 from lensdelay.inference.summaries import effective_sample_size
 from lensdelay.inference.timing import TimingData
 
+__all__ = [
+    "DEFAULT_H0_PRIOR",
+    "DEFAULT_KAPPA_EXT",
+    "DEFAULT_MICROLENSING_MAG",
+    "DEFAULT_DEPTH",
+    "MIN_ESS_FRACTION",
+    "AGREEMENT",
+    "Sighting",
+    "ForecastSettings",
+    "ImageTrack",
+    "label_unobserved",
+    "image_tracks",
+    "ModelSamples",
+    "track_columns",
+    "solve_samples",
+    "mode_notes",
+    "SAMPLE_RANGE",
+    "check_sample_count",
+    "draw_scale_priors",
+    "TimingUpdate",
+    "importance_update",
+    "majority",
+    "WEIGHTINGS",
+    "model_weights",
+    "match_tracks",
+    "parity_name",
+]
+
+
 #: Default H0 prior, km/s/Mpc: wide enough to span both the early-universe (~67) and
 #: distance-ladder (~73) values at about 1σ, so a forecast commits to neither.
 DEFAULT_H0_PRIOR = (70.0, 5.0)

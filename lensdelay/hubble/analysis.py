@@ -22,6 +22,15 @@ from lensdelay.lensing.distances import DelayDistanceTable, LensDistances
 from lensdelay.inference.priors import draw_kappa
 from lensdelay.inference.summaries import quantile_summary as summary
 
+__all__ = [
+    "KAPPA_COMPARISON",
+    "pair_delays",
+    "delay_curves",
+    "h0_posterior",
+    "kappa_comparison",
+]
+
+
 KAPPA_COMPARISON = ((0.0, 0.0), (0.0, 0.05), (0.05, 0.05), (-0.05, 0.05), (0.1, 0.05))
 
 

@@ -19,6 +19,8 @@ from lensdelay.inference.sampling import check_sampler_settings, fit_and_sample,
 from lensdelay.model.cosmology import cosmology_from_class, cosmology_from_spec
 from lensdelay.model.scenario import Scenario
 
+__all__ = ["run_hubble", "HubbleResult"]
+
 
 def run_hubble(
     scenario: Scenario,
@@ -177,6 +179,10 @@ class HubbleResult:
     kappa_ext: tuple = (0.0, 0.05)
     om0_prior: tuple = ()
     provenance: dict | None = None
+
+    def __repr__(self) -> str:
+        h0 = "no measured delays" if self.h0 is None else f"H0 {self.h0['H0']['median']:.1f}"
+        return f"<HubbleResult of {self.scenario.name!r}: {h0} km/s/Mpc>"
 
     @property
     def h0_prior_text(self) -> str:

@@ -16,6 +16,8 @@ import numpy as np
 from lensdelay.atomic import atomic_save_npz, load_npz
 from lensdelay.errors import InputError
 
+__all__ = ["NpzCheckpoint"]
+
 
 class NpzCheckpoint(emcee.backends.Backend):
     """An in-memory emcee backend that saves to and resumes from an npz file.

@@ -30,6 +30,14 @@ import math
 
 import numpy as np
 
+__all__ = [
+    "SamplingCoordinates",
+    "ORIGIN_CLEARANCE",
+    "polar_pairs",
+    "SampledTarget",
+]
+
+
 _HALF_TURN = 90.0 / math.pi  # degrees per radian of 2φ, i.e. dφ/d(2φ_rad)
 
 

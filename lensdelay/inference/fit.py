@@ -22,6 +22,20 @@ from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import MISSING_IMAGE_PENALTY, ImageLikelihood
 from lensdelay.inference.misfit import POOR_FIT_P, ModelError, fit_p_value, judged_p_value
 
+__all__ = [
+    "FitResult",
+    "improper_parameters",
+    "underconstrained_note",
+    "check_constraints",
+    "initial_vector",
+    "fit",
+    "DISTINCT_MODE",
+    "describe",
+    "observed_delays",
+    "delay_errors",
+    "ScenarioFit",
+]
+
 
 def _safe(name: str) -> str:
     return "p_" + re.sub(r"\W", "_", name)
@@ -500,6 +514,13 @@ class ScenarioFit:
     chain: object = field(default=None, repr=False)
     linear_delays: tuple = ()
     provenance: dict | None = None
+
+    def __repr__(self) -> str:
+        sampled = "" if self.chain is None else f", {len(self.chain.samples())} samples"
+        return (
+            f"<ScenarioFit of {self.scenario.name!r} with {self.fit.model_label}: "
+            f"chi2 {self.fit.chi2:.1f} for {self.fit.dof} dof{sampled}>"
+        )
 
     def report(self) -> str:
         """The text ``lensdelay fit`` prints."""

@@ -38,6 +38,18 @@ from scipy import special
 
 from lensdelay.inference.priors import truncated_standard_normal
 
+__all__ = [
+    "STUDENT_DF",
+    "ITERATIONS",
+    "CONVERGED_CHI2",
+    "HOPELESS_AFTER",
+    "HOPELESS_CHI2",
+    "ImportanceDraws",
+    "pinned_parameters",
+    "conditional_importance",
+]
+
+
 #: Degrees of freedom of the Student-t proposal of the pinned parameters: heavier tails
 #: than the Laplace approximation, so that the proposal covers the conditional posterior.
 STUDENT_DF = 5.0

@@ -46,6 +46,17 @@ from lensdelay.lensing.profiles.base import rules_trusted
 from lensdelay.model.recipe import MassModel
 from lensdelay.model.scenario import Scenario
 
+__all__ = [
+    "MISSING_IMAGE_PENALTY",
+    "EXTRA_IMAGE_MAG_SCALE",
+    "PRIOR_CHOICES",
+    "FamilyData",
+    "REDSHIFT_NODES",
+    "H0_RANGE",
+    "ImageLikelihood",
+]
+
+
 #: Residual (in σ) added per coordinate when the model lacks an observed image.
 MISSING_IMAGE_PENALTY = 1e3
 #: Magnitude scale of the penalty on an unobserved image brighter than the faintest

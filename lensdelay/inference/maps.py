@@ -17,6 +17,15 @@ import numpy as np
 
 from lensdelay.lensing.maps import LENS_QUANTITIES, lens_maps
 
+__all__ = [
+    "ARRIVAL",
+    "BLOCK_VALUES",
+    "LensMaps",
+    "grid_axes",
+    "fitted_maps",
+]
+
+
 #: The arrival-time map's unit and meaning.
 ARRIVAL = ("d", "arrival time after the reference image's position, days")
 #: Values (rows x pixels) of one quantity evaluated at once for posterior summaries: bounds

@@ -28,6 +28,16 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize, stats
 
+__all__ = [
+    "POOR_FIT_P",
+    "fit_p_value",
+    "judged_p_value",
+    "ModelError",
+    "position_floor",
+    "largest_residual",
+]
+
+
 #: p-value below which a fit is poor and its image positions get a model-error floor.
 POOR_FIT_P = 0.01
 

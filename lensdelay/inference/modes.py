@@ -25,6 +25,17 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+__all__ = [
+    "MODE_DCHI2",
+    "MAX_EXTRA_MODES",
+    "DISTINCT_CHAINS",
+    "ModeShare",
+    "modes_to_sample",
+    "log_mode_mass",
+    "mix_modes",
+]
+
+
 #: Δχ² within which another fit mode holds at least about 1% of the posterior
 #: (e^(−9.2/2) ≈ 0.01): such a mode is sampled and mixed in.
 MODE_DCHI2 = 9.2

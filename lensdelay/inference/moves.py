@@ -30,6 +30,8 @@ import numpy as np
 from emcee.moves import Move
 from emcee.state import State
 
+__all__ = ["default_step", "TUNING_HALVINGS", "FisherLangevinMove"]
+
 
 def default_step(n: int) -> float:
     """ε = 1.2 n^(-1/6): the scaling of Langevin proposals with the dimension n."""

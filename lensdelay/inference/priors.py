@@ -13,6 +13,15 @@ from scipy import special, stats
 
 from lensdelay.errors import InputError
 
+__all__ = [
+    "MAX_PROBABILITY_ABOVE_ONE",
+    "MIN_KAPPA_MEAN",
+    "check_kappa_prior",
+    "draw_kappa",
+    "truncated_standard_normal",
+]
+
+
 #: Largest prior probability allowed at κ_ext ≥ 1 (about the 3.1σ tail).
 MAX_PROBABILITY_ABOVE_ONE = 1e-3
 #: Lowest allowed prior mean: an under-dense line of sight, not a negative universe.

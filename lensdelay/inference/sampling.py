@@ -37,6 +37,34 @@ from lensdelay.inference.priors import truncated_standard_normal
 from lensdelay.inference.starts import AnchoredTarget, flat_anchors, randomised_fits
 from lensdelay.inference.backend import NpzCheckpoint
 
+__all__ = [
+    "StopRequest",
+    "MOVES",
+    "LANGEVIN_MAX_PARAMETERS",
+    "Chain",
+    "MIN_STEPS",
+    "check_sampler_settings",
+    "int_seed",
+    "sample",
+    "integrated_time",
+    "RHAT_GOAL",
+    "MIN_STEPS_TO_EXTEND",
+    "EXTEND_FACTOR",
+    "MAX_RHAT",
+    "potential_scale_reduction",
+    "TRUNCATION_REACH",
+    "MODEL_ERROR_ROUNDS",
+    "MODEL_ERROR_CAP",
+    "IMPORTANCE_DRAWS",
+    "IMPORTANCE_BATCHES",
+    "IMPORTANCE_WANTED",
+    "IMPORTANCE_MIN",
+    "IMPORTANCE_ROWS",
+    "importance_chain",
+    "sample_posterior",
+    "fit_and_sample",
+]
+
 
 class StopRequest:
     """A request to stop sampling at the next checkpoint, owned by the caller.
@@ -310,16 +338,7 @@ def sample(
     stop.active = False
     # τ in the sampling coordinates (no angle wraps there), from the second half so the
     # walkers' initial spread does not inflate it
-    # emcee logs its own short-chain message; ours (below) says it with the numbers, and
-    # the library stays silent (its logger is quieted for this call only)
-    autocorr_log = logging.getLogger("emcee.autocorr")
-    level = autocorr_log.level
-    autocorr_log.setLevel(logging.ERROR)
-    try:
-        with np.errstate(invalid="ignore", divide="ignore"):  # a flat chain: NaN, below
-            tau = emcee.autocorr.integrated_time(chain[len(chain) // 2 :], quiet=True)
-    finally:
-        autocorr_log.setLevel(level)
+    tau = integrated_time(chain[len(chain) // 2 :])
     chain = coords.to_model(chain.reshape(-1, ndim)).reshape(chain.shape)
     # wrap periodic parameters (position angles) around the best fit: no wrap straddling
     for i, period in enumerate(like.periods):
@@ -369,6 +388,22 @@ def sample(
     return Chain(
         list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move, rhat
     )
+
+
+def integrated_time(chain: np.ndarray) -> np.ndarray:
+    """The integrated autocorrelation time per parameter (emcee's estimate), silently.
+
+    emcee logs its own short-chain message; ours say it with the numbers, and the library
+    stays silent (its logger is quieted for this call only). NaN for a flat chain.
+    """
+    autocorr_log = logging.getLogger("emcee.autocorr")
+    level = autocorr_log.level
+    autocorr_log.setLevel(logging.ERROR)
+    try:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return emcee.autocorr.integrated_time(chain, quiet=True)
+    finally:
+        autocorr_log.setLevel(level)
 
 
 #: A chain of at least MIN_STEPS_TO_EXTEND steps whose walkers do not agree (R̂ above
@@ -683,10 +718,15 @@ def fit_and_sample(
     stop: StopRequest | None = None,
     checkpoint_dir=None,
     resume: bool = False,
+    sample: bool = True,
 ):
     """Fit ``like`` and sample its posterior around the best fit: the sequence every job runs.
 
-    The posterior is sampled by :func:`sample_posterior`.
+    The fit is judged, and a poor one fitted again with a model error on the positions
+    (:func:`_with_model_error`), before anything is sampled, so fit, maps, forecast,
+    hubble and prepare agree on a poor fit. The posterior is sampled by
+    :func:`sample_posterior`, each other fit mode by its own chain, mixed by mass
+    (:mod:`lensdelay.inference.modes`).
 
     Warnings of the fit and the sampler (degrees of freedom, short chains) are not
     raised: they are in the results' ``notes`` and ``warnings``, which the reports print.
@@ -700,9 +740,12 @@ def fit_and_sample(
     fit_seed, sample_seed : int
         Seeds of the fit's starts and of the sampler.
 
+    sample : bool
+        False stops after the fit (the chain returned is None).
+
     Returns
     -------
-    (FitResult, Chain)
+    (FitResult, Chain or None)
     """
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", LensdelayWarning)
@@ -711,6 +754,8 @@ def fit_and_sample(
             result = _with_model_error(like, result, fit_seed)
         except InputError as err:
             raise err.with_source(like.scenario.source) from err
+        if not sample:
+            return _judged(like, result), None
         n_steps = steps(result) if callable(steps) else steps
         chain = sample_posterior(
             like,
@@ -739,12 +784,17 @@ def fit_and_sample(
                 checkpoint_dir,
                 resume,
             )
+    return _judged(like, result), chain
+
+
+def _judged(like, result):
+    """``result`` with the warnings a poor or under-constrained fit deserves (and notes)."""
     if result.model_error is not None:
         warnings.warn(
-            f"{like.model.label}: {result.model_error.note()}", LensdelayWarning, stacklevel=2
+            f"{like.model.label}: {result.model_error.note()}", LensdelayWarning, stacklevel=3
         )
     if like.dof < 0:
         note = underconstrained_note(like)
         result.notes.insert(0, note)
-        warnings.warn(f"{like.model.label}: {note}", LensdelayWarning, stacklevel=2)
-    return result, chain
+        warnings.warn(f"{like.model.label}: {note}", LensdelayWarning, stacklevel=3)
+    return result

@@ -34,6 +34,9 @@ from __future__ import annotations
 
 import numpy as np
 
+__all__ = ["ITERATIONS", "AnchoredTarget", "flat_anchors", "randomised_fits"]
+
+
 #: Levenberg–Marquardt iterations of the randomised fits.
 ITERATIONS = 40
 

@@ -8,6 +8,14 @@ from __future__ import annotations
 
 import numpy as np
 
+__all__ = [
+    "QUANTILES",
+    "weighted_quantiles",
+    "quantile_summary",
+    "effective_sample_size",
+]
+
+
 #: The reported quantiles, name → percent.
 QUANTILES = {"median": 50.0, "p16": 16.0, "p84": 84.0, "p2.5": 2.5, "p97.5": 97.5}
 

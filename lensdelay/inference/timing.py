@@ -37,6 +37,15 @@ from scipy import linalg
 from lensdelay.errors import InputError
 from lensdelay.inference.summaries import quantile_summary
 
+__all__ = [
+    "SightingRow",
+    "TimingData",
+    "TENSION_SIGMA",
+    "Tension",
+    "tensions",
+    "tensions_from_draws",
+]
+
 
 @dataclass(frozen=True)
 class SightingRow:

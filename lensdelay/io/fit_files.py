@@ -6,6 +6,8 @@ import numpy as np
 
 from lensdelay.inference.summaries import quantile_summary
 
+__all__ = ["fit_json"]
+
 
 def fit_json(res: dict) -> dict:
     """The JSON document of a fit (and its posterior, if sampled)."""

@@ -16,6 +16,23 @@ from lensdelay.cautions import CAUTION
 from lensdelay.inference.summaries import quantile_summary
 from lensdelay.forecast.pipeline import STATUS_MEANINGS
 
+__all__ = [
+    "instant",
+    "iso_utc",
+    "date_summary",
+    "mjd_summary",
+    "day_of",
+    "median_day",
+    "window_days",
+    "H0_TABLE",
+    "dates_by_h0",
+    "forecast_json",
+    "forecast_table",
+    "table_text",
+    "ics_windows",
+    "forecast_ics",
+]
+
 
 @allows_far_dates
 def _family_redshift(res, family) -> dict:

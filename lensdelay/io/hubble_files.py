@@ -9,6 +9,8 @@ from astropy.table import Table
 from lensdelay.cautions import CAUTION
 from lensdelay.model.cosmology import describe_cosmology
 
+__all__ = ["hubble_json", "curves_table_text"]
+
 
 def hubble_json(res) -> dict:
     """``hubble.json``: H0 and D_dt summaries, κ_ext comparison, curves, provenance."""

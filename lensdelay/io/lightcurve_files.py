@@ -17,6 +17,15 @@ from lensdelay.errors import InputError
 from lensdelay.io.reading import read_table
 from lensdelay.lightcurves.curves import FLUX_ZERO_POINT, LightCurves
 
+__all__ = [
+    "read_light_curves",
+    "delays_json",
+    "COVARIANCE_MISMATCH",
+    "read_delays_json",
+    "FORECAST_PRIOR_WIDTHS",
+    "delay_ranges_from_forecast",
+]
+
 
 def _column(columns: dict, name: str, where: str, unit=None, rows=None) -> np.ndarray:
     """A numeric column with no empty or non-finite cell, in ``unit`` when one is asked.
@@ -79,9 +88,7 @@ def _times(columns: dict, where: str) -> np.ndarray:
         return Time(
             [parse_date(text, f"{where} column 'date' row {k + 1}") for k, text in enumerate(texts)]
         ).mjd
-    raise InputError(
-        f"{where} needs a column 'time' (MJD) or 'date' (ISO 8601, UTC); it has none"
-    )
+    raise InputError(f"{where} needs a column 'time' (MJD) or 'date' (ISO 8601, UTC); it has none")
 
 
 def _limits(columns: dict, n: int, where: str) -> np.ndarray:
@@ -257,8 +264,7 @@ def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
     if not isinstance(images, list) or not all(isinstance(im, dict) for im in images):
         raise InputError(
             f"{where} images must be a list of objects (label, delay_days), got "
-            f"{type(images).__name__}"
-            + (" of other things" if isinstance(images, list) else "")
+            f"{type(images).__name__}" + (" of other things" if isinstance(images, list) else "")
         )
     delays, sigmas, listed = [], [], set()
     for im in images:

@@ -19,6 +19,8 @@ from astropy.wcs import WCS
 from lensdelay.model.cosmology import describe_cosmology
 from lensdelay.version import __version__
 
+__all__ = ["map_wcs", "maps_fits", "maps_json"]
+
 
 def map_wcs(sky, maps) -> WCS:
     """The celestial WCS of a map grid: the origin at its centre pixel, RA to the left."""

@@ -25,6 +25,9 @@ from lensdelay.io.storage import json_ready, write_output_set
 from lensdelay.model.simulate import to_toml
 from lensdelay.version import __version__
 
+__all__ = ["KIND", "write_prepared", "is_prepared", "read_prepared"]
+
+
 #: What ``lens.json`` says it is (a folder of forecast outputs is not a prepared lens).
 KIND = "lensdelay prepared lens"
 

@@ -10,6 +10,8 @@ from lensdelay.io.reading import file_hash
 from lensdelay.model.cosmology import describe_cosmology
 from lensdelay.version import __version__
 
+__all__ = ["provenance", "system_hash", "fingerprint"]
+
 
 def provenance(inputs, cosmo, seed=None) -> dict:
     """Version, input files and their SHA-256, cosmology and seed: recorded in every JSON output."""

@@ -13,6 +13,17 @@ from pathlib import Path
 from lensdelay.errors import InputError
 from lensdelay.model.recipe import MassModel, parse_mass_entries
 
+__all__ = [
+    "read_toml",
+    "file_hash",
+    "load_model",
+    "model_file",
+    "catalogue_file",
+    "load_scenario",
+    "read_table",
+    "self_contained_document",
+]
+
 
 def read_toml(path: str | os.PathLike) -> dict:
     """Parse a TOML file, turning every failure into an :class:`InputError`."""

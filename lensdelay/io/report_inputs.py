@@ -14,6 +14,15 @@ from pathlib import Path
 from lensdelay.errors import InputError
 from lensdelay.version import __version__
 
+__all__ = [
+    "REQUIRED",
+    "IMAGE_KEYS",
+    "FIGURE_STEMS",
+    "check_document",
+    "read_results",
+]
+
+
 #: Keys each job's JSON must hold for the report (top level, and per image entry).
 REQUIRED = {
     "forecast": (

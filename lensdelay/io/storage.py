@@ -10,6 +10,17 @@ from pathlib import Path
 
 import numpy as np
 
+__all__ = [
+    "atomic_write_text",
+    "json_ready",
+    "atomic_write_json",
+    "figure_bytes",
+    "atomic_savefig",
+    "MANIFEST",
+    "PartialOutputError",
+    "write_output_set",
+]
+
 
 def atomic_write_text(path, text: str) -> None:
     """Write UTF-8 text atomically."""

@@ -16,6 +16,17 @@ import math
 import numpy as np
 from numba import njit
 
+__all__ = [
+    "RADIUS_FLOOR",
+    "ROUND",
+    "NEAR_ONE",
+    "evaluate_all",
+    "newton_all",
+    "series_factors",
+    "softened_points_field",
+]
+
+
 #: As lensdelay.lensing.profiles.base.RADIUS_FLOOR and sie._ROUND, nfw._NEAR_ONE.
 RADIUS_FLOOR = 1e-12
 ROUND = 1e-4

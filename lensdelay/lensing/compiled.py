@@ -33,6 +33,21 @@ import os
 
 import numpy as np
 
+__all__ = [
+    "CODES",
+    "SIMD_FRIENDLY",
+    "LARGE",
+    "WIDTH",
+    "disabled",
+    "enabled",
+    "kernel_module",
+    "series_factors",
+    "pack",
+    "evaluate",
+    "newton_solve",
+]
+
+
 #: Kind codes of the kernels (the table's first column).
 CODES = {
     "SIE": 1,

@@ -9,6 +9,8 @@ import numpy as np
 
 from lensdelay.lensing.lens import Lens
 
+__all__ = ["CriticalLine", "critical_lines"]
+
 
 @dataclass(frozen=True)
 class CriticalLine:

@@ -13,6 +13,13 @@ import numpy as np
 
 from lensdelay.lensing.distances import DAYS_PER_MPC_ARCSEC2
 
+__all__ = [
+    "fermat_to_days",
+    "delays_relative_to",
+    "delay_scale",
+    "fermat_difference_to_days",
+]
+
 
 def fermat_to_days(fermat_arcsec2, time_delay_distance_mpc, kappa_ext=0.0):
     """Arrival time in days for Fermat potential(s) in arcsec² and D_dt in Mpc."""

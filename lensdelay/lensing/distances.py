@@ -30,6 +30,14 @@ from scipy.interpolate import CubicSpline
 
 from lensdelay.errors import InputError
 
+__all__ = [
+    "DAYS_PER_MPC_ARCSEC2",
+    "LensDistances",
+    "DelayDistanceTable",
+    "time_dilation",
+]
+
+
 #: Days of delay per (Mpc of D_dt) per (arcsec² of Fermat potential):
 #: (1 Mpc / c) · (π / 648000)², from the definition t = D_dt τ / c.
 DAYS_PER_MPC_ARCSEC2: float = float(

@@ -26,6 +26,23 @@ from lensdelay.errors import InputError
 from lensdelay.lensing import compiled
 from lensdelay.lensing.lens import Lens
 
+__all__ = [
+    "SOURCE_TOLERANCE",
+    "SINGULAR_EXCLUSION",
+    "NONLINEAR",
+    "MERGE_TOLERANCE",
+    "UNRESOLVED",
+    "CRITICAL",
+    "ImageTable",
+    "newton_polish",
+    "ImageFinder",
+    "keep_distinct_tracks",
+    "as_arcsec",
+    "find_images",
+    "find_images_at_scales",
+]
+
+
 #: An image is accepted when it maps back to its source within this (arcsec).
 SOURCE_TOLERANCE = 1e-10
 #: Roots closer than this (arcsec) to a singular centre are dropped.

@@ -16,6 +16,9 @@ import numpy as np
 from lensdelay.lensing import compiled
 from lensdelay.lensing.profiles import MassProfile
 
+__all__ = ["PARITIES", "BLOCK_POINTS", "Lens"]
+
+
 PARITIES = ("minimum", "saddle", "maximum", "critical")
 #: Points per block when a large evaluation with scalar parameters is split up: numpy makes
 #: a temporary array per operation, and blocks this size keep them in the CPU cache

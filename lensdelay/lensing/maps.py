@@ -10,6 +10,9 @@ from __future__ import annotations
 
 import numpy as np
 
+__all__ = ["LENS_QUANTITIES", "lens_maps"]
+
+
 #: The maps a lens gives, with their units (FITS BUNIT strings) and meanings.
 LENS_QUANTITIES = {
     "convergence": ("", "convergence kappa (Sigma / Sigma_cr)"),

@@ -11,6 +11,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+__all__ = ["FLUX_ZERO_POINT", "LightCurves"]
+
+
 #: Zero point of the relative fluxes the supernova model uses: F = 10^(−0.4 (m − ZP)).
 FLUX_ZERO_POINT = 25.0
 

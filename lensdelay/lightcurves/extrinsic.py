@@ -32,6 +32,9 @@ from scipy import linalg
 
 from lensdelay.errors import InputError
 
+__all__ = ["FAMILIES", "MAX_COLUMNS", "Extrinsic"]
+
+
 FAMILIES = ("polynomial", "spline", "slow-gp")
 #: At most this many columns per image and band: a finer spline or inducing grid over a
 #: long campaign would make each likelihood cost grow as its square for little gain (the

@@ -18,9 +18,28 @@ import numpy as np
 from scipy import stats
 
 from lensdelay.errors import InputError
-from lensdelay.inference.sampling import potential_scale_reduction
+from lensdelay.inference.sampling import integrated_time, potential_scale_reduction
 from lensdelay.inference.summaries import quantile_summary
 from lensdelay.lightcurves.search import MIN_OVERLAP_POINTS
+
+__all__ = [
+    "SUPERNOVA_MEASURABLE_SHARE",
+    "SUPERNOVA_MIN_OVERLAP_SHARE",
+    "CROSS_CHECK_OVERLAP",
+    "BOUND_MARGIN",
+    "DELAY_MAX_RHAT",
+    "RUN_ON_FACTOR",
+    "MIN_TAU_LENGTHS",
+    "MAX_WIDENING",
+    "ImageDelay",
+    "MeasuredDelays",
+    "dispersion_delay",
+    "overlap",
+    "measure_delays",
+    "chain_verdicts",
+    "QUASAR_RATIO_DRAWS",
+]
+
 
 #: A delay whose 95% interval is wider than this share of the searched range is not
 #: reported as a measurement.
@@ -104,6 +123,20 @@ class MeasuredDelays:
     model: object = field(default=None, repr=False)
     curves: object = field(default=None, repr=False)
     provenance: dict | None = None
+
+    def __repr__(self) -> str:
+        rows = ", ".join(
+            f"{im.label}: {im.delay_days['median']:+.1f} d" if im.measurable else f"{im.label}: -"
+            for im in self.images
+        )
+        family = f"family {self.family}" if self.family else "the curves"
+        return f"<MeasuredDelays of {family} after {self.reference} ({self.kind}): {rows}>"
+
+    def report(self) -> str:
+        """The text the command line prints."""
+        from lensdelay.report.text import delays_text
+
+        return delays_text(self)
 
     def image(self, label: str) -> ImageDelay:
         """The image called ``label``."""
@@ -500,14 +533,12 @@ def chain_verdicts(chain: np.ndarray, steps: int, walkers: int) -> list[str]:
 
     ``chain`` holds the delays after burn-in, (steps, walkers, n_delays).
     """
-    import emcee
-
     rhat = potential_scale_reduction(chain)
     out = []
     advice = f"run longer (--steps, now {steps}) or with more walkers (--walkers, now {walkers})"
     for i in range(chain.shape[2]):
         x = chain[:, :, i]
-        tau = float(emcee.autocorr.integrated_time(x[:, :, None], quiet=True)[0])
+        tau = float(integrated_time(x[:, :, None])[0])
         spread = x.std(axis=1)
         tenth = max(len(spread) // 10, 1)
         early, late = float(np.mean(spread[:tenth])), float(np.mean(spread[-tenth:]))

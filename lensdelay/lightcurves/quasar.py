@@ -32,6 +32,9 @@ from scipy import linalg, optimize
 from lensdelay.errors import InputError
 from lensdelay.lightcurves.extrinsic import Extrinsic
 
+__all__ = ["OFFSET_PRIOR_MAG", "TREND_PRIOR_MAG", "QuasarDelayModel"]
+
+
 #: Prior 1-σ of each image's magnitude offset and of its higher polynomial coefficients
 #: (mag over half the data span): broad, so the data decide.
 OFFSET_PRIOR_MAG = 10.0

@@ -42,6 +42,42 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import logsumexp
 
+__all__ = [
+    "MIN_SHARED_LN_ODDS",
+    "MIN_OVERLAP_SHARE",
+    "MIN_OVERLAP_POINTS",
+    "COARSE_STEP",
+    "COARSE_POINTS",
+    "FINE_STEP",
+    "FINE_THRESHOLD",
+    "MAX_REFINED",
+    "PairScan",
+    "overlap_counts",
+    "admitted",
+    "admitted_range",
+    "pair_likelihood",
+    "scan_pair",
+    "AMPLITUDES",
+    "MODEL_SPREAD_LN_Z",
+    "season_length",
+    "extrinsic_models",
+    "ModelScan",
+    "scan_models",
+    "averaged_scan",
+    "model_spread",
+    "MEASURABLE_SHARE",
+    "PRIOR_SHARE",
+    "POOR_FIT_P",
+    "MAX_SCALE",
+    "PairResult",
+    "QuasarSearch",
+    "search_quasar",
+    "network",
+    "intrinsic_share",
+    "simulation_errors",
+]
+
+
 #: A delay needs the curves to share variability: the log Bayes factor of one source seen
 #: twice against two independent curves at least this (odds of 20 to 1; Kass & Raftery
 #: 1995, JASA 90, 773, section 3.2: "strong" from 20).

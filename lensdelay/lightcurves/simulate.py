@@ -12,6 +12,16 @@ import numpy as np
 
 from lensdelay.lightcurves.curves import FLUX_ZERO_POINT, LightCurves
 
+__all__ = [
+    "damped_random_walk",
+    "seasonal_epochs",
+    "simulate_quasar",
+    "bazin_flux",
+    "simulate_supernova",
+    "matern32_process",
+    "smooth_drift",
+]
+
 
 def damped_random_walk(times, sigma: float, tau: float, rng) -> np.ndarray:
     """One realisation at ``times`` (any order) of a zero-mean DRW of rms σ and time τ."""

@@ -21,6 +21,9 @@ from scipy import optimize
 
 from lensdelay.lightcurves.simulate import bazin_flux
 
+__all__ = ["CHROMATIC_PRIOR", "MODEL_ERROR_RANGE", "SupernovaDelayModel"]
+
+
 #: Prior 1-σ of a chromatic microlensing term, ln flux (≈ 0.1 mag).
 CHROMATIC_PRIOR = 0.1
 #: Range of the fractional model error f.

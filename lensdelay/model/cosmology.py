@@ -13,6 +13,16 @@ from astropy.cosmology import FLRW, FlatLambdaCDM
 
 from lensdelay.errors import InputError, choices_text
 
+__all__ = [
+    "DEFAULT_COSMOLOGY",
+    "NAMED_REALISATIONS",
+    "cosmology_from_spec",
+    "COSMOLOGY_CLASSES",
+    "cosmology_from_class",
+    "describe_cosmology",
+]
+
+
 #: The cosmology used when a scenario names none: flat ΛCDM with H0 = 70 km/s/Mpc,
 #: Om0 = 0.3 and no radiation (a round "concordance" choice, common practice).
 DEFAULT_COSMOLOGY = FlatLambdaCDM(H0=70.0, Om0=0.3, Tcmb0=0.0, name="flat-LCDM-70-0.3")

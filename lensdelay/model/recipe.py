@@ -19,6 +19,28 @@ from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles.stack import ProfileStack
 from lensdelay.lensing.profiles import PROFILES, MassProfile
 
+__all__ = [
+    "DEFAULT_BOUNDS",
+    "PERIODIC",
+    "ModelParameter",
+    "ComponentRecipe",
+    "MEMBER_SCALED",
+    "MemberGroup",
+    "MassModel",
+    "parse_parameter",
+    "parse_mass_entries",
+    "SLOPE_PRIOR",
+    "SLOPE_BOUNDS",
+    "SHEAR_MAX",
+    "SHEAR_PRIOR",
+    "MULTIPOLE_PRIOR",
+    "AXIS_RATIO_PRIOR",
+    "default_galaxy_recipe",
+    "MEMBER_KEYS",
+    "parse_member_parameters",
+]
+
+
 #: Default search bounds for free parameters, by parameter name (arcsec, degrees).
 DEFAULT_BOUNDS = {
     "einstein_radius": (1e-3, 100.0),

@@ -34,6 +34,25 @@ from lensdelay.model.recipe import (
     parse_parameter,
 )
 
+__all__ = [
+    "MAX_DATE_SIGMA_DAYS",
+    "MANY_MEMBERS",
+    "MEMBER_STEP_SECONDS",
+    "ImageObs",
+    "Family",
+    "LensLight",
+    "Transient",
+    "MeasuredDelay",
+    "Site",
+    "Scenario",
+    "parse_date",
+    "MIN_REDSHIFT_GAP",
+    "TOP_KEYS",
+    "MEMBERS_KEYS",
+    "parse_scenario",
+    "values_in_unit",
+]
+
 
 #: The largest 1-σ error of a date the tool accepts (detection, alert or sighting): ten
 #: years; a date known worse than that is no date to forecast from.
@@ -43,6 +62,7 @@ MAX_DATE_SIGMA_DAYS = 3650.0
 #: 3.5 ms per member per step with 40 images).
 MANY_MEMBERS = 500
 MEMBER_STEP_SECONDS = 3.5e-3
+
 
 @dataclass(frozen=True)
 class ImageObs:
@@ -383,8 +403,7 @@ def _parse_members(raw, load_table, sky) -> MemberGroup:
     for i in ids:
         if i in seen_ids:
             raise InputError(
-                f"members.catalogue {ref!r} column 'id' must name each member once, got "
-                f"{i!r} twice"
+                f"members.catalogue {ref!r} column 'id' must name each member once, got {i!r} twice"
             )
         seen_ids.add(i)
     if "x" in columns and "y" in columns:

@@ -12,6 +12,8 @@ import numpy as np
 from lensdelay.lensing.images import find_images
 from lensdelay.lensing.lens import Lens
 
+__all__ = ["simulate_family", "to_toml"]
+
 
 def simulate_family(
     lens: Lens,

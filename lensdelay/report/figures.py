@@ -12,6 +12,25 @@ from matplotlib.patches import Circle
 
 from lensdelay.dates import far_dates_allowed
 
+__all__ = [
+    "MARKERS",
+    "PALETTE",
+    "FIGURE_STYLE",
+    "styled",
+    "sky_figure",
+    "residual_figure",
+    "PARAMETER_WORDS",
+    "parameter_label",
+    "corner_figure",
+    "timeline_figure",
+    "budget_figure",
+    "CURVE_AXES",
+    "MAX_CURVE_ROWS",
+    "hubble_curves_figure",
+    "h0_figure",
+    "light_curves_figure",
+]
+
 
 MARKERS = {"minimum": "o", "saddle": "s", "maximum": "^"}
 #: The project's colours (ours; distinct in greyscale by lightness where it matters): ink

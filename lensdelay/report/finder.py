@@ -21,6 +21,19 @@ from matplotlib.patches import Ellipse
 
 from lensdelay.report.figures import MARKERS, PALETTE, styled
 
+__all__ = [
+    "CRITICAL_STYLE",
+    "CAUSTIC_STYLE",
+    "CONTOUR_COLOUR",
+    "PREDICTED_COLOUR",
+    "OBSERVED_COLOUR",
+    "offset_wcs",
+    "finder_chart",
+    "LABEL_OFFSETS",
+    "region_text",
+]
+
+
 #: Line styles and shades of the chart (ours; dark enough for greyscale printing).
 CRITICAL_STYLE = {"color": PALETTE[1], "ls": "-", "lw": 1.1}
 CAUSTIC_STYLE = {"color": PALETTE[1], "ls": (0, (3, 2)), "lw": 0.9}
@@ -251,9 +264,7 @@ def _place_labels(fig, ax, labels) -> None:
             )
             box = note.get_window_extent(renderer).expanded(1.05, 1.15)
             overlap = sum(_overlap(box, other) for other in placed) + sum(
-                float(box.contains(px, py)) * 50.0
-                for j, (px, py) in enumerate(points)
-                if j != k
+                float(box.contains(px, py)) * 50.0 for j, (px, py) in enumerate(points) if j != k
             )
             if best is None or overlap < best[0]:
                 if best is not None:

@@ -14,6 +14,9 @@ import html
 
 from lensdelay.cautions import CAUTION
 
+__all__ = ["FIGURES", "STYLE", "report_html"]
+
+
 #: Figures the page shows, in order, with a caption each (file stem -> caption).
 FIGURES = {
     "sky": "Finder chart: observed and predicted images with their 68% and 95% error "

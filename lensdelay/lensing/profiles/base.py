@@ -28,6 +28,18 @@ import numpy as np
 
 from lensdelay.errors import InputError
 
+__all__ = [
+    "RADIUS_FLOOR",
+    "PROFILES",
+    "rules_trusted",
+    "rule_holds_between",
+    "param",
+    "MassProfile",
+    "EllipticalProfile",
+    "AxisymmetricProfile",
+]
+
+
 #: Radii below this (arcsec) are treated as this, so that singular profiles give
 #: large but finite numbers at their centre instead of NaN.
 RADIUS_FLOOR = 1e-12

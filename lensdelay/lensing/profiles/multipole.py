@@ -8,6 +8,8 @@ import numpy as np
 
 from lensdelay.lensing.profiles.base import RADIUS_FLOOR, MassProfile, param
 
+__all__ = ["IsothermalMultipole"]
+
 
 @dataclass(frozen=True, kw_only=True)
 class IsothermalMultipole(MassProfile):

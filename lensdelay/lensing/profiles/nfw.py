@@ -8,6 +8,9 @@ import numpy as np
 
 from lensdelay.lensing.profiles.base import AxisymmetricProfile, param
 
+__all__ = ["NFWHalo"]
+
+
 # Below |u − 1| < _NEAR_ONE the closed forms lose digits to cancellation; use the
 # Taylor series about u = 1 instead (coefficients derived symbolically).
 _NEAR_ONE = 1e-4

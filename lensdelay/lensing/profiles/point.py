@@ -8,6 +8,8 @@ import numpy as np
 
 from lensdelay.lensing.profiles.base import AxisymmetricProfile, param
 
+__all__ = ["PointMass"]
+
 
 @dataclass(frozen=True, kw_only=True)
 class PointMass(AxisymmetricProfile):

@@ -9,6 +9,9 @@ import numpy as np
 from lensdelay.errors import InputError
 from lensdelay.lensing.profiles.base import RADIUS_FLOOR, EllipticalProfile, param
 
+__all__ = ["MIN_AXIS_RATIO", "EllipticalPowerLaw"]
+
+
 #: Smallest axis ratio of the power law (see the check in ``__post_init__``).
 MIN_AXIS_RATIO = 0.01
 

@@ -8,6 +8,8 @@ import numpy as np
 
 from lensdelay.lensing.profiles.base import MassProfile, param
 
+__all__ = ["ExternalShear"]
+
 
 @dataclass(frozen=True, kw_only=True)
 class ExternalShear(MassProfile):

@@ -8,6 +8,9 @@ import numpy as np
 
 from lensdelay.lensing.profiles.base import RADIUS_FLOOR, EllipticalProfile, param
 
+__all__ = ["IsothermalEllipsoid"]
+
+
 #: Below this ellipticity e = sqrt(1 − q²), arctan(e z)/e and arctanh(e z)/e are
 #: taken from their Taylor series, so the profile is exact and finite at q → 1.
 _ROUND = 1e-4

@@ -8,6 +8,8 @@ import numpy as np
 
 from lensdelay.lensing.profiles.base import AxisymmetricProfile, param
 
+__all__ = ["SingularIsothermalSphere"]
+
 
 @dataclass(frozen=True, kw_only=True)
 class SingularIsothermalSphere(AxisymmetricProfile):

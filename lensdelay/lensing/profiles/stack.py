@@ -14,6 +14,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+__all__ = ["CHUNK_VALUES", "ProfileStack"]
+
+
 #: Most values (members × points) evaluated at once.
 CHUNK_VALUES = 2_000_000
 

@@ -10,6 +10,8 @@ from lensdelay.errors import InputError
 from lensdelay.lensing.profiles.base import EllipticalProfile, param
 from lensdelay.lensing.profiles.sie import IsothermalEllipsoid
 
+__all__ = ["TruncatedIsothermal"]
+
 
 @dataclass(frozen=True, kw_only=True)
 class TruncatedIsothermal(EllipticalProfile):
