@@ -602,3 +602,20 @@ def test_bounded_gaussian_priors_are_perturbed_within_their_bounds():
     # an unbounded prior row (the lens-light centre) keeps its normal draws
     centre = columns[like.names[next(iter(like.centre_prior))]]
     assert noise[:, centre].min() < -3.0
+
+
+def test_every_job_judges_a_poor_fit_alike():
+    """fit (with and without sampling), maps and the fit-then-sample sequence of forecast,
+    hubble and prepare give a poor fit the same model error (issue 29, item 3)."""
+    from lensdelay.api import fit_scenario
+    from lensdelay.inference.sampling import fit_and_sample
+
+    sc = _satellite_quad(0.2)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        sequence, _ = fit_and_sample(ImageLikelihood(sc, sc.model), sample=False, fit_seed=1)
+    alone = fit_scenario(sc, seed=1)
+    sampled = fit_scenario(sc, seed=1, sample=True, walkers=16, steps=60)
+    floors = [r.model_error.floor_arcsec for r in (sequence, alone.fit, sampled.fit)]
+    assert floors[0] > 0 and floors == pytest.approx([floors[0]] * 3, rel=1e-12)
+    assert "model error" in alone.report()

@@ -188,10 +188,12 @@ def mix_modes(like, result, chains: list, chi2s: list[float]):
         chain=np.concatenate(values, axis=1),
         log_prob=np.concatenate(logp, axis=1),
         acceptance=np.concatenate(accepted),
-        autocorr=np.nanmax([np.asarray(ch.autocorr, dtype=float) for ch, _ in parts], axis=0),
+        # the worst of the modes' chains per parameter (fmax: NaN only where all are NaN,
+        # without numpy's all-NaN warning)
+        autocorr=np.fmax.reduce([np.asarray(ch.autocorr, dtype=float) for ch, _ in parts]),
         burn=int(burn),
         thin=int(max(ch.thin for ch, _ in parts)),
-        rhat=np.nanmax([np.asarray(ch.rhat, dtype=float) for ch, _ in parts], axis=0),
+        rhat=np.fmax.reduce([np.asarray(ch.rhat, dtype=float) for ch, _ in parts]),
         warnings=list(dict.fromkeys([w for ch, _ in parts for w in ch.warnings] + notes)),
     )
     return mixed, shares, notes
