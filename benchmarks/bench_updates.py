@@ -31,7 +31,7 @@ import bench_fit  # noqa: E402  (the calibration quad)
 from lensdelay.errors import LensdelayWarning  # noqa: E402
 from lensdelay.inference.fit import fit  # noqa: E402
 from lensdelay.forecast.samples import ForecastSettings, image_tracks, solve_samples  # noqa: E402
-from lensdelay.forecast.pipeline import condition_on_timing  # noqa: E402
+from lensdelay.forecast.update import condition_on_timing  # noqa: E402
 from lensdelay.inference.likelihood import ImageLikelihood  # noqa: E402
 from lensdelay.inference.sampling import sample  # noqa: E402
 from lensdelay.model.scenario import parse_scenario  # noqa: E402

@@ -203,7 +203,7 @@ def test_conditional_perturbation_follows_gaussian_conditioning():
     """P | y for P ~ N(0, Σ), y = A(T + P) + ε (Rasmussen & Williams 2006, eq. A.6):
     with one delay C − A measured, P_C is pulled to the residual by Σ_CC/(Σ_CC + σ²), the
     correlated P_D by Σ_DC/(Σ_CC + σ²), and the reference's stays 0."""
-    from lensdelay.forecast.pipeline import draw_conditional_perturbations
+    from lensdelay.forecast.update import draw_conditional_perturbations
     from lensdelay.forecast.samples import ImageTrack, ModelSamples
     from lensdelay.inference.timing import TimingData
     from lensdelay.model.scenario import MeasuredDelay

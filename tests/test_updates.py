@@ -27,7 +27,8 @@ from lensdelay.forecast.samples import image_tracks
 from lensdelay.io.forecast_files import day_of, median_day
 from lensdelay.report.text import forecast_text
 from lensdelay.api import forecast_scenario as run_forecast
-from lensdelay.forecast.pipeline import _status, parse_sightings
+from lensdelay.forecast.combine import image_status
+from lensdelay.forecast.sightings import parse_sightings
 from lensdelay.lensing.lens import Lens
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.io.reading import load_scenario
@@ -270,7 +271,7 @@ def test_seen_in_the_last_image_of_a_quad_gives_archival_advice(tmp_path):
 )
 def test_status_definitions(seen, q, now, agreement, expected):
     """The statuses as docs/statistics.md defines them."""
-    assert _status(seen, {"p2.5": q[0], "p97.5": q[1]}, now, agreement) == expected
+    assert image_status(seen, {"p2.5": q[0], "p97.5": q[1]}, now, agreement) == expected
 
 
 # -- the probability model itself ---------------------------------------------------------

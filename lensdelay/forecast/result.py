@@ -19,7 +19,28 @@ from astropy.time import Time
 from lensdelay.dates import allows_far_dates
 from lensdelay.forecast.positions import PositionEllipse
 
-__all__ = ["ImageSampleSet", "ImageForecast", "Forecast"]
+__all__ = [
+    "STATUS_MEANINGS",
+    "TENSION_CAUSES",
+    "ImageSampleSet",
+    "ImageForecast",
+    "Forecast",
+]
+
+
+#: What each status means (docs/statistics.md: "Statuses"); printed under the table.
+STATUS_MEANINGS = {
+    "seen": "the event was observed in this image (the detection or a reported sighting)",
+    "past": "its whole 95% window is over as of now: search archives",
+    "uncertain": "fewer than 95% of samples agree whether it leads or trails the reference image",
+    "now": "now lies inside its 95% window: observe",
+    "future": "its whole 95% window lies ahead",
+}
+#: The usual causes of a measurement in tension with the forecast, printed with the warning.
+TENSION_CAUSES = (
+    "a mass model too simple for this lens, a nearby galaxy or group not in the model, "
+    "microlensing distorting the light curve, or a wrong image identification"
+)
 
 
 @dataclass(frozen=True)

@@ -14,7 +14,7 @@ from lensdelay.dates import allows_far_dates
 from lensdelay.model.cosmology import describe_cosmology
 from lensdelay.cautions import CAUTION
 from lensdelay.inference.summaries import quantile_summary
-from lensdelay.forecast.pipeline import STATUS_MEANINGS
+from lensdelay.forecast.result import STATUS_MEANINGS
 
 __all__ = [
     "instant",

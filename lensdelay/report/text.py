@@ -6,7 +6,7 @@ import numpy as np
 
 from lensdelay.cautions import CAUTION
 from lensdelay.inference.summaries import quantile_summary
-from lensdelay.forecast.pipeline import STATUS_MEANINGS, TENSION_CAUSES
+from lensdelay.forecast.result import STATUS_MEANINGS, TENSION_CAUSES
 from lensdelay.io.forecast_files import (
     instant,
     iso_utc,
