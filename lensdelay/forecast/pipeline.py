@@ -9,31 +9,28 @@ Takes :class:`~lensdelay.model.scenario.Scenario` objects (reading files is for
 from __future__ import annotations
 
 import sys
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 from astropy import units as u
 from astropy.time import Time
 
 from lensdelay.model.cosmology import cosmology_from_spec, describe_cosmology
-from lensdelay.errors import FitError, InputError, choices_text
+from lensdelay.errors import FitError, InputError
+from lensdelay.forecast.request import ForecastRequest
 from lensdelay.forecast.result import Forecast
 from lensdelay.forecast.samples import (
-    check_sample_count,
-    ForecastSettings,
     TimingUpdate,
     draw_scale_priors,
     image_tracks,
     mode_notes,
-    WEIGHTINGS,
     model_weights,
     solve_samples,
 )
 from lensdelay.inference.fit import ScenarioFit
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.priors import check_kappa_prior
-from lensdelay.inference.sampling import check_sampler_settings, fit_and_sample, int_seed
-from lensdelay.model.scenario import Scenario, Site
+from lensdelay.inference.sampling import fit_and_sample, int_seed
+from lensdelay.model.scenario import Scenario
 from lensdelay.forecast.observability import build_calendar
 from lensdelay.forecast.combine import (
     MAX_OFFSET_DAYS,
@@ -46,7 +43,6 @@ from lensdelay.forecast.combine import (
 from lensdelay.forecast.sightings import parse_sightings, resolve_sightings, timing_for
 from lensdelay.forecast.update import condition_on_timing, draw_t0
 from lensdelay.forecast.perturbers import (
-    PerturberPopulation,
     perturber_notes,
     perturber_response,
 )
@@ -59,39 +55,23 @@ __all__ = [
 
 def run_forecast(
     scenarios,
+    request: ForecastRequest | None = None,
     *,
-    n_samples=20000,
-    seed=1,
-    h0=None,
-    cosmology_name=None,
-    kappa_ext=None,
-    microlensing=None,
-    depth=None,
-    unseen=None,
-    weighting="bic",
-    seen=None,
-    site: Site | None = None,
-    walkers=32,
-    steps=2000,
-    now: Time | None = None,
     progress=False,
-    prior="flat",
     stop=None,
     prepared=None,
-) -> dict:
+    **options,
+) -> Forecast:
     """Run the whole forecast; see :mod:`lensdelay.inference.timing` for the probability model.
 
     Parameters
     ----------
     scenarios : Scenario or sequence of Scenario
         The observations, once per mass model to combine (the same scenario with each
-        model: :func:`lensdelay.api.forecast` builds them from files).
-    seen : sequence of str, optional
-        Sightings ``[FAMILY/]LABEL=DATE[±SIGMA]`` (:func:`parse_sightings`).
-    unseen : (float, float) or PerturberPopulation, optional
-        The unseen perturbers marginalised (:mod:`lensdelay.forecast.perturbers`): their
-        share of the convergence f_sub and the detection limit in solar masses (f_sub 0
-        turns the term off), or a whole population; default f_sub 0.01 up to 10¹⁰ M☉.
+        model: :func:`lensdelay.api.forecast_scenario` builds them from files).
+    request : ForecastRequest, optional
+        What is asked for (samples, seed, priors, sightings, now, site, sampler); built
+        from ``options`` (:meth:`ForecastRequest.from_options`) when not given.
     progress : bool
         Show progress bars (off by default: the library is silent).
     stop : lensdelay.inference.sampling.StopRequest, optional
@@ -99,11 +79,13 @@ def run_forecast(
     prepared : sequence of lensdelay.forecast.prepared.PreparedLens, optional
         One per scenario: its fit and posterior are used instead of fitting and sampling
         (the stages' seeds are consumed all the same, so the rest repeats a forecast that
-        fitted; the prepared lens's own seed should equal ``seed`` for that).
-    Other parameters are those of ``lensdelay forecast`` (docs/commands.md).
+        fitted; the prepared lens's own seed should equal the request's for that).
     """
+    if request is None:
+        request = ForecastRequest.from_options(**options)
+    elif options:
+        raise InputError(f"options must be given in the request, got {sorted(options)[0]!r}")
     scenarios = [scenarios] if isinstance(scenarios, Scenario) else list(scenarios)
-    check_sampler_settings(walkers, steps, seed)
     if not scenarios:
         raise InputError("scenarios must hold at least one scenario, got none")
     sc0 = scenarios[0]
@@ -113,108 +95,178 @@ def run_forecast(
             "and date), got nothing",
             sc0.source,
         )
-    settings = ForecastSettings()
-    if cosmology_name is not None:
-        cosmo = cosmology_from_spec({"name": cosmology_name})
+    if request.cosmology_name is not None:
+        cosmo = cosmology_from_spec({"name": request.cosmology_name})
         scenarios = [replace(s, cosmology=cosmo) for s in scenarios]
-        settings = replace(settings, h0_prior=None)  # a named cosmology means its own H0
-    if h0 is not None:
-        if not h0[1] > 0:
-            raise InputError(f"h0 sigma must be > 0, got {h0[1]:g}")
-        if not 10 <= h0[0] <= 200:
-            raise InputError(f"h0 mean must be between 10 and 200 km/s/Mpc, got {h0[0]:g}")
-        settings = replace(settings, h0_prior=(float(h0[0]), float(h0[1])))
-    if kappa_ext is not None:
-        settings = replace(settings, kappa_ext=check_kappa_prior(*kappa_ext))
-    if microlensing is not None:
-        if microlensing < 0:
-            raise InputError(f"microlensing must be >= 0 mag, got {microlensing:g}")
-        settings = replace(settings, microlensing_mag=float(microlensing))
-    if depth is not None:
-        settings = replace(settings, depth=float(depth))
-    if unseen is not None:
-        settings = replace(settings, perturbers=_population(unseen))
-    check_sample_count(n_samples)
-    if weighting not in WEIGHTINGS:
-        raise InputError(f"weighting must be one of {choices_text(WEIGHTINGS)}, got {weighting!r}")
     tr = sc0.transient
-    sightings = parse_sightings(seen, sc0)
-    settings = replace(
-        settings,
-        n_samples=int(n_samples),
-        seed=int(seed),
-        weighting=weighting,
-        model_prior=prior,
-        sightings=tuple(sightings),
-    )
-    now = Time.now() if now is None else now
+    sightings = parse_sightings(request.seen, sc0)
+    settings = request.settings(sightings)
+    now = Time.now() if request.now is None else request.now
     for s in sightings:
         if s.date > now:
             raise InputError(
                 f"seen {s.family}/{s.label} date must not be after now ({now.isot[:19]}Z: a "
                 f"sighting has happened; set --now for another day), got {s.date.isot[:19]}Z"
             )
-    site = site or sc0.site
-    # one seed for the whole run: every stage draws from its own child of it
-    root_seed = np.random.SeedSequence(seed)
-    stage_seeds = iter(root_seed.spawn(4 * len(scenarios) + 2))
-    perturber_seeds = iter(root_seed.spawn(len(scenarios)))  # children after the stages
-    n = settings.n_samples
-    likes = []
-    models, prior_models, updates, fits, chains, notes_per_model, timings = (
-        [],
-        [],
-        [],
-        [],
-        [],
-        [],
-        [],
-    )
-    first_tracks = None
-    stages = _stage_display(progress, 2 * len(scenarios) + 1)
+    site = request.site or sc0.site
     if prepared is not None and len(prepared) != len(scenarios):
         raise InputError(
             f"prepared must hold one prepared lens per scenario ({len(scenarios)}), "
             f"got {len(prepared)}"
         )
+    # one seed for the whole run: every stage draws from its own child of it
+    root_seed = np.random.SeedSequence(request.seed)
+    stage_seeds = iter(root_seed.spawn(4 * len(scenarios) + 2))
+    perturber_seeds = iter(root_seed.spawn(len(scenarios)))  # children after the stages
+    stages = _stage_display(progress, 2 * len(scenarios) + 1)
+    run = _Run(request, settings, sightings, stage_seeds, perturber_seeds, stages, progress, stop)
+    per_model = []
     for k, sc in enumerate(scenarios):
-        fit_seed, sample_seed = next(stage_seeds), next(stage_seeds)
+        first = per_model[0].tracks if per_model else None
+        per_model.append(run.model(sc, None if prepared is None else prepared[k], first))
+    updates = [m.update for m in per_model]
+    fits = [m.fit for m in per_model]
+    if not any(np.isfinite(u_.log_evidence) for u_ in updates):
+        raise InputError(
+            "the sightings and measured delays must be possible under at least one model "
+            "(each names images the model has), got none",
+            sc0.source,
+        )
+    acceptable = [not f.quality()["poor"] for f in fits]  # poor includes a model error
+    bics = [f.bic for f in fits]
+    w_model = model_weights(
+        bics, [u_.log_evidence for u_ in updates], settings.weighting, acceptable
+    )
+    w_prior = model_weights(bics, np.zeros(len(fits)), settings.weighting, acceptable)
+    best = per_model[int(np.argmax(w_model))]
+    view = _finder_view(best.scenario, best.likelihood, best.fit, tr, per_model[0].tracks)
+    prior_models = [m.prior_model for m in per_model]
+    tension_rows = measurement_tensions(
+        [m.timing for m in per_model],
+        prior_models,
+        w_prior,
+        np.random.default_rng(next(stage_seeds)),
+    )
+    images, missing = summarise(
+        [m.model for m in per_model],
+        updates,
+        w_model,
+        prior_models,
+        w_prior,
+        tr,
+        settings,
+        now,
+        np.random.default_rng(next(stage_seeds)),
+        tension_rows,
+    )
+    _check_dates_reachable(images, tr, sc0.source)
+    stages("observability")
+    calendar = _observability_calendar(images, site, sc0.sky, tr, now)
+    stages(None)
+    cosmology = scenarios[0].cosmology
+    notes = [f"the best fit's image {name} exists in no sample; it is left out" for name in missing]
+    if now < tr.date:
+        notes.append(
+            f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
+            "statuses are judged as of now"
+        )
+    chains = [c for m in per_model for c in m.chains]
+    return Forecast(
+        scenario=sc0,
+        settings=settings,
+        site=site,
+        now=now,
+        images=tuple(image_forecast(e, tr.date, sc0.sky) for e in images),
+        model_labels=tuple(f.model_label for f in fits),
+        fits=tuple(fits),
+        chains=tuple(chains),
+        model_weights=w_model,
+        model_weights_positions=w_prior,
+        updates=tuple(updates),
+        model_notes=tuple(tuple(m.notes) for m in per_model),
+        timing=_timing_document(sightings, sc0.delays, per_model, settings, tension_rows),
+        notes=tuple(notes),
+        calendar=calendar,
+        cosmology=cosmology,
+        sky_view=view,
+        h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
+    )
+
+
+@dataclass
+class _ModelForecast:
+    """One model's part of a forecast: its fit, samples before and after the timing data."""
+
+    scenario: Scenario
+    likelihood: ImageLikelihood
+    fit: object
+    chains: list
+    tracks: list
+    timing: object
+    model: tuple  # (samples after the update, t0 offsets)
+    prior_model: tuple  # (samples from the positions alone, t0 offsets)
+    update: TimingUpdate
+    notes: list
+
+
+@dataclass
+class _Run:
+    """The state one forecast's models share: the request, the seeds, the display."""
+
+    request: ForecastRequest
+    settings: object
+    sightings: list
+    stage_seeds: object
+    perturber_seeds: object
+    stages: object
+    progress: object
+    stop: object
+
+    def model(self, sc, prepared, first_tracks) -> _ModelForecast:
+        """Fit (or take from ``prepared``), sample, solve and update one model.
+
+        The stage seeds are drawn in a fixed order (fit, sampling, draws, and the update's
+        when there is one), so a run repeats exactly.
+        """
+        request, settings, tr = self.request, self.settings, sc.transient
+        sampler = request.sampler
+        n = settings.n_samples
+        fit_seed, sample_seed = next(self.stage_seeds), next(self.stage_seeds)
         if prepared is not None:
-            stages(f"prepared {sc.model.label}")
-            _check_prepared_cosmology(prepared[k], sc)
+            self.stages(f"prepared {sc.model.label}")
+            _check_prepared_cosmology(prepared, sc)
             # the scenario as given here (a --cosmology replaces the prepared one): the
             # chain holds lens parameters; distances come from the cosmology in use
-            like = replace(prepared[k], scenario=sc).likelihood()
-            result, chain = prepared[k].fit, prepared[k].chain
+            like = replace(prepared, scenario=sc).likelihood()
+            result, chain = prepared.fit, prepared.chain
         else:
-            stages(f"fitting {sc.model.label}")
-            like = ImageLikelihood(sc, sc.model, prior=prior)
+            self.stages(f"fitting {sc.model.label}")
+            like = ImageLikelihood(sc, sc.model, prior=sampler.prior)
             result, chain = fit_and_sample(
                 like,
-                walkers=walkers,
-                steps=steps,
+                walkers=sampler.walkers,
+                steps=sampler.steps,
                 fit_seed=int_seed(fit_seed),
                 sample_seed=int_seed(sample_seed),
-                progress=progress,
-                stop=stop,
+                progress=self.progress,
+                stop=self.stop,
             )
-        stages(f"images and timing update, {sc.model.label}")
+        self.stages(f"images and timing update, {sc.model.label}")
         notes = list(result.notes) + list(chain.warnings)
         if result.dof <= 0:
             notes.insert(0, f"model {result.model_label!r} has {result.dof} degrees of freedom")
         tracks, track_notes = image_tracks(like, result.values, tr.family)
         notes += track_notes
         notes += mode_notes(like, result, tracks, tr.seen_in, chain.modes)
-        first_tracks = first_tracks or tracks
-        label_map = resolve_sightings(sightings, tracks, first_tracks)
-        timing, timing_notes = timing_for(sc, tracks, sightings, label_map)
+        label_map = resolve_sightings(self.sightings, tracks, first_tracks or tracks)
+        timing, timing_notes = timing_for(sc, tracks, self.sightings, label_map)
         notes += timing_notes
-        rng = np.random.default_rng(next(stage_seeds))
+        rng = np.random.default_rng(next(self.stage_seeds))
         draws = chain.samples()[rng.integers(0, len(chain.samples()), n)]
         h0_draws, kappa_draws = draw_scale_priors(settings, like.h0_ref, n, rng)
         response = perturber_response(like, result.values, tracks, settings.perturbers)
         notes += perturber_notes(response, settings.perturbers)
-        perturber_rng = np.random.default_rng(next(perturber_seeds))
+        perturber_rng = np.random.default_rng(next(self.perturber_seeds))
         prior_samples = solve_samples(
             like, draws, tracks, tr.seen_in, h0_draws, kappa_draws, response, perturber_rng
         )
@@ -223,7 +275,8 @@ def run_forecast(
                 f"the reference image {tr.seen_in} is missing in "
                 f"{100 * np.mean(~prior_samples.valid):.1f}% of samples; those samples are dropped"
             )
-        if timing is None and sightings:
+        chains = []
+        if timing is None and self.sightings:
             # this model lacks an image that was seen: the data are impossible under it
             samples, update = prior_samples, TimingUpdate("none", np.zeros(n), 0.0, -np.inf)
         else:
@@ -235,60 +288,36 @@ def run_forecast(
                 timing,
                 prior_samples,
                 settings,
-                walkers=walkers,
-                steps=steps,
-                seed=next(stage_seeds),
-                progress=progress,
-                prior=prior,
-                stop=stop,
+                walkers=sampler.walkers,
+                steps=sampler.steps,
+                seed=next(self.stage_seeds),
+                progress=self.progress,
+                prior=sampler.prior,
+                stop=self.stop,
                 perturbers=(response, perturber_rng),
             )
             if chain2 is not None:
                 chains.append(chain2)
-        t0 = draw_t0(timing, samples, tr, rng)
-        models.append((samples, t0))
-        prior_t0 = tr.date_sigma_days * rng.standard_normal(n)
-        prior_models.append((prior_samples, prior_t0))
-        updates.append(update)
-        fits.append(result)
-        likes.append((sc, like))
         chains.append(chain)
-        notes_per_model.append(notes + update.notes)
-        timings.append(timing)
-    if not any(np.isfinite(u_.log_evidence) for u_ in updates):
-        raise InputError(
-            "the sightings and measured delays must be possible under at least one model "
-            "(each names images the model has), got none",
-            sc0.source,
+        t0 = draw_t0(timing, samples, tr, rng)
+        prior_t0 = tr.date_sigma_days * rng.standard_normal(n)
+        return _ModelForecast(
+            sc,
+            like,
+            result,
+            chains,
+            tracks,
+            timing,
+            (samples, t0),
+            (prior_samples, prior_t0),
+            update,
+            notes + update.notes,
         )
-    acceptable = [not f.quality()["poor"] for f in fits]  # poor includes a model error
-    w_model = model_weights(
-        [f.bic for f in fits],
-        [u_.log_evidence for u_ in updates],
-        settings.weighting,
-        acceptable,
-    )
-    w_prior = model_weights(
-        [f.bic for f in fits], np.zeros(len(fits)), settings.weighting, acceptable
-    )
-    best = int(np.argmax(w_model))
-    view = _finder_view(*likes[best], fits[best], tr, first_tracks)
-    tension_rows = measurement_tensions(
-        timings, prior_models, w_prior, np.random.default_rng(next(stage_seeds))
-    )
-    images, missing = summarise(
-        models,
-        updates,
-        w_model,
-        prior_models,
-        w_prior,
-        tr,
-        settings,
-        now,
-        np.random.default_rng(next(stage_seeds)),
-        tension_rows,
-    )
-    # before any date is built: the time library handles years -4712..+9999 at best
+
+
+def _check_dates_reachable(images: list[dict], tr, source) -> None:
+    """Refuse dates the time library and the calendars cannot place, before any is built."""
+    # the time library handles years -4712..+9999 at best
     far = [
         im["label"]
         for im in images
@@ -300,32 +329,35 @@ def run_forecast(
             f"the dates of image(s) {', '.join(far)} lie more than {MAX_OFFSET_DAYS / 365.25:.0f} "
             "years from the detection; check the redshifts and the mass model"
         )
-    check_calendar_range(images, tr, sc0.source)
-    stages("observability")
-    calendar = None
-    if site is not None and sc0.sky is not None:
-        # cover the tails too (0.1–99.9%), so the probability counts every sample
-        wide = [weighted_quantiles(im["offsets"], im["weights"], [0.1, 99.9]) for im in images]
-        wide = [w for w in wide if np.all(np.isfinite(w))]
-        lo = min(w[0] for w in wide)
-        hi = max(w[1] for w in wide)
-        first = tr.date + (np.floor(lo) - 1) * u.day
-        n_days = int(np.ceil(hi - lo)) + 3
-        # crossings are interpolated within a step (observability.usable_time): a few
-        # minutes' step gives each night's usable time to within a minute
-        step = 2.0 if n_days <= 1200 else 5.0
-        calendar = build_calendar(site, sc0.sky, first, n_days, step_minutes=step)
-        for im in images:
-            image_observability(im, calendar, tr, now)
-    stages(None)
-    cosmology = scenarios[0].cosmology
-    notes = [f"the best fit's image {name} exists in no sample; it is left out" for name in missing]
-    if now < tr.date:
-        notes.append(
-            f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
-            "statuses are judged as of now"
-        )
-    timing_doc = {
+    check_calendar_range(images, tr, source)
+
+
+def _observability_calendar(images: list[dict], site, sky, tr, now):
+    """The site's calendar over every image's dates, each image's observability added.
+
+    None without a site or a sky position.
+    """
+    if site is None or sky is None:
+        return None
+    # cover the tails too (0.1–99.9%), so the probability counts every sample
+    wide = [weighted_quantiles(im["offsets"], im["weights"], [0.1, 99.9]) for im in images]
+    wide = [w for w in wide if np.all(np.isfinite(w))]
+    lo = min(w[0] for w in wide)
+    hi = max(w[1] for w in wide)
+    first = tr.date + (np.floor(lo) - 1) * u.day
+    n_days = int(np.ceil(hi - lo)) + 3
+    # crossings are interpolated within a step (observability.usable_time): a few
+    # minutes' step gives each night's usable time to within a minute
+    step = 2.0 if n_days <= 1200 else 5.0
+    calendar = build_calendar(site, sky, first, n_days, step_minutes=step)
+    for im in images:
+        image_observability(im, calendar, tr, now)
+    return calendar
+
+
+def _timing_document(sightings, delays, per_model, settings, tension_rows) -> dict:
+    """The timing data used and each model's update, as ``forecast.json`` records them."""
+    return {
         "sightings": [
             {
                 "family": s.family,
@@ -344,45 +376,27 @@ def run_forecast(
                 "days": d.days,
                 "sigma": d.sigma,
             }
-            for d in sc0.delays
+            for d in delays
         ],
         "models": [
             {
-                "label": f.model_label,
-                "route": up.route,
-                "effective_samples": float(up.effective_samples),
+                "label": m.fit.model_label,
+                "route": m.update.route,
+                "effective_samples": float(m.update.effective_samples),
                 "importance_effective_samples": (
                     None
-                    if up.importance_effective_samples is None
-                    else float(up.importance_effective_samples)
+                    if m.update.importance_effective_samples is None
+                    else float(m.update.importance_effective_samples)
                 ),
-                "log_evidence": float(up.log_evidence) if np.isfinite(up.log_evidence) else None,
+                "log_evidence": (
+                    float(m.update.log_evidence) if np.isfinite(m.update.log_evidence) else None
+                ),
             }
-            for f, up in zip(fits, updates)
+            for m in per_model
         ],
-        "min_effective_samples": settings.min_ess_fraction * n,
+        "min_effective_samples": settings.min_ess_fraction * settings.n_samples,
         "tensions": tension_rows,
     }
-    return Forecast(
-        scenario=sc0,
-        settings=settings,
-        site=site,
-        now=now,
-        images=tuple(image_forecast(e, tr.date, sc0.sky) for e in images),
-        model_labels=tuple(f.model_label for f in fits),
-        fits=tuple(fits),
-        chains=tuple(chains),
-        model_weights=w_model,
-        model_weights_positions=w_prior,
-        updates=tuple(updates),
-        model_notes=tuple(tuple(n) for n in notes_per_model),
-        timing=timing_doc,
-        notes=tuple(notes),
-        calendar=calendar,
-        cosmology=cosmology,
-        sky_view=view,
-        h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
-    )
 
 
 def _check_prepared_cosmology(prepared, sc) -> None:
@@ -443,24 +457,3 @@ def _stage_display(progress, total: int):
             bar.set_description(f"forecast: {name}")
 
     return next_stage
-
-
-def _population(unseen) -> PerturberPopulation:
-    """The unseen perturbers from (f_sub, detection mass) or a population as given."""
-    if isinstance(unseen, PerturberPopulation):
-        return unseen
-    try:
-        fraction, limit = (float(v) for v in unseen)
-    except (TypeError, ValueError) as err:
-        raise InputError(
-            f"unseen must be two numbers (mass fraction, detection mass in Msun), got {unseen!r}"
-        ) from err
-    if fraction == 0.0:
-        return PerturberPopulation(mass_fraction=0.0)
-    low = PerturberPopulation().mass_range[0]
-    if not limit > low:
-        raise InputError(
-            f"unseen detection mass must be above the smallest perturber mass {low:.0e} Msun, "
-            f"got {limit:g}"
-        )
-    return PerturberPopulation(mass_fraction=fraction, mass_range=(low, limit))

@@ -38,6 +38,7 @@ from lensdelay.inference.starts import AnchoredTarget, flat_anchors, randomised_
 from lensdelay.inference.backend import NpzCheckpoint
 
 __all__ = [
+    "SamplerSettings",
     "StopRequest",
     "MOVES",
     "LANGEVIN_MAX_PARAMETERS",
@@ -144,6 +145,32 @@ def check_sampler_settings(walkers: int, steps: int, seed: int) -> None:
     ):
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
             raise InputError(f"{name} must be an integer >= {low}, got {value!r}")
+
+
+@dataclass(frozen=True)
+class SamplerSettings:
+    """How a posterior is sampled: the same for fit, forecast, hubble, maps and prepare.
+
+    Validated on construction (:func:`check_sampler_settings`; ``prior`` one of
+    :data:`lensdelay.inference.likelihood.PRIOR_CHOICES`). The defaults are the ones every
+    job uses.
+    """
+
+    #: emcee walkers (at least twice the number of parameters are used).
+    walkers: int = 32
+    #: Steps per walker (a chain that has not mixed runs on, up to twice as many).
+    steps: int = 2000
+    #: The mass-model prior: flat in the recipe's parameters, or Jeffreys'.
+    prior: str = "flat"
+
+    def __post_init__(self):
+        from lensdelay.inference.likelihood import PRIOR_CHOICES
+
+        check_sampler_settings(self.walkers, self.steps, 0)
+        if self.prior not in PRIOR_CHOICES:
+            raise InputError(
+                f"prior must be one of {choices_text(PRIOR_CHOICES)}, got {self.prior!r}"
+            )
 
 
 def _data_fingerprint(like) -> str:
