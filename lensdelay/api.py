@@ -26,7 +26,7 @@ from lensdelay.forecast.result import Forecast
 from lensdelay.hubble.pipeline import HubbleResult, run_hubble
 from lensdelay.inference.fit import ScenarioFit, check_constraints, delay_errors
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import check_sampler_settings
+from lensdelay.inference.sampling import DEFAULT_SAMPLER, check_sampler_settings
 from lensdelay.inference.sampling import fit_and_sample
 from lensdelay.io import reading
 from lensdelay.io.provenance import provenance
@@ -237,13 +237,13 @@ def fit_scenario(
     use_fluxes=False,
     flux_floor=0.2,
     sample=False,
-    walkers=32,
-    steps=2000,
+    walkers=DEFAULT_SAMPLER.walkers,
+    steps=DEFAULT_SAMPLER.steps,
     seed=1,
     resume=False,
     checkpoint_dir=None,
     progress=False,
-    prior="flat",
+    prior=DEFAULT_SAMPLER.prior,
     stop=None,
 ) -> ScenarioFit:
     """Fit (and optionally sample) a scenario's mass model.
@@ -542,11 +542,11 @@ def map_scenario(
     size: float | None = None,
     pixel: float | None = None,
     samples: int = 0,
-    walkers: int = 32,
-    steps: int = 2000,
+    walkers: int = DEFAULT_SAMPLER.walkers,
+    steps: int = DEFAULT_SAMPLER.steps,
     seed: int = 1,
     progress: bool = False,
-    prior: str = "flat",
+    prior: str = DEFAULT_SAMPLER.prior,
 ) -> "LensMaps":
     """Maps of the fitted lens on a square grid (``lensdelay maps``).
 
@@ -688,10 +688,10 @@ def prepare_lens(
     scenario: PathLike,
     model: PathLike | None = None,
     *,
-    walkers: int = 32,
-    steps: int = 2000,
+    walkers: int = DEFAULT_SAMPLER.walkers,
+    steps: int = DEFAULT_SAMPLER.steps,
     seed: int = 1,
-    prior: str = "flat",
+    prior: str = DEFAULT_SAMPLER.prior,
     out: PathLike | None = None,
     progress=False,
     stop=None,
@@ -754,7 +754,7 @@ def forecast_prepared(
     if transient is not None:
         prepared = with_transient(prepared, parse_transient(transient, prepared.scenario))
     for key in ("walkers", "steps", "prior"):
-        options.setdefault(key, getattr(prepared, key))
+        options.setdefault(key, getattr(prepared.sampler, key))
     res = run_forecast([prepared.scenario], prepared=[prepared], **options)
     res = replace(res, provenance=provenance(inputs, res.cosmology, res.settings.seed))
     return replace(res, budget=delay_budget(res)) if budget else res

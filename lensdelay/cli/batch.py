@@ -351,7 +351,7 @@ def _engine(jobs, workers: int, scheduler: str | None):
 
 def run(args) -> int:
     """Forecast every system of the catalogue not forecast yet, then write the summary."""
-    from lensdelay.cli.options import output_folder, site_from_args
+    from lensdelay.cli.options import output_folder, request_options
     from lensdelay.io.storage import atomic_write_text
     from lensdelay.model.scenario import parse_date
 
@@ -367,34 +367,22 @@ def run(args) -> int:
         raise InputError(f"--workers must be at least 1, got {args.workers}")
     from astropy.time import Time
 
-    from lensdelay.forecast.samples import check_sample_count
-    from lensdelay.inference.sampling import check_sampler_settings
+    from lensdelay.forecast.request import ForecastRequest
 
+    # one 'now' for every system; when not given, the day it is part of the fingerprint
+    now = parse_date(args.now, "--now") if args.now is not None else Time.now()
+    now_key = now.isot[:19] if args.now is not None else now.isot[:10]
+    options = request_options(args, now)
+    options.pop("seed")  # each system's own seed, derived from --seed
     # settings every system shares are refused once, before any system runs
     try:
-        check_sampler_settings(args.walkers, args.steps, args.seed)
-        check_sample_count(args.samples)
+        ForecastRequest.from_options(seed=args.seed, **options)
         if args.scheduler:
             check_scheduler_address(args.scheduler)
     except InputError as err:
         from lensdelay.cli.options import with_flags
 
         raise InputError(with_flags(str(err))) from err
-    # one 'now' for every system; when not given, the day it is part of the fingerprint
-    now = parse_date(args.now, "--now") if args.now is not None else Time.now()
-    now_key = now.isot[:19] if args.now is not None else now.isot[:10]
-    options = {
-        "n_samples": args.samples,
-        "h0": args.h0,
-        "kappa_ext": args.kappa_ext,
-        "unseen": args.unseen,
-        "site": site_from_args(args),
-        "now": now,
-        "walkers": args.walkers,
-        "steps": args.steps,
-        "prior": args.prior,
-    }
-    options = {k: v for k, v in options.items() if v is not None}
     settings = {k: v for k, v in options.items() if k not in ("now", "site")}
     settings |= {"now": now_key, "site": repr(options.get("site"))}
     rows, jobs, redone = [], [], []
@@ -470,12 +458,7 @@ def run(args) -> int:
 
 def register(sub) -> None:
     """Add the ``batch`` sub-command to the parser."""
-    from lensdelay.cli.options import (
-        add_prior_argument,
-        add_site_arguments,
-        add_unseen_argument,
-        number,
-    )
+    from lensdelay.cli.options import add_request_arguments
 
     p = sub.add_parser("batch", help="forecast every system of a catalogue; rank them")
     p.add_argument("catalogue", help="folder of scenario files and/or prepared lenses")
@@ -488,17 +471,8 @@ def register(sub) -> None:
     p.add_argument(
         "--scheduler", metavar="ADDRESS", help="run on this Dask scheduler (tcp://host:port)"
     )
-    p.add_argument("--samples", type=int, default=20000, help="forecast samples (default 20000)")
-    p.add_argument("--seed", type=int, default=1, help="base seed (default 1)")
-    p.add_argument("--h0", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="H0 prior")
-    p.add_argument(
-        "--kappa-ext", nargs=2, type=number, metavar=("MEAN", "SIGMA"), help="κ_ext prior"
-    )
-    add_unseen_argument(p)
-    p.add_argument("--now", metavar="DATE", help="judge past/now/future as of this date")
-    add_site_arguments(p)  # for every system (default: each scenario's own [site])
-    p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
-    p.add_argument("--steps", type=int, default=2000, help="sampler steps (default 2000)")
-    add_prior_argument(p)
+    # the same request options as lensdelay forecast (for every system; default: each
+    # scenario's own [site])
+    add_request_arguments(p, seed_help="base seed, each system's own derived from it")
     p.add_argument("--quiet", action="store_true", help="no progress display")
     p.set_defaults(func=run)

@@ -8,12 +8,9 @@ from lensdelay.api import forecast_prepared, forecast_scenario
 from lensdelay.io.prepared_files import is_prepared
 from lensdelay.errors import InputError
 from lensdelay.cli.options import (
-    add_prior_argument,
-    add_site_arguments,
-    add_unseen_argument,
-    number,
+    add_request_arguments,
     output_folder,
-    site_from_args,
+    request_options,
     written_line,
 )
 from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
@@ -51,7 +48,21 @@ def _from_prepared(args, now):
                 f"{flag} cannot be used with a prepared lens (it was fitted with its model "
                 f"and data when prepared), got {value!r}"
             )
-    return forecast_prepared(args.scenario, args.transient, **_shared_options(args, now))
+    # a prepared lens keeps the sampler settings and prior it was drawn with
+    options = {
+        k: v
+        for k, v in request_options(args, now).items()
+        if k not in ("walkers", "steps", "prior")
+    }
+    return forecast_prepared(
+        args.scenario,
+        args.transient,
+        budget=args.budget,
+        seen=args.seen,
+        progress=not args.quiet,
+        stop=args.stop,
+        **options,
+    )
 
 
 def _from_scratch(args, now):
@@ -60,35 +71,12 @@ def _from_scratch(args, now):
         args.scenario,
         args.model,
         delays=args.delays,
-        weighting=args.weights,
-        walkers=args.walkers,
-        steps=args.steps,
-        prior=args.prior,
-        **_shared_options(args, now),
+        budget=args.budget,
+        seen=args.seen,
+        progress=not args.quiet,
+        stop=args.stop,
+        **request_options(args, now),
     )
-
-
-def _shared_options(args, now) -> dict:
-    """The options a forecast takes alike from a scenario and from a prepared lens.
-
-    (A prepared lens keeps the sampler settings and prior it was drawn with.)
-    """
-    return {
-        "budget": args.budget,
-        "n_samples": args.samples,
-        "seed": args.seed,
-        "h0": args.h0,
-        "cosmology_name": args.cosmology,
-        "kappa_ext": args.kappa_ext,
-        "microlensing": args.microlensing,
-        "unseen": args.unseen,
-        "depth": args.depth,
-        "seen": args.seen,
-        "site": site_from_args(args),
-        "progress": not args.quiet,
-        "stop": args.stop,
-        "now": now,
-    }
 
 
 def write_forecast(out, res, report: bool = False) -> tuple[dict, list[str]]:
@@ -157,38 +145,7 @@ def register(sub) -> None:
         "their covariance beside the scenario's own [[delay]] entries",
     )
     p.add_argument("--out", help="folder for forecast.json, .ecsv, .ics and the figures")
-    p.add_argument("--samples", type=int, default=20000, help="forecast samples (default 20000)")
-    p.add_argument("--seed", type=int, default=1, help="seed of every random draw (default 1)")
-    g = p.add_mutually_exclusive_group()
-    g.add_argument(
-        "--h0",
-        nargs=2,
-        type=number,
-        metavar=("MEAN", "SIGMA"),
-        help="Gaussian H0 prior, km/s/Mpc (default 70 5)",
-    )
-    g.add_argument(
-        "--cosmology", help="an astropy realisation, e.g. Planck18 (its H0 is then fixed)"
-    )
-    p.add_argument(
-        "--kappa-ext",
-        nargs=2,
-        type=number,
-        metavar=("MEAN", "SIGMA"),
-        help="external convergence prior (default 0 0.05)",
-    )
-    p.add_argument("--microlensing", type=number, help="magnitude scatter per image (default 0.3)")
-    add_unseen_argument(p)
-    p.add_argument(
-        "--depth", type=number, help="flag images fainter than this magnitude (default 25)"
-    )
-    p.add_argument(
-        "--weights",
-        default="bic",
-        help="how several --model recipes are combined: bic (default; exp(-BIC/2) times the "
-        "timing data's likelihood), acceptable (equal among recipes whose fit is acceptable, "
-        "times the timing data's likelihood) or equal",
-    )
+    add_request_arguments(p)
     p.add_argument(
         "--seen",
         action="append",
@@ -196,20 +153,6 @@ def register(sub) -> None:
         help="another image (observed or predicted, e.g. sn/X1) showed the event on DATE "
         "(ISO 8601, UTC), SIGMA days (+- also accepted); default SIGMA: the "
         "detection's date_sigma_days, or 1 day; repeat for several",
-    )
-    p.add_argument(
-        "--now",
-        metavar="DATE",
-        help="judge past/now/future as of this ISO 8601 UTC date (default: the current time)",
-    )
-    add_site_arguments(p)
-    p.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
-    add_prior_argument(p)
-    p.add_argument(
-        "--steps",
-        type=int,
-        default=2000,
-        help="sampler steps (default 2000; more when the measurements need a new sample)",
     )
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument(

@@ -229,3 +229,84 @@ def written_line(out, names, look=(), then: str = "") -> str:
     if look:
         line += "; open " + " and ".join(f"{name} ({what})" for name, what in look)
     return line + (f"; {then}" if then else "")
+
+
+def add_request_arguments(parser, *, seed_help: str = "seed of every random draw") -> None:
+    """The options of a forecast request, one builder for ``forecast`` and ``batch``.
+
+    Read back by :func:`request_options`; the defaults are the request's own
+    (:class:`lensdelay.forecast.request.ForecastRequest`).
+    """
+    parser.add_argument(
+        "--samples", type=int, default=20000, help="forecast samples (default 20000)"
+    )
+    parser.add_argument("--seed", type=int, default=1, help=f"{seed_help} (default 1)")
+    g = parser.add_mutually_exclusive_group()
+    g.add_argument(
+        "--h0",
+        nargs=2,
+        type=number,
+        metavar=("MEAN", "SIGMA"),
+        help="Gaussian H0 prior, km/s/Mpc (default 70 5)",
+    )
+    g.add_argument(
+        "--cosmology", help="an astropy realisation, e.g. Planck18 (its H0 is then fixed)"
+    )
+    parser.add_argument(
+        "--kappa-ext",
+        nargs=2,
+        type=number,
+        metavar=("MEAN", "SIGMA"),
+        help="external convergence prior (default 0 0.05)",
+    )
+    parser.add_argument(
+        "--microlensing", type=number, help="magnitude scatter per image (default 0.3)"
+    )
+    add_unseen_argument(parser)
+    parser.add_argument(
+        "--depth", type=number, help="flag images fainter than this magnitude (default 25)"
+    )
+    parser.add_argument(
+        "--weights",
+        help="how several --model recipes are combined: bic (default; exp(-BIC/2) times the "
+        "timing data's likelihood), acceptable (equal among recipes whose fit is acceptable, "
+        "times the timing data's likelihood) or equal",
+    )
+    parser.add_argument(
+        "--now",
+        metavar="DATE",
+        help="judge past/now/future as of this ISO 8601 UTC date (default: the current time)",
+    )
+    add_site_arguments(parser)
+    parser.add_argument("--walkers", type=int, default=32, help="sampler walkers (default 32)")
+    parser.add_argument(
+        "--steps",
+        type=int,
+        default=2000,
+        help="sampler steps (default 2000; more when the measurements need a new sample)",
+    )
+    add_prior_argument(parser)
+
+
+def request_options(args, now) -> dict:
+    """The forecast request's options from the parsed arguments (only those given).
+
+    ``now`` is the parsed ``--now`` (or the moment a batch judges every system at).
+    """
+    options = {
+        "n_samples": args.samples,
+        "seed": args.seed,
+        "h0": args.h0,
+        "cosmology_name": args.cosmology,
+        "kappa_ext": args.kappa_ext,
+        "microlensing": args.microlensing,
+        "unseen": args.unseen,
+        "depth": args.depth,
+        "weighting": args.weights,
+        "site": site_from_args(args),
+        "now": now,
+        "walkers": args.walkers,
+        "steps": args.steps,
+        "prior": args.prior,
+    }
+    return {k: v for k, v in options.items() if v is not None}

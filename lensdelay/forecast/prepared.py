@@ -17,7 +17,14 @@ from astropy.time import Time
 from lensdelay.errors import InputError, choices_text
 from lensdelay.inference.fit import FitResult
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import Chain, check_sampler_settings, fit_and_sample, int_seed
+from lensdelay.inference.sampling import (
+    DEFAULT_SAMPLER,
+    Chain,
+    SamplerSettings,
+    check_sampler_settings,
+    fit_and_sample,
+    int_seed,
+)
 from lensdelay.model.scenario import MAX_DATE_SIGMA_DAYS, Scenario, Transient, parse_date
 
 __all__ = [
@@ -58,6 +65,11 @@ class PreparedLens:
     steps: int
     prior: str
 
+    @property
+    def sampler(self) -> SamplerSettings:
+        """The sampler settings its chain was drawn with (a forecast from it keeps them)."""
+        return SamplerSettings(self.walkers, self.steps, self.prior)
+
     def likelihood(self) -> ImageLikelihood:
         """The likelihood as it was when the chain was drawn (model error, watch list)."""
         like = ImageLikelihood(self.scenario, self.scenario.model, prior=self.prior)
@@ -75,10 +87,10 @@ def stage_seeds(seed: int, n_models: int = 1) -> list:
 def fit_lens_ahead(
     scenario: Scenario,
     *,
-    walkers: int = 32,
-    steps: int = 2000,
+    walkers: int = DEFAULT_SAMPLER.walkers,
+    steps: int = DEFAULT_SAMPLER.steps,
     seed: int = 1,
-    prior: str = "flat",
+    prior: str = DEFAULT_SAMPLER.prior,
     progress=False,
     stop=None,
 ) -> PreparedLens:

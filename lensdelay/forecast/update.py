@@ -17,7 +17,7 @@ from lensdelay.forecast.samples import (
     track_columns,
 )
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import fit_and_sample, int_seed
+from lensdelay.inference.sampling import DEFAULT_SAMPLER, fit_and_sample, int_seed
 from lensdelay.inference.timing import TimingData
 
 __all__ = [
@@ -99,7 +99,7 @@ def condition_on_timing(
     steps,
     seed,
     progress=False,
-    prior="flat",
+    prior=DEFAULT_SAMPLER.prior,
     stop=None,
     perturbers=(None, None),
 ):

@@ -15,7 +15,12 @@ from lensdelay.errors import InputError
 from lensdelay.hubble.analysis import delay_curves, h0_posterior, kappa_comparison, pair_delays
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.priors import check_kappa_prior
-from lensdelay.inference.sampling import check_sampler_settings, fit_and_sample, int_seed
+from lensdelay.inference.sampling import (
+    DEFAULT_SAMPLER,
+    check_sampler_settings,
+    fit_and_sample,
+    int_seed,
+)
 from lensdelay.model.cosmology import cosmology_from_class, cosmology_from_spec
 from lensdelay.model.scenario import Scenario
 
@@ -28,14 +33,14 @@ def run_hubble(
     kappa_ext=(0.0, 0.05),
     om0=None,
     curves=(),
-    walkers=32,
-    steps=2000,
+    walkers=DEFAULT_SAMPLER.walkers,
+    steps=DEFAULT_SAMPLER.steps,
     seed=1,
     progress=False,
     cosmology_name=None,
     cosmology_class=None,
     class_params=None,
-    prior="flat",
+    prior=DEFAULT_SAMPLER.prior,
     stop=None,
 ) -> dict:
     """Delays against H0 and, with measured delays, the joint lens + H0 posterior.

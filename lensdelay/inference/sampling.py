@@ -39,6 +39,7 @@ from lensdelay.inference.backend import NpzCheckpoint
 
 __all__ = [
     "SamplerSettings",
+    "DEFAULT_SAMPLER",
     "StopRequest",
     "MOVES",
     "LANGEVIN_MAX_PARAMETERS",
@@ -173,6 +174,10 @@ class SamplerSettings:
             )
 
 
+#: The sampler settings every job uses unless told otherwise (defined once, here).
+DEFAULT_SAMPLER = SamplerSettings()
+
+
 def _data_fingerprint(like) -> str:
     """A short hash of what the posterior depends on: parameters, bounds, priors, data.
 
@@ -223,8 +228,8 @@ def sample(
     like,
     start: np.ndarray,
     *,
-    walkers: int = 32,
-    steps: int = 2000,
+    walkers: int = DEFAULT_SAMPLER.walkers,
+    steps: int = DEFAULT_SAMPLER.steps,
     seed: int = 1,
     checkpoint_dir: str | Path | None = None,
     resume: bool = False,
@@ -737,7 +742,7 @@ def _sample_other_modes(
 def fit_and_sample(
     like,
     *,
-    walkers: int = 32,
+    walkers: int = DEFAULT_SAMPLER.walkers,
     steps: int | Callable = 2000,
     fit_seed: int = 1,
     sample_seed: int = 1,
