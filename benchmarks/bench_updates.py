@@ -32,6 +32,7 @@ from lensdelay.errors import LensdelayWarning  # noqa: E402
 from lensdelay.inference.fit import fit  # noqa: E402
 from lensdelay.forecast.samples import ForecastSettings, image_tracks, solve_samples  # noqa: E402
 from lensdelay.forecast.update import condition_on_timing  # noqa: E402
+from lensdelay.inference.sampling import SamplerSettings  # noqa: E402
 from lensdelay.inference.likelihood import ImageLikelihood  # noqa: E402
 from lensdelay.inference.sampling import sample  # noqa: E402
 from lensdelay.model.scenario import parse_scenario  # noqa: E402
@@ -127,7 +128,15 @@ def update_calibration(
             ("s", "A"),
         )
         samples, update, _ = condition_on_timing(
-            sc, like, chain, tracks, timing, prior, settings, walkers=32, steps=steps, seed=seed + k
+            sc,
+            like,
+            chain,
+            tracks,
+            timing,
+            prior,
+            settings,
+            seed=seed + k,
+            sampler=SamplerSettings(steps=steps),
         )
         t0_draws = timing.draw_t0(samples.columns(timing), rng)
         for lab in "ACD":

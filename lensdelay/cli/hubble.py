@@ -5,7 +5,13 @@ from __future__ import annotations
 import sys
 
 from lensdelay.api import infer_h0
-from lensdelay.cli.options import Once, add_prior_argument, number, output_folder, written_line
+from lensdelay.cli.options import (
+    Once,
+    add_gaussian_prior,
+    add_prior_argument,
+    output_folder,
+    written_line,
+)
 from lensdelay.errors import InputError
 from lensdelay.io.hubble_files import curves_table_text, hubble_json
 from lensdelay.io.storage import write_output_set
@@ -86,21 +92,10 @@ def register(sub) -> None:
         "their covariance beside the scenario's own [[delay]] entries",
     )
     p.add_argument("--out", help="folder for hubble.json and the figures")
-    p.add_argument(
-        "--kappa-ext",
-        nargs=2,
-        type=number,
-        default=[0.0, 0.05],
-        metavar=("MEAN", "SIGMA"),
-        help="external convergence prior (default 0 0.05)",
+    add_gaussian_prior(
+        p, "--kappa-ext", "external convergence prior (default 0 0.05)", default=[0.0, 0.05]
     )
-    p.add_argument(
-        "--om0",
-        nargs=2,
-        type=number,
-        metavar=("MEAN", "SIGMA"),
-        help="Omega_m prior (flat LCDM; default the scenario's value ± 0.02)",
-    )
+    add_gaussian_prior(p, "--om0", "Omega_m prior (flat LCDM; default the scenario's value ± 0.02)")
     p.add_argument("--curves", help="also show delays along 'om0' and/or 'w' (comma separated)")
     p.add_argument("--cosmology", help="an astropy realisation, e.g. Planck18")
     p.add_argument(

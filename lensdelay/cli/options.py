@@ -231,6 +231,13 @@ def written_line(out, names, look=(), then: str = "") -> str:
     return line + (f"; {then}" if then else "")
 
 
+def add_gaussian_prior(parser, flag: str, help: str, default=None) -> None:
+    """A ``--FLAG MEAN SIGMA`` Gaussian prior (numbers read by :func:`number`)."""
+    parser.add_argument(
+        flag, nargs=2, type=number, default=default, metavar=("MEAN", "SIGMA"), help=help
+    )
+
+
 def add_request_arguments(parser, *, seed_help: str = "seed of every random draw") -> None:
     """The options of a forecast request, one builder for ``forecast`` and ``batch``.
 
@@ -242,23 +249,11 @@ def add_request_arguments(parser, *, seed_help: str = "seed of every random draw
     )
     parser.add_argument("--seed", type=int, default=1, help=f"{seed_help} (default 1)")
     g = parser.add_mutually_exclusive_group()
-    g.add_argument(
-        "--h0",
-        nargs=2,
-        type=number,
-        metavar=("MEAN", "SIGMA"),
-        help="Gaussian H0 prior, km/s/Mpc (default 70 5)",
-    )
+    add_gaussian_prior(g, "--h0", "Gaussian H0 prior, km/s/Mpc (default 70 5)")
     g.add_argument(
         "--cosmology", help="an astropy realisation, e.g. Planck18 (its H0 is then fixed)"
     )
-    parser.add_argument(
-        "--kappa-ext",
-        nargs=2,
-        type=number,
-        metavar=("MEAN", "SIGMA"),
-        help="external convergence prior (default 0 0.05)",
-    )
+    add_gaussian_prior(parser, "--kappa-ext", "external convergence prior (default 0 0.05)")
     parser.add_argument(
         "--microlensing", type=number, help="magnitude scatter per image (default 0.3)"
     )

@@ -288,11 +288,9 @@ class _Run:
                 timing,
                 prior_samples,
                 settings,
-                walkers=sampler.walkers,
-                steps=sampler.steps,
                 seed=next(self.stage_seeds),
+                sampler=sampler,
                 progress=self.progress,
-                prior=sampler.prior,
                 stop=self.stop,
                 perturbers=(response, perturber_rng),
             )

@@ -17,7 +17,12 @@ from lensdelay.forecast.samples import (
     track_columns,
 )
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import DEFAULT_SAMPLER, fit_and_sample, int_seed
+from lensdelay.inference.sampling import (
+    DEFAULT_SAMPLER,
+    SamplerSettings,
+    fit_and_sample,
+    int_seed,
+)
 from lensdelay.inference.timing import TimingData
 
 __all__ = [
@@ -95,11 +100,9 @@ def condition_on_timing(
     prior_samples,
     settings,
     *,
-    walkers,
-    steps,
     seed,
+    sampler: SamplerSettings = DEFAULT_SAMPLER,
     progress=False,
-    prior=DEFAULT_SAMPLER.prior,
     stop=None,
     perturbers=(None, None),
 ):
@@ -108,9 +111,10 @@ def condition_on_timing(
     Importance weights when they leave at least ``settings.min_ess_fraction`` of the
     samples effective; otherwise the joint posterior (positions and timing, H0 and
     κ_ext free with their priors) is sampled again. Returns the samples, the update
-    and the new chain (None when re-weighting sufficed). ``perturbers``: the unseen
-    perturbers' response and generator (:func:`solve_samples`), drawn anew for a new
-    sample.
+    and the new chain (None when re-weighting sufficed). ``sampler``: the settings of a
+    new sample (walkers, the fewest steps, the mass-model prior). ``perturbers``: the
+    unseen perturbers' response and generator (:func:`solve_samples`), drawn anew for a
+    new sample.
     """
     update, good = importance_update(prior_samples, timing, settings.min_ess_fraction)
     if good:
@@ -122,6 +126,7 @@ def condition_on_timing(
     fit_seed, sample_seed, draw_seed = (
         np.random.SeedSequence(seed).spawn(3) if isinstance(seed, int) else seed.spawn(3)
     )
+    seeds = (int_seed(fit_seed), int_seed(sample_seed), np.random.default_rng(draw_seed))
     return resample_jointly(
         sc,
         like,
@@ -130,13 +135,11 @@ def condition_on_timing(
         timing,
         update,
         settings,
-        walkers,
-        steps,
-        (int_seed(fit_seed), int_seed(sample_seed), np.random.default_rng(draw_seed)),
-        progress,
-        prior,
-        stop,
-        (scatter, perturber_rng),
+        sampler,
+        seeds,
+        progress=progress,
+        stop=stop,
+        scatter=(scatter, perturber_rng),
     )
 
 
@@ -148,12 +151,11 @@ def resample_jointly(
     timing,
     update,
     settings,
-    walkers,
-    steps,
+    sampler: SamplerSettings,
     seeds,
-    progress,
-    prior,
-    stop,
+    *,
+    progress=False,
+    stop=None,
     scatter=(None, None),
 ):
     """Sample the joint posterior of lens, H0, κ_ext given positions and timing data.
@@ -179,7 +181,7 @@ def resample_jointly(
     joint = ImageLikelihood(
         like.scenario,  # with the positions' model error, if the fit needed one
         sc.model,
-        prior=prior,
+        prior=sampler.prior,
         timing=timing,
         h0_prior=st.h0_prior if st.h0_prior is not None else "fixed",
         kappa_prior=st.kappa_ext,
@@ -190,8 +192,9 @@ def resample_jointly(
     # judged by the autocorrelation time of the positions-only chain
     tau = float(np.nanmax(chain.autocorr)) if np.all(np.isfinite(chain.autocorr)) else 50.0
     want = st.min_ess_fraction * st.n_samples
+    walkers = sampler.walkers
     needed = int(np.ceil(1.5 * want * tau / max(walkers, 2 * joint.n_parameters))) + int(2 * tau)
-    n_steps = int(min(max(steps, needed), 50_000))
+    n_steps = int(min(max(sampler.steps, needed), 50_000))
     jres, jchain = fit_and_sample(
         joint,
         walkers=walkers,
