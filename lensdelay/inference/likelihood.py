@@ -38,6 +38,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.interpolate import CubicSpline
 
+from lensdelay.inference.parameters import H0_RANGE, ParameterSpace
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, choices_text
@@ -106,11 +107,6 @@ def _redshift_splines(distances: LensDistances, z_min: float, z_max: float):
 def _position_sigmas(family, floor: float) -> np.ndarray:
     """A family's stated position errors with a model error ``floor`` in quadrature."""
     return np.hypot([im.sigma for im in family.images], floor)
-
-
-#: H0's range (km/s/Mpc) when timing data make it a parameter: a flat prior within it
-#: unless a Gaussian one is given.
-H0_RANGE = (10.0, 200.0)
 
 
 class ImageLikelihood:
@@ -217,71 +213,34 @@ class ImageLikelihood:
             self.flux_data.append(np.array(mags, dtype=float) - mags[0] if usable else None)
         self.use_fluxes = any(d is not None for d in self.flux_data)
         self.h0_ref = float(scenario.cosmology.H0.value)
-        free = model.free
-        self.names = [p.name for p in free]
-        for fam in self.families:
-            self.names += [f"source[{fam.label}].x", f"source[{fam.label}].y"]
-        self.n_model = len(free)
-        lo = [p.min for p in free]
-        hi = [p.max for p in free]
-        for fam in self.families:
-            reach = 2.0 * float(np.max(np.hypot(fam.x, fam.y))) + 1.0
-            lo += [-reach, -reach]
-            hi += [reach, reach]
-        # Gaussian priors: parameter index -> (mean, sigma)
-        self.priors = {i: p.prior for i, p in enumerate(free) if p.prior is not None}
-        # families of unknown redshift: one parameter each, after the source positions;
-        # the deflection scale and D_dt follow it row by row (CONVENTIONS.md)
+        # the layout of a parameter row: names, bounds, priors, angles, H0 and κ_ext
+        space = ParameterSpace.build(
+            model,
+            self.families,
+            scenario.families,
+            h0_ref=self.h0_ref,
+            use_delays=self.use_delays,
+            h0_prior=h0_prior,
+            kappa_prior=kappa_prior,
+        )
+        self.space = space
+        self.names, self.lower, self.upper = space.names, space.lower, space.upper
+        self.priors, self.periods = space.priors, space.periods
+        self.n_model, self.n_positional = space.n_model, space.n_positional
+        self.h0_index, self.kappa_index = space.h0_index, space.kappa_index
+        self.h0_fixed, self.kappa_fixed = space.h0_fixed, space.kappa_fixed
+        self.scale_start = space.scale_start
+        # families of unknown redshift: the deflection scale and D_dt follow their
+        # parameter row by row (CONVENTIONS.md)
         for fam, obs in zip(self.families, scenario.families):
-            zp = obs.redshift_parameter
-            if zp is None:
-                continue
-            fam.redshift_index = len(self.names)
-            self.names.append(f"redshift[{fam.label}]")
-            lo.append(zp.min)
-            hi.append(zp.max)
-            if zp.prior is not None:
-                self.priors[fam.redshift_index] = zp.prior
-            fam.scale_of_redshift, fam.days_of_redshift = _redshift_splines(
-                self.distances, zp.min, zp.max
-            )
-        #: lens, source and redshift parameters: everything image positions depend on
-        self.n_positional = len(self.names)
-        # the delay scale (H_ref/H0)(1 − κ_ext): free parameters or fixed values
-        self.h0_index = self.kappa_index = None
-        self.h0_fixed = self.h0_ref
-        self.kappa_fixed = 0.0
-        self.scale_start = []
-        if self.use_delays:
-            if isinstance(h0_prior, str):
-                if h0_prior != "fixed":
-                    raise InputError(
-                        f"h0_prior must be None, 'fixed' or (mean, sigma), got {h0_prior!r}"
-                    )
-            else:
-                self.h0_index = len(self.names)
-                self.names.append("H0")
-                lo.append(H0_RANGE[0])
-                hi.append(H0_RANGE[1])
-                if h0_prior is not None:
-                    self.priors[self.h0_index] = (float(h0_prior[0]), float(h0_prior[1]))
-                self.scale_start.append(self.h0_ref if h0_prior is None else float(h0_prior[0]))
-            if kappa_prior is not None:
-                mean, sigma = float(kappa_prior[0]), float(kappa_prior[1])
-                if sigma > 0:
-                    self.kappa_index = len(self.names)
-                    self.names.append("kappa_ext")
-                    # κ_ext ≥ 1 would turn delays around: bounded below 1
-                    lo.append(max(-1.0, mean - 10 * sigma))
-                    hi.append(min(0.95, mean + 10 * sigma))
-                    self.priors[self.kappa_index] = (mean, sigma)
-                    self.scale_start.append(mean)
-                else:
-                    self.kappa_fixed = mean
-        self.lower, self.upper = np.array(lo), np.array(hi)
+            if fam.label in space.redshift_index:
+                zp = obs.redshift_parameter
+                fam.redshift_index = space.redshift_index[fam.label]
+                fam.scale_of_redshift, fam.days_of_redshift = _redshift_splines(
+                    self.distances, zp.min, zp.max
+                )
         # rows within the bounds build valid profiles: no per-step checks (lens_for)
         self._rules_hold = model.rules_hold_within_bounds()
-        self.periods = [p.period for p in free] + [None] * (len(self.names) - self.n_model)
         self.centre_prior = self._lens_light_prior()
         # unobserved images to follow, per family: (x, y) arrays (see watch_unobserved)
         self.watched = [(np.empty(0), np.empty(0)) for _ in self.families]
