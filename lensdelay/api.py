@@ -27,7 +27,7 @@ from lensdelay.hubble.pipeline import HubbleResult, run_hubble
 from lensdelay.inference.fit import ScenarioFit, check_constraints, delay_errors
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import DEFAULT_SAMPLER, check_sampler_settings
-from lensdelay.inference.sampling import fit_and_sample
+from lensdelay.inference.sequence import fit_and_sample
 from lensdelay.io import reading
 from lensdelay.io.provenance import provenance
 from lensdelay.lensing.distances import LensDistances
@@ -259,7 +259,7 @@ def fit_scenario(
         Also sample the posterior (``walkers`` × ``steps``), checkpointed to
         ``checkpoint_dir`` and resumable with ``resume``; a model with fewer constraints
         than parameters by importance sampling instead
-        (:func:`lensdelay.inference.sampling.sample_posterior`).
+        (:func:`lensdelay.inference.sequence.sample_posterior`).
     progress, stop
         Progress display and stop request of :func:`lensdelay.inference.sampling.sample`.
     """

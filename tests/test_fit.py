@@ -222,7 +222,7 @@ def test_underconstrained_with_bounds_is_sampled_across_its_prior():
     every parameter is bounded, so the posterior is proper. It is fitted and sampled with a
     warning, and the sampler explores the direction the data leave open (the shear
     strength spreads over a good part of its [0, 0.3] prior) instead of sticking."""
-    from lensdelay.inference.sampling import fit_and_sample
+    from lensdelay.inference.sequence import fit_and_sample
 
     truth = Lens((SingularIsothermalSphere(einstein_radius=0.9), ExternalShear(strength=0.04)))
     fam = simulate_family(truth, 0.2, 0.1, label="q", redshift=2.0, sigma=0.003)
@@ -433,7 +433,7 @@ def test_poor_fit_gets_a_position_model_error_and_wider_posterior():
     the model is refitted and sampled with it, a warning is given, and the posterior of
     θE is wider than with the stated errors."""
     from lensdelay.inference.misfit import position_floor
-    from lensdelay.inference.sampling import fit_and_sample
+    from lensdelay.inference.sequence import fit_and_sample
 
     sc = _satellite_quad(0.2)
     like = ImageLikelihood(sc, sc.model)
@@ -479,7 +479,7 @@ def test_poor_fit_gets_a_position_model_error_and_wider_posterior():
 
 def test_good_fit_is_left_alone():
     """Data drawn from the recipe itself (seeded): p > 0.01, no model error, no warning."""
-    from lensdelay.inference.sampling import fit_and_sample
+    from lensdelay.inference.sequence import fit_and_sample
 
     sc = _satellite_quad(0.0)
     like = ImageLikelihood(sc, sc.model)
@@ -533,7 +533,7 @@ def test_default_recipe_double_is_importance_sampled_over_the_slope_prior():
     issue 13: a Markov chain on this sheet barely moved (walkers stuck at the best fit, the
     slope a spike at 2.078; later a spread 0.6 of the prior's). It is now sampled by
     conditional importance sampling (lensdelay.inference.importance)."""
-    from lensdelay.inference.sampling import IMPORTANCE_MIN, fit_and_sample
+    from lensdelay.inference.sequence import IMPORTANCE_MIN, fit_and_sample
 
     lens = Lens(
         (
@@ -608,7 +608,7 @@ def test_every_job_judges_a_poor_fit_alike():
     """fit (with and without sampling), maps and the fit-then-sample sequence of forecast,
     hubble and prepare give a poor fit the same model error (issue 29, item 3)."""
     from lensdelay.api import fit_scenario
-    from lensdelay.inference.sampling import fit_and_sample
+    from lensdelay.inference.sequence import fit_and_sample
 
     sc = _satellite_quad(0.2)
     with warnings.catch_warnings():

@@ -12,7 +12,8 @@ import pytest
 
 from lensdelay.errors import LensdelayWarning
 from lensdelay.inference.modes import MODE_DCHI2, log_mode_mass, mix_modes, modes_to_sample
-from lensdelay.inference.sampling import Chain, _sample_other_modes, sample
+from lensdelay.inference.sampling import Chain, sample
+from lensdelay.inference.sequence import _sample_other_modes
 
 
 def test_distinct_modes_compare_angles_modulo_their_period(quad):

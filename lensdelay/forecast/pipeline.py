@@ -29,7 +29,8 @@ from lensdelay.forecast.samples import (
 )
 from lensdelay.inference.fit import ScenarioFit
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.sampling import fit_and_sample, int_seed
+from lensdelay.inference.sampling import int_seed
+from lensdelay.inference.sequence import fit_and_sample
 from lensdelay.model.scenario import Scenario
 from lensdelay.forecast.observability import build_calendar
 from lensdelay.forecast.combine import (

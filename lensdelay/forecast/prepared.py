@@ -22,9 +22,9 @@ from lensdelay.inference.sampling import (
     Chain,
     SamplerSettings,
     check_sampler_settings,
-    fit_and_sample,
     int_seed,
 )
+from lensdelay.inference.sequence import fit_and_sample
 from lensdelay.model.scenario import MAX_DATE_SIGMA_DAYS, Scenario, Transient, parse_date
 
 __all__ = [

@@ -20,9 +20,9 @@ from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import (
     DEFAULT_SAMPLER,
     SamplerSettings,
-    fit_and_sample,
     int_seed,
 )
+from lensdelay.inference.sequence import fit_and_sample
 from lensdelay.inference.timing import TimingData
 
 __all__ = [

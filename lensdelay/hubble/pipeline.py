@@ -18,9 +18,9 @@ from lensdelay.inference.priors import check_kappa_prior
 from lensdelay.inference.sampling import (
     DEFAULT_SAMPLER,
     check_sampler_settings,
-    fit_and_sample,
     int_seed,
 )
+from lensdelay.inference.sequence import fit_and_sample
 from lensdelay.model.cosmology import cosmology_from_class, cosmology_from_spec
 from lensdelay.model.scenario import Scenario
 
