@@ -203,6 +203,129 @@ def _progress_display(progress, total: int):
     return update
 
 
+def _proposal_moves(move: str, like, coords, target):
+    """(move name, emcee moves, the Langevin move or None) for ``move`` ("auto" picks)."""
+    langevin = None
+    if move == "auto":
+        move = "langevin" if len(like.names) <= LANGEVIN_MAX_PARAMETERS else "differential"
+    if move == "langevin":
+        # now and then an ensemble stretch: a walker that strays onto a steep wall, where
+        # the local geometry says little, is pulled back by the others
+        # with fewer constraints than parameters some directions are seen by the priors
+        # alone: the move then explores them at the priors' widths
+        under = getattr(like, "dof", 0) < 0  # a test target may not count constraints
+        widths = coords.prior_scales(like.lower, like.upper, like.periods) if under else None
+        langevin = FisherLangevinMove(target, prior_widths=widths)
+        moves = [(langevin, 0.9), (emcee.moves.StretchMove(), 0.1)]
+    elif move == "differential":
+        moves = [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
+    elif move == "stretch":
+        moves = emcee.moves.StretchMove()
+    else:
+        raise InputError(f"move must be one of {choices_text(MOVES)}, got {move!r}")
+    return move, moves, langevin
+
+
+def _run_until_mixed(sampler, backend, state, names, steps, max_steps, every, show, stop):
+    """Run the chain to ``steps``, then on by halves while the walkers disagree.
+
+    Judged by R̂ over the second half in the sampling coordinates (no angle wraps there),
+    at most to ``max_steps``; the checkpoint is written every ``every`` steps and a stop
+    request honoured there. Returns the steps done and R̂ where the run-on began (None
+    when it did not, or was resumed past it).
+    """
+    done = backend.iteration
+    # the lengths at which convergence is judged: steps, then every half of it up to the
+    # cap; a resumed run continues to the next of them, as the uninterrupted run did
+    checks = list(range(steps, max_steps + 1, max(steps // 2, 1)))
+    checks = checks if checks[-1] == max_steps else [*checks, max_steps]
+    goal = next(c for c in checks if c >= done) if done <= max_steps else done
+    first_rhat = None  # R̂ where the run-on began (unknown when resumed past it)
+    while True:
+        while done < goal:
+            n = min(every, goal - done)
+            # starts that were all moved onto the best fit are identical: allowed, they spread
+            state = sampler.run_mcmc(state, n, progress=False, skip_initial_state_check=True)
+            done += n
+            backend.write(names)
+            show(done)
+            if stop.requested:
+                stop.active = False
+                raise KeyboardInterrupt
+        if done >= max_steps:
+            break
+        # R-hat over the second half, in the sampling coordinates (no angle wraps there)
+        worst = np.nanmax(potential_scale_reduction(backend.get_chain()[done // 2 :]))
+        if not worst > RHAT_GOAL:
+            break
+        if done == steps:
+            first_rhat = float(worst)
+        goal = next(c for c in checks if c > done)
+    return done, first_rhat
+
+
+def _diagnosed_chain(backend, like, coords, start, asked, steps, first_rhat, seed, move):
+    """The finished run as a :class:`Chain` in the model's parameters, with its notes.
+
+    Autocorrelation time, burn-in and thinning, R̂ between walkers, and a note (and a
+    warning) for a short chain, walkers that never moved or never mixed, or a run-on.
+    """
+    chain, logp, accepted = backend.get_chain(), backend.get_log_prob(), backend.accepted
+    ndim = chain.shape[-1]
+    # τ in the sampling coordinates (no angle wraps there), from the second half so the
+    # walkers' initial spread does not inflate it
+    tau = integrated_time(chain[len(chain) // 2 :])
+    chain = coords.to_model(chain.reshape(-1, ndim)).reshape(chain.shape)
+    # wrap periodic parameters (position angles) around the best fit: no wrap straddling
+    for i, period in enumerate(like.periods):
+        if period:
+            chain[..., i] = start[i] + (chain[..., i] - start[i] + period / 2) % period - period / 2
+    notes = []
+    finite = np.isfinite(tau)
+    if not np.any(finite):
+        # every parameter's chain is flat (the walkers never moved, e.g. a source exactly
+        # on a caustic): no autocorrelation time, and the spread means nothing
+        tau_max = steps / 10.0
+        notes.append(
+            "the sampler's walkers did not move, so no autocorrelation time could be estimated "
+            "and the posterior spread is not trustworthy; check the images against caustics"
+        )
+        warnings.warn(notes[-1], LensdelayWarning, stacklevel=3)
+    else:
+        tau_max = float(np.max(tau[finite]))
+    burn = int(min(steps // 2, max(2 * tau_max, steps // 5)))
+    if steps < 50 * tau_max and np.any(finite):
+        fewest = chain.shape[1] * (steps - burn) / tau_max
+        notes.append(
+            f"chain of {steps} steps is shorter than 50 autocorrelation times "
+            f"(max tau = {tau_max:.0f} steps; worth about {fewest:.0f} independent samples); "
+            f"run longer (--steps, now {steps}) before trusting the tails"
+        )
+        warnings.warn(notes[-1], LensdelayWarning, stacklevel=3)
+    if steps > asked:
+        measured = "" if first_rhat is None else f"R-hat {first_rhat:.2f}, "
+        notes.append(
+            f"the walkers had not mixed after {asked} steps ({measured}above the goal "
+            f"{RHAT_GOAL}): the chain ran on to {steps} steps (at most {EXTEND_FACTOR}x --steps)"
+        )
+    thin = max(1, int(tau_max // 4))
+    rhat = potential_scale_reduction(chain[burn:])
+    worst = int(np.nanargmax(rhat)) if np.any(np.isfinite(rhat)) else None
+    if worst is not None and rhat[worst] > MAX_RHAT:
+        # τ is estimated from the walkers together and can look fine while each walker
+        # stays near where it started: R̂ compares the walkers with one another
+        notes.append(
+            f"the walkers have not mixed (R-hat {rhat[worst]:.2f} for {like.names[worst]}, "
+            f"more than {MAX_RHAT}): the spread comes largely from their randomised starting "
+            f"fits, an approximation of the posterior; run longer (--steps, now {steps}) or "
+            f"with more walkers (--walkers, now {chain.shape[1]}) before trusting the tails"
+        )
+        warnings.warn(notes[-1], LensdelayWarning, stacklevel=3)
+    return Chain(
+        list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move, rhat
+    )
+
+
 def sample(
     like,
     start: np.ndarray,
@@ -266,24 +389,7 @@ def sample(
     )
     coords = SamplingCoordinates(like.names, like.lower, like.upper, components, polar)
     target = SampledTarget(like, coords)
-    langevin = None
-    if move == "auto":
-        move = "langevin" if ndim <= LANGEVIN_MAX_PARAMETERS else "differential"
-    if move == "langevin":
-        # now and then an ensemble stretch: a walker that strays onto a steep wall, where
-        # the local geometry says little, is pulled back by the others
-        # with fewer constraints than parameters some directions are seen by the priors
-        # alone: the move then explores them at the priors' widths
-        under = getattr(like, "dof", 0) < 0  # a test target may not count constraints
-        widths = coords.prior_scales(like.lower, like.upper, like.periods) if under else None
-        langevin = FisherLangevinMove(target, prior_widths=widths)
-        moves = [(langevin, 0.9), (emcee.moves.StretchMove(), 0.1)]
-    elif move == "differential":
-        moves = [(emcee.moves.DEMove(), 0.8), (emcee.moves.DESnookerMove(), 0.2)]
-    elif move == "stretch":
-        moves = emcee.moves.StretchMove()
-    else:
-        raise InputError(f"move must be one of {choices_text(MOVES)}, got {move!r}")
+    move, moves, langevin = _proposal_moves(move, like, coords, target)
     # what a resumed run must share with the checkpoint besides seed and shape
     setup = (
         f"move {move}, prior {getattr(like, 'prior', 'flat')}, components {components}, "
@@ -318,87 +424,11 @@ def sample(
     show(done)
     stop = stop if stop is not None else StopRequest()
     stop.active, stop.requested = True, False
-    # the lengths at which convergence is judged: steps, then every half of it up to the
-    # cap; a resumed run continues to the next of them, as the uninterrupted run did
-    checks = list(range(steps, max_steps + 1, max(steps // 2, 1)))
-    checks = checks if checks[-1] == max_steps else [*checks, max_steps]
-    goal = next(c for c in checks if c >= done) if done <= max_steps else done
-    first_rhat = None  # R̂ where the run-on began (unknown when resumed past it)
-    while True:
-        while done < goal:
-            n = min(checkpoint_every, goal - done)
-            # starts that were all moved onto the best fit are identical: allowed, they spread
-            state = sampler.run_mcmc(state, n, progress=False, skip_initial_state_check=True)
-            done += n
-            backend.write(like.names)
-            show(done)
-            if stop.requested:
-                stop.active = False
-                raise KeyboardInterrupt
-        if done >= max_steps:
-            break
-        # R-hat over the second half, in the sampling coordinates (no angle wraps there)
-        worst = np.nanmax(potential_scale_reduction(backend.get_chain()[done // 2 :]))
-        if not worst > RHAT_GOAL:
-            break
-        if done == steps:
-            first_rhat = float(worst)
-        goal = next(c for c in checks if c > done)
-    asked, steps = steps, done
-    chain, logp, accepted = backend.get_chain(), backend.get_log_prob(), backend.accepted
-    stop.active = False
-    # τ in the sampling coordinates (no angle wraps there), from the second half so the
-    # walkers' initial spread does not inflate it
-    tau = integrated_time(chain[len(chain) // 2 :])
-    chain = coords.to_model(chain.reshape(-1, ndim)).reshape(chain.shape)
-    # wrap periodic parameters (position angles) around the best fit: no wrap straddling
-    for i, period in enumerate(like.periods):
-        if period:
-            chain[..., i] = start[i] + (chain[..., i] - start[i] + period / 2) % period - period / 2
-    notes = []
-    finite = np.isfinite(tau)
-    if not np.any(finite):
-        # every parameter's chain is flat (the walkers never moved, e.g. a source exactly
-        # on a caustic): no autocorrelation time, and the spread means nothing
-        tau_max = steps / 10.0
-        notes.append(
-            "the sampler's walkers did not move, so no autocorrelation time could be estimated "
-            "and the posterior spread is not trustworthy; check the images against caustics"
-        )
-        warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
-    else:
-        tau_max = float(np.max(tau[finite]))
-    burn = int(min(steps // 2, max(2 * tau_max, steps // 5)))
-    if steps < 50 * tau_max and np.any(finite):
-        fewest = chain.shape[1] * (steps - burn) / tau_max
-        notes.append(
-            f"chain of {steps} steps is shorter than 50 autocorrelation times "
-            f"(max tau = {tau_max:.0f} steps; worth about {fewest:.0f} independent samples); "
-            f"run longer (--steps, now {steps}) before trusting the tails"
-        )
-        warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
-    if steps > asked:
-        measured = "" if first_rhat is None else f"R-hat {first_rhat:.2f}, "
-        notes.append(
-            f"the walkers had not mixed after {asked} steps ({measured}above the goal "
-            f"{RHAT_GOAL}): the chain ran on to {steps} steps (at most {EXTEND_FACTOR}x --steps)"
-        )
-    thin = max(1, int(tau_max // 4))
-    rhat = potential_scale_reduction(chain[burn:])
-    worst = int(np.nanargmax(rhat)) if np.any(np.isfinite(rhat)) else None
-    if worst is not None and rhat[worst] > MAX_RHAT:
-        # τ is estimated from the walkers together and can look fine while each walker
-        # stays near where it started: R̂ compares the walkers with one another
-        notes.append(
-            f"the walkers have not mixed (R-hat {rhat[worst]:.2f} for {like.names[worst]}, "
-            f"more than {MAX_RHAT}): the spread comes largely from their randomised starting "
-            f"fits, an approximation of the posterior; run longer (--steps, now {steps}) or "
-            f"with more walkers (--walkers, now {chain.shape[1]}) before trusting the tails"
-        )
-        warnings.warn(notes[-1], LensdelayWarning, stacklevel=2)
-    return Chain(
-        list(like.names), chain, logp, accepted / steps, tau, burn, thin, seed, notes, move, rhat
+    done, first_rhat = _run_until_mixed(
+        sampler, backend, state, like.names, steps, max_steps, checkpoint_every, show, stop
     )
+    stop.active = False
+    return _diagnosed_chain(backend, like, coords, start, steps, done, first_rhat, seed, move)
 
 
 def integrated_time(chain: np.ndarray) -> np.ndarray:
