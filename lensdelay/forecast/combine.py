@@ -129,6 +129,192 @@ def image_status(is_seen, q, now_offset, order_agreement) -> str:
     return "future"
 
 
+def _gather(g, models, updates, w_model, prior_models, w_prior, tr, settings, rng):
+    """One image's samples from every model that has it, with their mixture weights.
+
+    Returns the columns (concatenated over models), the positions-only offsets and
+    weights per model, and each model's weight and median delay.
+    """
+    cols = {
+        k: []
+        for k in (
+            "delay",
+            "offsets",
+            "mu",
+            "parity",
+            "rank",
+            "weights",
+            "lens_days",
+            "perturber_days",
+            "h0",
+            "kappa",
+            "t0",
+            "model",
+            "x",
+            "y",
+            "mag",
+        )
+    }
+    prior_off, prior_w = [], []
+    per_model = {}
+    for m_index, col in g["members"]:
+        samples, t0 = models[m_index]
+        w = w_model[m_index] * np.where(samples.exists[:, col], updates[m_index].weights, 0.0)
+        delay = np.where(samples.exists[:, col], samples.delay[:, col], np.nan)
+        cols["delay"].append(delay)
+        cols["offsets"].append(t0 + delay)
+        cols["mu"].append(samples.magnification[:, col])
+        cols["parity"].append(samples.parity[:, col])
+        cols["rank"].append(samples.rank[:, col])
+        cols["weights"].append(w)
+        cols["lens_days"].append(samples.lens_days[:, col])
+        cols["perturber_days"].append(samples.perturber_days[:, col])
+        cols["h0"].append(samples.h0)
+        cols["kappa"].append(samples.kappa)
+        cols["t0"].append(t0)
+        cols["model"].append(np.full(len(t0), m_index))
+        cols["x"].append(samples.x[:, col])
+        cols["y"].append(samples.y[:, col])
+        if tr.magnitude is not None:
+            ratio = np.abs(samples.magnification[:, col]) / np.abs(
+                samples.magnification[:, samples.reference]
+            )
+            scatter = (
+                rng.normal(0, settings.microlensing_mag, len(ratio))
+                if settings.microlensing_mag > 0 and col != samples.reference
+                else 0.0
+            )
+            cols["mag"].append(tr.magnitude - 2.5 * np.log10(ratio) + scatter)
+        ps, pt0 = prior_models[m_index]
+        prior_off.append(pt0 + np.where(ps.exists[:, col], ps.delay[:, col], np.nan))
+        prior_w.append(w_prior[m_index] * (ps.exists[:, col] & ps.valid) / max(ps.valid.sum(), 1))
+        wsum = w.sum()
+        per_model[samples.model_label] = {
+            "weight": float(w_model[m_index]),
+            "delay_median": float(weighted_quantiles(delay, w, [50])[0]) if wsum > 0 else None,
+        }
+    arr = {k: np.concatenate(v) for k, v in cols.items() if v}
+    return arr, prior_off, prior_w, per_model
+
+
+def _image_entry(g, arr, per_model, prior_off, prior_w, context) -> dict | None:
+    """The summary of one image from its gathered samples; None when no sample has it.
+
+    ``context``: (transient, settings, now offset in days, the sighted labels, the
+    tensions by image, whether any model was updated by timing data).
+    """
+    tr, settings, now_offset, sighted, tension_by_image, has_timing = context
+    weights = arr["weights"]
+    total = weights.sum()
+    weights = weights / total if total > 0 else weights
+    # over all models: a model that lacks this image counts as "no image" with its weight
+    exists_share = float(min(total, 1.0))
+    valid = np.isfinite(arr["delay"]) & (weights > 0)
+    if not np.any(valid):
+        # no sample of any model has this image (e.g. a source on a caustic at the
+        # best fit only): nothing to forecast, and the notes say so
+        return None
+    par, par_share = majority(arr["parity"][valid], weights[valid])
+    rk, rk_share = majority(arr["rank"][valid], weights[valid])
+    is_ref = g["observed"] and g["label"] == tr.seen_in
+    trails = float(np.sum(weights[valid & (arr["delay"] > 0)]))
+    leads = float(np.sum(weights[valid & (arr["delay"] < 0)]))
+    order = "reference" if is_ref else ("trails" if trails >= leads else "leads")
+    order_agreement = 1.0 if is_ref else max(trails, leads) / max(trails + leads, 1e-300)
+    off_q = quantile_summary(arr["offsets"], weights)
+    centre_x, centre_y, ellipses = position_ellipses(
+        arr["x"][valid], arr["y"][valid], weights[valid]
+    )
+    seen = is_ref or g["label"] in sighted
+    entry = {
+        "family": g["family"],
+        "label": g["label"],
+        "observed": bool(g["observed"]),
+        "x": centre_x,
+        "y": centre_y,
+        "position_error": ellipses,
+        "parity": parity_name(par),
+        "parity_agreement": par_share,
+        "arrival_rank": int(rk),
+        "rank_agreement": rk_share,
+        "order": order,
+        "order_agreement": order_agreement,
+        "flag": [],
+        "exists_fraction": exists_share,
+        "status": image_status(seen, off_q, now_offset, order_agreement),
+        "sighted": g["label"] in sighted,
+        "delay_days": quantile_summary(arr["delay"], weights),
+        "magnification": quantile_summary(arr["mu"], weights),
+        "date_offset_days": off_q,
+        "per_model": per_model,
+        "offsets": arr["offsets"],
+        "weights": weights,
+        "samples": {
+            k: arr[k]
+            for k in (
+                "lens_days",
+                "perturber_days",
+                "h0",
+                "kappa",
+                "t0",
+                "model",
+                "delay",
+                "x",
+                "y",
+            )
+        },
+    }
+    if min(par_share, rk_share) < AGREEMENT:
+        entry["flag"].append(
+            f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)"
+        )
+    if exists_share < AGREEMENT and not is_ref:
+        entry["flag"].append(
+            f"the image exists in only {100 * exists_share:.0f}% of the forecast's samples "
+            "(models and posterior together); its dates assume it exists"
+        )
+    _add_outlook(entry, arr, weights, per_model, prior_off, prior_w, context, seen)
+    return entry
+
+
+def _add_outlook(entry, arr, weights, per_model, prior_off, prior_w, context, seen) -> None:
+    """The models' spread, the window's narrowing, magnitude, archival advice, tension."""
+    tr, settings, now_offset, sighted, tension_by_image, has_timing = context
+    off_q = entry["date_offset_days"]
+    medians = [v["delay_median"] for v in per_model.values() if v["delay_median"] is not None]
+    entry["model_spread_days"] = float(np.ptp(medians)) if len(medians) > 1 else 0.0
+    # how much the timing data narrowed the 95% window
+    pw = np.concatenate(prior_w)
+    pq = weighted_quantiles(np.concatenate(prior_off), pw, [2.5, 97.5])
+    width_before = pq[1] - pq[0]
+    entry["interval95_change"] = (
+        float((off_q["p97.5"] - off_q["p2.5"]) / width_before)
+        if has_timing and width_before > 0
+        else None
+    )
+    if "mag" in arr:
+        entry["magnitude"] = quantile_summary(arr["mag"], weights)
+        entry["fainter_than_depth"] = bool(entry["magnitude"]["median"] > settings.depth)
+    else:
+        entry["magnitude"] = None
+        entry["fainter_than_depth"] = None
+    # part of the 95% window before the detection: archives may hold the event
+    # (only data already taken: up to now, which may be before the detection date)
+    if not seen and off_q["p2.5"] < min(0.0, now_offset):
+        entry["archival_search"] = {
+            "from_offset": off_q["p2.5"],
+            "to_offset": min(off_q["p97.5"], now_offset),
+        }
+    else:
+        entry["archival_search"] = None
+    entry["tension"] = tension_by_image.get(entry["label"])
+    if entry["tension"] is not None and entry["tension"]["in_tension"]:
+        entry["flag"].append(
+            f"the sighting is {abs(entry['tension']['sigma']):.1f} sigma from the "
+            "prediction made from the image positions"
+        )
+
+
 def summarise(
     models, updates, w_model, prior_models, w_prior, tr, settings, now, rng, tension_rows
 ):
@@ -140,173 +326,18 @@ def summarise(
     for row in tension_rows:
         if row["measurement"].startswith("sighting "):
             tension_by_image[row["measurement"].split("/", 1)[1]] = row
+    has_timing = any(up.route != "none" for up in updates)
+    context = (tr, settings, now_offset, sighted, tension_by_image, has_timing)
     images, missing = [], []
     for g in groups:
-        cols = {
-            k: []
-            for k in (
-                "delay",
-                "offsets",
-                "mu",
-                "parity",
-                "rank",
-                "weights",
-                "lens_days",
-                "perturber_days",
-                "h0",
-                "kappa",
-                "t0",
-                "model",
-                "x",
-                "y",
-                "mag",
-            )
-        }
-        prior_off, prior_w = [], []
-        per_model = {}
-        for m_index, col in g["members"]:
-            samples, t0 = models[m_index]
-            w = w_model[m_index] * np.where(samples.exists[:, col], updates[m_index].weights, 0.0)
-            delay = np.where(samples.exists[:, col], samples.delay[:, col], np.nan)
-            cols["delay"].append(delay)
-            cols["offsets"].append(t0 + delay)
-            cols["mu"].append(samples.magnification[:, col])
-            cols["parity"].append(samples.parity[:, col])
-            cols["rank"].append(samples.rank[:, col])
-            cols["weights"].append(w)
-            cols["lens_days"].append(samples.lens_days[:, col])
-            cols["perturber_days"].append(samples.perturber_days[:, col])
-            cols["h0"].append(samples.h0)
-            cols["kappa"].append(samples.kappa)
-            cols["t0"].append(t0)
-            cols["model"].append(np.full(len(t0), m_index))
-            cols["x"].append(samples.x[:, col])
-            cols["y"].append(samples.y[:, col])
-            if tr.magnitude is not None:
-                ratio = np.abs(samples.magnification[:, col]) / np.abs(
-                    samples.magnification[:, samples.reference]
-                )
-                scatter = (
-                    rng.normal(0, settings.microlensing_mag, len(ratio))
-                    if settings.microlensing_mag > 0 and col != samples.reference
-                    else 0.0
-                )
-                cols["mag"].append(tr.magnitude - 2.5 * np.log10(ratio) + scatter)
-            ps, pt0 = prior_models[m_index]
-            prior_off.append(pt0 + np.where(ps.exists[:, col], ps.delay[:, col], np.nan))
-            prior_w.append(
-                w_prior[m_index] * (ps.exists[:, col] & ps.valid) / max(ps.valid.sum(), 1)
-            )
-            wsum = w.sum()
-            per_model[samples.model_label] = {
-                "weight": float(w_model[m_index]),
-                "delay_median": float(weighted_quantiles(delay, w, [50])[0]) if wsum > 0 else None,
-            }
-        arr = {k: np.concatenate(v) for k, v in cols.items() if v}
-        weights = arr["weights"]
-        total = weights.sum()
-        weights = weights / total if total > 0 else weights
-        # over all models: a model that lacks this image counts as "no image" with its weight
-        exists_share = float(min(total, 1.0))
-        valid = np.isfinite(arr["delay"]) & (weights > 0)
-        if not np.any(valid):
-            # no sample of any model has this image (e.g. a source on a caustic at the
-            # best fit only): nothing to forecast, and the notes say so
+        arr, prior_off, prior_w, per_model = _gather(
+            g, models, updates, w_model, prior_models, w_prior, tr, settings, rng
+        )
+        entry = _image_entry(g, arr, per_model, prior_off, prior_w, context)
+        if entry is None:
             missing.append(f"{g['family']}/{g['label']}")
-            continue
-        par, par_share = majority(arr["parity"][valid], weights[valid])
-        rk, rk_share = majority(arr["rank"][valid], weights[valid])
-        is_ref = g["observed"] and g["label"] == tr.seen_in
-        trails = float(np.sum(weights[valid & (arr["delay"] > 0)]))
-        leads = float(np.sum(weights[valid & (arr["delay"] < 0)]))
-        order = "reference" if is_ref else ("trails" if trails >= leads else "leads")
-        order_agreement = 1.0 if is_ref else max(trails, leads) / max(trails + leads, 1e-300)
-        off_q = quantile_summary(arr["offsets"], weights)
-        centre_x, centre_y, ellipses = position_ellipses(
-            arr["x"][valid], arr["y"][valid], weights[valid]
-        )
-        seen = is_ref or g["label"] in sighted
-        entry = {
-            "family": g["family"],
-            "label": g["label"],
-            "observed": bool(g["observed"]),
-            "x": centre_x,
-            "y": centre_y,
-            "position_error": ellipses,
-            "parity": parity_name(par),
-            "parity_agreement": par_share,
-            "arrival_rank": int(rk),
-            "rank_agreement": rk_share,
-            "order": order,
-            "order_agreement": order_agreement,
-            "flag": [],
-            "exists_fraction": exists_share,
-            "status": image_status(seen, off_q, now_offset, order_agreement),
-            "sighted": g["label"] in sighted,
-            "delay_days": quantile_summary(arr["delay"], weights),
-            "magnification": quantile_summary(arr["mu"], weights),
-            "date_offset_days": off_q,
-            "per_model": per_model,
-            "offsets": arr["offsets"],
-            "weights": weights,
-            "samples": {
-                k: arr[k]
-                for k in (
-                    "lens_days",
-                    "perturber_days",
-                    "h0",
-                    "kappa",
-                    "t0",
-                    "model",
-                    "delay",
-                    "x",
-                    "y",
-                )
-            },
-        }
-        if min(par_share, rk_share) < AGREEMENT:
-            entry["flag"].append(
-                f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)"
-            )
-        if exists_share < AGREEMENT and not is_ref:
-            entry["flag"].append(
-                f"the image exists in only {100 * exists_share:.0f}% of the forecast's samples "
-                "(models and posterior together); its dates assume it exists"
-            )
-        medians = [v["delay_median"] for v in per_model.values() if v["delay_median"] is not None]
-        entry["model_spread_days"] = float(np.ptp(medians)) if len(medians) > 1 else 0.0
-        # how much the timing data narrowed the 95% window
-        pw = np.concatenate(prior_w)
-        pq = weighted_quantiles(np.concatenate(prior_off), pw, [2.5, 97.5])
-        width_before = pq[1] - pq[0]
-        has_timing = any(up.route != "none" for up in updates)
-        entry["interval95_change"] = (
-            float((off_q["p97.5"] - off_q["p2.5"]) / width_before)
-            if has_timing and width_before > 0
-            else None
-        )
-        if "mag" in arr:
-            entry["magnitude"] = quantile_summary(arr["mag"], weights)
-            entry["fainter_than_depth"] = bool(entry["magnitude"]["median"] > settings.depth)
         else:
-            entry["magnitude"] = None
-            entry["fainter_than_depth"] = None
-        # part of the 95% window before the detection: archives may hold the event
-        # (only data already taken: up to now, which may be before the detection date)
-        if not seen and off_q["p2.5"] < min(0.0, now_offset):
-            entry["archival_search"] = {
-                "from_offset": off_q["p2.5"],
-                "to_offset": min(off_q["p97.5"], now_offset),
-            }
-        else:
-            entry["archival_search"] = None
-        entry["tension"] = tension_by_image.get(g["label"])
-        if entry["tension"] is not None and entry["tension"]["in_tension"]:
-            entry["flag"].append(
-                f"the sighting is {abs(entry['tension']['sigma']):.1f} sigma from the "
-                "prediction made from the image positions"
-            )
-        images.append(entry)
+            images.append(entry)
     flag_strained_update(images, tension_rows, tr)
     images.sort(key=lambda e: (e["date_offset_days"]["median"], e["label"]))
     return images, missing
