@@ -24,7 +24,8 @@ from lensdelay.forecast.budget import delay_budget
 from lensdelay.forecast.pipeline import run_forecast
 from lensdelay.forecast.result import Forecast
 from lensdelay.hubble.pipeline import HubbleResult, run_hubble
-from lensdelay.inference.fit import ScenarioFit, check_constraints, delay_errors
+from lensdelay.inference.fit import check_constraints, delay_errors
+from lensdelay.inference.scenario_fit import ScenarioFit
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import DEFAULT_SAMPLER, check_sampler_settings
 from lensdelay.inference.sequence import fit_and_sample

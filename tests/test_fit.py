@@ -570,7 +570,7 @@ def test_bounded_gaussian_priors_are_perturbed_within_their_bounds():
     recipe's half-normal shear prior (and the axis ratio's N(0.75, 0.2) cut at 1), z must
     come from the normal truncated to the bounds, or half of the walkers start exactly at
     zero shear (issue 13). E|z| of a half-normal is √(2/π) (closed form)."""
-    from lensdelay.inference.sampling import _truncate_prior_noise
+    from lensdelay.inference.starts import truncate_prior_noise
     from lensdelay.model.recipe import AXIS_RATIO_PRIOR, SHEAR_PRIOR
 
     lens = Lens(
@@ -595,7 +595,7 @@ def test_bounded_gaussian_priors_are_perturbed_within_their_bounds():
     q = columns["mass[0].axis_ratio"]
     assert found[q][1] == pytest.approx((1.0 - AXIS_RATIO_PRIOR[0]) / AXIS_RATIO_PRIOR[1])
     noise = np.random.default_rng(0).standard_normal((20000, like.n_constraints))
-    _truncate_prior_noise(noise, like, np.random.default_rng(1))
+    truncate_prior_noise(noise, like, np.random.default_rng(1))
     assert noise[:, shear].min() >= 0.0 and noise[:, shear].max() <= 3.0
     assert noise[:, shear].mean() == pytest.approx(np.sqrt(2 / np.pi), abs=0.02)
     assert noise[:, q].max() <= found[q][1]

@@ -18,7 +18,7 @@ from lensdelay.inference.sequence import _sample_other_modes
 
 def test_distinct_modes_compare_angles_modulo_their_period(quad):
     """Optima apart by > 3 error bars are modes; an angle 179.9° from another is not."""
-    from lensdelay.inference.fit import _distinct_modes
+    from lensdelay.inference.modes import distinct_modes
 
     like, values, _ = quad
     errors = np.full(len(values), 0.01)
@@ -28,7 +28,7 @@ def test_distinct_modes_compare_angles_modulo_their_period(quad):
     turned[angle] += period - 0.001  # the same angle
     moved = values.copy()
     moved[0] += 0.1  # ten error bars in θE
-    found = _distinct_modes(like, [(1.0, values), (2.0, turned), (3.0, moved)], values, errors)
+    found = distinct_modes(like, [(1.0, values), (2.0, turned), (3.0, moved)], values, errors)
     assert [c for c, _ in found] == [3.0]
 
 

@@ -27,7 +27,7 @@ from lensdelay.forecast.samples import (
     model_weights,
     solve_samples,
 )
-from lensdelay.inference.fit import ScenarioFit
+from lensdelay.inference.scenario_fit import ScenarioFit
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.sampling import int_seed
 from lensdelay.inference.sequence import fit_and_sample

@@ -17,8 +17,8 @@ import numpy as np
 
 from lensdelay.lensing.delays import fermat_difference_to_days
 from lensdelay.errors import FitError, InputError, LensdelayWarning
-from lensdelay.lensing.critical import critical_lines
 from lensdelay.lensing.lens import PARITIES
+from lensdelay.inference.modes import distinct_modes
 from lensdelay.inference.likelihood import MISSING_IMAGE_PENALTY, ImageLikelihood
 from lensdelay.inference.misfit import POOR_FIT_P, ModelError, fit_p_value, judged_p_value
 
@@ -29,11 +29,9 @@ __all__ = [
     "check_constraints",
     "initial_vector",
     "fit",
-    "DISTINCT_MODE",
     "describe",
     "observed_delays",
     "delay_errors",
-    "ScenarioFit",
 ]
 
 
@@ -63,7 +61,7 @@ class FitResult:
     #: fit's χ² (:mod:`lensdelay.inference.misfit`); chi2 above is then the refit's.
     model_error: ModelError | None = None
     #: Other local optima the fit's polished starts reached, distinct from the best (more
-    #: than DISTINCT_MODE error bars apart in some parameter): (χ², values) each.
+    #: than modes.DISTINCT_MODE error bars apart in some parameter): (χ², values) each.
     alternatives: list = field(default_factory=list)
 
     @property
@@ -329,7 +327,7 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
         if best is None or chi2 < best[0] - 1e-9:
             best = (chi2, values, errors, out)
     chi2, values, errors, out = best
-    alternatives = _distinct_modes(like, polished, values, errors)
+    alternatives = distinct_modes(like, polished, values, errors)
     like.watch_unobserved(values)
     resid = like.residuals(values)[0]  # constraints, then the extra-image penalties
     chi2 = float(np.sum(resid**2))
@@ -346,34 +344,6 @@ def fit(like: ImageLikelihood, *, starts: int = 8, polish: int = 3, seed: int = 
     result = describe(like, values, errors, chi2, out)
     result.alternatives = alternatives
     return result
-
-
-#: Error bars (of the best fit) apart in some parameter for another optimum to be a mode.
-DISTINCT_MODE = 3.0
-
-
-def _distinct_modes(like, polished, best, errors) -> list:
-    """The polished optima other than ``best`` that lie apart from it and from each other.
-
-    Apart: more than DISTINCT_MODE of the best fit's error bars in some parameter (angles
-    compared modulo their period).
-    """
-    scale = np.where(np.isfinite(errors) & (errors > 0), errors, np.inf)
-    kept: list = []
-    for chi2, v in sorted(polished, key=lambda c: c[0]):
-        others = [best] + [k[1] for k in kept]
-        distinct = True
-        for o in others:
-            diff = np.abs(v - o)
-            for i, period in enumerate(like.periods):
-                if period:
-                    diff[i] = min(diff[i] % period, period - diff[i] % period)
-            if not np.any(diff / scale > DISTINCT_MODE):
-                distinct = False
-                break
-        if distinct:
-            kept.append((float(chi2), np.array(v, dtype=float)))
-    return kept
 
 
 def describe(like: ImageLikelihood, values, errors, chi2, out=None) -> FitResult:
@@ -498,103 +468,3 @@ def delay_errors(like: ImageLikelihood, result: FitResult, family: int = 0, refe
     n = cov.shape[0]
     var = np.einsum("ij,jk,ik->i", jac[:, :n], cov, jac[:, :n])
     return best, np.sqrt(np.maximum(var, 0.0))
-
-
-@dataclass(frozen=True)
-class ScenarioFit:
-    """A scenario's fit, its posterior sample if one was drawn, and the delays at the best fit.
-
-    ``linear_delays`` lists each observed image's delay after its family's first image,
-    with linearised 1-σ errors; ``provenance`` is added by :func:`lensdelay.api.fit_scenario`.
-    """
-
-    scenario: object
-    likelihood: ImageLikelihood = field(repr=False)
-    fit: FitResult
-    chain: object = field(default=None, repr=False)
-    linear_delays: tuple = ()
-    provenance: dict | None = None
-
-    def __repr__(self) -> str:
-        sampled = "" if self.chain is None else f", {len(self.chain.samples())} samples"
-        return (
-            f"<ScenarioFit of {self.scenario.name!r} with {self.fit.model_label}: "
-            f"chi2 {self.fit.chi2:.1f} for {self.fit.dof} dof{sampled}>"
-        )
-
-    def report(self) -> str:
-        """The text ``lensdelay fit`` prints."""
-        from lensdelay.report.text import fit_text
-
-        return fit_text(self)
-
-    def sky_view(self, resolution: int = 300) -> dict:
-        """What a sky figure of the best fit draws, computed once.
-
-        Returns ``extent`` (arcsec) and per family its label, observed positions, errors
-        and labels, the model images, the source, and the critical curves with their
-        caustics (:func:`lensdelay.lensing.critical.critical_lines`); plus the
-        predicted images nobody observed.
-        """
-        like, values = self.likelihood, self.fit.values
-        pts = np.concatenate([np.hypot(f.x, f.y) for f in like.families])
-        extent = 1.4 * float(pts.max()) + 0.3
-        members = like.model.members
-        if members is not None:
-            # widen the view to the member galaxies near the images (up to twice as far)
-            far = np.maximum(np.abs(members.x), np.abs(members.y))
-            near = far[far <= 2 * extent]
-            if len(near):
-                extent = max(extent, 1.15 * float(near.max()))
-        lens = like.model.lens(values[: like.n_model])
-        families = []
-        families_now = like.families_at(values)
-        for k, (fam, pred) in enumerate(zip(families_now, like.predict(values[None, :]))):
-            ok = pred["ok"][0]
-            families.append(
-                {
-                    "label": fam.label,
-                    "x": fam.x,
-                    "y": fam.y,
-                    "sigma": fam.sigma,
-                    "labels": fam.labels,
-                    "model_x": pred["x"][0, ok],
-                    "model_y": pred["y"][0, ok],
-                    "source": values[like.source_slice(k)],
-                    "critical_lines": critical_lines(
-                        lens, fam.scale, extent=extent, resolution=resolution
-                    ),
-                }
-            )
-        return {
-            "extent": extent,
-            "families": families,
-            "unobserved": self.fit.unobserved_images,
-            "members": None if members is None else {"x": members.x, "y": members.y},
-        }
-
-    def arrival_surface(
-        self, family: str, reference: tuple[float, float], extent: float, resolution: int = 200
-    ) -> dict:
-        """The arrival-time surface of ``family``'s source at the best fit, on a square grid.
-
-        Days after a point ``reference`` (x, y in arcsec; the reference image), at the
-        scenario's cosmology and κ_ext = 0: t(θ) − t(θ_ref) = (D_Δt/c)(τ(θ) − τ(θ_ref))
-        (CONVENTIONS.md, "Arrival time and delays").
-
-        Returns ``x``, ``y`` (1-D grid axes, arcsec) and ``days`` (resolution × resolution,
-        indexed [y, x]).
-        """
-        like, values = self.likelihood, self.fit.values
-        k = [f.label for f in like.families].index(family)
-        fam = like.families_at(values)[k]
-        lens = like.model.lens(values[: like.n_model])
-        bx, by = values[like.source_slice(k)]
-        axis = np.linspace(-extent, extent, resolution)
-        gx, gy = np.meshgrid(axis, axis)
-        with np.errstate(all="ignore"):
-            tau = lens.fermat_potential(gx, gy, bx, by, fam.scale)
-            tau_ref = lens.fermat_potential(
-                np.array([reference[0]]), np.array([reference[1]]), bx, by, fam.scale
-            )[0]
-        return {"x": axis, "y": axis, "days": (tau - tau_ref) * fam.days_per_arcsec2}

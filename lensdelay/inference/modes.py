@@ -26,6 +26,8 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 __all__ = [
+    "DISTINCT_MODE",
+    "distinct_modes",
     "MODE_DCHI2",
     "MAX_EXTRA_MODES",
     "DISTINCT_CHAINS",
@@ -42,7 +44,7 @@ MODE_DCHI2 = 9.2
 #: Most fit modes sampled besides the best one (each costs one more chain).
 MAX_EXTRA_MODES = 2
 #: Error bars of the best fit apart in some parameter for two chains to sample distinct
-#: valleys (as the fit's own test, :data:`lensdelay.inference.fit.DISTINCT_MODE`).
+#: valleys (as the fit's own test, :data:`DISTINCT_MODE`).
 DISTINCT_CHAINS = 3.0
 
 
@@ -197,3 +199,31 @@ def mix_modes(like, result, chains: list, chi2s: list[float]):
         warnings=list(dict.fromkeys([w for ch, _ in parts for w in ch.warnings] + notes)),
     )
     return mixed, shares, notes
+
+
+#: Error bars (of the best fit) apart in some parameter for another optimum to be a mode.
+DISTINCT_MODE = 3.0
+
+
+def distinct_modes(like, polished, best, errors) -> list:
+    """The polished optima other than ``best`` that lie apart from it and from each other.
+
+    Apart: more than DISTINCT_MODE of the best fit's error bars in some parameter (angles
+    compared modulo their period).
+    """
+    scale = np.where(np.isfinite(errors) & (errors > 0), errors, np.inf)
+    kept: list = []
+    for chi2, v in sorted(polished, key=lambda c: c[0]):
+        others = [best] + [k[1] for k in kept]
+        distinct = True
+        for o in others:
+            diff = np.abs(v - o)
+            for i, period in enumerate(like.periods):
+                if period:
+                    diff[i] = min(diff[i] % period, period - diff[i] % period)
+            if not np.any(diff / scale > DISTINCT_MODE):
+                distinct = False
+                break
+        if distinct:
+            kept.append((float(chi2), np.array(v, dtype=float)))
+    return kept

@@ -72,7 +72,7 @@ def _sky_axes(ax, extent):
 def sky_figure(view: dict, title: str = ""):
     """Observed and model images, critical curves and caustics of every family.
 
-    ``view`` is :meth:`lensdelay.inference.fit.ScenarioFit.sky_view`.
+    ``view`` is :meth:`lensdelay.inference.scenario_fit.ScenarioFit.sky_view`.
     """
     fig = Figure(figsize=(6.4, 6.0))
     ax = fig.subplots()
