@@ -38,6 +38,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.interpolate import CubicSpline
 
+from lensdelay.inference.information import information_jacobian
 from lensdelay.inference.parameters import H0_RANGE, ParameterSpace
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import LensDistances
@@ -65,8 +66,6 @@ MISSING_IMAGE_PENALTY = 1e3
 EXTRA_IMAGE_MAG_SCALE = 0.2
 #: Priors the posterior can use (see the module docstring).
 PRIOR_CHOICES = ("jeffreys", "flat")
-#: Relative step of the central differences for the Fisher information.
-_INFO_STEP = 1e-6
 
 
 @dataclass
@@ -636,127 +635,8 @@ class ImageLikelihood:
     def information_jacobian(
         self, params: np.ndarray, preds=None, columns=None, scheme: str = "central"
     ) -> np.ndarray:
-        """∂(normalised residuals)/∂(parameters) at the predicted images, (P, m, n).
-
-        Image positions move with the parameters by the implicit-function theorem
-        applied to the lens equation θ − s α(θ; p) = β:
-        dθ/dp = A⁻¹ (s ∂α/∂p + ∂β/∂p), A = I − s ∂α/∂θ (Schneider, Ehlers & Falco
-        1992, eq. 5.20 for A). ∂α/∂p (and the Fermat potential and magnification for
-        delay and flux rows) come from central differences in the parameters, at the
-        images moved along dθ/dp, so no lens equation is solved again. Rows of Gaussian
-        priors and of the lens-light centre are constant.
-
-        ``columns`` (indices of parameters) limits the differences to those parameters;
-        the other columns are then zero (a conditional fit needs no more, at a fraction
-        of the cost).
-
-        ``scheme``: ``"central"`` (error O(h²), 2 lens evaluations per parameter) or
-        ``"forward"`` (error O(h), about 1e-6 relative at the step h = 1e-6·max(1, abs(p));
-        n + 1 evaluations, half the cost). The forward scheme serves where the Jacobian
-        only shapes proposals (a Metropolis–Hastings ratio keeps the target exact); the
-        Jeffreys prior, part of the target, uses the central one.
-        """
-        if scheme not in ("central", "forward"):
-            raise ValueError(f"scheme must be 'central' or 'forward', got {scheme!r}")
-        params = np.atleast_2d(np.asarray(params, dtype=float))
-        preds = self.predict(params) if preds is None else preds
-        n_rows, n_all = params.shape
-        cols = np.arange(n_all) if columns is None else np.asarray(columns, dtype=int)
-        position = {int(c): k for k, c in enumerate(cols)}
-        n_par = len(cols)  # the differenced parameters
-        step = _INFO_STEP * np.maximum(1.0, np.abs(params))  # (P, n)
-        # steps never leave the bounds (a best fit may sit on q = 1 or γ = 0): one-sided
-        # there, and every difference is divided by the step actually taken
-        up = np.minimum(step, self.upper - params)[:, cols]  # (P, n), ≥ 0
-        down = np.minimum(step, params - self.lower)[:, cols]
-        # central: rows p + up e_k, then p - down e_k, for every k (2 n P rows, k-major);
-        # forward: rows p + h e_k (h = up, or -down on an upper bound), then p itself
-        # ((n + 1) P rows). hi/lo: the signed steps of the two blocks, (n, P, 1).
-        if scheme == "central":
-            hi, lo = up.T[:, :, None], -down.T[:, :, None]
-        else:
-            hi, lo = np.where(up > 0, up, -down).T[:, :, None], np.zeros((1, n_rows, 1))
-        eye = np.eye(n_all)[cols]
-        high = params[None, :, :] + hi * eye[:, None, :]
-        low = params[None, :, :] + lo * eye[:, None, :] if scheme == "central" else params[None]
-        shifted = np.concatenate([high, low]).reshape(-1, n_all)
-        span = hi - lo  # (n, P, 1)
-        lens = self.lens_for(shifted)
-        need_derived = self.use_delays or self.use_fluxes
-        jac_parts, fermat_pm, mu_pm = [], [], []
-        for k, (fam, pred) in enumerate(zip(self.families, preds)):
-            n_obs = pred["x"].shape[1]
-            # observed images, then tracked predicted ones (timing rows may need them)
-            x = np.hstack([pred["x"], pred["track_x"]])  # (P, I)
-            y = np.hstack([pred["y"], pred["track_y"]])
-            n_copies = len(shifted) // n_rows
-            xs = np.tile(x, (n_copies, 1))
-            ys = np.tile(y, (n_copies, 1))
-            shifted_scale = self.family_scale(k, shifted)
-            with np.errstate(all="ignore"):
-                ax, ay = lens.deflection(xs, ys, shifted_scale)
-                # A at the observed images' predictions is known from predict; only the
-                # tracked images' is computed (none on the sampler's usual path)
-                a11, a12, a22 = pred["magnification_matrix"]
-                if pred["track_x"].shape[1]:
-                    tracked_a = pred["lens"].jacobian(
-                        pred["track_x"], pred["track_y"], pred["scale"]
-                    )
-                    a11, a12, a22 = (
-                        np.hstack([known, np.broadcast_to(extra, pred["track_x"].shape)])
-                        for known, extra in zip((a11, a12, a22), tracked_a)
-                    )
-            ax = ax.reshape(-1, n_rows, ax.shape[-1])
-            ay = ay.reshape(-1, n_rows, ay.shape[-1])
-            dax = (ax[:n_par] - ax[n_par:]) / span  # (n, P, I)
-            day = (ay[:n_par] - ay[n_par:]) / span
-            # the source position moves the images one for one
-            sl = self.source_slice(k)
-            if sl.start in position:
-                dax[position[sl.start]] += 1.0
-            if sl.start + 1 in position:
-                day[position[sl.start + 1]] += 1.0
-            with np.errstate(all="ignore"):
-                det = a11 * a22 - a12 * a12
-                dxdp = (a22 * dax - a12 * day) / det  # (n, P, I)
-                dydp = (a11 * day - a12 * dax) / det
-            jac_parts += [
-                np.moveaxis(dxdp[..., :n_obs] / fam.sigma, 0, -1),
-                np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1),
-            ]
-            if need_derived:
-                # the images moved along dθ/dp with each row's step (not at all for p)
-                central = scheme == "central"
-                low_x = x + lo * dxdp if central else x[None]
-                low_y = y + lo * dydp if central else y[None]
-                moved_x = np.concatenate([x + hi * dxdp, low_x]).reshape(-1, x.shape[1])
-                moved_y = np.concatenate([y + hi * dydp, low_y]).reshape(-1, x.shape[1])
-                bx = shifted[:, sl][:, :1]
-                by = shifted[:, sl][:, 1:]
-                with np.errstate(all="ignore"):
-                    tau_pm = lens.fermat_potential(moved_x, moved_y, bx, by, shifted_scale)
-                    mu_pm.append(
-                        lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], shifted_scale)
-                    )
-                exists = np.tile(np.isfinite(pred["track_fermat"]), (n_copies, 1))
-                tau_pm[:, n_obs:] = np.where(exists, tau_pm[:, n_obs:], np.nan)
-                fermat_pm.append(tau_pm)
-        for i, (_, sig) in {**self.priors, **self.centre_prior}.items():
-            row = np.zeros((n_rows, 1, n_par))
-            if i in position:
-                row[:, 0, position[i]] = 1.0 / sig
-            jac_parts.append(row)
-        jac = np.concatenate(jac_parts, axis=1)
-        if need_derived:
-            derived = np.hstack(self._derived_residuals(shifted, fermat_pm, mu_pm))
-            derived = derived.reshape(-1, n_rows, derived.shape[-1])
-            ddiff = (derived[:n_par] - derived[n_par:]) / span  # (n, P, m')
-            jac = np.concatenate([jac, np.moveaxis(ddiff, 0, -1)], axis=1)
-        if columns is None:
-            return jac
-        full = np.zeros(jac.shape[:2] + (n_all,))
-        full[:, :, cols] = jac
-        return full
+        """∂(normalised residuals)/∂(parameters): :func:`information.information_jacobian`."""
+        return information_jacobian(self, params, preds, columns, scheme)
 
     @staticmethod
     def _half_log_det_information(jac: np.ndarray) -> np.ndarray:
