@@ -20,7 +20,6 @@ from lensdelay.errors import FitError, InputError
 from lensdelay.forecast.request import ForecastRequest
 from lensdelay.forecast.result import Forecast
 from lensdelay.forecast.samples import (
-    TimingUpdate,
     draw_scale_priors,
     image_tracks,
     mode_notes,
@@ -42,7 +41,7 @@ from lensdelay.forecast.combine import (
     summarise,
 )
 from lensdelay.forecast.sightings import parse_sightings, resolve_sightings, timing_for
-from lensdelay.forecast.update import condition_on_timing, draw_t0
+from lensdelay.forecast.update import TimingUpdate, condition_on_timing, draw_t0
 from lensdelay.forecast.perturbers import (
     perturber_notes,
     perturber_response,
@@ -86,35 +85,8 @@ def run_forecast(
         request = ForecastRequest.from_options(**options)
     elif options:
         raise InputError(f"options must be given in the request, got {sorted(options)[0]!r}")
-    scenarios = [scenarios] if isinstance(scenarios, Scenario) else list(scenarios)
-    if not scenarios:
-        raise InputError("scenarios must hold at least one scenario, got none")
-    sc0 = scenarios[0]
-    if sc0.transient is None:
-        raise InputError(
-            "transient is required for a forecast ([transient] with family, seen_in "
-            "and date), got nothing",
-            sc0.source,
-        )
-    if request.cosmology_name is not None:
-        cosmo = cosmology_from_spec({"name": request.cosmology_name})
-        scenarios = [replace(s, cosmology=cosmo) for s in scenarios]
-    tr = sc0.transient
-    sightings = parse_sightings(request.seen, sc0)
-    settings = request.settings(sightings)
-    now = Time.now() if request.now is None else request.now
-    for s in sightings:
-        if s.date > now:
-            raise InputError(
-                f"seen {s.family}/{s.label} date must not be after now ({now.isot[:19]}Z: a "
-                f"sighting has happened; set --now for another day), got {s.date.isot[:19]}Z"
-            )
-    site = request.site or sc0.site
-    if prepared is not None and len(prepared) != len(scenarios):
-        raise InputError(
-            f"prepared must hold one prepared lens per scenario ({len(scenarios)}), "
-            f"got {len(prepared)}"
-        )
+    scenarios, sightings, settings, now, site = _checked_inputs(scenarios, request, prepared)
+    sc0, tr = scenarios[0], scenarios[0].transient
     # one seed for the whole run: every stage draws from its own child of it
     root_seed = np.random.SeedSequence(request.seed)
     stage_seeds = iter(root_seed.spawn(4 * len(scenarios) + 2))
@@ -127,18 +99,7 @@ def run_forecast(
         per_model.append(run.model(sc, None if prepared is None else prepared[k], first))
     updates = [m.update for m in per_model]
     fits = [m.fit for m in per_model]
-    if not any(np.isfinite(u_.log_evidence) for u_ in updates):
-        raise InputError(
-            "the sightings and measured delays must be possible under at least one model "
-            "(each names images the model has), got none",
-            sc0.source,
-        )
-    acceptable = [not f.quality()["poor"] for f in fits]  # poor includes a model error
-    bics = [f.bic for f in fits]
-    w_model = model_weights(
-        bics, [u_.log_evidence for u_ in updates], settings.weighting, acceptable
-    )
-    w_prior = model_weights(bics, np.zeros(len(fits)), settings.weighting, acceptable)
+    w_model, w_prior = _model_weights(per_model, settings, sc0.source)
     best = per_model[int(np.argmax(w_model))]
     view = _finder_view(best.scenario, best.likelihood, best.fit, tr, per_model[0].tracks)
     prior_models = [m.prior_model for m in per_model]
@@ -192,6 +153,61 @@ def run_forecast(
         sky_view=view,
         h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
     )
+
+
+def _checked_inputs(scenarios, request: ForecastRequest, prepared):
+    """The scenarios (with a named cosmology), sightings, settings, now and site, checked."""
+    scenarios = [scenarios] if isinstance(scenarios, Scenario) else list(scenarios)
+    if not scenarios:
+        raise InputError("scenarios must hold at least one scenario, got none")
+    sc0 = scenarios[0]
+    if sc0.transient is None:
+        raise InputError(
+            "transient is required for a forecast ([transient] with family, seen_in "
+            "and date), got nothing",
+            sc0.source,
+        )
+    if request.cosmology_name is not None:
+        cosmo = cosmology_from_spec({"name": request.cosmology_name})
+        scenarios = [replace(s, cosmology=cosmo) for s in scenarios]
+    sightings = parse_sightings(request.seen, sc0)
+    settings = request.settings(sightings)
+    now = Time.now() if request.now is None else request.now
+    for s in sightings:
+        if s.date > now:
+            raise InputError(
+                f"seen {s.family}/{s.label} date must not be after now ({now.isot[:19]}Z: a "
+                f"sighting has happened; set --now for another day), got {s.date.isot[:19]}Z"
+            )
+    site = request.site or sc0.site
+    if prepared is not None and len(prepared) != len(scenarios):
+        raise InputError(
+            f"prepared must hold one prepared lens per scenario ({len(scenarios)}), "
+            f"got {len(prepared)}"
+        )
+    return scenarios, sightings, settings, now, site
+
+
+def _model_weights(per_model, settings, source):
+    """The models' weights with the timing data and from the positions alone.
+
+    Refuses a run whose timing data no model can produce.
+    """
+    updates = [m.update for m in per_model]
+    fits = [m.fit for m in per_model]
+    if not any(np.isfinite(u_.log_evidence) for u_ in updates):
+        raise InputError(
+            "the sightings and measured delays must be possible under at least one model "
+            "(each names images the model has), got none",
+            source,
+        )
+    acceptable = [not f.quality()["poor"] for f in fits]  # poor includes a model error
+    bics = [f.bic for f in fits]
+    w_model = model_weights(
+        bics, [u_.log_evidence for u_ in updates], settings.weighting, acceptable
+    )
+    w_prior = model_weights(bics, np.zeros(len(fits)), settings.weighting, acceptable)
+    return w_model, w_prior
 
 
 @dataclass

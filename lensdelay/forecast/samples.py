@@ -19,7 +19,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.special import logsumexp
 
 from lensdelay.errors import InputError
 from lensdelay.forecast.perturbers import PerturberPopulation
@@ -29,7 +28,6 @@ from lensdelay.lensing.lens import PARITIES
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.modes import MODE_DCHI2
 from lensdelay.inference.priors import draw_kappa
-from lensdelay.inference.summaries import effective_sample_size
 from lensdelay.inference.timing import TimingData
 
 __all__ = [
@@ -51,8 +49,6 @@ __all__ = [
     "SAMPLE_RANGE",
     "check_sample_count",
     "draw_scale_priors",
-    "TimingUpdate",
-    "importance_update",
     "majority",
     "WEIGHTINGS",
     "model_weights",
@@ -373,76 +369,6 @@ def draw_scale_priors(
         h0 = np.full(n, h0_ref)
     kappa = draw_kappa(*settings.kappa_ext, n, rng)
     return h0, kappa
-
-
-@dataclass
-class TimingUpdate:
-    """How one model's samples were conditioned on the timing data."""
-
-    route: str  # "none", "reweight" or "resample"
-    weights: np.ndarray  # per sample, sum 1
-    effective_samples: float
-    log_evidence: float  # log E[L_timing] over the samples without timing data
-    importance_effective_samples: float | None = None
-    notes: list[str] = field(default_factory=list)
-
-
-def importance_update(
-    samples: ModelSamples, timing: TimingData | None, min_fraction: float = MIN_ESS_FRACTION
-) -> tuple[TimingUpdate, bool]:
-    """Importance weights of the samples given the timing data.
-
-    Returns the update and whether it is good enough (effective sample size at least
-    ``min_fraction`` of the samples); if not, the caller samples the posterior anew.
-    The log evidence log E[L] (mean over the samples of the timing likelihood, up to
-    the Gaussian's constant, which is the same for every model) multiplies the model
-    weights: it is the marginal likelihood of the timing data under this model.
-    """
-    base = samples.valid.astype(float)
-    n = len(base)
-    if timing is None or not len(timing):
-        w = base / max(base.sum(), 1e-300)
-        return TimingUpdate("none", w, float(base.sum()), 0.0), True
-    arrival = samples.columns(timing)
-    logl = timing.log_likelihood(arrival)
-    logl = np.where(samples.valid, logl, -np.inf)
-    notes = _missing_image_notes(timing, arrival, samples.valid)
-    if not np.any(np.isfinite(logl)):
-        return TimingUpdate(
-            "reweight",
-            np.zeros(n),
-            0.0,
-            -np.inf,
-            0.0,
-            notes
-            + ["the timing data are impossible under every sample (an image they name is missing)"],
-        ), False
-    log_evidence = float(logsumexp(logl) - np.log(max(base.sum(), 1.0)))
-    w = np.exp(logl - np.max(logl))
-    ess = effective_sample_size(w)
-    update = TimingUpdate("reweight", w / w.sum(), ess, log_evidence, ess, notes)
-    return update, ess >= min_fraction * n
-
-
-def _missing_image_notes(timing: TimingData, arrival: np.ndarray, valid: np.ndarray) -> list[str]:
-    """A note per image named by the timing data that some samples lack.
-
-    Such a sample has no arrival time for that image, so it cannot produce the
-    measurement: its timing likelihood is zero (the sample keeps no weight).
-    """
-    notes = []
-    needed = np.any(timing.design != 0, axis=0)
-    total = max(int(np.sum(valid)), 1)
-    for col, (family, label) in enumerate(timing.columns):
-        if not needed[col]:
-            continue
-        lacking = int(np.sum(valid & ~np.isfinite(arrival[:, col])))
-        if lacking:
-            notes.append(
-                f"image {family}/{label} is missing in {100.0 * lacking / total:.1f}% of the "
-                f"samples; they cannot produce the measurements that name it (likelihood zero)"
-            )
-    return notes
 
 
 def majority(codes, weights):
