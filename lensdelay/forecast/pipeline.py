@@ -126,12 +126,7 @@ def run_forecast(
     calendar = _observability_calendar(images, site, sc0.sky, tr, now)
     stages(None)
     cosmology = scenarios[0].cosmology
-    notes = [f"the best fit's image {name} exists in no sample; it is left out" for name in missing]
-    if now < tr.date:
-        notes.append(
-            f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
-            "statuses are judged as of now"
-        )
+    notes = _run_notes(missing, now, tr)
     chains = [c for m in per_model for c in m.chains]
     return Forecast(
         scenario=sc0,
@@ -153,6 +148,17 @@ def run_forecast(
         sky_view=view,
         h0_used=(settings.h0_prior if settings.h0_prior is not None else float(cosmology.H0.value)),
     )
+
+
+def _run_notes(missing, now, tr) -> list[str]:
+    """Notes of the whole run: images no sample has, a 'now' before the detection."""
+    notes = [f"the best fit's image {name} exists in no sample; it is left out" for name in missing]
+    if now < tr.date:
+        notes.append(
+            f"now ({now.isot[:10]}) is before the detection date ({tr.date.isot[:10]}); "
+            "statuses are judged as of now"
+        )
+    return notes
 
 
 def _checked_inputs(scenarios, request: ForecastRequest, prepared):
@@ -239,15 +245,13 @@ class _Run:
     progress: object
     stop: object
 
-    def model(self, sc, prepared, first_tracks) -> _ModelForecast:
-        """Fit (or take from ``prepared``), sample, solve and update one model.
+    def fitted(self, sc, prepared):
+        """(likelihood, best fit, chain) of one model: fitted and sampled, or prepared.
 
-        The stage seeds are drawn in a fixed order (fit, sampling, draws, and the update's
-        when there is one), so a run repeats exactly.
+        Two stage seeds are drawn either way, so a forecast from a prepared lens repeats
+        the rest of one that fitted.
         """
-        request, settings, tr = self.request, self.settings, sc.transient
-        sampler = request.sampler
-        n = settings.n_samples
+        sampler = self.request.sampler
         fit_seed, sample_seed = next(self.stage_seeds), next(self.stage_seeds)
         if prepared is not None:
             self.stages(f"prepared {sc.model.label}")
@@ -255,19 +259,30 @@ class _Run:
             # the scenario as given here (a --cosmology replaces the prepared one): the
             # chain holds lens parameters; distances come from the cosmology in use
             like = replace(prepared, scenario=sc).likelihood()
-            result, chain = prepared.fit, prepared.chain
-        else:
-            self.stages(f"fitting {sc.model.label}")
-            like = ImageLikelihood(sc, sc.model, prior=sampler.prior)
-            result, chain = fit_and_sample(
-                like,
-                walkers=sampler.walkers,
-                steps=sampler.steps,
-                fit_seed=int_seed(fit_seed),
-                sample_seed=int_seed(sample_seed),
-                progress=self.progress,
-                stop=self.stop,
-            )
+            return like, prepared.fit, prepared.chain
+        self.stages(f"fitting {sc.model.label}")
+        like = ImageLikelihood(sc, sc.model, prior=sampler.prior)
+        result, chain = fit_and_sample(
+            like,
+            walkers=sampler.walkers,
+            steps=sampler.steps,
+            fit_seed=int_seed(fit_seed),
+            sample_seed=int_seed(sample_seed),
+            progress=self.progress,
+            stop=self.stop,
+        )
+        return like, result, chain
+
+    def model(self, sc, prepared, first_tracks) -> _ModelForecast:
+        """Fit (or take from ``prepared``), sample, solve and update one model.
+
+        The stage seeds are drawn in a fixed order (fit, sampling, draws, and the update's
+        when there is one), so a run repeats exactly.
+        """
+        settings, tr = self.settings, sc.transient
+        sampler = self.request.sampler
+        n = settings.n_samples
+        like, result, chain = self.fitted(sc, prepared)
         self.stages(f"images and timing update, {sc.model.label}")
         notes = list(result.notes) + list(chain.warnings)
         if result.dof <= 0:

@@ -218,6 +218,46 @@ def condition_on_timing(
     )
 
 
+def _resample_notes(update, jchain, n, n_steps, ess, want) -> list[str]:
+    """What a joint resample says: why it ran, how long, and what it is worth."""
+    notes = list(update.notes) + [
+        f"the measurements left {update.importance_effective_samples:.0f} effective samples of "
+        f"{n} after "
+        f"re-weighting; the posterior was sampled again with them ({n_steps} steps, "
+        f"about {ess:.0f} independent samples)"
+    ]
+    notes += list(jchain.warnings)
+    if ess < want:
+        notes.append(
+            f"only about {ess:.0f} independent samples (goal {want:.0f}); raise --steps (this "
+            f"run took {n_steps}) or --walkers"
+        )
+    return notes
+
+
+def _joint_likelihood(sc, like, tracks, timing, settings, sampler) -> ImageLikelihood:
+    """Positions and timing data together, H0 and κ_ext free with their priors.
+
+    The predicted images the timing data name are followed by Newton's method.
+    """
+    tracked = {
+        tracks[0].family: {
+            t.label: (t.x, t.y)
+            for t in tracks
+            if not t.observed and (t.family, t.label) in timing.columns
+        }
+    }
+    return ImageLikelihood(
+        like.scenario,  # with the positions' model error, if the fit needed one
+        sc.model,
+        prior=sampler.prior,
+        timing=timing,
+        h0_prior=settings.h0_prior if settings.h0_prior is not None else "fixed",
+        kappa_prior=settings.kappa_ext,
+        tracked=tracked,
+    )
+
+
 def resample_jointly(
     sc,
     like,
@@ -246,22 +286,7 @@ def resample_jointly(
         cols = track_columns(tracks, timing.columns)
         smooth_timing = timing
         timing = timing.with_arrival_covariance(covariance[np.ix_(cols, cols)])
-    tracked = {
-        tracks[0].family: {
-            t.label: (t.x, t.y)
-            for t in tracks
-            if not t.observed and (t.family, t.label) in timing.columns
-        }
-    }
-    joint = ImageLikelihood(
-        like.scenario,  # with the positions' model error, if the fit needed one
-        sc.model,
-        prior=sampler.prior,
-        timing=timing,
-        h0_prior=st.h0_prior if st.h0_prior is not None else "fixed",
-        kappa_prior=st.kappa_ext,
-        tracked=tracked,
-    )
+    joint = _joint_likelihood(sc, like, tracks, timing, st, sampler)
     fit_seed, sample_seed, rng = seeds
     # enough steps that the kept chain holds min_ess_fraction·n independent samples,
     # judged by the autocorrelation time of the positions-only chain
@@ -292,18 +317,7 @@ def resample_jointly(
     if covariance is not None:
         samples = draw_conditional_perturbations(samples, smooth_timing, covariance, perturber_rng)
     ess = min(float(n), chain_effective_samples(jchain))
-    notes = list(update.notes) + [
-        f"the measurements left {update.importance_effective_samples:.0f} effective samples of "
-        f"{n} after "
-        f"re-weighting; the posterior was sampled again with them ({n_steps} steps, "
-        f"about {ess:.0f} independent samples)"
-    ]
-    notes += list(jchain.warnings)
-    if ess < want:
-        notes.append(
-            f"only about {ess:.0f} independent samples (goal {want:.0f}); raise --steps (this "
-            f"run took {n_steps}) or --walkers"
-        )
+    notes = _resample_notes(update, jchain, n, n_steps, ess, want)
     # re-solved images may lack one the timing data name: such a sample cannot produce
     # the measurement, likelihood zero as in the re-weighting (TimingData.log_likelihood)
     possible = samples.valid & np.isfinite(timing.log_likelihood(samples.columns(timing)))

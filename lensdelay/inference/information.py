@@ -66,61 +66,13 @@ def information_jacobian(
     lens = like.lens_for(shifted)
     need_derived = like.use_delays or like.use_fluxes
     jac_parts, fermat_pm, mu_pm = [], [], []
+    steps = (shifted, n_rows, span, hi, lo, position, scheme == "central")
     for k, (fam, pred) in enumerate(zip(like.families, preds)):
-        n_obs = pred["x"].shape[1]
-        # observed images, then tracked predicted ones (timing rows may need them)
-        x = np.hstack([pred["x"], pred["track_x"]])  # (P, I)
-        y = np.hstack([pred["y"], pred["track_y"]])
-        n_copies = len(shifted) // n_rows
-        xs = np.tile(x, (n_copies, 1))
-        ys = np.tile(y, (n_copies, 1))
-        shifted_scale = like.family_scale(k, shifted)
-        with np.errstate(all="ignore"):
-            ax, ay = lens.deflection(xs, ys, shifted_scale)
-            # A at the observed images' predictions is known from predict; only the
-            # tracked images' is computed (none on the sampler's usual path)
-            a11, a12, a22 = pred["magnification_matrix"]
-            if pred["track_x"].shape[1]:
-                tracked_a = pred["lens"].jacobian(pred["track_x"], pred["track_y"], pred["scale"])
-                a11, a12, a22 = (
-                    np.hstack([known, np.broadcast_to(extra, pred["track_x"].shape)])
-                    for known, extra in zip((a11, a12, a22), tracked_a)
-                )
-        ax = ax.reshape(-1, n_rows, ax.shape[-1])
-        ay = ay.reshape(-1, n_rows, ay.shape[-1])
-        dax = (ax[:n_par] - ax[n_par:]) / span  # (n, P, I)
-        day = (ay[:n_par] - ay[n_par:]) / span
-        # the source position moves the images one for one
-        sl = like.source_slice(k)
-        if sl.start in position:
-            dax[position[sl.start]] += 1.0
-        if sl.start + 1 in position:
-            day[position[sl.start + 1]] += 1.0
-        with np.errstate(all="ignore"):
-            det = a11 * a22 - a12 * a12
-            dxdp = (a22 * dax - a12 * day) / det  # (n, P, I)
-            dydp = (a11 * day - a12 * dax) / det
-        jac_parts += [
-            np.moveaxis(dxdp[..., :n_obs] / fam.sigma, 0, -1),
-            np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1),
-        ]
-        if need_derived:
-            # the images moved along dθ/dp with each row's step (not at all for p)
-            central = scheme == "central"
-            low_x = x + lo * dxdp if central else x[None]
-            low_y = y + lo * dydp if central else y[None]
-            moved_x = np.concatenate([x + hi * dxdp, low_x]).reshape(-1, x.shape[1])
-            moved_y = np.concatenate([y + hi * dydp, low_y]).reshape(-1, x.shape[1])
-            bx = shifted[:, sl][:, :1]
-            by = shifted[:, sl][:, 1:]
-            with np.errstate(all="ignore"):
-                tau_pm = lens.fermat_potential(moved_x, moved_y, bx, by, shifted_scale)
-                mu_pm.append(
-                    lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], shifted_scale)
-                )
-            exists = np.tile(np.isfinite(pred["track_fermat"]), (n_copies, 1))
-            tau_pm[:, n_obs:] = np.where(exists, tau_pm[:, n_obs:], np.nan)
-            fermat_pm.append(tau_pm)
+        parts, derived = _family_derivatives(like, k, fam, pred, lens, steps, need_derived)
+        jac_parts += parts
+        if derived is not None:
+            fermat_pm.append(derived[0])
+            mu_pm.append(derived[1])
     for i, (_, sig) in {**like.priors, **like.centre_prior}.items():
         row = np.zeros((n_rows, 1, n_par))
         if i in position:
@@ -137,3 +89,67 @@ def information_jacobian(
     full = np.zeros(jac.shape[:2] + (n_all,))
     full[:, :, cols] = jac
     return full
+
+
+def _family_derivatives(like, k, fam, pred, lens, steps, need_derived):
+    """One family's rows of the Jacobian: its images' offsets, differenced.
+
+    ``steps``: the shifted parameter rows, the number of rows, the steps taken, the
+    signed steps of the two blocks, each differenced parameter's position and whether
+    the scheme is central. Returns the position rows and, when delay or flux rows are
+    needed, the Fermat potentials and magnifications at the images moved along dθ/dp.
+    """
+    shifted, n_rows, span, hi, lo, position, central = steps
+    n_par = len(span)  # the differenced parameters
+    n_obs = pred["x"].shape[1]
+    # observed images, then tracked predicted ones (timing rows may need them)
+    x = np.hstack([pred["x"], pred["track_x"]])  # (P, I)
+    y = np.hstack([pred["y"], pred["track_y"]])
+    n_copies = len(shifted) // n_rows
+    xs = np.tile(x, (n_copies, 1))
+    ys = np.tile(y, (n_copies, 1))
+    shifted_scale = like.family_scale(k, shifted)
+    with np.errstate(all="ignore"):
+        ax, ay = lens.deflection(xs, ys, shifted_scale)
+        # A at the observed images' predictions is known from predict; only the
+        # tracked images' is computed (none on the sampler's usual path)
+        a11, a12, a22 = pred["magnification_matrix"]
+        if pred["track_x"].shape[1]:
+            tracked_a = pred["lens"].jacobian(pred["track_x"], pred["track_y"], pred["scale"])
+            a11, a12, a22 = (
+                np.hstack([known, np.broadcast_to(extra, pred["track_x"].shape)])
+                for known, extra in zip((a11, a12, a22), tracked_a)
+            )
+    ax = ax.reshape(-1, n_rows, ax.shape[-1])
+    ay = ay.reshape(-1, n_rows, ay.shape[-1])
+    dax = (ax[:n_par] - ax[n_par:]) / span  # (n, P, I)
+    day = (ay[:n_par] - ay[n_par:]) / span
+    # the source position moves the images one for one
+    sl = like.source_slice(k)
+    if sl.start in position:
+        dax[position[sl.start]] += 1.0
+    if sl.start + 1 in position:
+        day[position[sl.start + 1]] += 1.0
+    with np.errstate(all="ignore"):
+        det = a11 * a22 - a12 * a12
+        dxdp = (a22 * dax - a12 * day) / det  # (n, P, I)
+        dydp = (a11 * day - a12 * dax) / det
+    parts = [
+        np.moveaxis(dxdp[..., :n_obs] / fam.sigma, 0, -1),
+        np.moveaxis(dydp[..., :n_obs] / fam.sigma, 0, -1),
+    ]
+    if need_derived:
+        # the images moved along dθ/dp with each row's step (not at all for p)
+        low_x = x + lo * dxdp if central else x[None]
+        low_y = y + lo * dydp if central else y[None]
+        moved_x = np.concatenate([x + hi * dxdp, low_x]).reshape(-1, x.shape[1])
+        moved_y = np.concatenate([y + hi * dydp, low_y]).reshape(-1, x.shape[1])
+        bx = shifted[:, sl][:, :1]
+        by = shifted[:, sl][:, 1:]
+        with np.errstate(all="ignore"):
+            tau_pm = lens.fermat_potential(moved_x, moved_y, bx, by, shifted_scale)
+            mu = lens.magnification(moved_x[:, :n_obs], moved_y[:, :n_obs], shifted_scale)
+        exists = np.tile(np.isfinite(pred["track_fermat"]), (n_copies, 1))
+        tau_pm[:, n_obs:] = np.where(exists, tau_pm[:, n_obs:], np.nan)
+        return parts, (tau_pm, mu)
+    return parts, None

@@ -108,6 +108,30 @@ def _position_sigmas(family, floor: float) -> np.ndarray:
     return np.hypot([im.sigma for im in family.images], floor)
 
 
+def _tracked_starts(tracked: dict, label: str):
+    """(labels, x, y) of the predicted images of family ``label`` to follow."""
+    items = tracked.get(label, {})
+    return (
+        list(items),
+        np.array([v[0] for v in items.values()], dtype=float),
+        np.array([v[1] for v in items.values()], dtype=float),
+    )
+
+
+def _magnitude_differences(fam, use_fluxes: bool):
+    """A family's observed magnitudes minus its first image's; None unless all are known."""
+    mags = []
+    for im in fam.images:
+        if im.magnitude is not None:
+            mags.append(im.magnitude)
+        elif im.flux is not None:
+            mags.append(-2.5 * np.log10(im.flux))
+        else:
+            mags.append(None)
+    usable = use_fluxes and len(mags) > 1 and all(m is not None for m in mags)
+    return np.array(mags, dtype=float) - mags[0] if usable else None
+
+
 class ImageLikelihood:
     """χ² of observed image positions (plus priors, lens light and delays).
 
@@ -162,19 +186,18 @@ class ImageLikelihood:
         self.distances = LensDistances(
             scenario.cosmology, scenario.lens_redshift, scenario.reference_source_redshift
         )
-        self.families = []
-        for fam in scenario.families:
-            self.families.append(
-                FamilyData(
-                    fam.label,
-                    self.distances.deflection_scale(fam.redshift),
-                    self.distances.days_per_arcsec2(fam.redshift),
-                    np.array([im.x for im in fam.images]),
-                    np.array([im.y for im in fam.images]),
-                    _position_sigmas(fam, scenario.position_floor),
-                    fam.labels,
-                )
+        self.families = [
+            FamilyData(
+                fam.label,
+                self.distances.deflection_scale(fam.redshift),
+                self.distances.days_per_arcsec2(fam.redshift),
+                np.array([im.x for im in fam.images]),
+                np.array([im.y for im in fam.images]),
+                _position_sigmas(fam, scenario.position_floor),
+                fam.labels,
             )
+            for fam in scenario.families
+        ]
         if timing is None and use_delays and scenario.delays:
             from lensdelay.inference.timing import TimingData
 
@@ -185,31 +208,11 @@ class ImageLikelihood:
             )
         self.timing = timing
         self.use_delays = timing is not None
-        tracked = tracked or {}
-        self.tracked = []
-        for fam in self.families:
-            items = tracked.get(fam.label, {})
-            self.tracked.append(
-                (
-                    list(items),
-                    np.array([v[0] for v in items.values()], dtype=float),
-                    np.array([v[1] for v in items.values()], dtype=float),
-                )
-            )
+        # predicted images followed by Newton's method, per family: (labels, x, y)
+        self.tracked = [_tracked_starts(tracked or {}, fam.label) for fam in self.families]
         self.flux_floor_mag = float(flux_floor_mag)
         # observed magnitude differences to the first image, per family (None: not used)
-        self.flux_data = []
-        for fam in scenario.families:
-            mags = []
-            for im in fam.images:
-                if im.magnitude is not None:
-                    mags.append(im.magnitude)
-                elif im.flux is not None:
-                    mags.append(-2.5 * np.log10(im.flux))
-                else:
-                    mags.append(None)
-            usable = use_fluxes and len(mags) > 1 and all(m is not None for m in mags)
-            self.flux_data.append(np.array(mags, dtype=float) - mags[0] if usable else None)
+        self.flux_data = [_magnitude_differences(fam, use_fluxes) for fam in scenario.families]
         self.use_fluxes = any(d is not None for d in self.flux_data)
         self.h0_ref = float(scenario.cosmology.H0.value)
         # the layout of a parameter row: names, bounds, priors, angles, H0 and κ_ext

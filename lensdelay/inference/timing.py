@@ -149,8 +149,17 @@ class TimingData:
             self.values[r], self.sigmas[r] = s.days, s.sigma
             self.on_t0[r] = True
             self.names.append(f"sighting {s.family}/{s.image}")
+        self.covariance = self._row_covariance(delay_covariance)
+        self._chol = linalg.cholesky(self.covariance, lower=True) if m else np.zeros((0, 0))
+
+    def _row_covariance(self, delay_covariance) -> np.ndarray:
+        """The rows' covariance.
+
+        Their own errors, the detection date shared by the sightings, and a measured
+        delays' covariance in place of their own errors.
+        """
         b = self.on_t0.astype(float)
-        self.covariance = np.diag(self.sigmas**2) + self.detection_sigma**2 * np.outer(b, b)
+        covariance = np.diag(self.sigmas**2) + self.detection_sigma**2 * np.outer(b, b)
         if delay_covariance is not None:
             nd = len(self.delays)
             cov = np.asarray(delay_covariance, dtype=float)
@@ -161,8 +170,8 @@ class TimingData:
                 )
             if nd and np.min(np.linalg.eigvalsh(cov)) <= 0:
                 raise InputError("delay covariance must be positive definite, got a singular one")
-            self.covariance[:nd, :nd] = cov
-        self._chol = linalg.cholesky(self.covariance, lower=True) if m else np.zeros((0, 0))
+            covariance[:nd, :nd] = cov
+        return covariance
 
     def with_arrival_covariance(self, covariance: np.ndarray) -> TimingData:
         """A copy whose arrival times carry extra Gaussian scatter of this covariance.
