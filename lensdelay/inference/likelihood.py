@@ -108,6 +108,17 @@ def _position_sigmas(family, floor: float) -> np.ndarray:
     return np.hypot([im.sigma for im in family.images], floor)
 
 
+def _scenario_timing(scenario):
+    """The scenario's measured delays as timing data (with their covariance, if any)."""
+    from lensdelay.inference.timing import TimingData
+
+    return TimingData(
+        [(f.label, lab) for f in scenario.families for lab in f.labels],
+        list(scenario.delays),
+        delay_covariance=scenario.delay_covariance,
+    )
+
+
 def _tracked_starts(tracked: dict, label: str):
     """(labels, x, y) of the predicted images of family ``label`` to follow."""
     items = tracked.get(label, {})
@@ -199,13 +210,7 @@ class ImageLikelihood:
             for fam in scenario.families
         ]
         if timing is None and use_delays and scenario.delays:
-            from lensdelay.inference.timing import TimingData
-
-            timing = TimingData(
-                [(f.label, lab) for f in scenario.families for lab in f.labels],
-                list(scenario.delays),
-                delay_covariance=scenario.delay_covariance,
-            )
+            timing = _scenario_timing(scenario)
         self.timing = timing
         self.use_delays = timing is not None
         # predicted images followed by Newton's method, per family: (labels, x, y)
