@@ -176,9 +176,24 @@ class MassProfile(ABC):
     @classmethod
     def parameter_names(cls) -> tuple[str, ...]:
         """Names of the parameters a TOML ``[[mass]]`` entry may give."""
-        back = {v: k for k, v in cls.toml_aliases.items()}
-        names = tuple(back.get(f.name, f.name) for f in fields(cls))
-        return names if cls.centred else tuple(n for n in names if n not in ("x", "y"))
+        return tuple(toml for toml, _ in cls._value_fields())
+
+    @classmethod
+    def _value_fields(cls) -> tuple[tuple[str, str], ...]:
+        """(TOML name, field name) of each parameter, worked out once per class.
+
+        A lens is packed for the compiled kernels at every sampler step, so its values
+        are read often: the field list is cached on the class (fields never change).
+        """
+        cached = cls.__dict__.get("_value_field_list")
+        if cached is None:
+            back = {v: k for k, v in cls.toml_aliases.items()}
+            pairs = tuple((back.get(f.name, f.name), f.name) for f in fields(cls))
+            if not cls.centred:
+                pairs = tuple(p for p in pairs if p[0] not in ("x", "y"))
+            cached = pairs
+            cls._value_field_list = cached
+        return cached
 
     @classmethod
     def required_names(cls) -> tuple[str, ...]:
@@ -199,13 +214,7 @@ class MassProfile(ABC):
 
     def values(self) -> dict:
         """TOML-named parameter values of this component."""
-        back = {v: k for k, v in self.toml_aliases.items()}
-        names = self.parameter_names()
-        return {
-            back.get(f.name, f.name): getattr(self, f.name)
-            for f in fields(self)
-            if back.get(f.name, f.name) in names
-        }
+        return {toml: getattr(self, name) for toml, name in self._value_fields()}
 
     def _shift(self, x, y):
         x = np.asarray(x, dtype=float)
