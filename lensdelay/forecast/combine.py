@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import fields as dataclass_fields
 
 import numpy as np
 from astropy import units as u
@@ -20,6 +21,7 @@ from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
 from lensdelay.inference.timing import tensions_from_draws
 
 __all__ = [
+    "SAMPLE_COLUMNS",
     "MAX_OFFSET_DAYS",
     "CALENDAR_YEARS",
     "REFERENCE_SHIFT_SIGMA",
@@ -40,6 +42,11 @@ MAX_OFFSET_DAYS = 10_000 * 365.25
 
 #: ISO 8601 dates (and the outputs' calendars) are written with four-digit years.
 CALENDAR_YEARS = (1, 9999)
+
+#: The per-sample columns of an image the result keeps (ImageSampleSet's own fields).
+SAMPLE_COLUMNS = tuple(
+    f.name for f in dataclass_fields(ImageSampleSet) if f.name not in ("offsets", "weights")
+)
 
 
 def check_calendar_range(images: list[dict], tr, source: str | None = None) -> None:
@@ -135,26 +142,8 @@ def _gather(g, models, updates, w_model, prior_models, w_prior, tr, settings, rn
     Returns the columns (concatenated over models), the positions-only offsets and
     weights per model, and each model's weight and median delay.
     """
-    cols = {
-        k: []
-        for k in (
-            "delay",
-            "offsets",
-            "mu",
-            "parity",
-            "rank",
-            "weights",
-            "lens_days",
-            "perturber_days",
-            "h0",
-            "kappa",
-            "t0",
-            "model",
-            "x",
-            "y",
-            "mag",
-        )
-    }
+    # the per-sample columns an ImageSampleSet keeps, and those summarised here only
+    cols = {k: [] for k in (*SAMPLE_COLUMNS, "offsets", "weights", "mu", "parity", "rank", "mag")}
     prior_off, prior_w = [], []
     per_model = {}
     for m_index, col in g["members"]:
@@ -249,20 +238,7 @@ def _image_entry(g, arr, per_model, prior_off, prior_w, context) -> dict | None:
         "per_model": per_model,
         "offsets": arr["offsets"],
         "weights": weights,
-        "samples": {
-            k: arr[k]
-            for k in (
-                "lens_days",
-                "perturber_days",
-                "h0",
-                "kappa",
-                "t0",
-                "model",
-                "delay",
-                "x",
-                "y",
-            )
-        },
+        "samples": {k: arr[k] for k in SAMPLE_COLUMNS},
     }
     if min(par_share, rk_share) < AGREEMENT:
         entry["flag"].append(
