@@ -179,3 +179,18 @@ def test_public_names_do_not_shadow_subpackages():
     assert len(lensdelay.__all__) == len(set(lensdelay.__all__))
     for name in lensdelay.__all__:
         assert hasattr(lensdelay, name), name
+
+
+def test_the_command_line_imports_only_what_a_command_needs():
+    """Building the parser (``lensdelay --help``) loads no numerical library: every
+    sub-command imports its work when it runs (issue 27, start-up)."""
+    import subprocess
+    import sys
+
+    heavy = ("astropy", "scipy", "matplotlib", "numba", "emcee", "lensdelay.api")
+    code = (
+        "import sys, lensdelay.cli.main as m; m.build_parser(); "
+        f"print(sorted(n for n in {heavy!r} if n in sys.modules))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"

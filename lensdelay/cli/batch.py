@@ -22,7 +22,6 @@ import sys
 import zlib
 from pathlib import Path
 
-import numpy as np
 
 from lensdelay.errors import InputError
 
@@ -93,6 +92,8 @@ def list_systems(catalogue) -> list[tuple[str, Path]]:
 
 def system_seed(name: str, seed: int) -> int:
     """The seed of system ``name``: the base seed and the name's CRC-32, through SeedSequence."""
+    import numpy as np
+
     state = np.random.SeedSequence([int(seed), zlib.crc32(name.encode("utf-8"))]).generate_state(1)
     return int(state[0])
 
@@ -233,6 +234,7 @@ def summary_table(rows: list[dict], now: str | None = None):
 
     ``now`` (ISO) is the date the statuses were judged as of; it is kept in the meta.
     """
+    import numpy as np
     from astropy.table import MaskedColumn, Table
 
     ranked = sorted(
@@ -351,6 +353,7 @@ def _engine(jobs, workers: int, scheduler: str | None):
 
 def run(args) -> int:
     """Forecast every system of the catalogue not forecast yet, then write the summary."""
+    import numpy as np
     from lensdelay.cli.options import output_folder, request_options
     from lensdelay.io.storage import atomic_write_text
     from lensdelay.model.scenario import parse_date

@@ -3,13 +3,14 @@
 from __future__ import annotations
 
 from lensdelay.cli.options import Once
-from lensdelay.api import check_scenario
 
 __all__ = ["run", "register"]
 
 
 def run(args) -> int:
     """Validate the scenario and print one line about it."""
+    from lensdelay.api import check_scenario
+
     res = check_scenario(args.scenario, args.model)
     sc, like = res["scenario"], res["likelihood"]
     members = sc.model.members

@@ -5,20 +5,21 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from lensdelay.api import measure_delays
 import argparse
 
 from lensdelay.cli.options import number, output_folder, written_line
-from lensdelay.io.lightcurve_files import delays_json
-from lensdelay.io.storage import write_output_set
-from lensdelay.report.figures import light_curves_figure
-from lensdelay.report.text import delays_text
 
 __all__ = ["run", "delay_range", "register"]
 
 
 def run(args) -> int:
     """Measure, print, write delays.json and the figure."""
+    from lensdelay.api import measure_delays
+    from lensdelay.io.lightcurve_files import delays_json
+    from lensdelay.io.storage import write_output_set
+    from lensdelay.report.figures import light_curves_figure
+    from lensdelay.report.text import delays_text
+
     out = output_folder(args.out)
     target = Path(args.input)
     is_scenario = target.suffix.lower() == ".toml"

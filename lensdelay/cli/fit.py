@@ -4,19 +4,22 @@ from __future__ import annotations
 
 import sys
 
-import numpy as np
 
-from lensdelay.api import fit_scenario
 from lensdelay.cli.options import Once, add_prior_argument, number, output_folder, written_line
-from lensdelay.io.fit_files import fit_json
-from lensdelay.io.storage import write_output_set
-from lensdelay.report.figures import corner_figure, residual_figure, sky_figure
 
 __all__ = ["run", "register"]
 
 
 def run(args) -> int:
     """Fit (and sample), print the report, write fit.json and figures to --out."""
+    from lensdelay.api import fit_scenario
+    from lensdelay.io.fit_files import fit_json
+    from lensdelay.io.storage import write_output_set
+    from lensdelay.report.figures import corner_figure
+    from lensdelay.report.figures import residual_figure
+    from lensdelay.report.figures import sky_figure
+    import numpy as np
+
     out = output_folder(args.out)
     res = fit_scenario(
         args.scenario,

@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import sys
 
-from lensdelay.api import forecast_prepared, forecast_scenario
-from lensdelay.io.prepared_files import is_prepared
 from lensdelay.errors import InputError
 from lensdelay.cli.options import (
     add_request_arguments,
@@ -13,17 +11,15 @@ from lensdelay.cli.options import (
     request_options,
     written_line,
 )
-from lensdelay.io.forecast_files import forecast_ics, forecast_json, forecast_table, table_text
-from lensdelay.io.storage import figure_bytes, json_ready, write_output_set
-from lensdelay.model.scenario import parse_date
-from lensdelay.report.figures import budget_figure, timeline_figure
-from lensdelay.report.finder import finder_chart, region_text
 
 __all__ = ["run", "write_forecast", "register"]
 
 
 def run(args) -> int:
     """Forecast, print the report, write every output to --out at once."""
+    from lensdelay.io.prepared_files import is_prepared
+    from lensdelay.model.scenario import parse_date
+
     if args.report and args.out is None:
         raise InputError("--report needs --out DIR (the page goes beside the outputs), got none")
     out = output_folder(args.out)
@@ -42,6 +38,8 @@ def run(args) -> int:
 
 def _from_prepared(args, now):
     """The forecast from a prepared lens: no fitting, the alert from --transient."""
+    from lensdelay.api import forecast_prepared
+
     for flag, value in (("--model", args.model), ("--delays", args.delays)):
         if value:
             raise InputError(
@@ -67,6 +65,8 @@ def _from_prepared(args, now):
 
 def _from_scratch(args, now):
     """Fit, sample and forecast."""
+    from lensdelay.api import forecast_scenario
+
     return forecast_scenario(
         args.scenario,
         args.model,
@@ -84,6 +84,18 @@ def write_forecast(out, res, report: bool = False) -> tuple[dict, list[str]]:
 
     Returns the forecast's JSON document (as written) and the names of the files written.
     """
+    from lensdelay.io.forecast_files import forecast_ics
+    from lensdelay.io.forecast_files import forecast_json
+    from lensdelay.io.forecast_files import forecast_table
+    from lensdelay.io.forecast_files import table_text
+    from lensdelay.io.storage import figure_bytes
+    from lensdelay.io.storage import json_ready
+    from lensdelay.io.storage import write_output_set
+    from lensdelay.report.figures import budget_figure
+    from lensdelay.report.figures import timeline_figure
+    from lensdelay.report.finder import finder_chart
+    from lensdelay.report.finder import region_text
+
     doc = forecast_json(res)
     texts = {"forecast.ecsv": table_text(forecast_table(res)), "forecast.ics": forecast_ics(res)}
     figs = {"timeline": timeline_figure(res), "sky": finder_chart(res)}
@@ -110,6 +122,8 @@ def write_forecast(out, res, report: bool = False) -> tuple[dict, list[str]]:
 
 def _write(args, out, res) -> int:
     """Print the forecast and write every output as one set."""
+    from lensdelay.io.forecast_files import forecast_json
+
     text = res.report()
     if out is not None:
         _, written = write_forecast(out, res, report=args.report)

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import sys
 
-from lensdelay.api import infer_h0
 from lensdelay.cli.options import (
     Once,
     add_gaussian_prior,
@@ -13,15 +12,19 @@ from lensdelay.cli.options import (
     written_line,
 )
 from lensdelay.errors import InputError
-from lensdelay.io.hubble_files import curves_table_text, hubble_json
-from lensdelay.io.storage import write_output_set
-from lensdelay.report.figures import h0_figure, hubble_curves_figure
 
 __all__ = ["run", "HUBBLE_FIGURES", "register"]
 
 
 def run(args) -> int:
     """Infer H0 (or the delay curves), print the report, write the outputs."""
+    from lensdelay.api import infer_h0
+    from lensdelay.io.hubble_files import curves_table_text
+    from lensdelay.io.hubble_files import hubble_json
+    from lensdelay.io.storage import write_output_set
+    from lensdelay.report.figures import h0_figure
+    from lensdelay.report.figures import hubble_curves_figure
+
     out = output_folder(args.out)
     params = {}
     for item in args.param or []:

@@ -4,15 +4,16 @@ from __future__ import annotations
 
 import json
 
-from lensdelay.api import images_of_source
 from lensdelay.cli.options import number
-from lensdelay.report.text import images_text
 
 __all__ = ["run", "register"]
 
 
 def run(args) -> int:
     """Print every image of the source as a table or JSON."""
+    from lensdelay.api import images_of_source
+    from lensdelay.report.text import images_text
+
     result = images_of_source(
         args.model,
         args.source[0],

@@ -28,7 +28,7 @@ from lensdelay.cli import (
 from lensdelay.cli.libraries import configure_libraries
 from lensdelay.cli.options import with_flags
 from lensdelay.errors import InputError, LensdelayError, LensdelayWarning
-from lensdelay.inference.sampling import StopRequest
+from lensdelay.inference.stop import StopRequest
 from lensdelay.io.storage import PartialOutputError
 from lensdelay.version import __version__
 

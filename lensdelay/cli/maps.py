@@ -4,16 +4,18 @@ from __future__ import annotations
 
 import sys
 
-from lensdelay.api import map_scenario
 from lensdelay.cli.options import add_prior_argument, number, output_folder, written_line
-from lensdelay.io.maps_files import maps_fits, maps_json
-from lensdelay.io.storage import write_output_set
 
 __all__ = ["run", "register"]
 
 
 def run(args) -> int:
     """Fit, map, write the FITS files and maps.json to --out at once."""
+    from lensdelay.api import map_scenario
+    from lensdelay.io.maps_files import maps_fits
+    from lensdelay.io.maps_files import maps_json
+    from lensdelay.io.storage import write_output_set
+
     out = output_folder(args.out or "maps")
     maps = map_scenario(
         args.scenario,

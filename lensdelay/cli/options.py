@@ -11,9 +11,13 @@ import math
 import tempfile
 from pathlib import Path
 
+from typing import TYPE_CHECKING
+
 from lensdelay.errors import InputError
-from lensdelay.inference.likelihood import PRIOR_CHOICES
-from lensdelay.model.scenario import Site
+from lensdelay.inference.parameters import PRIOR_CHOICES
+
+if TYPE_CHECKING:  # annotations only: the command line loads the models when used
+    from lensdelay.model.scenario import Site
 
 __all__ = [
     "FLAGS",
@@ -180,6 +184,8 @@ def add_site_arguments(parser) -> None:
 
 def site_from_args(args) -> Site | None:
     """``--site LAT LON HEIGHT`` or ``--elongation MIN MAX`` as a Site (None if neither)."""
+    from lensdelay.model.scenario import Site
+
     if args.site is not None and args.elongation is not None:
         raise InputError("give --site or --elongation, got both")
     if args.site is not None:

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import sys
 
-from lensdelay.api import prepare_lens
 from lensdelay.cli.options import add_prior_argument, output_folder
 from lensdelay.errors import InputError
 
@@ -13,6 +12,8 @@ __all__ = ["run", "register"]
 
 def run(args) -> int:
     """Prepare the lens and store it in --out (one set of files, written at the end)."""
+    from lensdelay.api import prepare_lens
+
     out = output_folder(args.out)
     if out is None:
         raise InputError("--out DIR is required (the folder the prepared lens is kept in)")

@@ -5,15 +5,15 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from lensdelay.io.report_inputs import read_results
-from lensdelay.io.storage import atomic_write_text
-from lensdelay.report.html import report_html
 
 __all__ = ["run", "register"]
 
 
 def run(args) -> int:
     """Read DIR's outputs, write DIR/report.html (or --out) atomically."""
+    from lensdelay.io.report_inputs import read_results
+    from lensdelay.io.storage import atomic_write_text
+    from lensdelay.report.html import report_html
     from lensdelay.cli.options import output_file
     from lensdelay.errors import InputError
 

@@ -39,7 +39,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 
 from lensdelay.inference.information import information_jacobian
-from lensdelay.inference.parameters import H0_RANGE, ParameterSpace
+from lensdelay.inference.parameters import H0_RANGE, PRIOR_CHOICES, ParameterSpace
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, choices_text
@@ -64,8 +64,6 @@ MISSING_IMAGE_PENALTY = 1e3
 #: Magnitude scale of the penalty on an unobserved image brighter than the faintest
 #: observed one (the microlensing/extinction floor of the flux ratios; common practice).
 EXTRA_IMAGE_MAG_SCALE = 0.2
-#: Priors the posterior can use (see the module docstring).
-PRIOR_CHOICES = ("jeffreys", "flat")
 
 
 @dataclass

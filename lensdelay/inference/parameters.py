@@ -18,8 +18,11 @@ import numpy as np
 
 from lensdelay.errors import InputError
 
-__all__ = ["H0_RANGE", "ParameterSpace"]
+__all__ = ["H0_RANGE", "PRIOR_CHOICES", "ParameterSpace"]
 
+#: Mass-model priors a likelihood can take: Jeffreys' (parametrisation-invariant) or flat in
+#: the recipe's own parameters within their bounds.
+PRIOR_CHOICES = ("jeffreys", "flat")
 #: Bounds of H0 when it is a free parameter, km/s/Mpc (far beyond any measured value).
 H0_RANGE = (10.0, 200.0)
 

@@ -24,6 +24,7 @@ from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates, 
 from lensdelay.inference.moves import FisherLangevinMove
 from lensdelay.inference.starts import starting_ball
 from lensdelay.inference.backend import NpzCheckpoint
+from lensdelay.inference.stop import StopRequest
 
 __all__ = [
     "SamplerSettings",
@@ -43,20 +44,6 @@ __all__ = [
     "MAX_RHAT",
     "potential_scale_reduction",
 ]
-
-
-class StopRequest:
-    """A request to stop sampling at the next checkpoint, owned by the caller.
-
-    The command line makes one and sets :attr:`requested` from its signal handler;
-    :func:`sample` marks :attr:`active` while it runs, so the handler knows whether to
-    let the sampler stop cleanly (raising inside emcee's call of the likelihood would
-    make emcee print a traceback) or to interrupt at once.
-    """
-
-    def __init__(self):
-        self.active = False
-        self.requested = False
 
 
 #: Proposal moves :func:`sample` can use ("auto" picks one by the number of parameters).
