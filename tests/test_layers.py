@@ -194,3 +194,19 @@ def test_the_command_line_imports_only_what_a_command_needs():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
+
+
+def test_a_forecast_from_a_prepared_lens_loads_no_fitting_or_sampling_library():
+    """Reading a prepared lens and forecasting from it needs neither lmfit nor emcee (nor
+    scipy.stats, which both load): the alert path imports only what it uses."""
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, lensdelay.io.prepared_files, lensdelay.forecast.pipeline, "
+        "lensdelay.api; "
+        "print(sorted(n for n in ('lmfit', 'emcee', 'scipy.stats') if n in sys.modules))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
+

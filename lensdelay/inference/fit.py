@@ -12,7 +12,6 @@ import re
 import warnings
 from dataclasses import dataclass, field
 
-import lmfit
 import numpy as np
 
 from lensdelay.lensing.delays import fermat_difference_to_days
@@ -213,6 +212,10 @@ def _lmfit(like, start, resid_rows, n_data):
     likelihood evaluates many rows for little more than one), not one call per
     parameter: on a cluster with 30 parameters this makes each fit several times faster.
     """
+    # imported here: lmfit loads scipy.stats (about 0.6 s), which a forecast from a
+    # prepared lens, never fitting, does without
+    import lmfit
+
     params = lmfit.Parameters()
     # the source-plane stage sees image positions only: H0 and κ_ext stay where they are
     names = like.names[: like.n_positional] if n_data is None else like.names

@@ -15,15 +15,10 @@ import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
-import emcee
-
 import numpy as np
 
 from lensdelay.errors import InputError, LensdelayWarning, choices_text
 from lensdelay.inference.coordinates import SampledTarget, SamplingCoordinates, polar_pairs
-from lensdelay.inference.moves import FisherLangevinMove
-from lensdelay.inference.starts import starting_ball
-from lensdelay.inference.backend import NpzCheckpoint
 from lensdelay.inference.stop import StopRequest
 
 __all__ = [
@@ -190,6 +185,10 @@ def _progress_display(progress, total: int):
 
 def _proposal_moves(move: str, like, coords, target):
     """(move name, emcee moves, the Langevin move or None) for ``move`` ("auto" picks)."""
+    import emcee
+
+    from lensdelay.inference.moves import FisherLangevinMove
+
     langevin = None
     if move == "auto":
         move = "langevin" if len(like.names) <= LANGEVIN_MAX_PARAMETERS else "differential"
@@ -363,6 +362,13 @@ def sample(
         Checked after every checkpoint block; when requested, the chain so far is kept
         in the checkpoint and KeyboardInterrupt is raised.
     """
+    # emcee and the moves load when a chain is drawn, not when a chain is only read
+    # (a forecast from a prepared lens)
+    import emcee
+
+    from lensdelay.inference.backend import NpzCheckpoint
+    from lensdelay.inference.starts import starting_ball
+
     check_sampler_settings(walkers, steps, seed)
     ndim = len(start)
     if walkers < 2 * ndim:
@@ -422,6 +428,8 @@ def integrated_time(chain: np.ndarray) -> np.ndarray:
     emcee logs its own short-chain message; ours say it with the numbers, and the library
     stays silent (its logger is quieted for this call only). NaN for a flat chain.
     """
+    import emcee
+
     autocorr_log = logging.getLogger("emcee.autocorr")
     level = autocorr_log.level
     autocorr_log.setLevel(logging.ERROR)
