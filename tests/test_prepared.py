@@ -40,6 +40,26 @@ def test_stored_lens_reads_back_exactly(prepared_folder):
         assert data["chain"].dtype == np.float64
 
 
+def test_fit_modes_read_back(prepared_folder, tmp_path):
+    """The fit's other optima and the modes mixed in the chain survive the folder, so a
+    forecast from the prepared lens says what one from scratch says about them."""
+    from dataclasses import replace
+
+    from lensdelay.inference.modes import ModeShare
+    from lensdelay.io.prepared_files import write_prepared
+
+    read = read_prepared(prepared_folder)
+    other = read.fit.values + 0.01
+    fit = replace(read.fit, alternatives=[(read.fit.chi2 + 2.0, other)])
+    modes = (ModeShare(read.fit.chi2, 0.7, 16), ModeShare(read.fit.chi2 + 2.0, 0.3, 7))
+    lens = replace(read, fit=fit, chain=replace(read.chain, modes=modes))
+    write_prepared(tmp_path / "again", lens, QUAD)
+    back = read_prepared(tmp_path / "again")
+    assert back.chain.modes == modes
+    ((chi2, values),) = back.fit.alternatives
+    assert chi2 == read.fit.chi2 + 2.0 and np.array_equal(values, other)
+
+
 def test_forecast_from_a_prepared_lens_equals_the_forecast_from_scratch(prepared_folder):
     options = {"n_samples": 500, "seed": 4, "now": Time("2026-12-01"), **SETTINGS}
     scratch = forecast_scenario(QUAD, budget=False, **options)

@@ -18,6 +18,7 @@ from lensdelay.errors import InputError
 from lensdelay.forecast.prepared import PreparedLens
 from lensdelay.inference.fit import FitResult
 from lensdelay.inference.misfit import ModelError
+from lensdelay.inference.modes import ModeShare
 from lensdelay.inference.sampling import Chain
 from lensdelay.atomic import load_npz
 from lensdelay.io.reading import load_scenario, self_contained_document
@@ -94,6 +95,12 @@ def write_prepared(out, prepared: PreparedLens, scenario_path, model_path=None) 
                 "dof": err.dof,
                 "p_value": err.p_value,
             },
+            # the fit's other optima, so a forecast from the lens notes them as one from
+            # scratch does
+            "alternatives": [
+                {"chi2": float(c2), "values": np.asarray(v, dtype=float).tolist()}
+                for c2, v in fit.alternatives
+            ],
         },
         "chain": {
             "names": list(chain.names),
@@ -104,6 +111,10 @@ def write_prepared(out, prepared: PreparedLens, scenario_path, model_path=None) 
             "warnings": list(chain.warnings),
             "draws": chain.draws,
             "effective_samples": chain.effective_samples,
+            # the fit modes mixed in the chain (lensdelay.inference.modes), if any
+            "modes": [
+                {"chi2": m.chi2, "weight": m.weight, "walkers": m.walkers} for m in chain.modes
+            ],
         },
         "watched_families": len(prepared.watched),
     }
@@ -244,6 +255,10 @@ def _rebuild(folder: Path, meta: dict, a: dict) -> PreparedLens:
         a.get("fit_covariance"),
         list(f["notes"]),
         None if err is None else ModelError(**err),
+        alternatives=[
+            (float(alt["chi2"]), np.asarray(alt["values"], dtype=float))
+            for alt in f.get("alternatives", [])
+        ],
     )
     c = meta["chain"]
     chain = Chain(
@@ -260,6 +275,7 @@ def _rebuild(folder: Path, meta: dict, a: dict) -> PreparedLens:
         a["rhat"],
         draws=c["draws"],
         effective_samples=c["effective_samples"],
+        modes=tuple(ModeShare(**m) for m in c.get("modes", [])),
     )
     watched = [
         (a[f"watched_{k}_x"], a[f"watched_{k}_y"]) for k in range(int(meta["watched_families"]))
