@@ -101,10 +101,10 @@ def main():
             seen=[seen],
             now=Time("2027-02-01", scale="utc"),  # after the sightings (they have happened)
         )
-        route = upd.timing["models"][0]
+        route = upd.timing.models[0]
         print(
-            f"forecast with a {label}: {time.perf_counter() - t0:.1f} s, route {route['route']}, "
-            f"{route['effective_samples']:.0f} effective samples"
+            f"forecast with a {label}: {time.perf_counter() - t0:.1f} s, route {route.route}, "
+            f"{route.effective_samples:.0f} effective samples"
         )
 
     # vectorised per-sample solve vs a loop over samples

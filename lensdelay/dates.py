@@ -11,10 +11,11 @@ seconds per decade at most), far below any delay's uncertainty.
 from __future__ import annotations
 
 import contextlib
+import datetime as _dt
 import functools
 import warnings
 
-__all__ = ["far_dates_allowed", "allows_far_dates"]
+__all__ = ["far_dates_allowed", "allows_far_dates", "iso_utc", "day_of", "median_day"]
 
 
 @contextlib.contextmanager
@@ -39,3 +40,25 @@ def allows_far_dates(function):
             return function(*args, **kwargs)
 
     return wrapper
+
+
+@allows_far_dates
+def iso_utc(t) -> str:
+    """An astropy ``Time`` as ISO 8601 UTC to the second, with a Z."""
+    return t.utc.isot[:19] + "Z"
+
+
+def day_of(iso: str) -> str:
+    """The calendar day (UTC) that contains an instant.
+
+    Window ends are shown as the days that contain them, so a shown window always
+    contains the computed one (rounded outward): a 68% window starting
+    2027-02-10T16:24 starts on 02-10.
+    """
+    return iso[:10]
+
+
+def median_day(iso: str) -> str:
+    """The calendar day nearest to an instant (a point estimate, not a window end)."""
+    t = _dt.datetime.fromisoformat(iso.rstrip("Z")) + _dt.timedelta(hours=12)
+    return t.date().isoformat()

@@ -2,6 +2,8 @@
 be, and rendered in a real headless browser (Debian's chromium, installed by .ci/run)."""
 
 import base64
+import contextlib
+import io
 import json
 import os
 import re
@@ -73,7 +75,9 @@ def outputs(tmp_path_factory):
     path = _scenario(tmp)
     out = tmp / "out"
     quick = ["--samples", "800", "--steps", "150", "--walkers", "16", "--quiet"]
-    assert main(["forecast", str(path), "--out", str(out), "--report", *quick]) == 0
+    with contextlib.redirect_stdout(io.StringIO()) as printed:
+        assert main(["forecast", str(path), "--out", str(out), "--report", *quick]) == 0
+    (tmp / "forecast_stdout.txt").write_text(printed.getvalue())
     assert main(["fit", str(path), "--out", str(out), "--quiet"]) == 0
     return out
 
@@ -89,6 +93,27 @@ def test_forecast_report_is_self_contained(outputs):
     assert page.count("</tr>") >= len(doc["images"]) + 1
     for im in doc["images"]:
         assert f"{im['family']}/{im['label']}" in page
+
+
+def test_text_and_html_tables_show_the_same_dates(outputs):
+    """Both image tables are drawn from forecast.json's records (report.image_rows): every
+    image's median day and 68%/95% windows read the same on the terminal and in the page,
+    and the windows are the days that contain the computed ends (common practice: a shown
+    window must contain the computed one)."""
+    from lensdelay.report.image_rows import image_cells
+
+    page = (outputs / "report.html").read_text()
+    printed = (outputs.parent / "forecast_stdout.txt").read_text()
+    doc = json.loads((outputs / "forecast.json").read_text())
+    for record in doc["images"]:
+        c = image_cells(record)
+        assert c.window95 == (record["date"]["p2.5"][:10], record["date"]["p97.5"][:10])
+        row = next(line for line in printed.splitlines() if line.startswith(c.name + " "))
+        assert f"{c.window68[0]}..{c.window68[1]}" in row
+        assert f"{c.window95[0]}..{c.window95[1]}" in row and c.median_day in row
+        for lo, hi in (c.window68, c.window95):
+            assert f"<span class='when'>{lo} –</span> <span class='when'>{hi}</span>" in page
+        assert f"<span class='when'>{c.median_day}</span>" in page
 
 
 def test_report_of_a_folder_holds_every_job(outputs):

@@ -24,7 +24,7 @@ from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, LensdelayWarning
 from lensdelay.inference.fit import fit
 from lensdelay.forecast.samples import image_tracks
-from lensdelay.io.forecast_files import day_of, median_day
+from lensdelay.dates import day_of, median_day
 from lensdelay.report.text import forecast_text
 from lensdelay.api import forecast_scenario as run_forecast
 from lensdelay.forecast.combine import image_status
@@ -113,10 +113,10 @@ def test_measured_delay_sets_the_date_spread(tmp_path, date_sigma):
     assert _half68(b.date_offset_days) == pytest.approx(expected, rel=0.08)
     assert _half68(b.delay_days) < 0.56
     assert _half68(a.date_offset_days) == pytest.approx(date_sigma, rel=0.05)
-    assert res.timing["models"][0]["route"] in ("reweight", "resample")
-    assert res.timing["models"][0]["effective_samples"] >= 0.1 * FAST["n_samples"]
-    tension = res.timing["tensions"][0]
-    assert abs(tension["sigma"]) < 2 and not tension["in_tension"]
+    assert res.timing.models[0].route in ("reweight", "resample")
+    assert res.timing.models[0].effective_samples >= 0.1 * FAST["n_samples"]
+    tension = res.timing.tensions[0]
+    assert abs(tension.sigma) < 2 and not tension.in_tension
 
 
 @pytest.mark.integration
@@ -186,11 +186,11 @@ def test_sighting_five_sigma_away_is_reported_and_nothing_collapses(tmp_path):
     res = _quiet_forecast(
         str(path), now=when + 1 * u.day, seen=[f"sn/D={when.isot}±{sigma_s}"], **FAST
     )
-    tension = res.timing["tensions"][0]
-    assert tension["in_tension"] and tension["sigma"] > 3
-    assert 0 < tension["p_value"] < 0.01
-    model = res.timing["models"][0]
-    assert model["effective_samples"] >= 0.1 * FAST["n_samples"]
+    tension = res.timing.tensions[0]
+    assert tension.in_tension and tension.sigma > 3
+    assert 0 < tension.p_value < 0.01
+    model = res.timing.models[0]
+    assert model.effective_samples >= 0.1 * FAST["n_samples"]
     seen = _image(res, "D")
     assert seen.status == "seen" and any("sigma from the prediction" in f for f in seen.flags)
     for im in res.images:
@@ -212,7 +212,7 @@ def test_a_predicted_image_can_be_reported_seen(tmp_path):
     res = _quiet_forecast(str(path), now=when + 1 * u.day, seen=[f"X1={when.isot}±1"], **FAST)
     x1 = _image(res, "X1")
     assert x1.status == "seen" and x1.sighted
-    assert abs(x1.tension["sigma"]) < 1
+    assert abs(x1.tension.sigma) < 1
 
 
 # -- as of now ------------------------------------------------------------------------------

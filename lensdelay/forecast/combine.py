@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from dataclasses import fields as dataclass_fields
+from dataclasses import replace
 
 import numpy as np
 from astropy import units as u
@@ -18,7 +20,7 @@ from lensdelay.forecast.samples import (
 )
 from lensdelay.forecast.positions import position_ellipses, sky_position
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
-from lensdelay.inference.timing import tensions_from_draws
+from lensdelay.inference.timing import Tension, tensions_from_draws
 
 __all__ = [
     "SAMPLE_COLUMNS",
@@ -26,7 +28,6 @@ __all__ = [
     "CALENDAR_YEARS",
     "REFERENCE_SHIFT_SIGMA",
     "check_calendar_range",
-    "image_forecast",
     "measurement_tensions",
     "image_status",
     "summarise",
@@ -49,7 +50,7 @@ SAMPLE_COLUMNS = tuple(
 )
 
 
-def check_calendar_range(images: list[dict], tr, source: str | None = None) -> None:
+def check_calendar_range(images: list[ImageForecast], tr, source: str | None = None) -> None:
     """Refuse a forecast whose samples' dates fall outside the years 1–9999.
 
     Every sample that carries weight is checked (the files write quantiles, the
@@ -57,7 +58,8 @@ def check_calendar_range(images: list[dict], tr, source: str | None = None) -> N
     """
     lows, highs = [], []
     for im in images:
-        off = im["offsets"][np.isfinite(im["offsets"]) & (im["weights"] > 0)]
+        s = im.samples
+        off = s.offsets[np.isfinite(s.offsets) & (s.weights > 0)]
         if off.size:
             lows.append(off.min())
             highs.append(off.max())
@@ -78,25 +80,7 @@ def check_calendar_range(images: list[dict], tr, source: str | None = None) -> N
         )
 
 
-def image_forecast(entry: dict, detection_date, sky) -> ImageForecast:
-    """The summary entry of one image as a frozen result (ICRS position when ``sky`` is set)."""
-    fields = {k: v for k, v in entry.items() if k not in ("samples", "offsets", "weights", "flag")}
-    samples = ImageSampleSet(offsets=entry["offsets"], weights=entry["weights"], **entry["samples"])
-    ra = dec = None
-    if sky is not None:
-        where = sky_position(sky, entry["x"], entry["y"])
-        ra, dec = float(where.ra.deg), float(where.dec.deg)
-    return ImageForecast(
-        **fields,
-        flags=tuple(entry["flag"]),
-        samples=samples,
-        detection_date=detection_date,
-        ra=ra,
-        dec=dec,
-    )
-
-
-def measurement_tensions(timings, prior_models, w_prior, rng) -> list[dict]:
+def measurement_tensions(timings, prior_models, w_prior, rng) -> list[Tension]:
     """Each measurement against the forecast from the image positions alone (all models).
 
     Every model's timing data has its own columns (labels) but the same rows, so the
@@ -109,18 +93,7 @@ def measurement_tensions(timings, prior_models, w_prior, rng) -> list[dict]:
         return []
     sims = np.vstack([t.predictive_draws(s.columns(t), rng) for t, s, _ in parts])
     weights = np.concatenate([w * s.valid / max(s.valid.sum(), 1) for _, s, w in parts])
-    return [
-        {
-            "measurement": t.name,
-            "measured": t.measured,
-            "measurement_sigma": t.measurement_sigma,
-            "predicted": t.predicted,
-            "sigma": t.sigma,
-            "p_value": t.p_value,
-            "in_tension": t.in_tension,
-        }
-        for t in tensions_from_draws(parts[0][0], sims, weights)
-    ]
+    return tensions_from_draws(parts[0][0], sims, weights)
 
 
 def image_status(is_seen, q, now_offset, order_agreement) -> str:
@@ -186,13 +159,22 @@ def _gather(g, models, updates, w_model, prior_models, w_prior, tr, settings, rn
     return arr, prior_off, prior_w, per_model
 
 
-def _image_entry(g, arr, per_model, prior_off, prior_w, context) -> dict | None:
-    """The summary of one image from its gathered samples; None when no sample has it.
+@dataclass(frozen=True)
+class _Context:
+    """What every image's summary needs besides its own samples."""
 
-    ``context``: (transient, settings, now offset in days, the sighted labels, the
-    tensions by image, whether any model was updated by timing data).
-    """
-    tr, settings, now_offset, sighted, tension_by_image, has_timing = context
+    transient: object
+    settings: object
+    now_offset: float  # days from the detection date to now
+    sighted: frozenset
+    tension_by_image: dict  # image label -> the Tension of its sighting
+    has_timing: bool  # whether any model was updated by timing data
+    sky: object  # the scenario's [sky] origin, or None
+
+
+def _image_forecast(g, arr, per_model, prior_off, prior_w, ctx: _Context) -> ImageForecast | None:
+    """The summary of one image from its gathered samples; None when no sample has it."""
+    tr = ctx.transient
     weights = arr["weights"]
     total = weights.sum()
     weights = weights / total if total > 0 else weights
@@ -214,108 +196,119 @@ def _image_entry(g, arr, per_model, prior_off, prior_w, context) -> dict | None:
     centre_x, centre_y, ellipses = position_ellipses(
         arr["x"][valid], arr["y"][valid], weights[valid]
     )
-    seen = is_ref or g["label"] in sighted
-    entry = {
-        "family": g["family"],
-        "label": g["label"],
-        "observed": bool(g["observed"]),
-        "x": centre_x,
-        "y": centre_y,
-        "position_error": ellipses,
-        "parity": parity_name(par),
-        "parity_agreement": par_share,
-        "arrival_rank": int(rk),
-        "rank_agreement": rk_share,
-        "order": order,
-        "order_agreement": order_agreement,
-        "flag": [],
-        "exists_fraction": exists_share,
-        "status": image_status(seen, off_q, now_offset, order_agreement),
-        "sighted": g["label"] in sighted,
-        "delay_days": quantile_summary(arr["delay"], weights),
-        "magnification": quantile_summary(arr["mu"], weights),
-        "date_offset_days": off_q,
-        "per_model": per_model,
-        "offsets": arr["offsets"],
-        "weights": weights,
-        "samples": {k: arr[k] for k in SAMPLE_COLUMNS},
-    }
+    seen = is_ref or g["label"] in ctx.sighted
+    flags = []
     if min(par_share, rk_share) < AGREEMENT:
-        entry["flag"].append(
-            f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)"
-        )
+        flags.append(f"parity or arrival order differs between samples (< {AGREEMENT:.0%} agree)")
     if exists_share < AGREEMENT and not is_ref:
-        entry["flag"].append(
+        flags.append(
             f"the image exists in only {100 * exists_share:.0f}% of the forecast's samples "
             "(models and posterior together); its dates assume it exists"
         )
-    _add_outlook(entry, arr, weights, per_model, prior_off, prior_w, context, seen)
-    return entry
-
-
-def _add_outlook(entry, arr, weights, per_model, prior_off, prior_w, context, seen) -> None:
-    """The models' spread, the window's narrowing, magnitude, archival advice, tension."""
-    tr, settings, now_offset, sighted, tension_by_image, has_timing = context
-    off_q = entry["date_offset_days"]
-    medians = [v["delay_median"] for v in per_model.values() if v["delay_median"] is not None]
-    entry["model_spread_days"] = float(np.ptp(medians)) if len(medians) > 1 else 0.0
-    # how much the timing data narrowed the 95% window
-    pw = np.concatenate(prior_w)
-    pq = weighted_quantiles(np.concatenate(prior_off), pw, [2.5, 97.5])
-    width_before = pq[1] - pq[0]
-    entry["interval95_change"] = (
-        float((off_q["p97.5"] - off_q["p2.5"]) / width_before)
-        if has_timing and width_before > 0
-        else None
-    )
-    if "mag" in arr:
-        entry["magnitude"] = quantile_summary(arr["mag"], weights)
-        entry["fainter_than_depth"] = bool(entry["magnitude"]["median"] > settings.depth)
-    else:
-        entry["magnitude"] = None
-        entry["fainter_than_depth"] = None
-    # part of the 95% window before the detection: archives may hold the event
-    # (only data already taken: up to now, which may be before the detection date)
-    if not seen and off_q["p2.5"] < min(0.0, now_offset):
-        entry["archival_search"] = {
-            "from_offset": off_q["p2.5"],
-            "to_offset": min(off_q["p97.5"], now_offset),
-        }
-    else:
-        entry["archival_search"] = None
-    entry["tension"] = tension_by_image.get(entry["label"])
-    if entry["tension"] is not None and entry["tension"]["in_tension"]:
-        entry["flag"].append(
-            f"the sighting is {abs(entry['tension']['sigma']):.1f} sigma from the "
+    outlook = _outlook(g["label"], off_q, arr, weights, per_model, prior_off, prior_w, ctx, seen)
+    tension = outlook["tension"]
+    if tension is not None and tension.in_tension:
+        flags.append(
+            f"the sighting is {abs(tension.sigma):.1f} sigma from the "
             "prediction made from the image positions"
         )
+    ra = dec = None
+    if ctx.sky is not None:
+        where = sky_position(ctx.sky, centre_x, centre_y)
+        ra, dec = float(where.ra.deg), float(where.dec.deg)
+    return ImageForecast(
+        family=g["family"],
+        label=g["label"],
+        observed=bool(g["observed"]),
+        x=centre_x,
+        y=centre_y,
+        position_error=ellipses,
+        parity=parity_name(par),
+        parity_agreement=par_share,
+        arrival_rank=int(rk),
+        rank_agreement=rk_share,
+        order=order,
+        order_agreement=order_agreement,
+        flags=tuple(flags),
+        exists_fraction=exists_share,
+        status=image_status(seen, off_q, ctx.now_offset, order_agreement),
+        sighted=g["label"] in ctx.sighted,
+        delay_days=quantile_summary(arr["delay"], weights),
+        magnification=quantile_summary(arr["mu"], weights),
+        date_offset_days=off_q,
+        per_model=per_model,
+        detection_date=tr.date,
+        samples=ImageSampleSet(
+            offsets=arr["offsets"], weights=weights, **{k: arr[k] for k in SAMPLE_COLUMNS}
+        ),
+        ra=ra,
+        dec=dec,
+        **outlook,
+    )
+
+
+def _outlook(label, off_q, arr, weights, per_model, prior_off, prior_w, ctx, seen) -> dict:
+    """The models' spread, the window's narrowing, magnitude, archival advice, tension."""
+    medians = [v["delay_median"] for v in per_model.values() if v["delay_median"] is not None]
+    # how much the timing data narrowed the 95% window
+    pq = weighted_quantiles(np.concatenate(prior_off), np.concatenate(prior_w), [2.5, 97.5])
+    width_before = pq[1] - pq[0]
+    magnitude = quantile_summary(arr["mag"], weights) if "mag" in arr else None
+    archival = None
+    # part of the 95% window before the detection: archives may hold the event
+    # (only data already taken: up to now, which may be before the detection date)
+    if not seen and off_q["p2.5"] < min(0.0, ctx.now_offset):
+        archival = {
+            "from_offset": off_q["p2.5"],
+            "to_offset": min(off_q["p97.5"], ctx.now_offset),
+        }
+    return {
+        "model_spread_days": float(np.ptp(medians)) if len(medians) > 1 else 0.0,
+        "interval95_change": (
+            float((off_q["p97.5"] - off_q["p2.5"]) / width_before)
+            if ctx.has_timing and width_before > 0
+            else None
+        ),
+        "magnitude": magnitude,
+        "fainter_than_depth": (
+            None if magnitude is None else bool(magnitude["median"] > ctx.settings.depth)
+        ),
+        "archival_search": archival,
+        "tension": ctx.tension_by_image.get(label),
+    }
 
 
 def summarise(
-    models, updates, w_model, prior_models, w_prior, tr, settings, now, rng, tension_rows
+    models, updates, w_model, prior_models, w_prior, tr, settings, now, rng, tensions, sky=None
 ):
-    """One entry per image (matched across models), with mixture weights."""
-    now_offset = float((now - tr.date).to_value(u.day))
+    """One :class:`ImageForecast` per image (matched across models), with mixture weights.
+
+    Returns the images sorted by median date and the names of images no sample has.
+    """
     groups = match_tracks([m for m, _ in models])
-    sighted = {s.label for s in settings.sightings}
-    tension_by_image = {}
-    for row in tension_rows:
-        if row["measurement"].startswith("sighting "):
-            tension_by_image[row["measurement"].split("/", 1)[1]] = row
-    has_timing = any(up.route != "none" for up in updates)
-    context = (tr, settings, now_offset, sighted, tension_by_image, has_timing)
+    ctx = _Context(
+        transient=tr,
+        settings=settings,
+        now_offset=float((now - tr.date).to_value(u.day)),
+        sighted=frozenset(s.label for s in settings.sightings),
+        tension_by_image={
+            t.name.split("/", 1)[1]: t for t in tensions if t.name.startswith("sighting ")
+        },
+        has_timing=any(up.route != "none" for up in updates),
+        sky=sky,
+    )
     images, missing = [], []
     for g in groups:
         arr, prior_off, prior_w, per_model = _gather(
             g, models, updates, w_model, prior_models, w_prior, tr, settings, rng
         )
-        entry = _image_entry(g, arr, per_model, prior_off, prior_w, context)
-        if entry is None:
+        image = _image_forecast(g, arr, per_model, prior_off, prior_w, ctx)
+        if image is None:
             missing.append(f"{g['family']}/{g['label']}")
         else:
-            images.append(entry)
-    flag_strained_update(images, tension_rows, tr)
-    images.sort(key=lambda e: (e["date_offset_days"]["median"], e["label"]))
+            images.append(image)
+    images = flag_strained_update(images, tensions, tr)
+    images.sort(key=lambda im: (im.date_offset_days["median"], im.label))
     return images, missing
 
 
@@ -324,8 +317,8 @@ def summarise(
 REFERENCE_SHIFT_SIGMA = 3.0
 
 
-def flag_strained_update(images: list[dict], tension_rows: list[dict], tr) -> None:
-    """Flag every image when a measurement contradicts the model the update relies on.
+def flag_strained_update(images: list[ImageForecast], tensions, tr) -> list[ImageForecast]:
+    """The images, flagged where a measurement contradicts the model the update relies on.
 
     An update combines the measurements with the model's prediction as if both were
     right. A measurement in tension with the prediction (beyond TENSION_SIGMA) means
@@ -333,46 +326,50 @@ def flag_strained_update(images: list[dict], tension_rows: list[dict], tr) -> No
     image measured; a detection image whose date the update moves far from the
     detection date is the symptom that shows it most.
     """
-    strained = [r for r in tension_rows if r["in_tension"]]
+    strained = [t for t in tensions if t.in_tension]
+    common = ()
     if strained:
-        worst = max(strained, key=lambda r: abs(r["sigma"]))
-        text = (
+        worst = max(strained, key=lambda t: abs(t.sigma))
+        common = (
             f"the update combines {len(strained)} measurement(s) in tension with the model "
-            f"({worst['measurement']} at {abs(worst['sigma']):.1f} sigma): these windows hold "
-            "only if both are right; check the measurement and the mass model"
+            f"({worst.name} at {abs(worst.sigma):.1f} sigma): these windows hold "
+            "only if both are right; check the measurement and the mass model",
         )
-        for entry in images:
-            entry["flag"].append(text)
     tolerance = REFERENCE_SHIFT_SIGMA * tr.date_sigma_days if tr.date_sigma_days > 0 else 1.0
-    for entry in images:
-        if entry["observed"] and entry["label"] == tr.seen_in:
-            shift = entry["date_offset_days"]["median"]
+    out = []
+    for im in images:
+        extra = common
+        if im.observed and im.label == tr.seen_in:
+            shift = im.date_offset_days["median"]
             if abs(shift) > tolerance:
-                entry["flag"].append(
+                extra = extra + (
                     f"the measurements move the detection image's own date by {shift:+.1f} d "
-                    f"from the detection date (allowed by its error: ±{tolerance:.1f} d)"
+                    f"from the detection date (allowed by its error: ±{tolerance:.1f} d)",
                 )
+        out.append(replace(im, flags=im.flags + extra) if extra else im)
+    return out
 
 
-def image_observability(im, calendar, tr, now):
+def image_observability(im: ImageForecast, calendar, tr, now) -> dict:
     """Observable days in the 95% window and the chance the event falls on one.
 
-    Also the observable runs of the window still ahead of ``now`` (for the calendar).
+    Also the observable runs of the window still ahead of ``now`` (for the calendar):
+    the record :attr:`ImageForecast.observability` holds.
     """
     start_offset = (tr.date - calendar.start).to_value("day")
-    offs = im["offsets"] + start_offset
-    ok = np.isfinite(offs) & (im["weights"] > 0)
+    offs = im.samples.offsets + start_offset
+    ok = np.isfinite(offs) & (im.samples.weights > 0)
     observable = calendar.is_observable(offs[ok])
-    w = im["weights"][ok]
+    w = im.samples.weights[ok]
     prob = float(np.sum(w[observable]) / max(np.sum(w), 1e-300))
-    q = im["date_offset_days"]
+    q = im.date_offset_days
     d0, d1 = int(np.floor(q["p2.5"] + start_offset)), int(np.floor(q["p97.5"] + start_offset))
     runs = calendar.windows(d0, d1)
     n_obs = int(sum(b - a + 1 for a, b in runs))
     today = int(np.floor((now - calendar.start).to_value("day")))
     ahead = [(max(a, today), b) for a, b in runs if b >= today]
     day = lambda i: (calendar.start + i * u.day).iso[:10]  # noqa: E731
-    im["observability"] = {
+    return {
         "probability_observable": prob,
         "observable_days_in_95": n_obs,
         "days_in_95": int(d1 - d0 + 1),

@@ -18,7 +18,7 @@ from astropy.time import Time
 from lensdelay.model.cosmology import cosmology_from_spec, describe_cosmology
 from lensdelay.errors import FitError, InputError
 from lensdelay.forecast.request import ForecastRequest
-from lensdelay.forecast.result import Forecast
+from lensdelay.forecast.result import Forecast, ImageForecast, ModelUpdate, TimingRecord
 from lensdelay.forecast.samples import (
     draw_scale_priors,
     image_tracks,
@@ -35,7 +35,6 @@ from lensdelay.forecast.observability import build_calendar
 from lensdelay.forecast.combine import (
     MAX_OFFSET_DAYS,
     check_calendar_range,
-    image_forecast,
     image_observability,
     measurement_tensions,
     summarise,
@@ -120,10 +119,11 @@ def run_forecast(
         now,
         np.random.default_rng(next(stage_seeds)),
         tension_rows,
+        sky=sc0.sky,
     )
     _check_dates_reachable(images, tr, sc0.source)
     stages("observability")
-    calendar = _observability_calendar(images, site, sc0.sky, tr, now)
+    calendar, images = _observability_calendar(images, site, sc0.sky, tr, now)
     stages(None)
     cosmology = scenarios[0].cosmology
     notes = _run_notes(missing, now, tr)
@@ -133,7 +133,7 @@ def run_forecast(
         settings=settings,
         site=site,
         now=now,
-        images=tuple(image_forecast(e, tr.date, sc0.sky) for e in images),
+        images=tuple(images),
         model_labels=tuple(f.model_label for f in fits),
         fits=tuple(fits),
         chains=tuple(chains),
@@ -141,7 +141,7 @@ def run_forecast(
         model_weights_positions=w_prior,
         updates=tuple(updates),
         model_notes=tuple(tuple(m.notes) for m in per_model),
-        timing=_timing_document(sightings, sc0.delays, per_model, settings, tension_rows),
+        timing=_timing_record(sightings, sc0.delays, per_model, settings, tension_rows),
         notes=tuple(notes),
         calendar=calendar,
         cosmology=cosmology,
@@ -345,13 +345,13 @@ class _Run:
         )
 
 
-def _check_dates_reachable(images: list[dict], tr, source) -> None:
+def _check_dates_reachable(images: list[ImageForecast], tr, source) -> None:
     """Refuse dates the time library and the calendars cannot place, before any is built."""
     # the time library handles years -4712..+9999 at best
     far = [
-        im["label"]
+        im.label
         for im in images
-        if max(abs(im["date_offset_days"]["p2.5"]), abs(im["date_offset_days"]["p97.5"]))
+        if max(abs(im.date_offset_days["p2.5"]), abs(im.date_offset_days["p97.5"]))
         > MAX_OFFSET_DAYS
     ]
     if far:
@@ -362,15 +362,17 @@ def _check_dates_reachable(images: list[dict], tr, source) -> None:
     check_calendar_range(images, tr, source)
 
 
-def _observability_calendar(images: list[dict], site, sky, tr, now):
-    """The site's calendar over every image's dates, each image's observability added.
+def _observability_calendar(images: list[ImageForecast], site, sky, tr, now):
+    """The site's calendar over every image's dates, and the images with their observability.
 
-    None without a site or a sky position.
+    No calendar (None) and the images unchanged without a site or a sky position.
     """
     if site is None or sky is None:
-        return None
+        return None, images
     # cover the tails too (0.1–99.9%), so the probability counts every sample
-    wide = [weighted_quantiles(im["offsets"], im["weights"], [0.1, 99.9]) for im in images]
+    wide = [
+        weighted_quantiles(im.samples.offsets, im.samples.weights, [0.1, 99.9]) for im in images
+    ]
     wide = [w for w in wide if np.all(np.isfinite(w))]
     lo = min(w[0] for w in wide)
     hi = max(w[1] for w in wide)
@@ -380,53 +382,37 @@ def _observability_calendar(images: list[dict], site, sky, tr, now):
     # minutes' step gives each night's usable time to within a minute
     step = 2.0 if n_days <= 1200 else 5.0
     calendar = build_calendar(site, sky, first, n_days, step_minutes=step)
-    for im in images:
-        image_observability(im, calendar, tr, now)
-    return calendar
+    images = [
+        replace(im, observability=image_observability(im, calendar, tr, now)) for im in images
+    ]
+    return calendar, images
 
 
-def _timing_document(sightings, delays, per_model, settings, tension_rows) -> dict:
-    """The timing data used and each model's update, as ``forecast.json`` records them."""
-    return {
-        "sightings": [
-            {
-                "family": s.family,
-                "image": s.label,
-                "date": s.date.isot[:19] + "Z",
-                "sigma_days": s.sigma_days,
-                "sigma_source": "given" if s.sigma_stated else "default",
-            }
-            for s in sightings
-        ],
-        "delays": [
-            {
-                "family": d.family,
-                "image": d.image,
-                "relative_to": d.relative_to,
-                "days": d.days,
-                "sigma": d.sigma,
-            }
-            for d in delays
-        ],
-        "models": [
-            {
-                "label": m.fit.model_label,
-                "route": m.update.route,
-                "effective_samples": float(m.update.effective_samples),
-                "importance_effective_samples": (
+def _timing_record(sightings, delays, per_model, settings, tensions) -> TimingRecord:
+    """The timing data used and each model's update (``forecast.json``'s ``timing``)."""
+    models = []
+    for m in per_model:
+        up = m.update
+        models.append(
+            ModelUpdate(
+                label=m.fit.model_label,
+                route=up.route,
+                effective_samples=float(up.effective_samples),
+                importance_effective_samples=(
                     None
-                    if m.update.importance_effective_samples is None
-                    else float(m.update.importance_effective_samples)
+                    if up.importance_effective_samples is None
+                    else float(up.importance_effective_samples)
                 ),
-                "log_evidence": (
-                    float(m.update.log_evidence) if np.isfinite(m.update.log_evidence) else None
-                ),
-            }
-            for m in per_model
-        ],
-        "min_effective_samples": settings.min_ess_fraction * settings.n_samples,
-        "tensions": tension_rows,
-    }
+                log_evidence=float(up.log_evidence) if np.isfinite(up.log_evidence) else None,
+            )
+        )
+    return TimingRecord(
+        sightings=tuple(sightings),
+        delays=tuple(delays),
+        models=tuple(models),
+        min_effective_samples=settings.min_ess_fraction * settings.n_samples,
+        tensions=tuple(tensions),
+    )
 
 
 def _check_prepared_cosmology(prepared, sc) -> None:

@@ -16,12 +16,14 @@ from astropy import units as u
 from astropy.coordinates import SkyCoord
 from astropy.time import Time
 
-from lensdelay.dates import allows_far_dates
+from lensdelay.dates import allows_far_dates, day_of, iso_utc, median_day
 from lensdelay.forecast.positions import PositionEllipse
 
 __all__ = [
     "STATUS_MEANINGS",
     "TENSION_CAUSES",
+    "ModelUpdate",
+    "TimingRecord",
     "ImageSampleSet",
     "ImageForecast",
     "Forecast",
@@ -41,6 +43,78 @@ TENSION_CAUSES = (
     "a mass model too simple for this lens, a nearby galaxy or group not in the model, "
     "microlensing distorting the light curve, or a wrong image identification"
 )
+
+
+@dataclass(frozen=True)
+class ModelUpdate:
+    """How one model's samples took in the timing data.
+
+    ``route`` is ``none`` (no timing data), ``reweight`` (importance weights) or
+    ``resample`` (the posterior sampled again with the measurements);
+    ``importance_effective_samples`` is what re-weighting would have left (None when it
+    was not tried); ``log_evidence`` the timing data's evidence (None when not finite).
+    """
+
+    label: str
+    route: str
+    effective_samples: float
+    importance_effective_samples: float | None
+    log_evidence: float | None
+
+    def as_dict(self) -> dict:
+        """JSON-ready."""
+        return dict(vars(self))
+
+
+@dataclass(frozen=True)
+class TimingRecord:
+    """The timing data a forecast used and what it did with them.
+
+    Attributes
+    ----------
+    sightings : tuple of lensdelay.forecast.samples.Sighting
+    delays : tuple of lensdelay.model.scenario.MeasuredDelay
+    models : tuple of ModelUpdate
+        One per model, in the forecast's model order.
+    min_effective_samples : float
+        Below this many effective samples re-weighting gives way to sampling again.
+    tensions : tuple of lensdelay.inference.timing.Tension
+        Every measurement against the forecast from the image positions alone.
+    """
+
+    sightings: tuple = ()
+    delays: tuple = ()
+    models: tuple[ModelUpdate, ...] = ()
+    min_effective_samples: float = 0.0
+    tensions: tuple = ()
+
+    def as_dict(self) -> dict:
+        """The ``timing`` record of ``forecast.json``."""
+        return {
+            "sightings": [
+                {
+                    "family": s.family,
+                    "image": s.label,
+                    "date": iso_utc(s.date),
+                    "sigma_days": s.sigma_days,
+                    "sigma_source": "given" if s.sigma_stated else "default",
+                }
+                for s in self.sightings
+            ],
+            "delays": [
+                {
+                    "family": d.family,
+                    "image": d.image,
+                    "relative_to": d.relative_to,
+                    "days": d.days,
+                    "sigma": d.sigma,
+                }
+                for d in self.delays
+            ],
+            "models": [m.as_dict() for m in self.models],
+            "min_effective_samples": self.min_effective_samples,
+            "tensions": [t.as_dict() for t in self.tensions],
+        }
 
 
 @dataclass(frozen=True)
@@ -101,7 +175,7 @@ class ImageForecast:
     model_spread_days: float
     interval95_change: float | None
     archival_search: dict | None
-    tension: dict | None
+    tension: object  # lensdelay.inference.timing.Tension of a sighting of this image, or None
     detection_date: Time
     samples: ImageSampleSet = field(repr=False)
     observability: dict | None = None
@@ -157,9 +231,48 @@ class ImageForecast:
 
     def window(self, level: int = 95) -> tuple[Time, Time]:
         """The central 68% or 95% date window."""
-        lo, hi = {68: ("p16", "p84"), 95: ("p2.5", "p97.5")}[level]
+        lo, hi = _window_keys(level)
         dates = self.date
         return dates[lo], dates[hi]
+
+    @allows_far_dates
+    def instant(self, offset_days: float) -> Time:
+        """The date ``offset_days`` after the detection date."""
+        return self.detection_date + offset_days * u.day
+
+    def dates_iso(self) -> dict[str, str]:
+        """The date quantiles as ISO 8601 UTC strings (to the second, with a Z)."""
+        return {k: iso_utc(self.instant(v)) for k, v in self.date_offset_days.items()}
+
+    @allows_far_dates
+    def dates_mjd(self) -> dict[str, float]:
+        """The date quantiles as UTC MJD."""
+        return {k: float(self.instant(v).utc.mjd) for k, v in self.date_offset_days.items()}
+
+    def window_days(self, level: int = 95) -> tuple[str, str]:
+        """The calendar days (UTC) that contain the 68% or 95% window's two ends."""
+        lo, hi = _window_keys(level)
+        iso = self.dates_iso()
+        return day_of(iso[lo]), day_of(iso[hi])
+
+    def median_day(self) -> str:
+        """The calendar day nearest the median date (a point estimate: see the windows)."""
+        return median_day(self.dates_iso()["median"])
+
+    def archival_span(self) -> tuple[str, str] | None:
+        """The span of archives to search (ISO UTC, from, to), None when there is none."""
+        arch = self.archival_search
+        if arch is None:
+            return None
+        return iso_utc(self.instant(arch["from_offset"])), iso_utc(self.instant(arch["to_offset"]))
+
+
+def _window_keys(level: int) -> tuple[str, str]:
+    """The quantile keys of a central window."""
+    keys = {68: ("p16", "p84"), 95: ("p2.5", "p97.5")}
+    if level not in keys:
+        raise ValueError(f"level must be one of {sorted(keys)}, got {level!r}")
+    return keys[level]
 
 
 @dataclass(frozen=True)
@@ -170,9 +283,9 @@ class Forecast:
     ----------
     images : tuple of ImageForecast
         Sorted by median date.
-    timing : dict
+    timing : TimingRecord
         The sightings and delays used, each model's update route and effective
-        samples, and every measurement's tension (JSON-ready).
+        samples, and every measurement's tension.
     budget, provenance : dict or None
         Added by :func:`lensdelay.api.forecast_scenario`.
     sky_view : dict or None
@@ -192,7 +305,7 @@ class Forecast:
     model_weights_positions: np.ndarray = field(repr=False)
     updates: tuple = field(repr=False)
     model_notes: tuple = ()
-    timing: dict = field(default_factory=dict)
+    timing: TimingRecord = field(default_factory=TimingRecord)
     notes: tuple[str, ...] = ()
     cosmology: object = None
     h0_used: object = None

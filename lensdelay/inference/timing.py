@@ -295,6 +295,18 @@ class Tension:
         """Beyond TENSION_SIGMA, or a p-value below 0.0027."""
         return abs(self.sigma) > TENSION_SIGMA or self.p_value < 0.0027
 
+    def as_dict(self) -> dict:
+        """The record ``forecast.json`` keeps (``measurement`` is the name)."""
+        return {
+            "measurement": self.name,
+            "measured": self.measured,
+            "measurement_sigma": self.measurement_sigma,
+            "predicted": self.predicted,
+            "sigma": self.sigma,
+            "p_value": self.p_value,
+            "in_tension": self.in_tension,
+        }
+
 
 def tensions(
     timing: TimingData, arrival: np.ndarray, weights: np.ndarray, rng: np.random.Generator

@@ -10,21 +10,15 @@ import numpy as np
 from astropy import units as u
 from astropy.table import Table
 
-from lensdelay.dates import allows_far_dates
+from lensdelay.dates import allows_far_dates, iso_utc
 from lensdelay.model.cosmology import describe_cosmology
 from lensdelay.cautions import CAUTION
 from lensdelay.inference.summaries import quantile_summary
 from lensdelay.forecast.result import STATUS_MEANINGS
 
 __all__ = [
-    "instant",
-    "iso_utc",
-    "date_summary",
-    "mjd_summary",
-    "day_of",
-    "median_day",
-    "window_days",
     "H0_TABLE",
+    "image_record",
     "dates_by_h0",
     "forecast_json",
     "forecast_table",
@@ -54,49 +48,6 @@ def _family_redshift(res, family) -> dict:
     return out
 
 
-def instant(res, offset_days: float):
-    """The date ``offset_days`` after the detection (astropy Time)."""
-    return res.scenario.transient.date + offset_days * u.day
-
-
-@allows_far_dates
-def iso_utc(t) -> str:
-    """ISO 8601 UTC to the second, with a Z."""
-    return t.isot[:19] + "Z"
-
-
-def date_summary(res, im) -> dict:
-    """ISO 8601 UTC date-times of the date quantiles."""
-    return {k: iso_utc(instant(res, v)) for k, v in im.date_offset_days.items()}
-
-
-def mjd_summary(res, im) -> dict:
-    """The same quantiles as MJD (UTC)."""
-    return {k: float(instant(res, v).utc.mjd) for k, v in im.date_offset_days.items()}
-
-
-def day_of(iso: str) -> str:
-    """The calendar day (UTC) that contains an instant.
-
-    Window ends are shown as the days that contain them, so a shown window always
-    contains the computed one (rounded outward): a 68% window starting
-    2027-02-10T16:24 starts on 02-10.
-    """
-    return iso[:10]
-
-
-def median_day(iso: str) -> str:
-    """The calendar day nearest to an instant (a point estimate, not a window end)."""
-    t = _dt.datetime.fromisoformat(iso.rstrip("Z")) + _dt.timedelta(hours=12)
-    return t.date().isoformat()
-
-
-def window_days(res, im, lo_key, hi_key) -> tuple[str, str]:
-    """The calendar days that contain a window's two ends."""
-    d = date_summary(res, im)
-    return day_of(d[lo_key]), day_of(d[hi_key])
-
-
 #: H0 values (km/s/Mpc) at which dates are also given, beside the marginalised ones: the
 #: early-universe and distance-ladder values and the middle (common practice in
 #: published forecasts of cluster-lensed supernovae).
@@ -107,69 +58,66 @@ def dates_by_h0(res, im) -> dict:
     """ISO date quantiles of an image had H0 been fixed at each of :data:`H0_TABLE`."""
     h_ref = float(res.cosmology.H0.to_value("km / (Mpc s)"))
     table = im.dates_at_h0(H0_TABLE, h_ref)
-    return {
-        f"{h0:g}": {k: iso_utc(instant(res, v)) for k, v in q.items()} for h0, q in table.items()
+    return {f"{h0:g}": {k: iso_utc(im.instant(v)) for k, v in q.items()} for h0, q in table.items()}
+
+
+def image_record(res, im) -> dict:
+    """One image of ``forecast.json`` (CONVENTIONS.md's fields, plus details), JSON-ready.
+
+    The text and HTML reports draw their image tables from these records.
+    """
+    entry = {
+        k: getattr(im, k)
+        for k in (
+            "family",
+            "label",
+            "observed",
+            "x",
+            "y",
+            "parity",
+            "arrival_rank",
+            "delay_days",
+            "magnification",
+            "magnitude",
+        )
     }
+    entry["ra_deg"], entry["dec_deg"] = im.ra, im.dec
+    entry["position_error"] = [e.as_dict() for e in im.position_error]
+    entry["date"] = im.dates_iso()
+    entry["date_mjd"] = im.dates_mjd()
+    entry["date_by_H0"] = dates_by_h0(res, im)
+    entry.update(
+        {
+            k: getattr(im, k)
+            for k in (
+                "status",
+                "order",
+                "order_agreement",
+                "parity_agreement",
+                "rank_agreement",
+                "exists_fraction",
+                "fainter_than_depth",
+                "per_model",
+                "model_spread_days",
+                "interval95_change",
+                "sighted",
+            )
+        }
+    )
+    entry["tension"] = None if im.tension is None else im.tension.as_dict()
+    entry["flag"] = list(im.flags)
+    arch = im.archival_span()
+    entry["archival_search"] = None if arch is None else {"from": arch[0], "to": arch[1]}
+    if im.observability is not None:
+        entry["observability"] = im.observability
+    return entry
 
 
 def forecast_json(res) -> dict:
     """``forecast.json`` as CONVENTIONS.md defines it, plus provenance and details."""
     sc, st = res.scenario, res.settings
     tr = sc.transient
-    images = []
-    for im in res.images:
-        entry = {
-            k: getattr(im, k)
-            for k in (
-                "family",
-                "label",
-                "observed",
-                "x",
-                "y",
-                "parity",
-                "arrival_rank",
-                "delay_days",
-                "magnification",
-                "magnitude",
-            )
-        }
-        entry["ra_deg"], entry["dec_deg"] = im.ra, im.dec
-        entry["position_error"] = [e.as_dict() for e in im.position_error]
-        entry["date"] = date_summary(res, im)
-        entry["date_mjd"] = mjd_summary(res, im)
-        entry["date_by_H0"] = dates_by_h0(res, im)
-        entry.update(
-            {
-                k: getattr(im, k)
-                for k in (
-                    "status",
-                    "order",
-                    "order_agreement",
-                    "parity_agreement",
-                    "rank_agreement",
-                    "exists_fraction",
-                    "fainter_than_depth",
-                    "per_model",
-                    "model_spread_days",
-                    "interval95_change",
-                    "sighted",
-                    "tension",
-                )
-            }
-        )
-        entry["flag"] = list(im.flags)
-        arch = im.archival_search
-        entry["archival_search"] = (
-            None
-            if arch is None
-            else {
-                "from": iso_utc(instant(res, arch["from_offset"])),
-                "to": iso_utc(instant(res, arch["to_offset"])),
-            }
-        )
-        if im.observability is not None:
-            entry["observability"] = im.observability
-        images.append(entry)
+    images = [image_record(res, im) for im in res.images]
     doc = {
         "scenario": {
             "name": sc.name,
@@ -215,7 +163,7 @@ def forecast_json(res) -> dict:
             "mass_model": st.model_prior,
         },
         "samples": st.n_samples,
-        "timing": res.timing,
+        "timing": res.timing.as_dict(),
         "models": [
             {
                 "label": label,
@@ -253,8 +201,8 @@ def forecast_table(res) -> Table:
     """One row per image (ECSV)."""
     rows = []
     for im in res.images:
-        d = date_summary(res, im)
-        mjd = mjd_summary(res, im)
+        d = im.dates_iso()
+        mjd = im.dates_mjd()
         row = {
             "family": im.family,
             "label": im.label,
@@ -284,7 +232,7 @@ def forecast_table(res) -> Table:
         row["mu_median"] = im.magnification["median"]
         row["p_observable"] = (im.observability or {}).get("probability_observable", np.nan)
         tension = im.tension
-        row["tension_sigma"] = tension["sigma"] if tension else np.nan
+        row["tension_sigma"] = tension.sigma if tension is not None else np.nan
         rows.append(row)
     t = Table(rows=rows, masked=True)
     for c in t.colnames:
@@ -331,7 +279,7 @@ def ics_windows(res, im) -> list[tuple[_dt.date, _dt.date]]:
             (_dt.date.fromisoformat(a), _dt.date.fromisoformat(b))
             for a, b in im.observability["windows_ahead"]
         ]
-    lo, hi = window_days(res, im, "p2.5", "p97.5")
+    lo, hi = im.window_days(95)
     today = res.now.isot[:10]
     start = max(lo, today)
     return [] if start > hi else [(_dt.date.fromisoformat(start), _dt.date.fromisoformat(hi))]
@@ -350,13 +298,13 @@ def forecast_ics(res, stamp: _dt.datetime | None = None) -> str:
     cal.add("version", "2.0")
     cal.add("calscale", "GREGORIAN")
     for im in res.images:
-        d = date_summary(res, im)
+        lo68, hi68 = im.window_days(68)
+        lo95, hi95 = im.window_days(95)
         for k, (start, last) in enumerate(ics_windows(res, im)):
             desc = (
                 f"Predicted reappearance of {sc.name} image {im.family}/{im.label} "
-                f"({im.parity}). Median {median_day(d['median'])}; 68% window {day_of(d['p16'])} "
-                f"to "
-                f"{day_of(d['p84'])}; 95% window {day_of(d['p2.5'])} to {day_of(d['p97.5'])}. "
+                f"({im.parity}). Median {im.median_day()}; 68% window {lo68} to {hi68}; "
+                f"95% window {lo95} to {hi95}. "
                 f"Delay {im.delay_days['median']:.1f} d after image {sc.transient.seen_in}. "
             )
             if im.observability is not None:

@@ -59,11 +59,9 @@ def offset_wcs(origin) -> WCS:
 
 def _window_label(res, im) -> str:
     """'label: 95% first..last' with month and day (the year when it changes)."""
-    from lensdelay.io.forecast_files import window_days
-
     if im.status == "seen":
         return f"{im.label} (seen)"
-    lo, hi = window_days(res, im, "p2.5", "p97.5")
+    lo, hi = im.window_days(95)
     hi_short = hi[5:] if hi[:4] == lo[:4] else hi
     return f"{im.label}{'' if im.observed else '*'}: {lo}..{hi_short}"
 

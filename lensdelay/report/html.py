@@ -13,6 +13,7 @@ import base64
 import html
 
 from lensdelay.cautions import CAUTION
+from lensdelay.report.image_rows import image_cells, sexagesimal
 
 __all__ = ["FIGURES", "STYLE", "report_html"]
 
@@ -51,7 +52,7 @@ th, td { padding: 0.3rem 0.45rem; border-bottom: 1px solid var(--rule); text-ali
          vertical-align: top; }
 th { background: var(--band); font-weight: 600; }
 td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
-td.when { white-space: nowrap; font-variant-numeric: tabular-nums; }
+.when { white-space: nowrap; font-variant-numeric: tabular-nums; }
 .scroll { overflow-x: auto; }
 figure { margin: 1rem 0 1.6rem; }
 figure img { max-width: 100%; height: auto; border: 1px solid var(--rule); }
@@ -141,29 +142,10 @@ def _day(iso: str | None) -> str:
     return "—" if not iso else iso[:10]
 
 
-def _window(date: dict, lo: str, hi: str) -> str:
-    return f"{_day(date[lo])} – {_day(date[hi])}"
-
-
-def _ellipse(entry: dict, level: int) -> str:
-    for e in entry.get("position_error") or []:
-        if e["level"] == level:
-            return (
-                f"{1e3 * e['semi_major_arcsec']:.0f} × {1e3 * e['semi_minor_arcsec']:.0f} mas, "
-                f"PA {e['position_angle_deg']:.0f}°"
-            )
-    return "—"
-
-
-def _sexagesimal(ra_deg, dec_deg) -> tuple[str, str]:
-    if ra_deg is None:
-        return "—", "—"
-    from astropy import units as u
-    from astropy.coordinates import Angle
-
-    ra = Angle(ra_deg * u.deg).to_string(unit=u.hourangle, sep=":", precision=3, pad=True)
-    dec = Angle(dec_deg * u.deg).to_string(unit=u.deg, sep=":", precision=2, alwayssign=True)
-    return ra, dec
+def _window_html(window: tuple[str, str]) -> str:
+    """A date window whose dates never break (the line may break after the dash)."""
+    lo, hi = window
+    return f"<span class='when'>{_e(lo)} –</span> <span class='when'>{_e(hi)}</span>"
 
 
 def _forecast_sections(doc: dict) -> list[str]:
@@ -185,7 +167,7 @@ def _forecast_sections(doc: dict) -> list[str]:
             "Sky origin (ICRS)",
             "—"
             if doc.get("sky_origin") is None
-            else " ".join(_sexagesimal(doc["sky_origin"]["ra_deg"], doc["sky_origin"]["dec_deg"])),
+            else " ".join(sexagesimal(doc["sky_origin"]["ra_deg"], doc["sky_origin"]["dec_deg"])),
         ),
         (
             "Transient",
@@ -234,24 +216,22 @@ def _forecast_sections(doc: dict) -> list[str]:
     out.append("<h2 id='images'>The images: when, where and how bright</h2>")
     rows = []
     for im in doc["images"]:
-        ra, dec = _sexagesimal(im.get("ra_deg"), im.get("dec_deg"))
-        d = im["delay_days"]
-        mag = im.get("magnitude")
-        obs = im.get("observability") or {}
+        c = image_cells(im)
         rows.append(
             [
-                f"{_e(im['family'])}/{_e(im['label'])}" + ("" if im["observed"] else "*"),
-                _e(im["status"]),
-                f"{im['x']:+.3f}, {im['y']:+.3f}",
-                f"{_e(ra)}<br>{_e(dec)}",
-                _e(_ellipse(im, 95)),
-                _num(im["magnification"]["median"], "{:+.2f}"),
-                _e(im["parity"]),
-                "—" if not mag else f"{mag['median']:.1f}",
-                f"{d['median']:+.1f} [{d['p2.5']:+.1f}, {d['p97.5']:+.1f}]",
-                f"<span class='when'>{_window(im['date'], 'p16', 'p84')}</span>",
-                f"<span class='when'>{_window(im['date'], 'p2.5', 'p97.5')}</span>",
-                _num(obs.get("probability_observable"), "{:.2f}"),
+                _e(c.name),
+                _e(c.status),
+                _e(c.offsets),
+                f"{_e(c.ra)}<br>{_e(c.dec)}",
+                _e(c.ellipse95),
+                _e(c.magnification),
+                _e(c.parity),
+                _e(c.magnitude),
+                _e(c.delay_95),
+                f"<span class='when'>{_e(c.median_day)}</span>",
+                _window_html(c.window68),
+                _window_html(c.window95),
+                _e(c.p_observable),
             ]
         )
     out.append(
@@ -266,12 +246,13 @@ def _forecast_sections(doc: dict) -> list[str]:
                 "parity",
                 "mag",
                 "delay [d] (95%)",
+                "median date",
                 "68% window (UTC)",
                 "95% window (UTC)",
-                "P(observable)",
+                "P(obs.)",
             ],
             rows,
-            numeric=(5, 7, 8, 11),
+            numeric=(5, 7, 8, 12),
             table_id="image-table",
         )
     )

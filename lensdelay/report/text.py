@@ -7,14 +7,9 @@ import numpy as np
 from lensdelay.cautions import CAUTION
 from lensdelay.inference.summaries import quantile_summary
 from lensdelay.forecast.result import STATUS_MEANINGS, TENSION_CAUSES
-from lensdelay.io.forecast_files import (
-    instant,
-    iso_utc,
-    window_days,
-    date_summary,
-    day_of,
-    median_day,
-)
+from lensdelay.dates import day_of
+from lensdelay.io.forecast_files import image_record
+from lensdelay.report.image_rows import image_cells
 
 __all__ = [
     "images_text",
@@ -333,7 +328,7 @@ def h0_date_lines(res) -> list[str]:
     ]
     for im in res.images:
         by = dates_by_h0(res, im)
-        marg = date_summary(res, im)
+        marg = im.dates_iso()
         lines.append(
             f"{im.family + '/' + im.label + ('' if im.observed else '*'):<8}"
             + "".join(f"{cell(by[format(h, 'g')]):>27}" for h in H0_TABLE)
@@ -362,7 +357,7 @@ def free_redshift_lines(res) -> list[str]:
     return lines
 
 
-def forecast_text(res: dict) -> str:
+def forecast_text(res) -> str:
     """The readable terminal summary."""
     sc, st = res.scenario, res.settings
     tr = sc.transient
@@ -373,28 +368,26 @@ def forecast_text(res: dict) -> str:
         f"{st.kappa_ext[1]:g}); microlensing {st.microlensing_mag:g} mag",
     ]
     timing = res.timing
-    for s in timing["sightings"]:
+    for s in timing.sightings:
         lines.append(
-            f"sighting: {s['family']}/{s['image']} on {s['date'][:16]}Z ± {s['sigma_days']:g} d"
-            + ("" if s["sigma_source"] == "given" else " (default sigma)")
+            f"sighting: {s.family}/{s.label} on {s.date.isot[:16]}Z ± {s.sigma_days:g} d"
+            + ("" if s.sigma_stated else " (default sigma)")
         )
-    for d in timing["delays"]:
+    for d in timing.delays:
         lines.append(
-            f"measured delay: {d['family']}/{d['image']} - {d['relative_to']} = "
-            f"{d['days']:g} ± {d['sigma']:g} d"
+            f"measured delay: {d.family}/{d.image} - {d.relative_to} = {d.days:g} ± {d.sigma:g} d"
         )
-    for m in timing["models"]:
-        if m["route"] == "reweight":
+    for m in timing.models:
+        if m.route == "reweight":
             lines.append(
-                f"update [{m['label']}]: importance weights, {m['effective_samples']:.0f} "
-                f"effective "
-                f"samples (threshold {timing['min_effective_samples']:.0f})"
+                f"update [{m.label}]: importance weights, {m.effective_samples:.0f} effective "
+                f"samples (threshold {timing.min_effective_samples:.0f})"
             )
-        elif m["route"] == "resample":
+        elif m.route == "resample":
             lines.append(
-                f"update [{m['label']}]: posterior sampled again with the measurements "
-                f"(re-weighting would have left {m['importance_effective_samples']:.0f}); about "
-                f"{m['effective_samples']:.0f} independent samples"
+                f"update [{m.label}]: posterior sampled again with the measurements "
+                f"(re-weighting would have left {m.importance_effective_samples:.0f}); about "
+                f"{m.effective_samples:.0f} independent samples"
             )
     lines.append("")
     head = (
@@ -403,21 +396,13 @@ def forecast_text(res: dict) -> str:
     )
     lines += [head, "-" * len(head)]
     for im in res.images:
-        d = date_summary(res, im)
-        dl = im.delay_days
-        delay = f"{dl['median']:+.1f} ±{0.5 * (dl['p84'] - dl['p16']):.1f}"
-        mag = f"{im.magnitude['median']:.1f}" if im.magnitude else "—"
-        pobs = (
-            f"{im.observability['probability_observable']:.2f}"
-            if im.observability is not None
-            else "—"
-        )
-        name = f"{im.family}/{im.label}" + ("" if im.observed else "*")
-        lo68, hi68 = window_days(res, im, "p16", "p84")
-        lo95, hi95 = window_days(res, im, "p2.5", "p97.5")
+        c = image_cells(image_record(res, im))
+        lo68, hi68 = c.window68
+        lo95, hi95 = c.window95
         lines.append(
-            f"{name:<8} {im.status:<9} {median_day(d['median']):<13} "
-            f"{lo68}..{hi68:<11} {lo95}..{hi95:<11} {delay:>16} {mag:>6} {pobs:>6}"
+            f"{c.name:<8} {c.status:<9} {c.median_day:<13} "
+            f"{lo68}..{hi68:<11} {lo95}..{hi95:<11} {c.delay_68:>16} {c.magnitude:>6} "
+            f"{c.p_observable:>6}"
         )
     lines.append(
         "(* = predicted, not yet observed; windows include the days that contain their ends)"
@@ -440,28 +425,25 @@ def forecast_text(res: dict) -> str:
                 cells.append(f"{v:>20.2f}" if v is not None else f"{'—':>20}")
             lines.append(f"{im.family + '/' + im.label:<8}" + "".join(cells))
     lines.append("")
-    for t in timing["tensions"]:
-        p = t["predicted"]
+    for t in timing.tensions:
+        p = t.predicted
         lines.append(
-            f"CHECK {t['measurement']}: measured {t['measured']:+.2f} ± "
-            f"{t['measurement_sigma']:.2f} d, "
+            f"CHECK {t.name}: measured {t.measured:+.2f} ± {t.measurement_sigma:.2f} d, "
             f"predicted from the positions {p['median']:+.2f} (68%: "
-            f"{p['p16']:+.2f}..{p['p84']:+.2f}); "
-            f"{t['sigma']:+.1f} sigma, p = {t['p_value']:.2g}"
+            f"{p['p16']:+.2f}..{p['p84']:+.2f}); {t.sigma:+.1f} sigma, p = {t.p_value:.2g}"
         )
-        if t["in_tension"]:
+        if t.in_tension:
             lines.append(
-                f"WARNING: {t['measurement']} is {abs(t['sigma']):.1f} sigma from the prediction. "
+                f"WARNING: {t.name} is {abs(t.sigma):.1f} sigma from the prediction. "
                 f"Usual causes: {TENSION_CAUSES}. The windows above combine the measurement and "
                 "the model as the probability model says; treat them with care."
             )
     for im in res.images:
         for f in im.flags:
             lines.append(f"FLAG {im.family}/{im.label}: {f}")
-        arch = im.archival_search
+        arch = im.archival_span()
         if arch is not None:
-            a = iso_utc(instant(res, arch["from_offset"]))
-            b = iso_utc(instant(res, arch["to_offset"]))
+            a, b = arch
             lines.append(
                 f"ARCHIVE {im.family}/{im.label}: its 95% window starts before the detection; "
                 f"search data taken between {day_of(a)} and {day_of(b)}"
