@@ -15,7 +15,10 @@ from lensdelay.lensing.kinematics import (
     LightProfile,
     _radii,
     aperture_dispersion,
+    aperture_dispersion_of_mass,
+    cored_sheet_mass_term,
     jeans_radial,
+    power_law_mass_term,
     power_law_mass_factor,
     projected_dispersion,
 )
@@ -158,3 +161,24 @@ def test_table_interpolates_to_the_direct_computation():
     for g, a in [(1.93, 0.8), (2.11, 2.7), (1.77, 4.1)]:
         direct = aperture_dispersion(light, aperture, g, "osipkov_merritt", a * 0.9)
         assert table(g, a) == pytest.approx(direct, rel=TOLERANCE)
+
+
+@pytest.mark.parametrize("lam", [0.85, 0.95, 0.99])
+def test_dispersion_scales_with_the_internal_mass_sheet(lam):
+    """σ² ∝ λ_int (CONVENTIONS.md; Birrer et al. 2020, A&A 643, A165): the physical transform
+    κ → λκ + (1 − λ)κ_c with a core θc far outside the aperture (here 10⁴ θE) changes the
+    dispersion as λ does, to 1e-3 (the joint stage applies σ² ∝ λ exactly). λ > 1 would
+    need a negative sheet, whose mass turns negative far out: the convention stands alone
+    there."""
+    light = LightProfile.from_effective_radius("hernquist", 1.0)
+    aperture = Aperture("slit", 0.7, width=1.0, length=1.0)
+    plain = power_law_mass_term(2.05, 1.1)
+    sheet = cored_sheet_mass_term(1e4 * 1.1)
+    base = aperture_dispersion_of_mass(light, aperture, plain, "osipkov_merritt", 1.5)
+    transformed = aperture_dispersion_of_mass(
+        light, aperture, lambda s: lam * plain(s) + (1 - lam) * sheet(s), "osipkov_merritt", 1.5
+    )
+    assert transformed / base == pytest.approx(lam, rel=TOLERANCE)
+    # and the power law's own normalisation: J · F θE^(γ−1) is the same number
+    j = aperture_dispersion(light, aperture, 2.05, "osipkov_merritt", 1.5)
+    assert base == pytest.approx(j * power_law_mass_factor(2.05) * 1.1**1.05, rel=1e-12)

@@ -70,6 +70,9 @@ __all__ = [
     "projected_dispersion",
     "aperture_weights",
     "aperture_dispersion",
+    "aperture_dispersion_of_mass",
+    "power_law_mass_term",
+    "cored_sheet_mass_term",
     "DispersionTable",
 ]
 
@@ -281,6 +284,30 @@ class _ApertureAverage:
         pressure = jeans_radial(self.r, self.light, mass_term, anisotropy, parameter)
         sig = self.sight.project(pressure, anisotropy, parameter)
         return _simpson_ln(self.weights * sig, self.big_r) / self.luminosity
+
+
+def power_law_mass_term(gamma: float, einstein_radius: float):
+    """G M(s)/(D_l s²) of a power law per c² (D_s/D_ls) (angles in arcsec): F θE^(γ−1) s^(1−γ)."""
+    factor = float(power_law_mass_factor(gamma)) * einstein_radius ** (gamma - 1.0)
+    return lambda s: factor * s ** (1.0 - gamma)
+
+
+def cored_sheet_mass_term(core: float):
+    """The same for the cored sheet κ(θ) = θc²/(θ² + θc²) (the physical mass-sheet transform).
+
+    Its 3-D density ρ ∝ (r² + θc²)^(−3/2) projects to that convergence, and holds
+    M(r) ∝ asinh(r/θc) − r/√(r² + θc²); per c² (D_s/D_ls) and in arcsec,
+    G M(s)/(D_l s²) = (θc²/2) [asinh(s/θc) − s/√(s² + θc²)] / s². For θc far outside the
+    aperture it adds almost nothing there, so κ → λκ + (1 − λ)κ_c gives σ² ≈ λσ².
+    """
+    return lambda s: 0.5 * core**2 * (np.arcsinh(s / core) - s / np.hypot(s, core)) / s**2
+
+
+def aperture_dispersion_of_mass(
+    light: LightProfile, aperture: Aperture, mass_term, anisotropy="isotropic", parameter=0.0
+) -> float:
+    """σ_ap² per c² (D_s/D_ls) · 1 arcsec, for any mass (``mass_term`` as above)."""
+    return _ApertureAverage(light, aperture)(mass_term, anisotropy, parameter)
 
 
 def aperture_dispersion(

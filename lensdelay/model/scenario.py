@@ -22,6 +22,13 @@ from astropy.time import Time
 import numpy as np
 
 from lensdelay.model.cosmology import cosmology_from_spec
+from lensdelay.model.kinematics import (
+    KINEMATICS_KEYS,
+    LINE_OF_SIGHT_KEYS,
+    Kinematics,
+    parse_kinematics,
+    parse_line_of_sight,
+)
 from lensdelay.errors import InputError, LensdelayWarning, choices_text, suggest
 from lensdelay.model.recipe import (
     MEMBER_KEYS,
@@ -174,6 +181,11 @@ class Scenario:
     #: Model error of image positions (arcsec), added in quadrature to every image's
     #: sigma; set after a poor fit (see :mod:`lensdelay.inference.misfit`), 0 as read.
     position_floor: float = 0.0
+    #: The main lens galaxy's measured velocity dispersion (``[kinematics]``), or None.
+    kinematics: Kinematics | None = None
+    #: This lens's external-convergence prior (mean, sigma) from ``[line_of_sight]``, or
+    #: None (the caller's prior applies).
+    kappa_ext_prior: tuple[float, float] | None = None
 
     def family(self, label: str) -> Family:
         """The family called ``label``."""
@@ -309,6 +321,8 @@ TOP_KEYS = (
     "mass",
     "model",
     "members",
+    "kinematics",
+    "line_of_sight",
 )
 MEMBERS_KEYS = ("catalogue", "exclude", *MEMBER_KEYS)
 
@@ -634,6 +648,16 @@ def _parse(doc, source, load_model, load_table=None):
         )
 
     site = _parse_site(doc["site"]) if "site" in doc else None
+    kinematics = (
+        parse_kinematics(_Table(doc["kinematics"], "kinematics", KINEMATICS_KEYS))
+        if "kinematics" in doc
+        else None
+    )
+    kappa_ext = (
+        parse_line_of_sight(_Table(doc["line_of_sight"], "line_of_sight", LINE_OF_SIGHT_KEYS))
+        if "line_of_sight" in doc
+        else None
+    )
 
     if "mass" in doc and "model" in doc:
         raise InputError(
@@ -683,6 +707,8 @@ def _parse(doc, source, load_model, load_table=None):
         transient,
         tuple(delays),
         site,
+        kinematics=kinematics,
+        kappa_ext_prior=kappa_ext,
     )
 
 

@@ -1,0 +1,113 @@
+"""A scenario's measured stellar kinematics and its line-of-sight prior.
+
+``[kinematics]`` as CONVENTIONS.md, "Stellar kinematics of the lens galaxy", defines it,
+and ``[line_of_sight]`` (this lens's κ_ext prior). Pure data and validation; the physics
+is in :mod:`lensdelay.lensing.kinematics`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from lensdelay.errors import InputError, choices_text
+
+__all__ = [
+    "KINEMATICS_KEYS",
+    "LINE_OF_SIGHT_KEYS",
+    "APERTURES",
+    "Kinematics",
+    "parse_kinematics",
+    "parse_line_of_sight",
+]
+
+KINEMATICS_KEYS = (
+    "velocity_dispersion",
+    "velocity_dispersion_sigma",
+    "aperture",
+    "aperture_width",
+    "aperture_length",
+    "aperture_radius",
+    "seeing_fwhm",
+    "effective_radius",
+    "light_profile",
+)
+LINE_OF_SIGHT_KEYS = ("kappa_ext",)
+#: Aperture kinds and the keys each needs.
+APERTURES = {"slit": ("aperture_width", "aperture_length"), "circle": ("aperture_radius",)}
+_LIGHT = ("hernquist", "jaffe")
+
+
+@dataclass(frozen=True)
+class Kinematics:
+    """The luminosity-weighted line-of-sight velocity dispersion of the main lens galaxy.
+
+    Dispersions in km/s, lengths in arcsec; ``aperture`` is ``slit`` (``width`` ×
+    ``length``, centred) or ``circle`` (``radius``); ``light_profile`` is ``hernquist``
+    or ``jaffe`` with the given effective (projected half-light) radius.
+    """
+
+    velocity_dispersion: float
+    velocity_dispersion_sigma: float
+    aperture: str
+    seeing_fwhm: float
+    effective_radius: float
+    light_profile: str = "hernquist"
+    aperture_width: float = 0.0
+    aperture_length: float = 0.0
+    aperture_radius: float = 0.0
+
+
+def parse_kinematics(table) -> Kinematics:
+    """``[kinematics]`` from the scenario reader's validating table (unknown keys refused)."""
+    if "velocity_dispersion" in table.data and "velocity_dispersion_sigma" not in table.data:
+        raise InputError(
+            "kinematics.velocity_dispersion_sigma is required with a velocity_dispersion "
+            "(its 1-sigma error, km/s), got nothing"
+        )
+    dispersion = table.number("velocity_dispersion", lo=0.0, lo_open=True, hi=1000.0)
+    sigma = table.number("velocity_dispersion_sigma", lo=0.0, lo_open=True, hi=1000.0)
+    aperture = table.text("aperture")
+    if aperture not in APERTURES:
+        raise InputError(
+            f"kinematics.aperture must be one of {choices_text(APERTURES)}, got {aperture!r}"
+        )
+    other = [k for kind, keys in APERTURES.items() if kind != aperture for k in keys]
+    for key in other:
+        if key in table.data:
+            raise InputError(
+                f"kinematics.{key} does not belong to a {aperture} aperture "
+                f"(it takes {', '.join(APERTURES[aperture])}), got {table.data[key]!r}"
+            )
+    sizes = {key: table.number(key, lo=0.0, lo_open=True, hi=60.0) for key in APERTURES[aperture]}
+    light = table.text("light_profile", "hernquist")
+    if light not in _LIGHT:
+        raise InputError(
+            f"kinematics.light_profile must be one of {choices_text(_LIGHT)}, got {light!r}"
+        )
+    return Kinematics(
+        velocity_dispersion=dispersion,
+        velocity_dispersion_sigma=sigma,
+        aperture=aperture,
+        seeing_fwhm=table.number("seeing_fwhm", lo=0.0, lo_open=True, hi=10.0),
+        effective_radius=table.number("effective_radius", lo=0.0, lo_open=True, hi=60.0),
+        light_profile=light,
+        **sizes,
+    )
+
+
+def parse_line_of_sight(table) -> tuple[float, float]:
+    """``[line_of_sight] kappa_ext = [mean, sigma]``: this lens's external-convergence prior."""
+    raw = table.data.get("kappa_ext")
+    if not (
+        isinstance(raw, list)
+        and len(raw) == 2
+        and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in raw)
+    ):
+        raise InputError(f"line_of_sight.kappa_ext must be [mean, sigma], got {raw!r}")
+    mean, sigma = float(raw[0]), float(raw[1])
+    if not (-0.5 < mean < 0.5 and 0.0 <= sigma <= 0.5):
+        raise InputError(
+            "line_of_sight.kappa_ext must have -0.5 < mean < 0.5 and 0 <= sigma <= 0.5, "
+            f"got {raw!r}"
+        )
+    return mean, sigma
