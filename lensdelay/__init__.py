@@ -17,6 +17,7 @@ _LOCATIONS = {
     "forecast_scenario": "lensdelay.api",
     "images_of_source": "lensdelay.api",
     "infer_h0": "lensdelay.api",
+    "infer_joint_h0": "lensdelay.api",
     "load_model": "lensdelay.api",
     "load_scenario": "lensdelay.api",
     "map_scenario": "lensdelay.api",
@@ -71,6 +72,7 @@ __all__ = [
     # the jobs
     "forecast_scenario",
     "infer_h0",
+    "infer_joint_h0",
     "map_scenario",
     "measure_delays",
     # errors

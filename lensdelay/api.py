@@ -63,6 +63,7 @@ __all__ = [
     "infer_h0",
     "prepare_lens",
     "forecast_prepared",
+    "infer_joint_h0",
 ]
 
 
@@ -759,3 +760,124 @@ def forecast_prepared(
     res = run_forecast([prepared.scenario], prepared=[prepared], **options)
     res = replace(res, provenance=provenance(inputs, res.cosmology, res.settings.seed))
     return replace(res, budget=delay_budget(res)) if budget else res
+
+
+def infer_joint_h0(
+    catalogue,
+    *,
+    anisotropy: str = "osipkov_merritt",
+    lambda_int: bool = True,
+    om0=0.3,
+    kappa_ext=(0.0, 0.05),
+    draws_per_lens: int = 600,
+    walkers: int = DEFAULT_SAMPLER.walkers,
+    steps: int = DEFAULT_SAMPLER.steps,
+    joint_steps: int = 3000,
+    seed: int = 1,
+    blinding_key: bytes | None = None,
+    progress=False,
+):
+    """H0 from many lenses at once, with kinematics and the mass sheet (``lensdelay cosmography``).
+
+    Parameters
+    ----------
+    catalogue : path or sequence
+        A folder of scenario files and/or prepared lenses (as ``batch`` reads it), or a
+        sequence of (name, scenario path or prepared-lens folder) pairs.
+    anisotropy : str
+        The orbits: ``isotropic``, ``constant`` or ``osipkov_merritt``.
+    lambda_int : bool
+        Infer the internal mass sheet's population (True) or fix λ_int = 1.
+    om0 : float or (mean, sigma)
+        Ωm fixed, or free with a Gaussian prior (flat ΛCDM).
+    kappa_ext : (mean, sigma)
+        The κ_ext prior of lenses whose scenario has no ``[line_of_sight]``.
+    draws_per_lens : int
+        Posterior samples of each lens used in the joint stage's Monte Carlo.
+    walkers, steps : int
+        The sampler of each lens's positions-only posterior (a prepared lens keeps its own).
+    joint_steps : int
+        Steps of the joint stage's sampler (a third are burn-in).
+    seed : int
+        Every lens's seed derives from it and the lens's name; the joint stage's too.
+    blinding_key : bytes, optional
+        Blind every H0 and distance with the factor this key gives
+        (:class:`lensdelay.hubble.cosmography.Blinding`); None: unblinded.
+
+    Returns
+    -------
+    lensdelay.hubble.cosmography.JointH0Result
+        With ``provenance`` of every input file; ``.report()`` gives the text.
+    """
+    from lensdelay.hubble.cosmography import Blinding, joint_h0
+    from lensdelay.hubble.joint import Population
+    from lensdelay.hubble.lens_evidence import lens_evidence, posterior_of_positions
+    from lensdelay.inference.priors import check_kappa_prior
+    from lensdelay.inference.sampling import SamplerSettings
+    from lensdelay.io.catalogue import list_systems, system_seed
+    from lensdelay.io.prepared_files import is_prepared, read_prepared
+
+    check_sampler_settings(walkers, steps, seed)
+    check_sampler_settings(walkers, joint_steps, seed)
+    kappa_ext = check_kappa_prior(*kappa_ext)
+    if not isinstance(draws_per_lens, int) or draws_per_lens < 50:
+        raise InputError(f"draws_per_lens must be an integer >= 50, got {draws_per_lens!r}")
+    population = Population(anisotropy, lambda_int, om0)
+    systems = list_systems(catalogue) if isinstance(catalogue, (str, os.PathLike)) else catalogue
+    # every lens read and checked before any is fitted: a bad one stops the run at once
+    loaded, inputs = [], []
+    for name, path in systems:
+        if is_prepared(path):
+            prepared = read_prepared(path)
+            loaded.append((name, prepared.scenario, prepared))
+            inputs += [Path(path) / "scenario.toml", Path(path) / "lens.json"]
+        else:
+            sc, used = _scenario(path)
+            loaded.append((name, sc, None))
+            inputs += used
+        sc = loaded[-1][1]
+        if not sc.delays and sc.kinematics is None:
+            raise InputError(
+                "a lens of a joint H0 needs measured delays ([[delay]]) or [kinematics], "
+                "got neither",
+                sc.source,
+            )
+    sampler = SamplerSettings(walkers=walkers, steps=steps)
+    evidence = []
+    for name, sc, prepared in loaded:
+        lens_seed = system_seed(name, seed)
+        if prepared is not None:
+            like, chain = prepared.likelihood(), prepared.chain
+        else:
+            like, chain = posterior_of_positions(sc, sampler, lens_seed)
+        if progress:
+            import sys
+
+            print(f"cosmography: {name}: lens posterior ready", file=sys.stderr)
+        evidence.append(
+            lens_evidence(
+                name,
+                sc,
+                like,
+                chain.samples(),
+                anisotropy=anisotropy,
+                n_samples=draws_per_lens,
+                rng=np.random.default_rng(lens_seed),
+                kappa_prior=kappa_ext,
+            )
+        )
+    res = joint_h0(
+        evidence,
+        population,
+        walkers=walkers,
+        steps=joint_steps,
+        seed=seed,
+        blinding=None if blinding_key is None else Blinding(blinding_key),
+    )
+    prov = provenance(inputs, loaded[0][1].cosmology, seed)
+    prov["cosmology"] = {
+        "class": "FlatLambdaCDM",
+        "H0": "inferred",
+        "Om0": list(population.om0) if population.om0_free else float(population.om0),
+    }
+    return replace(res, provenance=prov)

@@ -9,7 +9,7 @@ import time
 
 import pytest
 
-from lensdelay.cli.batch import list_systems, system_seed
+from lensdelay.io.catalogue import list_systems, system_seed
 from lensdelay.cli.main import main
 
 pytestmark = pytest.mark.integration

@@ -19,19 +19,17 @@ from __future__ import annotations
 import io
 import json
 import sys
-import zlib
 from pathlib import Path
 
 
 from lensdelay.errors import InputError
+from lensdelay.io.catalogue import list_systems, system_seed
 
 __all__ = [
     "TRIAGE_OBSERVABLE",
     "TRIAGE_DEPTH",
     "TRIAGE_MIN_DELAY",
     "SUMMARY",
-    "list_systems",
-    "system_seed",
     "system_files",
     "system_fingerprint",
     "previous_row",
@@ -55,47 +53,6 @@ TRIAGE_OBSERVABLE = 0.5
 TRIAGE_DEPTH = 25.0
 TRIAGE_MIN_DELAY = 2.0
 SUMMARY = "summary.ecsv"
-
-
-def list_systems(catalogue) -> list[tuple[str, Path]]:
-    """(name, path) of every scenario file and prepared lens in ``catalogue``, by name."""
-    from lensdelay.io.prepared_files import is_prepared
-
-    folder = Path(catalogue)
-    if not folder.is_dir():
-        raise InputError(
-            "must be a folder of scenario files and/or prepared lenses, got "
-            + ("a file" if folder.exists() else "nothing there"),
-            str(folder),
-        )
-    systems = {}
-    for path in sorted(folder.iterdir()):
-        if path.is_file() and path.suffix == ".toml":
-            name = path.stem
-        elif is_prepared(path):
-            name = path.name
-        else:
-            continue
-        if name in systems:
-            raise InputError(
-                f"system names must be unique, got {name!r} as {systems[name].name} and "
-                f"{path.name}",
-                str(folder),
-            )
-        systems[name] = path
-    if not systems:
-        raise InputError(
-            "must hold at least one scenario (*.toml) or prepared lens, got none", str(folder)
-        )
-    return sorted(systems.items())
-
-
-def system_seed(name: str, seed: int) -> int:
-    """The seed of system ``name``: the base seed and the name's CRC-32, through SeedSequence."""
-    import numpy as np
-
-    state = np.random.SeedSequence([int(seed), zlib.crc32(name.encode("utf-8"))]).generate_state(1)
-    return int(state[0])
 
 
 def system_files(path) -> list[Path]:

@@ -16,6 +16,7 @@ import warnings
 from lensdelay.cli import (
     batch,
     check,
+    cosmography,
     delays,
     fit,
     forecast,
@@ -35,7 +36,19 @@ from lensdelay.version import __version__
 __all__ = ["SUBCOMMANDS", "build_parser", "main"]
 
 
-SUBCOMMANDS = (images, check, fit, delays, prepare, forecast, batch, hubble, maps, report)
+SUBCOMMANDS = (
+    images,
+    check,
+    fit,
+    delays,
+    prepare,
+    forecast,
+    batch,
+    hubble,
+    cosmography,
+    maps,
+    report,
+)
 
 
 class _Parser(argparse.ArgumentParser):

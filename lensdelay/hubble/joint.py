@@ -120,7 +120,8 @@ class Population:
         """The hyper-parameters in their order, with their priors."""
         out = [HyperParameter("H0", 20.0, 150.0)]
         if self.om0_free:
-            out.append(HyperParameter("Om0", *OM0_RANGE, gaussian=tuple(self.om0)))
+            grid = self.om0_grid()
+            out.append(HyperParameter("Om0", grid[0], grid[-1], gaussian=tuple(self.om0)))
         if self.lambda_int:
             out += [
                 HyperParameter("lambda_mean", 0.5, 1.5),
@@ -137,6 +138,18 @@ class Population:
                 HyperParameter("r_ani_scatter", 0.0, 1.0),
             ]
         return tuple(out)
+
+    def om0_grid(self) -> np.ndarray:
+        """Ωm nodes of the distance splines: the prior's ±6σ (within OM0_RANGE).
+
+        Distances vary slowly with Ωm: 13 nodes keep a cubic spline's error below 1e-4
+        (:class:`~lensdelay.lensing.distances.DelayDistanceTable` measures it).
+        """
+        if not self.om0_free:
+            return np.array([float(self.om0)])
+        mean, sigma = self.om0
+        lo, hi = max(OM0_RANGE[0], mean - 6 * sigma), min(OM0_RANGE[1], mean + 6 * sigma)
+        return np.linspace(lo, hi, 13)
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -186,7 +199,9 @@ class _LensTerms:
             cosmo = FlatLambdaCDM(H0=_H_TABLE, Om0=float(population.om0))
             ddt = LensDistances(cosmo, self.lens.lens_redshift, z_s).time_delay_distance(z_s)
             return lambda om0, r=float(ddt.value) / reference_mpc: np.full(np.shape(om0), r)
-        table = DelayDistanceTable(self.lens.lens_redshift, z_s, om0_range=OM0_RANGE, nodes=61)
+        table = DelayDistanceTable(
+            self.lens.lens_redshift, z_s, om0_range=(om_grid[0], om_grid[-1]), nodes=len(om_grid)
+        )
         return CubicSpline(om_grid, table(_H_TABLE, om_grid) / reference_mpc)
 
     def ln_j(self, parameter: np.ndarray) -> np.ndarray:
@@ -228,7 +243,7 @@ class JointLikelihood:
         self.population = population
         self.parameters = population.parameters()
         self.names = population.names
-        om_grid = np.linspace(*OM0_RANGE, 37)
+        om_grid = population.om0_grid()
         self.terms = [_LensTerms(lens, population, om_grid, rng) for lens in lenses]
         self.lenses = tuple(lenses)
         self.compiled = compiled
@@ -244,47 +259,56 @@ class JointLikelihood:
         theta = np.atleast_2d(theta)
         return sum(p.log_prior(theta[:, k]) for k, p in enumerate(self.parameters))
 
-    def lens_log_likelihood(self, index: int, theta: np.ndarray) -> np.ndarray:
-        """The log likelihood of lens ``index`` at each parameter set: (P,)."""
-        t = self.terms[index]
-        theta = np.atleast_2d(theta)
-        h0 = self._column(theta, "H0", 70.0)
-        fixed_om0 = 0.3 if self.population.om0_free else float(self.population.om0)
-        om0 = self._column(theta, "Om0", fixed_om0)
+    def _om0(self, theta) -> np.ndarray:
+        fixed = 0.3 if self.population.om0_free else float(self.population.om0)
+        return self._column(theta, "Om0", fixed)
+
+    def _sheet(self, t, theta) -> np.ndarray:
+        """λ_int (1 − κ_ext) of every draw: (P, n)."""
         lam = self._column(theta, "lambda_mean", 1.0) + self._column(
             theta, "lambda_scatter", 0.0
         ) * t.z_lambda[None, :]
-        sheet = lam * (1.0 - t.kappa[None, :])  # the total mass-sheet factor λ_int (1 − κ_ext)
+        return lam * (1.0 - t.kappa[None, :])
+
+    def _anisotropy(self, t, theta) -> np.ndarray:
+        """Every draw's anisotropy parameter (r_a/R_eff or β; 0 when isotropic): (P, n)."""
+        kind = self.population.anisotropy
+        if kind == "osipkov_merritt":
+            return self._column(theta, "r_ani_mean", 1.0) * np.exp(
+                self._column(theta, "r_ani_scatter", 0.0) * t.z_ani[None, :]
+            )
+        if kind == "constant":
+            return self._column(theta, "beta_mean", 0.0) + self._column(
+                theta, "beta_scatter", 0.0
+            ) * t.z_ani[None, :]
+        return np.zeros((len(theta), len(t.z_ani)))
+
+    def predicted_dispersion(self, index: int, theta: np.ndarray) -> np.ndarray:
+        """The dispersion (km/s) of every draw of lens ``index``: (P, n)."""
+        t = self.terms[index]
+        theta = np.atleast_2d(theta)
+        j = np.exp(t.ln_j(self._anisotropy(t, theta)))
+        sheet = np.maximum(self._sheet(t, theta), 0.0)
+        return np.sqrt(t.dispersion_ratio(self._om0(theta)) * t.base[None, :] * j * sheet)
+
+    def lens_log_likelihood(self, index: int, theta: np.ndarray) -> np.ndarray:
+        """The log likelihood of lens ``index`` at each parameter set: (P,) (numpy path)."""
+        t = self.terms[index]
+        theta = np.atleast_2d(theta)
+        h0 = self._column(theta, "H0", 70.0)
+        om0 = self._om0(theta)
+        sheet = self._sheet(t, theta)  # the total mass-sheet factor λ_int (1 − κ_ext)
         log_l = np.zeros(sheet.shape)
         if t.delays:
-            scale = (_H_TABLE / h0)[:, :, None] * np.stack(
-                [d(om0) for d in t.distance], axis=-1
-            )
+            scale = (_H_TABLE / h0)[:, :, None] * np.stack([d(om0) for d in t.distance], axis=-1)
             predicted = scale * t.model_days[None, :, :] * sheet[:, :, None]
             resid = t.measured[None, None, :] - predicted
             log_l += -0.5 * np.einsum("pni,ij,pnj->pn", resid, t.cov_inv, resid) + t.norm
         if t.kinematics:
-            log_l += self._kinematics_term(t, theta, om0, sheet)
+            z = (t.observed - self.predicted_dispersion(index, theta)) / t.error
+            log_l += -0.5 * z**2 - np.log(t.error * np.sqrt(2.0 * np.pi))
         log_l = np.where(sheet > 0, log_l, -np.inf)
         return logsumexp(log_l, axis=1) - np.log(log_l.shape[1])
-
-    def _kinematics_term(self, t, theta, om0, sheet) -> np.ndarray:
-        if self.population.anisotropy == "osipkov_merritt":
-            ani = self._column(theta, "r_ani_mean", 1.0) * np.exp(
-                self._column(theta, "r_ani_scatter", 0.0) * t.z_ani[None, :]
-            )
-        elif self.population.anisotropy == "constant":
-            ani = self._column(theta, "beta_mean", 0.0) + self._column(
-                theta, "beta_scatter", 0.0
-            ) * t.z_ani[None, :]
-        else:
-            ani = np.zeros((len(theta), len(t.z_ani)))
-        j = np.exp(t.ln_j(ani))
-        sigma2 = t.dispersion_ratio(om0) * t.base[None, :] * j * np.maximum(sheet, 0.0)
-        predicted = np.sqrt(sigma2)
-        return -0.5 * ((t.observed - predicted) / t.error) ** 2 - np.log(
-            t.error * np.sqrt(2.0 * np.pi)
-        )
 
     def lens_log_likelihoods(self, theta: np.ndarray) -> np.ndarray:
         """Every lens's log likelihood at each parameter set: (P, L).
@@ -301,8 +325,7 @@ class JointLikelihood:
 
         pk = self._packed()
         h0 = self._column(theta, "H0", 70.0)
-        fixed_om0 = 0.3 if self.population.om0_free else float(self.population.om0)
-        om0 = self._column(theta, "Om0", fixed_om0)
+        om0 = self._om0(theta)
         ddt = [(_H_TABLE / h0) * d(om0) for t in self.terms if t.delays for d in t.distance]
         ddt_scale = np.hstack(ddt) if ddt else np.zeros((len(theta), 0))
         kin_ratio = np.hstack(

@@ -90,9 +90,9 @@ ANISOTROPY_MODELS = {"isotropic": None, "constant": "beta", "osipkov_merritt": "
 
 # the radial grid of the Jeans integrals: from a tenth of the smallest projected radius
 # to R_MAX_FACTOR times the problem's largest scale, N_RADII points even in ln r
-_R_MAX_FACTOR, _N_RADII = 1e4, 2400
+_R_MAX_FACTOR, _N_RADII = 1e4, 1200
 # points along each line of sight (Simpson's rule in t, r = R cosh t)
-_N_SIGHT = 801
+_N_SIGHT = 401
 # projected radii of the aperture integral
 _N_PROJECTED = 241
 

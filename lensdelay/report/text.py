@@ -24,6 +24,7 @@ __all__ = [
     "free_redshift_lines",
     "forecast_text",
     "delays_text",
+    "joint_h0_text",
 ]
 
 
@@ -529,4 +530,71 @@ def delays_text(res) -> str:
         "quasars compare a trend, splines and a slow random process for it; supernovae fit a "
         "flux ratio per band. Delays measured this way are model-dependent."
     )
+    return "\n".join(lines)
+
+
+def _interval(q: dict | None, fmt: str = "{:.1f}") -> str:
+    """'median [p16, p84]' of a quantile summary, or an em dash."""
+    if q is None:
+        return "—"
+    return f"{fmt.format(q['median'])} [{fmt.format(q['p16'])}, {fmt.format(q['p84'])}]"
+
+
+def joint_h0_text(res) -> str:
+    """The terminal summary of a joint H0 (:class:`lensdelay.hubble.cosmography.JointH0Result`)."""
+    pop = res.population
+    n_delays = sum(lens.has_delays for lens in res.lenses)
+    n_kin = sum(lens.has_kinematics for lens in res.lenses)
+    tag = " [BLINDED]" if res.blinded else ""
+    lines = [
+        f"Joint H0 from {len(res.lenses)} lenses ({n_delays} with delays, {n_kin} with "
+        f"kinematics){tag}",
+        "population: "
+        + ("lambda_int ~ N(mean, scatter), inferred" if pop.lambda_int else "lambda_int = 1")
+        + f"; orbits {pop.anisotropy.replace('_', '-')}; Om0 "
+        + (f"~ N({pop.om0[0]:g}, {pop.om0[1]:g})" if pop.om0_free else f"= {pop.om0:g}"),
+    ]
+    if res.blinded:
+        lines.append(
+            f"BLINDED: every H0 and D_dt is multiplied by a hidden factor (key sha256 "
+            f"{res.blinding_key_sha256[:16]}...); freeze the analysis, then rerun with --unblind"
+        )
+    h = res.h0
+    lines += [
+        "",
+        f"H0 = {h['median']:.1f} +{h['p84'] - h['median']:.1f} -{h['median'] - h['p16']:.1f} "
+        f"km/s/Mpc (68%); 95% [{h['p2.5']:.1f}, {h['p97.5']:.1f}]; 1-sigma width "
+        f"{50 * (h['p84'] - h['p16']) / h['median']:.1f}%{tag}",
+    ]
+    for name, q in res.parameters.items():
+        if name != "H0":
+            lines.append(f"{name} = {_interval(q, '{:.3f}')} (median [68%])")
+    lines += [
+        "",
+        f"{'lens':<16} {'delays':>6} {'sigma measured':>16} {'sigma predicted':>20} "
+        f"{'H0 alone' + tag:>24} {'D_dt [Mpc]' + tag:>28}",
+    ]
+    for lens in res.lenses:
+        measured = (
+            f"{lens.dispersion_measured:.0f} ± {lens.dispersion_error:.0f}"
+            if lens.has_kinematics
+            else "—"
+        )
+        lines.append(
+            f"{lens.name:<16} {lens.n_delays:>6} {measured:>16} "
+            f"{_interval(lens.dispersion_predicted, '{:.0f}'):>20} "
+            f"{_interval(lens.h0):>24} {_interval(lens.time_delay_distance_mpc, '{:.0f}'):>28}"
+        )
+    ch = res.chain
+    lines += [
+        "(sigma in km/s; predicted: the population's medians applied to the lens's own "
+        "posterior; H0 alone: this lens with the others' population parameters fixed)",
+        "",
+        f"sampler: {ch.walkers} walkers x {ch.steps} steps (burn-in {ch.burn}), acceptance "
+        f"{ch.acceptance:.2f}, max autocorrelation {np.nanmax(ch.autocorrelation):.0f} steps",
+    ]
+    lines += [f"NOTE: {n}" for n in res.notes]
+    for lens in res.lenses:
+        lines += [f"NOTE [{lens.name}]: {n}" for n in lens.notes]
+    lines += ["", CAUTION]
     return "\n".join(lines)

@@ -1,0 +1,86 @@
+"""Figures of a joint H0: each lens's H0 against the joint band, and the population."""
+
+from __future__ import annotations
+
+import numpy as np
+from matplotlib.figure import Figure
+
+from lensdelay.report.figures import PALETTE, styled
+
+__all__ = ["joint_h0_figure", "population_figure", "PARAMETER_TITLES"]
+
+#: Axis labels of the population's parameters.
+PARAMETER_TITLES = {
+    "H0": "H0 [km/s/Mpc]",
+    "Om0": "Ωm",
+    "lambda_mean": "mean internal mass sheet λ_int",
+    "lambda_scatter": "scatter of λ_int",
+    "r_ani_mean": "mean r_ani / R_eff (Osipkov–Merritt)",
+    "r_ani_scatter": "scatter of ln r_ani",
+    "beta_mean": "mean anisotropy β",
+    "beta_scatter": "scatter of β",
+}
+
+
+def _blinded(res) -> str:
+    return " (BLINDED)" if res.blinded else ""
+
+
+@styled
+def joint_h0_figure(res) -> Figure:
+    """Each lens's own H0 (68% and 95%) with the joint posterior's 68% band and median."""
+    lenses = [lens for lens in res.lenses if lens.h0 is not None]
+    height = 2.3 + 0.22 * len(lenses)
+    fig = Figure(figsize=(6.4, height))
+    ax = fig.subplots()
+    h = res.h0
+    ax.axvspan(h["p16"], h["p84"], color=PALETTE[0], alpha=0.18, lw=0, label="joint 68%")
+    ax.axvline(h["median"], color=PALETTE[0], lw=1.2, label="joint median")
+    y = np.arange(len(lenses))[::-1]
+    for yi, lens in zip(y, lenses):
+        q = lens.h0
+        ax.plot([q["p2.5"], q["p97.5"]], [yi, yi], color=PALETTE[5], lw=0.8)
+        ax.plot([q["p16"], q["p84"]], [yi, yi], color=PALETTE[1], lw=2.2)
+        ax.plot(q["median"], yi, "o", color=PALETTE[1], ms=3.5)
+    ax.plot([], [], color=PALETTE[1], lw=2.2, marker="o", ms=3.5, label="one lens: 68%")
+    ax.plot([], [], color=PALETTE[5], lw=0.8, label="one lens: 95%")
+    ax.set_yticks(y, [lens.name for lens in lenses], fontsize=7 if len(lenses) > 20 else 8)
+    ax.set_ylim(-1, len(lenses))
+    ax.set_xlabel("H0 [km/s/Mpc]" + (" (blinded)" if res.blinded else ""))
+    ax.set_title(
+        f"H0 of each lens and of all {len(res.lenses)} together{_blinded(res)}\n"
+        "one lens: the population's other parameters at the joint medians;\n"
+        "model-dependent (mass sheet, line of sight)",
+        fontsize=8.5,
+    )
+    # below the axes: inside, the legend would cover the lenses' intervals
+    fig.legend(loc="lower center", ncol=4, fontsize=7, frameon=False)
+    fig.tight_layout(rect=(0.0, 0.35 / height, 1.0, 1.0))
+    return fig
+
+
+@styled
+def population_figure(res) -> Figure:
+    """The marginal posteriors of the population's parameters besides H0."""
+    names = [n for n in res.chain.names if n != "H0"]
+    if not names:
+        names = ["H0"]
+    cols = min(len(names), 2)
+    rows = int(np.ceil(len(names) / cols))
+    fig = Figure(figsize=(3.3 * cols, 2.5 * rows))
+    axes = np.atleast_1d(fig.subplots(rows, cols, squeeze=False).ravel())
+    for ax, name in zip(axes, names):
+        values = res.chain.column(name)
+        ax.hist(values, bins=50, histtype="stepfilled", color=PALETTE[0], alpha=0.7)
+        q = res.parameters[name]
+        for key, style in (("median", "-"), ("p16", ":"), ("p84", ":")):
+            ax.axvline(q[key], color=PALETTE[1], ls=style, lw=1)
+        ax.set_xlabel(PARAMETER_TITLES.get(name, name))
+        ax.set_ylabel("samples")
+    for ax in axes[len(names) :]:
+        ax.set_visible(False)
+    fig.suptitle(
+        "Population posterior (median and 68% marked)" + _blinded(res), fontsize=9
+    )
+    fig.tight_layout()
+    return fig
