@@ -165,7 +165,8 @@ def joint_h0(
     population : Population
         Anisotropy model, whether λ_int is free, Ωm fixed or with its prior.
     walkers, steps, seed : int
-        The sampler's settings (emcee's stretch move; a third of the steps are burn-in).
+        The sampler's settings (emcee, differential-evolution moves; a third of the steps
+        are burn-in).
     blinding : Blinding, optional
         When given, every H0 and distance in the result is blinded.
     """

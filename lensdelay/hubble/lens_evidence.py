@@ -204,8 +204,7 @@ def lens_evidence(
     """
     if not scenario.delays and scenario.kinematics is None:
         raise InputError(
-            "a lens of a joint H0 needs measured delays ([[delay]]) or [kinematics], "
-            "got neither",
+            "a lens of a joint H0 needs measured delays ([[delay]]) or [kinematics], got neither",
             scenario.source,
         )
     rows = chain_samples[rng.integers(0, len(chain_samples), n_samples)]
@@ -225,12 +224,14 @@ def lens_evidence(
         )
         table = DispersionTable(light, aperture, anisotropy, effective_radius=kin.effective_radius)
     notes = []
-    if kin is not None and np.any((slope < table.gammas[0]) | (slope > table.gammas[-1])):
-        share = np.mean((slope < table.gammas[0]) | (slope > table.gammas[-1]))
-        notes.append(
-            f"{100 * share:.0f}% of the samples have a slope outside "
-            f"[{table.gammas[0]:g}, {table.gammas[-1]:g}]; their dispersion is taken at the edge"
-        )
+    if kin is not None:
+        outside = float(np.mean((slope < table.gammas[0]) | (slope > table.gammas[-1])))
+        if outside > 0:
+            share = f"{100 * outside:.0f}%" if outside >= 0.01 else "under 1%"
+            notes.append(
+                f"{share} of the samples have a slope outside [{table.gammas[0]:g}, "
+                f"{table.gammas[-1]:g}]; their dispersion is taken at the edge"
+            )
     return LensEvidence(
         name=name,
         lens_redshift=float(scenario.lens_redshift),

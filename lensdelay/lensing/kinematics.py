@@ -333,7 +333,7 @@ class DispersionTable:
     effective_radius : float
         R_eff in arcsec (the unit of r_a).
     gammas, parameters : array_like, optional
-        The grids (defaults: γ in [1.5, 2.5], β in [−0.5, 0.8], r_a/R_eff in [0.2, 20]).
+        The grids (defaults: γ in [1.2, 2.8], β in [−0.5, 0.8], r_a/R_eff in [0.2, 20]).
     """
 
     def __init__(
@@ -350,7 +350,9 @@ class DispersionTable:
                 f"anisotropy must be one of {sorted(ANISOTROPY_MODELS)}, got {anisotropy!r}"
             )
         self.anisotropy = anisotropy
-        self.gammas = np.linspace(1.5, 2.5, 41) if gammas is None else np.asarray(gammas, float)
+        # a recipe's widest slope bounds (lensdelay.model.recipe.DEFAULT_BOUNDS), so no
+        # posterior sample falls off the table
+        self.gammas = np.linspace(1.2, 2.8, 49) if gammas is None else np.asarray(gammas, float)
         default = {
             "isotropic": np.array([0.0]),
             "constant": np.linspace(-0.5, 0.8, 14),

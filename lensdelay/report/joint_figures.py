@@ -79,8 +79,6 @@ def population_figure(res) -> Figure:
         ax.set_ylabel("samples")
     for ax in axes[len(names) :]:
         ax.set_visible(False)
-    fig.suptitle(
-        "Population posterior (median and 68% marked)" + _blinded(res), fontsize=9
-    )
+    fig.suptitle("Population posterior (median and 68% marked)" + _blinded(res), fontsize=9)
     fig.tight_layout()
     return fig
