@@ -146,6 +146,17 @@ def test_outputs_and_blinding(runs):
     assert h["p2.5"] < 70.0 < h["p97.5"]
 
 
+def test_report_page_of_a_joint_h0(runs):
+    """`lensdelay report DIR` makes one page of it: the population, every lens, the figures."""
+    out = runs[0]
+    assert main(["report", str(out)]) == 0
+    page = (out / "report.html").read_text()
+    assert "Joint H0 of 3 lenses</h2>" in page and "(blinded)" not in page
+    for name, *_ in LENSES:
+        assert f"<td>{name}</td>" in page
+    assert page.count("data:image/png;base64,") == 2
+
+
 def test_key_file_must_be_intact(catalogue, tmp_path, capsys):
     """A damaged key is refused in one line naming the file (a new one would change the
     blinding silently)."""

@@ -134,7 +134,7 @@ def test_report_of_a_folder_holds_every_job(outputs):
 @pytest.mark.parametrize(
     "prepare, message",
     [
-        (lambda d: None, "must hold forecast.json, fit.json or hubble.json"),
+        (lambda d: None, "must hold forecast.json, fit.json, hubble.json or cosmography.json"),
         (
             lambda d: (d / "forecast.json").write_text(
                 json.dumps({"provenance": {"version": "0.0.1"}})

@@ -68,7 +68,9 @@ def run(args) -> int:
             inputs=res.provenance["inputs"],
         )
         look = [(f"{stem}.png", what) for stem, what in COSMOGRAPHY_FIGURES.items()]
-        then = "--unblind shows the true values once the analysis is frozen" if res.blinded else ""
+        then = f"lensdelay report {out} makes one page of it"
+        if res.blinded:
+            then += "; --unblind shows the true values once the analysis is frozen"
         print(written_line(out, written, look, then), file=sys.stderr)
     return 0
 

@@ -24,6 +24,7 @@ def run(args) -> int:
             forecast=docs.get("forecast"),
             fit=docs.get("fit"),
             hubble=docs.get("hubble"),
+            cosmography=docs.get("cosmography"),
             figures=figures,
         )
     except (KeyError, TypeError, ValueError, AttributeError, IndexError) as err:
@@ -42,8 +43,12 @@ def run(args) -> int:
 def register(sub) -> None:
     """Add the ``report`` sub-command to the parser."""
     p = sub.add_parser(
-        "report", help="one self-contained HTML page from the fit, forecast and hubble outputs"
+        "report",
+        help="one self-contained HTML page from the fit, forecast, hubble and cosmography outputs",
     )
-    p.add_argument("folder", help="folder holding forecast.json, fit.json and/or hubble.json")
+    p.add_argument(
+        "folder",
+        help="folder holding forecast.json, fit.json, hubble.json and/or cosmography.json",
+    )
     p.add_argument("--out", help="the HTML file to write (default: FOLDER/report.html)")
     p.set_defaults(func=run)

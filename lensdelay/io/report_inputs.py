@@ -1,9 +1,9 @@
 """Reading a folder of job outputs for the report, refusing what it cannot use.
 
 The report needs the JSON document of at least one job (forecast.json, fit.json,
-hubble.json) written by this version of lensdelay, with the keys the page reads; the
-PNG figures beside them are optional. Anything else is refused in one line naming the
-file and what is missing.
+hubble.json, cosmography.json) written by this version of lensdelay, with the keys the
+page reads; the PNG figures beside them are optional. Anything else is refused in one
+line naming the file and what is missing.
 """
 
 from __future__ import annotations
@@ -39,6 +39,14 @@ REQUIRED = {
     ),
     "fit": ("version", "scenario", "model", "chi2", "dof", "quality", "parameters"),
     "hubble": ("H0", "kappa_ext_comparison", "provenance"),
+    "cosmography": (
+        "blinded",
+        "blinding_key_sha256",
+        "population",
+        "parameters",
+        "lenses",
+        "provenance",
+    ),
 }
 IMAGE_KEYS = (
     "family",
@@ -64,6 +72,8 @@ FIGURE_STEMS = (
     "corner",
     "hubble_curves",
     "hubble_posterior",
+    "joint_h0",
+    "population",
 )
 
 
@@ -124,7 +134,7 @@ def read_results(folder) -> tuple[dict, dict[str, bytes]]:
     if not folder.is_dir():
         raise InputError(f"report folder {folder} must be a folder of lensdelay outputs, got none")
     docs = {}
-    for job in ("forecast", "fit", "hubble"):
+    for job in ("forecast", "fit", "hubble", "cosmography"):
         path = folder / f"{job}.json"
         if not path.exists():
             continue
@@ -136,8 +146,8 @@ def read_results(folder) -> tuple[dict, dict[str, bytes]]:
     _check_same_system(docs, folder)
     if not docs:
         raise InputError(
-            f"{folder} must hold forecast.json, fit.json or hubble.json (written by "
-            "`lensdelay forecast|fit|hubble --out`), got none"
+            f"{folder} must hold forecast.json, fit.json, hubble.json or cosmography.json "
+            "(written by `lensdelay forecast|fit|hubble|cosmography --out`), got none"
         )
     figures = {}
     for stem in FIGURE_STEMS:

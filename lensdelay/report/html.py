@@ -32,6 +32,9 @@ FIGURES = {
     "hubble_curves": "Predicted delays against H0, with the measured ones.",
     "hubble_posterior": "H0 from the measured delays under several external-convergence "
     "priors (the mass-sheet degeneracy).",
+    "joint_h0": "Each lens's H0 (the population's other parameters at the joint medians) "
+    "against the joint posterior's 68% band.",
+    "population": "The population's internal mass sheet and orbital anisotropy.",
 }
 
 STYLE = """
@@ -459,24 +462,106 @@ def _provenance_section(docs: dict) -> list[str]:
     return out
 
 
+def _cosmography_section(doc: dict) -> list[str]:
+    """The joint H0: the blinding, the population's posterior, every lens."""
+    blinded = doc["blinded"]
+    tag = " (blinded)" if blinded else ""
+    out = [f"<h2 id='joint-h0'>Joint H0 of {len(doc['lenses'])} lenses{tag}</h2>"]
+    if blinded:
+        out.append(
+            "<div class='caution'><b>Blinded.</b> Every H0 and D_dt on this page is multiplied "
+            "(D_dt divided) by a hidden factor drawn from the blinding key (SHA-256 "
+            f"<code>{_e(doc['blinding_key_sha256'])}</code>); rerun with --unblind once the "
+            "analysis is frozen.</div>"
+        )
+    pop = doc["population"]
+    out.append(
+        f"<p>Orbits: {_e(pop['anisotropy'])}; internal mass sheet: {_e(pop['lambda_int'])}; "
+        f"Ωm: {_e(pop['Om0'])}.</p>"
+    )
+    rows = [
+        [_e(name), *(_num(q[k], "{:.3f}") for k in ("median", "p16", "p84", "p2.5", "p97.5"))]
+        for name, q in doc["parameters"].items()
+    ]
+    out.append(
+        _table(["parameter", "median", "16%", "84%", "2.5%", "97.5%"], rows, (1, 2, 3, 4, 5))
+    )
+
+    def interval(q, fmt="{:.1f}"):
+        if not q:
+            return "—"
+        return f"{fmt.format(q['median'])} [{fmt.format(q['p16'])}, {fmt.format(q['p84'])}]"
+
+    rows = []
+    for lens in doc["lenses"]:
+        measured = (
+            f"{lens['dispersion_measured']:.0f} ± {lens['dispersion_error']:.0f}"
+            if lens["kinematics"]
+            else "—"
+        )
+        rows.append(
+            [
+                _e(lens["name"]),
+                _e(lens["n_delays"]),
+                _e(measured),
+                _e(interval(lens["dispersion_predicted"], "{:.0f}")),
+                _e(interval(lens["H0_alone"])),
+                _e(interval(lens["time_delay_distance_mpc"], "{:.0f}")),
+            ]
+        )
+    out.append(
+        _table(
+            [
+                "lens",
+                "delays",
+                "σ measured [km/s]",
+                "σ predicted [km/s]",
+                f"H0 alone{tag}",
+                f"D_dt [Mpc]{tag}",
+            ],
+            rows,
+            (1, 2, 3, 4, 5),
+        )
+    )
+    if doc.get("notes"):
+        out.append("<ul class='notes'>" + "".join(f"<li>{_e(n)}</li>" for n in doc["notes"]))
+        out.append("</ul>")
+    return out
+
+
 def report_html(
-    *, forecast=None, fit=None, hubble=None, figures: dict[str, bytes] | None = None
+    *,
+    forecast=None,
+    fit=None,
+    hubble=None,
+    cosmography=None,
+    figures: dict[str, bytes] | None = None,
 ) -> str:
     """The report page.
 
     Parameters
     ----------
-    forecast, fit, hubble : dict, optional
+    forecast, fit, hubble, cosmography : dict, optional
         The JSON documents of the jobs (at least one).
     figures : dict
         PNG bytes by file stem (``sky``, ``timeline``, ...); those in :data:`FIGURES` are
         shown, in its order.
     """
-    docs = {k: v for k, v in (("forecast", forecast), ("fit", fit), ("hubble", hubble)) if v}
+    docs = {
+        k: v
+        for k, v in (
+            ("forecast", forecast),
+            ("fit", fit),
+            ("hubble", hubble),
+            ("cosmography", cosmography),
+        )
+        if v
+    }
     figures = figures or {}
     name = (
         (forecast or {}).get("scenario", {}).get("name")
         or (fit or {}).get("scenario")
+        or (f"Joint H0 of {len(cosmography['lenses'])} lenses" if cosmography else None)
         or "lensdelay results"
     )
     body = [
@@ -496,6 +581,8 @@ def report_html(
             body.append("<h2 id='notes'>Notes</h2><ul class='notes'>")
             body += [f"<li>{_e(n)}</li>" for n in dict.fromkeys(notes)]
             body.append("</ul>")
+    if cosmography:
+        body += _cosmography_section(cosmography)
     shown = [n for n in FIGURES if n in figures]
     if shown:
         body.append("<h2 id='figures'>Figures</h2>")
