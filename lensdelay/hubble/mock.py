@@ -47,7 +47,9 @@ class MockSettings:
     slope_precision: float = 0.03
     delay_error: float = 0.05
     dispersion_error: tuple[float, float] = (0.05, 0.10)
-    r_ani_mean: float = 1.5
+    #: the orbits' population: mean r_a/R_eff (None: drawn once per population from the
+    #: joint stage's own prior, uniform in [0.5, 5]) and the scatter of ln r_a
+    r_ani_mean: float | None = 1.5
     r_ani_scatter: float = 0.2
     n_samples: int = 1000
     anisotropy: str = "osipkov_merritt"
@@ -77,7 +79,7 @@ def _kinematics(sigma_obs: float, error: float) -> Kinematics:
     )
 
 
-def _one_lens(k: int, st: MockSettings, rng: np.random.Generator, with_delays: bool):
+def _one_lens(k: int, st: MockSettings, rng: np.random.Generator, with_delays: bool, r_ani):
     """One mock lens and its truths."""
     z_l, z_s = rng.uniform(0.3, 0.7), rng.uniform(1.5, 3.0)
     slope = rng.normal(st.slope_mean, st.slope_scatter)
@@ -86,7 +88,7 @@ def _one_lens(k: int, st: MockSettings, rng: np.random.Generator, with_delays: b
     kappa_prior = (0.0, st.kappa_sigma)
     kappa = rng.normal(*kappa_prior)
     if st.anisotropy == "osipkov_merritt":
-        ani = st.r_ani_mean * np.exp(st.r_ani_scatter * rng.standard_normal())
+        ani = r_ani * np.exp(st.r_ani_scatter * rng.standard_normal())
     elif st.anisotropy == "constant":
         ani = rng.normal(0.1, 0.1)
     else:
@@ -135,14 +137,16 @@ def _one_lens(k: int, st: MockSettings, rng: np.random.Generator, with_delays: b
     error = rng.uniform(*st.dispersion_error) * sigma_true
     observed = sigma_true + error * rng.standard_normal()
     evidence = replace(evidence, kinematics=_kinematics(float(observed), float(error)))
-    return evidence, {"lambda_int": lam, "kappa_ext": kappa, "slope": slope, "anisotropy": ani}
+    truth = {"lambda_int": lam, "kappa_ext": kappa, "slope": slope, "anisotropy": ani}
+    return evidence, truth | {"r_ani_mean": r_ani}
 
 
 def mock_population(settings: MockSettings, rng: np.random.Generator):
     """(list of LensEvidence, list of per-lens truths) of a mock population."""
     lenses, truths = [], []
+    r_ani = settings.r_ani_mean if settings.r_ani_mean is not None else rng.uniform(0.5, 5.0)
     for k in range(settings.n_lenses + settings.n_kinematics_only):
-        lens, truth = _one_lens(k, settings, rng, with_delays=k < settings.n_lenses)
+        lens, truth = _one_lens(k, settings, rng, k < settings.n_lenses, r_ani)
         lenses.append(lens)
         truths.append(truth)
     return lenses, truths
