@@ -98,11 +98,17 @@ def _write_lens(folder: Path, name, theta_e, q, source, z_l, z_s, *, kinematics=
 
 @pytest.fixture(scope="module")
 def catalogue(tmp_path_factory):
+    """Two scenario files and a prepared lens (its chain reused, not refitted)."""
     folder = tmp_path_factory.mktemp("catalogue")
-    (folder / "models").mkdir()
-    shutil.copy(MODELS / "sie_shear.toml", folder / "models" / "sie_shear.toml")
-    for spec in LENSES:
+    side = tmp_path_factory.mktemp("side")
+    for where in (folder, side):
+        (where / "models").mkdir()
+        shutil.copy(MODELS / "sie_shear.toml", where / "models" / "sie_shear.toml")
+    for spec in LENSES[:2]:
         _write_lens(folder, *spec)
+    prepared = _write_lens(side, *LENSES[2])
+    steps = ["--steps", "200", "--walkers", "16"]
+    assert main(["prepare", str(prepared), "--out", str(folder / LENSES[2][0]), *steps]) == 0
     return folder
 
 
