@@ -36,7 +36,12 @@ LENSES = (
     ("culdrin", 1.30, 0.85, (0.10, -0.05), 0.55, 2.3),
     ("dawsell", 0.90, 0.70, (-0.03, 0.05), 0.35, 1.6),
 )
-QUICK = ["--steps", "200", "--walkers", "16", "--joint-steps", "300", "--draws", "100"]
+#: Short chains, and isotropic orbits (a one-column dispersion table: the Osipkov-Merritt
+#: tables are exercised by the mock population below)
+QUICK = [
+    *("--steps", "200", "--walkers", "16", "--joint-steps", "300", "--draws", "100"),
+    *("--anisotropy", "isotropic"),
+]
 
 
 def _write_lens(folder: Path, name, theta_e, q, source, z_l, z_s, *, kinematics=True):
