@@ -1,0 +1,55 @@
+"""Alerts to watched lenses (issue 31): the footprint search and the image hypotheses."""
+
+import numpy as np
+import pytest
+from astropy import units as u
+from astropy.coordinates import SkyCoord
+
+from lensdelay.forecast.watchlist import P_NONE, WatchedImage, WatchedLens, WatchIndex, assign
+
+
+def _lens(name, ra, dec):
+    images = (
+        WatchedImage("sn", "A", 1.0, 0.0, 0.005, True),
+        WatchedImage("sn", "B", -1.0, 0.1, 0.005, True),
+        WatchedImage("sn", "X1", 0.0, -0.9, 0.15, False),
+    )
+    return WatchedLens(name, ra, dec, images, 2.0)
+
+
+def _at(lens, x, y):
+    """The ICRS position (degrees) of offsets x East, y North (arcsec) from a lens."""
+    origin = SkyCoord(lens.ra * u.deg, lens.dec * u.deg)
+    where = origin.spherical_offsets_by(x * u.arcsec, y * u.arcsec)
+    return float(where.ra.deg), float(where.dec.deg)
+
+
+def test_an_alert_at_an_image_is_that_image():
+    """At an image, that image wins; far from all (inside the footprint), "none" does."""
+    lens = _lens("l1", 150.0, 60.0)
+    hit = assign(lens, *_at(lens, 0.02, -0.88), alert_sigma=0.05)
+    assert hit.image == "sn/X1" and hit.probability > 0.9
+    assert sum(hit.probabilities.values()) == pytest.approx(1.0)
+    assert hit.offset == pytest.approx((0.02, -0.88), abs=1e-6)
+    stray = assign(lens, *_at(lens, 0.0, 1.8), alert_sigma=0.05)
+    assert stray.image is None and stray.probabilities["none"] > 0.99
+    # halfway between two images of equal error the two share the probability
+    between = assign(lens, *_at(lens, 0.0, 0.05), alert_sigma=1.0)
+    assert between.probabilities["sn/A"] == pytest.approx(between.probabilities["sn/B"], rel=0.1)
+    assert P_NONE > 0
+
+
+def test_footprint_search_finds_inside_and_only_inside():
+    """Alerts inside a footprint (radius 2") are found, at any RA (across 0/360) and near a
+    pole; an alert 2.1" away is not."""
+    lenses = [_lens("a", 0.0001, 10.0), _lens("b", 359.9999, -30.0), _lens("c", 45.0, 89.99)]
+    index = WatchIndex(lenses)
+    ra, dec = zip(
+        _at(lenses[0], -1.9, 0.0),  # inside a
+        _at(lenses[1], 1.0, 1.0),  # inside b (across RA = 0)
+        _at(lenses[2], 0.5, -1.2),  # inside c, near the pole
+        _at(lenses[0], 2.1, 0.0),  # outside
+    )
+    i_alert, i_lens, sep = index.candidates(ra, dec)
+    assert sorted(zip(i_alert.tolist(), i_lens.tolist())) == [(0, 0), (1, 1), (2, 2)]
+    assert np.all(sep <= 2.0)
