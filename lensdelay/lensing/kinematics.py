@@ -1,24 +1,25 @@
 """Stellar kinematics of a lens galaxy: the velocity dispersion a lens model predicts.
 
 The luminosity-weighted line-of-sight velocity dispersion inside a slit or circular
-aperture, blurred by Gaussian seeing, for stars of a Hernquist or Jaffe light profile
-orbiting in a spherical power-law mass of the fitted slope γ and Einstein radius θE.
+aperture, blurred by Gaussian seeing, for stars of a Hernquist [8]_ or Jaffe [9]_ light
+profile orbiting in a spherical power-law mass of the fitted slope γ and Einstein radius
+θE.
 
 The spherical Jeans equation with anisotropy β(r) = 1 − σ_t²/σ_r² is solved with its
-integrating factor f(r) = exp ∫ 2β/r dr [1, 2]:
+integrating factor f(r) = exp ∫ 2β/r dr ([1]_, [2]_):
 
     ρ*(r) σ_r²(r) = (1/f(r)) ∫_r^∞ f(s) ρ*(s) G M(s) / s² ds,
 
-and projected along the line of sight [3]:
+and projected along the line of sight [3]_:
 
     Σ*(R) σ_los²(R) = 2 ∫_R^∞ (1 − β(r) R²/r²) ρ*(r) σ_r²(r) r dr / √(r² − R²).
 
 The aperture average weighs both by the light the aperture receives through the seeing
-[4]: σ_ap² = ∫ W(R) Σ*σ_los²(R) dR / ∫ W(R) Σ*(R) dR, where W(R) dR is the fraction of
+[4]_: σ_ap² = ∫ W(R) Σ*σ_los²(R) dR / ∫ W(R) Σ*(R) dR, where W(R) dR is the fraction of
 a thin ring of radius R that the seeing-blurred aperture collects, times its length 2πR.
 
 Anisotropy models: isotropic (β = 0, f = 1); constant β (f = r^{2β}); Osipkov–Merritt
-[5, 6] (β = r²/(r² + r_a²), f = r² + r_a²), with r_a given in units of the effective radius.
+([5]_, [6]_) (β = r²/(r² + r_a²), f = r² + r_a²), with r_a given in units of the effective radius.
 
 Units and scaling. A spherical power law of 3-D slope γ with the convergence
 κ = (3 − γ)/2 · (θE/θ)^{γ−1} (CONVENTIONS.md) holds the 3-D mass
@@ -32,7 +33,7 @@ Units and scaling. A spherical power law of 3-D slope γ with the convergence
 
 where J is the dimensionless aperture average computed with G M(s)/s² → s^{1−γ}. For
 γ = 2 and an isothermal tracer J = 1/2, which gives the singular isothermal sphere's
-σ² = c² θE D_s / (4π D_ls) [7]. The internal mass sheet scales the prediction as
+σ² = c² θE D_s / (4π D_ls) [7]_. The internal mass sheet scales the prediction as
 σ² → λ_int (1 − κ_ext) σ² (docs/statistics.md, "Joint H0").
 
 References
