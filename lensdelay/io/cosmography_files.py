@@ -14,6 +14,7 @@ from astropy.table import Table
 
 from lensdelay.cautions import CAUTION
 from lensdelay.errors import InputError
+from lensdelay.io.forecast_files import table_with_gaps
 
 __all__ = [
     "BLINDING_KEY",
@@ -116,10 +117,7 @@ def lenses_table(res) -> Table:
         row["sigma_meas"] = np.nan if lens.dispersion_measured is None else lens.dispersion_measured
         row["sigma_meas_err"] = np.nan if lens.dispersion_error is None else lens.dispersion_error
         rows.append(row)
-    t = Table(rows=rows, masked=True)
-    for c in t.colnames:
-        if t[c].dtype.kind == "f":
-            t[c].mask = ~np.isfinite(np.asarray(t[c], dtype=float))
+    t = table_with_gaps(rows)
     for c in t.colnames:
         if c.startswith("h0_"):
             t[c].unit = "km / (Mpc s)"

@@ -22,6 +22,7 @@ __all__ = [
     "dates_by_h0",
     "forecast_json",
     "forecast_table",
+    "table_with_gaps",
     "table_text",
     "ics_windows",
     "forecast_ics",
@@ -234,12 +235,7 @@ def forecast_table(res) -> Table:
         tension = im.tension
         row["tension_sigma"] = tension.sigma if tension is not None else np.nan
         rows.append(row)
-    t = Table(rows=rows, masked=True)
-    for c in t.colnames:
-        # a value that does not exist (no site, no magnitude, no sighting) is masked --
-        # an empty cell in ECSV, as null in the JSON -- never a NaN
-        if t[c].dtype.kind == "f":
-            t[c].mask = ~np.isfinite(np.asarray(t[c], dtype=float))
+    t = table_with_gaps(rows)
     for c in t.colnames:
         if c in ("x", "y") or c.endswith(("_semi_major", "_semi_minor")):
             t[c].unit = u.arcsec
@@ -256,6 +252,19 @@ def forecast_table(res) -> Table:
     ]
     t.meta["reference_image"] = res.scenario.transient.seen_in
     t.meta["now"] = iso_utc(res.now)
+    return t
+
+
+def table_with_gaps(rows: list[dict]) -> Table:
+    """A table of ``rows`` whose missing values (NaN) are masked.
+
+    A value that does not exist (no site, no magnitude, no sighting, no kinematics) is an
+    empty cell in ECSV and null in JSON -- never a NaN.
+    """
+    t = Table(rows=rows, masked=True)
+    for c in t.colnames:
+        if t[c].dtype.kind == "f":
+            t[c].mask = ~np.isfinite(np.asarray(t[c], dtype=float))
     return t
 
 
