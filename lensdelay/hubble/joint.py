@@ -208,7 +208,7 @@ class _LensTerms:
         """The log of J for every draw at the anisotropy parameters ``parameter`` (P, n)."""
         if self.rows.shape[1] == 1:
             return np.broadcast_to(self.rows[:, 0], parameter.shape)
-        axis = self.table._axis
+        axis = self.table.axis
         where = self.table.parameter_axis(parameter)
         idx = np.clip(np.searchsorted(axis, where) - 1, 0, len(axis) - 2)
         frac = (where - axis[idx]) / (axis[idx + 1] - axis[idx])
@@ -259,7 +259,8 @@ class JointLikelihood:
         theta = np.atleast_2d(theta)
         return sum(p.log_prior(theta[:, k]) for k, p in enumerate(self.parameters))
 
-    def _om0(self, theta) -> np.ndarray:
+    def om0_of(self, theta) -> np.ndarray:
+        """Ωm at each parameter set (its column, or the fixed value): (P, 1)."""
         fixed = 0.3 if self.population.om0_free else float(self.population.om0)
         return self._column(theta, "Om0", fixed)
 
@@ -291,14 +292,14 @@ class JointLikelihood:
         theta = np.atleast_2d(theta)
         j = np.exp(t.ln_j(self._anisotropy(t, theta)))
         sheet = np.maximum(self._sheet(t, theta), 0.0)
-        return np.sqrt(t.dispersion_ratio(self._om0(theta)) * t.base[None, :] * j * sheet)
+        return np.sqrt(t.dispersion_ratio(self.om0_of(theta)) * t.base[None, :] * j * sheet)
 
     def lens_log_likelihood(self, index: int, theta: np.ndarray) -> np.ndarray:
         """The log likelihood of lens ``index`` at each parameter set: (P,) (numpy path)."""
         t = self.terms[index]
         theta = np.atleast_2d(theta)
         h0 = self._column(theta, "H0", 70.0)
-        om0 = self._om0(theta)
+        om0 = self.om0_of(theta)
         sheet = self._sheet(t, theta)  # the total mass-sheet factor λ_int (1 − κ_ext)
         log_l = np.zeros(sheet.shape)
         if t.delays:
@@ -327,7 +328,7 @@ class JointLikelihood:
 
         pk = self._packed()
         h0 = self._column(theta, "H0", 70.0)
-        om0 = self._om0(theta)
+        om0 = self.om0_of(theta)
         ddt = [(_H_TABLE / h0) * d(om0) for t in self.terms if t.delays for d in t.distance]
         ddt_scale = np.hstack(ddt) if ddt else np.zeros((len(theta), 0))
         kin_ratio = np.hstack(
@@ -365,7 +366,7 @@ class JointLikelihood:
 
         days = [t.model_days if t.delays else np.zeros(0) for t in terms]
         rows = [t.rows if t.kinematics else np.zeros(len(t.kappa)) for t in terms]
-        axes = [t.table._axis if t.kinematics else np.zeros(1) for t in terms]
+        axes = [t.table.axis if t.kinematics else np.zeros(1) for t in terms]
         arrays = (
             draws.astype(np.int64),
             flat([t.kappa for t in terms]),

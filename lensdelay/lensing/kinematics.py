@@ -368,8 +368,8 @@ class DispersionTable:
                 par = a * self.effective_radius if anisotropy == "osipkov_merritt" else a
                 table[i, j] = average(lambda s, g=g: s ** (1.0 - g), anisotropy, par)
         self.values = table
-        # interpolation runs in ln J, and in ln a for Osipkov–Merritt radii
-        self._axis = np.log(self.parameters) if anisotropy == "osipkov_merritt" else self.parameters
+        #: the parameter axis interpolation runs along: ln(r_a/R_eff), or β (and ln J)
+        self.axis = np.log(self.parameters) if anisotropy == "osipkov_merritt" else self.parameters
 
     def along_parameter(self, gamma) -> np.ndarray:
         """The log of J at each sample's γ, for every grid parameter: (n_samples, n_parameters).
@@ -387,7 +387,7 @@ class DispersionTable:
         """Where ``values`` (β or r_a/R_eff) lie on the table's parameter axis (clipped)."""
         v = np.asarray(values, dtype=float)
         axis = np.log(np.maximum(v, 1e-300)) if self.anisotropy == "osipkov_merritt" else v
-        return np.clip(axis, self._axis[0], self._axis[-1])
+        return np.clip(axis, self.axis[0], self.axis[-1])
 
     def __call__(self, gamma, parameter=0.0) -> np.ndarray:
         """J at arrays (broadcast) of γ and the anisotropy parameter."""
@@ -398,5 +398,5 @@ class DispersionTable:
         if len(self.parameters) == 1:
             return np.exp(rows[:, 0]).reshape(gamma.shape)
         where = self.parameter_axis(parameter.ravel())
-        out = np.array([np.interp(w, self._axis, row) for w, row in zip(where, rows)])
+        out = np.array([np.interp(w, self.axis, row) for w, row in zip(where, rows)])
         return np.exp(out).reshape(gamma.shape)
