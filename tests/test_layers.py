@@ -29,6 +29,7 @@ LAYERS = {
     "io": 5,
     "report": 6,
     "api": 7,
+    "watching": 7,
     "cli": 8,
 }
 

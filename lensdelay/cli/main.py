@@ -25,6 +25,7 @@ from lensdelay.cli import (
     maps,
     prepare,
     report,
+    watch,
 )
 from lensdelay.cli.libraries import configure_libraries
 from lensdelay.cli.options import with_flags
@@ -46,6 +47,7 @@ SUBCOMMANDS = (
     batch,
     hubble,
     cosmography,
+    watch,
     maps,
     report,
 )
