@@ -3,7 +3,8 @@ and no module imports itself back through others (issue 11).
 
 The order, lowest first (docs/development.md, "Layout"): base modules (errors, version, atomic file
 writes, the caution text), lensing, model, inference, forecast, hubble and lightcurves
-(side by side, none importing another), io, report, the Python interface (api), cli. The package's
+(side by side, none importing another), io, report, the Python interface (api), the watch
+(built on it), cli. The package's
 ``__init__`` is the public facade and may import any layer
 but the command line.
 """
@@ -29,8 +30,8 @@ LAYERS = {
     "io": 5,
     "report": 6,
     "api": 7,
-    "watching": 7,
-    "cli": 8,
+    "watching": 8,
+    "cli": 9,
 }
 
 
