@@ -151,3 +151,29 @@ def test_one_watch_per_folder(prepared, tmp_path, capsys):
     finally:
         held.close()
     assert code == 2 and "in use by another watch" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    "content, message",
+    [("{not json", "--fields must be a readable JSON file"), ('{"colour": "c"}', "got 'colour'")],
+)
+def test_bad_field_mapping_is_one_line(prepared, tmp_path, capsys, content, message):
+    lenses, _ = prepared
+    (tmp_path / "alerts").mkdir()
+    (tmp_path / "fields.json").write_text(content)
+    code = main(
+        [
+            "watch",
+            str(lenses),
+            "--alerts",
+            str(tmp_path / "alerts"),
+            "--out",
+            str(tmp_path / "out"),
+            "--fields",
+            str(tmp_path / "fields.json"),
+            "--once",
+        ]
+    )
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and message in err and "\n" not in err
+    assert not (tmp_path / "out").exists()
