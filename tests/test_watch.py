@@ -177,3 +177,63 @@ def test_bad_field_mapping_is_one_line(prepared, tmp_path, capsys, content, mess
     err = capsys.readouterr().err.strip()
     assert code == 2 and message in err and "\n" not in err
     assert not (tmp_path / "out").exists()
+
+
+def test_sigterm_ends_the_watch_cleanly_and_nothing_is_lost(prepared, tmp_path):
+    """SIGTERM to a polling watch: it stops after the alert in hand, exit 0, its notice and
+    state kept; a restart reads no file again and issues nothing again."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    lenses, sc = prepared
+    images = {im.label: im for im in sc.families[0].images}
+    alerts, out = tmp_path / "alerts", tmp_path / "out"
+    alerts.mkdir()
+    b = _radec(sc, images["B"].x, images["B"].y)
+    _write_alerts(
+        alerts / "n1.jsonl",
+        [
+            {
+                "alert_id": "s1",
+                "ra": b[0],
+                "dec": b[1],
+                "mjd": 61372.2,
+                "mag": 21.0,
+                "band": "r",
+                "object_id": "t1",
+            },
+        ],
+    )
+    command = [
+        sys.executable,
+        "-m",
+        "lensdelay",
+        "watch",
+        str(lenses),
+        "--alerts",
+        str(alerts),
+        "--out",
+        str(out),
+        "--interval",
+        "0.2",
+        "--samples",
+        "2000",
+    ]
+    watch = subprocess.Popen(command, stderr=subprocess.PIPE, text=True)
+    notice = out / "notices" / "vellmar" / "t1" / "001-first.json"
+    deadline = time.monotonic() + 60
+    while not notice.exists() and time.monotonic() < deadline and watch.poll() is None:
+        time.sleep(0.1)
+    time.sleep(0.5)  # the file marked read, the watch back to polling
+    watch.send_signal(signal.SIGTERM)
+    _, err = watch.communicate(timeout=30)
+    assert watch.returncode == 0, err
+    assert notice.exists() and "state in" in err
+    again = subprocess.run([*command, "--once"], capture_output=True, text=True, timeout=60)
+    assert again.returncode == 0 and "alerts read" not in again.stderr
+    assert sorted(p.name for p in notice.parent.glob("*.json")) == [
+        "001-first-forecast.json",
+        "001-first.json",
+    ]
