@@ -53,3 +53,51 @@ def test_footprint_search_finds_inside_and_only_inside():
     i_alert, i_lens, sep = index.candidates(ra, dec)
     assert sorted(zip(i_alert.tolist(), i_lens.tolist())) == [(0, 0), (1, 1), (2, 2)]
     assert np.all(sep <= 2.0)
+
+
+@pytest.mark.filterwarnings("ignore::lensdelay.errors.LensdelayWarning")
+def test_predicted_images_are_named_as_the_forecast_names_them(tmp_path):
+    """A quad with its faintest image withheld: the watch list's predicted image carries
+    the forecast's own name (X1) and lies where the forecast puts it."""
+    import shutil
+    from pathlib import Path
+
+    from lensdelay.api import forecast_prepared, load_scenario
+    from lensdelay.forecast.prepared import fit_lens_ahead
+    from lensdelay.forecast.watchlist import watched_lens
+    from lensdelay.lensing.lens import Lens
+    from lensdelay.lensing.profiles import ExternalShear, IsothermalEllipsoid
+    from lensdelay.model.simulate import simulate_family, to_toml
+
+    lens = Lens(
+        (
+            IsothermalEllipsoid(einstein_radius=1.1, axis_ratio=0.7, position_angle=20.0),
+            ExternalShear(strength=0.05, position_angle=-40.0),
+        )
+    )
+    fam = simulate_family(
+        lens, 0.03, 0.02, label="sn", redshift=1.6, sigma=0.003, rng=np.random.default_rng(4)
+    )
+    faintest = max(range(len(fam["image"])), key=lambda k: fam["image"][k]["magnitude"])
+    fam["image"].pop(faintest)
+    doc = {
+        "name": "Quillane",
+        "lens": {"redshift": 0.4},
+        "sky": {"ra": 187.3311, "dec": -12.4518},
+        "family": [fam],
+        "lens_light": {"x": 0, "y": 0, "sigma": 0.01},
+        "transient": {"family": "sn", "seen_in": "A", "date": "2026-11-20"},
+        "model": "models/sie_shear.toml",
+    }
+    (tmp_path / "models").mkdir()
+    models = Path(__file__).parent.parent / "models"
+    shutil.copy(models / "sie_shear.toml", tmp_path / "models" / "sie_shear.toml")
+    (tmp_path / "q.toml").write_text(to_toml(doc))
+    prepared = fit_lens_ahead(load_scenario(tmp_path / "q.toml"), walkers=16, steps=150)
+    watched = {f"{im.family}/{im.label}": im for im in watched_lens("q", prepared).images}
+    res = forecast_prepared(prepared, n_samples=500, budget=False)
+    predicted = [im for im in res.images if not im.observed]
+    assert predicted and all(not watched[im.name].observed for im in predicted)
+    for im in predicted:
+        w = watched[im.name]
+        assert np.hypot(w.x - im.x, w.y - im.y) < 0.1  # best fit vs the posterior's median

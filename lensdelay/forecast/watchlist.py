@@ -1,7 +1,8 @@
 """Which watched lens, and which of its images, an alert belongs to.
 
 A watched lens is a prepared lens seen from the sky: its origin (``[sky]``), its observed
-images (positions and errors) and the images its best fit predicts but nobody has seen.
+images (positions and errors) and the images its best fit predicts but nobody has seen,
+named as the forecast names them (X1, X2, …).
 Its footprint is a disc around the origin reaching ``margin`` beyond the farthest image.
 
 Matching has two steps. :class:`WatchIndex` finds every (alert, lens) pair whose
@@ -89,16 +90,22 @@ def watched_lens(name: str, prepared, margin: float = FOOTPRINT_MARGIN) -> Watch
         raise InputError(
             f"sky is required to watch lens {name!r} (its [sky] ra, dec), got nothing", sc.source
         )
+    from lensdelay.forecast.samples import image_tracks
+
     images = [
         WatchedImage(f.label, im.label, im.x, im.y, im.sigma, True)
         for f in sc.families
         for im in f.images
     ]
-    for family, (xs, ys) in zip(sc.families, prepared.watched):
-        for k, (x, y) in enumerate(zip(np.atleast_1d(xs), np.atleast_1d(ys))):
-            images.append(
-                WatchedImage(family.label, f"X{k + 1}", float(x), float(y), PREDICTED_SIGMA, False)
-            )
+    like = prepared.likelihood()
+    for family in sc.families:
+        # the predicted images at the best fit, named as a forecast names them (X1, X2, ...)
+        tracks, _ = image_tracks(like, prepared.fit.values, family.label)
+        images += [
+            WatchedImage(family.label, t.label, t.x, t.y, PREDICTED_SIGMA, False)
+            for t in tracks
+            if not t.observed
+        ]
     reach = max(np.hypot(im.x, im.y) for im in images)
     return WatchedLens(
         name, float(sc.sky.ra.deg), float(sc.sky.dec.deg), tuple(images), float(reach + margin)
