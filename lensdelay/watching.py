@@ -5,7 +5,9 @@ finds the watched lenses whose footprint holds each alert and the image it most 
 is (:mod:`lensdelay.forecast.watchlist`), forecasts every image from the prepared lens
 with the alert as the detection, and writes the notices (:mod:`lensdelay.io.notices`):
 
-* the first alert of a transient at an observed image: a forecast and a ``first`` notice;
+* the first alert of a transient at an observed image: a forecast and a ``first`` notice
+  (the alert as the detection; or, when the prepared scenario already holds a detection
+  of that family from before, as a sighting of that event);
 * a later alert of it (the survey's ``object_id`` ties them) at another observed image:
   the forecast again with that sighting, and an ``update`` citing the earlier notices;
 * a later alert at none of the lens's images (that hypothesis above one half): a
@@ -155,7 +157,16 @@ class Watch:
                 )
                 self.state.record(alert, assignment, key)
                 return
-            forecast = self._forecast(lens.name, assignment.image, alert.mjd, alert.mjd, None)
+            if self._holds_detection(lens.name, assignment.image, alert.mjd):
+                # the lens already holds a detection of this family: the alert is that
+                # event again (in its image) or a sighting of it in another (the forecast's
+                # tension check says when it does not fit)
+                tr = self.prepared[lens.name].scenario.transient
+                own = assignment.image == f"{tr.family}/{tr.seen_in}"
+                sighted = None if own else assignment.image
+                forecast = self._forecast(lens.name, None, None, alert.mjd, sighted)
+            else:
+                forecast = self._forecast(lens.name, assignment.image, alert.mjd, alert.mjd, None)
             self._issue("first", 1, alert, assignment, key, forecast, [], None, first=True)
             return
         if known.retracted:
@@ -172,23 +183,34 @@ class Watch:
             )
             return
         if self._observed(lens, assignment.image) and assignment.image != known.first_image:
+            first = known.first_image
+            if self._holds_detection(lens.name, first, known.first_mjd):
+                first = None  # as in the first notice: the lens's own detection
             forecast = self._forecast(
-                lens.name, known.first_image, known.first_mjd, alert.mjd, assignment.image
+                lens.name, first, known.first_mjd, alert.mjd, assignment.image
             )
             self._issue("update", known.sequence + 1, alert, assignment, key, forecast, cites, None)
             return
         self.log(f"alert {alert.alert_id}: {key} again in {lens.name} at {where}; no new notice")
         self.state.record(alert, assignment, key)
 
+    def _holds_detection(self, name, image, mjd) -> bool:
+        """Whether the prepared scenario holds a detection of ``image``'s family before ``mjd``."""
+        tr = self.prepared[name].scenario.transient
+        return tr is not None and image.partition("/")[0] == tr.family and tr.date.mjd < mjd
+
     def _forecast(self, name, image, first_mjd, now_mjd, sighted):
-        """forecast.json of lens ``name`` with the transient first seen in ``image``."""
+        """forecast.json of lens ``name`` as of ``now_mjd``.
+
+        The transient first seen in ``image`` at ``first_mjd`` (None: the prepared
+        scenario's own detection), and seen in ``sighted`` at ``now_mjd`` when given.
+        """
         from astropy import units as u
         from astropy.time import Time
 
         from lensdelay.api import forecast_prepared
         from lensdelay.io.forecast_files import forecast_json
 
-        first = Time(first_mjd, format="mjd", scale="utc").isot
         seen = []
         if sighted is not None:
             when = Time(now_mjd, format="mjd", scale="utc").isot
@@ -196,9 +218,13 @@ class Watch:
         # "now" is the latest alert, a second on: the dates written in ISO are rounded
         # to the millisecond, and a sighting must not lie after now
         now = Time(Time(now_mjd, format="mjd", scale="utc").isot, scale="utc") + 1.0 * u.s
+        detection = None  # the prepared scenario's own [transient]
+        if image is not None:
+            first = Time(first_mjd, format="mjd", scale="utc").isot
+            detection = f"{image}={first}±{DETECTION_SIGMA_DAYS:g}"
         res = forecast_prepared(
             self.prepared[name],
-            f"{image}={first}±{DETECTION_SIGMA_DAYS:g}",
+            detection,
             now=now,
             seen=seen,
             n_samples=self.samples,
