@@ -1,6 +1,7 @@
 """The watch: survey alerts in, notices out, for a list of lenses prepared ahead.
 
-:class:`Watch` reads each new alert file of a folder once (:mod:`lensdelay.io.alert_files`),
+:class:`Watch` reads each new alert file of a folder once (:mod:`lensdelay.io.alert_files`;
+a file must arrive whole, moved into the folder, as spool folders are fed),
 finds the watched lenses whose footprint holds each alert and the image it most probably
 is (:mod:`lensdelay.forecast.watchlist`), forecasts every image from the prepared lens
 with the alert as the detection, and writes the notices (:mod:`lensdelay.io.notices`):
