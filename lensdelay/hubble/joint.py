@@ -206,14 +206,7 @@ class _LensTerms:
 
     def ln_j(self, parameter: np.ndarray) -> np.ndarray:
         """The log of J for every draw at the anisotropy parameters ``parameter`` (P, n)."""
-        if self.rows.shape[1] == 1:
-            return np.broadcast_to(self.rows[:, 0], parameter.shape)
-        axis = self.table.axis
-        where = self.table.parameter_axis(parameter)
-        idx = np.clip(np.searchsorted(axis, where) - 1, 0, len(axis) - 2)
-        frac = (where - axis[idx]) / (axis[idx + 1] - axis[idx])
-        draws = np.arange(self.rows.shape[0])[None, :]
-        return self.rows[draws, idx] * (1.0 - frac) + self.rows[draws, idx + 1] * frac
+        return self.table.ln_j(self.rows, parameter)
 
 
 class JointLikelihood:

@@ -389,14 +389,27 @@ class DispersionTable:
         axis = np.log(np.maximum(v, 1e-300)) if self.anisotropy == "osipkov_merritt" else v
         return np.clip(axis, self.axis[0], self.axis[-1])
 
+    def ln_j(self, rows: np.ndarray, parameter) -> np.ndarray:
+        """The log of J of each sample at its anisotropy parameter (linear along that axis).
+
+        ``rows`` is :meth:`along_parameter` of the samples' slopes, (n, n_parameters);
+        ``parameter`` broadcasts against (n,) — e.g. (P, n) for P population draws — and
+        the result has its shape.
+        """
+        if rows.shape[1] == 1:
+            return np.broadcast_to(
+                rows[:, 0], np.broadcast_shapes(np.shape(parameter), (len(rows),))
+            )
+        where = self.parameter_axis(parameter)
+        idx = np.clip(np.searchsorted(self.axis, where) - 1, 0, len(self.axis) - 2)
+        frac = (where - self.axis[idx]) / (self.axis[idx + 1] - self.axis[idx])
+        samples = np.arange(len(rows))
+        return rows[samples, idx] * (1.0 - frac) + rows[samples, idx + 1] * frac
+
     def __call__(self, gamma, parameter=0.0) -> np.ndarray:
         """J at arrays (broadcast) of γ and the anisotropy parameter."""
         gamma, parameter = np.broadcast_arrays(
             np.asarray(gamma, dtype=float), np.asarray(parameter, dtype=float)
         )
         rows = self.along_parameter(gamma.ravel())
-        if len(self.parameters) == 1:
-            return np.exp(rows[:, 0]).reshape(gamma.shape)
-        where = self.parameter_axis(parameter.ravel())
-        out = np.array([np.interp(w, self.axis, row) for w, row in zip(where, rows)])
-        return np.exp(out).reshape(gamma.shape)
+        return np.exp(self.ln_j(rows, parameter.ravel())).reshape(gamma.shape)
