@@ -98,13 +98,7 @@ def parse_kinematics(table) -> Kinematics:
 def parse_line_of_sight(table) -> tuple[float, float]:
     """``[line_of_sight] kappa_ext = [mean, sigma]``: this lens's external-convergence prior."""
     raw = table.data.get("kappa_ext")
-    if not (
-        isinstance(raw, list)
-        and len(raw) == 2
-        and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in raw)
-    ):
-        raise InputError(f"line_of_sight.kappa_ext must be [mean, sigma], got {raw!r}")
-    mean, sigma = float(raw[0]), float(raw[1])
+    mean, sigma = table.pair("kappa_ext", "[mean, sigma]")
     if not (-0.5 < mean < 0.5 and 0.0 <= sigma <= 0.5):
         raise InputError(
             "line_of_sight.kappa_ext must have -0.5 < mean < 0.5 and 0 <= sigma <= 0.5, "

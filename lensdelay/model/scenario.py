@@ -268,6 +268,17 @@ class _Table:
             )
         return v
 
+    def pair(self, key, shape: str) -> tuple[float, float]:
+        """A two-number list ``[a, b]``; ``shape`` says what it holds, for the message."""
+        v = self.data.get(key)
+        if not (
+            isinstance(v, list)
+            and len(v) == 2
+            and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v)
+        ):
+            raise InputError(f"{self.name(key)} must be {shape}, got {v!r}")
+        return float(v[0]), float(v[1])
+
     def table_list(self, key, required=False) -> list:
         v = self.data.get(key, [])
         if required and not v:
@@ -742,13 +753,7 @@ def _parse_site(raw) -> Site:
                 "a space observatory (solar_elongation), got both"
             )
         el = st.data["solar_elongation"]
-        if not (
-            isinstance(el, list)
-            and len(el) == 2
-            and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in el)
-        ):
-            raise InputError(f"site.solar_elongation must be [min, max] in degrees, got {el!r}")
-        lo, hi = float(el[0]), float(el[1])
+        lo, hi = st.pair("solar_elongation", "[min, max] in degrees")
         if not (0.0 <= lo < hi <= 180.0):
             raise InputError(
                 f"site.solar_elongation must satisfy 0 <= min < max <= 180 degrees, got {el!r}"
