@@ -39,6 +39,25 @@ def test_an_alert_at_an_image_is_that_image():
     assert P_NONE > 0
 
 
+def test_an_error_ellipse_weighs_along_its_long_axis():
+    """An image with an elongated error ellipse (0.3" along x, 0.02" along y) claims an
+    alert 0.25" off along x but not one 0.25" off along y; the Gaussian's value is the
+    closed form of a bivariate normal (common practice)."""
+    ellipse = WatchedImage("sn", "X1", 0.0, 0.0, 0.3, False, (0.09, 0.0, 0.0004))
+    lens = WatchedLens("e", 80.0, -20.0, (ellipse,), 2.0)
+    along = assign(lens, *_at(lens, 0.25, 0.0), alert_sigma=0.01)
+    across = assign(lens, *_at(lens, 0.0, 0.25), alert_sigma=0.01)
+    assert along.image == "sn/X1" and across.image is None
+    # the density at the alert, against the hand-written bivariate normal
+    var_x, var_y = 0.09 + 1e-4, 0.0004 + 1e-4
+    density = np.exp(-0.5 * 0.25**2 / var_x) / (2 * np.pi * np.sqrt(var_x * var_y))
+    none = P_NONE / (np.pi * 2.0**2)
+    expected = (1 - P_NONE) * density / ((1 - P_NONE) * density + none)
+    assert along.probability == pytest.approx(expected, rel=1e-4)
+    # no covariance given: the per-axis sigma, circular
+    assert np.allclose(WatchedImage("sn", "A", 0, 0, 0.2, True).error_matrix(), np.eye(2) * 0.04)
+
+
 def test_footprint_search_finds_inside_and_only_inside():
     """Alerts inside a footprint (radius 2") are found, at any RA (across 0/360) and near a
     pole; an alert 2.1" away is not."""
@@ -101,3 +120,10 @@ def test_predicted_images_are_named_as_the_forecast_names_them(tmp_path):
     for im in predicted:
         w = watched[im.name]
         assert np.hypot(w.x - im.x, w.y - im.y) < 0.1  # best fit vs the posterior's median
+        # its error ellipse comes from the chain: the same size as the forecast's own
+        # 68% ellipse (both from the posterior's images; the forecast's about its median)
+        assert w.covariance is not None
+        major = np.sqrt(np.max(np.linalg.eigvalsh(w.error_matrix())))
+        # √2.30: the 68% ellipse of a 2-D Gaussian in σ (χ² with 2 dof; common practice)
+        ratio = major * np.sqrt(2.30) / im.ellipse(68).semi_major  # measured 1.4
+        assert 0.5 < ratio < 2.0
