@@ -22,6 +22,7 @@ def run(args) -> int:
     from lensdelay.io.cosmography_files import (
         BLINDING_KEY,
         cosmography_json,
+        dispersions_table,
         lenses_table,
         read_or_new_blinding_key,
         samples_table,
@@ -62,6 +63,7 @@ def run(args) -> int:
             figures={"joint_h0": joint_h0_figure(res), "population": population_figure(res)},
             texts={
                 "cosmography_lenses.ecsv": table_text(lenses_table(res)),
+                "cosmography_dispersions.ecsv": table_text(dispersions_table(res)),
                 "cosmography_samples.ecsv": table_text(samples_table(res)),
                 BLINDING_KEY: key.hex() + "\n",
             },

@@ -77,9 +77,7 @@ def register(sub) -> None:
     p.add_argument("--out", required=True, help="folder for notices, forecasts and the state")
     p.add_argument("--fields", help="JSON file renaming alert fields (meaning -> name)")
     p.add_argument("--once", action="store_true", help="read what is there, then stop")
-    p.add_argument(
-        "--interval", type=float, default=1.0, help="seconds between polls (default 1)"
-    )
+    p.add_argument("--interval", type=float, default=1.0, help="seconds between polls (default 1)")
     p.add_argument(
         "--samples", type=int, default=20000, help="forecast samples per notice (default 20000)"
     )

@@ -35,7 +35,8 @@ def lens_log_likelihoods(
     ci_start,
     norm,
     ddt_scale,  # (P, M)
-    has_kin,
+    n_bins,  # per lens: apertures with a measured dispersion (0: no kinematics)
+    bin_start,
     observed,
     error,
     base,
@@ -60,7 +61,10 @@ def lens_log_likelihoods(
         else:
             ani_centre = hyper[p, 2]
         for i in range(n_lenses):
-            error_norm = math.log(error[i] * math.sqrt(2.0 * math.pi))
+            b0, n_b = bin_start[i], n_bins[i]
+            error_norm = 0.0
+            for b in range(n_b):
+                error_norm += math.log(error[b0 + b] * math.sqrt(2.0 * math.pi))
             d0, d1 = draw_start[i], draw_start[i + 1]
             m0, m1 = delay_start[i], delay_start[i + 1]
             m = m1 - m0
@@ -83,12 +87,10 @@ def lens_log_likelihoods(
                         for b in range(m):
                             chi2 += resid[a] * cov_inv[ci_start[i] + a * m + b] * resid[b]
                     term += -0.5 * chi2 + norm[i]
-                if has_kin[i]:
+                if n_b > 0:
                     k = n_par[i]
-                    r0 = rows_start[i] + (n - d0) * k
-                    if k == 1:
-                        ln_j = rows[r0]
-                    else:
+                    j, frac = 0, 0.0
+                    if k > 1:
                         a0 = axis_start[i]
                         where = ani_centre + ani_scatter * z_ani[n]
                         where = min(max(where, axis[a0]), axis[a0 + k - 1])
@@ -102,10 +104,19 @@ def lens_log_likelihoods(
                                 hi = mid
                         j = lo
                         frac = (where - axis[a0 + j]) / (axis[a0 + j + 1] - axis[a0 + j])
-                        ln_j = rows[r0 + j] * (1.0 - frac) + rows[r0 + j + 1] * frac
-                    predicted = math.sqrt(kin_ratio[p, i] * base[n] * math.exp(ln_j) * sheet)
-                    z = (observed[i] - predicted) / error[i]
-                    term += -0.5 * z * z - error_norm
+                    scale = kin_ratio[p, i] * base[n] * sheet
+                    chi2 = 0.0
+                    for b in range(n_b):
+                        # this draw's row of aperture b: rows are (draws, apertures, nodes)
+                        r0 = rows_start[i] + ((n - d0) * n_b + b) * k
+                        if k == 1:
+                            ln_j = rows[r0]
+                        else:
+                            ln_j = rows[r0 + j] * (1.0 - frac) + rows[r0 + j + 1] * frac
+                        predicted = math.sqrt(scale * math.exp(ln_j))
+                        z = (observed[b0 + b] - predicted) / error[b0 + b]
+                        chi2 += z * z
+                    term += -0.5 * chi2 - error_norm
                 if term > peak:
                     total = (total * math.exp(peak - term) if total > 0.0 else 0.0) + 1.0
                     peak = term

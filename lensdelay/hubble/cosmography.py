@@ -58,8 +58,10 @@ class LensSummary:
 
     ``h0`` is the lens's own H0 posterior (uniform prior) with the population's other
     parameters at the joint medians, ``time_delay_distance_mpc`` the same as D_Δt of its
-    first measured delay's source (both None without delays); ``dispersion_predicted``
-    the dispersion the population predicts for it (km/s quantiles over its draws).
+    first measured delay's source (both None without delays). The dispersions are per
+    aperture (one for a slit or circle, one per ring of resolved kinematics: ``rings``
+    gives their inner and outer radii in arcsec, empty otherwise): measured, its error,
+    and the dispersion the population predicts (km/s quantiles over the lens's draws).
     """
 
     name: str
@@ -68,11 +70,12 @@ class LensSummary:
     n_delays: int
     h0: dict | None
     time_delay_distance_mpc: dict | None
-    dispersion_measured: float | None
-    dispersion_error: float | None
-    dispersion_predicted: dict | None
+    dispersion_measured: tuple[float, ...] | None
+    dispersion_error: tuple[float, ...] | None
+    dispersion_predicted: tuple[dict, ...] | None
     kappa_prior: tuple[float, float]
     notes: tuple[str, ...] = ()
+    rings: tuple[tuple[float, float], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -127,7 +130,8 @@ def _lens_summaries(like: JointLikelihood, medians: dict, blind: float) -> list[
             ddt = {q: d70 * 70.0 / curve[_MIRROR[q]] / blind for q in curve}
         predicted = None
         if term.kinematics:
-            predicted = quantile_summary(like.predicted_dispersion(k, at)[0])
+            draws = like.predicted_dispersion(k, at)[0]  # (n, apertures)
+            predicted = tuple(quantile_summary(draws[:, b]) for b in range(draws.shape[1]))
         kin = lens.kinematics
         out.append(
             LensSummary(
@@ -137,11 +141,12 @@ def _lens_summaries(like: JointLikelihood, medians: dict, blind: float) -> list[
                 n_delays=len(lens.measured_days),
                 h0=h0,
                 time_delay_distance_mpc=ddt,
-                dispersion_measured=None if kin is None else kin.velocity_dispersion,
-                dispersion_error=None if kin is None else kin.velocity_dispersion_sigma,
+                dispersion_measured=None if kin is None else tuple(kin.dispersions().tolist()),
+                dispersion_error=None if kin is None else tuple(kin.errors().tolist()),
                 dispersion_predicted=predicted,
                 kappa_prior=tuple(lens.kappa_prior),
                 notes=tuple(lens.notes),
+                rings=() if kin is None else tuple(kin.rings()),
             )
         )
     return out

@@ -16,7 +16,8 @@ measured delays Δt_i (covariance C_i) and/or a measured dispersion σ_i ± e_i:
   (D_Δt ∝ 1/λ at fixed observables: Falco, Gorenstein & Shapiro 1985), and the
   dispersion σ² = c² (D_s/D_ls) θE^(γ−1) F(γ) J(γ, anisotropy) · λ_int (1 − κ_ext)
   (:mod:`lensdelay.lensing.kinematics`; σ² ∝ λ: CONVENTIONS.md);
-* Gaussian likelihoods of the delays and the dispersion.
+* Gaussian likelihoods of the delays and the dispersion (one per aperture: a slit or
+  circle, or each ring of spatially resolved kinematics, independent errors).
 
 Each lens's likelihood is its latent variables integrated by Monte Carlo over a fixed set
 of draws (its posterior samples, κ_ext from its prior, standard normals for λ_int and the
@@ -181,11 +182,14 @@ class _LensTerms:
             ]
         self.kinematics = lens.has_kinematics
         if self.kinematics:
-            kin, table = lens.kinematics, lens.dispersion_table
-            self.observed, self.error = kin.velocity_dispersion, kin.velocity_dispersion_sigma
+            kin, tables = lens.kinematics, lens.dispersion_tables
+            # one measurement per aperture: the slit or circle, or each ring
+            self.observed, self.error = kin.dispersions(), kin.errors()
             self.base = lens.dispersion_base()
-            self.rows = table.along_parameter(lens.slope)  # ln J per sample per parameter node
-            self.table = table
+            # ln J per sample, aperture and parameter node: (n, B, k)
+            self.rows = np.stack([tb.along_parameter(lens.slope) for tb in tables], axis=1)
+            self.tables = tables
+            self.table = tables[0]  # every aperture's table has the same parameter axis
             if population.om0_free:
                 ratios = [lens.dispersion_ratio(FlatLambdaCDM(H0=70.0, Om0=om)) for om in om_grid]
                 self.dispersion_ratio = CubicSpline(om_grid, ratios)
@@ -205,8 +209,14 @@ class _LensTerms:
         return CubicSpline(om_grid, table(_H_TABLE, om_grid) / reference_mpc)
 
     def ln_j(self, parameter: np.ndarray) -> np.ndarray:
-        """The log of J for every draw at the anisotropy parameters ``parameter`` (P, n)."""
-        return self.table.ln_j(self.rows, parameter)
+        """The log of J of every draw and aperture at the anisotropy ``parameter`` (P, n).
+
+        Returns (P, n, B).
+        """
+        return np.stack(
+            [tb.ln_j(self.rows[:, b, :], parameter) for b, tb in enumerate(self.tables)],
+            axis=-1,
+        )
 
 
 class JointLikelihood:
@@ -227,8 +237,10 @@ class JointLikelihood:
                 "do not measure H0), got none"
             )
         for lens in lenses:
-            table = lens.dispersion_table
-            if lens.has_kinematics and table.anisotropy != population.anisotropy:
+            if not lens.has_kinematics:
+                continue
+            table = lens.dispersion_tables[0]
+            if table.anisotropy != population.anisotropy:
                 raise InputError(
                     f"lens {lens.name!r} must have its dispersion tabulated for the "
                     f"population's {population.anisotropy} orbits, got {table.anisotropy}"
@@ -280,12 +292,13 @@ class JointLikelihood:
         return np.zeros((len(theta), len(t.z_ani)))
 
     def predicted_dispersion(self, index: int, theta: np.ndarray) -> np.ndarray:
-        """The dispersion (km/s) of every draw of lens ``index``: (P, n)."""
+        """The dispersion (km/s) of every draw and aperture of lens ``index``: (P, n, B)."""
         t = self.terms[index]
         theta = np.atleast_2d(theta)
         j = np.exp(t.ln_j(self._anisotropy(t, theta)))
         sheet = np.maximum(self._sheet(t, theta), 0.0)
-        return np.sqrt(t.dispersion_ratio(self.om0_of(theta)) * t.base[None, :] * j * sheet)
+        scale = t.dispersion_ratio(self.om0_of(theta)) * t.base[None, :] * sheet
+        return np.sqrt(scale[:, :, None] * j)
 
     def lens_log_likelihood(self, index: int, theta: np.ndarray) -> np.ndarray:
         """The log likelihood of lens ``index`` at each parameter set: (P,) (numpy path)."""
@@ -302,7 +315,7 @@ class JointLikelihood:
             log_l += -0.5 * np.einsum("pni,ij,pnj->pn", resid, t.cov_inv, resid) + t.norm
         if t.kinematics:
             z = (t.observed - self.predicted_dispersion(index, theta)) / t.error
-            log_l += -0.5 * z**2 - np.log(t.error * np.sqrt(2.0 * np.pi))
+            log_l += np.sum(-0.5 * z**2 - np.log(t.error * np.sqrt(2.0 * np.pi)), axis=-1)
         log_l = np.where(sheet > 0, log_l, -np.inf)
         return logsumexp(log_l, axis=1) - np.log(log_l.shape[1])
 
@@ -347,7 +360,8 @@ class JointLikelihood:
         terms = self.terms
         draws = np.cumsum([0] + [len(t.kappa) for t in terms])
         m = [len(t.measured) if t.delays else 0 for t in terms]
-        n_par = [t.rows.shape[1] if t.kinematics else 1 for t in terms]
+        n_par = [t.rows.shape[2] if t.kinematics else 1 for t in terms]
+        n_bins = [len(t.observed) if t.kinematics else 0 for t in terms]
 
         def flat(parts, dtype=float):
             return np.ascontiguousarray(
@@ -372,9 +386,10 @@ class JointLikelihood:
             flat([t.cov_inv if t.delays else np.zeros(0) for t in terms]),
             starts([k * k for k in m]),
             flat([t.norm if t.delays else 0.0 for t in terms]),
-            np.array([t.kinematics for t in terms]),
-            flat([t.observed if t.kinematics else 0.0 for t in terms]),
-            flat([t.error if t.kinematics else 1.0 for t in terms]),
+            np.array(n_bins, dtype=np.int64),
+            starts(n_bins),
+            flat([t.observed for t in terms if t.kinematics]),
+            flat([t.error for t in terms if t.kinematics]),
             flat([t.base if t.kinematics else np.zeros(len(t.kappa)) for t in terms]),
             flat(rows),
             starts([np.size(x) for x in rows]),

@@ -26,6 +26,7 @@ from lensdelay.lensing.kinematics import (
     SPEED_OF_LIGHT_KMS,
     Aperture,
     DispersionTable,
+    dispersion_tables,
     LightProfile,
     power_law_mass_factor,
 )
@@ -38,6 +39,7 @@ __all__ = [
     "lens_evidence",
     "posterior_of_positions",
     "main_galaxy_parameters",
+    "kinematics_apertures",
 ]
 
 #: The external-convergence prior of a lens whose scenario gives none ([line_of_sight]).
@@ -70,7 +72,8 @@ class LensEvidence:
     slope, einstein_radius : ndarray (n,)
         The main galaxy's slope γ and Einstein radius (arcsec) per sample.
     kinematics : lensdelay.model.kinematics.Kinematics or None
-    dispersion_table : DispersionTable or None
+    dispersion_tables : tuple of DispersionTable
+        One per aperture: the slit or circle, or each ring of resolved kinematics.
     kappa_prior : (float, float)
         Mean and sigma of this lens's κ_ext prior.
     """
@@ -89,7 +92,7 @@ class LensEvidence:
     slope: np.ndarray = field(repr=False)
     einstein_radius: np.ndarray = field(repr=False)
     kinematics: object = None
-    dispersion_table: DispersionTable | None = field(default=None, repr=False)
+    dispersion_tables: tuple[DispersionTable, ...] = field(default=(), repr=False)
     kappa_prior: tuple[float, float] = DEFAULT_KAPPA_PRIOR
     notes: tuple[str, ...] = ()
 
@@ -114,6 +117,24 @@ class LensEvidence:
     def dispersion_base(self) -> np.ndarray:
         """θE^(γ−1) F(γ) per sample: σ² = ratio · base · J · λ_int (1 − κ_ext)."""
         return self.einstein_radius ** (self.slope - 1.0) * power_law_mass_factor(self.slope)
+
+
+def kinematics_apertures(kin) -> list[Aperture]:
+    """The apertures of measured kinematics: the slit or circle, or one per ring (annuli)."""
+    if kin.resolved:
+        return [
+            Aperture("annulus", kin.seeing_fwhm, radius=outer, inner=inner)
+            for inner, outer in kin.rings()
+        ]
+    return [
+        Aperture(
+            kin.aperture,
+            kin.seeing_fwhm,
+            width=kin.aperture_width,
+            length=kin.aperture_length,
+            radius=kin.aperture_radius,
+        )
+    ]
 
 
 def main_galaxy_parameters(scenario: Scenario, names, samples) -> tuple[np.ndarray, np.ndarray]:
@@ -211,20 +232,16 @@ def lens_evidence(
     names, redshifts, values, cov = _measured(scenario)
     kin = scenario.kinematics
     slope = einstein = np.full(n_samples, np.nan)
-    table = None
+    tables = ()
     if kin is not None:
         slope, einstein = main_galaxy_parameters(scenario, list(like.names), rows)
         light = LightProfile.from_effective_radius(kin.light_profile, kin.effective_radius)
-        aperture = Aperture(
-            kin.aperture,
-            kin.seeing_fwhm,
-            width=kin.aperture_width,
-            length=kin.aperture_length,
-            radius=kin.aperture_radius,
+        tables = dispersion_tables(
+            light, kinematics_apertures(kin), anisotropy, effective_radius=kin.effective_radius
         )
-        table = DispersionTable(light, aperture, anisotropy, effective_radius=kin.effective_radius)
     notes = []
     if kin is not None:
+        table = tables[0]
         outside = float(np.mean((slope < table.gammas[0]) | (slope > table.gammas[-1])))
         if outside > 0:
             share = f"{100 * outside:.0f}%" if outside >= 0.01 else "under 1%"
@@ -254,7 +271,7 @@ def lens_evidence(
         slope=np.asarray(slope, dtype=float),
         einstein_radius=np.asarray(einstein, dtype=float),
         kinematics=kin,
-        dispersion_table=table,
+        dispersion_tables=tables,
         kappa_prior=tuple(scenario.kappa_ext_prior or kappa_prior or DEFAULT_KAPPA_PRIOR),
         notes=tuple(notes),
     )

@@ -23,6 +23,7 @@ from lensdelay.lensing.distances import LensDistances
 from lensdelay.lensing.kinematics import (
     Aperture,
     DispersionTable,
+    dispersion_tables,
     LightProfile,
     power_law_mass_factor,
 )
@@ -53,29 +54,54 @@ class MockSettings:
     r_ani_scatter: float = 0.2
     n_samples: int = 1000
     anisotropy: str = "osipkov_merritt"
+    #: resolved kinematics: the rings' radii (arcsec; R_eff = 1"), each ring its own
+    #: dispersion with the lens's fractional error, seen at ``ring_seeing`` (an
+    #: integral-field spectrograph with adaptive optics or from space); None: one
+    #: 1" × 1" slit in 0.7" seeing
+    rings: tuple[float, ...] | None = None
+    ring_seeing: float = 0.1
 
 
 _TABLES: dict = {}
 
 
-def _table(anisotropy: str) -> DispersionTable:
-    """One aperture and light profile for every mock lens: the table is built once."""
-    if anisotropy not in _TABLES:
+def _apertures(st: MockSettings) -> list[Aperture]:
+    if st.rings is None:
+        return [Aperture("slit", 0.7, width=1.0, length=1.0)]
+    edges = st.rings
+    return [
+        Aperture("annulus", st.ring_seeing, radius=outer, inner=inner)
+        for inner, outer in zip(edges[:-1], edges[1:])
+    ]
+
+
+def _tables(st: MockSettings) -> tuple[DispersionTable, ...]:
+    """One set of apertures and one light profile for every mock lens: built once."""
+    key = (st.anisotropy, st.rings, st.ring_seeing)
+    if key not in _TABLES:
         light = LightProfile.from_effective_radius("hernquist", 1.0)
-        aperture = Aperture("slit", 0.7, width=1.0, length=1.0)
-        _TABLES[anisotropy] = DispersionTable(light, aperture, anisotropy, effective_radius=1.0)
-    return _TABLES[anisotropy]
+        _TABLES[key] = dispersion_tables(light, _apertures(st), st.anisotropy, 1.0)
+    return _TABLES[key]
 
 
-def _kinematics(sigma_obs: float, error: float) -> Kinematics:
+def _kinematics(st: MockSettings, sigma_obs, error) -> Kinematics:
+    if st.rings is None:
+        return Kinematics(
+            velocity_dispersion=float(sigma_obs[0]),
+            velocity_dispersion_sigma=float(error[0]),
+            aperture="slit",
+            seeing_fwhm=0.7,
+            effective_radius=1.0,
+            aperture_width=1.0,
+            aperture_length=1.0,
+        )
     return Kinematics(
-        velocity_dispersion=sigma_obs,
-        velocity_dispersion_sigma=error,
-        aperture="slit",
-        seeing_fwhm=0.7,
+        velocity_dispersion=tuple(map(float, sigma_obs)),
+        velocity_dispersion_sigma=tuple(map(float, error)),
+        aperture="annuli",
+        seeing_fwhm=st.ring_seeing,
         effective_radius=1.0,
-        aperture_width=1.0,
-        aperture_length=1.0,
+        bin_edges=tuple(st.rings),
     )
 
 
@@ -111,7 +137,7 @@ def _one_lens(k: int, st: MockSettings, rng: np.random.Generator, with_delays: b
     sigmas = st.delay_error * np.abs(truth_days)
     measured = truth_days + sigmas * rng.standard_normal(m)
     # the true dispersion: the truths' own power law, with σ² ∝ λ_int (1 − κ_ext)
-    table = _table(st.anisotropy)
+    tables = _tables(st)
     evidence = LensEvidence(
         name=f"mock{k:03d}",
         lens_redshift=z_l,
@@ -127,16 +153,15 @@ def _one_lens(k: int, st: MockSettings, rng: np.random.Generator, with_delays: b
         slope=slopes,
         einstein_radius=thetas,
         kinematics=None,
-        dispersion_table=table,
+        dispersion_tables=tables,
         kappa_prior=kappa_prior,
     )
     truth_base = theta_e ** (slope - 1.0) * float(power_law_mass_factor(slope))
-    sigma_true = np.sqrt(
-        evidence.dispersion_ratio(cosmo) * truth_base * table(slope, ani) * lam * (1.0 - kappa)
-    )
+    j = np.array([float(table(slope, ani)) for table in tables])
+    sigma_true = np.sqrt(evidence.dispersion_ratio(cosmo) * truth_base * j * lam * (1.0 - kappa))
     error = rng.uniform(*st.dispersion_error) * sigma_true
-    observed = sigma_true + error * rng.standard_normal()
-    evidence = replace(evidence, kinematics=_kinematics(float(observed), float(error)))
+    observed = sigma_true + error * rng.standard_normal(len(tables))
+    evidence = replace(evidence, kinematics=_kinematics(st, observed, error))
     truth = {"lambda_int": lam, "kappa_ext": kappa, "slope": slope, "anisotropy": ani}
     return evidence, truth | {"r_ani_mean": r_ani}
 

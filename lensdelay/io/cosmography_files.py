@@ -21,6 +21,7 @@ __all__ = [
     "read_or_new_blinding_key",
     "cosmography_json",
     "lenses_table",
+    "dispersions_table",
     "samples_table",
 ]
 
@@ -74,9 +75,10 @@ def cosmography_json(res, provenance: dict | None = None) -> dict:
                 "kappa_ext_prior": list(lens.kappa_prior),
                 "H0_alone": lens.h0,
                 "time_delay_distance_mpc": lens.time_delay_distance_mpc,
-                "dispersion_measured": lens.dispersion_measured,
-                "dispersion_error": lens.dispersion_error,
-                "dispersion_predicted": lens.dispersion_predicted,
+                "dispersion_measured": _listed(lens.dispersion_measured),
+                "dispersion_error": _listed(lens.dispersion_error),
+                "dispersion_predicted": _listed(lens.dispersion_predicted),
+                "dispersion_rings_arcsec": [list(r) for r in lens.rings],
                 "notes": list(lens.notes),
             }
             for lens in res.lenses
@@ -102,20 +104,24 @@ def _blinded(res, text: str) -> list[str]:
     return [text, "BLINDED: H0 and D_dt carry a hidden factor"] if res.blinded else [text]
 
 
+def _listed(values):
+    """A per-aperture tuple as a JSON list (None stays None)."""
+    return None if values is None else list(values)
+
+
 def lenses_table(res) -> Table:
-    """One row per lens: its own H0 and D_Δt quantiles, measured and predicted dispersion."""
+    """One row per lens: its own H0 and D_Δt quantiles (dispersions: dispersions_table)."""
     rows = []
     for lens in res.lenses:
-        row = {"name": lens.name, "n_delays": lens.n_delays, "kinematics": lens.has_kinematics}
-        for key, q in (
-            ("h0", lens.h0),
-            ("ddt", lens.time_delay_distance_mpc),
-            ("sigma_pred", lens.dispersion_predicted),
-        ):
+        row = {
+            "name": lens.name,
+            "n_delays": lens.n_delays,
+            "kinematics": lens.has_kinematics,
+            "n_apertures": 0 if lens.dispersion_measured is None else len(lens.dispersion_measured),
+        }
+        for key, q in (("h0", lens.h0), ("ddt", lens.time_delay_distance_mpc)):
             for k in ("median", "p16", "p84"):
                 row[f"{key}_{k}"] = np.nan if q is None else q[k]
-        row["sigma_meas"] = np.nan if lens.dispersion_measured is None else lens.dispersion_measured
-        row["sigma_meas_err"] = np.nan if lens.dispersion_error is None else lens.dispersion_error
         rows.append(row)
     t = table_with_gaps(rows)
     for c in t.colnames:
@@ -123,12 +129,50 @@ def lenses_table(res) -> Table:
             t[c].unit = "km / (Mpc s)"
         elif c.startswith("ddt_"):
             t[c].unit = "Mpc"
-        elif c.startswith("sigma_"):
-            t[c].unit = "km / s"
     t.meta["comments"] = _blinded(
         res,
         "lensdelay joint H0: per lens, its own H0 and D_dt (other population parameters at "
-        "the joint medians) and the dispersion the population predicts; " + CAUTION,
+        "the joint medians); its dispersions are in cosmography_dispersions.ecsv; " + CAUTION,
+    )
+    t.meta["blinding_key_sha256"] = res.blinding_key_sha256
+    return t
+
+
+def dispersions_table(res) -> Table:
+    """One row per lens and aperture: measured dispersion, error and the predicted one.
+
+    ``r_inner`` and ``r_outer`` give a ring of resolved kinematics (NaN for a slit or a
+    circle); the prediction applies the population's medians to the lens's own draws.
+    """
+    rows = []
+    for lens in res.lenses:
+        if lens.dispersion_measured is None:
+            continue
+        rings = lens.rings or [(np.nan, np.nan)] * len(lens.dispersion_measured)
+        for b, (measured, error, predicted, (inner, outer)) in enumerate(
+            zip(lens.dispersion_measured, lens.dispersion_error, lens.dispersion_predicted, rings)
+        ):
+            row = {"name": lens.name, "aperture": b, "r_inner": inner, "r_outer": outer}
+            row |= {"sigma_meas": measured, "sigma_meas_err": error}
+            row |= {f"sigma_pred_{k}": predicted[k] for k in ("median", "p16", "p84")}
+            rows.append(row)
+    columns = ["name", "aperture", "r_inner", "r_outer", "sigma_meas", "sigma_meas_err"]
+    columns += ["sigma_pred_median", "sigma_pred_p16", "sigma_pred_p84"]
+    t = (
+        Table(rows=[[r[c] for c in columns] for r in rows], names=columns)
+        if rows
+        else Table(names=columns, dtype=[str, int, float, float, float, float, float, float, float])
+    )
+    for c in ("r_inner", "r_outer"):
+        t[c].unit = "arcsec"
+    for c in t.colnames:
+        if c.startswith("sigma_"):
+            t[c].unit = "km / s"
+    t.meta["comments"] = _blinded(
+        res,
+        "lensdelay joint H0: per lens and aperture (a slit or circle: one row; resolved "
+        "kinematics: one per ring, radii in arcsec), the measured dispersion and the one "
+        "the population's medians predict from the lens's own posterior; " + CAUTION,
     )
     t.meta["blinding_key_sha256"] = res.blinding_key_sha256
     return t

@@ -75,6 +75,7 @@ __all__ = [
     "power_law_mass_term",
     "cored_sheet_mass_term",
     "DispersionTable",
+    "dispersion_tables",
 ]
 
 #: 1 arcsec in radians.
@@ -217,7 +218,9 @@ class _Sightlines:
 class Aperture:
     """An aperture seen through Gaussian seeing of ``seeing_fwhm`` arcsec.
 
-    A slit (``width`` × ``length``, centred) or a circle (``radius``), in arcsec.
+    A slit (``width`` × ``length``, centred), a circle (``radius``) or a ring between
+    ``inner`` and ``radius`` (``annulus``: one bin of spatially resolved kinematics),
+    in arcsec.
     """
 
     kind: str
@@ -225,6 +228,7 @@ class Aperture:
     width: float = 0.0
     length: float = 0.0
     radius: float = 0.0
+    inner: float = 0.0
 
     @property
     def extent(self) -> float:
@@ -240,12 +244,16 @@ class Aperture:
             fx = 0.5 * (erf((self.width / 2 - x) / root2s) + erf((self.width / 2 + x) / root2s))
             fy = 0.5 * (erf((self.length / 2 - y) / root2s) + erf((self.length / 2 + y) / root2s))
             return fx * fy
-        if self.kind == "circle":
+        if self.kind in ("circle", "annulus"):
             from scipy.stats import ncx2
 
             # |position + noise|² / s² is non-central χ² with 2 degrees of freedom
-            return ncx2.cdf((self.radius / s) ** 2, 2, (x**2 + y**2) / s**2)
-        raise ValueError(f"aperture must be 'slit' or 'circle', got {self.kind!r}")
+            shift = (x**2 + y**2) / s**2
+            inside = ncx2.cdf((self.radius / s) ** 2, 2, shift)
+            if self.kind == "annulus" and self.inner > 0:
+                inside = inside - ncx2.cdf((self.inner / s) ** 2, 2, shift)
+            return inside
+        raise ValueError(f"aperture must be 'slit', 'circle' or 'annulus', got {self.kind!r}")
 
 
 def aperture_weights(aperture: Aperture, big_r: np.ndarray, n_angles: int = 256) -> np.ndarray:
@@ -256,9 +264,9 @@ def aperture_weights(aperture: Aperture, big_r: np.ndarray, n_angles: int = 256)
     return 2.0 * np.pi * big_r * aperture.collected(x, y).mean(axis=1)
 
 
-def _projected_grid(aperture: Aperture) -> np.ndarray:
-    """Projected radii of the aperture integral, even in ln R up to the aperture's extent."""
-    return aperture.extent * np.geomspace(1e-5, 1.0, _N_PROJECTED)
+def _projected_grid(extent: float) -> np.ndarray:
+    """Projected radii of the aperture integral, even in ln R up to the apertures' extent."""
+    return extent * np.geomspace(1e-5, 1.0, _N_PROJECTED)
 
 
 def _simpson_ln(values: np.ndarray, big_r: np.ndarray) -> float:
@@ -270,21 +278,36 @@ def _simpson_ln(values: np.ndarray, big_r: np.ndarray) -> float:
 
 
 class _ApertureAverage:
-    """The aperture-and-seeing average of Σ*σ_los² over Σ* for one light profile."""
+    """The aperture-and-seeing average of Σ*σ_los² over Σ* for one light profile.
 
-    def __init__(self, light: LightProfile, aperture: Aperture):
+    Several apertures (the rings of resolved kinematics) share one Jeans solution and its
+    projection on the grid of the widest; each only weighs them with its own W(R).
+    """
+
+    def __init__(self, light: LightProfile, apertures):
+        apertures = [apertures] if isinstance(apertures, Aperture) else list(apertures)
         self.light = light
-        self.big_r = _projected_grid(aperture)
-        self.weights = aperture_weights(aperture, self.big_r)
+        self.big_r = _projected_grid(max(a.extent for a in apertures))
+        self.weights = [aperture_weights(a, self.big_r) for a in apertures]
         self.r = _radii(self.big_r.min(), max(light.scale, self.big_r.max()))
         self.sight = _Sightlines(self.big_r, self.r)
         lum = self.sight.project(light.density(self.r))
-        self.luminosity = _simpson_ln(self.weights * lum, self.big_r)
+        self.luminosity = [_simpson_ln(w * lum, self.big_r) for w in self.weights]
 
-    def __call__(self, mass_term, anisotropy="isotropic", parameter=0.0) -> float:
+    def averages(self, mass_term, anisotropy="isotropic", parameter=0.0) -> np.ndarray:
+        """σ_ap² (per the mass term's units) in each aperture: (apertures,)."""
         pressure = jeans_radial(self.r, self.light, mass_term, anisotropy, parameter)
         sig = self.sight.project(pressure, anisotropy, parameter)
-        return _simpson_ln(self.weights * sig, self.big_r) / self.luminosity
+        return np.array(
+            [
+                _simpson_ln(w * sig, self.big_r) / lum
+                for w, lum in zip(self.weights, self.luminosity)
+            ]
+        )
+
+    def __call__(self, mass_term, anisotropy="isotropic", parameter=0.0) -> float:
+        """σ_ap² in the first (or only) aperture."""
+        return float(self.averages(mass_term, anisotropy, parameter)[0])
 
 
 def power_law_mass_term(gamma: float, einstein_radius: float):
@@ -335,6 +358,8 @@ class DispersionTable:
         R_eff in arcsec (the unit of r_a).
     gammas, parameters : array_like, optional
         The grids (defaults: γ in [1.2, 2.8], β in [−0.5, 0.8], r_a/R_eff in [0.2, 20]).
+
+    See :func:`dispersion_tables` for several apertures at once.
     """
 
     def __init__(
@@ -345,29 +370,21 @@ class DispersionTable:
         effective_radius: float = 1.0,
         gammas=None,
         parameters=None,
+        *,
+        _values=None,
     ):
         if anisotropy not in ANISOTROPY_MODELS:
             raise ValueError(
                 f"anisotropy must be one of {sorted(ANISOTROPY_MODELS)}, got {anisotropy!r}"
             )
         self.anisotropy = anisotropy
-        # a recipe's widest slope bounds (lensdelay.model.recipe.DEFAULT_BOUNDS), so no
-        # posterior sample falls off the table
-        self.gammas = np.linspace(1.2, 2.8, 49) if gammas is None else np.asarray(gammas, float)
-        default = {
-            "isotropic": np.array([0.0]),
-            "constant": np.linspace(-0.5, 0.8, 14),
-            "osipkov_merritt": np.geomspace(0.2, 20.0, 41),
-        }[anisotropy]
-        self.parameters = default if parameters is None else np.asarray(parameters, float)
+        self.gammas, self.parameters = _table_grids(anisotropy, gammas, parameters)
         self.effective_radius = float(effective_radius)
-        average = _ApertureAverage(light, aperture)
-        table = np.empty((len(self.gammas), len(self.parameters)))
-        for i, g in enumerate(self.gammas):
-            for j, a in enumerate(self.parameters):
-                par = a * self.effective_radius if anisotropy == "osipkov_merritt" else a
-                table[i, j] = average(lambda s, g=g: s ** (1.0 - g), anisotropy, par)
-        self.values = table
+        if _values is None:
+            _values = _tabulate(
+                light, [aperture], anisotropy, self.effective_radius, self.gammas, self.parameters
+            )[0]
+        self.values = _values
         #: the parameter axis interpolation runs along: ln(r_a/R_eff), or β (and ln J)
         self.axis = np.log(self.parameters) if anisotropy == "osipkov_merritt" else self.parameters
 
@@ -413,3 +430,56 @@ class DispersionTable:
         )
         rows = self.along_parameter(gamma.ravel())
         return np.exp(self.ln_j(rows, parameter.ravel())).reshape(gamma.shape)
+
+
+def _table_grids(anisotropy: str, gammas, parameters) -> tuple[np.ndarray, np.ndarray]:
+    """The γ and anisotropy-parameter grids of a dispersion table (defaults where None)."""
+    # a recipe's widest slope bounds (lensdelay.model.recipe.DEFAULT_BOUNDS), so no
+    # posterior sample falls off the table
+    gammas = np.linspace(1.2, 2.8, 49) if gammas is None else np.asarray(gammas, float)
+    default = {
+        "isotropic": np.array([0.0]),
+        "constant": np.linspace(-0.5, 0.8, 14),
+        "osipkov_merritt": np.geomspace(0.2, 20.0, 41),
+    }[anisotropy]
+    return gammas, default if parameters is None else np.asarray(parameters, float)
+
+
+def _tabulate(light, apertures, anisotropy, effective_radius, gammas, parameters) -> np.ndarray:
+    """J(γ, a) of every aperture: (apertures, len(gammas), len(parameters))."""
+    average = _ApertureAverage(light, apertures)
+    table = np.empty((len(apertures), len(gammas), len(parameters)))
+    for i, g in enumerate(gammas):
+        for j, a in enumerate(parameters):
+            par = a * effective_radius if anisotropy == "osipkov_merritt" else a
+            table[:, i, j] = average.averages(lambda s, g=g: s ** (1.0 - g), anisotropy, par)
+    return table
+
+
+def dispersion_tables(
+    light: LightProfile,
+    apertures,
+    anisotropy: str = "osipkov_merritt",
+    effective_radius: float = 1.0,
+    gammas=None,
+    parameters=None,
+) -> tuple[DispersionTable, ...]:
+    """One :class:`DispersionTable` per aperture, tabulated together.
+
+    The rings of resolved kinematics share the Jeans solution and its projection (the
+    costly part) on the grid of the widest aperture; each table is then what
+    ``DispersionTable(light, aperture, ...)`` on that grid would hold.
+    """
+    if anisotropy not in ANISOTROPY_MODELS:
+        raise ValueError(
+            f"anisotropy must be one of {sorted(ANISOTROPY_MODELS)}, got {anisotropy!r}"
+        )
+    apertures = list(apertures)
+    gammas, parameters = _table_grids(anisotropy, gammas, parameters)
+    values = _tabulate(light, apertures, anisotropy, float(effective_radius), gammas, parameters)
+    return tuple(
+        DispersionTable(
+            light, a, anisotropy, effective_radius, gammas, parameters, _values=values[k]
+        )
+        for k, a in enumerate(apertures)
+    )

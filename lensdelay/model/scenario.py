@@ -279,6 +279,29 @@ class _Table:
             raise InputError(f"{self.name(key)} must be {shape}, got {v!r}")
         return float(v[0]), float(v[1])
 
+    def numbers(self, key, *, lo=None, hi=None, lo_open=False) -> tuple[float, ...]:
+        """A non-empty list of finite numbers, each within [lo, hi] (lo open if asked)."""
+        v = self.data.get(key)
+        if v is None:
+            raise InputError(f"{self.name(key)} is required, got nothing")
+        if not (
+            isinstance(v, list)
+            and v
+            and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v)
+            and all(math.isfinite(x) for x in v)
+        ):
+            raise InputError(f"{self.name(key)} must be a non-empty list of numbers, got {v!r}")
+        for x in v:
+            if (lo is not None and (x < lo or (lo_open and x == lo))) or (
+                hi is not None and x > hi
+            ):
+                rule = f"{'>' if lo_open else '>='} {lo:g}" if lo is not None else ""
+                rule += (" and " if rule and hi is not None else "") + (
+                    f"<= {hi:g}" if hi is not None else ""
+                )
+                raise InputError(f"{self.name(key)} must hold numbers {rule}, got {v!r}")
+        return tuple(float(x) for x in v)
+
     def table_list(self, key, required=False) -> list:
         v = self.data.get(key, [])
         if required and not v:

@@ -492,19 +492,19 @@ def _cosmography_section(doc: dict) -> list[str]:
             return "—"
         return f"{fmt.format(q['median'])} [{fmt.format(q['p16'])}, {fmt.format(q['p84'])}]"
 
+    from lensdelay.report.text import dispersion_cells
+
     rows = []
     for lens in doc["lenses"]:
-        measured = (
-            f"{lens['dispersion_measured']:.0f} ± {lens['dispersion_error']:.0f}"
-            if lens["kinematics"]
-            else "—"
+        measured, predicted = dispersion_cells(
+            lens["dispersion_measured"], lens["dispersion_error"], lens["dispersion_predicted"]
         )
         rows.append(
             [
                 _e(lens["name"]),
                 _e(lens["n_delays"]),
                 _e(measured),
-                _e(interval(lens["dispersion_predicted"], "{:.0f}")),
+                _e(predicted),
                 _e(interval(lens["H0_alone"])),
                 _e(interval(lens["time_delay_distance_mpc"], "{:.0f}")),
             ]

@@ -12,6 +12,7 @@ from lensdelay.io.forecast_files import image_record
 from lensdelay.report.image_rows import image_cells
 
 __all__ = [
+    "dispersion_cells",
     "images_text",
     "quality_line",
     "fit_text",
@@ -540,6 +541,23 @@ def _interval(q: dict | None, fmt: str = "{:.1f}") -> str:
     return f"{fmt.format(q['median'])} [{fmt.format(q['p16'])}, {fmt.format(q['p84'])}]"
 
 
+def dispersion_cells(measured, errors, predicted) -> tuple[str, str]:
+    """(measured, predicted) dispersion text of one lens: one aperture, or one per ring.
+
+    One aperture: "260 ± 15" and its median [68%]; several rings: "262/248/231 ±
+    8/8/10" and the predicted medians "255/246/229"; no kinematics: "—" twice.
+    """
+    if not measured:
+        return "—", "—"
+    if len(measured) == 1:
+        return f"{measured[0]:.0f} ± {errors[0]:.0f}", _interval(predicted[0], "{:.0f}")
+    join = "/".join
+    return (
+        f"{join(f'{v:.0f}' for v in measured)} ± {join(f'{e:.0f}' for e in errors)}",
+        join(f"{q['median']:.0f}" for q in predicted),
+    )
+
+
 def joint_h0_text(res) -> str:
     """The terminal summary of a joint H0 (:class:`lensdelay.hubble.cosmography.JointH0Result`)."""
     pop = res.population
@@ -575,20 +593,18 @@ def joint_h0_text(res) -> str:
         f"{'H0 alone' + tag:>24} {'D_dt [Mpc]' + tag:>28}",
     ]
     for lens in res.lenses:
-        measured = (
-            f"{lens.dispersion_measured:.0f} ± {lens.dispersion_error:.0f}"
-            if lens.has_kinematics
-            else "—"
+        measured, predicted = dispersion_cells(
+            lens.dispersion_measured, lens.dispersion_error, lens.dispersion_predicted
         )
         lines.append(
-            f"{lens.name:<16} {lens.n_delays:>6} {measured:>16} "
-            f"{_interval(lens.dispersion_predicted, '{:.0f}'):>20} "
+            f"{lens.name:<16} {lens.n_delays:>6} {measured:>16} {predicted:>20} "
             f"{_interval(lens.h0):>24} {_interval(lens.time_delay_distance_mpc, '{:.0f}'):>28}"
         )
     ch = res.chain
     lines += [
         "(sigma in km/s; predicted: the population's medians applied to the lens's own "
-        "posterior; H0 alone: this lens with the others' population parameters fixed)",
+        "posterior, median [68%]; resolved kinematics: each ring's median, inner ring first; "
+        "H0 alone: this lens with the others' population parameters fixed)",
         "",
         f"sampler: {ch.walkers} walkers x {ch.steps} steps (burn-in {ch.burn}), acceptance "
         f"{ch.acceptance:.2f}, max autocorrelation {np.nanmax(ch.autocorrelation):.0f} steps",
