@@ -768,6 +768,8 @@ def infer_joint_h0(
     anisotropy: str = "osipkov_merritt",
     lambda_int: bool = True,
     om0=0.3,
+    cosmology: str = "FlatLambdaCDM",
+    cosmology_parameters: dict | None = None,
     kappa_ext=(0.0, 0.05),
     draws_per_lens: int = 600,
     walkers: int = DEFAULT_SAMPLER.walkers,
@@ -789,7 +791,13 @@ def infer_joint_h0(
     lambda_int : bool
         Infer the internal mass sheet's population (True) or fix λ_int = 1.
     om0 : float or (mean, sigma)
-        Ωm fixed, or free with a Gaussian prior (flat ΛCDM).
+        Ωm fixed, or free with a Gaussian prior.
+    cosmology : str
+        The astropy cosmology H0 is inferred in (``FlatLambdaCDM``, ``LambdaCDM``,
+        ``FlatwCDM``, ``wCDM``, ``Flatw0waCDM``, ``w0waCDM``).
+    cosmology_parameters : dict, optional
+        Its other parameters (``Ode0``, ``w0``, ``wa``): a value (fixed) or (mean, sigma)
+        (inferred, Gaussian prior); those not given take ΛCDM's values (0.7, −1, 0).
     kappa_ext : (mean, sigma)
         The κ_ext prior of lenses whose scenario has no ``[line_of_sight]``.
     draws_per_lens : int
@@ -822,7 +830,9 @@ def infer_joint_h0(
     kappa_ext = check_kappa_prior(*kappa_ext)
     if not isinstance(draws_per_lens, int) or draws_per_lens < 50:
         raise InputError(f"draws_per_lens must be an integer >= 50, got {draws_per_lens!r}")
-    population = Population(anisotropy, lambda_int, om0)
+    population = Population(
+        anisotropy, lambda_int, om0, cosmology, dict(cosmology_parameters or {})
+    )
     systems = list_systems(catalogue) if isinstance(catalogue, (str, os.PathLike)) else catalogue
     # every lens read and checked before any is fitted: a bad one stops the run at once
     loaded, inputs = [], []
@@ -875,9 +885,5 @@ def infer_joint_h0(
         blinding=None if blinding_key is None else Blinding(blinding_key),
     )
     prov = provenance(inputs, loaded[0][1].cosmology, seed)
-    prov["cosmology"] = {
-        "class": "FlatLambdaCDM",
-        "H0": "inferred",
-        "Om0": list(population.om0) if population.om0_free else float(population.om0),
-    }
+    prov["cosmology"] = population.describe_cosmology()
     return replace(res, provenance=prov)

@@ -145,12 +145,14 @@ def catalogue(tmp_path_factory):
 def runs(catalogue, tmp_path_factory):
     """The same catalogue blinded, then unblinded in the same folder (the same key)."""
     out = tmp_path_factory.mktemp("cosmo") / "out"
-    assert main(["cosmography", str(catalogue), "--out", str(out), "--quiet", *QUICK]) == 0
+    # H0 in a flat wCDM cosmology with w0 inferred (prior N(-1, 0.3)): any astropy class
+    wcdm = ["--cosmology", "FlatwCDM", "--cosmology-parameter", "w0", "-1", "0.3"]
+    assert main(["cosmography", str(catalogue), "--out", str(out), "--quiet", *QUICK, *wcdm]) == 0
     blinded = json.loads((out / "cosmography.json").read_text())
     key = (out / "blinding.key").read_text().strip()
     samples = (out / "cosmography_samples.ecsv").read_text()
     unblind = ["cosmography", str(catalogue), "--out", str(out), "--quiet", "--unblind"]
-    assert main([*unblind, *QUICK]) == 0
+    assert main([*unblind, *QUICK, *wcdm]) == 0
     unblinded = json.loads((out / "cosmography.json").read_text())
     return out, blinded, unblinded, key, samples
 
@@ -179,6 +181,15 @@ def test_outputs_and_blinding(runs):
     # the true H0 of the invented lenses is 70: a loose check of the whole chain
     h = unblinded["parameters"]["H0"]
     assert h["p2.5"] < 70.0 < h["p97.5"]
+    # w0 was inferred: its posterior is the prior's, barely touched by three lenses
+    assert unblinded["population"]["cosmology"] == {
+        "class": "FlatwCDM",
+        "H0": "inferred",
+        "Om0": 0.3,
+        "w0": [-1.0, 0.3],
+    }
+    w0 = unblinded["parameters"]["w0"]
+    assert -1.6 < w0["p16"] < -1.0 < w0["p84"] < -0.4
 
 
 def test_resolved_kinematics_one_row_per_ring(runs):
@@ -333,3 +344,56 @@ def test_mock_population_recovers_h0_and_assuming_the_profile_narrows_it(mock):
     assert width(fixed) < 0.6 * width(free)
     lam = free.parameters["lambda_mean"]
     assert lam["p2.5"] < 1.0 < lam["p97.5"]
+
+
+def test_any_astropy_cosmology_gives_the_same_distances():
+    """The joint stage's distance table against astropy: flat wCDM with w0 = -1 is flat
+    LCDM (the same numbers to rounding); with w0 free its table interpolates D_dt and
+    D_s/D_ls between nodes to 1e-4 (the grid's stated accuracy), here at w0 = -0.83, Om0 =
+    0.27, checked against astropy's own distances (astropy's classes; common practice)."""
+    from astropy.cosmology import FlatwCDM
+
+    from lensdelay.hubble.joint import _CosmologyTable
+
+    z_l, z_s = np.array([0.3, 0.5, 0.7]), np.array([1.2, 2.0, 3.1])
+    flat = _CosmologyTable(Population(), z_l, z_s)(np.zeros((1, 0)))
+    w_fixed = Population(cosmology="FlatwCDM", cosmology_parameters={"w0": -1.0})
+    np.testing.assert_allclose(_CosmologyTable(w_fixed, z_l, z_s)(np.zeros((1, 0))), flat, 1e-12)
+    free = Population(om0=(0.3, 0.05), cosmology="FlatwCDM", cosmology_parameters={"w0": (-1, 0.3)})
+    table = _CosmologyTable(free, z_l, z_s)(np.array([[0.27, -0.83]]))[0]
+    c = FlatwCDM(H0=70, Om0=0.27, w0=-0.83)
+    d_l, d_s = c.angular_diameter_distance(z_l).value, c.angular_diameter_distance(z_s).value
+    d_ls = c.angular_diameter_distance(z_l, z_s).value
+    np.testing.assert_allclose(table[:, 0], (1 + z_l) * d_l * d_s / d_ls, rtol=1e-4)
+    np.testing.assert_allclose(table[:, 1], d_s / d_ls, rtol=1e-4)
+
+
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (
+            ["--cosmology", "FlatwCDM", "--cosmology-parameter", "Ode0", "0.7"],
+            "cosmology parameter must be one of FlatwCDM's (w0), got 'Ode0'",
+        ),
+        (["--cosmology-parameter", "w0", "-1"], "none besides H0 and Om0"),
+        (
+            ["--cosmology", "wCDM", "--cosmology-parameter", "w0", "-1", "0", "0"],
+            "must be NAME VALUE (fixed) or NAME MEAN SIGMA (inferred)",
+        ),
+        (
+            [
+                *("--cosmology", "w0waCDM", "--om0", "0.3", "0.02"),
+                *("--cosmology-parameter", "w0", "-1", "0.2"),
+                *("--cosmology-parameter", "wa", "0", "0.5"),
+                *("--cosmology-parameter", "Ode0", "0.7", "0.05"),
+            ],
+            "free cosmological parameters must be at most 3 (Om0 included), got 4",
+        ),
+    ],
+)
+def test_bad_cosmology_is_one_line(catalogue, tmp_path, capsys, args, message):
+    out = tmp_path / "out"
+    assert main(["cosmography", str(catalogue), "--out", str(out), *QUICK, *args]) == 2
+    err = capsys.readouterr().err.strip()
+    assert message in err and "\n" not in err
+    assert not out.exists()

@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+import argparse
 import sys
 
-from lensdelay.cli.options import add_gaussian_prior, output_folder, written_line
+from lensdelay.cli.options import add_gaussian_prior, number, output_folder, written_line
 from lensdelay.errors import InputError
 
 __all__ = ["run", "COSMOGRAPHY_FIGURES", "register"]
@@ -14,6 +15,34 @@ COSMOGRAPHY_FIGURES = {
     "joint_h0": "each lens's H0 against the joint band",
     "population": "the mass sheet's and the orbits' population",
 }
+
+
+#: The cosmologies --cosmology offers (lensdelay.hubble.joint.COSMOLOGIES, without importing it).
+COSMOLOGY_CHOICES = ("FlatLambdaCDM", "LambdaCDM", "FlatwCDM", "wCDM", "Flatw0waCDM", "w0waCDM")
+
+
+def _cosmology_parameters(given) -> dict:
+    """``--cosmology-parameter NAME VALUE [SIGMA]`` (repeated) as {name: value or (mean, sigma)}."""
+    out = {}
+    for words in given or []:
+        if len(words) not in (2, 3):
+            raise InputError(
+                "--cosmology-parameter must be NAME VALUE (fixed) or NAME MEAN SIGMA (inferred), "
+                f"got {' '.join(words)!r}"
+            )
+        name, *values = words
+        try:
+            numbers = [number(v) for v in values]
+        except argparse.ArgumentTypeError as err:
+            raise InputError(
+                f"--cosmology-parameter {name} must be given numbers, got {' '.join(values)!r}"
+            ) from err
+        if name in out:
+            raise InputError(
+                f"--cosmology-parameter must name each parameter once, got {name!r} twice"
+            )
+        out[name] = numbers[0] if len(numbers) == 1 else tuple(numbers)
+    return out
 
 
 def run(args) -> int:
@@ -45,6 +74,8 @@ def run(args) -> int:
         anisotropy=args.anisotropy,
         lambda_int=args.lambda_int == "free",
         om0=tuple(args.om0) if args.om0 else 0.3,
+        cosmology=args.cosmology,
+        cosmology_parameters=_cosmology_parameters(args.cosmology_parameter),
         kappa_ext=tuple(args.kappa_ext),
         draws_per_lens=args.draws,
         walkers=args.walkers,
@@ -98,7 +129,21 @@ def register(sub) -> None:
         help="the internal mass sheet: a population inferred with H0 (default), or fixed at 1 "
         "(the mass profile assumed)",
     )
-    add_gaussian_prior(p, "--om0", "Omega_m prior (flat LCDM; default fixed at 0.3)")
+    add_gaussian_prior(p, "--om0", "Omega_m prior (default fixed at 0.3)")
+    p.add_argument(
+        "--cosmology",
+        choices=COSMOLOGY_CHOICES,
+        default="FlatLambdaCDM",
+        help="the astropy cosmology H0 is inferred in (default FlatLambdaCDM)",
+    )
+    p.add_argument(
+        "--cosmology-parameter",
+        nargs="+",
+        action="append",
+        metavar=("NAME", "VALUE"),
+        help="another parameter of it (Ode0, w0, wa): NAME VALUE fixes it, NAME MEAN SIGMA "
+        "infers it with a Gaussian prior (repeat for each; default LCDM's 0.7, -1, 0)",
+    )
     add_gaussian_prior(
         p,
         "--kappa-ext",

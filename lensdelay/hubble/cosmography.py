@@ -125,8 +125,8 @@ def _lens_summaries(like: JointLikelihood, medians: dict, blind: float) -> list[
         if curve is not None:
             h0 = {q: v * blind for q, v in curve.items()}
             # D_Δt ∝ 1/H0 at fixed Ωm: the lens's first delay's distance at each quantile
-            om0 = like.om0_of(at[None, :])
-            d70 = float(term.distance[0](om0)[0, 0]) * lens.reference_ddt_mpc[0]
+            factors = like.cosmic(like.cosmology_values(at[None, :]))
+            d70 = float(term.ddt_ratio(factors)[0, 0]) * lens.reference_ddt_mpc[0]
             ddt = {q: d70 * 70.0 / curve[_MIRROR[q]] / blind for q in curve}
         predicted = None
         if term.kinematics:

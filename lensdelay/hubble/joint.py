@@ -6,7 +6,8 @@ population quantities.
 The probability model (docs/statistics.md, "Joint H0") for lenses i = 1..L, each with
 measured delays Δt_i (covariance C_i) and/or a measured dispersion σ_i ± e_i:
 
-* hyper-parameters θ: H0, optionally Ωm (flat ΛCDM), the mean λ̄ and scatter s_λ of the
+* hyper-parameters θ: H0, optionally Ωm and the other parameters of an astropy
+  cosmology (flat or curved ΛCDM, constant w, or w0–wa), the mean λ̄ and scatter s_λ of the
   internal mass sheet λ_int, and the anisotropy population (mean and scatter of β or of
   r_a/R_eff; none for isotropic orbits);
 * per lens, latent λ_int,i ~ N(λ̄, s_λ), κ_ext,i from the lens's own prior, its
@@ -32,17 +33,18 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from astropy.cosmology import FlatLambdaCDM
 from scipy.interpolate import CubicSpline
 from scipy.special import logsumexp
 
 from lensdelay.errors import InputError
 from lensdelay.inference.sampling import integrated_time
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
-from lensdelay.lensing.distances import DelayDistanceTable, LensDistances
+from lensdelay.lensing.kinematics import ARCSEC, SPEED_OF_LIGHT_KMS
 
 __all__ = [
     "ANISOTROPY_POPULATIONS",
+    "COSMOLOGIES",
+    "COSMOLOGY_DEFAULTS",
     "HyperParameter",
     "Population",
     "JointLikelihood",
@@ -59,6 +61,22 @@ ANISOTROPY_POPULATIONS = {
 }
 #: Ωm range of the distance tables when Ωm is free.
 OM0_RANGE = (0.05, 0.95)
+#: The astropy cosmologies the joint stage can infer H0 in, and each one's parameters
+#: besides H0 and Ωm with the range they may take (radiation off, Tcmb0 = 0, as
+#: astropy's default: D ∝ 1/H0 exactly).
+COSMOLOGIES = {
+    "FlatLambdaCDM": {},
+    "LambdaCDM": {"Ode0": (0.0, 1.5)},
+    "FlatwCDM": {"w0": (-3.0, 0.0)},
+    "wCDM": {"Ode0": (0.0, 1.5), "w0": (-3.0, 0.0)},
+    "Flatw0waCDM": {"w0": (-3.0, 0.0), "wa": (-3.0, 3.0)},
+    "w0waCDM": {"Ode0": (0.0, 1.5), "w0": (-3.0, 0.0), "wa": (-3.0, 3.0)},
+}
+#: Their values when a run neither fixes nor frees them (flat ΛCDM's).
+COSMOLOGY_DEFAULTS = {"Ode0": 0.7, "w0": -1.0, "wa": 0.0}
+#: Nodes per free cosmological parameter of the distance tables, by how many are free
+#: (the tables grow as nodes^k; a cubic interpolation's error stays below 1e-4 at these).
+GRID_NODES = {1: 13, 2: 11, 3: 9}
 #: The H0 (km/s/Mpc) distances are computed at; D_Δt ∝ 1/H0 scales them to any other.
 _H_TABLE = 70.0
 
@@ -94,13 +112,22 @@ class Population:
         (the mass profile assumed, as in analyses that break the degeneracy by assumption).
     om0 : float or (mean, sigma)
         Ωm fixed, or free with a Gaussian prior.
+    cosmology : str
+        The astropy cosmology's class, one of :data:`COSMOLOGIES`.
+    cosmology_parameters : dict
+        Its other parameters (``Ode0``, ``w0``, ``wa``): a value (fixed) or (mean, sigma)
+        (free with a Gaussian prior); those not given take :data:`COSMOLOGY_DEFAULTS`.
+        At most three parameters besides H0 are free, Ωm included.
     """
 
     anisotropy: str = "osipkov_merritt"
     lambda_int: bool = True
     om0: float | tuple[float, float] = 0.3
+    cosmology: str = "FlatLambdaCDM"
+    cosmology_parameters: dict = field(default_factory=dict)
 
     def __post_init__(self):
+        self._check_cosmology()
         if self.anisotropy not in ANISOTROPY_POPULATIONS:
             raise InputError(
                 f"anisotropy must be one of {sorted(ANISOTROPY_POPULATIONS)}, "
@@ -112,17 +139,86 @@ class Population:
         elif not (OM0_RANGE[0] < self.om0[0] < OM0_RANGE[1] and self.om0[1] > 0):
             raise InputError(f"om0 must be MEAN in {list(OM0_RANGE)} and SIGMA > 0, got {self.om0}")
 
+    def _check_cosmology(self) -> None:
+        if self.cosmology not in COSMOLOGIES:
+            raise InputError(
+                f"cosmology must be one of {sorted(COSMOLOGIES)}, got {self.cosmology!r}"
+            )
+        allowed = COSMOLOGIES[self.cosmology]
+        for name, value in self.cosmology_parameters.items():
+            if name not in allowed:
+                takes = ", ".join(allowed) if allowed else "none besides H0 and Om0"
+                raise InputError(
+                    f"cosmology parameter must be one of {self.cosmology}'s ({takes}), got {name!r}"
+                )
+            lo, hi = allowed[name]
+            if np.ndim(value) == 0:
+                if not lo <= float(value) <= hi:
+                    raise InputError(f"{name} must lie in [{lo:g}, {hi:g}], got {value}")
+            elif not (len(value) == 2 and lo < value[0] < hi and value[1] > 0):
+                raise InputError(
+                    f"{name} must be MEAN in ({lo:g}, {hi:g}) and SIGMA > 0, got {value}"
+                )
+        if len(self.free_cosmology()) > max(GRID_NODES):
+            raise InputError(
+                f"free cosmological parameters must be at most {max(GRID_NODES)} "
+                f"(Om0 included), got {len(self.free_cosmology())}"
+            )
+
     @property
     def om0_free(self) -> bool:
         """Whether Ωm is inferred."""
         return np.ndim(self.om0) != 0
 
+    def free_cosmology(self) -> tuple[tuple[str, float, float, float, float], ...]:
+        """(name, prior mean, prior sigma, lowest, highest) of each free parameter.
+
+        The cosmology's free parameters besides H0: Ωm first, then the class's others in
+        their order.
+        """
+        out = []
+        if self.om0_free:
+            out.append(("Om0", *map(float, self.om0), *OM0_RANGE))
+        for name, (lo, hi) in COSMOLOGIES[self.cosmology].items():
+            value = self.cosmology_parameters.get(name)
+            if value is not None and np.ndim(value) != 0:
+                out.append((name, float(value[0]), float(value[1]), lo, hi))
+        return tuple(out)
+
+    def cosmology_grid(self) -> list[np.ndarray]:
+        """Nodes of the distance tables per free parameter: its prior's ±6σ (in range)."""
+        free = self.free_cosmology()
+        nodes = GRID_NODES.get(len(free), 0)
+        return [
+            np.linspace(max(lo, mean - 6 * sigma), min(hi, mean + 6 * sigma), nodes)
+            for _, mean, sigma, lo, hi in free
+        ]
+
+    def cosmology_at(self, free_values: dict):
+        """The astropy cosmology at H0 = 70 with the free parameters at ``free_values``."""
+        import astropy.cosmology as cosmologies
+
+        kwargs = {"H0": _H_TABLE, "Om0": 0.3 if self.om0_free else float(self.om0)}
+        for name in COSMOLOGIES[self.cosmology]:
+            value = self.cosmology_parameters.get(name, COSMOLOGY_DEFAULTS[name])
+            kwargs[name] = float(value) if np.ndim(value) == 0 else float(value[0])
+        kwargs.update({k: float(v) for k, v in free_values.items()})
+        return getattr(cosmologies, self.cosmology)(**kwargs)
+
+    def describe_cosmology(self) -> dict:
+        """The cosmology for the outputs: class, and each parameter's value or prior."""
+        out = {"class": self.cosmology, "H0": "inferred"}
+        out["Om0"] = list(self.om0) if self.om0_free else float(self.om0)
+        for name in COSMOLOGIES[self.cosmology]:
+            value = self.cosmology_parameters.get(name, COSMOLOGY_DEFAULTS[name])
+            out[name] = float(value) if np.ndim(value) == 0 else list(map(float, value))
+        return out
+
     def parameters(self) -> tuple[HyperParameter, ...]:
         """The hyper-parameters in their order, with their priors."""
         out = [HyperParameter("H0", 20.0, 150.0)]
-        if self.om0_free:
-            grid = self.om0_grid()
-            out.append(HyperParameter("Om0", grid[0], grid[-1], gaussian=tuple(self.om0)))
+        for (name, mean, sigma, _, _), grid in zip(self.free_cosmology(), self.cosmology_grid()):
+            out.append(HyperParameter(name, grid[0], grid[-1], gaussian=(mean, sigma)))
         if self.lambda_int:
             out += [
                 HyperParameter("lambda_mean", 0.5, 1.5),
@@ -140,28 +236,67 @@ class Population:
             ]
         return tuple(out)
 
-    def om0_grid(self) -> np.ndarray:
-        """Ωm nodes of the distance splines: the prior's ±6σ (within OM0_RANGE).
-
-        Distances vary slowly with Ωm: 13 nodes keep a cubic spline's error below 1e-4
-        (:class:`~lensdelay.lensing.distances.DelayDistanceTable` measures it).
-        """
-        if not self.om0_free:
-            return np.array([float(self.om0)])
-        mean, sigma = self.om0
-        lo, hi = max(OM0_RANGE[0], mean - 6 * sigma), min(OM0_RANGE[1], mean + 6 * sigma)
-        return np.linspace(lo, hi, 13)
-
     @property
     def names(self) -> tuple[str, ...]:
         """The hyper-parameters' names, in order."""
         return tuple(p.name for p in self.parameters())
 
 
-class _LensTerms:
-    """One lens's fixed Monte Carlo draws and precomputed arrays."""
+class _CosmologyTable:
+    """Distance factors of many (z_l, z_s) pairs as functions of the free cosmology.
 
-    def __init__(self, lens, population: Population, om_grid, rng: np.random.Generator):
+    At every node of :meth:`Population.cosmology_grid` one astropy cosmology (H0 = 70)
+    gives, for all pairs at once, D_Δt = (1 + z_l) D_l D_s / D_ls (Mpc; Schneider, Ehlers
+    & Falco 1992, eq. 5.45) and D_s/D_ls. The call takes (P, k) parameter sets and
+    returns (P, pairs, 2): a cubic spline for one free parameter, cubic interpolation on
+    the grid for more, the values themselves for none.
+    """
+
+    def __init__(self, population: Population, z_l, z_s):
+        from scipy.interpolate import RegularGridInterpolator
+
+        z_l, z_s = np.asarray(z_l, dtype=float), np.asarray(z_s, dtype=float)
+        self.pairs = len(z_l)
+        free = [f[0] for f in population.free_cosmology()]
+        if not free or not self.pairs:
+            fixed = _distance_factors(population.cosmology_at({}), z_l, z_s)
+            self._call = lambda v: np.broadcast_to(fixed, (len(v), *fixed.shape))
+            return
+        grids = population.cosmology_grid()
+        table = np.empty([len(g) for g in grids] + [self.pairs, 2])
+        for idx in np.ndindex(*table.shape[:-2]):
+            at = {name: grids[k][idx[k]] for k, name in enumerate(free)}
+            table[idx] = _distance_factors(population.cosmology_at(at), z_l, z_s)
+        if len(grids) == 1:
+            spline = CubicSpline(grids[0], table, axis=0)
+            self._call = lambda v: spline(v[:, 0])
+        else:
+            flat = table.reshape(table.shape[:-2] + (-1,))
+            grid = RegularGridInterpolator(grids, flat, method="cubic")
+            lows = np.array([g[0] for g in grids])
+            highs = np.array([g[-1] for g in grids])
+            self._call = lambda v: grid(np.clip(v, lows, highs)).reshape(len(v), self.pairs, 2)
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        return self._call(np.atleast_2d(values))
+
+
+def _distance_factors(cosmology, z_l: np.ndarray, z_s: np.ndarray) -> np.ndarray:
+    """(D_Δt in Mpc, D_s/D_ls) of each (z_l, z_s) pair: (pairs, 2), astropy's distances."""
+    d_l = cosmology.angular_diameter_distance(z_l).to_value("Mpc")
+    d_s = cosmology.angular_diameter_distance(z_s).to_value("Mpc")
+    d_ls = cosmology.angular_diameter_distance(z_l, z_s).to_value("Mpc")
+    return np.column_stack([(1.0 + z_l) * d_l * d_s / d_ls, d_s / d_ls])
+
+
+class _LensTerms:
+    """One lens's fixed Monte Carlo draws and precomputed arrays.
+
+    ``delay_pairs`` and ``kinematics_pair`` are its rows of the likelihood's
+    :class:`_CosmologyTable` (one per measured delay's source, one for the kinematics).
+    """
+
+    def __init__(self, lens, rng: np.random.Generator, delay_pairs, kinematics_pair):
         n = len(lens.model_days)
         self.lens = lens
         mean, sigma = lens.kappa_prior
@@ -169,17 +304,14 @@ class _LensTerms:
         self.z_lambda = rng.standard_normal(n)
         self.z_ani = rng.standard_normal(n)
         self.delays = lens.has_delays
+        self.delay_pairs, self.kinematics_pair = list(delay_pairs), kinematics_pair
         if self.delays:
             self.model_days = lens.model_days
             self.measured = lens.measured_days
             self.cov_inv = np.linalg.inv(lens.delay_covariance)
             sign, logdet = np.linalg.slogdet(2.0 * np.pi * lens.delay_covariance)
             self.norm = -0.5 * logdet
-            # D_Δt(H_ref, Ωm) / D_Δt(H_ref, Ωm_ref) per measured delay, as a function of Ωm
-            self.distance = [
-                self._ddt_ratio(z, d, population, om_grid)
-                for z, d in zip(lens.delay_source_redshifts, lens.reference_ddt_mpc)
-            ]
+            self.reference_ddt = np.asarray(lens.reference_ddt_mpc, dtype=float)
         self.kinematics = lens.has_kinematics
         if self.kinematics:
             kin, tables = lens.kinematics, lens.dispersion_tables
@@ -190,23 +322,14 @@ class _LensTerms:
             self.rows = np.stack([tb.along_parameter(lens.slope) for tb in tables], axis=1)
             self.tables = tables
             self.table = tables[0]  # every aperture's table has the same parameter axis
-            if population.om0_free:
-                ratios = [lens.dispersion_ratio(FlatLambdaCDM(H0=70.0, Om0=om)) for om in om_grid]
-                self.dispersion_ratio = CubicSpline(om_grid, ratios)
-            else:
-                fixed = lens.dispersion_ratio(FlatLambdaCDM(H0=70.0, Om0=population.om0))
-                self.dispersion_ratio = lambda om0, fixed=fixed: np.full(np.shape(om0), fixed)
 
-    def _ddt_ratio(self, z_s, reference_mpc, population, om_grid):
-        """D_Δt(70, Ωm) / D_Δt,ref as a function of Ωm (flat ΛCDM without radiation)."""
-        if not population.om0_free:
-            cosmo = FlatLambdaCDM(H0=_H_TABLE, Om0=float(population.om0))
-            ddt = LensDistances(cosmo, self.lens.lens_redshift, z_s).time_delay_distance(z_s)
-            return lambda om0, r=float(ddt.value) / reference_mpc: np.full(np.shape(om0), r)
-        table = DelayDistanceTable(
-            self.lens.lens_redshift, z_s, om0_range=(om_grid[0], om_grid[-1]), nodes=len(om_grid)
-        )
-        return CubicSpline(om_grid, table(_H_TABLE, om_grid) / reference_mpc)
+    def ddt_ratio(self, factors: np.ndarray) -> np.ndarray:
+        """D_Δt(H_ref, cosmology) / D_Δt,ref per measured delay: (P, m)."""
+        return factors[:, self.delay_pairs, 0] / self.reference_ddt[None, :]
+
+    def dispersion_ratio(self, factors: np.ndarray) -> np.ndarray:
+        """c² (D_s/D_ls) · 1 arcsec in (km/s)²: (P, 1)."""
+        return SPEED_OF_LIGHT_KMS**2 * ARCSEC * factors[:, self.kinematics_pair, 1][:, None]
 
     def ln_j(self, parameter: np.ndarray) -> np.ndarray:
         """The log of J of every draw and aperture at the anisotropy ``parameter`` (P, n).
@@ -248,8 +371,22 @@ class JointLikelihood:
         self.population = population
         self.parameters = population.parameters()
         self.names = population.names
-        om_grid = population.om0_grid()
-        self.terms = [_LensTerms(lens, population, om_grid, rng) for lens in lenses]
+        # every (z_l, z_s) pair whose distances enter: each delay's source, each kinematics'
+        z_l, z_s, pairs = [], [], []
+        for lens in lenses:
+            delays = []
+            for z in lens.delay_source_redshifts if lens.has_delays else []:
+                delays.append(len(z_l))
+                z_l.append(lens.lens_redshift)
+                z_s.append(z)
+            kin = None
+            if lens.has_kinematics:
+                kin = len(z_l)
+                z_l.append(lens.lens_redshift)
+                z_s.append(lens.kinematics_source_redshift)
+            pairs.append((delays, kin))
+        self.cosmic = _CosmologyTable(population, z_l, z_s)
+        self.terms = [_LensTerms(lens, rng, *p) for lens, p in zip(lenses, pairs)]
         self.lenses = tuple(lenses)
         self.compiled = compiled
         self._pack = None
@@ -264,10 +401,11 @@ class JointLikelihood:
         theta = np.atleast_2d(theta)
         return sum(p.log_prior(theta[:, k]) for k, p in enumerate(self.parameters))
 
-    def om0_of(self, theta) -> np.ndarray:
-        """Ωm at each parameter set (its column, or the fixed value): (P, 1)."""
-        fixed = 0.3 if self.population.om0_free else float(self.population.om0)
-        return self._column(theta, "Om0", fixed)
+    def cosmology_values(self, theta) -> np.ndarray:
+        """The free cosmological parameters at each parameter set: (P, k), k ≥ 0."""
+        theta = np.atleast_2d(theta)
+        columns = [self.names.index(f[0]) for f in self.population.free_cosmology()]
+        return theta[:, columns]
 
     def _sheet(self, t, theta) -> np.ndarray:
         """λ_int (1 − κ_ext) of every draw: (P, n)."""
@@ -297,7 +435,8 @@ class JointLikelihood:
         theta = np.atleast_2d(theta)
         j = np.exp(t.ln_j(self._anisotropy(t, theta)))
         sheet = np.maximum(self._sheet(t, theta), 0.0)
-        scale = t.dispersion_ratio(self.om0_of(theta)) * t.base[None, :] * sheet
+        factors = self.cosmic(self.cosmology_values(theta))
+        scale = t.dispersion_ratio(factors) * t.base[None, :] * sheet
         return np.sqrt(scale[:, :, None] * j)
 
     def lens_log_likelihood(self, index: int, theta: np.ndarray) -> np.ndarray:
@@ -305,11 +444,11 @@ class JointLikelihood:
         t = self.terms[index]
         theta = np.atleast_2d(theta)
         h0 = self._column(theta, "H0", 70.0)
-        om0 = self.om0_of(theta)
+        factors = self.cosmic(self.cosmology_values(theta))
         sheet = self._sheet(t, theta)  # the total mass-sheet factor λ_int (1 − κ_ext)
         log_l = np.zeros(sheet.shape)
         if t.delays:
-            scale = (_H_TABLE / h0)[:, :, None] * np.stack([d(om0) for d in t.distance], axis=-1)
+            scale = (_H_TABLE / h0)[:, :, None] * t.ddt_ratio(factors)[:, None, :]
             predicted = scale * t.model_days[None, :, :] * sheet[:, :, None]
             resid = t.measured[None, None, :] - predicted
             log_l += -0.5 * np.einsum("pni,ij,pnj->pn", resid, t.cov_inv, resid) + t.norm
@@ -334,11 +473,12 @@ class JointLikelihood:
 
         pk = self._packed()
         h0 = self._column(theta, "H0", 70.0)
-        om0 = self.om0_of(theta)
-        ddt = [(_H_TABLE / h0) * d(om0) for t in self.terms if t.delays for d in t.distance]
+        factors = self.cosmic(self.cosmology_values(theta))
+        ddt = [(_H_TABLE / h0) * t.ddt_ratio(factors) for t in self.terms if t.delays]
         ddt_scale = np.hstack(ddt) if ddt else np.zeros((len(theta), 0))
+        none = np.zeros((len(theta), 1))
         kin_ratio = np.hstack(
-            [t.dispersion_ratio(om0) if t.kinematics else np.zeros_like(om0) for t in self.terms]
+            [t.dispersion_ratio(factors) if t.kinematics else none for t in self.terms]
         )
         ani = ANISOTROPY_POPULATIONS[self.population.anisotropy]
         hyper = np.hstack(
@@ -436,7 +576,6 @@ def _start(like: JointLikelihood, walkers: int, rng) -> np.ndarray:
     """Walkers spread over the priors' middle, where the likelihood is finite."""
     starts = {
         "H0": (60.0, 80.0),
-        "Om0": (0.25, 0.35),
         "lambda_mean": (0.9, 1.1),
         "lambda_scatter": (0.01, 0.1),
         "beta_mean": (-0.1, 0.3),
@@ -444,11 +583,18 @@ def _start(like: JointLikelihood, walkers: int, rng) -> np.ndarray:
         "r_ani_mean": (1.0, 3.0),
         "r_ani_scatter": (0.05, 0.3),
     }
-    p0 = np.column_stack([rng.uniform(*starts[name], walkers) for name in like.names])
-    if "Om0" in like.names and like.population.om0_free:
-        mean, sigma = like.population.om0
-        p0[:, like.names.index("Om0")] = np.clip(
-            mean + 0.3 * sigma * rng.standard_normal(walkers), *OM0_RANGE
+    free = {f[0]: f for f in like.population.free_cosmology()}
+    p0 = np.column_stack(
+        [
+            np.zeros(walkers) if name in free else rng.uniform(*starts[name], walkers)
+            for name in like.names
+        ]
+    )
+    for name, (_, mean, sigma, _, _) in free.items():
+        # near the prior's mean, inside the distance tables
+        p = like.parameters[like.names.index(name)]
+        p0[:, like.names.index(name)] = np.clip(
+            mean + 0.3 * sigma * rng.standard_normal(walkers), p.lower, p.upper
         )
     # the best of a broad H0 scan in the middle of the others, so walkers start near the mode
     scan = np.repeat(np.median(p0, axis=0)[None, :], 141, axis=0)

@@ -60,6 +60,7 @@ def cosmography_json(res, provenance: dict | None = None) -> dict:
             "anisotropy": pop.anisotropy,
             "lambda_int": "inferred" if pop.lambda_int else "fixed at 1",
             "Om0": list(pop.om0) if pop.om0_free else float(pop.om0),
+            "cosmology": pop.describe_cosmology(),
             "priors": {
                 p.name: {"lower": p.lower, "upper": p.upper, "gaussian": p.gaussian}
                 for p in pop.parameters()

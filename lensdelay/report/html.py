@@ -474,10 +474,14 @@ def _cosmography_section(doc: dict) -> list[str]:
             f"<code>{_e(doc['blinding_key_sha256'])}</code>); rerun with --unblind once the "
             "analysis is frozen.</div>"
         )
+    from lensdelay.report.text import cosmology_text
+
     pop = doc["population"]
+    # a page of an older run has no described cosmology: its Ωm alone (flat ΛCDM)
+    described = pop.get("cosmology") or {"class": "FlatLambdaCDM", "Om0": pop["Om0"]}
     out.append(
         f"<p>Orbits: {_e(pop['anisotropy'])}; internal mass sheet: {_e(pop['lambda_int'])}; "
-        f"Ωm: {_e(pop['Om0'])}.</p>"
+        f"cosmology: {_e(cosmology_text(described))}.</p>"
     )
     rows = [
         [_e(name), *(_num(q[k], "{:.3f}") for k in ("median", "p16", "p84", "p2.5", "p97.5"))]

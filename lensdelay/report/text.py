@@ -12,6 +12,7 @@ from lensdelay.io.forecast_files import image_record
 from lensdelay.report.image_rows import image_cells
 
 __all__ = [
+    "cosmology_text",
     "dispersion_cells",
     "images_text",
     "quality_line",
@@ -541,6 +542,20 @@ def _interval(q: dict | None, fmt: str = "{:.1f}") -> str:
     return f"{fmt.format(q['median'])} [{fmt.format(q['p16'])}, {fmt.format(q['p84'])}]"
 
 
+def cosmology_text(described: dict) -> str:
+    """'FlatwCDM: Om0 ~ N(0.3, 0.05), w0 = -1' from a population's described cosmology."""
+    parts = []
+    for name, value in described.items():
+        if name in ("class", "H0"):
+            continue
+        parts.append(
+            f"{name} ~ N({value[0]:g}, {value[1]:g})"
+            if isinstance(value, list)
+            else f"{name} = {value:g}"
+        )
+    return f"{described['class']}: " + ", ".join(parts)
+
+
 def dispersion_cells(measured, errors, predicted) -> tuple[str, str]:
     """(measured, predicted) dispersion text of one lens: one aperture, or one per ring.
 
@@ -569,8 +584,8 @@ def joint_h0_text(res) -> str:
         f"kinematics){tag}",
         "population: "
         + ("lambda_int ~ N(mean, scatter), inferred" if pop.lambda_int else "lambda_int = 1")
-        + f"; orbits {pop.anisotropy.replace('_', '-')}; Om0 "
-        + (f"~ N({pop.om0[0]:g}, {pop.om0[1]:g})" if pop.om0_free else f"= {pop.om0:g}"),
+        + f"; orbits {pop.anisotropy.replace('_', '-')}; "
+        + cosmology_text(pop.describe_cosmology()),
     ]
     if res.blinded:
         lines.append(
