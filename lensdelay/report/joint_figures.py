@@ -13,6 +13,9 @@ __all__ = ["joint_h0_figure", "population_figure", "PARAMETER_TITLES"]
 PARAMETER_TITLES = {
     "H0": "H0 [km/s/Mpc]",
     "Om0": "Ωm",
+    "Ode0": "Ω_Λ (dark energy density today)",
+    "w0": "dark energy w0",
+    "wa": "dark energy wa",
     "lambda_mean": "mean internal mass sheet λ_int",
     "lambda_scatter": "scatter of λ_int",
     "r_ani_mean": "mean r_ani / R_eff (Osipkov–Merritt)",

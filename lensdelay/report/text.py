@@ -604,7 +604,7 @@ def joint_h0_text(res) -> str:
             lines.append(f"{name} = {_interval(q, '{:.3f}')} (median [68%])")
     lines += [
         "",
-        f"{'lens':<16} {'delays':>6} {'sigma measured':>16} {'sigma predicted':>20} "
+        f"{'lens':<16} {'delays':>6} {'sigma measured':>24} {'sigma predicted':>20} "
         f"{'H0 alone' + tag:>24} {'D_dt [Mpc]' + tag:>28}",
     ]
     for lens in res.lenses:
@@ -612,7 +612,7 @@ def joint_h0_text(res) -> str:
             lens.dispersion_measured, lens.dispersion_error, lens.dispersion_predicted
         )
         lines.append(
-            f"{lens.name:<16} {lens.n_delays:>6} {measured:>16} {predicted:>20} "
+            f"{lens.name:<16} {lens.n_delays:>6} {measured:>24} {predicted:>20} "
             f"{_interval(lens.h0):>24} {_interval(lens.time_delay_distance_mpc, '{:.0f}'):>28}"
         )
     ch = res.chain
