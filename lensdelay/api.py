@@ -777,6 +777,7 @@ def infer_joint_h0(
     joint_steps: int = 3000,
     seed: int = 1,
     blinding_key: bytes | None = None,
+    orbits_side_by_side: bool = False,
     progress=False,
 ):
     """H0 from many lenses at once, with kinematics and the mass sheet (``lensdelay cosmography``).
@@ -811,13 +812,16 @@ def infer_joint_h0(
     blinding_key : bytes, optional
         Blind every H0 and distance with the factor this key gives
         (:class:`lensdelay.hubble.cosmography.Blinding`); None: unblinded.
+    orbits_side_by_side : bool
+        Also run the joint stage under each other orbit model (isotropic, constant β,
+        Osipkov–Merritt), all else the same: the result's ``orbit_alternatives``.
 
     Returns
     -------
     lensdelay.hubble.cosmography.JointH0Result
         With ``provenance`` of every input file; ``.report()`` gives the text.
     """
-    from lensdelay.hubble.cosmography import Blinding, joint_h0
+    from lensdelay.hubble.cosmography import Blinding, joint_h0, orbit_models_side_by_side
     from lensdelay.hubble.joint import Population
     from lensdelay.hubble.lens_evidence import lens_evidence, posterior_of_positions
     from lensdelay.inference.priors import check_kappa_prior
@@ -876,14 +880,11 @@ def infer_joint_h0(
                 kappa_prior=kappa_ext,
             )
         )
-    res = joint_h0(
-        evidence,
-        population,
-        walkers=walkers,
-        steps=joint_steps,
-        seed=seed,
-        blinding=None if blinding_key is None else Blinding(blinding_key),
-    )
+    blinding = None if blinding_key is None else Blinding(blinding_key)
+    joint = {"walkers": walkers, "steps": joint_steps, "seed": seed, "blinding": blinding}
+    res = joint_h0(evidence, population, **joint)
+    if orbits_side_by_side:
+        res = orbit_models_side_by_side(res, evidence, **joint)
     prov = provenance(inputs, loaded[0][1].cosmology, seed)
     prov["cosmology"] = population.describe_cosmology()
     return replace(res, provenance=prov)

@@ -152,7 +152,8 @@ def runs(catalogue, tmp_path_factory):
     key = (out / "blinding.key").read_text().strip()
     samples = (out / "cosmography_samples.ecsv").read_text()
     unblind = ["cosmography", str(catalogue), "--out", str(out), "--quiet", "--unblind"]
-    assert main([*unblind, *QUICK, *wcdm]) == 0
+    # the unblinded run also under the other orbit models: its main result must not change
+    assert main([*unblind, *QUICK, *wcdm, "--orbits-side-by-side"]) == 0
     unblinded = json.loads((out / "cosmography.json").read_text())
     return out, blinded, unblinded, key, samples
 
@@ -190,6 +191,19 @@ def test_outputs_and_blinding(runs):
     }
     w0 = unblinded["parameters"]["w0"]
     assert -1.6 < w0["p16"] < -1.0 < w0["p84"] < -0.4
+
+
+def test_orbit_models_side_by_side(runs):
+    """--orbits-side-by-side: H0 under the two other orbit models (the runs use isotropic
+    orbits), each a full posterior; the main result stays the one without it (the
+    blinding test above compares them to 1e-9)."""
+    _, _, unblinded, _, _ = runs
+    alternatives = unblinded["orbits_side_by_side"]
+    assert [a["anisotropy"] for a in alternatives] == ["constant", "osipkov_merritt"]
+    for a in alternatives:
+        h = a["H0"]
+        assert 20 < h["p2.5"] < h["p16"] < h["median"] < h["p84"] < h["p97.5"] < 150
+        assert ("beta_mean" in a["parameters"]) == (a["anisotropy"] == "constant")
 
 
 def test_resolved_kinematics_one_row_per_ring(runs):

@@ -83,6 +83,7 @@ def run(args) -> int:
         joint_steps=args.joint_steps,
         seed=args.seed,
         blinding_key=None if args.unblind else key,
+        orbits_side_by_side=args.orbits_side_by_side,
         progress=not args.quiet,
     )
     print(res.report())
@@ -149,6 +150,12 @@ def register(sub) -> None:
         "--kappa-ext",
         "external convergence prior of lenses without [line_of_sight] (default 0 0.05)",
         default=[0.0, 0.05],
+    )
+    p.add_argument(
+        "--orbits-side-by-side",
+        action="store_true",
+        help="also infer H0 under the other orbit models (isotropic, constant beta, "
+        "Osipkov-Merritt), all else the same: how far the answer leans on the orbits",
     )
     p.add_argument(
         "--draws", type=int, default=600, help="posterior draws per lens in the joint stage (600)"

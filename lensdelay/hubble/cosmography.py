@@ -10,7 +10,7 @@ command line keeps it in the output folder) and only its SHA-256 is shown.
 from __future__ import annotations
 
 import hashlib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -24,7 +24,15 @@ from lensdelay.hubble.joint import (
 )
 from lensdelay.inference.summaries import quantile_summary
 
-__all__ = ["BLIND_RANGE", "Blinding", "LensSummary", "JointH0Result", "joint_h0"]
+__all__ = [
+    "OrbitAlternative",
+    "orbit_models_side_by_side",
+    "BLIND_RANGE",
+    "Blinding",
+    "LensSummary",
+    "JointH0Result",
+    "joint_h0",
+]
 
 #: A quantile of 1/H0 is the mirrored quantile of H0.
 _MIRROR = {"median": "median", "p16": "p84", "p84": "p16", "p2.5": "p97.5", "p97.5": "p2.5"}
@@ -79,6 +87,23 @@ class LensSummary:
 
 
 @dataclass(frozen=True)
+class OrbitAlternative:
+    """The joint H0 under another orbit model, all else the same (blinded alike).
+
+    One aperture dispersion per lens cannot measure the stars' orbits, so H0 leans on
+    their model and prior: these say by how much.
+    """
+
+    anisotropy: str
+    h0: dict
+    parameters: dict
+
+    def as_dict(self) -> dict:
+        """JSON-ready."""
+        return {"anisotropy": self.anisotropy, "H0": self.h0, "parameters": self.parameters}
+
+
+@dataclass(frozen=True)
 class JointH0Result:
     """The joint H0 of a catalogue: population posterior, per-lens summaries, diagnostics.
 
@@ -94,6 +119,8 @@ class JointH0Result:
     notes: tuple[str, ...]
     settings: dict
     provenance: dict | None = None
+    #: the same analysis under the other orbit models (:func:`orbit_models_side_by_side`)
+    orbit_alternatives: tuple["OrbitAlternative", ...] = ()
 
     @property
     def h0(self) -> dict:
@@ -229,3 +256,37 @@ def _notes(chain: JointChain, lenses) -> list[str]:
             "alone, and so is H0's width"
         )
     return notes
+
+
+def orbit_models_side_by_side(
+    result: JointH0Result,
+    lenses,
+    *,
+    walkers: int = 32,
+    steps: int = 3000,
+    seed: int = 1,
+    blinding: Blinding | None = None,
+) -> JointH0Result:
+    """``result`` with the joint H0 under each other orbit model of :data:`ANISOTROPY_POPULATIONS`.
+
+    Every lens's dispersion is tabulated again for the model
+    (:func:`lensdelay.hubble.lens_evidence.with_anisotropy`) and the joint stage run with
+    the same population otherwise, the same seed and the same blinding.
+    """
+    from lensdelay.hubble.joint import ANISOTROPY_POPULATIONS
+    from lensdelay.hubble.lens_evidence import with_anisotropy
+
+    out = []
+    for model in ANISOTROPY_POPULATIONS:
+        if model == result.population.anisotropy:
+            continue
+        other = joint_h0(
+            [with_anisotropy(lens, model) for lens in lenses],
+            replace(result.population, anisotropy=model),
+            walkers=walkers,
+            steps=steps,
+            seed=seed,
+            blinding=blinding,
+        )
+        out.append(OrbitAlternative(model, other.h0, other.parameters))
+    return replace(result, orbit_alternatives=tuple(out))

@@ -40,6 +40,7 @@ __all__ = [
     "posterior_of_positions",
     "main_galaxy_parameters",
     "kinematics_apertures",
+    "with_anisotropy",
 ]
 
 #: The external-convergence prior of a lens whose scenario gives none ([line_of_sight]).
@@ -117,6 +118,21 @@ class LensEvidence:
     def dispersion_base(self) -> np.ndarray:
         """θE^(γ−1) F(γ) per sample: σ² = ratio · base · J · λ_int (1 − κ_ext)."""
         return self.einstein_radius ** (self.slope - 1.0) * power_law_mass_factor(self.slope)
+
+
+def with_anisotropy(lens: LensEvidence, anisotropy: str) -> LensEvidence:
+    """``lens`` with its dispersion tabulated for another orbit model.
+
+    A lens without kinematics is returned as it is.
+    """
+    kin = lens.kinematics
+    if kin is None:
+        return lens
+    light = LightProfile.from_effective_radius(kin.light_profile, kin.effective_radius)
+    tables = dispersion_tables(
+        light, kinematics_apertures(kin), anisotropy, effective_radius=kin.effective_radius
+    )
+    return replace(lens, dispersion_tables=tables)
 
 
 def kinematics_apertures(kin) -> list[Aperture]:

@@ -68,6 +68,7 @@ def cosmography_json(res, provenance: dict | None = None) -> dict:
         },
         "parameters": res.parameters,
         "H0_width_percent": 50.0 * (res.h0["p84"] - res.h0["p16"]) / res.h0["median"],
+        "orbits_side_by_side": [alt.as_dict() for alt in res.orbit_alternatives],
         "lenses": [
             {
                 "name": lens.name,

@@ -496,6 +496,12 @@ def _cosmography_section(doc: dict) -> list[str]:
             return "—"
         return f"{fmt.format(q['median'])} [{fmt.format(q['p16'])}, {fmt.format(q['p84'])}]"
 
+    alternatives = doc.get("orbits_side_by_side") or []
+    if alternatives:
+        out.append("<p>H0 under the other orbit models, all else the same:</p>")
+        rows = [[_e(a["anisotropy"]), _e(interval(a["H0"]))] for a in alternatives]
+        out.append(_table(["orbits", "H0 [km/s/Mpc], median [68%]"], rows, ()))
+
     from lensdelay.report.text import dispersion_cells
 
     rows = []

@@ -602,6 +602,12 @@ def joint_h0_text(res) -> str:
     for name, q in res.parameters.items():
         if name != "H0":
             lines.append(f"{name} = {_interval(q, '{:.3f}')} (median [68%])")
+    if res.orbit_alternatives:
+        lines.append("H0 under the other orbit models (all else the same):")
+        for alt in res.orbit_alternatives:
+            lines.append(
+                f"  {alt.anisotropy.replace('_', '-'):<16} H0 = {_interval(alt.h0)} km/s/Mpc{tag}"
+            )
     lines += [
         "",
         f"{'lens':<16} {'delays':>6} {'sigma measured':>24} {'sigma predicted':>20} "
