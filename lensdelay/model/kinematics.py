@@ -114,20 +114,27 @@ def parse_kinematics(table) -> Kinematics:
     dispersion = table.number("velocity_dispersion", lo=0.0, lo_open=True, hi=1000.0)
     sigma = table.number("velocity_dispersion_sigma", lo=0.0, lo_open=True, hi=1000.0)
     sizes = {key: table.number(key, lo=0.0, lo_open=True, hi=60.0) for key in APERTURES[aperture]}
+    return Kinematics(
+        velocity_dispersion=dispersion,
+        velocity_dispersion_sigma=sigma,
+        aperture=aperture,
+        **_seeing_and_light(table),
+        **sizes,
+    )
+
+
+def _seeing_and_light(table) -> dict:
+    """The seeing, the effective radius and the light profile: every aperture's."""
     light = table.text("light_profile", "hernquist")
     if light not in _LIGHT:
         raise InputError(
             f"kinematics.light_profile must be one of {choices_text(_LIGHT)}, got {light!r}"
         )
-    return Kinematics(
-        velocity_dispersion=dispersion,
-        velocity_dispersion_sigma=sigma,
-        aperture=aperture,
-        seeing_fwhm=table.number("seeing_fwhm", lo=0.0, lo_open=True, hi=10.0),
-        effective_radius=table.number("effective_radius", lo=0.0, lo_open=True, hi=60.0),
-        light_profile=light,
-        **sizes,
-    )
+    return {
+        "seeing_fwhm": table.number("seeing_fwhm", lo=0.0, lo_open=True, hi=10.0),
+        "effective_radius": table.number("effective_radius", lo=0.0, lo_open=True, hi=60.0),
+        "light_profile": light,
+    }
 
 
 def _parse_rings(table) -> Kinematics:
@@ -156,18 +163,11 @@ def _parse_rings(table) -> Kinematics:
                 f"kinematics.{key} must hold one number per ring of bin_edges "
                 f"({len(edges) - 1}), got {len(values)}"
             )
-    light = table.text("light_profile", "hernquist")
-    if light not in _LIGHT:
-        raise InputError(
-            f"kinematics.light_profile must be one of {choices_text(_LIGHT)}, got {light!r}"
-        )
     return Kinematics(
         velocity_dispersion=dispersion,
         velocity_dispersion_sigma=sigma,
         aperture="annuli",
-        seeing_fwhm=table.number("seeing_fwhm", lo=0.0, lo_open=True, hi=10.0),
-        effective_radius=table.number("effective_radius", lo=0.0, lo_open=True, hi=60.0),
-        light_profile=light,
+        **_seeing_and_light(table),
         bin_edges=edges,
     )
 
