@@ -392,12 +392,46 @@ JOINT_LENSES = (
 )
 
 
+#: Ring radii (arcsec) of the demo's resolved kinematics.
+JOINT_RINGS = (0.0, 0.3, 0.6, 1.0, 1.5)
+
+
+def _resolved_kinematics(light, slope, r_ani, scale, effective_radius) -> dict:
+    """[kinematics] with one dispersion per ring: σ² = scale · J_ring, 4% errors."""
+    from lensdelay.lensing.kinematics import Aperture, aperture_dispersion
+
+    noise = np.random.default_rng(31415)
+    edges = JOINT_RINGS
+    true = [
+        np.sqrt(
+            scale
+            * aperture_dispersion(
+                light, Aperture("annulus", 0.1, radius=b, inner=a), slope, "osipkov_merritt", r_ani
+            )
+        )
+        for a, b in zip(edges, edges[1:])
+    ]
+    return {
+        "velocity_dispersion": [
+            round(float(v * (1 + 0.04 * noise.standard_normal())), 1) for v in true
+        ],
+        "velocity_dispersion_sigma": [round(float(0.04 * v), 1) for v in true],
+        "aperture": "annuli",
+        "bin_edges": list(edges),
+        "seeing_fwhm": 0.1,
+        "effective_radius": round(effective_radius, 3),
+    }
+
+
 def joint_catalogue(rng):
     """scenarios/joint/: invented lenses for ``lensdelay cosmography`` (H0 = 70 in truth).
 
     Each lens is a power law + shear; its true internal mass sheet λ_int ~ N(1, 0.05) and
     κ_ext ~ N(0, 0.03) (its [line_of_sight] prior) scale the true delays and σ² alike;
     delays carry 4% errors, dispersions 6% (Osipkov–Merritt orbits, r_a = 1.5 R_eff).
+    Sorrowby has resolved kinematics instead of a slit: one dispersion per ring of
+    :data:`JOINT_RINGS` in 0.1" seeing, 4% errors each (its noise from its own generator,
+    so the other lenses' draws are those of the slit-only catalogue).
     """
     from pathlib import Path
 
@@ -443,21 +477,26 @@ def joint_catalogue(rng):
             * lam
             * (1 - kappa)
         )
+        kinematics = {
+            "velocity_dispersion": round(float(sigma * (1 + 0.06 * rng.standard_normal())), 1),
+            "velocity_dispersion_sigma": round(float(0.06 * sigma), 1),
+            "aperture": "slit",
+            "aperture_width": 0.75,
+            "aperture_length": 1.0,
+            "seeing_fwhm": 0.8,
+            "effective_radius": round(0.9 * theta_e, 3),
+        }
+        if name == "sorrowby":
+            kinematics = _resolved_kinematics(
+                light, slope, 1.5 * 0.9 * theta_e, sigma**2 / j, 0.9 * theta_e
+            )
         doc = {
             "name": name.capitalize(),
             "lens": {"redshift": z_l},
             "cosmology": {"H0": 70.0, "Om0": 0.3},
             "family": [fam],
             "lens_light": {"x": 0.0, "y": 0.0, "sigma": 0.01},
-            "kinematics": {
-                "velocity_dispersion": round(float(sigma * (1 + 0.06 * rng.standard_normal())), 1),
-                "velocity_dispersion_sigma": round(float(0.06 * sigma), 1),
-                "aperture": "slit",
-                "aperture_width": 0.75,
-                "aperture_length": 1.0,
-                "seeing_fwhm": 0.8,
-                "effective_radius": round(0.9 * theta_e, 3),
-            },
+            "kinematics": kinematics,
             "line_of_sight": {"kappa_ext": [0.0, 0.03]},
         }
         if timed:

@@ -608,17 +608,21 @@ def joint_h0_text(res) -> str:
             lines.append(
                 f"  {alt.anisotropy.replace('_', '-'):<16} H0 = {_interval(alt.h0)} km/s/Mpc{tag}"
             )
+    cells = [
+        dispersion_cells(lens.dispersion_measured, lens.dispersion_error, lens.dispersion_predicted)
+        for lens in res.lenses
+    ]
+    # the dispersion columns as wide as their widest cell (rings of resolved kinematics)
+    wm = max([16] + [len(m) for m, _ in cells])
+    wp = max([20] + [len(p) for _, p in cells])
     lines += [
         "",
-        f"{'lens':<16} {'delays':>6} {'sigma measured':>24} {'sigma predicted':>20} "
+        f"{'lens':<16} {'delays':>6} {'sigma measured':>{wm}} {'sigma predicted':>{wp}} "
         f"{'H0 alone' + tag:>24} {'D_dt [Mpc]' + tag:>28}",
     ]
-    for lens in res.lenses:
-        measured, predicted = dispersion_cells(
-            lens.dispersion_measured, lens.dispersion_error, lens.dispersion_predicted
-        )
+    for lens, (measured, predicted) in zip(res.lenses, cells):
         lines.append(
-            f"{lens.name:<16} {lens.n_delays:>6} {measured:>24} {predicted:>20} "
+            f"{lens.name:<16} {lens.n_delays:>6} {measured:>{wm}} {predicted:>{wp}} "
             f"{_interval(lens.h0):>24} {_interval(lens.time_delay_distance_mpc, '{:.0f}'):>28}"
         )
     ch = res.chain
