@@ -500,7 +500,8 @@ def _cosmography_section(doc: dict) -> list[str]:
     if alternatives:
         out.append("<p>H0 under the other orbit models, all else the same:</p>")
         rows = [[_e(a["anisotropy"]), _e(interval(a["H0"]))] for a in alternatives]
-        out.append(_table(["orbits", "H0 [km/s/Mpc], median [68%]"], rows, ()))
+        head = "H0 [km/s/Mpc], median [68%]" + (" (blinded)" if blinded else "")
+        out.append(_table(["orbits", head], rows, ()))
 
     from lensdelay.report.text import dispersion_cells
 
