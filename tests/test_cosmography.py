@@ -411,3 +411,19 @@ def test_bad_cosmology_is_one_line(catalogue, tmp_path, capsys, args, message):
     err = capsys.readouterr().err.strip()
     assert message in err and "\n" not in err
     assert not out.exists()
+
+
+def test_mock_population_can_draw_its_truths_from_the_priors():
+    """hyper_from_prior: one population's truths drawn from the joint stage's priors
+    (shared by every lens), within their ranges; every lens's own λ_int stays positive."""
+    settings = MockSettings(n_lenses=12, n_samples=60, hyper_from_prior=True)
+    for seed in range(3):
+        lenses, truths = mock_population(settings, np.random.default_rng(seed))
+        first = truths[0]
+        assert 50 <= first["h0"] <= 90 and 0.8 <= first["lambda_mean"] <= 1.2
+        assert 0 <= first["lambda_scatter"] <= 0.3 and 0.5 <= first["r_ani_mean"] <= 5
+        assert 0 <= first["r_ani_scatter"] <= 1
+        for t in truths:
+            assert t["h0"] == first["h0"] and t["r_ani_mean"] == first["r_ani_mean"]
+            assert t["lambda_int"] > 0.05
+        assert all(np.all(np.isfinite(lens.measured_days)) for lens in lenses)

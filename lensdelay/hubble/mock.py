@@ -60,6 +60,11 @@ class MockSettings:
     #: 1" × 1" slit in 0.7" seeing
     rings: tuple[float, ...] | None = None
     ring_seeing: float = 0.1
+    #: simulation-based calibration: the population parameters the data leave to their
+    #: priors — s_λ, the orbits' mean r_a/R_eff and scatter — drawn once per population
+    #: from the joint stage's own priors, and H0 and λ̄, which the data pin, uniform in
+    #: 50-90 and 0.8-1.2 (inside their flat priors), instead of the values above
+    hyper_from_prior: bool = False
 
 
 _TABLES: dict = {}
@@ -111,6 +116,8 @@ def _one_lens(k: int, st: MockSettings, rng: np.random.Generator, with_delays: b
     slope = rng.normal(st.slope_mean, st.slope_scatter)
     theta_e = rng.uniform(0.8, 1.6)
     lam = rng.normal(st.lambda_mean, st.lambda_scatter)
+    while lam <= 0.05:  # no lens without a mass sheet to speak of (rare: see hyper_from_prior)
+        lam = rng.normal(st.lambda_mean, st.lambda_scatter)
     kappa_prior = (0.0, st.kappa_sigma)
     kappa = rng.normal(*kappa_prior)
     if st.anisotropy == "osipkov_merritt":
@@ -167,11 +174,35 @@ def _one_lens(k: int, st: MockSettings, rng: np.random.Generator, with_delays: b
 
 
 def mock_population(settings: MockSettings, rng: np.random.Generator):
-    """(list of LensEvidence, list of per-lens truths) of a mock population."""
+    """(list of LensEvidence, list of per-lens truths) of a mock population.
+
+    Every lens's truths include the population's: ``h0``, ``lambda_mean``,
+    ``lambda_scatter``, ``r_ani_mean``, ``r_ani_scatter``.
+    """
+    if settings.hyper_from_prior:
+        # the joint stage's priors (lensdelay.hubble.joint.Population.parameters); H0
+        # and λ̄ within their flat priors' middle (so a lens's λ_int is almost never
+        # near zero, where the model would have no such lens)
+        settings = replace(
+            settings,
+            h0=rng.uniform(50.0, 90.0),
+            lambda_mean=rng.uniform(0.8, 1.2),
+            lambda_scatter=rng.uniform(0.0, 0.3),
+            r_ani_mean=rng.uniform(0.5, 5.0),
+            r_ani_scatter=rng.uniform(0.0, 1.0),
+        )
     lenses, truths = [], []
     r_ani = settings.r_ani_mean if settings.r_ani_mean is not None else rng.uniform(0.5, 5.0)
     for k in range(settings.n_lenses + settings.n_kinematics_only):
         lens, truth = _one_lens(k, settings, rng, k < settings.n_lenses, r_ani)
         lenses.append(lens)
-        truths.append(truth)
+        truths.append(
+            truth
+            | {
+                "h0": settings.h0,
+                "lambda_mean": settings.lambda_mean,
+                "lambda_scatter": settings.lambda_scatter,
+                "r_ani_scatter": settings.r_ani_scatter,
+            }
+        )
     return lenses, truths
