@@ -140,7 +140,7 @@ def _sbc_set(args) -> None:
     must hold the truth 68% and 95% of the time if the likelihood, the Monte Carlo
     integration and the sampler are right: it tests the machinery, not the priors.
     """
-    rings = tuple(float(x) for x in args.rings.split(","))
+    rings = _rings(args)
     settings = MockSettings(n_lenses=40, n_samples=args.draws, rings=rings, hyper_from_prior=True)
     scores = []
     for r in range(args.sbc):
@@ -154,17 +154,28 @@ def _sbc_set(args) -> None:
     )
 
 
-def _resolved_set(args) -> None:
-    """The calibration with resolved kinematics (every lens: one dispersion per ring)."""
-    rings = tuple(float(x) for x in args.rings.split(","))
-    settings = MockSettings(n_lenses=40, n_samples=args.draws, r_ani_mean=None, rings=rings)
+def _rings(args) -> tuple[float, ...]:
+    """The ring radii of ``--rings`` (arcsec)."""
+    return tuple(float(x) for x in args.rings.split(","))
+
+
+def _free_and_fixed(settings: MockSettings, n: int, args, label: str):
+    """``n`` realisations with λ_int inferred; the first ``--fixed`` also with λ_int = 1."""
     free, fixed = [], []
-    for r in range(args.resolved):
+    for r in range(n):
         free.append(_run(settings, r, Population(), args.steps))
-        _line("resolved", r, free[-1])
+        _line(label, r, free[-1])
         if r < args.fixed:
             fixed.append(_run(settings, r, Population(lambda_int=False), args.steps))
-            _line("  resolved, lambda_int = 1", r, fixed[-1])
+            _line(f"  {label}, lambda_int = 1", r, fixed[-1])
+    return free, fixed
+
+
+def _resolved_set(args) -> None:
+    """The calibration with resolved kinematics (every lens: one dispersion per ring)."""
+    rings = _rings(args)
+    settings = MockSettings(n_lenses=40, n_samples=args.draws, r_ani_mean=None, rings=rings)
+    free, fixed = _free_and_fixed(settings, args.resolved, args, "resolved")
     print()
     times = [s["seconds"] for s in free]
     print(
@@ -186,13 +197,7 @@ def _aperture_sets(args) -> None:
     _demo_lens_timing()
     # A. calibration: the orbits' population drawn from the joint stage's own prior
     prior_orbits = MockSettings(n_lenses=40, n_samples=args.draws, r_ani_mean=None)
-    free, fixed = [], []
-    for r in range(args.realisations):
-        free.append(_run(prior_orbits, r, Population(), args.steps))
-        _line("calibration", r, free[-1])
-        if r < args.fixed:
-            fixed.append(_run(prior_orbits, r, Population(lambda_int=False), args.steps))
-            _line("  lambda_int = 1", r, fixed[-1])
+    free, fixed = _free_and_fixed(prior_orbits, args.realisations, args, "calibration")
     # B. a truth the orbits' prior does not favour (r_a = 1.5 R_eff, near its lower end)
     edge = MockSettings(n_lenses=40, n_samples=args.draws, r_ani_mean=1.5)
     sensitivity = []
