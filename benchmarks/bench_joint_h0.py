@@ -121,6 +121,9 @@ def main() -> None:
     parser.add_argument("--rings", default="0,0.3,0.6,1.0,1.5", help="ring radii, arcsec")
     parser.add_argument("--sbc", type=int, default=20, help="simulation-based calibration")
     parser.add_argument("--only", choices=("aperture", "resolved", "sbc"), help="one set")
+    parser.add_argument(
+        "--first", type=int, default=0, help="number of the first realisation (more mocks)"
+    )
     args = parser.parse_args()
     warnings.simplefilter("ignore", LensdelayWarning)
     if args.only in (None, "aperture"):
@@ -162,10 +165,10 @@ def _rings(args) -> tuple[float, ...]:
 def _free_and_fixed(settings: MockSettings, n: int, args, label: str):
     """``n`` realisations with λ_int inferred; the first ``--fixed`` also with λ_int = 1."""
     free, fixed = [], []
-    for r in range(n):
+    for r in range(args.first, args.first + n):
         free.append(_run(settings, r, Population(), args.steps))
         _line(label, r, free[-1])
-        if r < args.fixed:
+        if r < args.first + args.fixed:
             fixed.append(_run(settings, r, Population(lambda_int=False), args.steps))
             _line(f"  {label}, lambda_int = 1", r, fixed[-1])
     return free, fixed

@@ -228,3 +228,63 @@ def test_rules_are_trusted_only_inside_checked_bounds():
     assert rule_holds_between(EllipticalPowerLaw, "slope", 1.5, 2.65)
     assert rule_holds_between(MassSheet, "convergence", -0.2, 0.5)
     assert not rule_holds_between(IsothermalMultipole, "order", 2.0, 4.0)
+
+
+@pytest.mark.parametrize("name", CASES)
+@pytest.mark.parametrize("free", ["all", "some"])
+def test_row_packer_equals_packing_the_lens(name, free, rng):
+    """A RowPacker's table is the one pack() makes of the same lens, to the last bit."""
+    profile = CASES[name]
+    kind = profile.kind
+    values = compiled.with_defaults(kind, profile.values())
+    names = compiled.RAW_FIELDS[kind]
+    walkers = 7
+    rows, fields = [], {}
+    for f, field in enumerate(names):
+        fixed = field == "order" or (free == "some" and f % 2 == 1)
+        if fixed:
+            fields[field] = ("value", float(values[field]))
+        else:
+            fields[field] = ("column", len(rows))
+            # shrunk a little: every row stays a valid profile (q ≤ 1 too)
+            rows.append(float(values[field]) * (1.0 - 0.01 * rng.uniform(0.0, 1.0, walkers)))
+    rows = np.array(rows).T if rows else np.zeros((walkers, 0))
+    packer = compiled.RowPacker([(kind, fields)])
+    codes, table, shape = packer(rows)
+    lens_values = {
+        field: rows[:, [how[1]]] if how[0] == "column" else how[1] for field, how in fields.items()
+    }
+    if kind == "sheet":
+        lens_values = {"convergence": lens_values["convergence"]}
+    built = type(profile).from_values(
+        {k: v for k, v in lens_values.items() if k in dict(type(profile)._value_fields())}
+    )
+    ref_codes, ref_table, ref_shape = compiled._pack(Lens((built,)))
+    np.testing.assert_array_equal(codes, ref_codes)
+    if rows.shape[1]:
+        assert shape == ref_shape
+    np.testing.assert_array_equal(table, np.broadcast_to(ref_table, table.shape))
+
+
+def test_likelihood_lenses_carry_the_row_packers_table(rng):
+    """The likelihood's lenses for walker rows hold the table pack() makes (default recipe)."""
+    from dataclasses import replace
+
+    from lensdelay.inference.likelihood import ImageLikelihood
+    from lensdelay.io.reading import load_scenario
+    from lensdelay.model.recipe import default_galaxy_recipe
+
+    sc, _ = load_scenario("scenarios/vellmar_quad.toml")
+    xs = np.concatenate([[im.x for im in f.images] for f in sc.families])
+    ys = np.concatenate([[im.y for im in f.images] for f in sc.families])
+    model = default_galaxy_recipe(xs, ys, (0.0, 0.0))
+    like = ImageLikelihood(replace(sc, model=model), model)
+    lo = np.where(np.isfinite(like.lower), like.lower, -1.0)
+    hi = np.where(np.isfinite(like.upper), like.upper, 1.0)
+    rows = lo + (hi - lo) * rng.uniform(0.2, 0.8, (9, len(lo)))
+    lens = like.lens_for(rows)
+    carried = lens.__dict__["_compiled_pack"]
+    ref = compiled._pack(lens)
+    np.testing.assert_array_equal(carried[0], ref[0])
+    np.testing.assert_array_equal(carried[1], ref[1])
+    assert carried[2] == ref[2]

@@ -43,6 +43,7 @@ from lensdelay.inference.parameters import H0_RANGE, PRIOR_CHOICES, ParameterSpa
 from lensdelay.lensing.delays import delay_scale, fermat_difference_to_days
 from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, choices_text
+from lensdelay.lensing import compiled
 from lensdelay.lensing.images import keep_distinct_tracks, newton_polish
 from lensdelay.lensing.profiles.base import rules_trusted
 from lensdelay.model.recipe import MassModel
@@ -370,7 +371,45 @@ class ImageLikelihood:
             (model_rows >= self.lower[:n]) & (model_rows <= self.upper[:n])
         )
         with rules_trusted() if trusted else contextlib.nullcontext():
-            return self.model.lens(list(model_rows.T[:, :, None]))
+            lens = self.model.lens(list(model_rows.T[:, :, None]))
+        packer = self._row_packer()
+        if packer is not None and compiled.enabled():
+            compiled.attach_pack(lens, packer(model_rows))
+        return lens
+
+    def _row_packer(self):
+        """The recipe's :class:`~lensdelay.lensing.compiled.RowPacker`, or None.
+
+        None where the kernels cannot take the recipe as rows of its parameters: cluster
+        members, a kind without a kernel, or no free lens parameter. Built once.
+        """
+        cached = self.__dict__.get("_packer", False)
+        if cached is not False:
+            return cached
+        packer = None
+        model = self.model
+        if model.members is None and model.free_names:
+            column = {name: i for i, name in enumerate(model.free_names)}
+            built = model.lens()
+            parts = []
+            for c, profile in zip(model.components, built.components):
+                kind = c.profile_class.kind
+                if kind not in compiled.RAW_FIELDS:
+                    parts = None
+                    break
+                values = compiled.with_defaults(kind, profile.values())
+                fields = {}
+                for name in compiled.RAW_FIELDS[kind]:
+                    p = c.parameters.get(name)
+                    if p is not None and p.name in column:
+                        fields[name] = ("column", column[p.name])
+                    else:
+                        fields[name] = ("value", float(np.asarray(values[name])))
+                parts.append((kind, fields))
+            if parts:
+                packer = compiled.RowPacker(parts)
+        self._packer = packer
+        return packer
 
     # -- predictions ----------------------------------------------------------------
     def predict(self, params: np.ndarray):

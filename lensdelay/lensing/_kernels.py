@@ -23,6 +23,7 @@ __all__ = [
     "evaluate_all",
     "newton_all",
     "series_factors",
+    "fill_table",
     "softened_points_field",
 ]
 
@@ -346,6 +347,58 @@ def series_factors(q, t):
         for k in range(1, int(terms[i]) + 1):
             factors[i, k - 1] = -f * (2.0 * k - 2.0 + t[i]) / (2.0 * k + 2.0 - t[i])
     return terms, factors
+
+
+@_jit
+def fill_table(codes, raw, sin_phi, cos_phi, table):
+    """The table entries of every component and row from raw parameters, in place.
+
+    ``raw[c, row]`` holds component c's parameters in the order of
+    :data:`lensdelay.lensing.compiled.RAW_FIELDS`; ``sin_phi``/``cos_phi`` its angle's
+    sine and cosine (from numpy, as the packing of a lens takes them). The entries are
+    those of ``compiled._component_rows``, the same operations in the same order (equal
+    to the last bit); a power law's series columns are filled by the caller.
+    """
+    for c in range(codes.shape[0]):
+        code = codes[c]
+        for r in range(raw.shape[1]):
+            v = raw[c, r]
+            e = table[c, r]
+            if code == 1 or code == 3 or code == 9:  # SIE, power law, truncated
+                q = v[3]
+                e[0] = v[0]
+                e[1] = v[1]
+                e[2] = sin_phi[c, r]
+                e[3] = cos_phi[c, r]
+                e[4] = q
+                e[5] = v[4] * math.sqrt(q)
+                if code == 3:
+                    e[6] = v[5] - 1.0
+                else:
+                    e[6] = v[5] / math.sqrt(q)
+                if code == 9:
+                    e[7] = v[6] / math.sqrt(q)
+            elif code == 4:  # multipole
+                m = v[2]
+                e[0] = v[0]
+                e[1] = v[1]
+                e[2] = m
+                e[3] = v[3] / (1.0 - m * m)
+                e[4] = v[4] / (1.0 - m * m)
+            elif code == 5:  # shear
+                e[0] = v[0] * cos_phi[c, r]
+                e[1] = v[0] * sin_phi[c, r]
+            elif code == 6:  # sheet
+                e[0] = v[0]
+            elif code == 7:  # NFW
+                e[0] = v[0]
+                e[1] = v[1]
+                e[2] = v[2]
+                e[3] = v[3]
+            else:  # point mass, SIS
+                e[0] = v[0]
+                e[1] = v[1]
+                e[2] = v[2]
 
 
 @_jit

@@ -43,6 +43,10 @@ __all__ = [
     "kernel_module",
     "series_factors",
     "pack",
+    "RAW_FIELDS",
+    "RowPacker",
+    "attach_pack",
+    "with_defaults",
     "evaluate",
     "newton_solve",
 ]
@@ -246,7 +250,7 @@ def _pack(lens):
     codes, blocks = [], []
     for kind, values, count in members:
         if count is None:
-            blocks.append(_component_rows(kind, _with_defaults(kind, values), shape))
+            blocks.append(_component_rows(kind, with_defaults(kind, values), shape))
             codes.append(CODES[kind])
         else:  # all members at once: (members × rows, width) -> one entry per member
             # a member axis first, then the row axes (members' own may be fewer)
@@ -254,7 +258,7 @@ def _pack(lens):
                 k: a.reshape((count,) + (1,) * (len(shape) + 1 - a.ndim) + a.shape[1:])
                 for k, a in values.items()
             }
-            block = _component_rows(kind, _with_defaults(kind, padded), (count, *shape))
+            block = _component_rows(kind, with_defaults(kind, padded), (count, *shape))
             blocks += list(block.reshape(count, -1, block.shape[1]))
             codes += [CODES[kind]] * count
     if not blocks:
@@ -266,7 +270,118 @@ def _pack(lens):
     return np.asarray(codes, dtype=np.int64), table, shape
 
 
-def _with_defaults(kind, values):
+#: The raw parameters of each kind a :class:`RowPacker` gathers, in its order (TOML names).
+RAW_FIELDS = {
+    "SIE": ("x", "y", "position_angle", "axis_ratio", "einstein_radius", "core"),
+    "power_law": ("x", "y", "position_angle", "axis_ratio", "einstein_radius", "slope"),
+    "truncated_isothermal": (
+        "x",
+        "y",
+        "position_angle",
+        "axis_ratio",
+        "einstein_radius",
+        "core",
+        "cut",
+    ),
+    "multipole": ("x", "y", "order", "cosine", "sine"),
+    "shear": ("strength", "position_angle"),
+    "sheet": ("convergence",),
+    "NFW": ("x", "y", "kappa_s", "scale_radius"),
+    "point": ("x", "y", "einstein_radius"),
+    "SIS": ("x", "y", "einstein_radius"),
+}
+#: Where each kind's angle sits among its raw fields, and the factor on it (a shear's
+#: table holds γ cos 2φ and γ sin 2φ).
+_ANGLE = {
+    "SIE": (2, 1.0),
+    "power_law": (2, 1.0),
+    "truncated_isothermal": (2, 1.0),
+    "shear": (1, 2.0),
+}
+
+
+class RowPacker:
+    """Packs one lens recipe for many parameter rows straight into the kernels' table.
+
+    :func:`pack` reads a built lens component by component (a few dozen small numpy
+    operations); a sampler builds a lens for its walkers several times a step, so for a
+    recipe whose components are fixed this gathers every component's raw parameters
+    from the rows with one indexing operation and fills the table in one compiled call.
+    The table is the one :func:`pack` makes of the same lens (tested equal to the bit).
+
+    Parameters
+    ----------
+    components : sequence of (kind, dict)
+        Each component's kind and, for each name of :data:`RAW_FIELDS` [kind], either
+        ``("column", i)`` (column i of the rows) or ``("value", v)`` (held fixed).
+    """
+
+    def __init__(self, components):
+        components = list(components)
+        self.codes = np.array([CODES[kind] for kind, _ in components], dtype=np.int64)
+        width = max(len(RAW_FIELDS[kind]) for kind, _ in components)
+        self.constants = np.zeros((len(components), width))
+        targets, columns = [], []
+        self.angle_field = np.zeros(len(components), dtype=np.int64)
+        self.angle_factor = np.zeros(len(components))
+        self.has_angle = np.zeros(len(components), dtype=bool)
+        for c, (kind, fields) in enumerate(components):
+            for f, name in enumerate(RAW_FIELDS[kind]):
+                how, value = fields[name]
+                if how == "column":
+                    targets.append((c, f))
+                    columns.append(int(value))
+                else:
+                    self.constants[c, f] = float(value)
+            if kind in _ANGLE:
+                self.angle_field[c], self.angle_factor[c] = _ANGLE[kind]
+                self.has_angle[c] = True
+        self.targets = (
+            tuple(np.array(t, dtype=np.int64) for t in zip(*targets)) if targets else None
+        )
+        self.columns = np.array(columns, dtype=np.int64)
+        self.series = [c for c, (kind, _) in enumerate(components) if kind == "power_law"]
+
+    def __call__(self, rows: np.ndarray):
+        """(codes, table, row shape) for parameter rows (P, n), as :func:`pack` returns.
+
+        The row shape is (P, 1): every parameter one value per row, as the likelihood's
+        lenses hold them.
+        """
+        rows = np.asarray(rows, dtype=float)
+        n_rows = rows.shape[0]
+        raw = np.repeat(self.constants[:, None, :], n_rows, axis=1)
+        if self.targets is not None:
+            comp, field = self.targets
+            raw[comp, :, field] = rows[:, self.columns].T
+        # the angles in numpy, as _component_rows takes them: the same bits
+        angle = raw[np.arange(len(self.codes)), :, self.angle_field]
+        angle = np.where(self.has_angle[:, None], angle, 0.0)
+        factor = self.angle_factor[:, None]
+        phi = np.deg2rad(np.where(factor == 2.0, 2.0 * angle, angle))
+        table = np.zeros((len(self.codes), n_rows, WIDTH))
+        kernel_module().fill_table(self.codes, raw, np.sin(phi), np.cos(phi), table)
+        if self.series:
+            parts = []
+            for c in self.series:
+                terms, factors = series_factors(
+                    np.ascontiguousarray(raw[c, :, 3]), np.ascontiguousarray(table[c, :, 6])
+                )
+                table[c, :, 7] = terms
+                parts.append((c, factors))
+            extra = max(f.shape[1] for _, f in parts)
+            table = np.concatenate([table, np.zeros((len(self.codes), n_rows, extra))], axis=2)
+            for c, factors in parts:
+                table[c, :, WIDTH : WIDTH + factors.shape[1]] = factors
+        return self.codes, table, (n_rows, 1)
+
+
+def attach_pack(lens, packed) -> None:
+    """Give ``lens`` its packed table (from a :class:`RowPacker`): :func:`pack` then reuses it."""
+    object.__setattr__(lens, "_compiled_pack", packed)
+
+
+def with_defaults(kind, values):
     """TOML-named values; a stack's member dict uses field names (same for these kinds)."""
     v = dict(values)
     if kind == "sheet" and "convergence" not in v:
