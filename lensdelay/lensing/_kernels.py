@@ -23,6 +23,7 @@ __all__ = [
     "evaluate_all",
     "newton_all",
     "series_factors",
+    "gather_rows",
     "fill_table",
     "softened_points_field",
 ]
@@ -347,6 +348,35 @@ def series_factors(q, t):
         for k in range(1, int(terms[i]) + 1):
             factors[i, k - 1] = -f * (2.0 * k - 2.0 + t[i]) / (2.0 * k + 2.0 - t[i])
     return terms, factors
+
+
+@_jit
+def gather_rows(constants, component, field, column, rows, angle_field, angle_factor):
+    """Raw parameters (C, P, W) of every component and row, and each one's angle in degrees.
+
+    ``constants[c, f]`` holds the fixed values; entry k of ``component``/``field`` comes
+    from column ``column[k]`` of the parameter ``rows``. The angle is raw field
+    ``angle_field[c]`` times ``angle_factor[c]`` (2 for a shear, 0 for no angle).
+    """
+    n_comp, width = constants.shape
+    n_rows = rows.shape[0]
+    raw = np.empty((n_comp, n_rows, width))
+    angle = np.zeros((n_comp, n_rows))
+    for c in range(n_comp):
+        for r in range(n_rows):
+            for f in range(width):
+                raw[c, r, f] = constants[c, f]
+    for k in range(component.shape[0]):
+        for r in range(n_rows):
+            raw[component[k], r, field[k]] = rows[r, column[k]]
+    for c in range(n_comp):
+        if angle_factor[c] == 1.0:
+            for r in range(n_rows):
+                angle[c, r] = raw[c, r, angle_field[c]]
+        elif angle_factor[c] != 0.0:
+            for r in range(n_rows):
+                angle[c, r] = angle_factor[c] * raw[c, r, angle_field[c]]
+    return raw, angle
 
 
 @_jit

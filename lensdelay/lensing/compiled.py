@@ -323,8 +323,7 @@ class RowPacker:
         self.constants = np.zeros((len(components), width))
         targets, columns = [], []
         self.angle_field = np.zeros(len(components), dtype=np.int64)
-        self.angle_factor = np.zeros(len(components))
-        self.has_angle = np.zeros(len(components), dtype=bool)
+        self.angle_factor = np.zeros(len(components))  # 0: no angle
         for c, (kind, fields) in enumerate(components):
             for f, name in enumerate(RAW_FIELDS[kind]):
                 how, value = fields[name]
@@ -335,10 +334,8 @@ class RowPacker:
                     self.constants[c, f] = float(value)
             if kind in _ANGLE:
                 self.angle_field[c], self.angle_factor[c] = _ANGLE[kind]
-                self.has_angle[c] = True
-        self.targets = (
-            tuple(np.array(t, dtype=np.int64) for t in zip(*targets)) if targets else None
-        )
+        self.component = np.array([t[0] for t in targets], dtype=np.int64)
+        self.field = np.array([t[1] for t in targets], dtype=np.int64)
         self.columns = np.array(columns, dtype=np.int64)
         self.series = [c for c, (kind, _) in enumerate(components) if kind == "power_law"]
 
@@ -348,31 +345,32 @@ class RowPacker:
         The row shape is (P, 1): every parameter one value per row, as the likelihood's
         lenses hold them.
         """
-        rows = np.asarray(rows, dtype=float)
+        rows = np.ascontiguousarray(rows, dtype=float)
         n_rows = rows.shape[0]
-        raw = np.repeat(self.constants[:, None, :], n_rows, axis=1)
-        if self.targets is not None:
-            comp, field = self.targets
-            raw[comp, :, field] = rows[:, self.columns].T
-        # the angles in numpy, as _component_rows takes them: the same bits
-        angle = raw[np.arange(len(self.codes)), :, self.angle_field]
-        angle = np.where(self.has_angle[:, None], angle, 0.0)
-        factor = self.angle_factor[:, None]
-        phi = np.deg2rad(np.where(factor == 2.0, 2.0 * angle, angle))
-        table = np.zeros((len(self.codes), n_rows, WIDTH))
-        kernel_module().fill_table(self.codes, raw, np.sin(phi), np.cos(phi), table)
-        if self.series:
-            parts = []
-            for c in self.series:
-                terms, factors = series_factors(
-                    np.ascontiguousarray(raw[c, :, 3]), np.ascontiguousarray(table[c, :, 6])
-                )
-                table[c, :, 7] = terms
-                parts.append((c, factors))
-            extra = max(f.shape[1] for _, f in parts)
-            table = np.concatenate([table, np.zeros((len(self.codes), n_rows, extra))], axis=2)
-            for c, factors in parts:
-                table[c, :, WIDTH : WIDTH + factors.shape[1]] = factors
+        kernels = kernel_module()
+        raw, angle = kernels.gather_rows(
+            self.constants,
+            self.component,
+            self.field,
+            self.columns,
+            rows,
+            self.angle_field,
+            self.angle_factor,
+        )
+        # the angles' sines and cosines in numpy, as _component_rows takes them: same bits
+        phi = np.deg2rad(angle)
+        # a power law's series factors widen the table: worked out first, from q and
+        # t = γ − 1 as _component_rows computes them
+        series = [
+            (c, *series_factors(np.ascontiguousarray(raw[c, :, 3]), raw[c, :, 5] - 1.0))
+            for c in self.series
+        ]
+        extra = max((factors.shape[1] for _, _, factors in series), default=0)
+        table = np.zeros((len(self.codes), n_rows, WIDTH + extra))
+        kernels.fill_table(self.codes, raw, np.sin(phi), np.cos(phi), table)
+        for c, terms, factors in series:
+            table[c, :, 7] = terms
+            table[c, :, WIDTH : WIDTH + factors.shape[1]] = factors
         return self.codes, table, (n_rows, 1)
 
 
