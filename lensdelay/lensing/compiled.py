@@ -306,7 +306,8 @@ class RowPacker:
     :func:`pack` reads a built lens component by component (a few dozen small numpy
     operations); a sampler builds a lens for its walkers several times a step, so for a
     recipe whose components are fixed this gathers every component's raw parameters
-    from the rows with one indexing operation and fills the table in one compiled call.
+    from the rows and fills the table in two compiled calls (the angles' sines and
+    cosines between them in numpy, as :func:`pack` takes them).
     The table is the one :func:`pack` makes of the same lens (tested equal to the bit).
 
     Parameters
