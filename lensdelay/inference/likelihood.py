@@ -378,38 +378,10 @@ class ImageLikelihood:
         return lens
 
     def _row_packer(self):
-        """The recipe's :class:`~lensdelay.lensing.compiled.RowPacker`, or None.
-
-        None where the kernels cannot take the recipe as rows of its parameters: cluster
-        members, a kind without a kernel, or no free lens parameter. Built once.
-        """
-        cached = self.__dict__.get("_packer", False)
-        if cached is not False:
-            return cached
-        packer = None
-        model = self.model
-        if model.members is None and model.free_names:
-            column = {name: i for i, name in enumerate(model.free_names)}
-            built = model.lens()
-            parts = []
-            for c, profile in zip(model.components, built.components):
-                kind = c.profile_class.kind
-                if kind not in compiled.RAW_FIELDS:
-                    parts = None
-                    break
-                values = compiled.with_defaults(kind, profile.values())
-                fields = {}
-                for name in compiled.RAW_FIELDS[kind]:
-                    p = c.parameters.get(name)
-                    if p is not None and p.name in column:
-                        fields[name] = ("column", column[p.name])
-                    else:
-                        fields[name] = ("value", float(np.asarray(values[name])))
-                parts.append((kind, fields))
-            if parts:
-                packer = compiled.RowPacker(parts)
-        self._packer = packer
-        return packer
+        """The recipe's row packer for the kernels (:meth:`MassModel.row_packer`), built once."""
+        if "_packer" not in self.__dict__:
+            self._packer = self.model.row_packer()
+        return self._packer
 
     # -- predictions ----------------------------------------------------------------
     def predict(self, params: np.ndarray):

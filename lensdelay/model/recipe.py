@@ -252,6 +252,36 @@ class MassModel:
             comps += self.members.profiles(lookup)
         return Lens(tuple(comps))
 
+    def row_packer(self):
+        """A packer of this recipe's lenses for rows of its free values, or None.
+
+        A :class:`lensdelay.lensing.compiled.RowPacker` that fills the compiled kernels'
+        table straight from parameter rows (P, n_free) — each component's free values by
+        their columns, the rest at their values — so a sampler's lenses need not be read
+        back component by component. None where the kernels cannot take the recipe so:
+        cluster members, a kind without a kernel, or no free parameter.
+        """
+        from lensdelay.lensing import compiled
+
+        if self.members is not None or not self.free_names:
+            return None
+        column = {name: i for i, name in enumerate(self.free_names)}
+        parts = []
+        for c, profile in zip(self.components, self.lens().components):
+            kind = c.profile_class.kind
+            if kind not in compiled.RAW_FIELDS:
+                return None
+            values = compiled.with_defaults(kind, profile.values())
+            fields = {}
+            for name in compiled.RAW_FIELDS[kind]:
+                p = c.parameters.get(name)
+                if p is not None and p.name in column:
+                    fields[name] = ("column", column[p.name])
+                else:
+                    fields[name] = ("value", float(np.asarray(values[name])))
+            parts.append((kind, fields))
+        return compiled.RowPacker(parts) if parts else None
+
     def n_free(self) -> int:
         """Number of free parameters."""
         return len(self.free)
