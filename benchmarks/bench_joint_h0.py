@@ -149,6 +149,23 @@ def main() -> None:
         _ridge(args)
 
 
+def _calibration_likelihood(lenses, seed: int):
+    """The joint likelihood with the Monte Carlo draws ``joint_h0(..., seed=seed)`` makes."""
+    from lensdelay.hubble.joint import JointLikelihood
+
+    draws_seed, _ = np.random.SeedSequence(seed).spawn(2)
+    return JointLikelihood(lenses, Population(), np.random.default_rng(draws_seed))
+
+
+def _nelder_mead(f, start):
+    """The minimum of ``f`` from ``start``: Nelder-Mead (scipy), restarted once where it stopped."""
+    from scipy.optimize import minimize
+
+    options = {"maxiter": 4000, "xatol": 1e-5, "fatol": 1e-5}
+    first = minimize(f, start, method="Nelder-Mead", options=options)
+    return minimize(f, first.x, method="Nelder-Mead", options=options)
+
+
 def _ridge(args) -> None:
     """The likelihood along r_a: pinned with the rest at the truth, a ridge when freed.
 
@@ -157,8 +174,6 @@ def _ridge(args) -> None:
     calibration (true r_a 1.95): the profile likelihood of r_a, every other parameter at
     its best (Nelder-Mead), and the H0 and λ̄ there.
     """
-    from scipy.optimize import minimize
-
     from lensdelay.hubble.joint import JointLikelihood
 
     rings = _rings(args)
@@ -179,17 +194,14 @@ def _ridge(args) -> None:
     )
     settings = MockSettings(n_lenses=40, n_samples=args.draws, r_ani_mean=None, rings=rings)
     lenses, truths = mock_population(settings, np.random.default_rng(1000 + 37))
-    draws_seed, _ = np.random.SeedSequence(38).spawn(2)
-    like = JointLikelihood(lenses, Population(), np.random.default_rng(draws_seed))
-    options = {"maxiter": 3000, "xatol": 1e-5, "fatol": 1e-5}
+    like = _calibration_likelihood(lenses, 38)  # realisation 37's joint seed
     profile = []
     for r_a in (truths[0]["r_ani_mean"], *grid[2:]):
 
         def minus(p, r_a=r_a):
             return -float(like(np.array([[p[0], p[1], p[2], r_a, p[3]]]))[0])
 
-        res = minimize(minus, [TRUE_H0, 1.0, 0.05, 0.3], method="Nelder-Mead", options=options)
-        res = minimize(minus, res.x, method="Nelder-Mead", options=options)
+        res = _nelder_mead(minus, [TRUE_H0, 1.0, 0.05, 0.3])
         profile.append((r_a, res.fun, res.x[0], res.x[1]))
     best = min(p[1] for p in profile)
     print(
@@ -201,31 +213,20 @@ def _ridge(args) -> None:
 
 def _wilks_set(args) -> None:
     """The resolved mocks' likelihood at the truth against its maximum (Wilks 1938)."""
-    from scipy.optimize import minimize
-
-    from lensdelay.hubble.joint import JointLikelihood
-
     rings = _rings(args)
     settings = MockSettings(n_lenses=40, n_samples=args.draws, r_ani_mean=None, rings=rings)
     whole, profile = [], []
     for r in range(args.first, args.first + args.resolved):
         lenses, truths = mock_population(settings, np.random.default_rng(1000 + r))
-        # the draws joint_h0 makes with the calibration's seed (r + 1)
-        draws_seed, _ = np.random.SeedSequence(r + 1).spawn(2)
-        like = JointLikelihood(lenses, Population(), np.random.default_rng(draws_seed))
+        like = _calibration_likelihood(lenses, r + 1)  # the calibration's joint seed
         t = truths[0]
         truth = np.array([t[name] if name != "H0" else t["h0"] for name in like.names])
 
         def minus(theta):
             return -float(like(theta[None, :])[0])
 
-        def best(f, start):
-            options = {"maxiter": 4000, "xatol": 1e-5, "fatol": 1e-5}
-            first = minimize(f, start, method="Nelder-Mead", options=options)
-            return minimize(f, first.x, method="Nelder-Mead", options=options)
-
-        top = best(minus, truth)
-        at_h0 = best(lambda rest: minus(np.concatenate([truth[:1], rest])), truth[1:])
+        top = _nelder_mead(minus, truth)
+        at_h0 = _nelder_mead(lambda rest: minus(np.concatenate([truth[:1], rest])), truth[1:])
         whole.append(2.0 * (minus(truth) - top.fun))
         profile.append(2.0 * (at_h0.fun - top.fun))
         print(
@@ -256,7 +257,7 @@ def _sbc_set(args) -> None:
     rings = _rings(args)
     settings = MockSettings(n_lenses=40, n_samples=args.draws, rings=rings, hyper_from_prior=True)
     scores = []
-    for r in range(args.sbc):
+    for r in range(args.first, args.first + args.sbc):
         scores.append(_run(settings, 500 + r, Population(), args.steps))
         _line("sbc", r, scores[-1])
     print()
