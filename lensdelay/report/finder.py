@@ -28,6 +28,7 @@ __all__ = [
     "PREDICTED_COLOUR",
     "OBSERVED_COLOUR",
     "offset_wcs",
+    "offset_axes_wcs",
     "finder_chart",
     "LABEL_OFFSETS",
     "region_text",
@@ -54,6 +55,16 @@ def offset_wcs(origin) -> WCS:
     w.wcs.cdelt = [-1.0 / 3600.0, 1.0 / 3600.0]
     w.wcs.cunit = ["deg", "deg"]
     w.wcs.radesys = "ICRS"
+    return w
+
+
+def offset_axes_wcs() -> WCS:
+    """A linear WCS from :func:`offset_wcs`'s pixels to East and North offsets (arcsec)."""
+    w = WCS(naxis=2)
+    w.wcs.ctype = ["EAST", "NORTH"]
+    w.wcs.crval = [0.0, 0.0]
+    w.wcs.crpix = [1.0, 1.0]
+    w.wcs.cdelt = [-1.0, 1.0]
     return w
 
 
@@ -186,13 +197,15 @@ def finder_chart(res) -> Figure:
         ra.set_ticklabel_position("b")
         dec.set_ticklabel_position("l")
         ax.coords.grid(color="0.8", ls=":", lw=0.5)
-        overlay = ax.get_coords_overlay(sky.skyoffset_frame())
+        # the offsets through a linear WCS: the same numbers as the tangent plane's to
+        # far below a pixel at these scales, without a frame transform at every tick
+        overlay = ax.get_coords_overlay(offset_axes_wcs())
         east, north = overlay[0], overlay[1]
         for c, pos, label in (
             (east, "t", "East offset [arcsec]"),
             (north, "r", "North offset [arcsec]"),
         ):
-            c.set_format_unit(u.arcsec, decimal=True, show_decimal_unit=False)
+            c.set_major_formatter("x")
             c.set_ticks_position(pos)
             c.set_ticklabel_position(pos)
             c.set_axislabel_position(pos)
