@@ -231,13 +231,14 @@ def _wilks_set(args) -> None:
     if args.no_scatter:
         settings = replace(settings, lambda_scatter=0.0, r_ani_scatter=0.0)
         held |= {"lambda_scatter", "r_ani_scatter"}
+    names = Population().names
+    free = np.array([k for k, name in enumerate(names) if name not in held])
     whole, profile = [], []
     for r in range(args.first, args.first + args.resolved):
         lenses, truths = mock_population(settings, np.random.default_rng(1000 + r))
         like = _calibration_likelihood(lenses, r + 1)  # the calibration's joint seed
         t = truths[0]
-        truth = np.array([t[name] if name != "H0" else t["h0"] for name in like.names])
-        free = np.array([k for k, name in enumerate(like.names) if name not in held])
+        truth = np.array([t[name] if name != "H0" else t["h0"] for name in names])
 
         def minus(x):
             theta = truth.copy()
