@@ -232,6 +232,8 @@ def _wilks_set(args) -> None:
         settings = replace(settings, lambda_scatter=0.0, r_ani_scatter=0.0)
         held |= {"lambda_scatter", "r_ani_scatter"}
     names = Population().names
+    if not held <= set(names[1:]):  # H0 stays free: the profile is taken in it
+        raise SystemExit(f"--hold must name some of {list(names[1:])}, got {sorted(held)}")
     free = np.array([k for k, name in enumerate(names) if name not in held])
     whole, profile = [], []
     for r in range(args.first, args.first + args.resolved):
