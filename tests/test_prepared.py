@@ -74,6 +74,25 @@ def test_forecast_from_a_prepared_lens_equals_the_forecast_from_scratch(prepared
             )
 
 
+def test_now_as_an_iso_date_is_the_same_moment_as_a_time(prepared_folder):
+    """The Python interface takes ``now`` as the command line's --now does (ISO 8601, UTC):
+    a string gives what the same ``Time`` gives; anything else is one InputError."""
+    import datetime
+
+    from lensdelay.errors import InputError
+
+    options = {"n_samples": 300, "seed": 4, "transient": "sn/B=2026-12-20±1", "budget": False}
+    as_time = forecast_prepared(prepared_folder, now=Time("2026-12-21", scale="utc"), **options)
+    for now in ("2026-12-21", "2026-12-21T00:00:00Z", datetime.date(2026, 12, 21)):
+        as_text = forecast_prepared(prepared_folder, now=now, **options)
+        assert as_text.now == as_time.now
+        assert [im.status for im in as_text.images] == [im.status for im in as_time.images]
+    with pytest.raises(InputError, match="now must be an ISO 8601 date.*got 5"):
+        forecast_prepared(prepared_folder, now=5, **options)
+    with pytest.raises(InputError, match="now must be one moment, got 2"):
+        forecast_prepared(prepared_folder, now=Time(["2026-12-21", "2026-12-22"]), **options)
+
+
 def test_alert_on_the_command_line(prepared_folder, tmp_path, capsys):
     """--transient names the image and date of the alert; the rest of the forecast follows."""
     out = tmp_path / "alert"

@@ -18,7 +18,7 @@ from lensdelay.forecast.perturbers import PerturberPopulation
 from lensdelay.forecast.samples import WEIGHTINGS, ForecastSettings, check_sample_count
 from lensdelay.inference.priors import check_kappa_prior
 from lensdelay.inference.sampling import SamplerSettings, check_sampler_settings
-from lensdelay.model.scenario import Site
+from lensdelay.model.scenario import Site, parse_date
 
 __all__ = ["ForecastRequest", "perturber_population"]
 
@@ -49,8 +49,10 @@ class ForecastRequest:
         Sightings of further images, ``[FAMILY/]LABEL=DATE[±SIGMA]``.
     site : Site or None
         The observing site (default: the scenario's own).
-    now : Time or None
-        The moment statuses are judged at (default: the time the forecast runs).
+    now : Time, str, datetime or None
+        The moment statuses are judged at (default: the time the forecast runs); an ISO
+        8601 date or date-time (``"2027-03-04"``, ``"2027-03-04T06:00Z"``) or a
+        ``datetime`` is read as UTC and kept as a ``Time``.
     sampler : SamplerSettings
         Walkers, steps and mass-model prior of the posterior sampling.
     """
@@ -66,7 +68,7 @@ class ForecastRequest:
     weighting: str = "bic"
     seen: tuple[str, ...] = ()
     site: Site | None = None
-    now: Time | None = None
+    now: Time | str | None = None
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
 
     def __post_init__(self):
@@ -89,6 +91,8 @@ class ForecastRequest:
                 f"weighting must be one of {choices_text(WEIGHTINGS)}, got {self.weighting!r}"
             )
         object.__setattr__(self, "seen", tuple(self.seen or ()))
+        if self.now is not None:
+            object.__setattr__(self, "now", _moment(self.now))
 
     @classmethod
     def from_options(cls, **options) -> ForecastRequest:
@@ -130,6 +134,15 @@ class ForecastRequest:
             model_prior=self.sampler.prior,
             sightings=tuple(sightings),
         )
+
+
+def _moment(now) -> Time:
+    """``now`` as one UTC instant: a scalar ``Time`` as it is, else an ISO 8601 date."""
+    if isinstance(now, Time):
+        if not now.isscalar:
+            raise InputError(f"now must be one moment, got {now.size} of them")
+        return now
+    return parse_date(now, "now")
 
 
 def perturber_population(unseen) -> PerturberPopulation:
