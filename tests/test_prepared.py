@@ -93,6 +93,44 @@ def test_now_as_an_iso_date_is_the_same_moment_as_a_time(prepared_folder):
         forecast_prepared(prepared_folder, now=Time(["2026-12-21", "2026-12-22"]), **options)
 
 
+@pytest.mark.parametrize(
+    "option, message",
+    [
+        ({"h0": 70}, "h0 must be two numbers .mean, sigma., got 70"),
+        ({"h0": "70 5"}, "h0 must be two numbers .mean, sigma., got '70 5'"),
+        ({"kappa_ext": (0.0, 0.05, 1.0)}, "kappa_ext must be two numbers"),
+        ({"microlensing": "0.3"}, "microlensing must be a number, got '0.3'"),
+        ({"depth": [25]}, "depth must be a number"),
+        ({"site": (-30.0, -70.0, 2000.0)}, "site must be a Site or a dict of .site.'s keys"),
+        ({"site": {"latitude": -130.0, "longitude": 0.0}}, "site.latitude must be >= -90"),
+    ],
+)
+def test_python_options_of_the_wrong_kind_are_one_input_error(prepared_folder, option, message):
+    """Each option checked as its command-line twin is (no TypeError from deep inside)."""
+    from lensdelay.errors import InputError
+
+    with pytest.raises(InputError, match=message):
+        forecast_prepared(prepared_folder, transient="sn/B=2026-12-20±1", **option)
+
+
+def test_python_options_take_the_command_line_forms(prepared_folder):
+    """One sighting as a string, a site as a [site] table: the same as their full forms."""
+    from lensdelay.model.scenario import Site
+
+    options = {"n_samples": 300, "seed": 4, "budget": False, "now": "2026-12-21"}
+    options["transient"] = "sn/B=2026-12-20±1"
+    one = forecast_prepared(prepared_folder, seen="sn/C=2026-12-20", **options)
+    listed = forecast_prepared(prepared_folder, seen=["sn/C=2026-12-20"], **options)
+    assert [im.status for im in one.images] == [im.status for im in listed.images]
+    assert [im.status for im in one.images][2] == "seen"
+    table = {"latitude": -30.0, "longitude": -70.0, "height": 2000.0}
+    by_table = forecast_prepared(prepared_folder, site=table, **options)
+    by_site = forecast_prepared(
+        prepared_folder, site=Site("ground", -30.0, -70.0, 2000.0), **options
+    )
+    assert by_table.site == by_site.site
+
+
 def test_alert_on_the_command_line(prepared_folder, tmp_path, capsys):
     """--transient names the image and date of the alert; the rest of the forecast follows."""
     out = tmp_path / "alert"

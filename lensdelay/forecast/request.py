@@ -18,7 +18,7 @@ from lensdelay.forecast.perturbers import PerturberPopulation
 from lensdelay.forecast.samples import WEIGHTINGS, ForecastSettings, check_sample_count
 from lensdelay.inference.priors import check_kappa_prior
 from lensdelay.inference.sampling import SamplerSettings, check_sampler_settings
-from lensdelay.model.scenario import Site, parse_date
+from lensdelay.model.scenario import Site, parse_date, site_from_table
 
 __all__ = ["ForecastRequest", "perturber_population"]
 
@@ -45,10 +45,13 @@ class ForecastRequest:
         off), or a whole population; None: the default population.
     weighting : str
         How several models are weighted (one of ``WEIGHTINGS``).
-    seen : tuple of str
-        Sightings of further images, ``[FAMILY/]LABEL=DATE[±SIGMA]``.
-    site : Site or None
-        The observing site (default: the scenario's own).
+    seen : tuple of str, or str
+        Sightings of further images, ``[FAMILY/]LABEL=DATE[±SIGMA]`` (one string: one
+        sighting).
+    site : Site, dict or None
+        The observing site (default: the scenario's own); a dict is read as a scenario's
+        ``[site]`` table (``latitude``, ``longitude``, ``height``, or
+        ``solar_elongation``).
     now : Time, str, datetime or None
         The moment statuses are judged at (default: the time the forecast runs); an ISO
         8601 date or date-time (``"2027-03-04"``, ``"2027-03-04T06:00Z"``) or a
@@ -72,6 +75,22 @@ class ForecastRequest:
     sampler: SamplerSettings = field(default_factory=SamplerSettings)
 
     def __post_init__(self):
+        # the Python interface's values in the command line's types first
+        for name in ("h0", "kappa_ext"):
+            if getattr(self, name) is not None:
+                object.__setattr__(self, name, _pair(getattr(self, name), name))
+        for name in ("microlensing", "depth"):
+            if getattr(self, name) is not None:
+                object.__setattr__(self, name, _number(getattr(self, name), name))
+        if isinstance(self.seen, str):
+            object.__setattr__(self, "seen", (self.seen,))
+        if self.site is not None and not isinstance(self.site, Site):
+            if not isinstance(self.site, dict):
+                raise InputError(
+                    "site must be a Site or a dict of [site]'s keys (latitude, longitude, "
+                    f"height; or solar_elongation), got {self.site!r}"
+                )
+            object.__setattr__(self, "site", site_from_table(self.site))
         # the checks in the order the command line has always made them
         check_sampler_settings(self.sampler.walkers, self.sampler.steps, self.seed)
         if self.h0 is not None:
@@ -134,6 +153,27 @@ class ForecastRequest:
             model_prior=self.sampler.prior,
             sightings=tuple(sightings),
         )
+
+
+def _pair(value, name: str) -> tuple[float, float]:
+    """``value`` as (mean, sigma): two real numbers."""
+    if isinstance(value, (str, bytes)):
+        raise InputError(f"{name} must be two numbers (mean, sigma), got {value!r}")
+    try:
+        mean, sigma = (float(v) for v in value)
+    except (TypeError, ValueError) as err:
+        raise InputError(f"{name} must be two numbers (mean, sigma), got {value!r}") from err
+    return mean, sigma
+
+
+def _number(value, name: str) -> float:
+    """``value`` as one real number."""
+    if isinstance(value, (str, bytes)):
+        raise InputError(f"{name} must be a number, got {value!r}")
+    try:
+        return float(value)
+    except (TypeError, ValueError) as err:
+        raise InputError(f"{name} must be a number, got {value!r}") from err
 
 
 def _moment(now) -> Time:

@@ -53,6 +53,7 @@ __all__ = [
     "Site",
     "Scenario",
     "parse_date",
+    "site_from_table",
     "MIN_REDSHIFT_GAP",
     "TOP_KEYS",
     "MEMBERS_KEYS",
@@ -681,7 +682,7 @@ def _parse(doc, source, load_model, load_table=None):
             )
         )
 
-    site = _parse_site(doc["site"]) if "site" in doc else None
+    site = site_from_table(doc["site"]) if "site" in doc else None
     kinematics = (
         parse_kinematics(_Table(doc["kinematics"], "kinematics", KINEMATICS_KEYS))
         if "kinematics" in doc
@@ -755,7 +756,13 @@ def _check_cosmology(spec):
     return spec
 
 
-def _parse_site(raw) -> Site:
+def site_from_table(raw) -> Site:
+    """A :class:`Site` from a scenario's ``[site]`` table (a dict), checked as the file is.
+
+    ``latitude``, ``longitude``, ``height`` (and ``twilight``, ``min_altitude``,
+    ``min_hours``) for a ground site, or ``solar_elongation = [min, max]`` for a space
+    observatory; a bad value is one :class:`InputError` naming ``site.<key>``.
+    """
     st = _Table(
         raw,
         "site",
