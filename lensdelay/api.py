@@ -824,14 +824,14 @@ def infer_joint_h0(
     from lensdelay.hubble.cosmography import Blinding, joint_h0, orbit_models_side_by_side
     from lensdelay.hubble.joint import Population
     from lensdelay.hubble.lens_evidence import lens_evidence, posterior_of_positions
-    from lensdelay.inference.priors import check_kappa_prior
+    from lensdelay.inference.priors import kappa_prior_of
     from lensdelay.inference.sampling import SamplerSettings
     from lensdelay.io.catalogue import list_systems, system_seed
     from lensdelay.io.prepared_files import is_prepared, read_prepared
 
     check_sampler_settings(walkers, steps, seed)
     check_sampler_settings(walkers, joint_steps, seed)
-    kappa_ext = check_kappa_prior(*kappa_ext)
+    kappa_ext = kappa_prior_of(kappa_ext)
     if not isinstance(draws_per_lens, int) or draws_per_lens < 50:
         raise InputError(f"draws_per_lens must be an integer >= 50, got {draws_per_lens!r}")
     population = Population(

@@ -12,6 +12,7 @@ import pytest
 from astropy.cosmology import FlatLambdaCDM
 
 from lensdelay.cli.main import main
+from lensdelay.errors import InputError
 from lensdelay.hubble.cosmography import Blinding, joint_h0
 from lensdelay.hubble.joint import JointLikelihood, Population
 from lensdelay.hubble.mock import MockSettings, mock_population
@@ -427,3 +428,29 @@ def test_mock_population_can_draw_its_truths_from_the_priors():
             assert t["h0"] == first["h0"] and t["r_ani_mean"] == first["r_ani_mean"]
             assert t["lambda_int"] > 0.05
         assert all(np.all(np.isfinite(lens.measured_days)) for lens in lenses)
+
+
+@pytest.mark.parametrize(
+    "om0, message",
+    [
+        ("0.3", "om0 must be a number or two numbers .mean, sigma., got '0.3'"),
+        ((0.3, 0.02, 1.0), "om0 must be a number or two numbers"),
+        ([[0.3]], "om0 must be a number or two numbers"),
+        (1.5, r"om0 must lie in \[0.05, 0.95\], got 1.5"),
+    ],
+)
+def test_population_om0_of_the_wrong_kind_is_one_input_error(om0, message):
+    """Python callers get the checks a catalogue run gets, not an error from the kernels."""
+    with pytest.raises(InputError, match=message):
+        Population(om0=om0)
+    assert Population(om0=[0.3, 0.02]).om0 == (0.3, 0.02)  # a list, as JSON gives it
+
+
+@pytest.mark.parametrize("kappa", [0.05, "0 0.05", (0.0,), (0.0, 0.05, 0.1), ("a", "b")])
+def test_kappa_prior_of_wants_one_pair(kappa):
+    """κ_ext priors in the Python interfaces: (mean, sigma), else one InputError."""
+    from lensdelay.inference.priors import kappa_prior_of
+
+    with pytest.raises(InputError, match="kappa_ext must be two numbers .mean, sigma."):
+        kappa_prior_of(kappa)
+    assert kappa_prior_of([0, 0.05]) == (0.0, 0.05)

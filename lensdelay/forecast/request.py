@@ -16,7 +16,7 @@ from astropy.time import Time
 from lensdelay.errors import InputError, choices_text
 from lensdelay.forecast.perturbers import PerturberPopulation
 from lensdelay.forecast.samples import WEIGHTINGS, ForecastSettings, check_sample_count
-from lensdelay.inference.priors import check_kappa_prior
+from lensdelay.inference.priors import check_kappa_prior, kappa_prior_of
 from lensdelay.inference.sampling import SamplerSettings, check_sampler_settings
 from lensdelay.model.scenario import Site, parse_date, site_from_table
 
@@ -76,9 +76,10 @@ class ForecastRequest:
 
     def __post_init__(self):
         # the Python interface's values in the command line's types first
-        for name in ("h0", "kappa_ext"):
-            if getattr(self, name) is not None:
-                object.__setattr__(self, name, _pair(getattr(self, name), name))
+        if self.h0 is not None:
+            object.__setattr__(self, "h0", _pair(self.h0, "h0"))
+        if self.kappa_ext is not None:
+            object.__setattr__(self, "kappa_ext", kappa_prior_of(self.kappa_ext))
         for name in ("microlensing", "depth"):
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, _number(getattr(self, name), name))
@@ -98,8 +99,6 @@ class ForecastRequest:
                 raise InputError(f"h0 sigma must be > 0, got {self.h0[1]:g}")
             if not 10 <= self.h0[0] <= 200:
                 raise InputError(f"h0 mean must be between 10 and 200 km/s/Mpc, got {self.h0[0]:g}")
-        if self.kappa_ext is not None:
-            check_kappa_prior(*self.kappa_ext)
         if self.microlensing is not None and self.microlensing < 0:
             raise InputError(f"microlensing must be >= 0 mag, got {self.microlensing:g}")
         if self.unseen is not None:

@@ -14,7 +14,7 @@ from astropy import units as u
 from lensdelay.errors import InputError
 from lensdelay.hubble.analysis import delay_curves, h0_posterior, kappa_comparison, pair_delays
 from lensdelay.inference.likelihood import ImageLikelihood
-from lensdelay.inference.priors import check_kappa_prior
+from lensdelay.inference.priors import kappa_prior_of
 from lensdelay.inference.sampling import (
     DEFAULT_SAMPLER,
     check_sampler_settings,
@@ -64,7 +64,7 @@ def run_hubble(
         Show progress bars (off by default).
     """
     check_sampler_settings(walkers, steps, seed)
-    kappa_ext = check_kappa_prior(*kappa_ext)
+    kappa_ext = kappa_prior_of(kappa_ext)
     if om0 is not None and not (0 < om0[0] < 1 and om0[1] >= 0):
         raise InputError(f"om0 must be MEAN in (0, 1) and SIGMA >= 0, got {om0[0]:g} {om0[1]:g}")
     sc = scenario

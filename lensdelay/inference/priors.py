@@ -17,6 +17,7 @@ __all__ = [
     "MAX_PROBABILITY_ABOVE_ONE",
     "MIN_KAPPA_MEAN",
     "check_kappa_prior",
+    "kappa_prior_of",
     "draw_kappa",
     "truncated_standard_normal",
 ]
@@ -51,6 +52,23 @@ def check_kappa_prior(mean: float, sigma: float) -> tuple[float, float]:
             f"kappa_ext >= 1 (delays would change sign), got {above:.3g} for N({mean:g}, {sigma:g})"
         )
     return mean, sigma
+
+
+def kappa_prior_of(value) -> tuple[float, float]:
+    """A κ_ext prior given as one ``(mean, sigma)`` pair (the Python interfaces' form), checked.
+
+    Raises
+    ------
+    InputError
+        ``value`` is not two numbers, or :func:`check_kappa_prior` refuses them.
+    """
+    try:
+        if isinstance(value, (str, bytes)) or len(value) != 2:
+            raise TypeError
+        mean, sigma = (float(v) for v in value)
+    except (TypeError, ValueError) as err:
+        raise InputError(f"kappa_ext must be two numbers (mean, sigma), got {value!r}") from err
+    return check_kappa_prior(mean, sigma)
 
 
 def draw_kappa(mean: float, sigma: float, n: int, rng: np.random.Generator) -> np.ndarray:
