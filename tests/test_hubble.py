@@ -269,3 +269,22 @@ def test_hubble_command_writes_every_file(tmp_path):
     assert doc["joint_fit_quality"]["dof"] == doc["fit_quality"]["dof"]
     for name in ("hubble_curves.ecsv", "hubble_curves.png", "hubble_posterior.pdf"):
         assert (out / name).stat().st_size > 0
+
+
+@pytest.mark.parametrize(
+    "option, message",
+    [
+        ({"om0": 0.3}, r"om0 must be two numbers \(mean, sigma\), got 0.3"),
+        ({"om0": "0.3 0.02"}, r"om0 must be two numbers \(mean, sigma\), got '0.3 0.02'"),
+        ({"kappa_ext": 0.05}, r"kappa_ext must be two numbers \(mean, sigma\), got 0.05"),
+    ],
+)
+def test_python_priors_of_the_wrong_kind_are_one_input_error(option, message):
+    """infer_h0's priors checked before any fit (they were TypeErrors from inside)."""
+    from pathlib import Path
+
+    from lensdelay.errors import InputError
+
+    quad = Path(__file__).resolve().parent.parent / "scenarios" / "vellmar_quad.toml"
+    with pytest.raises(InputError, match=message):
+        run_hubble(quad, **option)
