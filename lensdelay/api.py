@@ -77,6 +77,11 @@ def load_model(path: PathLike) -> MassModel:
     return reading.load_model(path)[0]
 
 
+def _is_real(value) -> bool:
+    """Whether ``value`` is one real number (not a bool or a string)."""
+    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool)
+
+
 def _scenario(scenario, model=None) -> tuple[Scenario, list]:
     """The scenario (read from a path if need be) with ``model`` in place, and its input files."""
     if isinstance(scenario, Scenario):
@@ -270,8 +275,8 @@ def fit_scenario(
     elif isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise InputError(f"seed must be an integer >= 0, got {seed!r}")
     sc, used = _scenario(scenario, model)
-    if not flux_floor > 0:
-        raise InputError(f"flux_floor must be > 0 mag, got {flux_floor:g}")
+    if not (_is_real(flux_floor) and flux_floor > 0):
+        raise InputError(f"flux_floor must be a number > 0 mag, got {flux_floor!r}")
     like = ImageLikelihood(
         sc,
         sc.model,
@@ -451,6 +456,10 @@ def _with_light_curve_delays(sc, used, delays):
     if isinstance(delays, (str, os.PathLike)):
         new, cov = read_delays_json(delays, sc)
         used = used + [Path(delays)]
+    elif not hasattr(delays, "covariance_labels"):
+        raise InputError(
+            f"delays must be a delays.json path or measure_delays' result, got {delays!r}"
+        )
     else:
         keep = [im for im in delays.images if im.measurable]
         if not keep:
@@ -584,7 +593,7 @@ def map_scenario(
     if size is None:
         reach = max(np.hypot(im.x, im.y) for fam in sc.families for im in fam.images)
         size = 2.5 * reach + 0.5
-    if not (np.isfinite(size) and size > 0):
+    if not (_is_real(size) and np.isfinite(size) and size > 0):
         raise InputError(f"size must be a positive number of arcsec, got {size!r}")
     if pixel is None:
         # a round pixel (1, 2 or 5 × a power of ten) giving about 200 across
@@ -592,7 +601,7 @@ def map_scenario(
         power = 10.0 ** np.floor(np.log10(raw))
         pixel = float(power * min(m for m in (1, 2, 5, 10) if m * power >= raw))
     for name, value in (("size", size), ("pixel", pixel)):
-        if not (np.isfinite(value) and value > 0):
+        if not (_is_real(value) and np.isfinite(value) and value > 0):
             raise InputError(f"{name} must be a positive number of arcsec, got {value!r}")
     if size / pixel > MAX_MAP_PIXELS:
         raise InputError(

@@ -190,3 +190,21 @@ def test_a_lens_with_member_galaxies_is_prepared_self_contained(tmp_path, capsys
     (tmp_path / "in" / "members.ecsv").unlink()  # the original is not needed any more
     code = main(["forecast", str(out), "--transient", "s/A=2027-01-01", "--samples", "300"])
     assert code == 0, capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    "job, option, message",
+    [
+        ("fit_scenario", {"flux_floor": "0.2", "use_fluxes": True}, "flux_floor must be a number"),
+        ("map_scenario", {"size": "5"}, "size must be a positive number of arcsec, got '5'"),
+        ("map_scenario", {"pixel": "0.1"}, "pixel must be a positive number of arcsec"),
+        ("forecast_scenario", {"delays": 5}, "delays must be a delays.json path or measure_del"),
+    ],
+)
+def test_python_jobs_refuse_options_of_the_wrong_kind(job, option, message):
+    """One InputError naming the option, before any fit (were TypeError/AttributeError)."""
+    import lensdelay.api as api
+    from lensdelay.errors import InputError
+
+    with pytest.raises(InputError, match=message):
+        getattr(api, job)(QUAD, **option)
