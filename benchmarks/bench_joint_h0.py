@@ -243,14 +243,7 @@ def _wilks_set(args) -> None:
     """
     rings = _rings(args)
     settings = MockSettings(n_lenses=40, n_samples=args.draws, r_ani_mean=None, rings=rings)
-    held = set(filter(None, args.hold.split(",")))
-    if args.no_scatter:
-        settings = replace(settings, lambda_scatter=0.0, r_ani_scatter=0.0)
-        held |= {"lambda_scatter", "r_ani_scatter"}
-    names = Population().names
-    if not held <= set(names[1:]):  # H0 stays free: the profile is taken in it
-        raise SystemExit(f"--hold must name some of {list(names[1:])}, got {sorted(held)}")
-    free = np.array([k for k, name in enumerate(names) if name not in held])
+    settings, names, held, free = _held(args, settings)
     whole, profile = [], []
     for r in range(args.first, args.first + args.resolved):
         lenses, truths = mock_population(settings, np.random.default_rng(1000 + r))
@@ -288,6 +281,22 @@ def _wilks_set(args) -> None:
     )
 
 
+def _held(args, settings):
+    """``--hold`` and ``--no-scatter`` applied: (settings, names, held names, free columns).
+
+    H0 stays free (the profile and the offsets are taken in it).
+    """
+    names = Population().names
+    held = set(filter(None, args.hold.split(",")))
+    if args.no_scatter:
+        settings = replace(settings, lambda_scatter=0.0, r_ani_scatter=0.0)
+        held |= {"lambda_scatter", "r_ani_scatter"}
+    if not held <= set(names[1:]):
+        raise SystemExit(f"--hold must name some of {list(names[1:])}, got {sorted(held)}")
+    free = np.array([k for k, name in enumerate(names) if name not in held])
+    return settings, names, held, free
+
+
 def _mle_set(args) -> None:
     """The maximum-likelihood H0 of many resolved mocks against the truth (and variants).
 
@@ -302,14 +311,7 @@ def _mle_set(args) -> None:
     rings = _rings(args)
     many = max(args.more_draws, args.draws)
     settings = MockSettings(n_lenses=40, n_samples=many, r_ani_mean=None, rings=rings)
-    names = Population().names
-    held = set(filter(None, args.hold.split(",")))
-    if args.no_scatter:
-        settings = replace(settings, lambda_scatter=0.0, r_ani_scatter=0.0)
-        held |= {"lambda_scatter", "r_ani_scatter"}
-    if not held <= set(names[1:]):
-        raise SystemExit(f"--hold must name some of {list(names[1:])}, got {sorted(held)}")
-    free = np.array([k for k, name in enumerate(names) if name not in held])
+    settings, names, held, free = _held(args, settings)
     variant = bool(held) or args.more_draws > 0
     offsets, paired = [], []
     for r in range(args.first, args.first + args.mle):

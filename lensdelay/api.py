@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING
 
 from lensdelay.lensing.delays import fermat_difference_to_days
 from lensdelay.dates import allows_far_dates
-from lensdelay.errors import InputError, LensdelayWarning
+from lensdelay.errors import InputError, LensdelayWarning, is_real
 from lensdelay.forecast.budget import delay_budget
 from lensdelay.forecast.pipeline import run_forecast
 from lensdelay.forecast.result import Forecast
@@ -75,11 +75,6 @@ def load_scenario(path: PathLike, model: PathLike | None = None) -> Scenario:
 def load_model(path: PathLike) -> MassModel:
     """Read a model recipe (``[[mass]]`` entries) from a TOML file."""
     return reading.load_model(path)[0]
-
-
-def _is_real(value) -> bool:
-    """Whether ``value`` is one real number (not a bool or a string)."""
-    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool)
 
 
 def _scenario(scenario, model=None) -> tuple[Scenario, list]:
@@ -275,7 +270,7 @@ def fit_scenario(
     elif isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
         raise InputError(f"seed must be an integer >= 0, got {seed!r}")
     sc, used = _scenario(scenario, model)
-    if not (_is_real(flux_floor) and flux_floor > 0):
+    if not (is_real(flux_floor) and flux_floor > 0):
         raise InputError(f"flux_floor must be a number > 0 mag, got {flux_floor!r}")
     like = ImageLikelihood(
         sc,
@@ -593,7 +588,7 @@ def map_scenario(
     if size is None:
         reach = max(np.hypot(im.x, im.y) for fam in sc.families for im in fam.images)
         size = 2.5 * reach + 0.5
-    if not (_is_real(size) and np.isfinite(size) and size > 0):
+    if not (is_real(size) and np.isfinite(size) and size > 0):
         raise InputError(f"size must be a positive number of arcsec, got {size!r}")
     if pixel is None:
         # a round pixel (1, 2 or 5 × a power of ten) giving about 200 across
@@ -601,7 +596,7 @@ def map_scenario(
         power = 10.0 ** np.floor(np.log10(raw))
         pixel = float(power * min(m for m in (1, 2, 5, 10) if m * power >= raw))
     for name, value in (("size", size), ("pixel", pixel)):
-        if not (_is_real(value) and np.isfinite(value) and value > 0):
+        if not (is_real(value) and np.isfinite(value) and value > 0):
             raise InputError(f"{name} must be a positive number of arcsec, got {value!r}")
     if size / pixel > MAX_MAP_PIXELS:
         raise InputError(

@@ -18,6 +18,8 @@ __all__ = [
     "LensdelayWarning",
     "suggest",
     "choices_text",
+    "is_real",
+    "pair_of_numbers",
 ]
 
 
@@ -71,3 +73,31 @@ def choices_text(choices: Iterable[str]) -> str:
     if len(items) <= 1:
         return "".join(items)
     return ", ".join(items[:-1]) + " or " + items[-1]
+
+
+def is_real(value) -> bool:
+    """Whether ``value`` is one real number (not a bool, a string or an array)."""
+    import numbers
+
+    return isinstance(value, numbers.Real) and not isinstance(value, bool)
+
+
+def pair_of_numbers(value, name: str, one_allowed: bool = False):
+    """``value`` as ``(mean, sigma)``, two floats; with ``one_allowed`` also one number.
+
+    Raises
+    ------
+    InputError
+        Anything else (a string, one number where two are needed, three numbers, ...):
+        ``"<name> must be two numbers (mean, sigma), got <value>"``.
+    """
+    if one_allowed and is_real(value):
+        return float(value)
+    rule = "a number or two numbers" if one_allowed else "two numbers"
+    try:
+        if isinstance(value, (str, bytes)) or len(value) != 2:
+            raise TypeError
+        mean, sigma = (float(v) for v in value)
+    except (TypeError, ValueError) as err:
+        raise InputError(f"{name} must be {rule} (mean, sigma), got {value!r}") from err
+    return mean, sigma

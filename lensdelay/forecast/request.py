@@ -13,7 +13,7 @@ from dataclasses import dataclass, field, fields, replace
 
 from astropy.time import Time
 
-from lensdelay.errors import InputError, choices_text
+from lensdelay.errors import InputError, choices_text, is_real, pair_of_numbers
 from lensdelay.forecast.perturbers import PerturberPopulation
 from lensdelay.forecast.samples import WEIGHTINGS, ForecastSettings, check_sample_count
 from lensdelay.inference.priors import check_kappa_prior, kappa_prior_of
@@ -77,12 +77,15 @@ class ForecastRequest:
     def __post_init__(self):
         # the Python interface's values in the command line's types first
         if self.h0 is not None:
-            object.__setattr__(self, "h0", _pair(self.h0, "h0"))
+            object.__setattr__(self, "h0", pair_of_numbers(self.h0, "h0"))
         if self.kappa_ext is not None:
             object.__setattr__(self, "kappa_ext", kappa_prior_of(self.kappa_ext))
         for name in ("microlensing", "depth"):
-            if getattr(self, name) is not None:
-                object.__setattr__(self, name, _number(getattr(self, name), name))
+            value = getattr(self, name)
+            if value is not None:
+                if not is_real(value):
+                    raise InputError(f"{name} must be a number, got {value!r}")
+                object.__setattr__(self, name, float(value))
         if isinstance(self.seen, str):
             object.__setattr__(self, "seen", (self.seen,))
         if self.site is not None and not isinstance(self.site, Site):
@@ -152,27 +155,6 @@ class ForecastRequest:
             model_prior=self.sampler.prior,
             sightings=tuple(sightings),
         )
-
-
-def _pair(value, name: str) -> tuple[float, float]:
-    """``value`` as (mean, sigma): two real numbers."""
-    if isinstance(value, (str, bytes)):
-        raise InputError(f"{name} must be two numbers (mean, sigma), got {value!r}")
-    try:
-        mean, sigma = (float(v) for v in value)
-    except (TypeError, ValueError) as err:
-        raise InputError(f"{name} must be two numbers (mean, sigma), got {value!r}") from err
-    return mean, sigma
-
-
-def _number(value, name: str) -> float:
-    """``value`` as one real number."""
-    if isinstance(value, (str, bytes)):
-        raise InputError(f"{name} must be a number, got {value!r}")
-    try:
-        return float(value)
-    except (TypeError, ValueError) as err:
-        raise InputError(f"{name} must be a number, got {value!r}") from err
 
 
 def _moment(now) -> Time:

@@ -36,7 +36,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.special import logsumexp
 
-from lensdelay.errors import InputError
+from lensdelay.errors import InputError, pair_of_numbers
 from lensdelay.inference.sampling import integrated_time
 from lensdelay.inference.summaries import quantile_summary, weighted_quantiles
 from lensdelay.lensing.kinematics import ARCSEC, SPEED_OF_LIGHT_KMS
@@ -127,18 +127,7 @@ class Population:
     cosmology_parameters: dict = field(default_factory=dict)
 
     def __post_init__(self):
-        om0 = self.om0
-        try:
-            if isinstance(om0, (str, bytes)) or np.ndim(om0) not in (0, 1) or np.size(om0) > 2:
-                raise TypeError
-            om0 = float(om0) if np.ndim(om0) == 0 else tuple(float(v) for v in om0)
-            if isinstance(om0, tuple) and len(om0) != 2:
-                raise TypeError
-        except (TypeError, ValueError) as err:
-            raise InputError(
-                f"om0 must be a number or two numbers (mean, sigma), got {self.om0!r}"
-            ) from err
-        object.__setattr__(self, "om0", om0)
+        object.__setattr__(self, "om0", pair_of_numbers(self.om0, "om0", one_allowed=True))
         self._check_cosmology()
         if self.anisotropy not in ANISOTROPY_POPULATIONS:
             raise InputError(

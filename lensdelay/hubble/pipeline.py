@@ -11,7 +11,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from astropy import units as u
 
-from lensdelay.errors import InputError
+from lensdelay.errors import InputError, pair_of_numbers
 from lensdelay.hubble.analysis import delay_curves, h0_posterior, kappa_comparison, pair_delays
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.priors import kappa_prior_of
@@ -66,12 +66,7 @@ def run_hubble(
     check_sampler_settings(walkers, steps, seed)
     kappa_ext = kappa_prior_of(kappa_ext)
     if om0 is not None:
-        try:
-            if isinstance(om0, (str, bytes)) or len(om0) != 2:
-                raise TypeError
-            om0 = tuple(float(v) for v in om0)
-        except (TypeError, ValueError) as err:
-            raise InputError(f"om0 must be two numbers (mean, sigma), got {om0!r}") from err
+        om0 = pair_of_numbers(om0, "om0")
     if om0 is not None and not (0 < om0[0] < 1 and om0[1] >= 0):
         raise InputError(f"om0 must be MEAN in (0, 1) and SIGMA >= 0, got {om0[0]:g} {om0[1]:g}")
     sc = scenario

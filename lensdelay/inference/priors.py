@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import special
 
-from lensdelay.errors import InputError
+from lensdelay.errors import InputError, pair_of_numbers
 
 __all__ = [
     "MAX_PROBABILITY_ABOVE_ONE",
@@ -62,13 +62,7 @@ def kappa_prior_of(value) -> tuple[float, float]:
     InputError
         ``value`` is not two numbers, or :func:`check_kappa_prior` refuses them.
     """
-    try:
-        if isinstance(value, (str, bytes)) or len(value) != 2:
-            raise TypeError
-        mean, sigma = (float(v) for v in value)
-    except (TypeError, ValueError) as err:
-        raise InputError(f"kappa_ext must be two numbers (mean, sigma), got {value!r}") from err
-    return check_kappa_prior(mean, sigma)
+    return check_kappa_prior(*pair_of_numbers(value, "kappa_ext"))
 
 
 def draw_kappa(mean: float, sigma: float, n: int, rng: np.random.Generator) -> np.ndarray:
