@@ -40,6 +40,21 @@ def default_step(n: int) -> float:
 
 #: Halvings of ε :meth:`FisherLangevinMove.tune` tries.
 TUNING_HALVINGS = 6
+#: A metric whose smallest Cholesky pivot is below this fraction of its largest goes
+#: through the eigen-decomposition with floored eigenvalues (pivots bracket the
+#: eigenvalues' range).
+_PIVOT_FLOOR = 1e-10
+
+
+def _compiled_geometry():
+    """The compiled geometry kernel, or None (numba missing, or the kernels switched off)."""
+    from lensdelay.lensing import compiled
+
+    if not compiled.enabled():
+        return None
+    from lensdelay.inference._geometry_kernel import cholesky_geometry
+
+    return cholesky_geometry
 
 
 def _cholesky_rows(matrices: np.ndarray) -> np.ndarray:
@@ -100,6 +115,9 @@ class FisherLangevinMove(Move):
         the others go through the eigen-decomposition with the floor below.
         """
         n = jacobian.shape[-1]
+        kernel = _compiled_geometry()
+        if kernel is not None:
+            return self._compiled_geometry(kernel, residuals, jacobian)
         # batched matrix products (BLAS) rather than einsum: the sampler's hottest lines
         jt = np.swapaxes(jacobian, 1, 2)
         metric = jt @ jacobian
@@ -117,13 +135,35 @@ class FisherLangevinMove(Move):
             by_eigen = (
                 ~finite
                 | ~np.all(np.isfinite(chol), axis=(1, 2))
-                | (np.min(pivots, axis=1) < 1e-10 * np.max(pivots, axis=1))
+                | (np.min(pivots, axis=1) < _PIVOT_FLOOR * np.max(pivots, axis=1))
             )
             good = ~by_eigen
             root = np.swapaxes(np.linalg.inv(chol[good]), 1, 2)  # L⁻ᵀ
             inv_sqrt[good] = root
             drift[good] = (root @ (np.swapaxes(root, 1, 2) @ grad[good][:, :, None]))[..., 0]
             logdet[good] = np.sum(np.log(pivots[good]), axis=1)
+        return self._finish(drift, inv_sqrt, metric, logdet, by_eigen, grad)
+
+    def _compiled_geometry(self, kernel, residuals: np.ndarray, jacobian: np.ndarray):
+        """:meth:`_geometry` by the compiled kernel (rows it flags go the numpy way)."""
+        n = jacobian.shape[-1]
+        prior = self.prior_metric if self.prior_metric is not None else np.zeros((n, n))
+        drift, inv_sqrt, metric, logdet, by_eigen = kernel(
+            np.ascontiguousarray(jacobian, dtype=float),
+            np.ascontiguousarray(residuals, dtype=float),
+            np.ascontiguousarray(prior, dtype=float),
+            _PIVOT_FLOOR,
+        )
+        grad = None
+        if np.any(by_eigen):
+            e = by_eigen
+            grad = np.zeros((len(metric), n))
+            grad[e] = -(np.swapaxes(jacobian[e], 1, 2) @ residuals[e][:, :, None])[:, :, 0]
+        return self._finish(drift, inv_sqrt, metric, logdet, by_eigen, grad)
+
+    def _finish(self, drift, inv_sqrt, metric, logdet, by_eigen, grad):
+        """Rows flagged ``by_eigen`` through the eigen-decomposition; non-finite rows frozen."""
+        n = drift.shape[-1]
         if np.any(by_eigen):
             e = by_eigen
             d, r, g, l_ = self._eigen_geometry(metric[e], grad[e])
@@ -143,8 +183,13 @@ class FisherLangevinMove(Move):
         floored relative to the largest so the proposal stays finite (the
         Metropolis–Hastings ratio keeps it exact); G is rebuilt from the floored ones.
         """
+        # a non-finite metric (an overflowing Jacobian) has no eigen-decomposition: its
+        # rows come out NaN here and are frozen by the caller
+        finite = np.all(np.isfinite(metric), axis=(1, 2))
         with np.errstate(all="ignore"):
-            vals, vecs = np.linalg.eigh(metric)
+            vals = np.full(metric.shape[:2], np.nan)
+            vecs = np.full_like(metric, np.nan)
+            vals[finite], vecs[finite] = np.linalg.eigh(metric[finite])
             vals = np.maximum(vals, 1e-12 * np.maximum(vals[:, -1:], 1e-200))
             vecs_t = np.swapaxes(vecs, 1, 2)
             inv = (vecs / vals[:, None, :]) @ vecs_t
