@@ -19,6 +19,20 @@ from numba import njit
 __all__ = ["cholesky_geometry"]
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def _lower_inverse(chol, inv, n):
+    """L⁻¹ of the lower-triangular ``chol`` into ``inv``, by forward substitution."""
+    for c in range(n):
+        for i in range(n):
+            inv[i, c] = 0.0
+        inv[c, c] = 1.0 / chol[c, c]
+        for i in range(c + 1, n):
+            s = 0.0
+            for k in range(c, i):
+                s -= chol[i, k] * inv[k, c]
+            inv[i, c] = s / chol[i, i]
+
+
 @njit(cache=True, error_model="numpy")
 def cholesky_geometry(jacobian, residuals, prior_metric, pivot_floor):
     """Metric, drift, inverse square root and log det per row; flags rows left to numpy.
@@ -90,16 +104,7 @@ def cholesky_geometry(jacobian, residuals, prior_metric, pivot_floor):
         if not ok or low_pivot < pivot_floor * high_pivot:
             flagged[w] = True
             continue
-        # L⁻¹ by forward substitution (lower triangular)
-        for c in range(n):
-            for i in range(n):
-                inv[i, c] = 0.0
-            inv[c, c] = 1.0 / chol[c, c]
-            for i in range(c + 1, n):
-                s = 0.0
-                for k in range(c, i):
-                    s -= chol[i, k] * inv[k, c]
-                inv[i, c] = s / chol[i, i]
+        _lower_inverse(chol, inv, n)
         total = 0.0
         for i in range(n):
             total += math.log(chol[i, i] * chol[i, i])
