@@ -78,3 +78,68 @@ def test_delay_curves_one_panel_per_pair_and_quantity(n_pairs, axes):
     }
     if n_pairs > 6:
         assert "3 more pairs" in fig._suptitle.get_text()
+
+
+def _three_figures():
+    import matplotlib.pyplot as plt
+
+    figs = {}
+    for k, stem in enumerate(("one", "two", "three")):
+        fig, ax = plt.subplots(figsize=(3, 2))
+        ax.plot([0, 1, 2], [0, k, 2 * k], label=stem)
+        ax.set_xlabel("x")
+        ax.set_ylabel("y")
+        figs[stem] = fig
+    return figs
+
+
+def test_figures_rendered_by_two_processes_are_the_serial_bytes(tmp_path):
+    """A forked child renders every second figure: the files are those one process makes."""
+    from lensdelay.io.storage import save_figures
+
+    figs = _three_figures()
+    written = save_figures(figs, tmp_path)
+    assert sorted(written) == sorted(
+        str(tmp_path / f"{stem}.{ext}") for stem in figs for ext in ("png", "pdf")
+    )
+    for stem, fig in figs.items():
+        for ext in ("png", "pdf"):
+            assert (tmp_path / f"{stem}.{ext}").read_bytes() == figure_bytes(fig, ext)
+    assert not list(tmp_path.glob(".*.part"))
+
+
+def test_a_failing_child_leaves_its_figures_to_the_parent(tmp_path, monkeypatch):
+    """The child dies on its first figure: this process renders that share itself."""
+    import os
+
+    import lensdelay.io.storage as storage
+
+    parent = os.getpid()
+    real = storage.atomic_savefig
+
+    def only_in_the_parent(fig, stem):
+        if os.getpid() != parent:
+            raise OSError("the child cannot write")
+        return real(fig, stem)
+
+    monkeypatch.setattr(storage, "atomic_savefig", only_in_the_parent)
+    figs = _three_figures()
+    storage.save_figures(figs, tmp_path)
+    for stem, fig in figs.items():
+        assert (tmp_path / f"{stem}.png").read_bytes() == figure_bytes(fig, "png")
+
+
+def test_no_child_is_forked_beside_another_thread():
+    """A running thread would be frozen mid-state in a child: then one process renders."""
+    import threading
+
+    from lensdelay.io.storage import _may_fork
+
+    stop = threading.Event()
+    worker = threading.Thread(target=stop.wait)
+    worker.start()
+    try:
+        assert not _may_fork()
+    finally:
+        stop.set()
+        worker.join()

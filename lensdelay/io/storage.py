@@ -16,6 +16,7 @@ __all__ = [
     "atomic_write_json",
     "figure_bytes",
     "atomic_savefig",
+    "save_figures",
     "MANIFEST",
     "PartialOutputError",
     "write_output_set",
@@ -83,6 +84,60 @@ class PartialOutputError(KeyboardInterrupt):
         self.folder, self.replaced, self.total = folder, list(replaced), total
 
 
+def _may_fork() -> bool:
+    """Whether a child process may render figures: POSIX fork, no other thread running.
+
+    A thread of the parent (a progress bar's, a scheduler's) would be frozen mid-state in
+    the child; then the figures are rendered in this process only.
+    """
+    import threading
+
+    return hasattr(os, "fork") and threading.active_count() == 1
+
+
+def save_figures(figures: dict, folder) -> list[str]:
+    """Every figure as PNG and PDF into ``folder`` (each file atomically); returns the paths.
+
+    Rendering, not drawing the figures, is most of a forecast's output time (the finder
+    chart's celestial axes most of all), so with two or more figures a forked child
+    renders every second one while this process renders the rest: on two cores the wall
+    time of the step nearly halves. The child shares nothing but the files it writes; if
+    it fails for any reason, this process renders its figures again, so the files and
+    their bytes never depend on the split.
+    """
+    folder = Path(folder)
+    items = list(figures.items())
+    theirs = items[1::2]
+    child = 0
+    if theirs and _may_fork():
+        child = os.fork()
+        if child == 0:  # the child: its share, then out without the parent's clean-up
+            code = 1
+            try:
+                for stem, fig in theirs:
+                    atomic_savefig(fig, folder / stem)
+                code = 0
+            finally:
+                os._exit(code)
+    written = []
+    try:
+        for stem, fig in items[::2] if child else items:
+            written += atomic_savefig(fig, folder / stem)
+    except BaseException:
+        if child:  # no child left writing behind an error or an interruption
+            os.kill(child, 9)
+            os.waitpid(child, 0)
+        raise
+    if child:
+        _, status = os.waitpid(child, 0)
+        paths = [f"{folder / stem}.{ext}" for stem, _ in theirs for ext in ("png", "pdf")]
+        if os.waitstatus_to_exitcode(status) != 0 or not all(map(os.path.exists, paths)):
+            for stem, fig in theirs:
+                atomic_savefig(fig, folder / stem)
+        written += paths
+    return written
+
+
 def write_output_set(
     out,
     *,
@@ -132,8 +187,7 @@ def write_output_set(
                 atomic_save_npz(staging / name, **arrs)
             for name, data in (binaries or {}).items():
                 atomic_write_bytes(staging / name, data)
-            for stem, fig in (figures or {}).items():
-                atomic_savefig(fig, staging / stem)
+            save_figures(figures or {}, staging)
             atomic_write_json(staging / json_name, doc)
         except OSError as err:
             # a full disk or a vanished folder: the previous outputs are untouched
