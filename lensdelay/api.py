@@ -8,6 +8,7 @@ writes. Files are read here and nowhere below; the layers underneath take object
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 import os
 import warnings
 from dataclasses import replace
@@ -19,7 +20,7 @@ from typing import TYPE_CHECKING
 
 from lensdelay.lensing.delays import fermat_difference_to_days
 from lensdelay.dates import allows_far_dates
-from lensdelay.errors import InputError, LensdelayWarning, is_real
+from lensdelay.errors import InputError, LensdelayWarning, is_real, path_of
 from lensdelay.forecast.budget import delay_budget
 from lensdelay.forecast.pipeline import run_forecast
 from lensdelay.forecast.result import Forecast
@@ -392,7 +393,7 @@ def measure_delays(
     if curves is None:
         raise InputError("curves must be given (a file or LightCurves) when there is no scenario")
     if not isinstance(curves, LightCurves):
-        used = used + [Path(curves)]
+        used = used + [path_of(curves, "light curves")]
         curves = read_light_curves(curves, labels)
     reference = reference or curves.labels[0]
     if delay_prior is not None:
@@ -753,7 +754,7 @@ def forecast_prepared(
 
     inputs = []
     if not hasattr(prepared, "chain"):
-        folder = Path(prepared)
+        folder = path_of(prepared, "prepared")
         prepared = read_prepared(folder)
         # the scenario first: it names the system (lensdelay.io.provenance.system_hash)
         inputs = [folder / "scenario.toml", folder / "lens.json", folder / "chain.npz"]
@@ -841,7 +842,15 @@ def infer_joint_h0(
     population = Population(
         anisotropy, lambda_int, om0, cosmology, dict(cosmology_parameters or {})
     )
-    systems = list_systems(catalogue) if isinstance(catalogue, (str, os.PathLike)) else catalogue
+    if isinstance(catalogue, (str, os.PathLike)):
+        systems = list_systems(catalogue)
+    elif isinstance(catalogue, Sequence):
+        systems = catalogue
+    else:
+        raise InputError(
+            "catalogue must be a path (a string or os.PathLike) or a sequence of (name, path) "
+            f"pairs, got {catalogue!r}"
+        )
     # every lens read and checked before any is fitted: a bad one stops the run at once
     loaded, inputs = [], []
     for name, path in systems:

@@ -101,3 +101,20 @@ def pair_of_numbers(value, name: str, one_allowed: bool = False):
     except (TypeError, ValueError) as err:
         raise InputError(f"{name} must be {rule} (mean, sigma), got {value!r}") from err
     return mean, sigma
+
+
+def path_of(value, name: str = "path"):
+    """``value`` as a :class:`pathlib.Path`: a string or an ``os.PathLike``, nothing else.
+
+    Raises
+    ------
+    InputError
+        ``"<name> must be a path (a string or os.PathLike), got <value>"`` for anything
+        else (a number, None, an open file), instead of Python's TypeError from deep inside.
+    """
+    import os
+    from pathlib import Path
+
+    if isinstance(value, (str, os.PathLike)):
+        return Path(value)
+    raise InputError(f"{name} must be a path (a string or os.PathLike), got {value!r}")

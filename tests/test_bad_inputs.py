@@ -72,3 +72,24 @@ def test_existing_outputs_are_not_touched_on_bad_input(tmp_path, capsys):
     bad = HERE / "transient_bad_date.toml"
     assert main(["forecast", str(bad), "--out", str(out), "--quiet"]) == 2
     assert keep.read_text() == "earlier result"
+
+
+@pytest.mark.parametrize(
+    "call, name",
+    [
+        (lambda api: api.load_scenario(5), "scenario"),
+        (lambda api: api.forecast_scenario(5.0), "scenario"),
+        (lambda api: api.fit_scenario(None), "scenario"),
+        (lambda api: api.forecast_prepared(7), "prepared"),
+        (lambda api: api.measure_delays(curves=3), "light curves"),
+        (lambda api: api.infer_joint_h0(12), "catalogue"),
+    ],
+)
+def test_a_path_of_the_wrong_kind_is_one_input_error(call, name):
+    """A number or None where a file or folder is expected: an InputError naming the
+    argument (was Python's TypeError from pathlib)."""
+    from lensdelay import api
+    from lensdelay.errors import InputError
+
+    with pytest.raises(InputError, match=f"^{name} must be a path"):
+        call(api)

@@ -9,7 +9,7 @@ from __future__ import annotations
 import zlib
 from pathlib import Path
 
-from lensdelay.errors import InputError
+from lensdelay.errors import InputError, path_of
 
 __all__ = ["list_systems", "system_seed"]
 
@@ -18,7 +18,7 @@ def list_systems(catalogue) -> list[tuple[str, Path]]:
     """(name, path) of every scenario file and prepared lens in ``catalogue``, by name."""
     from lensdelay.io.prepared_files import is_prepared
 
-    folder = Path(catalogue)
+    folder = path_of(catalogue, "catalogue")
     if not folder.is_dir():
         raise InputError(
             "must be a folder of scenario files and/or prepared lenses, got "

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from lensdelay.errors import InputError
+from lensdelay.errors import InputError, path_of
 from lensdelay.io.reading import read_table
 from lensdelay.lightcurves.curves import FLUX_ZERO_POINT, LightCurves
 
@@ -128,7 +128,7 @@ def read_light_curves(path, images=None) -> LightCurves:
     """
     from astropy import units as u
 
-    path = Path(path)
+    path = path_of(path, "light curves")
     where = f"light curves {str(path)!r}"
     if not path.is_file():
         raise InputError(f"{where} must be an existing file, got none")
@@ -235,7 +235,7 @@ def read_delays_json(path, scenario) -> tuple[list, np.ndarray]:
     from lensdelay.errors import LensdelayWarning
     from lensdelay.model.scenario import MeasuredDelay
 
-    path = Path(path)
+    path = path_of(path, "delays")
     where = f"delays {str(path)!r}"
     try:
         doc = json.loads(path.read_text())

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from lensdelay.errors import InputError
+from lensdelay.errors import InputError, path_of
 from lensdelay.forecast.prepared import PreparedLens
 from lensdelay.inference.fit import FitResult
 from lensdelay.inference.misfit import ModelError
@@ -162,7 +162,7 @@ def read_prepared(folder) -> PreparedLens:
     """
     import zipfile
 
-    folder = Path(folder)
+    folder = path_of(folder, "prepared lens")
     where = str(folder / "lens.json")
     try:
         meta = json.loads((folder / "lens.json").read_text(encoding="utf-8"))

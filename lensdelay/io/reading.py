@@ -10,7 +10,7 @@ import os
 import tomllib
 from pathlib import Path
 
-from lensdelay.errors import InputError
+from lensdelay.errors import InputError, path_of
 from lensdelay.model.recipe import MassModel, parse_mass_entries
 
 __all__ = [
@@ -27,7 +27,7 @@ __all__ = [
 
 def read_toml(path: str | os.PathLike) -> dict:
     """Parse a TOML file, turning every failure into an :class:`InputError`."""
-    path = Path(path)
+    path = path_of(path)
     where = str(path)
     if not path.exists():
         raise InputError("file does not exist", where)
@@ -109,7 +109,7 @@ def load_scenario(path: str | os.PathLike, model_paths=None):
     """
     from lensdelay.model.scenario import parse_scenario
 
-    path = Path(path)
+    path = path_of(path, "scenario")
     doc = read_toml(path)
     used = [path]
 
