@@ -9,7 +9,8 @@
 * **Newton**: the kernel's image solve of a quad for many walkers, per image and as a
   ratio to one fused evaluation per image (the floor of one Newton step).
 * **Likelihood**: walker-evaluations per second of the quad likelihood (the default
-  recipe on scenarios/vellmar_quad.toml), compiled and numpy, on one core.
+  recipe on scenarios/vellmar_quad.toml), compiled and numpy, on one core; the Langevin
+  move's geometry of 32 walkers, compiled and numpy, beside one likelihood call.
 * **End to end** (``--end-to-end``): the quad forecast with 10⁵ samples, default recipe
   and SIE + shear, compiled and with ``LENSDELAY_COMPILED=0``, each in a fresh process;
   and the alert command from a prepared lens run from the shell, wall time whole.
@@ -130,9 +131,11 @@ def newton():
     )
 
 
-def likelihood():
+def _quad_likelihood(walkers: int):
+    """The default recipe's likelihood of the Vellmar quad and walker rows near its best fit."""
     from dataclasses import replace
 
+    from lensdelay.inference.fit import fit
     from lensdelay.inference.likelihood import ImageLikelihood
     from lensdelay.io.reading import load_scenario
     from lensdelay.model.recipe import default_galaxy_recipe
@@ -143,14 +146,34 @@ def likelihood():
     centre = (sc.lens_light.x, sc.lens_light.y) if sc.lens_light else (0.0, 0.0)
     sc = replace(sc, model=default_galaxy_recipe(xs, ys, centre))
     like = ImageLikelihood(sc, sc.model)
-    from lensdelay.inference.fit import fit
-
     best = fit(like).values
     rng = np.random.default_rng(5)
-    walkers = 64
     scale = 1e-4 * np.maximum(np.abs(best), 1.0)
     rows = best + scale * rng.standard_normal((walkers, len(best)))
-    rows = np.clip(rows, like.lower, like.upper)
+    return like, np.clip(rows, like.lower, like.upper)
+
+
+def langevin_geometry():
+    """The Langevin move's geometry of 32 walkers (metric, its factor, drift): compiled vs numpy."""
+    from lensdelay.inference.moves import FisherLangevinMove
+
+    like, rows = _quad_likelihood(32)
+    _, res, jac = like.evaluate(rows)
+    move = FisherLangevinMove(like)
+    t_fast = best_of(lambda: move._geometry(res, jac), number=20)
+    with compiled.disabled():
+        t_slow = best_of(lambda: move._geometry(res, jac), number=20)
+    t_step = best_of(lambda: like.evaluate(rows), number=5)
+    print(
+        f"Langevin geometry, 32 walkers x {rows.shape[1]} parameters: {1e6 * t_fast:.0f} us "
+        f"compiled, {1e6 * t_slow:.0f} us numpy ({t_slow / t_fast:.1f}x); the likelihood "
+        f"with its Jacobian {1e6 * t_step:.0f} us"
+    )
+
+
+def likelihood():
+    walkers = 64
+    like, rows = _quad_likelihood(walkers)
     t_fast = best_of(lambda: like.log_probability(rows), number=5)
     with compiled.disabled():
         t_slow = best_of(lambda: like.log_probability(rows), repeat=3)
@@ -231,6 +254,7 @@ def main():
     kernels()
     newton()
     likelihood()
+    langevin_geometry()
     if args.end_to_end:
         end_to_end()
         alert_from_shell()
