@@ -8,9 +8,9 @@ writes. Files are read here and nowhere below; the layers underneath take object
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 import os
 import warnings
+from collections.abc import Sequence
 from dataclasses import replace
 from pathlib import Path
 

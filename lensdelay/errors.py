@@ -20,6 +20,7 @@ __all__ = [
     "choices_text",
     "is_real",
     "pair_of_numbers",
+    "path_of",
 ]
 
 

@@ -50,8 +50,8 @@ def cholesky_geometry(jacobian, residuals, prior_metric, pivot_floor):
 
     Returns
     -------
-    drift (P, n), inv_sqrt (P, n, n), metric (P, n, n), logdet (P,), flagged (P,) bool.
-    Flagged rows hold G and g's place only: the caller recomputes them.
+    drift (P, n), inv_sqrt (P, n, n), metric (P, n, n), logdet (P,), grad (P, n) and
+    flagged (P,) bool. Flagged rows hold only G and g: the caller finishes them.
     """
     p, m, n = jacobian.shape
     drift = np.zeros((p, n))
@@ -61,7 +61,7 @@ def cholesky_geometry(jacobian, residuals, prior_metric, pivot_floor):
     flagged = np.zeros(p, dtype=np.bool_)
     chol = np.zeros((n, n))
     inv = np.zeros((n, n))
-    grad = np.zeros(n)
+    grad = np.zeros((p, n))
     tmp = np.zeros(n)
     for w in range(p):
         finite = True
@@ -77,7 +77,7 @@ def cholesky_geometry(jacobian, residuals, prior_metric, pivot_floor):
             g = 0.0
             for k in range(m):
                 g -= jacobian[w, k, i] * residuals[w, k]
-            grad[i] = g
+            grad[w, i] = g
         if not finite:
             flagged[w] = True
             continue
@@ -116,11 +116,11 @@ def cholesky_geometry(jacobian, residuals, prior_metric, pivot_floor):
         for i in range(n):
             s = 0.0
             for k in range(i + 1):
-                s += inv[i, k] * grad[k]
+                s += inv[i, k] * grad[w, k]
             tmp[i] = s
         for i in range(n):
             s = 0.0
             for k in range(i, n):
                 s += inv[k, i] * tmp[k]
             drift[w, i] = s
-    return drift, inv_sqrt, metric, logdet, flagged
+    return drift, inv_sqrt, metric, logdet, grad, flagged

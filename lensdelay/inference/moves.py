@@ -148,17 +148,12 @@ class FisherLangevinMove(Move):
         """:meth:`_geometry` by the compiled kernel (rows it flags go the numpy way)."""
         n = jacobian.shape[-1]
         prior = self.prior_metric if self.prior_metric is not None else np.zeros((n, n))
-        drift, inv_sqrt, metric, logdet, by_eigen = kernel(
+        drift, inv_sqrt, metric, logdet, grad, by_eigen = kernel(
             np.ascontiguousarray(jacobian, dtype=float),
             np.ascontiguousarray(residuals, dtype=float),
             np.ascontiguousarray(prior, dtype=float),
             _PIVOT_FLOOR,
         )
-        grad = None
-        if np.any(by_eigen):
-            e = by_eigen
-            grad = np.zeros((len(metric), n))
-            grad[e] = -(np.swapaxes(jacobian[e], 1, 2) @ residuals[e][:, :, None])[:, :, 0]
         return self._finish(drift, inv_sqrt, metric, logdet, by_eigen, grad)
 
     def _finish(self, drift, inv_sqrt, metric, logdet, by_eigen, grad):

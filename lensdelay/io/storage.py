@@ -105,6 +105,8 @@ def save_figures(figures: dict, folder) -> list[str]:
     it fails for any reason, this process renders its figures again, so the files and
     their bytes never depend on the split.
     """
+    import signal
+
     folder = Path(folder)
     items = list(figures.items())
     theirs = items[1::2]
@@ -125,7 +127,7 @@ def save_figures(figures: dict, folder) -> list[str]:
             written += atomic_savefig(fig, folder / stem)
     except BaseException:
         if child:  # no child left writing behind an error or an interruption
-            os.kill(child, 9)
+            os.kill(child, signal.SIGKILL)
             os.waitpid(child, 0)
         raise
     if child:
