@@ -131,6 +131,39 @@ def test_information_jacobian_matches_finite_differences(case, brute_jacobian):
     np.testing.assert_allclose(jac, num, rtol=1e-4, atol=1e-6 * np.max(np.abs(num)))
 
 
+@pytest.mark.parametrize("case", ["quad", "two-families"])
+def test_forward_jacobian_skips_only_what_leaves_the_lens_alone(case, monkeypatch):
+    """The forward scheme evaluates no lens for a step in a source position (the lens and
+    its deflection do not change): the same Jacobian, bit for bit, as evaluating them all."""
+    from lensdelay.inference import information
+
+    sc = CASES[case]["make"]()
+    like = ImageLikelihood(sc, sc.model)
+    rng = np.random.default_rng(3)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", LensdelayWarning)
+        best = fit(like).values
+    rows = best + 1e-4 * rng.standard_normal((6, like.n_parameters))
+    rows = np.clip(rows, like.lower, like.upper)
+    seen = []
+    original = like.lens_for
+    monkeypatch.setattr(like, "lens_for", lambda r: seen.append(len(r)) or original(r))
+    fast = like.information_jacobian(rows, scheme="forward")
+    n_lens_columns = like.n_model + 1  # the model's parameters and the unshifted rows
+    assert seen[-1] == len(rows) * n_lens_columns
+    monkeypatch.setattr(
+        information,
+        "_lens_blocks",
+        lambda like, cols, high, low, scheme, need: (
+            slice(None),
+            np.concatenate([high, low]).reshape(-1, high.shape[-1]),
+        ),
+    )
+    every = like.information_jacobian(rows, scheme="forward")
+    assert seen[-1] == len(rows) * (like.n_parameters + 1)
+    np.testing.assert_array_equal(fast, every)
+
+
 def test_jeffreys_prior_does_not_depend_on_the_parametrisation(rng):
     """½ log det F in (e₁, e₂, γ₁, γ₂) equals ½ log det F in (q, φ, γ, φγ) plus log |det ∂p/∂u|:
     Jeffreys' prior is invariant (Jeffreys 1946, Proc. R. Soc. A 186, 453)."""

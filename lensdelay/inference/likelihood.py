@@ -45,6 +45,7 @@ from lensdelay.lensing.distances import LensDistances
 from lensdelay.errors import InputError, choices_text
 from lensdelay.lensing import compiled
 from lensdelay.lensing.images import keep_distinct_tracks, newton_polish
+from lensdelay.lensing.lens import Lens
 from lensdelay.lensing.profiles.base import rules_trusted
 from lensdelay.model.recipe import MassModel
 from lensdelay.model.scenario import Scenario
@@ -370,12 +371,16 @@ class ImageLikelihood:
         trusted = self._rules_hold and np.all(
             (model_rows >= self.lower[:n]) & (model_rows <= self.upper[:n])
         )
-        with rules_trusted() if trusted else contextlib.nullcontext():
-            lens = self.model.lens(list(model_rows.T[:, :, None]))
+
+        def build():
+            with rules_trusted() if trusted else contextlib.nullcontext():
+                return self.model.lens(list(model_rows.T[:, :, None]))
+
         packer = self._row_packer()
         if packer is not None and compiled.enabled():
-            compiled.attach_pack(lens, packer(model_rows))
-        return lens
+            # the kernels read the packed table: profiles only if the numpy path asks
+            return Lens.deferred(lambda: build().components, packer(model_rows))
+        return build()
 
     def _row_packer(self):
         """The recipe's row packer for the kernels (:meth:`MassModel.row_packer`), built once."""

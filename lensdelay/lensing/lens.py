@@ -95,6 +95,35 @@ class Lens:
     def __post_init__(self) -> None:
         object.__setattr__(self, "components", tuple(self.components))
 
+    @classmethod
+    def deferred(cls, build, packed) -> "Lens":
+        """A lens whose components ``build()`` makes only when something first asks for them.
+
+        The compiled kernels read ``packed`` (a
+        :class:`~lensdelay.lensing.compiled.RowPacker`'s table of the same lens) and no
+        component, so a sampler's many lenses a step skip building their profiles (about
+        a tenth of a likelihood call) unless the numpy path or a caller needs them.
+        """
+        lens = object.__new__(cls)
+        object.__setattr__(lens, "_build_components", build)
+        compiled.attach_pack(lens, packed)
+        return lens
+
+    def __getattr__(self, name):
+        # reached only where normal lookup fails: a deferred lens's components, built once
+        build = self.__dict__.get("_build_components")
+        if name == "components" and build is not None:
+            components = tuple(build())
+            object.__setattr__(self, "components", components)
+            return components
+        raise AttributeError(f"{type(self).__name__!r} object has no attribute {name!r}")
+
+    def __getstate__(self) -> dict:
+        # a deferred lens pickles as a built one (its builder may be a closure)
+        state = {k: v for k, v in self.__dict__.items() if k != "_build_components"}
+        state["components"] = self.components
+        return state
+
     def _scalar_parameters(self) -> bool:
         """True when every component parameter is a single number (one model)."""
         return all(np.ndim(v) == 0 for c in self.components for v in c.values().values())
