@@ -117,10 +117,10 @@ def test_a_failing_child_leaves_its_figures_to_the_parent(tmp_path, monkeypatch)
     parent = os.getpid()
     real = storage.atomic_savefig
 
-    def only_in_the_parent(fig, stem):
+    def only_in_the_parent(fig, stem, rendered=None):
         if os.getpid() != parent:
             raise OSError("the child cannot write")
-        return real(fig, stem)
+        return real(fig, stem, rendered)
 
     monkeypatch.setattr(storage, "atomic_savefig", only_in_the_parent)
     figs = _three_figures()
@@ -143,3 +143,48 @@ def test_no_child_is_forked_beside_another_thread():
     finally:
         stop.set()
         worker.join()
+
+
+def test_figures_already_rendered_are_written_not_rendered_again(tmp_path, monkeypatch):
+    """A report page's PNGs go into the files as they are: each figure is rendered once
+    per format (the bytes equal a fresh rendering: figure_bytes is deterministic)."""
+    import lensdelay.io.storage as storage
+
+    figs = _three_figures()
+    pngs = {stem: figure_bytes(fig, "png") for stem, fig in figs.items()}
+    calls = []
+    real = storage.figure_bytes
+
+    def counted(fig, ext="png"):
+        calls.append(ext)
+        return real(fig, ext)
+
+    monkeypatch.setattr(storage, "_may_fork", lambda: False)  # count in this process
+    monkeypatch.setattr(storage, "figure_bytes", counted)
+    storage.save_figures(figs, tmp_path, {stem: {"png": b} for stem, b in pngs.items()})
+    assert calls == ["pdf"] * len(figs)
+    for stem, fig in figs.items():
+        assert (tmp_path / f"{stem}.png").read_bytes() == pngs[stem] == real(fig, "png")
+        assert (tmp_path / f"{stem}.pdf").read_bytes() == real(fig, "pdf")
+
+
+def test_figure_builders_are_drawn_by_the_process_that_renders_them(tmp_path):
+    """Given builders, the child draws its own share (this process never builds it), and
+    the files are the bytes of the figures built in one process."""
+    from lensdelay.io.storage import save_figures
+
+    built = []
+
+    def builder(stem):
+        def build():
+            built.append(stem)  # a child's appends stay in the child
+            return _three_figures()[stem]
+
+        return build
+
+    stems = ("one", "two", "three")
+    save_figures({stem: builder(stem) for stem in stems}, tmp_path)
+    assert built == ["one", "three"]  # "two" was the child's
+    for stem, fig in _three_figures().items():
+        for ext in ("png", "pdf"):
+            assert (tmp_path / f"{stem}.{ext}").read_bytes() == figure_bytes(fig, ext)

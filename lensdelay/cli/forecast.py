@@ -91,33 +91,70 @@ def write_forecast(out, res, report: bool = False) -> tuple[dict, list[str]]:
     from lensdelay.io.storage import figure_bytes
     from lensdelay.io.storage import json_ready
     from lensdelay.io.storage import write_output_set
-    from lensdelay.report.figures import budget_figure
-    from lensdelay.report.figures import timeline_figure
-    from lensdelay.report.finder import finder_chart
-    from lensdelay.report.finder import region_text
+    from lensdelay.io.sky_regions import region_text
 
     doc = forecast_json(res)
     texts = {"forecast.ecsv": table_text(forecast_table(res)), "forecast.ics": forecast_ics(res)}
-    figs = {"timeline": timeline_figure(res), "sky": finder_chart(res)}
+    # builders, not figures: each is drawn (matplotlib imported) by the process that
+    # renders it (io.storage.save_figures), the finder chart beside the other two
+    figs = {"timeline": _timeline_figure(res), "sky": _finder_chart(res)}
     if res.budget is not None:
-        figs["budget"] = budget_figure(res.budget)
+        figs["budget"] = _budget_figure(res.budget)
     regions = region_text(res)
     if regions is not None:
         texts["sky.reg"] = regions
+    rendered = {}
     if report:
         from lensdelay.report.html import report_html
 
+        figs = {stem: build() for stem, build in figs.items()}
         pngs = {stem: figure_bytes(fig) for stem, fig in figs.items()}
         texts["report.html"] = report_html(forecast=json_ready(doc), figures=pngs)
+        # the page's PNGs are the files' PNGs: rendered once
+        rendered = {stem: {"png": png} for stem, png in pngs.items()}
     written = write_output_set(
         out,
         json_name="forecast.json",
         doc=doc,
         figures=figs,
         texts=texts,
+        rendered=rendered,
         inputs=res.provenance["inputs"],
     )
     return doc, written
+
+
+def _timeline_figure(res):
+    """A builder of the timeline figure (matplotlib imported when it runs)."""
+
+    def build():
+        from lensdelay.report.figures import timeline_figure
+
+        return timeline_figure(res)
+
+    return build
+
+
+def _finder_chart(res):
+    """A builder of the finder chart."""
+
+    def build():
+        from lensdelay.report.finder import finder_chart
+
+        return finder_chart(res)
+
+    return build
+
+
+def _budget_figure(budget):
+    """A builder of the error-budget figure."""
+
+    def build():
+        from lensdelay.report.figures import budget_figure
+
+        return budget_figure(budget)
+
+    return build
 
 
 def _write(args, out, res) -> int:

@@ -365,7 +365,7 @@ class ImageLikelihood:
         return slice(self.n_model + 2 * k, self.n_model + 2 * k + 2)
 
     def lens_for(self, params: np.ndarray):
-        """Lens for parameter rows of shape (P, n) (profile parameters become (P, 1))."""
+        """Lens for rows (P, n) (profile parameters (P, 1); profiles built only if asked for)."""
         n = self.n_model
         model_rows = params[:, :n]
         trusted = self._rules_hold and np.all(
@@ -378,7 +378,6 @@ class ImageLikelihood:
 
         packer = self._row_packer()
         if packer is not None and compiled.enabled():
-            # the kernels read the packed table: profiles only if the numpy path asks
             return Lens.deferred(lambda: build().components, packer(model_rows))
         return build()
 

@@ -61,12 +61,26 @@ def figure_bytes(fig, ext: str = "png") -> bytes:
     return buf.getvalue()
 
 
-def atomic_savefig(fig, stem) -> list[str]:
-    """Save a matplotlib figure as PNG and PDF, each atomically. Returns the paths."""
+def _built(fig):
+    """A figure, or the one a builder (a function of no arguments) makes."""
+    return fig() if callable(fig) and not hasattr(fig, "savefig") else fig
+
+
+def atomic_savefig(fig, stem, rendered=None) -> list[str]:
+    """Save a matplotlib figure as PNG and PDF, each atomically. Returns the paths.
+
+    ``fig`` may be a builder of the figure (a function of no arguments), called here.
+
+    ``rendered``: bytes already made by :func:`figure_bytes` for some of the formats
+    (``{"png": ...}``, e.g. the PNG a report page embeds), written as they are.
+    """
+    rendered = rendered or {}
+    fig = _built(fig) if any(ext not in rendered for ext in ("png", "pdf")) else fig
     out = []
     for ext in ("png", "pdf"):
         path = f"{stem}.{ext}"
-        atomic_write_bytes(path, figure_bytes(fig, ext))
+        data = rendered.get(ext)
+        atomic_write_bytes(path, figure_bytes(fig, ext) if data is None else data)
         out.append(path)
     return out
 
@@ -95,19 +109,26 @@ def _may_fork() -> bool:
     return hasattr(os, "fork") and threading.active_count() == 1
 
 
-def save_figures(figures: dict, folder) -> list[str]:
+def save_figures(figures: dict, folder, rendered=None) -> list[str]:
     """Every figure as PNG and PDF into ``folder`` (each file atomically); returns the paths.
+
+    ``rendered`` maps a figure's stem to bytes of it already rendered, by format (see
+    :func:`atomic_savefig`): those files are written, not rendered again.
 
     Rendering, not drawing the figures, is most of a forecast's output time (the finder
     chart's celestial axes most of all), so with two or more figures a forked child
     renders every second one while this process renders the rest: on two cores the wall
-    time of the step nearly halves. The child shares nothing but the files it writes; if
-    it fails for any reason, this process renders its figures again, so the files and
-    their bytes never depend on the split.
+    time of the step nearly halves. A figure may be given as its builder (a function of
+    no arguments): the process that renders it then draws it too, so drawing (and the
+    plotting libraries' imports, when the builder imports them) is shared as well. The
+    child shares nothing but the files it writes; if it fails for any reason, this
+    process renders its figures again, so the files and their bytes never depend on the
+    split.
     """
     import signal
 
     folder = Path(folder)
+    rendered = rendered or {}
     items = list(figures.items())
     theirs = items[1::2]
     child = 0
@@ -117,14 +138,14 @@ def save_figures(figures: dict, folder) -> list[str]:
             code = 1
             try:
                 for stem, fig in theirs:
-                    atomic_savefig(fig, folder / stem)
+                    atomic_savefig(fig, folder / stem, rendered.get(stem))
                 code = 0
             finally:
                 os._exit(code)
     written = []
     try:
         for stem, fig in items[::2] if child else items:
-            written += atomic_savefig(fig, folder / stem)
+            written += atomic_savefig(fig, folder / stem, rendered.get(stem))
     except BaseException:
         if child:  # no child left writing behind an error or an interruption
             os.kill(child, signal.SIGKILL)
@@ -135,7 +156,7 @@ def save_figures(figures: dict, folder) -> list[str]:
         paths = [f"{folder / stem}.{ext}" for stem, _ in theirs for ext in ("png", "pdf")]
         if os.waitstatus_to_exitcode(status) != 0 or not all(map(os.path.exists, paths)):
             for stem, fig in theirs:
-                atomic_savefig(fig, folder / stem)
+                atomic_savefig(fig, folder / stem, rendered.get(stem))
         written += paths
     return written
 
@@ -149,6 +170,7 @@ def write_output_set(
     figures=None,
     arrays=None,
     binaries=None,
+    rendered=None,
     inputs=(),
 ) -> list[str]:
     """Write one command's outputs into folder ``out`` as one set.
@@ -158,7 +180,8 @@ def write_output_set(
     this run does not write are removed, and the manifest is updated. Leftovers of an
     interrupted run (staging folders, ``.part`` files) are cleared first. Refuses (before
     writing anything) to overwrite any of ``inputs``. An interruption while moving
-    raises :class:`PartialOutputError` naming what was replaced.
+    raises :class:`PartialOutputError` naming what was replaced. ``rendered``: figure
+    bytes already made (see :func:`save_figures`), written instead of rendered again.
     """
     import shutil
     import tempfile
@@ -189,7 +212,7 @@ def write_output_set(
                 atomic_save_npz(staging / name, **arrs)
             for name, data in (binaries or {}).items():
                 atomic_write_bytes(staging / name, data)
-            save_figures(figures or {}, staging)
+            save_figures(figures or {}, staging, rendered)
             atomic_write_json(staging / json_name, doc)
         except OSError as err:
             # a full disk or a vanished folder: the previous outputs are untouched
