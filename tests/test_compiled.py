@@ -267,7 +267,8 @@ def test_row_packer_equals_packing_the_lens(name, free, rng):
 
 
 def test_likelihood_lenses_carry_the_row_packers_table(rng):
-    """The likelihood's lenses for walker rows hold the table pack() makes (default recipe)."""
+    """The likelihood's lenses for walker rows hold the table pack() makes (default recipe),
+    and build their profiles only when asked (numpy path, pickling)."""
     from dataclasses import replace
 
     from lensdelay.inference.likelihood import ImageLikelihood
@@ -283,11 +284,21 @@ def test_likelihood_lenses_carry_the_row_packers_table(rng):
     hi = np.where(np.isfinite(like.upper), like.upper, 1.0)
     rows = lo + (hi - lo) * rng.uniform(0.2, 0.8, (9, len(lo)))
     lens = like.lens_for(rows)
+    assert "components" not in lens.__dict__  # deferred: the kernels need no profile
+    x, y = rng.uniform(-1.5, 1.5, (2, 9, 5))
+    fast = lens.deflection(x, y)
     carried = lens.__dict__["_compiled_pack"]
-    ref = compiled._pack(lens)
+    ref = compiled._pack(lens)  # builds the profiles on first use
     np.testing.assert_array_equal(carried[0], ref[0])
     np.testing.assert_array_equal(carried[1], ref[1])
     assert carried[2] == ref[2]
+    # a deferred lens pickles as a built one and its numpy path is the reference
+    import pickle
+
+    again = pickle.loads(pickle.dumps(like.lens_for(rows)))
+    with compiled.disabled():
+        slow = again.deflection(x, y)
+    np.testing.assert_allclose(fast, slow, rtol=1e-12, atol=1e-14)
 
 
 @pytest.mark.parametrize("prior_widths", [None, [0.0, 2.0, 0.0, 0.5, 0.0, 1.0]])
