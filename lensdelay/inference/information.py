@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from lensdelay.lensing import compiled
+
 __all__ = ["information_jacobian"]
 
 #: Relative step of the central differences for the Fisher information.
@@ -133,11 +135,17 @@ def _family_derivatives(like, k, fam, pred, lens, steps, need_derived):
     x = np.hstack([pred["x"], pred["track_x"]])  # (P, I)
     y = np.hstack([pred["y"], pred["track_y"]])
     n_copies = len(shifted) // n_rows
-    xs = np.tile(x, (len(lens_rows) // n_rows, 1))
-    ys = np.tile(y, (len(lens_rows) // n_rows, 1))
+    n_blocks = len(lens_rows) // n_rows
     shifted_scale = like.family_scale(k, lens_rows)
     with np.errstate(all="ignore"):
-        ax, ay = lens.deflection(xs, ys, shifted_scale)
+        # the kernel evaluates again only the components a block's step changes
+        fused = compiled.block_deflections(lens, x, y, shifted_scale, n_blocks - 1)
+        if fused is None:
+            ax, ay = lens.deflection(
+                np.tile(x, (n_blocks, 1)), np.tile(y, (n_blocks, 1)), shifted_scale
+            )
+        else:
+            ax, ay = fused
         # A at the observed images' predictions is known from predict; only the
         # tracked images' is computed (none on the sampler's usual path)
         a11, a12, a22 = pred["magnification_matrix"]

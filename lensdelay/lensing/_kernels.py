@@ -21,6 +21,7 @@ __all__ = [
     "ROUND",
     "NEAR_ONE",
     "evaluate_all",
+    "block_deflections",
     "newton_all",
     "series_factors",
     "gather_rows",
@@ -281,6 +282,62 @@ def evaluate_all(codes, table, x, y, scale, n, stride, rows, want_potential):
                 out[4, i] = s * a4
                 out[5, i] = s * a5
                 out[6, i] = s * a6
+    return out
+
+
+@_jit
+def block_deflections(codes, table, x, y, scale, blocks, rows, points):
+    """(2, blocks + 1, rows, points): α_x, α_y of lenses that differ in a few components.
+
+    The lenses are a forward-difference Jacobian's shifted ones, all at the same points.
+    Table row ``b · rows + r`` is block b's lens for row r; block ``blocks`` is the
+    unshifted one. Each point's components are evaluated for the unshifted row once; a
+    shifted block evaluates again only the components whose table entries differ, and
+    sums all of them in the same order as :func:`evaluate_all`, so every value is the
+    one :func:`evaluate_all` gives for that row and point, bit for bit.
+    """
+    n_comp = codes.shape[0]
+    width = table.shape[2]
+    out = np.empty((2, blocks + 1, rows, points))
+    changed = np.zeros((blocks, rows, n_comp), dtype=np.bool_)
+    for b in range(blocks):
+        for r in range(rows):
+            base = blocks * rows + r
+            for c in range(n_comp):
+                for w in range(width):
+                    if not table[c, b * rows + r, w] == table[c, base, w]:
+                        changed[b, r, c] = True
+                        break
+    own_x = np.empty(n_comp)
+    own_y = np.empty(n_comp)
+    for r in range(rows):
+        base = blocks * rows + r
+        for i in range(points):
+            k = r * points + i
+            gx, gy, s = _at(x, k), _at(y, k), _at(scale, k)
+            a0 = a1 = 0.0
+            for c in range(n_comp):
+                v0, v1, _p, _h1, _h2, _h3, _k = _component(codes[c], table, c, base, gx, gy, False)
+                own_x[c] = v0
+                own_y[c] = v1
+                a0 += v0
+                a1 += v1
+            out[0, blocks, r, i] = s * a0
+            out[1, blocks, r, i] = s * a1
+            for b in range(blocks):
+                row = b * rows + r
+                a0 = a1 = 0.0
+                for c in range(n_comp):
+                    if changed[b, r, c]:
+                        v0, v1, _p, _h1, _h2, _h3, _k = _component(
+                            codes[c], table, c, row, gx, gy, False
+                        )
+                    else:
+                        v0, v1 = own_x[c], own_y[c]
+                    a0 += v0
+                    a1 += v1
+                out[0, b, r, i] = s * a0
+                out[1, b, r, i] = s * a1
     return out
 
 

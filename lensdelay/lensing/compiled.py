@@ -456,6 +456,33 @@ def evaluate(lens, x, y, scale=1.0, potential: bool = True):
     return tuple(out[k].reshape(out_shape) for k in range(7))
 
 
+def block_deflections(lens, x, y, scale, blocks: int):
+    """(α_x, α_y), each (blocks + 1, P, I), of a lens of (blocks + 1)·P rows at points (P, I).
+
+    The lens's rows are blocks of P: block b's row r is row r's lens shifted in a few
+    parameters (a forward-difference Jacobian), the last block unshifted; every block
+    is evaluated at the same points ``x``, ``y`` (P, I), with one ``scale`` for all.
+    Components a block leaves unchanged are not evaluated again (values bit for bit
+    those of :func:`evaluate` over the tiled points). None: the numpy path (kernels off,
+    a lens they cannot take, or a scale per row).
+    """
+    if not enabled() or np.ndim(scale) != 0:
+        return None
+    packed = pack(lens)
+    if packed is None:
+        return None
+    codes, table, shape = packed
+    x = np.asarray(x, dtype=float)
+    n_rows, n_points = x.shape
+    if tuple(shape) != ((blocks + 1) * n_rows, 1) or np.shape(y) != x.shape:
+        return None
+    flat = [np.array(a, dtype=float).reshape(-1) for a in (x, y)]  # fresh, writeable
+    out = kernel_module().block_deflections(
+        codes, table, flat[0], flat[1], np.array([float(scale)]), blocks, n_rows, n_points
+    )
+    return out[0], out[1]
+
+
 def newton_solve(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance):
     """Newton's method for β(θ) = β_s in the kernel, or None (numpy path).
 
