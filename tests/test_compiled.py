@@ -266,9 +266,9 @@ def test_row_packer_equals_packing_the_lens(name, free, rng):
     np.testing.assert_array_equal(table, np.broadcast_to(ref_table, table.shape))
 
 
-def test_likelihood_lenses_carry_the_row_packers_table(rng):
-    """The likelihood's lenses for walker rows hold the table pack() makes (default recipe),
-    and build their profiles only when asked (numpy path, pickling)."""
+def _default_recipe_likelihood():
+    """The invented Vellmar quad's likelihood with the default recipe (power law, shear,
+    m = 3, 4 multipoles)."""
     from dataclasses import replace
 
     from lensdelay.inference.likelihood import ImageLikelihood
@@ -279,7 +279,13 @@ def test_likelihood_lenses_carry_the_row_packers_table(rng):
     xs = np.concatenate([[im.x for im in f.images] for f in sc.families])
     ys = np.concatenate([[im.y for im in f.images] for f in sc.families])
     model = default_galaxy_recipe(xs, ys, (0.0, 0.0))
-    like = ImageLikelihood(replace(sc, model=model), model)
+    return ImageLikelihood(replace(sc, model=model), model)
+
+
+def test_likelihood_lenses_carry_the_row_packers_table(rng):
+    """The likelihood's lenses for walker rows hold the table pack() makes (default recipe),
+    and build their profiles only when asked (numpy path, pickling)."""
+    like = _default_recipe_likelihood()
     lo = np.where(np.isfinite(like.lower), like.lower, -1.0)
     hi = np.where(np.isfinite(like.upper), like.upper, 1.0)
     rows = lo + (hi - lo) * rng.uniform(0.2, 0.8, (9, len(lo)))
@@ -340,17 +346,7 @@ def test_block_deflections_equal_the_tiled_evaluation_bit_for_bit(rng):
     forward-difference Jacobian's blocks) give, evaluating only what changed, the very
     values the kernel gives for every block in full (default recipe, one step per
     parameter, the lens's own rows as they are packed)."""
-    from dataclasses import replace
-
-    from lensdelay.inference.likelihood import ImageLikelihood
-    from lensdelay.io.reading import load_scenario
-    from lensdelay.model.recipe import default_galaxy_recipe
-
-    sc, _ = load_scenario("scenarios/vellmar_quad.toml")
-    xs = np.concatenate([[im.x for im in f.images] for f in sc.families])
-    ys = np.concatenate([[im.y for im in f.images] for f in sc.families])
-    model = default_galaxy_recipe(xs, ys, (0.0, 0.0))
-    like = ImageLikelihood(replace(sc, model=model), model)
+    like = _default_recipe_likelihood()
     lo = np.where(np.isfinite(like.lower), like.lower, -1.0)
     hi = np.where(np.isfinite(like.upper), like.upper, 1.0)
     base = lo + (hi - lo) * rng.uniform(0.2, 0.8, (5, len(lo)))
