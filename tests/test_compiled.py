@@ -359,6 +359,12 @@ def test_block_deflections_equal_the_tiled_evaluation_bit_for_bit(rng):
     full_x, full_y = lens.deflection(np.tile(x, (n + 1, 1)), np.tile(y, (n + 1, 1)), 0.9)
     np.testing.assert_array_equal(ax, full_x.reshape(n + 1, 5, 4))
     np.testing.assert_array_equal(ay, full_y.reshape(n + 1, 5, 4))
+    # a scale per lens row (a family of free redshift), blocks that differ in it alone
+    scale = rng.uniform(0.8, 1.2, (5 * (n + 1), 1))
+    ax, ay = compiled.block_deflections(lens, x, y, scale, n)
+    full_x, full_y = lens.deflection(np.tile(x, (n + 1, 1)), np.tile(y, (n + 1, 1)), scale)
+    np.testing.assert_array_equal(ax, full_x.reshape(n + 1, 5, 4))
+    np.testing.assert_array_equal(ay, full_y.reshape(n + 1, 5, 4))
     with compiled.disabled():
         assert compiled.block_deflections(lens, x, y, 0.9, n) is None
-    assert compiled.block_deflections(lens, x, y, np.full((5 * (n + 1), 1), 0.9), n) is None
+    assert compiled.block_deflections(lens, x, y, np.full((5, 1), 0.9), n) is None

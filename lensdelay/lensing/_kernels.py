@@ -291,10 +291,11 @@ def block_deflections(codes, table, x, y, scale, blocks, rows, points):
 
     The lenses are a forward-difference Jacobian's shifted ones, all at the same points.
     Table row ``b · rows + r`` is block b's lens for row r; block ``blocks`` is the
-    unshifted one. Each point's components are evaluated for the unshifted row once; a
-    shifted block evaluates again only the components whose table entries differ, and
-    sums all of them in the same order as :func:`evaluate_all`, so every value is the
-    one :func:`evaluate_all` gives for that row and point, bit for bit.
+    unshifted one. ``scale`` holds one value, or one per table row. Each point's
+    components are evaluated for the unshifted row once; a shifted block evaluates again
+    only the components whose table entries differ, and sums all of them in the same
+    order as :func:`evaluate_all`, so every value is the one :func:`evaluate_all` gives
+    for that row and point, bit for bit.
     """
     n_comp = codes.shape[0]
     width = table.shape[2]
@@ -314,7 +315,7 @@ def block_deflections(codes, table, x, y, scale, blocks, rows, points):
         base = blocks * rows + r
         for i in range(points):
             k = r * points + i
-            gx, gy, s = _at(x, k), _at(y, k), _at(scale, k)
+            gx, gy, s = _at(x, k), _at(y, k), _at(scale, base)
             a0 = a1 = 0.0
             for c in range(n_comp):
                 v0, v1, _p, _h1, _h2, _h3, _k = _component(codes[c], table, c, base, gx, gy, False)
@@ -336,6 +337,7 @@ def block_deflections(codes, table, x, y, scale, blocks, rows, points):
                         v0, v1 = own_x[c], own_y[c]
                     a0 += v0
                     a1 += v1
+                s = _at(scale, row)
                 out[0, b, r, i] = s * a0
                 out[1, b, r, i] = s * a1
     return out

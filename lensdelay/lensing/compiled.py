@@ -461,12 +461,13 @@ def block_deflections(lens, x, y, scale, blocks: int):
 
     The lens's rows are blocks of P: block b's row r is row r's lens shifted in a few
     parameters (a forward-difference Jacobian), the last block unshifted; every block
-    is evaluated at the same points ``x``, ``y`` (P, I), with one ``scale`` for all.
-    Components a block leaves unchanged are not evaluated again (values bit for bit
-    those of :func:`evaluate` over the tiled points). None: the numpy path (kernels off,
-    a lens they cannot take, or a scale per row).
+    is evaluated at the same points ``x``, ``y`` (P, I), with ``scale`` one number or
+    one per lens row ((blocks + 1)·P, 1), as a family of free redshift has. Components
+    a block leaves unchanged are not evaluated again (values bit for bit those of
+    :func:`evaluate` over the tiled points). None: the numpy path (kernels off, or a
+    lens or shapes they cannot take).
     """
-    if not enabled() or np.ndim(scale) != 0:
+    if not enabled():
         return None
     packed = pack(lens)
     if packed is None:
@@ -474,11 +475,13 @@ def block_deflections(lens, x, y, scale, blocks: int):
     codes, table, shape = packed
     x = np.asarray(x, dtype=float)
     n_rows, n_points = x.shape
-    if tuple(shape) != ((blocks + 1) * n_rows, 1) or np.shape(y) != x.shape:
+    n_lens = (blocks + 1) * n_rows
+    scale = np.array(scale, dtype=float).reshape(-1)  # fresh, writeable
+    if tuple(shape) != (n_lens, 1) or np.shape(y) != x.shape or scale.size not in (1, n_lens):
         return None
-    flat = [np.array(a, dtype=float).reshape(-1) for a in (x, y)]  # fresh, writeable
+    flat = [np.array(a, dtype=float).reshape(-1) for a in (x, y)]
     out = kernel_module().block_deflections(
-        codes, table, flat[0], flat[1], np.array([float(scale)]), blocks, n_rows, n_points
+        codes, table, flat[0], flat[1], scale, blocks, n_rows, n_points
     )
     return out[0], out[1]
 
