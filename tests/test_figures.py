@@ -1,5 +1,6 @@
 """Figures as a set (issue 14): sizes, words on the axes, one panel per image pair."""
 
+from pathlib import Path
 from types import SimpleNamespace
 
 import numpy as np
@@ -170,21 +171,28 @@ def test_figures_already_rendered_are_written_not_rendered_again(tmp_path, monke
 
 def test_figure_builders_are_drawn_by_the_process_that_renders_them(tmp_path):
     """Given builders, the child draws its own share (this process never builds it), and
-    the files are the bytes of the figures built in one process."""
-    from lensdelay.io.storage import save_figures
+    the files are the bytes of the figures built in one process. Run in a fresh
+    interpreter: a thread another test left running here would rightly stop the fork."""
+    import subprocess
+    import sys
 
-    built = []
-
-    def builder(stem):
-        def build():
-            built.append(stem)  # a child's appends stay in the child
-            return _three_figures()[stem]
-
-        return build
-
-    stems = ("one", "two", "three")
-    save_figures({stem: builder(stem) for stem in stems}, tmp_path)
-    assert built == ["one", "three"]  # "two" was the child's
+    code = f"""
+import sys
+sys.path.insert(0, {str(Path(__file__).parent)!r})
+from test_figures import _three_figures
+from lensdelay.io.storage import _may_fork, save_figures
+built = []
+def builder(stem):
+    def build():
+        built.append(stem)  # a child's appends stay in the child
+        return _three_figures()[stem]
+    return build
+assert _may_fork()
+save_figures({{s: builder(s) for s in ("one", "two", "three")}}, {str(tmp_path)!r})
+print(",".join(built))
+"""
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.split() == ["one,three"]  # "two" was the child's
     for stem, fig in _three_figures().items():
         for ext in ("png", "pdf"):
             assert (tmp_path / f"{stem}.{ext}").read_bytes() == figure_bytes(fig, ext)
