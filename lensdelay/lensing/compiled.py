@@ -423,11 +423,14 @@ def _layout(shape, x, y, *others):
     return out_shape, flat, max(stride, 1), rows
 
 
+def _packed(lens):
+    """(codes, table, row shape) of ``lens`` when the kernels are on and take it; else None."""
+    return pack(lens) if enabled() else None
+
+
 def _prepared(lens, *arrays):
     """(codes, table, output shape, flat arrays, stride, rows), or None (numpy path)."""
-    if not enabled():
-        return None
-    packed = pack(lens)
+    packed = _packed(lens)
     if packed is None:
         return None
     codes, table, shape = packed
@@ -467,9 +470,7 @@ def block_deflections(lens, x, y, scale, blocks: int):
     :func:`evaluate` over the tiled points). None: the numpy path (kernels off, or a
     lens or shapes they cannot take).
     """
-    if not enabled():
-        return None
-    packed = pack(lens)
+    packed = _packed(lens)
     if packed is None:
         return None
     codes, table, shape = packed
