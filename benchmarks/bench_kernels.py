@@ -176,7 +176,8 @@ def jacobian_blocks():
     from lensdelay.inference.information import _lens_blocks
 
     like, rows = _quad_likelihood(32)
-    x, y = like.predict(rows)[0]["x"], like.predict(rows)[0]["y"]
+    pred = like.predict(rows)[0]
+    x, y = pred["x"], pred["y"]
     n_all = rows.shape[1]
     shift = 1e-6 * np.maximum(1.0, np.abs(rows)).T[:, :, None] * np.eye(n_all)[:, None, :]
     _, lens_rows = _lens_blocks(

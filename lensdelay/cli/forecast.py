@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import importlib
 import sys
 
 from lensdelay.errors import InputError
@@ -97,9 +98,12 @@ def write_forecast(out, res, report: bool = False) -> tuple[dict, list[str]]:
     texts = {"forecast.ecsv": table_text(forecast_table(res)), "forecast.ics": forecast_ics(res)}
     # builders, not figures: each is drawn (matplotlib imported) by the process that
     # renders it (io.storage.save_figures), the finder chart beside the other two
-    figs = {"timeline": _timeline_figure(res), "sky": _finder_chart(res)}
+    figs = {
+        "timeline": _figure_builder("figures", "timeline_figure", res),
+        "sky": _figure_builder("finder", "finder_chart", res),
+    }
     if res.budget is not None:
-        figs["budget"] = _budget_figure(res.budget)
+        figs["budget"] = _figure_builder("figures", "budget_figure", res.budget)
     regions = region_text(res)
     if regions is not None:
         texts["sky.reg"] = regions
@@ -124,35 +128,14 @@ def write_forecast(out, res, report: bool = False) -> tuple[dict, list[str]]:
     return doc, written
 
 
-def _timeline_figure(res):
-    """A builder of the timeline figure (matplotlib imported when it runs)."""
+def _figure_builder(module: str, name: str, argument):
+    """A builder of the figure ``lensdelay.report.<module>.<name>(argument)``.
+
+    matplotlib is imported when it runs, in the process that renders the figure.
+    """
 
     def build():
-        from lensdelay.report.figures import timeline_figure
-
-        return timeline_figure(res)
-
-    return build
-
-
-def _finder_chart(res):
-    """A builder of the finder chart."""
-
-    def build():
-        from lensdelay.report.finder import finder_chart
-
-        return finder_chart(res)
-
-    return build
-
-
-def _budget_figure(budget):
-    """A builder of the error-budget figure."""
-
-    def build():
-        from lensdelay.report.figures import budget_figure
-
-        return budget_figure(budget)
+        return getattr(importlib.import_module(f"lensdelay.report.{module}"), name)(argument)
 
     return build
 
