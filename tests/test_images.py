@@ -338,3 +338,39 @@ def test_no_image_brighter_than_a_tenth_is_missed_on_a_field_of_members(rng):
         ((gx, gy, gmu),) = dense_grid_images(lens, bx, by, scale, extent=26.0, spacing=0.05)
         assert np.sum(gmu > 0.1) >= 3  # a multiply imaged source
         assert missed_images(table, gx, gy, gmu) == []
+
+
+@pytest.mark.parametrize("compiled_on", [True, False])
+def test_mesh_evaluates_each_shared_corner_once_with_the_same_values(compiled_on):
+    """The mesh's lens values at distinct points, put back at every copy, equal a direct
+    evaluation at every point (kernels: bit for bit, each point alone; numpy: to 1e-15,
+    the power law's series length follows the slowest point of a call); one pass for α
+    and the Hessian equals the two calls. Reference: Lens.deflection and Lens.hessian,
+    checked against closed forms above (equality for the same arithmetic: common practice)."""
+    from lensdelay.lensing import compiled
+    from lensdelay.lensing.images import _once_per_point
+
+    lens = Lens(
+        (
+            EllipticalPowerLaw(einstein_radius=1.1, axis_ratio=0.7, position_angle=20, slope=2.1),
+            ExternalShear(strength=0.05, position_angle=10),
+        )
+    )
+    edges = np.linspace(-2.0, 2.0, 41)
+    gx, gy = np.meshgrid(edges, edges)
+    offsets = np.array([[0, 0], [1, 0], [0, 1], [1, 1], [0.5, 0.5]])
+    px = gx.ravel()[:, None] + 0.1 * offsets[:, 0]  # neighbours share corners
+    py = gy.ravel()[:, None] + 0.1 * offsets[:, 1]
+    context = compiled.disabled() if not compiled_on else np.errstate()
+    with context:
+        once = _once_per_point(lens.deflection_and_hessian, px, py)
+        direct = (*lens.deflection(px, py), *lens.hessian(px, py))
+        fused = lens.deflection_and_hessian(px, py)
+    assert len(np.unique(np.stack([px.ravel(), py.ravel()], 1), axis=0)) < px.size
+    for a, b, c in zip(once, direct, fused):
+        assert a.shape == b.shape == px.shape
+        if compiled_on:
+            np.testing.assert_array_equal(a, b)
+        else:
+            np.testing.assert_allclose(a, b, rtol=1e-15, atol=1e-15)
+        np.testing.assert_array_equal(c, b)

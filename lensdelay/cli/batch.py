@@ -272,6 +272,16 @@ def _connect(client_class, scheduler: str):
     return box["client"]
 
 
+def _share_threads(threads_each: int) -> None:
+    """Pool initializer: a worker's kernels use ``threads_each`` threads.
+
+    Unless the user set ``LENSDELAY_THREADS``: the pool then runs no more threads than CPUs.
+    """
+    import os
+
+    os.environ.setdefault("LENSDELAY_THREADS", str(threads_each))
+
+
 def _engine(jobs, workers: int, scheduler: str | None):
     """Yield each job's row as it completes: serial, a process pool or a Dask cluster."""
     if scheduler:
@@ -297,7 +307,15 @@ def _engine(jobs, workers: int, scheduler: str | None):
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor, as_completed
 
-    pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"))
+    from lensdelay.lensing.threads import thread_count
+
+    # the workers share the CPUs: each one's large kernel calls use its share of threads
+    pool = ProcessPoolExecutor(
+        workers,
+        mp_context=multiprocessing.get_context("spawn"),
+        initializer=_share_threads,
+        initargs=(max(1, thread_count() // workers),),
+    )
     futures = [pool.submit(forecast_one, *job) for job in jobs]
     try:
         for future in as_completed(futures):

@@ -63,7 +63,7 @@ from astropy import constants as const
 from astropy import units as u
 
 from lensdelay.errors import InputError
-from lensdelay.lensing import compiled
+from lensdelay.lensing import compiled, threads
 
 __all__ = [
     "CHUNK_SAMPLES",
@@ -198,17 +198,7 @@ class PerturberDraws:
             return psi + 0.0 * x, ax + 0.0 * x, ay + 0.0 * y
         if compiled.enabled() and x.ndim == 2:
             # one pass over perturbers × points, no (T, I) temporaries (same formulas)
-            compiled.kernel_module().softened_points_field(
-                np.ascontiguousarray(self.owner, dtype=np.int64),
-                np.ascontiguousarray(self.x, dtype=float),
-                np.ascontiguousarray(self.y, dtype=float),
-                np.ascontiguousarray(self.theta2, dtype=float),
-                x if x.flags.writeable else x.copy(),
-                y if y.flags.writeable else y.copy(),
-                psi,
-                ax,
-                ay,
-            )
+            self._compiled_field(x, y, psi, ax, ay)
         else:
             dx = x[self.owner] - self.x[:, None]  # (T, I)
             dy = y[self.owner] - self.y[:, None]
@@ -223,6 +213,34 @@ class PerturberDraws:
                     out[:, i] = np.bincount(self.owner, weights=part[:, i], minlength=n)
         nan = ~np.isfinite(x) | ~np.isfinite(y)
         return np.where(nan, np.nan, psi), np.where(nan, np.nan, ax), np.where(nan, np.nan, ay)
+
+    def _compiled_field(self, x, y, psi, ax, ay) -> None:
+        """:meth:`field`'s sums by the kernel, in place; ranges of whole samples on threads.
+
+        Each sample's perturbers are added in their own order whatever the split, so
+        the sums are those of one call bit for bit (a range never splits a sample).
+        """
+        owner = np.ascontiguousarray(self.owner, dtype=np.int64)
+        args = (
+            owner,
+            np.ascontiguousarray(self.x, dtype=float),
+            np.ascontiguousarray(self.y, dtype=float),
+            np.ascontiguousarray(self.theta2, dtype=float),
+            x if x.flags.writeable else x.copy(),
+            y if y.flags.writeable else y.copy(),
+            psi,
+            ax,
+            ay,
+        )
+        kernel = compiled.kernel_module().softened_points_field
+        parts = threads.parts_for(owner.size * x.shape[1], owner.size)
+        if parts > 1 and np.all(owner[1:] >= owner[:-1]):
+            # cut where a new sample starts, so no two threads add into one row
+            cuts = threads.even_bounds(owner.size, parts)
+            bounds = [int(np.searchsorted(owner, owner[c])) if c < owner.size else c for c in cuts]
+        else:
+            bounds = [0, owner.size]
+        threads.run_ranges(lambda lo, hi: kernel(*args, lo, hi), bounds)
 
 
 def draw_perturbers(

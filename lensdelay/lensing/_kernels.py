@@ -36,6 +36,9 @@ ROUND = 1e-4
 NEAR_ONE = 1e-4
 
 _jit = njit(cache=True, error_model="numpy")
+#: The kernels that run on large batches release the GIL: :mod:`lensdelay.lensing.threads`
+#: runs their index ranges on several threads at once.
+_free = njit(cache=True, error_model="numpy", nogil=True)
 _inline = njit(cache=True, error_model="numpy", inline="always")
 
 
@@ -262,32 +265,38 @@ def _at(a, i):
     return a[i] if a.shape[0] > 1 else a[0]
 
 
-@_jit
-def evaluate_all(codes, table, x, y, scale, n, stride, rows, want_potential):
-    """(7, N): α_x, α_y, ψ, ψ_xx, ψ_xy, ψ_yy, κ at the N points, each times its scale."""
-    out = np.empty((7, n))
-    # flat index i = (outer · rows + row) · stride + j: loops, not a division per point
-    for outer in range(n // (rows * stride)):
-        for row in range(rows):
-            start = (outer * rows + row) * stride
-            for i in range(start, start + stride):
-                a0, a1, a2, a3, a4, a5, a6 = _sum_at(
-                    codes, table, row, _at(x, i), _at(y, i), want_potential
-                )
-                s = _at(scale, i)
-                out[0, i] = s * a0
-                out[1, i] = s * a1
-                out[2, i] = s * a2
-                out[3, i] = s * a3
-                out[4, i] = s * a4
-                out[5, i] = s * a5
-                out[6, i] = s * a6
-    return out
+@_free
+def evaluate_all(codes, table, x, y, scale, stride, rows, want_potential, lo, hi, out):
+    """Fill out[:, lo:hi] (7, N): α_x, α_y, ψ, ψ_xx, ψ_xy, ψ_yy, κ, each times its scale.
+
+    Flat point i belongs to table row (i // stride) % rows; the row is counted along
+    the range, not divided out per point.
+    """
+    row = (lo // stride) % rows
+    j = lo % stride
+    for i in range(lo, hi):
+        a0, a1, a2, a3, a4, a5, a6 = _sum_at(
+            codes, table, row, _at(x, i), _at(y, i), want_potential
+        )
+        s = _at(scale, i)
+        out[0, i] = s * a0
+        out[1, i] = s * a1
+        out[2, i] = s * a2
+        out[3, i] = s * a3
+        out[4, i] = s * a4
+        out[5, i] = s * a5
+        out[6, i] = s * a6
+        j += 1
+        if j == stride:
+            j = 0
+            row += 1
+            if row == rows:
+                row = 0
 
 
-@_jit
-def block_deflections(codes, table, x, y, scale, blocks, rows, points):
-    """(2, blocks + 1, rows, points): α_x, α_y of lenses that differ in a few components.
+@_free
+def block_deflections(codes, table, x, y, scale, blocks, rows, points, r_lo, r_hi, out):
+    """Fill out[:, :, r_lo:r_hi] (2, blocks + 1, rows, points): α of lenses a few components apart.
 
     The lenses are a forward-difference Jacobian's shifted ones, all at the same points.
     Table row ``b · rows + r`` is block b's lens for row r; block ``blocks`` is the
@@ -299,10 +308,9 @@ def block_deflections(codes, table, x, y, scale, blocks, rows, points):
     """
     n_comp = codes.shape[0]
     width = table.shape[2]
-    out = np.empty((2, blocks + 1, rows, points))
     changed = np.zeros((blocks, rows, n_comp), dtype=np.bool_)
     for b in range(blocks):
-        for r in range(rows):
+        for r in range(r_lo, r_hi):
             base = blocks * rows + r
             for c in range(n_comp):
                 for w in range(width):
@@ -311,7 +319,7 @@ def block_deflections(codes, table, x, y, scale, blocks, rows, points):
                         break
     own_x = np.empty(n_comp)
     own_y = np.empty(n_comp)
-    for r in range(rows):
+    for r in range(r_lo, r_hi):
         base = blocks * rows + r
         for i in range(points):
             k = r * points + i
@@ -340,18 +348,17 @@ def block_deflections(codes, table, x, y, scale, blocks, rows, points):
                 s = _at(scale, row)
                 out[0, b, r, i] = s * a0
                 out[1, b, r, i] = s * a1
-    return out
 
 
-@_jit
+@_free
 def newton_all(
-    codes, table, x0, y0, bx, by, scale, max_step, n, stride, rows, iterations, tolerance
+    codes, table, x0, y0, bx, by, scale, max_step, stride, rows, iterations, tolerance, lo, hi, out
 ):
-    """Newton's method for θ − s α(θ) = β at every point (images.newton_polish's steps)."""
-    xs = np.empty(n)
-    ys = np.empty(n)
-    err = np.empty(n)
-    for i in range(n):
+    """Newton's method for θ − s α(θ) = β at points lo … hi − 1 (images.newton_polish's steps).
+
+    Fills out[0], out[1] (the roots) and out[2] (the lens equation's residual there).
+    """
+    for i in range(lo, hi):
         row = (i // stride) % rows  # a Newton solve costs far more than this division
         x, y, s = _at(x0, i), _at(y0, i), _at(scale, i)
         beta_x, beta_y, limit = _at(bx, i), _at(by, i), _at(max_step, i)
@@ -379,10 +386,9 @@ def newton_all(
                 y += dy
         ax, ay, _p, _h11, _h12, _h22, _k = _sum_at(codes, table, row, x, y, False)
         e = math.hypot(beta_x - (x - s * ax), beta_y - (y - s * ay))
-        xs[i] = x
-        ys[i] = y
-        err[i] = e if math.isfinite(e) else math.inf
-    return xs, ys, err
+        out[0, i] = x
+        out[1, i] = y
+        out[2, i] = e if math.isfinite(e) else math.inf
 
 
 @_jit
@@ -490,16 +496,16 @@ def fill_table(codes, raw, sin_phi, cos_phi, table):
                 e[2] = v[2]
 
 
-@_jit
-def softened_points_field(owner, px, py, theta2, x, y, psi, ax, ay):
-    """Add each softened point mass's ψ and α at its own row's points (in place).
+@_free
+def softened_points_field(owner, px, py, theta2, x, y, psi, ax, ay, t_lo, t_hi):
+    """Add softened point masses t_lo … t_hi − 1's ψ and α at their own rows' points (in place).
 
     Row ``owner[t]`` of ``x``, ``y`` (rows × points) gets ψ = ½ θ² ln(r² + θ²) and
     α = θ² Δ/(r² + θ²) of point t (the perturbers of
     :mod:`lensdelay.forecast.perturbers`; the numpy version there is the reference).
     """
     n_points = x.shape[1]
-    for t in range(owner.size):
+    for t in range(t_lo, t_hi):
         row = owner[t]
         t2 = theta2[t]
         for i in range(n_points):

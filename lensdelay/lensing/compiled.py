@@ -33,6 +33,8 @@ import os
 
 import numpy as np
 
+from lensdelay.lensing import threads
+
 __all__ = [
     "CODES",
     "SIMD_FRIENDLY",
@@ -453,8 +455,11 @@ def evaluate(lens, x, y, scale=1.0, potential: bool = True):
         # arctanh and square roots (SIMD) beat the kernel's scalar calls per point
         return None
     size = math.prod(out_shape)
-    out = kernel_module().evaluate_all(
-        codes, table, fx, fy, fs, size, stride, rows, bool(potential)
+    out = np.empty((7, size))
+    kernel, want = kernel_module().evaluate_all, bool(potential)
+    threads.run_ranges(
+        lambda lo, hi: kernel(codes, table, fx, fy, fs, stride, rows, want, lo, hi, out),
+        threads.even_bounds(size, threads.parts_for(size * len(codes), size)),
     )
     return tuple(out[k].reshape(out_shape) for k in range(7))
 
@@ -480,10 +485,17 @@ def block_deflections(lens, x, y, scale, blocks: int):
     scale = np.array(scale, dtype=float).reshape(-1)  # fresh, writeable
     if tuple(shape) != (n_lens, 1) or np.shape(y) != x.shape or scale.size not in (1, n_lens):
         return None
-    flat = [np.array(a, dtype=float).reshape(-1) for a in (x, y)]
-    out = kernel_module().block_deflections(
-        codes, table, flat[0], flat[1], scale, blocks, n_rows, n_points
-    )
+    fx, fy = (np.array(a, dtype=float).reshape(-1) for a in (x, y))
+    out = np.empty((2, blocks + 1, n_rows, n_points))
+    kernel = kernel_module().block_deflections
+
+    def rows_of(lo, hi):
+        kernel(codes, table, fx, fy, scale, blocks, n_rows, n_points, lo, hi, out)
+
+    # each point's components once, then the changed ones per block: about one lens
+    # evaluation plus a little per block
+    work = n_rows * n_points * len(codes) * 2
+    threads.run_ranges(rows_of, threads.even_bounds(n_rows, threads.parts_for(work, n_rows)))
     return out[0], out[1]
 
 
@@ -498,19 +510,17 @@ def newton_solve(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolera
     if laid is None:
         return None
     codes, table, out_shape, (fx, fy, fbx, fby, fs, fstep), stride, rows = laid
-    nx, ny, err = kernel_module().newton_all(
-        codes,
-        table,
-        fx,
-        fy,
-        fbx,
-        fby,
-        fs,
-        fstep,
-        math.prod(out_shape),
-        stride,
-        rows,
-        int(iterations),
-        float(tolerance),
-    )
-    return nx.reshape(out_shape), ny.reshape(out_shape), err.reshape(out_shape)
+    size = math.prod(out_shape)
+    out = np.empty((3, size))
+    kernel, iterations, tolerance = kernel_module().newton_all, int(iterations), float(tolerance)
+
+    def points(lo, hi):
+        kernel(
+            codes, table, fx, fy, fbx, fby, fs, fstep, stride, rows, iterations, tolerance,
+            lo, hi, out,
+        )  # fmt: skip
+
+    # a few steps per image, each a lens evaluation with its Hessian
+    work = size * len(codes) * 4
+    threads.run_ranges(points, threads.even_bounds(size, threads.parts_for(work, size)))
+    return tuple(out[k].reshape(out_shape) for k in range(3))

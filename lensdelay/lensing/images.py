@@ -164,6 +164,20 @@ def newton_polish(
     return x, y, np.where(np.isfinite(err), err, np.inf)
 
 
+def _once_per_point(method, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, ...]:
+    """``method(x, y)``'s outputs, evaluated once at each distinct point.
+
+    Neighbouring cells of the mesh share corners (most leaves' four corners are also
+    their neighbours'): the lens is evaluated at each distinct (x, y) once and the values
+    are put back at every copy. Distinct means not equal bit for bit, so each copy gets
+    the value its own evaluation would have given.
+    """
+    points = np.stack([np.ravel(x), np.ravel(y)], axis=1)
+    unique, inverse = np.unique(points, axis=0, return_inverse=True)
+    out = method(unique[:, 0], unique[:, 1])
+    return tuple(np.asarray(o)[inverse.reshape(-1)].reshape(np.shape(x)) for o in out)
+
+
 class ImageFinder:
     """Finds all images of point sources behind one lens, at one or more deflection scales.
 
@@ -294,8 +308,9 @@ class ImageFinder:
                     px = x0[:, None] + size * offsets[:, 0]
                     py = y0[:, None] + size * offsets[:, 1]
                     with np.errstate(all="ignore"):
-                        ax, ay = self.lens.deflection(px, py)
-                        hxx, hxy, hyy = self.lens.hessian(px, py)
+                        ax, ay, hxx, hxy, hyy = _once_per_point(
+                            self.lens.deflection_and_hessian, px, py
+                        )
                     for s in self.scales:
                         split |= self._split_for_scale(px, py, ax, ay, hxx, hxy, hyy, s)
                 if level < centre_levels and len(soft_centres):
@@ -319,7 +334,7 @@ class ImageFinder:
         corners_x = np.stack([x0, x0 + h, x0 + h, x0], axis=1)  # 00, 10, 11, 01
         corners_y = np.stack([y0, y0, y0 + h, y0 + h], axis=1)
         with np.errstate(all="ignore"):
-            ax, ay = self.lens.deflection(corners_x, corners_y)
+            ax, ay = _once_per_point(self.lens.deflection, corners_x, corners_y)
         tri = np.array([[0, 1, 2], [0, 2, 3]])
         self.tri_x = corners_x[:, tri].reshape(-1, 3)
         self.tri_y = corners_y[:, tri].reshape(-1, 3)

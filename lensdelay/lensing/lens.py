@@ -34,6 +34,7 @@ _FUSED = {
     "potential": (2,),
     "hessian": (3, 4, 5),
     "potential_and_hessian": (2, 3, 4, 5),
+    "deflection_and_hessian": (0, 1, 3, 4, 5),
 }
 
 
@@ -176,6 +177,11 @@ class Lens:
     def potential_and_hessian(self, x, y, scale=1.0):
         """(ψ, ψ_xx, ψ_xy, ψ_yy) in one pass (Fermat potential and magnification together)."""
         return (self.potential(x, y, scale), *self.hessian(x, y, scale))
+
+    @_blockwise
+    def deflection_and_hessian(self, x, y, scale=1.0):
+        """(α_x, α_y, ψ_xx, ψ_xy, ψ_yy): one pass of the kernels where two calls make two."""
+        return (*self.deflection(x, y, scale), *self.hessian(x, y, scale))
 
     # -- derived quantities -------------------------------------------------------
     def source_position(self, x, y, scale=1.0):
