@@ -374,3 +374,34 @@ def test_mesh_evaluates_each_shared_corner_once_with_the_same_values(compiled_on
         else:
             np.testing.assert_allclose(a, b, rtol=1e-15, atol=1e-15)
         np.testing.assert_array_equal(c, b)
+
+
+@pytest.mark.parametrize("compiled_on", [True, False])
+def test_newton_gives_potential_and_hessian_at_its_roots(compiled_on):
+    """With ``at_roots`` the solver also returns ψ and the Hessian at the roots: those
+    Lens.potential_and_hessian gives there, bit for bit (the kernel's last evaluation is
+    that evaluation; reference: Lens.potential_and_hessian, checked against closed forms
+    in test_compiled.py; equality for the same arithmetic: common practice)."""
+    from lensdelay.lensing import compiled
+
+    lens = Lens(
+        (
+            EllipticalPowerLaw(einstein_radius=1.1, axis_ratio=0.7, position_angle=20, slope=2.1),
+            ExternalShear(strength=0.05, position_angle=10),
+        )
+    )
+    rng = np.random.default_rng(4)
+    x0, y0 = rng.uniform(-1.5, 1.5, (2, 6, 4))
+    bx, by = rng.uniform(-0.1, 0.1, (2, 6, 1))
+    scale = rng.uniform(0.8, 1.1, (6, 1))
+    context = compiled.disabled() if not compiled_on else np.errstate()
+    with context:
+        x, y, err, *at = newton_polish(lens, x0, y0, bx, by, scale, iterations=15, at_roots=True)
+        plain = newton_polish(lens, x0, y0, bx, by, scale, iterations=15)
+        with np.errstate(all="ignore"):
+            direct = lens.potential_and_hessian(x, y, scale)
+    for a, b in zip((x, y, err), plain):
+        np.testing.assert_array_equal(a, b)
+    assert len(at) == 4
+    for a, b in zip(at, direct):
+        np.testing.assert_array_equal(a, b)

@@ -403,7 +403,8 @@ class ImageLikelihood:
             bx = params[:, self.source_slice(k)][:, :1]
             by = params[:, self.source_slice(k)][:, 1:]
             scale = self.family_scale(k, params)
-            x, y, err = newton_polish(
+            # ψ and the Hessian at the images (for τ and μ) from the solver's last evaluation
+            x, y, err, psi, hxx, hxy, hyy = newton_polish(
                 lens,
                 fam.x[None, :],
                 fam.y[None, :],
@@ -413,6 +414,7 @@ class ImageLikelihood:
                 iterations=15,
                 max_step=np.maximum(0.5 * fam.sigma, 0.05),
                 tolerance=1e-11,
+                at_roots=True,
             )
             ok = err < 1e-8
             # close but not converged within the budget: not a missing image
@@ -425,8 +427,6 @@ class ImageLikelihood:
                     ok[:, j] &= ~same
                     near[:, j] &= ~same
             with np.errstate(all="ignore"):
-                # τ = |θ − β|²/2 − ψ and μ = 1/det A from one pass over the lens
-                psi, hxx, hxy, hyy = lens.potential_and_hessian(x, y, scale)
                 tau = 0.5 * ((x - bx) ** 2 + (y - by) ** 2) - psi
                 a11, a12, a22 = 1.0 - hxx, -hxy, 1.0 - hyy
                 mu = 1.0 / (a11 * a22 - a12 * a12)

@@ -356,8 +356,12 @@ def newton_all(
 ):
     """Newton's method for θ − s α(θ) = β at points lo … hi − 1 (images.newton_polish's steps).
 
-    Fills out[0], out[1] (the roots) and out[2] (the lens equation's residual there).
+    Fills out[0], out[1] (the roots) and out[2] (the lens equation's residual there);
+    when ``out`` has seven rows also s ψ, s ψ_xx, s ψ_xy, s ψ_yy at the roots (rows 3–6),
+    from the evaluation that gives the residual (the values :func:`evaluate_all` gives
+    there: the components' α and Hessian do not depend on whether ψ is asked for).
     """
+    extras = out.shape[0] > 3
     for i in range(lo, hi):
         row = (i // stride) % rows  # a Newton solve costs far more than this division
         x, y, s = _at(x0, i), _at(y0, i), _at(scale, i)
@@ -384,11 +388,16 @@ def newton_all(
                 x += dx
             if math.isfinite(dy):
                 y += dy
-        ax, ay, _p, _h11, _h12, _h22, _k = _sum_at(codes, table, row, x, y, False)
+        ax, ay, p, h11, h12, h22, _k = _sum_at(codes, table, row, x, y, extras)
         e = math.hypot(beta_x - (x - s * ax), beta_y - (y - s * ay))
         out[0, i] = x
         out[1, i] = y
         out[2, i] = e if math.isfinite(e) else math.inf
+        if extras:
+            out[3, i] = s * p
+            out[4, i] = s * h11
+            out[5, i] = s * h12
+            out[6, i] = s * h22
 
 
 @_jit

@@ -499,11 +499,15 @@ def block_deflections(lens, x, y, scale, blocks: int):
     return out[0], out[1]
 
 
-def newton_solve(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance):
+def newton_solve(
+    lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance, at_roots: bool = False
+):
     """Newton's method for β(θ) = β_s in the kernel, or None (numpy path).
 
     Same steps, limits and stopping rule as :func:`lensdelay.lensing.images.newton_polish`;
-    every point is solved to convergence or the iteration budget inside one call.
+    every point is solved to convergence or the iteration budget inside one call. Returns
+    (x, y, error), and with ``at_roots`` also ψ, ψ_xx, ψ_xy, ψ_yy there (times the scale),
+    as :func:`evaluate` gives them.
     """
     step = np.inf if max_step is None else max_step
     laid = _prepared(lens, x, y, beta_x, beta_y, scale, step)
@@ -511,7 +515,7 @@ def newton_solve(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolera
         return None
     codes, table, out_shape, (fx, fy, fbx, fby, fs, fstep), stride, rows = laid
     size = math.prod(out_shape)
-    out = np.empty((3, size))
+    out = np.empty((7 if at_roots else 3, size))
     kernel, iterations, tolerance = kernel_module().newton_all, int(iterations), float(tolerance)
 
     def points(lo, hi):
@@ -523,4 +527,4 @@ def newton_solve(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolera
     # a few steps per image, each a lens evaluation with its Hessian
     work = size * len(codes) * 4
     threads.run_ranges(points, threads.even_bounds(size, threads.parts_for(work, size)))
-    return tuple(out[k].reshape(out_shape) for k in range(3))
+    return tuple(row.reshape(out_shape) for row in out)

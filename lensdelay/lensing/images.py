@@ -117,6 +117,7 @@ def newton_polish(
     iterations: int = 40,
     max_step=None,
     tolerance: float = 1e-13,
+    at_roots: bool = False,
 ):
     """Solve β(θ) = β_s by Newton's method from starting points (x, y).
 
@@ -130,12 +131,24 @@ def newton_polish(
     -------
     x, y, error : ndarray
         Final positions and the length of β(θ) − β_s.
+    psi, psi_xx, psi_xy, psi_yy : ndarray
+        With ``at_roots``: ``lens.potential_and_hessian`` at the final positions (the
+        kernel gives them from its last evaluation, which it makes anyway).
     """
     solved = compiled.newton_solve(
-        lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance
+        lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance, at_roots
     )
     if solved is not None:  # the same steps in the compiled kernel, all points in one call
         return solved
+    x, y, err = _newton_numpy(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance)
+    if not at_roots:
+        return x, y, err
+    with np.errstate(all="ignore"):
+        return (x, y, err, *lens.potential_and_hessian(x, y, scale))
+
+
+def _newton_numpy(lens, x, y, beta_x, beta_y, scale, iterations, max_step, tolerance):
+    """:func:`newton_polish`'s steps on the numpy path: (x, y, error)."""
     x = np.array(x, dtype=float)
     y = np.array(y, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):

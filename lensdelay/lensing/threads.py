@@ -25,7 +25,7 @@ __all__ = ["MIN_WORK", "thread_count", "parts_for", "even_bounds", "run_ranges"]
 
 #: Work (points times lens components, or an estimate in those units) a thread should
 #: get at least: a few milliseconds of kernel time, well above a thread's start.
-MIN_WORK = 20_000
+MIN_WORK = 10_000
 
 
 def thread_count() -> int:
