@@ -405,3 +405,65 @@ def test_newton_gives_potential_and_hessian_at_its_roots(compiled_on):
     assert len(at) == 4
     for a, b in zip(at, direct):
         np.testing.assert_array_equal(a, b)
+
+
+def _lines_one_by_one(lens, scale, extent, resolution, polish_steps=3):
+    """The critical lines as computed before sharing the grid: det A from the lens at this
+    scale, each line polished on its own (the reference of the test below)."""
+    import contourpy
+
+    g = np.linspace(-extent, extent, resolution)
+    gx, gy = np.meshgrid(g, g)
+    with np.errstate(all="ignore"):
+        det = lens.jacobian_determinant(gx, gy, scale)
+    det = np.where(np.isfinite(det), det, np.nan)
+    gen = contourpy.contour_generator(gx, gy, det, line_type=contourpy.LineType.Separate)
+    out = []
+    for line in gen.lines(0.0):
+        x, y = line[:, 0].copy(), line[:, 1].copy()
+        if len(x) < 3:
+            continue
+        with np.errstate(all="ignore"):
+            for _ in range(polish_steps):
+                d0 = lens.jacobian_determinant(x, y, scale)
+                jd = lens.jacobian_determinant
+                ddx = (jd(x + 1e-6, y, scale) - jd(x - 1e-6, y, scale)) / (2 * 1e-6)
+                ddy = (jd(x, y + 1e-6, scale) - jd(x, y - 1e-6, scale)) / (2 * 1e-6)
+                g2 = ddx * ddx + ddy * ddy
+                sx, sy = -d0 * ddx / g2, -d0 * ddy / g2
+                fine = np.isfinite(sx) & (np.hypot(sx, sy) < 2 * extent / resolution)
+                x, y = np.where(fine, x + sx, x), np.where(fine, y + sy, y)
+        out.append((x, y, *lens.source_position(x, y, scale)))
+    return out
+
+
+@pytest.mark.parametrize(
+    "lens",
+    [
+        Lens((IsothermalEllipsoid(einstein_radius=1.0, axis_ratio=0.6, position_angle=30),)),
+        Lens(
+            (
+                EllipticalPowerLaw(
+                    einstein_radius=1.0, axis_ratio=0.7, position_angle=10, slope=2.2
+                ),
+                PointMass(einstein_radius=0.2, x=1.1, y=0.3),
+                ExternalShear(strength=0.06, position_angle=70),
+            )
+        ),
+    ],
+)
+def test_critical_lines_at_several_scales_share_one_grid(lens):
+    """Families at several redshifts: the grid's Hessian once, scaled per family, and all
+    vertices polished together give each scale's lines as computed one scale and one line
+    at a time (det A from Lens.jacobian_determinant: bit for bit, the same products;
+    common practice)."""
+    from lensdelay.lensing.critical import critical_lines_at_scales
+
+    scales = [0.7, 1.0, 1.3]
+    shared = critical_lines_at_scales(lens, scales, extent=2.5, resolution=120)
+    for scale, lines in zip(scales, shared):
+        reference = _lines_one_by_one(lens, scale, 2.5, 120)
+        assert len(lines) == len(reference) > 0
+        for line, ref in zip(lines, reference):
+            for a, b in zip((line.x, line.y, line.caustic_x, line.caustic_y), ref):
+                np.testing.assert_array_equal(a, b)

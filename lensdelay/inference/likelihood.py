@@ -595,15 +595,14 @@ class ImageLikelihood:
         source positions ``beta`` (P, 2) carried to the image plane by the inverse
         magnification matrix: the image-plane misfit to first order.
         """
+        x, y = fam.x[None, :], fam.y[None, :]
         with np.errstate(all="ignore"):
-            sbx, sby = lens.source_position(fam.x[None, :], fam.y[None, :], scale)
-            a11, a12, a22 = lens.jacobian(fam.x[None, :], fam.y[None, :], scale)
+            # β = θ − α and A = I − ∂α/∂θ (Lens.source_position, .jacobian) in one pass
+            ax, ay, hxx, hxy, hyy = lens.deflection_and_hessian(x, y, scale)
+            rx, ry = x - ax - beta[:, :1], y - ay - beta[:, 1:]
+            a11, a12, a22 = 1.0 - hxx, -hxy, 1.0 - hyy
             det = a11 * a22 - a12 * a12
-            rx, ry = sbx - beta[:, :1], sby - beta[:, 1:]
-            return (
-                (a22 * rx - a12 * ry) / det / fam.sigma,
-                (a11 * ry - a12 * rx) / det / fam.sigma,
-            )
+            return (a22 * rx - a12 * ry) / det / fam.sigma, (a11 * ry - a12 * rx) / det / fam.sigma
 
     def prior_residuals(self, params: np.ndarray) -> list[np.ndarray]:
         """Columns (P, 1) of the Gaussian priors and the lens-light centre, in order."""

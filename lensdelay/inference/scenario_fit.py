@@ -6,7 +6,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from lensdelay.lensing.critical import critical_lines
+from lensdelay.lensing.critical import critical_lines_at_scales
 from lensdelay.inference.likelihood import ImageLikelihood
 from lensdelay.inference.fit import FitResult
 
@@ -62,6 +62,10 @@ class ScenarioFit:
         lens = like.model.lens(values[: like.n_model])
         families = []
         families_now = like.families_at(values)
+        # one grid of the lens for every family's critical curves (a cluster's members)
+        lines = critical_lines_at_scales(
+            lens, [fam.scale for fam in families_now], extent=extent, resolution=resolution
+        )
         for k, (fam, pred) in enumerate(zip(families_now, like.predict(values[None, :]))):
             ok = pred["ok"][0]
             families.append(
@@ -74,9 +78,7 @@ class ScenarioFit:
                     "model_x": pred["x"][0, ok],
                     "model_y": pred["y"][0, ok],
                     "source": values[like.source_slice(k)],
-                    "critical_lines": critical_lines(
-                        lens, fam.scale, extent=extent, resolution=resolution
-                    ),
+                    "critical_lines": lines[k],
                 }
             )
         return {
