@@ -457,9 +457,10 @@ def evaluate(lens, x, y, scale=1.0, potential: bool = True):
     size = math.prod(out_shape)
     out = np.empty((7, size))
     kernel, want = kernel_module().evaluate_all, bool(potential)
-    threads.run_ranges(
+    threads.run_split(
         lambda lo, hi: kernel(codes, table, fx, fy, fs, stride, rows, want, lo, hi, out),
-        threads.even_bounds(size, threads.parts_for(size * len(codes), size)),
+        size,
+        size * len(codes),
     )
     return tuple(out[k].reshape(out_shape) for k in range(7))
 
@@ -495,7 +496,7 @@ def block_deflections(lens, x, y, scale, blocks: int):
     # each point's components once, then the changed ones per block: about one lens
     # evaluation plus a little per block
     work = n_rows * n_points * len(codes) * 2
-    threads.run_ranges(rows_of, threads.even_bounds(n_rows, threads.parts_for(work, n_rows)))
+    threads.run_split(rows_of, n_rows, work)
     return out[0], out[1]
 
 
@@ -526,5 +527,5 @@ def newton_solve(
 
     # a few steps per image, each a lens evaluation with its Hessian
     work = size * len(codes) * 4
-    threads.run_ranges(points, threads.even_bounds(size, threads.parts_for(work, size)))
+    threads.run_split(points, size, work)
     return tuple(row.reshape(out_shape) for row in out)

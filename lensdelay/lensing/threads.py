@@ -15,13 +15,14 @@ run on); 1 keeps every call on the calling thread.
 
 from __future__ import annotations
 
+import functools
 import os
 import threading
 from collections.abc import Callable, Sequence
 
 from lensdelay.errors import InputError
 
-__all__ = ["MIN_WORK", "thread_count", "parts_for", "even_bounds", "run_ranges"]
+__all__ = ["MIN_WORK", "thread_count", "parts_for", "even_bounds", "run_split", "run_ranges"]
 
 #: Work (points times lens components, or an estimate in those units) a thread should
 #: get at least: a few milliseconds of kernel time, well above a thread's start.
@@ -31,16 +32,26 @@ MIN_WORK = 10_000
 def thread_count() -> int:
     """Threads a large kernel call may use: ``LENSDELAY_THREADS``, else the usable CPUs."""
     text = os.environ.get("LENSDELAY_THREADS", "").strip()
-    if text:
-        try:
-            count = int(text)
-        except ValueError:
-            count = 0
-        if count < 1:
-            raise InputError(
-                f"LENSDELAY_THREADS must be a whole number of threads, at least 1, got {text!r}"
-            )
-        return count
+    return _count(text) if text else _usable_cpus()
+
+
+@functools.lru_cache(maxsize=8)
+def _count(text: str) -> int:
+    """``LENSDELAY_THREADS``'s value as a count (checked once per value)."""
+    try:
+        count = int(text)
+    except ValueError:
+        count = 0
+    if count < 1:
+        raise InputError(
+            f"LENSDELAY_THREADS must be a whole number of threads, at least 1, got {text!r}"
+        )
+    return count
+
+
+@functools.lru_cache(maxsize=1)
+def _usable_cpus() -> int:
+    """The CPUs this process may run on (asked once: the call is in every kernel call's path)."""
     try:
         return max(len(os.sched_getaffinity(0)), 1)
     except AttributeError:  # not every platform has affinity
@@ -53,6 +64,8 @@ def parts_for(work: float, items: int) -> int:
     Several ranges per thread when there is work enough, so a thread that drew cheap
     items (images that converge at once) takes another range while the others finish.
     """
+    if work < 2 * MIN_WORK:  # the common small call: no need to ask for the thread count
+        return 1
     threads = min(thread_count(), int(work // MIN_WORK), items)
     if threads <= 1:
         return 1
@@ -66,6 +79,15 @@ RANGES_PER_THREAD = 4
 def even_bounds(n: int, parts: int) -> list[int]:
     """Cut points 0 = b₀ ≤ b₁ ≤ … ≤ b_parts = n of ``parts`` nearly equal ranges."""
     return [n * k // parts for k in range(parts + 1)]
+
+
+def run_split(call: Callable[[int, int], None], items: int, work: float) -> None:
+    """``call(lo, hi)`` over ``range(items)``: one call for small work, else ranges on threads."""
+    parts = parts_for(work, items)
+    if parts == 1:
+        call(0, items)
+    else:
+        run_ranges(call, even_bounds(items, parts))
 
 
 def run_ranges(call: Callable[[int, int], None], bounds: Sequence[int]) -> None:
