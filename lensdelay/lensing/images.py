@@ -185,9 +185,11 @@ def _once_per_point(method, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, .
     are put back at every copy. Distinct means not equal bit for bit, so each copy gets
     the value its own evaluation would have given.
     """
-    points = np.stack([np.ravel(x), np.ravel(y)], axis=1)
-    unique, inverse = np.unique(points, axis=0, return_inverse=True)
-    out = method(unique[:, 0], unique[:, 1])
+    points = np.ascontiguousarray(np.stack([np.ravel(x), np.ravel(y)], axis=1), dtype=float)
+    # the two coordinates' 16 bytes as one key: equal keys are equal bit for bit
+    keys = points.view(np.dtype((np.void, points.itemsize * 2))).ravel()
+    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    out = method(points[first, 0], points[first, 1])
     return tuple(np.asarray(o)[inverse.reshape(-1)].reshape(np.shape(x)) for o in out)
 
 
