@@ -166,3 +166,18 @@ def test_batch_workers_share_the_threads(monkeypatch):
     monkeypatch.setenv("LENSDELAY_THREADS", "1")
     _share_threads(4)
     assert threads.thread_count() == 1
+
+
+def test_a_bad_thread_count_is_one_line_before_any_work(monkeypatch, tmp_path, capsys):
+    """The command line refuses a bad LENSDELAY_THREADS at once: exit 2, one line, no output."""
+    from lensdelay.cli.main import main
+
+    monkeypatch.setenv("LENSDELAY_THREADS", "many")
+    out = tmp_path / "out"
+    status = main(["forecast", "scenarios/vellmar_quad.toml", "--out", str(out), "--quiet"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert status == 2
+    assert err == [
+        "lensdelay: LENSDELAY_THREADS must be a whole number of threads, at least 1, got 'many'"
+    ]
+    assert not out.exists()

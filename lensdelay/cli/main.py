@@ -116,6 +116,10 @@ def main(argv=None) -> int:
     try:
         with warnings.catch_warnings():
             configure_libraries()
+            # a bad LENSDELAY_THREADS is refused before any work, not deep inside a job
+            from lensdelay.lensing.threads import thread_count
+
+            thread_count()
             warnings.simplefilter("default", LensdelayWarning)
             warnings.showwarning = _show_warning
             _show_warning.shown = set()
