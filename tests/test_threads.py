@@ -55,14 +55,13 @@ def _walker_lens(rng, walkers=7):
 
 def test_split_evaluation_equals_one_call(rng, split):
     """α, ψ, Hessian and κ of walkers × points, and of one model on a grid."""
-    _, _, lens = _walker_lens(rng)
+    like, rows, lens = _walker_lens(rng)
     x, y = rng.uniform(-1.5, 1.5, (2, 7, 9))
     x[2, 3] = np.nan
     whole, parts = split(lambda: compiled.evaluate(lens, x, y, 0.9))
     for a, b in zip(whole, parts):
         np.testing.assert_array_equal(a, b)
 
-    like, rows, _ = _walker_lens(rng)
     one = like.model.lens(rows[0, : like.n_model])
     gx, gy = rng.uniform(-2, 2, (2, 501))
     whole, parts = split(lambda: compiled.evaluate(one, gx, gy, 1.0))
